@@ -1,0 +1,50 @@
+"""Warnings that are not errors: conditions a planner should know about before trusting a run.
+
+Each check returns plain sentences; the runner prints them once and records them in run.json.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from .frame import Frame
+
+#: a stratum with fewer units than this is called tiny (common practice, no published source)
+TINY_STRATUM = 5
+#: a design sampling more than this share of the frame is flagged (common practice)
+LARGE_FRACTION = 0.5
+#: fewer replicates than this leave coverage MCSE above about 0.01 at 95% (Morris et al. 2019, sec. 5.3)
+FEW_REPLICATES = 500
+
+
+def frame_warnings(frame: Frame) -> list[str]:
+    out = []
+    if frame.roles.get("stratum") is not None:
+        tiny = [str(frame.stratum_labels[h]) for h in np.flatnonzero(frame.N_h < TINY_STRATUM)]
+        if tiny:
+            out.append(f"tiny strata (fewer than {TINY_STRATUM} units): {', '.join(tiny[:10])}")
+    if frame.roles.get("dropped_rows"):
+        out.append(f"{frame.roles['dropped_rows']} frame rows with missing target values were dropped "
+                   f"(missing = \"drop\")")
+    return out
+
+
+def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
+    out = []
+    g1 = stats.skew(frame.y, axis=0, bias=False) if frame.N > 2 else np.zeros(frame.V)
+    for cell in cells:
+        d = cell.design
+        n = d.expected_n(frame)
+        if n > LARGE_FRACTION * frame.N:
+            out.append(f"design {d.label!r} at size {d.size} samples {n / frame.N:.0%} of the frame")
+        for v, g in zip(frame.variables, g1):
+            # Cochran (1977), sec. 2.15: the normal approximation needs n > 25 G1^2
+            if n < 25.0 * g * g:
+                out.append(f"design {d.label!r} at size {d.size}: target {v!r} is skewed (G1 = {g:.2f}); "
+                           f"n = {n:.0f} is below Cochran's n > 25 G1^2 = {25 * g * g:.0f}, so intervals "
+                           f"based on the normal approximation may under-cover")
+    if replicates < FEW_REPLICATES:
+        mcse = np.sqrt(0.95 * 0.05 / replicates)
+        out.append(f"only {replicates} replicates: coverage near 95% has a Monte Carlo SE of about {mcse:.3f}")
+    return out

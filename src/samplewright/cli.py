@@ -1,0 +1,59 @@
+"""The command line: a thin shell over the Python API that turns errors into exit codes.
+
+Exit codes: 0 ok; 2 bad input (one line on stderr starting ``error:``); 1 unexpected.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from . import __version__
+from .commands import COMMANDS
+from .errors import InputError
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # argparse's own usage errors: one line, exit 2
+        self.exit(2, f"error: {message} (see '{self.prog} --help')\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="samplewright",
+                     description="Rehearse competing sampling designs on a population frame and score them.")
+    parser.add_argument("--version", action="version", version=f"samplewright {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for mod in COMMANDS:
+        p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
+        mod.add_arguments(p)
+        p.set_defaults(_main=mod.main)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "_main", None):
+        parser.print_help(sys.stderr)
+        return 2
+    try:
+        return int(args._main(args) or 0)
+    except InputError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("error: interrupted; files already written are complete, nothing half-written was kept",
+              file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # unexpected: say so in one line, keep the detail for --debug
+        if getattr(args, "debug", False):
+            raise
+        print(f"samplewright: unexpected failure: {type(exc).__name__}: {exc} "
+              f"(run again with --debug for the traceback)", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,5 @@
+"""One module per command; each has NAME, HELP, add_arguments(parser) and main(args) -> int."""
+
+from . import demo, run, synth
+
+COMMANDS = [run, demo, synth]

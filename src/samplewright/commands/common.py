@@ -1,0 +1,46 @@
+"""Options and steps shared by several commands."""
+
+from __future__ import annotations
+
+import sys
+
+
+def add_run_options(p) -> None:
+    """Options of every command that simulates (run, demo)."""
+    p.add_argument("--replicates", type=int, help="replicates per design and size (overrides the scenario)")
+    p.add_argument("--seed", type=int, help="root seed of the run (overrides the scenario)")
+    p.add_argument("--jobs", type=int, default=1, help="parallel workers; results do not depend on it")
+    p.add_argument("--force", action="store_true", help="overwrite results already in --out")
+    p.add_argument("--quiet", action="store_true", help="no progress bar and no summary on stdout")
+    p.add_argument("--verbose", action="store_true", help="log each step on stderr")
+    p.add_argument("--debug", action="store_true", help="show a traceback on unexpected failures")
+
+
+def logger(args):
+    if getattr(args, "verbose", False):
+        return lambda msg: print(f"samplewright: {msg}", file=sys.stderr)
+    return None
+
+
+def simulate_and_write(scenario, args) -> int:
+    """Run ``scenario`` with the command's options and write its results to ``args.out``."""
+    from ..outputs import prepare_dir
+    from ..runner import run
+
+    prepare_dir(args.out, force=args.force)  # refuse before spending time simulating
+    res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
+              progress=None if not args.quiet else False, log=logger(args))
+    out = res.write(args.out, force=True)
+    for w in res.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    if not args.quiet:
+        print(format_summary(res.summary))
+        print(f"results written to {out}")
+    return 0
+
+
+def format_summary(summary) -> str:
+    cols = ["design", "size", "estimator", "variable", "bias", "empirical_se", "mean_se", "coverage", "deff",
+            "mean_n", "mean_cost"]
+    s = summary[cols].copy()
+    return s.to_string(index=False, float_format=lambda v: f"{v:.4g}")

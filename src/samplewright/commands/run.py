@@ -1,0 +1,20 @@
+"""samplewright run SCENARIO --out DIR: rehearse a scenario's designs and write the results."""
+
+from __future__ import annotations
+
+from .common import add_run_options, simulate_and_write
+
+NAME = "run"
+HELP = "rehearse the designs of a scenario file and write summary, replicates, allocation and run.json"
+
+
+def add_arguments(p) -> None:
+    p.add_argument("scenario", help="scenario file (TOML)")
+    p.add_argument("--out", required=True, help="results folder (refused if it holds files, unless --force)")
+    add_run_options(p)
+
+
+def main(args) -> int:
+    from ..scenario import load_scenario
+
+    return simulate_and_write(load_scenario(args.scenario), args)

@@ -1,0 +1,14 @@
+"""Sampling designs: one small class per family, all following :class:`Design`."""
+
+from __future__ import annotations
+
+from .base import Design
+from .cluster import Cluster
+from .srs import SRS
+from .stratified import Stratified
+from .systematic import Systematic
+
+#: method name (as written in a scenario) -> design class
+METHODS: dict[str, type[Design]] = {cls.method: cls for cls in (SRS, Stratified, Systematic, Cluster)}
+
+__all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS"]

@@ -1,0 +1,93 @@
+"""The design protocol shared by every selection rule.
+
+A design stores its parameters unchanged (so its ``repr`` is exact), checks them against a
+frame once (`check`), and draws whole blocks of replicates (`draw`, which calls the one
+hook `_draw` each family implements).  Inclusion probabilities and the expected sample
+size are part of the protocol, so shared tests can hold every design to them.
+"""
+
+from __future__ import annotations
+
+import copy
+from typing import ClassVar
+
+import numpy as np
+
+from ..block import SampleBlock
+from ..errors import InputError
+from ..frame import Frame
+
+
+class Design:
+    """Base class: a named, parameterised rule for drawing samples from a frame."""
+
+    method: ClassVar[str] = ""
+    #: the parameter a size sweep varies ("n" or "clusters")
+    size_key: ClassVar[str] = "n"
+    #: scenario keys this design accepts beyond label/method/estimators
+    keys: ClassVar[tuple[str, ...]] = ()
+    #: variance estimators this design can be asked for (first is the default)
+    variances: ClassVar[tuple[str, ...]] = ("psu",)
+
+    def __init__(self, label: str, **params):
+        self.label = label
+        for k, v in params.items():
+            setattr(self, k, v)
+        self._params = dict(params)
+
+    def __repr__(self) -> str:
+        args = ", ".join(f"{k}={v!r}" for k, v in self._params.items())
+        return f"{type(self).__name__}({self.label!r}, {args})"
+
+    # ------------------------------------------------------------ size sweeps
+    @property
+    def size(self):
+        return self._params.get(self.size_key)
+
+    def sizes(self) -> list[int]:
+        s = self.size
+        return list(s) if isinstance(s, (list, tuple)) else [s]
+
+    def at(self, size: int) -> "Design":
+        """A copy of this design with a single size (one point of a sweep)."""
+        d = copy.copy(self)
+        d._params = dict(self._params)
+        d._params[self.size_key] = int(size)
+        setattr(d, self.size_key, int(size))
+        return d
+
+    # --------------------------------------------------------------- protocol
+    def check(self, frame: Frame) -> None:
+        """Refuse (InputError) parameters this frame cannot support; called once per size."""
+
+    def draw(self, frame: Frame, rng: np.random.Generator, B: int, keep_units: bool = False) -> SampleBlock:
+        """Draw ``B`` replicate samples as one :class:`SampleBlock`."""
+        block = self._draw(frame, rng, int(B), keep_units)
+        return block
+
+    def _draw(self, frame, rng, B, keep_units) -> SampleBlock:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def inclusion_probabilities(self, frame: Frame) -> np.ndarray:  # pragma: no cover - abstract
+        """First-order inclusion probability of every unit, shape (N,)."""
+        raise NotImplementedError
+
+    def expected_n(self, frame: Frame) -> float:
+        """Expected number of sampled units (sum of inclusion probabilities)."""
+        return float(self.inclusion_probabilities(frame).sum())
+
+    def stratum_allocation(self, frame: Frame):
+        """Units allocated per stratum as (population_units, sample_units) arrays, or None."""
+        return None
+
+    # ---------------------------------------------------------------- helpers
+    def _need(self, frame: Frame, role: str) -> None:
+        present = {"cluster": frame.cluster is not None, "size": frame.size is not None}[role]
+        if not present:
+            raise InputError(f"design {self.label!r} ({self.method}) needs a {role} column: "
+                             f"set {role} = \"column\" in [frame]")
+
+    def _positive_int(self, key: str, value) -> int:
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value <= 0:
+            raise InputError(f"design {self.label!r}: {key} must be a whole number above 0, got {value!r}")
+        return int(value)

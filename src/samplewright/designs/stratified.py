@@ -1,0 +1,99 @@
+"""Stratified simple random sampling with a chosen allocation."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..allocation import RULES, allocate
+from ..block import SampleBlock
+from ..draws import distinct_positions
+from ..errors import InputError
+from .base import Design
+
+
+class Stratified(Design):
+    """SRS without replacement inside each stratum, ``n`` allocated by ``allocation``.
+
+    ``allocation`` is one of equal, proportional, neyman, optimal (cost-weighted); Neyman
+    and optimal use the exact stratum standard deviations of the first study variable
+    (or of ``allocation_variable``) and, for optimal, the stratum unit costs.
+    """
+
+    method = "stratified"
+    keys = ("n", "allocation", "allocation_variable")
+
+    def __init__(self, label: str, n, allocation: str = "proportional", allocation_variable: str | None = None,
+                 stratum_costs=None):
+        super().__init__(label, n=n, allocation=allocation, allocation_variable=allocation_variable,
+                         stratum_costs=stratum_costs)
+        self._cache = {}
+
+    def check(self, frame):
+        n = self._positive_int("n", self.n)
+        if self.allocation not in RULES:
+            raise InputError(f"design {self.label!r}: allocation {self.allocation!r} is not known "
+                             f"(use one of: {', '.join(RULES)})")
+        if frame.H < 2 and frame.roles.get("stratum") is None:
+            raise InputError(f"design {self.label!r} (stratified) needs a stratum column: "
+                             f"set stratum = \"column\" in [frame]")
+        if self.allocation_variable is not None and self.allocation_variable not in frame.variables:
+            raise InputError(f"design {self.label!r}: allocation_variable {self.allocation_variable!r} "
+                             f"is not a target ({', '.join(frame.variables)})")
+        try:
+            self.n_h(frame)
+        except InputError as exc:
+            raise InputError(f"design {self.label!r}: {exc}") from None
+        if n > frame.N:
+            raise InputError(f"design {self.label!r}: n = {n} is more than the {frame.N} units in the frame")
+
+    def stratum_unit_costs(self, frame) -> np.ndarray:
+        """Mean cost per unit in each stratum, for the cost-optimal allocation."""
+        if self.stratum_costs is not None:
+            return np.asarray(self.stratum_costs, dtype=float)
+        if frame.unit_cost is not None:
+            tot = np.bincount(frame.stratum, weights=frame.unit_cost, minlength=frame.H)
+            return tot / frame.N_h
+        return np.ones(frame.H)
+
+    def n_h(self, frame) -> np.ndarray:
+        key = id(frame)
+        if key not in self._cache:
+            v = 0 if self.allocation_variable is None else frame.variables.index(self.allocation_variable)
+            S_h = np.sqrt(frame.stratum_S2()[:, v])
+            c_h = self.stratum_unit_costs(frame) if self.allocation == "optimal" else None
+            self._cache[key] = allocate(int(self.n), self.allocation, frame.N_h, S_h, c_h)
+        return self._cache[key]
+
+    def at(self, size):
+        d = super().at(size)
+        d._cache = {}
+        return d
+
+    def _draw(self, frame, rng, B, keep_units):
+        n_h = self.n_h(frame)
+        N_h = frame.N_h
+        parts = []
+        for h in np.flatnonzero(n_h):
+            pos = distinct_positions(rng, N_h[h], int(n_h[h]), (B,))
+            parts.append(frame.strata_units[frame.strata_offsets[h] + pos])
+        units = np.concatenate(parts, axis=1)
+        strata = np.flatnonzero(n_h)
+        psu_stratum = np.repeat(strata, n_h[strata])
+        return SampleBlock(
+            sums=frame.values[units],
+            weight=(N_h / np.maximum(n_h, 1))[psu_stratum],
+            psu_stratum=psu_stratum,
+            fpc=1.0 - n_h / N_h,
+            clusters=np.zeros(B),
+            strata=int((n_h > 0).sum()),
+            units=units if keep_units else None,
+        )
+
+    def inclusion_probabilities(self, frame):
+        return (self.n_h(frame) / frame.N_h)[frame.stratum]
+
+    def expected_n(self, frame):
+        return float(self.n_h(frame).sum())
+
+    def stratum_allocation(self, frame):
+        return frame.N_h, self.n_h(frame)

@@ -1,0 +1,154 @@
+"""The replicate engine: blocks of replicates, their seeds, and parallel dispatch.
+
+Seeding
+-------
+One root ``numpy.random.SeedSequence(seed)`` per run.  Block b of size point s of a design
+draws from ``SeedSequence(seed, spawn_key=(design_key, s, b))`` where ``design_key`` is a
+stable checksum of the design's label: the child a ``spawn`` would give, rebuilt by key.
+The block size is fixed per run (and recorded), so the numbers never depend on ``--jobs``,
+the backend or the order in which blocks finish, and adding a design leaves the others'
+numbers unchanged.
+"""
+
+from __future__ import annotations
+
+import zlib
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .cost import CostModel
+from .designs import Design
+from .estimators import ESTIMATORS, sample_units
+from .frame import Frame
+
+
+@dataclass(frozen=True)
+class Cell:
+    """One design at one size: the unit of work the engine splits into blocks."""
+
+    design: Design  # at a single size
+    design_index: int  # position in the scenario (for ordering output)
+    size_index: int
+    estimators: tuple[str, ...]
+
+    @property
+    def key(self) -> int:
+        return zlib.crc32(self.design.label.encode("utf-8"))
+
+
+@dataclass
+class BlockResult:
+    """One block's per-replicate results, tagged with the cell and block it came from."""
+
+    cell: int
+    block: int
+    start: int
+    estimate: np.ndarray  # (E, B, V)
+    se: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    n: np.ndarray  # (B,)
+    cost: np.ndarray  # (B,)
+
+
+def block_seed(seed: int, cell: Cell, block: int) -> np.random.SeedSequence:
+    """The seed of one block (see module notes)."""
+    return np.random.SeedSequence(seed, spawn_key=(cell.key, cell.size_index, block))
+
+
+def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
+    """(block index, first replicate, count) for every block of a cell."""
+    return [(b, s, min(block_size, replicates - s)) for b, s in enumerate(range(0, replicates, block_size))]
+
+
+def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, count: int,
+              seedseq: np.random.SeedSequence, confidence: float, cost: CostModel) -> BlockResult:
+    """Draw one block of replicates and estimate with every estimator of the cell."""
+    rng = np.random.default_rng(seedseq)
+    sample = cell.design.draw(frame, rng, count)
+    outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence) for e in cell.estimators]
+    return BlockResult(
+        cell=cell_id, block=block, start=start,
+        estimate=np.stack([o.estimate for o in outs]),
+        se=np.stack([o.se for o in outs]),
+        lower=np.stack([o.lower for o in outs]),
+        upper=np.stack([o.upper for o in outs]),
+        n=sample_units(sample),
+        cost=cost.replicate_cost(sample),
+    )
+
+
+def make_cells(designs, estimators) -> list[Cell]:
+    """Expand every design's size sweep into cells."""
+    cells = []
+    for i, (d, est) in enumerate(zip(designs, estimators)):
+        for j, size in enumerate(d.sizes()):
+            cells.append(Cell(design=d.at(size), design_index=i, size_index=j, estimators=tuple(est)))
+    return cells
+
+
+def simulate(frame: Frame, cells: list[Cell], replicates: int, seed: int, block_size: int,
+             confidence: float, cost: CostModel, jobs: int = 1, progress=None) -> list[BlockResult]:
+    """Run every block of every cell; results come back tagged, in any order.
+
+    ``progress``, when given, is called with (cell id, replicates done in that block) after
+    each block completes.
+    """
+    tasks = []
+    for ci, cell in enumerate(cells):
+        for b, s, count in block_spans(replicates, block_size):
+            tasks.append((ci, b, s, count, block_seed(seed, cell, b)))
+    results = []
+    if jobs == 1:
+        for ci, b, s, count, ss in tasks:
+            r = run_block(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
+            results.append(r)
+            if progress:
+                progress(ci, count)
+        return results
+    from joblib import Parallel, delayed
+
+    par = Parallel(n_jobs=jobs, return_as="generator_unordered")
+    gen = par(delayed(run_block)(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
+              for ci, b, s, count, ss in tasks)
+    for r in gen:
+        results.append(r)
+        if progress:
+            progress(r.cell, len(r.n))
+    return results
+
+
+def replicate_table(results: list[BlockResult], cells: list[Cell], variables) -> pd.DataFrame:
+    """Tidy per-replicate table (contract columns), ordered by design, size, estimator, variable, replicate."""
+    results = sorted(results, key=lambda r: (r.cell, r.block))
+    frames = []
+    V = len(variables)
+    for ci, cell in enumerate(cells):
+        mine = [r for r in results if r.cell == ci]
+        if not mine:
+            continue
+        est = np.concatenate([r.estimate for r in mine], axis=1)  # (E, R, V)
+        se = np.concatenate([r.se for r in mine], axis=1)
+        lo = np.concatenate([r.lower for r in mine], axis=1)
+        hi = np.concatenate([r.upper for r in mine], axis=1)
+        n = np.concatenate([r.n for r in mine])
+        cost = np.concatenate([r.cost for r in mine])
+        rep = np.concatenate([np.arange(r.start, r.start + len(r.n)) for r in mine])
+        E, R = est.shape[0], est.shape[1]
+        # layout: estimator, variable, replicate
+        frames.append(pd.DataFrame({
+            "replicate": np.tile(rep, E * V),
+            "design": cell.design.label,
+            "size": int(cell.design.size),
+            "estimator": np.repeat(np.array(cell.estimators, dtype=object), V * R),
+            "variable": np.tile(np.repeat(np.array(variables, dtype=object), R), E),
+            "estimate": est.transpose(0, 2, 1).reshape(-1),
+            "se": se.transpose(0, 2, 1).reshape(-1),
+            "lower": lo.transpose(0, 2, 1).reshape(-1),
+            "upper": hi.transpose(0, 2, 1).reshape(-1),
+            "n": np.tile(n, E * V),
+            "cost": np.tile(cost, E * V),
+        }))
+    return pd.concat(frames, ignore_index=True)

@@ -1,0 +1,246 @@
+"""The population frame: numpy arrays per role and the exact population truths.
+
+A `Frame` is built once at the boundary (from a file or a DataFrame), checked there, and
+then trusted by every design and estimator.  Nothing in the replicate loop touches pandas.
+
+Value columns
+-------------
+Designs gather rows of ``Frame.values``, an ``(N, V + 2)`` array whose columns are the V
+study variables, a column of ones (so a gathered sum counts units) and the unit cost (zero
+where the frame has none).  One gather then yields estimated totals, sample sizes and the
+variable part of the field cost together.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from .errors import InputError
+
+#: index of the "ones" column and of the unit-cost column, counted from the end of ``values``
+COUNT = -2
+COST = -1
+
+
+def _codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
+    """Integer codes 0..K-1 in order of first sorted label, and the labels."""
+    codes, labels = pd.factorize(series, sort=True)
+    return codes.astype(np.int64), tuple(labels.tolist())
+
+
+def _group_index(codes: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Units sorted by group (stable) and the offsets of each group's run (length k + 1)."""
+    idx = np.argsort(codes, kind="stable")
+    counts = np.bincount(codes, minlength=k)
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    return idx.astype(np.int64), offsets.astype(np.int64)
+
+
+@dataclass(frozen=True, eq=False)
+class Frame:
+    """A population frame held as arrays, with its structure precomputed.
+
+    Build it with :meth:`Frame.from_dataframe` or :meth:`Frame.load`.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"y": [1.0, 2.0, 3.0, 4.0], "band": ["a", "a", "b", "b"]})
+    >>> f = Frame.from_dataframe(df, target="y", stratum="band")
+    >>> f.N, f.H, float(f.mean[0])
+    (4, 2, 2.5)
+    """
+
+    variables: tuple[str, ...]
+    y: np.ndarray  # (N, V) study variables
+    stratum: np.ndarray  # (N,) codes 0..H-1 (all zero when the frame has no strata)
+    stratum_labels: tuple
+    cluster: np.ndarray | None = None  # (N,) codes 0..C-1
+    cluster_labels: tuple = ()
+    size: np.ndarray | None = None  # (N,) size measure
+    order: np.ndarray | None = None  # (N,) unit indices in list order
+    unit_cost: np.ndarray | None = None  # (N,)
+    roles: dict = field(default_factory=dict)  # role -> column name, for reports
+    # derived, filled in __post_init__
+    values: np.ndarray = field(init=False, repr=False)
+    strata_units: np.ndarray = field(init=False, repr=False)
+    strata_offsets: np.ndarray = field(init=False, repr=False)
+    cluster_units: np.ndarray | None = field(init=False, repr=False, default=None)
+    cluster_offsets: np.ndarray | None = field(init=False, repr=False, default=None)
+    cluster_sums: np.ndarray | None = field(init=False, repr=False, default=None)
+    cluster_stratum: np.ndarray | None = field(init=False, repr=False, default=None)
+
+    def __post_init__(self):
+        y = np.ascontiguousarray(self.y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
+        object.__setattr__(self, "y", y)
+        n = y.shape[0]
+        cost = np.zeros(n) if self.unit_cost is None else np.asarray(self.unit_cost, dtype=np.float64)
+        values = np.column_stack([y, np.ones(n), cost])
+        object.__setattr__(self, "values", values)
+        if self.order is None:
+            object.__setattr__(self, "order", np.arange(n, dtype=np.int64))
+        su, so = _group_index(self.stratum, self.H)
+        object.__setattr__(self, "strata_units", su)
+        object.__setattr__(self, "strata_offsets", so)
+        if self.cluster is not None:
+            c = len(self.cluster_labels)
+            cu, co = _group_index(self.cluster, c)
+            object.__setattr__(self, "cluster_units", cu)
+            object.__setattr__(self, "cluster_offsets", co)
+            sums = np.zeros((c, values.shape[1]))
+            np.add.at(sums, self.cluster, values)
+            object.__setattr__(self, "cluster_sums", sums)
+            cs = np.zeros(c, dtype=np.int64)
+            cs[self.cluster] = self.stratum
+            object.__setattr__(self, "cluster_stratum", cs)
+
+    # ----------------------------------------------------------------- sizes
+    @property
+    def N(self) -> int:
+        return int(self.y.shape[0])
+
+    @property
+    def V(self) -> int:
+        return int(self.y.shape[1])
+
+    @property
+    def H(self) -> int:
+        return len(self.stratum_labels)
+
+    @property
+    def C(self) -> int:
+        return len(self.cluster_labels)
+
+    @property
+    def N_h(self) -> np.ndarray:
+        return np.diff(self.strata_offsets)
+
+    @property
+    def cluster_sizes(self) -> np.ndarray:
+        if self.cluster_offsets is None:
+            raise InputError("the frame has no cluster column")
+        return np.diff(self.cluster_offsets)
+
+    # ---------------------------------------------------------------- truths
+    @property
+    def total(self) -> np.ndarray:
+        """Exact population total of each study variable, shape (V,)."""
+        return self.y.sum(axis=0)
+
+    @property
+    def mean(self) -> np.ndarray:
+        """Exact population mean of each study variable, shape (V,)."""
+        return self.y.mean(axis=0)
+
+    @property
+    def S2(self) -> np.ndarray:
+        """Population variance with divisor N - 1 (Cochran's S^2), shape (V,)."""
+        return self.y.var(axis=0, ddof=1) if self.N > 1 else np.zeros(self.V)
+
+    def stratum_means(self) -> np.ndarray:
+        """Exact stratum means, shape (H, V)."""
+        sums = np.zeros((self.H, self.V))
+        np.add.at(sums, self.stratum, self.y)
+        return sums / self.N_h[:, None]
+
+    def stratum_S2(self) -> np.ndarray:
+        """Stratum variances S_h^2 (divisor N_h - 1; zero for a one-unit stratum), shape (H, V)."""
+        dev = self.y - self.stratum_means()[self.stratum]
+        ss = np.zeros((self.H, self.V))
+        np.add.at(ss, self.stratum, dev**2)
+        denom = np.maximum(self.N_h - 1, 1)[:, None]
+        return ss / denom
+
+    def srs_variance_of_mean(self, n: float) -> np.ndarray:
+        """Exact variance of the SRS-without-replacement mean at sample size n (Cochran 1977, eq. 2.8)."""
+        n = float(n)
+        return (1.0 - n / self.N) * self.S2 / n
+
+    # --------------------------------------------------------------- builders
+    @classmethod
+    def from_dataframe(
+        cls,
+        df: pd.DataFrame,
+        target,
+        stratum: str | None = None,
+        cluster: str | None = None,
+        size: str | None = None,
+        order: str | None = None,
+        unit_cost: str | None = None,
+        id: str | None = None,
+        missing: str = "refuse",
+        source: str = "frame",
+    ) -> "Frame":
+        """Bind the columns of ``df`` to roles, check them, and build a Frame.
+
+        ``target`` is a column name or a list of names.  ``missing="drop"`` drops rows whose
+        target values are missing or not finite (and says how many in ``Frame.roles``);
+        the default refuses them.
+        """
+        from .validate import frame_columns  # the one validation layer
+
+        df, roles = frame_columns(
+            df, target=target, stratum=stratum, cluster=cluster, size=size, order=order,
+            unit_cost=unit_cost, id=id, missing=missing, source=source,
+        )
+        targets = roles["target"]
+        y = df[list(targets)].to_numpy(dtype=np.float64)
+        if stratum is not None:
+            s_codes, s_labels = _codes(df[stratum])
+        else:
+            s_codes, s_labels = np.zeros(len(df), dtype=np.int64), ("all",)
+        c_codes, c_labels = (None, ())
+        if cluster is not None:
+            c_codes, c_labels = _codes(df[cluster])
+        order_idx = None
+        if order is not None:
+            order_idx = np.argsort(df[order].to_numpy(), kind="stable").astype(np.int64)
+        return cls(
+            variables=tuple(targets),
+            y=y,
+            stratum=s_codes,
+            stratum_labels=s_labels,
+            cluster=c_codes,
+            cluster_labels=c_labels,
+            size=None if size is None else df[size].to_numpy(dtype=np.float64),
+            order=order_idx,
+            unit_cost=None if unit_cost is None else df[unit_cost].to_numpy(dtype=np.float64),
+            roles=roles,
+        )
+
+    @classmethod
+    def load(cls, path, **roles) -> "Frame":
+        """Read a CSV or Parquet file and bind its columns (see :meth:`from_dataframe`)."""
+        return cls.from_dataframe(read_table(path), source=str(path), **roles)
+
+
+def read_table(path) -> pd.DataFrame:
+    """Read a CSV or Parquet file into a DataFrame; refuse a missing, unreadable or empty one."""
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"frame file {str(p)!r} does not exist")
+    if p.is_dir():
+        raise InputError(f"frame file {str(p)!r} is a directory, not a CSV or Parquet file")
+    suffix = p.suffix.lower()
+    try:
+        if suffix in (".parquet", ".pq"):
+            df = pd.read_parquet(p)
+        elif suffix in (".csv", ".txt", ".gz"):
+            df = pd.read_csv(p)
+        else:
+            raise InputError(f"frame file {str(p)!r}: unknown format {suffix!r} (use .csv or .parquet)")
+    except InputError:
+        raise
+    except pd.errors.EmptyDataError:
+        raise InputError(f"frame file {str(p)!r} is empty") from None
+    except Exception as exc:  # unreadable: permissions, corrupt parquet, bad encoding
+        raise InputError(f"frame file {str(p)!r} could not be read: {type(exc).__name__}: {exc}") from None
+    if len(df) == 0:
+        raise InputError(f"frame file {str(p)!r} has a header but no rows")
+    return df

@@ -1,0 +1,50 @@
+"""The result of a run: tidy tables plus the metadata needed to reproduce it."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from .outputs import prepare_dir, write_csv, write_json, write_parquet
+
+ALLOCATION_COLUMNS = ["design", "size", "stratum", "population_units", "sample_units"]
+
+
+@dataclass
+class RunResult:
+    """Everything a run produced.
+
+    Attributes
+    ----------
+    summary : DataFrame
+        One row per design x size x estimator x variable (see ``evaluate.SUMMARY_COLUMNS``).
+    replicates : DataFrame
+        Every replicate's estimate, SE, interval, sample size and cost.
+    allocation : DataFrame
+        Units per stratum for designs with an allocation.
+    info : dict
+        Run metadata written to run.json (seed, replicates, jobs, versions, timing, warnings).
+    """
+
+    summary: pd.DataFrame
+    replicates: pd.DataFrame
+    allocation: pd.DataFrame
+    info: dict
+    frontier: pd.DataFrame | None = None
+    recommendation: dict | None = None
+    warnings: list[str] = field(default_factory=list)
+
+    def write(self, out, force: bool = False) -> Path:
+        """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``)."""
+        p = prepare_dir(out, force=force)
+        write_parquet(self.replicates, p / "replicates.parquet")
+        write_csv(self.summary, p / "summary.csv")
+        write_csv(self.allocation, p / "allocation.csv")
+        if self.frontier is not None:
+            write_csv(self.frontier, p / "frontier.csv")
+        if self.recommendation is not None:
+            write_json(self.recommendation, p / "recommendation.json")
+        write_json(self.info, p / "run.json")  # last: its presence marks a complete run
+        return p

@@ -1,0 +1,124 @@
+"""Run a scenario: bind the frame, check the designs, simulate, evaluate."""
+
+from __future__ import annotations
+
+import platform
+import time
+
+import numpy as np
+import pandas as pd
+
+from . import __version__
+from .checks import design_warnings, frame_warnings
+from .engine import make_cells, replicate_table, simulate
+from .errors import InputError
+from .evaluate import summarise
+from .frame import Frame
+from .progress import Progress
+from .result import ALLOCATION_COLUMNS, RunResult
+from .scenario import Scenario
+
+
+def _versions() -> dict:
+    import joblib
+    import scipy
+
+    return {"samplewright": __version__, "python": platform.python_version(), "numpy": np.__version__,
+            "pandas": pd.__version__, "scipy": scipy.__version__, "joblib": joblib.__version__}
+
+
+def allocation_table(frame: Frame, cells) -> pd.DataFrame:
+    rows = []
+    for cell in cells:
+        alloc = cell.design.stratum_allocation(frame)
+        if alloc is None:
+            continue
+        N_h, n_h = alloc
+        for h, label in enumerate(frame.stratum_labels):
+            rows.append({"design": cell.design.label, "size": int(cell.design.size), "stratum": label,
+                         "population_units": int(N_h[h]), "sample_units": int(n_h[h])})
+    return pd.DataFrame(rows, columns=ALLOCATION_COLUMNS)
+
+
+def run(scenario: Scenario, replicates: int | None = None, seed: int | None = None, jobs: int = 1,
+        block_size: int | None = None, frame: Frame | None = None, progress: bool | None = False,
+        log=None) -> RunResult:
+    """Rehearse every design of ``scenario`` and score it.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        From :func:`load_scenario` or :func:`scenario_from_dict`.
+    replicates, seed, block_size : int, optional
+        Override the scenario's values.
+    jobs : int
+        Parallel workers (joblib); results do not depend on it.
+    frame : Frame, optional
+        A frame already loaded (otherwise the scenario's frame is loaded).
+    progress : bool or None
+        Show a progress bar on stderr (None: only when stderr is a terminal).
+    log : callable, optional
+        Called with one line of text for each step (``--verbose``).
+
+    Examples
+    --------
+    >>> from samplewright import scenario_from_dict, run
+    >>> sc = scenario_from_dict({"frame": {"synthetic": {"units": 400, "seed": 2}},
+    ...                          "design": [{"label": "simple", "method": "srs", "n": 40}]})
+    >>> res = run(sc, replicates=200, seed=1)
+    >>> res.summary[["design", "estimator", "replicates"]].iloc[0].tolist()
+    ['simple', 'ht', 200]
+    """
+    say = log or (lambda _msg: None)
+    t0 = time.monotonic()
+    R = scenario.replicates if replicates is None else int(replicates)
+    if R <= 0:
+        raise InputError(f"replicates must be at least 1, got {R}")
+    seed = scenario.seed if seed is None else int(seed)
+    if seed < 0:
+        raise InputError(f"seed must be a whole number of at least 0, got {seed}")
+    bs = scenario.block_size if block_size is None else int(block_size)
+    if jobs < 1:
+        raise InputError(f"jobs must be at least 1, got {jobs}")
+    if frame is None:
+        say("loading the frame")
+        frame = scenario.load_frame()
+    say(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
+    cells = make_cells(scenario.designs, scenario.estimators)
+    for cell in cells:
+        cell.design.check(frame)
+    notes = frame_warnings(frame) + design_warnings(frame, cells, R)
+    say(f"{len(cells)} design x size cells, {R} replicates each, blocks of {bs}")
+    bar = Progress({c.design.label: 0 for c in cells}, enabled=progress)
+    for c in cells:
+        bar.totals[c.design.label] += R
+    t1 = time.monotonic()
+    results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, jobs=jobs,
+                       progress=lambda ci, k: bar.update(cells[ci].design.label, k))
+    bar.close()
+    t2 = time.monotonic()
+    reps = replicate_table(results, cells, frame.variables)
+    methods = {d.label: d.method for d in scenario.designs}
+    summary = summarise(reps, frame, methods, scenario.confidence)
+    alloc = allocation_table(frame, cells)
+    info = {
+        "title": scenario.title,
+        "scenario": str(scenario.source) if scenario.source else None,
+        "scenario_hash": scenario.hash,
+        "seed": seed,
+        "seed_entropy": int(np.random.SeedSequence(seed).entropy),
+        "replicates": R,
+        "block_size": bs,
+        "jobs": jobs,
+        "confidence": scenario.confidence,
+        "frame": {"units": frame.N, "strata": frame.H, "clusters": frame.C, "variables": list(frame.variables),
+                  "roles": {k: v for k, v in frame.roles.items() if k != "source"},
+                  "source": frame.roles.get("source")},
+        "designs": [{"label": d.label, "method": d.method, "parameters": repr(d)} for d in scenario.designs],
+        "versions": _versions(),
+        "elapsed_seconds": round(time.monotonic() - t0, 3),
+        "simulation_seconds": round(t2 - t1, 3),
+        "warnings": notes,
+    }
+    say(f"simulated in {t2 - t1:.2f} s")
+    return RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes)

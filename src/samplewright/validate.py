@@ -1,0 +1,136 @@
+"""The one validation layer for frames: every check of a user's columns happens here.
+
+Each refusal raises :class:`~samplewright.errors.InputError` with a message that names the
+file, column, row or value at fault and, where it helps, what would be accepted.
+"""
+
+from __future__ import annotations
+
+import difflib
+
+import numpy as np
+import pandas as pd
+
+from .errors import InputError
+
+
+def closest(word: str, options) -> str:
+    """A ``" (did you mean 'x'?)"`` hint, or a list of what is accepted."""
+    options = [str(o) for o in options]
+    near = difflib.get_close_matches(str(word), options, n=1, cutoff=0.5)
+    if near:
+        return f" (did you mean {near[0]!r}?)"
+    if len(options) <= 12:
+        return f" (expected one of: {', '.join(options)})"
+    return ""
+
+
+def _rows(mask: np.ndarray, limit: int = 5) -> str:
+    """First offending rows, numbered as in a spreadsheet with a header row (data starts at row 2)."""
+    rows = np.flatnonzero(mask)[:limit] + 2
+    more = " ..." if mask.sum() > limit else ""
+    return ", ".join(str(r) for r in rows) + more
+
+
+def _require_column(df: pd.DataFrame, col, role: str, source: str) -> str:
+    if not isinstance(col, str) or not col:
+        raise InputError(f"{source}: the {role} column must be given as a column name, got {col!r}")
+    if col not in df.columns:
+        raise InputError(f"{source}: {role} column {col!r} is not in the frame{closest(col, df.columns)}")
+    return col
+
+
+def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str) -> tuple[pd.Series, np.ndarray]:
+    """Coerce a column to float; return it and a mask of rows that are not finite numbers."""
+    raw = df[col]
+    num = pd.to_numeric(raw, errors="coerce").astype(float)
+    text = num.isna() & raw.notna()
+    bad = ~np.isfinite(num.to_numpy())
+    if text.any() and missing != "drop":
+        first = raw[text].iloc[0]
+        raise InputError(
+            f"{source}: {role} column {col!r} has {int(text.sum())} non-numeric value(s), "
+            f"first {first!r} at row(s) {_rows(text.to_numpy())}"
+        )
+    return num, bad
+
+
+def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=None, order=None,
+                  unit_cost=None, id=None, missing="refuse", source="frame"):
+    """Check the role columns of a frame; return the (possibly row-dropped) frame and the roles.
+
+    Rules: every named column exists; target values are finite numbers (``missing="drop"``
+    drops the rows that are not and records how many); stratum and cluster labels are
+    present; a cluster code belongs to one stratum only; ids are unique; unit costs are
+    finite and not negative; the size measure and the order column are finite numbers.
+    """
+    if missing not in ("refuse", "drop"):
+        raise InputError(f"{source}: missing = {missing!r} is not accepted (use 'refuse' or 'drop')")
+    if not isinstance(df, pd.DataFrame):
+        raise InputError(f"{source}: expected a table, got {type(df).__name__}")
+    if len(df) == 0:
+        raise InputError(f"{source}: the frame has no rows")
+    targets = [target] if isinstance(target, str) else list(target or [])
+    if not targets:
+        raise InputError(f"{source}: no target column given (set target = \"column\" in [frame])")
+    if len(set(targets)) != len(targets):
+        raise InputError(f"{source}: target lists a column twice: {targets}")
+    for t in targets:
+        _require_column(df, t, "target", source)
+    named = {"stratum": stratum, "cluster": cluster, "size": size, "order": order,
+             "unit_cost": unit_cost, "id": id}
+    for role, col in named.items():
+        if col is not None:
+            _require_column(df, col, role, source)
+
+    df = df.copy()
+    drop = np.zeros(len(df), dtype=bool)
+    for t in targets:
+        num, bad = _numeric(df, t, "target", source, missing)
+        df[t] = num
+        if bad.any() and missing != "drop":
+            raise InputError(
+                f"{source}: target column {t!r} has {int(bad.sum())} missing or non-finite value(s) "
+                f"at row(s) {_rows(bad)}; fix them or set missing = \"drop\" in [frame]"
+            )
+        drop |= bad
+    dropped = int(drop.sum())
+    if dropped:
+        df = df.loc[~drop].reset_index(drop=True)
+        if len(df) == 0:
+            raise InputError(f"{source}: every row has a missing target value; nothing is left to sample")
+
+    for role in ("stratum", "cluster"):
+        col = named[role]
+        if col is not None and df[col].isna().any():
+            bad = df[col].isna().to_numpy()
+            raise InputError(f"{source}: {role} column {col!r} is blank at row(s) {_rows(bad)}")
+    for role in ("size", "order", "unit_cost"):
+        col = named[role]
+        if col is None:
+            continue
+        num, bad = _numeric(df, col, role, source, "refuse")
+        if bad.any():
+            raise InputError(f"{source}: {role} column {col!r} has missing or non-finite value(s) "
+                             f"at row(s) {_rows(bad)}")
+        if role == "unit_cost" and (num < 0).any():
+            neg = (num < 0).to_numpy()
+            raise InputError(f"{source}: unit_cost column {col!r} has negative cost(s) at row(s) {_rows(neg)}")
+        df[col] = num
+    if id is not None:
+        dup = df[id].duplicated(keep=False).to_numpy()
+        if dup.any():
+            first = df[id][dup].iloc[0]
+            raise InputError(f"{source}: id column {id!r} has {int(dup.sum())} rows with repeated ids, "
+                             f"first {first!r} at row(s) {_rows(dup)}")
+    if stratum is not None and cluster is not None:
+        per = df.groupby(cluster, sort=False)[stratum].nunique()
+        spanning = per[per > 1]
+        if len(spanning):
+            c = spanning.index[0]
+            strata = sorted(df.loc[df[cluster] == c, stratum].unique().tolist())[:3]
+            raise InputError(f"{source}: cluster {c!r} (column {cluster!r}) appears in more than one stratum "
+                             f"({', '.join(map(str, strata))}); clusters must nest in strata")
+    roles = {"target": tuple(targets), **{k: v for k, v in named.items() if v is not None},
+             "dropped_rows": dropped, "source": source}
+    return df, roles
