@@ -42,6 +42,9 @@ class SampleBlock:
         The sampled unit indices, kept only when asked for (tests, exact mode).
     variance : str
         Name of the variance estimator the design asks for (see ``estimators.VARIANCE``).
+    design_info : dict or None
+        Design constants a variance routine needs beyond the block (for example the
+        population sum of squared inclusion probabilities, or exact joint probabilities).
     """
 
     sums: np.ndarray
@@ -53,6 +56,7 @@ class SampleBlock:
     mask: np.ndarray | None = None
     units: np.ndarray | None = None
     variance: str = "psu"
+    design_info: dict | None = None
 
     @property
     def B(self) -> int:

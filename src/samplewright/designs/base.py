@@ -80,7 +80,33 @@ class Design:
         """Units allocated per stratum as (population_units, sample_units) arrays, or None."""
         return None
 
+    def notes(self, frame: Frame) -> list[str]:
+        """Plain sentences about how the design was set up (e.g. certainty units); run.json warnings."""
+        return []
+
+    # ------------------------------------------------------------ exact mode
+    def count_samples(self, frame: Frame) -> int:
+        """Number of possible samples (with positive probability); see :mod:`samplewright.exact`."""
+        raise InputError(f"design {self.label!r}: exact mode is not available for method {self.method!r}")
+
+    def enumerate(self, frame: Frame, chunk: int = 20_000):
+        """Yield ``(SampleBlock, probabilities)`` over every possible sample, in chunks."""
+        raise InputError(f"design {self.label!r}: exact mode is not available for method {self.method!r}")
+
+    @property
+    def variance_name(self) -> str:
+        """The variance estimator this design uses (its ``variance`` key, else the default)."""
+        return self._params.get("variance") or self.variances[0]
+
     # ---------------------------------------------------------------- helpers
+    def _check_variance(self) -> None:
+        v = self._params.get("variance")
+        if v is not None and v not in self.variances:
+            from ..validate import closest
+
+            raise InputError(f"design {self.label!r} ({self.method}): variance = {v!r} is not available "
+                             f"for this method{closest(str(v), self.variances)}")
+
     def _need(self, frame: Frame, role: str) -> None:
         present = {"cluster": frame.cluster is not None, "size": frame.size is not None}[role]
         if not present:
