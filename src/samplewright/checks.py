@@ -33,6 +33,7 @@ def frame_warnings(frame: Frame) -> list[str]:
 def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
     out = []
     g1 = stats.skew(frame.y, axis=0, bias=False) if frame.N > 2 else np.zeros(frame.V)
+    small = {v: [] for v in frame.variables}  # variable -> designs/sizes below Cochran's bound
     for cell in cells:
         d = cell.design
         n = d.expected_n(frame)
@@ -41,9 +42,12 @@ def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
         for v, g in zip(frame.variables, g1):
             # Cochran (1977), sec. 2.15: the normal approximation needs n > 25 G1^2
             if n < 25.0 * g * g:
-                out.append(f"design {d.label!r} at size {d.size}: target {v!r} is skewed (G1 = {g:.2f}); "
-                           f"n = {n:.0f} is below Cochran's n > 25 G1^2 = {25 * g * g:.0f}, so intervals "
-                           f"based on the normal approximation may under-cover")
+                small[v].append(f"{d.label} ({n:.0f})")
+    for v, g in zip(frame.variables, g1):
+        if small[v]:
+            out.append(f"target {v!r} is skewed (G1 = {g:.2f}): Cochran's rule n > 25 G1^2 = {25 * g * g:.0f} "
+                       f"is not met by {', '.join(small[v])}; intervals based on the normal approximation "
+                       f"may under-cover")
     if replicates < FEW_REPLICATES:
         mcse = np.sqrt(0.95 * 0.05 / replicates)
         out.append(f"only {replicates} replicates: coverage near 95% has a Monte Carlo SE of about {mcse:.3f}")
