@@ -1,0 +1,79 @@
+"""End-to-end: `samplewright run` on every scenario in scenarios/ and `samplewright demo`."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pandas as pd
+import pyarrow.parquet as pq
+import pytest
+
+from samplewright.cli import main
+from samplewright.evaluate import SUMMARY_COLUMNS
+from samplewright.result import ALLOCATION_COLUMNS
+
+ROOT = Path(__file__).resolve().parents[1]
+SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))
+REPLICATE_COLUMNS = ["replicate", "design", "size", "estimator", "variable", "estimate", "se", "lower", "upper",
+                     "n", "cost"]
+
+
+def check_contract(out: Path, replicates: int):
+    summary = pd.read_csv(out / "summary.csv")
+    assert list(summary.columns[: len(SUMMARY_COLUMNS)]) == SUMMARY_COLUMNS
+    assert (summary["replicates"] == replicates).all() or "exact" in json.loads((out / "run.json").read_text())
+    cols = pq.read_schema(out / "replicates.parquet").names
+    assert all(c in cols for c in REPLICATE_COLUMNS)
+    alloc = pd.read_csv(out / "allocation.csv")
+    assert all(c in alloc.columns for c in ALLOCATION_COLUMNS)
+    info = json.loads((out / "run.json").read_text())
+    for key in ("seed", "replicates", "jobs", "versions", "elapsed_seconds", "scenario_hash", "block_size"):
+        assert key in info
+    assert not list(out.glob("*.tmp")) and not list(out.glob(".*.tmp"))  # no temporary files left
+    return summary
+
+
+@pytest.mark.parametrize("scenario", SCENARIOS, ids=[s.stem for s in SCENARIOS])
+def test_run_every_scenario(scenario, tmp_path, capsys):
+    out = tmp_path / "res"
+    code = main(["run", str(scenario), "--out", str(out), "--replicates", "120", "--quiet"])
+    assert code == 0, capsys.readouterr().err
+    summary = check_contract(out, 120)
+    assert len(summary) > 0
+    assert summary["coverage"].between(0, 1).all()
+
+
+def test_demo_writes_contract_files(tmp_path):
+    out = tmp_path / "demo"
+    proc = subprocess.run([sys.executable, "-m", "samplewright", "demo", "--out", str(out), "--replicates", "150"],
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    summary = check_contract(out, 150)
+    assert set(summary["method"]) >= {"srs", "stratified", "systematic", "cluster"}
+    assert "Traceback" not in proc.stderr
+
+
+def test_run_refuses_to_overwrite_without_force(tmp_path, capsys):
+    out = tmp_path / "res"
+    args = ["run", str(SCENARIOS[0]), "--out", str(out), "--replicates", "50", "--quiet"]
+    assert main(args) == 0
+    capsys.readouterr()
+    before = (out / "summary.csv").read_bytes()
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error:") and str(out) in err and "--force" in err
+    assert (out / "summary.csv").read_bytes() == before
+    assert main(args + ["--force"]) == 0
+
+
+def test_synth_writes_the_frame(tmp_path, capsys):
+    demo = ROOT / "src" / "samplewright" / "data" / "demo.toml"
+    for name in ("frame.csv", "frame.parquet"):
+        out = tmp_path / name
+        assert main(["synth", str(demo), "--out", str(out)]) == 0
+        df = pd.read_csv(out) if name.endswith(".csv") else pd.read_parquet(out)
+        assert len(df) == 24000 and {"stratum", "cluster", "apples"} <= set(df.columns)
+    assert main(["synth", str(demo), "--out", str(tmp_path / "frame.csv")]) == 2  # exists, no --force
