@@ -66,10 +66,11 @@ class SampleBlock:
     def H(self) -> int:
         return int(self.fpc.shape[-1])
 
-    def weighted(self) -> np.ndarray:
-        """Estimated PSU totals of every value column, shape (B, m, K)."""
-        w = np.broadcast_to(self.weight, self.sums.shape[:2])
-        z = self.sums * w[..., None]
+    def weighted(self, columns: slice | None = None) -> np.ndarray:
+        """Estimated PSU totals of every value column (or of ``columns`` only), shape (B, m, K)."""
+        sums = self.sums if columns is None else self.sums[..., columns]
+        w = self.weight
+        z = sums * w[..., None]  # (m,) or (B, m) weights broadcast over replicates and columns
         if self.mask is not None:
             z = np.where(self.mask[..., None], z, 0.0)
         return z

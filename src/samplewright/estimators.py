@@ -49,10 +49,27 @@ def _onehot(codes: np.ndarray, H: int) -> np.ndarray:
 
 def psu_counts(block: SampleBlock) -> np.ndarray:
     """Number of PSUs per stratum per replicate, shape (B, H)."""
-    oh = _onehot(block.psu_stratum, block.H)
     if block.mask is None:
-        return np.broadcast_to(oh.sum(axis=0), (block.B, block.H))
-    return block.mask.astype(float) @ oh
+        counts = np.bincount(block.psu_stratum, minlength=block.H).astype(float)
+        return np.broadcast_to(counts, (block.B, block.H))
+    return block.mask.astype(float) @ _onehot(block.psu_stratum, block.H)
+
+
+def _by_stratum(x: np.ndarray, psu_stratum: np.ndarray, H: int) -> np.ndarray:
+    """Sums of ``x`` (B, m, V) over the PSU positions of each stratum, shape (B, H, V).
+
+    One reduction when there is one stratum, segment sums when the positions are grouped by
+    stratum (as the designs lay them out), a one-hot product otherwise: the same sums.
+    """
+    if H == 1:
+        return x.sum(axis=1, keepdims=True)
+    m = psu_stratum.shape[0]
+    if m and np.all(psu_stratum[1:] >= psu_stratum[:-1]):
+        present, starts = np.unique(psu_stratum, return_index=True)
+        out = np.zeros((x.shape[0], H, x.shape[2]))
+        out[:, present, :] = np.add.reduceat(x, starts, axis=1)
+        return out
+    return np.einsum("bmv,mh->bhv", x, _onehot(psu_stratum, H))
 
 
 def stratified_psu_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
@@ -62,14 +79,16 @@ def stratified_psu_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     can be estimated from one PSU); designs keep at least two per stratum where they can.
     """
     H = block.H
-    oh = _onehot(block.psu_stratum, H)  # (m, H)
     n_h = psu_counts(block)  # (B, H)
-    sum_h = np.einsum("bmv,mh->bhv", z, oh)
+    sum_h = _by_stratum(z, block.psu_stratum, H)
     mean_h = sum_h / np.maximum(n_h, 1)[..., None]
-    dev = z - mean_h[:, block.psu_stratum, :]
+    dev = z - (mean_h if H == 1 else mean_h[:, block.psu_stratum, :])
     if block.mask is not None:
         dev = np.where(block.mask[..., None], dev, 0.0)
-    ss_h = np.einsum("bmv,mh->bhv", dev * dev, oh)
+    if H == 1:  # sum of squares without a (B, m, V) temporary
+        ss_h = np.einsum("bmv,bmv->bv", dev, dev)[:, None, :]
+    else:
+        ss_h = _by_stratum(dev * dev, block.psu_stratum, H)
     factor = np.where(n_h > 1, n_h / np.maximum(n_h - 1, 1), 0.0) * block.fpc  # (B, H)
     return np.einsum("bhv,bh->bv", ss_h, factor)
 
@@ -85,13 +104,15 @@ def degrees_of_freedom(block: SampleBlock) -> np.ndarray:
 
 
 def _interval(est, se, df, confidence):
-    q = stats.t.ppf(0.5 + confidence / 2.0, df)[:, None]
+    # df is the same for most replicates of a block: one quantile per distinct value
+    uniq, where = np.unique(df, return_inverse=True)
+    q = stats.t.ppf(0.5 + confidence / 2.0, uniq)[where.reshape(-1)][:, None]
     return est - q * se, est + q * se
 
 
 def horvitz_thompson(block: SampleBlock, N: int, V: int, confidence: float) -> Estimates:
     """Horvitz-Thompson estimate of the mean, t_HT / N, with its design-based SE."""
-    z = block.weighted()[..., :V]
+    z = block.weighted(slice(0, V))
     t = z.sum(axis=1)
     var = VARIANCE[block.variance](z, block)
     est, se = t / N, np.sqrt(np.maximum(var, 0.0)) / N

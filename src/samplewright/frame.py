@@ -32,6 +32,17 @@ def _codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
     return codes.astype(np.int64), tuple(labels.tolist())
 
 
+def _padded_rows(values: np.ndarray) -> np.ndarray:
+    """``values`` with zero columns appended up to 2, 4 or 8 columns (unchanged if wider)."""
+    k = values.shape[1]
+    width = next((w for w in (2, 4, 8) if w >= k), k)
+    if width == k:
+        return values
+    out = np.zeros((values.shape[0], width))
+    out[:, :k] = values
+    return out
+
+
 def _group_index(codes: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     """Units sorted by group (stable) and the offsets of each group's run (length k + 1)."""
     idx = np.argsort(codes, kind="stable")
@@ -67,6 +78,7 @@ class Frame:
     roles: dict = field(default_factory=dict)  # role -> column name, for reports
     # derived, filled in __post_init__
     values: np.ndarray = field(init=False, repr=False)
+    rows: np.ndarray = field(init=False, repr=False)  # values padded to a fast row width (see gather)
     strata_units: np.ndarray = field(init=False, repr=False)
     strata_offsets: np.ndarray = field(init=False, repr=False)
     cluster_units: np.ndarray | None = field(init=False, repr=False, default=None)
@@ -83,6 +95,7 @@ class Frame:
         cost = np.zeros(n) if self.unit_cost is None else np.asarray(self.unit_cost, dtype=np.float64)
         values = np.column_stack([y, np.ones(n), cost])
         object.__setattr__(self, "values", values)
+        object.__setattr__(self, "rows", _padded_rows(values))
         if self.order is None:
             object.__setattr__(self, "order", np.arange(n, dtype=np.int64))
         su, so = _group_index(self.stratum, self.H)
@@ -99,6 +112,17 @@ class Frame:
             cs = np.zeros(c, dtype=np.int64)
             cs[self.cluster] = self.stratum
             object.__setattr__(self, "cluster_stratum", cs)
+
+    def gather(self, units: np.ndarray) -> np.ndarray:
+        """Rows of ``values`` for an integer array of unit indices, shape ``units.shape + (K,)``.
+
+        The same numbers as ``values[units]``, several times faster: the rows are copied from
+        a table padded to 16, 32 or 64 bytes, a width numpy copies without a per-row memmove.
+        The result may be a strided view of the padded copy.
+        """
+        out = np.take(self.rows, units, axis=0)
+        k = self.values.shape[1]
+        return out if out.shape[-1] == k else out[..., :k]
 
     # ----------------------------------------------------------------- sizes
     @property

@@ -61,7 +61,7 @@ class Cluster(Design):
         k = int(self.units_per_cluster)
         take = np.minimum(sizes, k)
         units, valid = self._second_stage(frame, rng, chosen, sizes, k)
-        gathered = frame.values[units] * valid[..., None]
+        gathered = frame.gather(units) * valid[..., None]
         return SampleBlock(
             sums=gathered.sum(axis=2),
             weight=(C / m) * sizes / take,

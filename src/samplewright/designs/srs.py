@@ -39,7 +39,7 @@ class SRS(Design):
         n, N = int(self.n), frame.N
         pos = (with_replacement if self.replace else distinct_positions)(rng, N, n, (B,))
         return SampleBlock(
-            sums=frame.values[pos],
+            sums=frame.gather(pos),
             weight=np.full(n, N / n),
             psu_stratum=np.zeros(n, dtype=np.int64),
             fpc=np.array([1.0 if self.replace else 1.0 - n / N]),

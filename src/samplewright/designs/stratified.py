@@ -80,7 +80,7 @@ class Stratified(Design):
         strata = np.flatnonzero(n_h)
         psu_stratum = np.repeat(strata, n_h[strata])
         return SampleBlock(
-            sums=frame.values[units],
+            sums=frame.gather(units),
             weight=(N_h / np.maximum(n_h, 1))[psu_stratum],
             psu_stratum=psu_stratum,
             fpc=1.0 - n_h / N_h,

@@ -40,7 +40,7 @@ class Systematic(Design):
         np.minimum(pos, N - 1, out=pos)  # guards the last position against rounding
         units = frame.order[pos]
         return SampleBlock(
-            sums=frame.values[units],
+            sums=frame.gather(units),
             weight=np.full(n, N / n),
             psu_stratum=np.zeros(n, dtype=np.int64),
             fpc=np.array([1.0 - n / N]),
