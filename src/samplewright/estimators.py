@@ -96,6 +96,17 @@ def stratified_psu_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
 #: variance estimators a design may name in ``SampleBlock.variance``
 VARIANCE = {"psu": stratified_psu_variance}
 
+# size-proportional and random-size designs (see pps_variance; issue 8)
+from . import pps_variance as _ppsv  # noqa: E402
+
+VARIANCE.update({
+    "hansen_hurwitz": stratified_psu_variance,  # with fpc 1 in the sampled stratum: the HH form
+    "hartley_rao": _ppsv.hartley_rao,
+    "brewer": _ppsv.brewer,
+    "sen_yates_grundy": _ppsv.sen_yates_grundy,
+    "poisson": _ppsv.poisson,
+})
+
 
 def degrees_of_freedom(block: SampleBlock) -> np.ndarray:
     """PSUs minus strata with at least one PSU, per replicate (at least 1)."""

@@ -4,11 +4,16 @@ from __future__ import annotations
 
 from .base import Design
 from .cluster import Cluster
+from .poisson import Bernoulli, Poisson
+from .pps import Pareto, PPSSystematic, PPSWithReplacement, Sampford
 from .srs import SRS
 from .stratified import Stratified
 from .systematic import Systematic
 
 #: method name (as written in a scenario) -> design class
 METHODS: dict[str, type[Design]] = {cls.method: cls for cls in (SRS, Stratified, Systematic, Cluster)}
+METHODS.update({cls.method: cls for cls in (PPSWithReplacement, PPSSystematic, Sampford, Pareto, Poisson,
+                                            Bernoulli)})
 
-__all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS"]
+__all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS",
+           "PPSWithReplacement", "PPSSystematic", "Sampford", "Pareto", "Poisson", "Bernoulli"]
