@@ -36,6 +36,7 @@ def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
     small = {v: [] for v in frame.variables}  # variable -> designs/sizes below Cochran's bound
     for cell in cells:
         d = cell.design
+        out.extend(d.notes(frame))  # design set-up notes, e.g. certainty units
         n = d.expected_n(frame)
         if n > LARGE_FRACTION * frame.N:
             out.append(f"design {d.label!r} at size {d.size} samples {n / frame.N:.0%} of the frame")

@@ -114,7 +114,8 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "frame": {"units": frame.N, "strata": frame.H, "clusters": frame.C, "variables": list(frame.variables),
                   "roles": {k: v for k, v in frame.roles.items() if k != "source"},
                   "source": frame.roles.get("source")},
-        "designs": [{"label": d.label, "method": d.method, "parameters": repr(d)} for d in scenario.designs],
+        "designs": [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name}
+                    for d in scenario.designs],
         "versions": _versions(),
         "elapsed_seconds": round(time.monotonic() - t0, 3),
         "simulation_seconds": round(t2 - t1, 3),
