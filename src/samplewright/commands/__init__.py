@@ -1,5 +1,5 @@
 """One module per command; each has NAME, HELP, add_arguments(parser) and main(args) -> int."""
 
-from . import demo, run, synth
+from . import demo, plan, run, synth
 
-COMMANDS = [run, demo, synth]
+COMMANDS = [run, demo, synth, plan]
