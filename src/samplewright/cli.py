@@ -32,7 +32,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv=None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # usage errors (exit 2), --help and --version (0): a code, not an exception
+        return exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 2)
     if not getattr(args, "_main", None):
         parser.print_help(sys.stderr)
         return 2

@@ -68,7 +68,7 @@ def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, co
     """Draw one block of replicates and estimate with every estimator of the cell."""
     rng = np.random.default_rng(seedseq)
     sample = cell.design.draw(frame, rng, count)
-    outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence) for e in cell.estimators]
+    outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence, frame.layout) for e in cell.estimators]
     return BlockResult(
         cell=cell_id, block=block, start=start,
         estimate=np.stack([o.estimate for o in outs]),

@@ -121,8 +121,16 @@ def _interval(est, se, df, confidence):
     return est - q * se, est + q * se
 
 
-def horvitz_thompson(block: SampleBlock, N: int, V: int, confidence: float) -> Estimates:
-    """Horvitz-Thompson estimate of the mean, t_HT / N, with its design-based SE."""
+def horvitz_thompson(block: SampleBlock, N: int, V: int, confidence: float, ctx=None) -> Estimates:
+    """Horvitz-Thompson estimate of the mean, t_HT / N, with its design-based SE.
+
+    ``ctx`` is the frame's :class:`~samplewright.layout.Layout`; when the frame has domains
+    the domain means follow the targets (computed in :mod:`samplewright.auxiliary`).
+    """
+    if ctx is not None and ctx.D:
+        from .auxiliary import estimate
+
+        return estimate("ht", block, N, confidence, ctx)
     z = block.weighted(slice(0, V))
     t = z.sum(axis=1)
     var = VARIANCE[block.variance](z, block)
@@ -132,8 +140,12 @@ def horvitz_thompson(block: SampleBlock, N: int, V: int, confidence: float) -> E
     return Estimates(est, se, lo, hi, df)
 
 
-def hajek(block: SampleBlock, N: int, V: int, confidence: float) -> Estimates:
-    """Hajek (ratio) estimate of the mean, t_HT / N_hat, with its linearised SE."""
+def hajek(block: SampleBlock, N: int, V: int, confidence: float, ctx=None) -> Estimates:
+    """Hajek (ratio) estimate of the mean, t_HT / N_hat, with its linearised SE (domains as for HT)."""
+    if ctx is not None and ctx.D:
+        from .auxiliary import estimate
+
+        return estimate("hajek", block, N, confidence, ctx)
     zall = block.weighted()
     z, zc = zall[..., :V], zall[..., COUNT]
     t, nhat = z.sum(axis=1), zc.sum(axis=1)
@@ -146,7 +158,8 @@ def hajek(block: SampleBlock, N: int, V: int, confidence: float) -> Estimates:
     return Estimates(est, se, lo, hi, df)
 
 
-#: estimator name (as written in a scenario) -> function(block, N, V, confidence)
+#: estimator name (as written in a scenario) -> function(block, N, V, confidence, ctx=None);
+#: ctx is the frame's Layout (known totals, domains), passed by the engine
 ESTIMATORS = {"ht": horvitz_thompson, "hajek": hajek}
 
 
@@ -164,3 +177,7 @@ def sampled_unit_cost(block: SampleBlock) -> np.ndarray:
     if block.mask is not None:
         c = np.where(block.mask, c, 0.0)
     return c.sum(axis=1)
+
+
+# ratio, GREG and post-stratified estimators register themselves (issue 8)
+from . import auxiliary as _auxiliary  # noqa: E402,F401

@@ -63,8 +63,9 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
     """One summary row per design x size x estimator x variable (contract columns, in order)."""
     z = float(stats.norm.ppf(0.5 + confidence / 2.0))
-    truth = dict(zip(frame.variables, frame.mean))
-    S2 = dict(zip(frame.variables, frame.S2))
+    # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
+    truth = dict(zip(frame.layout.names, frame.layout.truth))
+    S2 = dict(zip(frame.layout.names, frame.layout.S2))
     rows = []
     for (design, size, est, var), g in reps.groupby(["design", "size", "estimator", "variable"], sort=False):
         m = measures(g["estimate"].to_numpy(), g["se"].to_numpy(), g["lower"].to_numpy(),

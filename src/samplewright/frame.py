@@ -8,7 +8,9 @@ Value columns
 Designs gather rows of ``Frame.values``, an ``(N, V + 2)`` array whose columns are the V
 study variables, a column of ones (so a gathered sum counts units) and the unit cost (zero
 where the frame has none).  One gather then yields estimated totals, sample sizes and the
-variable part of the field cost together.
+variable part of the field cost together.  Auxiliary, post-stratum and domain columns, when
+the frame has them, sit between the study variables and the count column (``layout.py``
+records where), so COUNT and COST are always indexed from the end.
 """
 
 from __future__ import annotations
@@ -20,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
+from .layout import Layout, build as build_layout
 
 #: index of the "ones" column and of the unit-cost column, counted from the end of ``values``
 COUNT = -2
@@ -76,8 +79,17 @@ class Frame:
     order: np.ndarray | None = None  # (N,) unit indices in list order
     unit_cost: np.ndarray | None = None  # (N,)
     roles: dict = field(default_factory=dict)  # role -> column name, for reports
+    # auxiliary data for the ratio, GREG and post-stratified estimators, and domains (see layout.py)
+    aux: np.ndarray | None = None  # (N, A) auxiliary variables, population totals known
+    aux_names: tuple = ()
+    poststratum: np.ndarray | None = None  # (N,) codes 0..P-1
+    poststratum_labels: tuple = ()
+    domain: np.ndarray | None = None  # (N,) codes 0..D-1
+    domain_labels: tuple = ()
+    domain_keep: tuple | None = None  # codes of the domains to report (default: all)
     # derived, filled in __post_init__
     values: np.ndarray = field(init=False, repr=False)
+    layout: "Layout" = field(init=False, repr=False)  # positions of the extra value columns
     rows: np.ndarray = field(init=False, repr=False)  # values padded to a fast row width (see gather)
     strata_units: np.ndarray = field(init=False, repr=False)
     strata_offsets: np.ndarray = field(init=False, repr=False)
@@ -93,7 +105,11 @@ class Frame:
         object.__setattr__(self, "y", y)
         n = y.shape[0]
         cost = np.zeros(n) if self.unit_cost is None else np.asarray(self.unit_cost, dtype=np.float64)
-        values = np.column_stack([y, np.ones(n), cost])
+        extra, layout = build_layout(
+            y, self.variables, self.aux, self.aux_names, self.poststratum, self.poststratum_labels,
+            self.domain, self.domain_labels, self.roles.get("domain"), self.domain_keep)
+        object.__setattr__(self, "layout", layout)
+        values = np.column_stack([y, extra, np.ones(n), cost])
         object.__setattr__(self, "values", values)
         object.__setattr__(self, "rows", _padded_rows(values))
         if self.order is None:
@@ -200,21 +216,40 @@ class Frame:
         id: str | None = None,
         missing: str = "refuse",
         source: str = "frame",
+        auxiliary=None,
+        poststratum: str | None = None,
+        domain: str | None = None,
+        domains=None,
     ) -> "Frame":
         """Bind the columns of ``df`` to roles, check them, and build a Frame.
 
         ``target`` is a column name or a list of names.  ``missing="drop"`` drops rows whose
         target values are missing or not finite (and says how many in ``Frame.roles``);
-        the default refuses them.
+        the default refuses them.  ``auxiliary`` (a column or a list), ``poststratum``,
+        ``domain`` and ``domains`` (the domain values to report) feed the estimators that use
+        auxiliary data and the domain estimates (see :mod:`samplewright.layout`).
         """
-        from .validate import frame_columns  # the one validation layer
+        from .validate import auxiliary_columns, frame_columns  # the one validation layer
 
         df, roles = frame_columns(
             df, target=target, stratum=stratum, cluster=cluster, size=size, order=order,
             unit_cost=unit_cost, id=id, missing=missing, source=source,
         )
+        aux_names, aux_roles = auxiliary_columns(df, auxiliary=auxiliary, poststratum=poststratum,
+                                                 domain=domain, domains=domains, source=source)
+        roles.update(aux_roles)
         targets = roles["target"]
         y = df[list(targets)].to_numpy(dtype=np.float64)
+        extra = {}
+        if aux_names:
+            extra["aux"] = df[list(aux_names)].apply(pd.to_numeric).to_numpy(dtype=np.float64)
+            extra["aux_names"] = aux_names
+        if poststratum is not None:
+            extra["poststratum"], extra["poststratum_labels"] = _codes(df[poststratum].astype(str))
+        if domain is not None:
+            extra["domain"], extra["domain_labels"] = _codes(df[domain].astype(str))
+            if domains is not None:
+                extra["domain_keep"] = tuple(extra["domain_labels"].index(str(v)) for v in domains)
         if stratum is not None:
             s_codes, s_labels = _codes(df[stratum])
         else:
@@ -236,6 +271,7 @@ class Frame:
             order=order_idx,
             unit_cost=None if unit_cost is None else df[unit_cost].to_numpy(dtype=np.float64),
             roles=roles,
+            **extra,
         )
 
     @classmethod

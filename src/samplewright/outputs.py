@@ -18,11 +18,25 @@ from .errors import InputError
 RESULT_FILES = ("run.json", "summary.csv", "replicates.parquet")
 
 
-def prepare_dir(out, force: bool = False) -> Path:
-    """Create ``out`` (and parents) or check it may be written; refuse existing results unless ``force``."""
+def prepare_dir(out, force: bool = False, inputs=()) -> Path:
+    """Create ``out`` (and parents) or check it may be written; refuse existing results unless ``force``.
+
+    Refused always: a path that is a file, a filesystem root or the home folder (unsafe), and a
+    folder that holds one of the run's ``inputs`` (scenario or frame file), which results must
+    never overwrite or be mixed with.
+    """
     p = Path(out)
     if p.exists() and not p.is_dir():
         raise InputError(f"output {str(p)!r} exists and is not a folder")
+    real = p.resolve()
+    if real == Path(real.anchor) or real == Path.home().resolve():
+        kind = "the filesystem root" if real == Path(real.anchor) else "your home folder"
+        raise InputError(f"output folder {str(p)!r} is {kind}; writing results there is unsafe, "
+                         f"choose a new folder for --out")
+    for f in inputs:
+        if f is not None and Path(f).resolve().parent == real:
+            raise InputError(f"output folder {str(p)!r} holds the run's input {Path(f).name!r} (scenario or "
+                             f"frame file); choose a separate folder for --out so inputs are never overwritten")
     if p.is_dir() and any(p.iterdir()) and not force:
         raise InputError(f"output folder {str(p)!r} is not empty; use --force to overwrite its results "
                          f"or choose another --out")
@@ -38,16 +52,21 @@ def prepare_dir(out, force: bool = False) -> Path:
 def atomic_write(path, write) -> Path:
     """Call ``write(tmp_path)`` on a temporary file beside ``path``, then rename it into place."""
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    except OSError as exc:
+        raise InputError(f"{str(path)!r} cannot be written: {exc.strerror or exc}") from None
     os.close(fd)
     try:
         write(Path(tmp))
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
         try:
             os.unlink(tmp)
         except OSError:
             pass
+        if isinstance(exc, OSError):  # disk full, permissions changed, a folder in the way
+            raise InputError(f"{str(path)!r} cannot be written: {exc.strerror or exc}") from None
         raise
     return path
 

@@ -39,6 +39,9 @@ class RunResult:
     def write(self, out, force: bool = False) -> Path:
         """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``)."""
         p = prepare_dir(out, force=force)
+        # an older run.json marks older files complete: remove it first, so an interrupted
+        # overwrite never leaves new and old files under one complete-looking run.json
+        (p / "run.json").unlink(missing_ok=True)
         write_parquet(self.replicates, p / "replicates.parquet")
         write_csv(self.summary, p / "summary.csv")
         write_csv(self.allocation, p / "allocation.csv")

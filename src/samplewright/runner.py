@@ -87,7 +87,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     cells = make_cells(scenario.designs, scenario.estimators)
     for cell in cells:
         cell.design.check(frame)
-    notes = frame_warnings(frame) + design_warnings(frame, cells, R)
+    notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
     say(f"{len(cells)} design x size cells, {R} replicates each, blocks of {bs}")
     bar = Progress({c.design.label: 0 for c in cells}, enabled=progress)
     for c in cells:

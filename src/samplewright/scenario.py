@@ -246,7 +246,7 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
     if not isinstance(est, list) or not est:
         raise InputError(f"{ctx}: estimators must be a non-empty list, got {est!r}")
     for e in est:
-        if e not in ESTIMATORS:
+        if not isinstance(e, str) or e not in ESTIMATORS:
             raise InputError(f"{ctx}: estimator {e!r} is not known{closest(str(e), ESTIMATORS)}")
     try:
         design = cls(label, **params)

@@ -25,11 +25,25 @@ def closest(word: str, options) -> str:
     return ""
 
 
-def _rows(mask: np.ndarray, limit: int = 5) -> str:
-    """First offending rows, numbered as in a spreadsheet with a header row (data starts at row 2)."""
-    rows = np.flatnonzero(mask)[:limit] + 2
+def _rows(mask: np.ndarray, limit: int = 5, kept: np.ndarray | None = None) -> str:
+    """First offending rows, numbered as in a spreadsheet with a header row (data starts at row 2).
+
+    ``kept`` maps the current rows to the file's rows after some were dropped.
+    """
+    pos = np.flatnonzero(mask)[:limit]
+    rows = (pos if kept is None else kept[pos]) + 2
     more = " ..." if mask.sum() > limit else ""
     return ", ".join(str(r) for r in rows) + more
+
+
+def _labels(series: pd.Series) -> pd.Series:
+    """Stratum or cluster labels that can be sorted: mixed Python types are compared as text."""
+    if series.dtype == object:
+        try:
+            sorted(series.dropna().unique())
+        except TypeError:
+            return series.where(series.isna(), series.astype(str))
+    return series
 
 
 def _require_column(df: pd.DataFrame, col, role: str, source: str) -> str:
@@ -40,7 +54,8 @@ def _require_column(df: pd.DataFrame, col, role: str, source: str) -> str:
     return col
 
 
-def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str) -> tuple[pd.Series, np.ndarray]:
+def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
+             kept: np.ndarray | None = None) -> tuple[pd.Series, np.ndarray]:
     """Coerce a column to float; return it and a mask of rows that are not finite numbers."""
     raw = df[col]
     num = pd.to_numeric(raw, errors="coerce").astype(float)
@@ -50,7 +65,7 @@ def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str) -
         first = raw[text].iloc[0]
         raise InputError(
             f"{source}: {role} column {col!r} has {int(text.sum())} non-numeric value(s), "
-            f"first {first!r} at row(s) {_rows(text.to_numpy())}"
+            f"first {first!r} at row(s) {_rows(text.to_numpy(), kept=kept)}"
         )
     return num, bad
 
@@ -95,34 +110,40 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
             )
         drop |= bad
     dropped = int(drop.sum())
+    kept = None  # file row of each remaining row, once rows were dropped
     if dropped:
+        kept = np.flatnonzero(~drop)
         df = df.loc[~drop].reset_index(drop=True)
         if len(df) == 0:
             raise InputError(f"{source}: every row has a missing target value; nothing is left to sample")
 
     for role in ("stratum", "cluster"):
         col = named[role]
-        if col is not None and df[col].isna().any():
+        if col is None:
+            continue
+        if df[col].isna().any():
             bad = df[col].isna().to_numpy()
-            raise InputError(f"{source}: {role} column {col!r} is blank at row(s) {_rows(bad)}")
+            raise InputError(f"{source}: {role} column {col!r} is blank at row(s) {_rows(bad, kept=kept)}")
+        df[col] = _labels(df[col])
     for role in ("size", "order", "unit_cost"):
         col = named[role]
         if col is None:
             continue
-        num, bad = _numeric(df, col, role, source, "refuse")
+        num, bad = _numeric(df, col, role, source, "refuse", kept)
         if bad.any():
             raise InputError(f"{source}: {role} column {col!r} has missing or non-finite value(s) "
-                             f"at row(s) {_rows(bad)}")
+                             f"at row(s) {_rows(bad, kept=kept)}")
         if role == "unit_cost" and (num < 0).any():
             neg = (num < 0).to_numpy()
-            raise InputError(f"{source}: unit_cost column {col!r} has negative cost(s) at row(s) {_rows(neg)}")
+            raise InputError(f"{source}: unit_cost column {col!r} has negative cost(s) "
+                             f"at row(s) {_rows(neg, kept=kept)}")
         df[col] = num
     if id is not None:
         dup = df[id].duplicated(keep=False).to_numpy()
         if dup.any():
             first = df[id][dup].iloc[0]
             raise InputError(f"{source}: id column {id!r} has {int(dup.sum())} rows with repeated ids, "
-                             f"first {first!r} at row(s) {_rows(dup)}")
+                             f"first {first!r} at row(s) {_rows(dup, kept=kept)}")
     if stratum is not None and cluster is not None:
         per = df.groupby(cluster, sort=False)[stratum].nunique()
         spanning = per[per > 1]
@@ -134,3 +155,4 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
     roles = {"target": tuple(targets), **{k: v for k, v in named.items() if v is not None},
              "dropped_rows": dropped, "source": source}
     return df, roles
+

@@ -2,14 +2,32 @@
 
 from __future__ import annotations
 
+import argparse
 import sys
+
+
+def whole_number(minimum: int):
+    """An argparse ``type`` accepting whole numbers of at least ``minimum`` (refusals exit 2)."""
+
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"must be a whole number, got {text!r}") from None
+        if value < minimum:
+            raise argparse.ArgumentTypeError(f"must be at least {minimum}, got {text!r}")
+        return value
+
+    parse.__name__ = "whole number"
+    return parse
 
 
 def add_run_options(p) -> None:
     """Options of every command that simulates (run, demo)."""
-    p.add_argument("--replicates", type=int, help="replicates per design and size (overrides the scenario)")
-    p.add_argument("--seed", type=int, help="root seed of the run (overrides the scenario)")
-    p.add_argument("--jobs", type=int, default=1, help="parallel workers; results do not depend on it")
+    p.add_argument("--replicates", type=whole_number(1),
+                   help="replicates per design and size (overrides the scenario)")
+    p.add_argument("--seed", type=whole_number(0), help="root seed of the run (overrides the scenario)")
+    p.add_argument("--jobs", type=whole_number(1), default=1, help="parallel workers; results do not depend on it")
     p.add_argument("--force", action="store_true", help="overwrite results already in --out")
     p.add_argument("--quiet", action="store_true", help="no progress bar and no summary on stdout")
     p.add_argument("--verbose", action="store_true", help="log each step on stderr")
@@ -27,7 +45,8 @@ def simulate_and_write(scenario, args) -> int:
     from ..outputs import prepare_dir
     from ..runner import run
 
-    prepare_dir(args.out, force=args.force)  # refuse before spending time simulating
+    inputs = (scenario.source, scenario.frame.path)
+    prepare_dir(args.out, force=args.force, inputs=inputs)  # refuse before spending time simulating
     res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
               progress=None if not args.quiet else False, log=logger(args))
     out = res.write(args.out, force=True)
