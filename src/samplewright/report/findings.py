@@ -1,0 +1,152 @@
+"""Plain-language findings read off a run's summary table, and number formatting with MCSEs.
+
+These are descriptions of what the simulation measured, not a recommendation: the pick under
+a budget or a margin-of-error goal is made by the planning step (recommendation.json) and only
+quoted here.
+
+A simulated coverage is called *below the promised level* when its 95% Monte Carlo interval
+lies wholly below the nominal level, c + 1.96 MCSE < nominal, and *above* it when
+c - 1.96 MCSE > nominal (MCSE = sqrt(c (1 - c) / R), Morris, White & Crowther 2019, Table 6).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from .figures import MC_Z, cell_label, estimator_name
+
+#: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
+SE_RATIO_NOTE = 0.2
+
+
+def decimals_for(mcse: float, digits: int = 2) -> int:
+    """Decimals that show ``digits`` significant figures of the Monte Carlo SE (at least 0).
+
+    Examples
+    --------
+    >>> decimals_for(0.1077), decimals_for(0.0052), decimals_for(3.4)
+    (2, 4, 1)
+    """
+    if not np.isfinite(mcse) or mcse <= 0:
+        return 1
+    return max(0, digits - 1 - int(math.floor(math.log10(mcse))))
+
+
+def with_mcse(value: float, mcse: float, scale: float = 1.0) -> str:
+    """``value (MCSE)``, both rounded to the MCSE's second significant figure.
+
+    Examples
+    --------
+    >>> with_mcse(-0.11486, 0.10769)
+    '-0.11 (0.11)'
+    >>> with_mcse(0.9425, 0.0052, scale=100)
+    '94.25 (0.52)'
+    """
+    if value is None or not np.isfinite(value):
+        return "n/a"
+    v, m = value * scale, mcse * scale
+    d = decimals_for(m)
+    return f"{v:.{d}f} ({m:.{d}f})" if np.isfinite(m) else f"{v:.4g}"
+
+
+def num(value, digits: int = 4) -> str:
+    """A number to ``digits`` significant figures, with thousands separators for large ones."""
+    if value is None:
+        return "n/a"
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    if not np.isfinite(v):
+        return "n/a"
+    if abs(v) >= 10 ** digits or (abs(v) >= 1000 and v == round(v)):
+        return f"{v:,.0f}"
+    return f"{v:.{digits}g}"
+
+
+def money(value) -> str:
+    """A cost: whole units with thousands separators from 100 up, else 4 significant figures."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return "n/a" if value is None else str(value)
+    if not np.isfinite(v):
+        return "n/a"
+    return f"{v:,.0f}" if abs(v) >= 100 else f"{v:.4g}"
+
+
+def percent_like(value: float, mcse: float) -> str:
+    """A share in per cent, to the decimals its Monte Carlo error supports (no bracket)."""
+    if value is None or not np.isfinite(value):
+        return "n/a"
+    return f"{100 * value:.{decimals_for(100 * mcse)}f}%"
+
+
+SHORT_ESTIMATOR = {"ht": "HT", "hajek": "Hajek"}
+
+
+def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
+    """``"low"``, ``"high"`` or ``"ok"``: the coverage against the promised level, beyond Monte Carlo error."""
+    if not np.isfinite(coverage):
+        return "ok"
+    if coverage + MC_Z * mcse < confidence:
+        return "low"
+    if coverage - MC_Z * mcse > confidence:
+        return "high"
+    return "ok"
+
+
+def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
+    """The summary table as display strings (one dict per row), with MCSEs beside their measures."""
+    out = []
+    for r in summary.itertuples(index=False):
+        out.append({
+            "design": r.design, "method": r.method, "size": int(r.size), "estimator": SHORT_ESTIMATOR.get(r.estimator, r.estimator),
+            "variable": r.variable, "mean_n": num(r.mean_n), "mean_cost": money(r.mean_cost),
+            "truth": num(r.truth, 6),
+            "bias": with_mcse(r.bias, r.bias_mcse),
+            "relative_bias": percent_like(r.relative_bias, r.bias_mcse / abs(r.truth) if r.truth else float("nan")),
+            "empirical_se": with_mcse(r.empirical_se, r.empirical_se_mcse),
+            "mean_se": num(r.mean_se), "se_ratio": num(r.se_ratio, 3), "rmse": num(r.rmse),
+            "deff": num(r.deff, 3), "coverage": with_mcse(r.coverage, r.coverage_mcse, scale=100.0),
+            "coverage_flag": coverage_verdict(r.coverage, r.coverage_mcse, confidence),
+            "moe": num(r.moe), "replicates": int(r.replicates),
+        })
+    return out
+
+
+def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
+    """Sentences a reader needs from the summary: precision, cost, and intervals that lie."""
+    out = []
+    nominal = f"{100 * confidence:g}%"
+    for var, s in summary.groupby("variable", sort=False):
+        lab = {i: f"{cell_label(d, m, n)} ({estimator_name(e)})"
+               for i, d, m, n, e in zip(s.index, s["design"], s["method"], s["size"], s["estimator"])}
+        verdict = {i: coverage_verdict(c, m, confidence) for i, c, m in zip(s.index, s["coverage"], s["coverage_mcse"])}
+        honest = s[[verdict[i] != "low" for i in s.index]]
+        if len(honest):
+            best = honest.loc[honest["rmse"].idxmin()]
+            out.append(f"Most precise for the mean {var} among designs whose intervals keep their promise: "
+                       f"{lab[best.name]}, margin of error {num(best.moe)} at an average cost of "
+                       f"{money(best.mean_cost)} (design effect {num(best.deff, 3)}).")
+            cheap = honest.loc[honest["mean_cost"].idxmin()]
+            if cheap.name != best.name:
+                out.append(f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost)}, "
+                           f"margin of error {num(cheap.moe)}.")
+        else:
+            out.append(f"No design's intervals for the mean {var} reach the promised {nominal} coverage.")
+        low = [i for i in s.index if verdict[i] == "low"]
+        if low:
+            out.append(f"Intervals too narrow for the mean {var} (coverage below the promised {nominal} beyond "
+                       f"simulation error): " + "; ".join(
+                           f"{lab[i]} holds the truth {100 * s.loc[i, 'coverage']:.1f}% of the time" for i in low)
+                       + ". Their reported precision cannot be trusted.")
+        high = [i for i in s.index if verdict[i] == "high" and s.loc[i, "se_ratio"] > 1 + SE_RATIO_NOTE]
+        if high:
+            out.append(f"Intervals wider than needed for the mean {var}: " + "; ".join(
+                f"{lab[i]} (its formula's SE is {num(s.loc[i, 'se_ratio'], 3)} times the real spread)" for i in high)
+                + ". The design is more precise than its analysis would claim.")
+    return out
