@@ -97,7 +97,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
                        progress=lambda ci, k: bar.update(cells[ci].design.label, k))
     bar.close()
     t2 = time.monotonic()
-    reps = replicate_table(results, cells, frame.variables)
+    reps = replicate_table(results, cells, frame.layout.names)  # targets, then domain variables
     methods = {d.label: d.method for d in scenario.designs}
     summary = summarise(reps, frame, methods, scenario.confidence)
     alloc = allocation_table(frame, cells)
@@ -112,6 +112,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "jobs": jobs,
         "confidence": scenario.confidence,
         "frame": {"units": frame.N, "strata": frame.H, "clusters": frame.C, "variables": list(frame.variables),
+                  "proportions": list(frame.layout.proportions), "domain_variables": list(frame.layout.names[frame.V:]),
                   "roles": {k: v for k, v in frame.roles.items() if k != "source"},
                   "source": frame.roles.get("source")},
         "designs": [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name}

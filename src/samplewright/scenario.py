@@ -17,13 +17,15 @@ from pathlib import Path
 from .cost import CostModel
 from .designs import METHODS, Design
 from .errors import InputError
+from .auxiliary import check_estimators
 from .estimators import ESTIMATORS
 from .frame import Frame, read_table
 from .synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate
 from .validate import closest
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost")
-FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing")
+FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
+              "auxiliary", "poststratum", "domain", "domains")
 COST_KEYS = ("fixed", "per_unit", "per_cluster", "per_stratum")
 DESIGN_COMMON = ("label", "method", "estimators")
 DEFAULT_BLOCK = 500
@@ -192,9 +194,22 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
         roles["target"] = synthetic.target
     else:
         raise InputError(f"{ctx}: missing required key 'target' (the study-variable column)")
-    for k in ("stratum", "cluster", "size", "order", "unit_cost", "id"):
+    for k in ("stratum", "cluster", "size", "order", "unit_cost", "id", "poststratum", "domain"):
         if k in table:
             roles[k] = as_str(table[k], k, ctx)
+    if "auxiliary" in table:  # columns whose population totals the frame gives (ratio, greg)
+        a = table["auxiliary"]
+        a = [a] if isinstance(a, str) else a
+        if not isinstance(a, list) or not a:
+            raise InputError(f"{ctx}: auxiliary must be a column name or a non-empty list of them, got {a!r}")
+        roles["auxiliary"] = [as_str(v, "auxiliary", ctx) for v in a]
+    if "domains" in table:  # which values of the domain column to report
+        d = table["domains"]
+        if not isinstance(d, list) or not d or any(isinstance(v, (bool, dict, list)) for v in d):
+            raise InputError(f"{ctx}: domains must be a non-empty list of domain values, got {d!r}")
+        if "domain" not in table:
+            raise InputError(f"{ctx}: domains is given but domain (the column defining them) is not")
+        roles["domains"] = list(d)
     if synthetic is not None:  # the generator's columns are bound unless named otherwise
         if synthetic.has_strata:
             roles.setdefault("stratum", "stratum")
@@ -316,6 +331,8 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
     if not isinstance(designs, list):
         raise InputError("design must be written as [[design]] tables (a list)")
     built = [design_from_dict(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs)]
+    for d, est in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
+        check_estimators(est, frame.roles, f"design {d.label!r}")
     labels = [d.label for d, _ in built]
     dup = {x for x in labels if labels.count(x) > 1}
     if dup:

@@ -156,3 +156,71 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
              "dropped_rows": dropped, "source": source}
     return df, roles
 
+
+def auxiliary_columns(df: pd.DataFrame, *, auxiliary=None, poststratum=None, domain=None, domains=None,
+                      source="frame"):
+    """Check the auxiliary, post-stratum and domain columns; return the auxiliary names and roles.
+
+    Rules: every named column exists; auxiliary values are finite numbers (their population
+    totals are taken from the frame, so none may be missing); an auxiliary is listed once;
+    post-stratum and domain labels are present; every value listed in ``domains`` occurs in
+    the domain column (compared as text, so ``domains = [1, 2]`` matches a column of 1 and 2).
+    """
+    names = [] if auxiliary is None else ([auxiliary] if isinstance(auxiliary, str) else list(auxiliary))
+    if len(set(names)) != len(names):
+        raise InputError(f"{source}: auxiliary lists a column twice: {names}")
+    for a in names:
+        _require_column(df, a, "auxiliary", source)
+        num, bad = _numeric(df, a, "auxiliary", source, "refuse")
+        if bad.any():
+            raise InputError(f"{source}: auxiliary column {a!r} has missing or non-finite value(s) at row(s) "
+                             f"{_rows(bad)}; its population total must be known, so every unit needs a value")
+    roles = {}
+    if names:
+        roles["auxiliary"] = tuple(names)
+    for role, col in (("poststratum", poststratum), ("domain", domain)):
+        if col is None:
+            continue
+        _require_column(df, col, role, source)
+        if df[col].isna().any():
+            raise InputError(f"{source}: {role} column {col!r} is blank at row(s) {_rows(df[col].isna().to_numpy())}")
+        roles[role] = col
+    if domains is not None:
+        if domain is None:
+            raise InputError(f"{source}: domains lists domain values but no domain column is given "
+                             f"(set domain = \"column\" in [frame])")
+        present = {str(v) for v in df[domain].unique()}
+        for v in domains:
+            if str(v) not in present:
+                raise InputError(f"{source}: domain value {v!r} does not occur in domain column {domain!r}"
+                                 f"{closest(str(v), sorted(present))}")
+        roles["domains"] = tuple(str(v) for v in domains)
+    return tuple(names), roles
+
+
+def cluster_cost_column(df: pd.DataFrame, column, cluster, source="frame") -> np.ndarray:
+    """Check a per-cluster cost column; return its values per row.
+
+    Rules: a cluster column is bound; the column exists; its values are finite numbers, not
+    negative, and the same for every unit of a cluster (it is the cost of visiting the cluster).
+    """
+    if cluster is None:
+        raise InputError(f"{source}: cluster_cost column {column!r} needs a cluster column "
+                         f"(set cluster = \"column\" in [frame])")
+    _require_column(df, column, "cluster_cost", source)
+    num, bad = _numeric(df, column, "cluster_cost", source, "refuse")
+    if bad.any():
+        raise InputError(f"{source}: cluster_cost column {column!r} has missing or non-finite value(s) "
+                         f"at row(s) {_rows(bad)}")
+    if (num < 0).any():
+        raise InputError(f"{source}: cluster_cost column {column!r} has negative cost(s) "
+                         f"at row(s) {_rows((num < 0).to_numpy())}")
+    spread = num.groupby(df[cluster].to_numpy(), sort=False).agg(["min", "max"])
+    varying = spread[spread["min"] != spread["max"]]
+    if len(varying):
+        c = varying.index[0]
+        rows = (df[cluster] == c).to_numpy()
+        raise InputError(f"{source}: cluster_cost column {column!r} differs within cluster {c!r} "
+                         f"(from {varying['min'].iloc[0]:g} to {varying['max'].iloc[0]:g}, rows {_rows(rows)}); "
+                         f"it must be one cost per cluster")
+    return num.to_numpy(dtype=np.float64)
