@@ -58,7 +58,7 @@ class Cluster(Design):
                 units=units,
             )
         sizes = frame.cluster_sizes[chosen]  # (B, m)
-        k = int(self.units_per_cluster)
+        k = min(int(self.units_per_cluster), int(frame.cluster_sizes.max()))  # a larger cap takes all
         take = np.minimum(sizes, k)
         units, valid = self._second_stage(frame, rng, chosen, sizes, k)
         gathered = frame.gather(units) * valid[..., None]

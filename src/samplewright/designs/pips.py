@@ -28,11 +28,13 @@ def size_measure(frame, label: str) -> np.ndarray:
     x = np.asarray(frame.size, dtype=float)
     bad = ~(x > 0)
     if bad.any():
-        rows = np.flatnonzero(bad)[:5] + 2  # spreadsheet row numbers (header is row 1)
+        dropped = frame.roles.get("dropped_rows", 0)
+        rows = np.flatnonzero(bad)[:5] + (1 if dropped else 2)  # spreadsheet rows (header is row 1)
         more = " ..." if bad.sum() > 5 else ""
+        where = f"unit(s) {{}} (counted after the {dropped} dropped rows)" if dropped else "row(s) {}"
         raise InputError(f"design {label!r}: size column {col!r} must be above 0 for every unit; "
-                         f"{int(bad.sum())} value(s) are not, first {x[bad][0]!r} at row(s) "
-                         f"{', '.join(map(str, rows))}{more}")
+                         f"{int(bad.sum())} value(s) are not, first {x[bad][0]:g} at "
+                         + where.format(", ".join(map(str, rows)) + more))
     return x
 
 

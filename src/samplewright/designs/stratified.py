@@ -39,12 +39,27 @@ class Stratified(Design):
         if self.allocation_variable is not None and self.allocation_variable not in frame.variables:
             raise InputError(f"design {self.label!r}: allocation_variable {self.allocation_variable!r} "
                              f"is not a target ({', '.join(frame.variables)})")
+        single = np.flatnonzero(frame.N_h < 2)
+        if single.size:
+            names = ", ".join(repr(str(frame.stratum_labels[h])) for h in single[:5])
+            raise InputError(f"design {self.label!r}: stratum {names} has only one unit, so its variance "
+                             f"cannot be estimated; merge it with a neighbouring stratum in column "
+                             f"{frame.roles.get('stratum')!r}")
         try:
-            self.n_h(frame)
+            n_h = self.n_h(frame)
         except InputError as exc:
             raise InputError(f"design {self.label!r}: {exc}") from None
         if n > frame.N:
             raise InputError(f"design {self.label!r}: n = {n} is more than the {frame.N} units in the frame")
+        over = np.flatnonzero(n_h > frame.N_h)
+        if over.size:  # allocate() caps at N_h; this guards any rule that does not
+            h = over[0]
+            raise InputError(f"design {self.label!r}: allocation {self.allocation!r} gives stratum "
+                             f"{str(frame.stratum_labels[h])!r} {int(n_h[h])} units but it has only "
+                             f"{int(frame.N_h[h])}")
+        if int(n_h.sum()) != n:
+            raise InputError(f"design {self.label!r}: allocation {self.allocation!r} places {int(n_h.sum())} "
+                             f"units, not n = {n}")
 
     def stratum_unit_costs(self, frame) -> np.ndarray:
         """Mean cost per unit in each stratum, for the cost-optimal allocation."""
