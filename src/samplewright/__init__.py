@@ -1,4 +1,17 @@
-"""samplewright: rehearse competing sampling designs on a population frame and score them."""
+"""samplewright: rehearse competing sampling designs on a population frame and score them.
+
+The public surface (see ``__all__``)::
+
+    import samplewright as sw
+    sc = sw.load_scenario("scenario.toml")            # or sw.scenario_from_dict({...})
+    res = sw.run(sc, replicates=2000, seed=7, jobs=2)  # a RunResult
+    res.summary, res.replicates, res.allocation, res.frontier, res.recommendation
+    fig = res.figure("coverage")                       # a matplotlib Figure
+    res.write("results", report=True)                  # tables, figures/, report.html, brief.md
+    back = sw.read_run("results")                      # a finished run folder, read back
+
+Heavier modules are imported on first use, so ``import samplewright`` stays light.
+"""
 
 from __future__ import annotations
 
@@ -7,4 +20,30 @@ __version__ = "0.1.0"
 from .errors import InputError
 from .frame import Frame
 
-__all__ = ["__version__", "Frame", "InputError"]
+__all__ = ["__version__", "Frame", "InputError", "RunResult", "Scenario", "load_scenario", "read_run", "run",
+           "scenario_from_dict", "write_report"]
+
+_LAZY = {
+    "run": ("runner", "run"),
+    "load_scenario": ("scenario", "load_scenario"),
+    "scenario_from_dict": ("scenario", "scenario_from_dict"),
+    "Scenario": ("scenario", "Scenario"),
+    "RunResult": ("result", "RunResult"),
+    "read_run": ("report.load", "read_run"),
+    "write_report": ("report", "write_report"),
+}
+
+
+def __getattr__(name):  # PEP 562: import the public API on first use (no import cycles)
+    if name in _LAZY:
+        import importlib
+
+        mod, attr = _LAZY[name]
+        value = getattr(importlib.import_module(f".{mod}", __name__), attr)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'samplewright' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(__all__))

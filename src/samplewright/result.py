@@ -36,8 +36,12 @@ class RunResult:
     recommendation: dict | None = None
     warnings: list[str] = field(default_factory=list)
 
-    def write(self, out, force: bool = False) -> Path:
-        """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``)."""
+    def write(self, out, force: bool = False, report: bool = False, svg: bool = False) -> Path:
+        """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``).
+
+        With ``report=True`` also the figures (``figures/``, PNG, and SVG with ``svg=True``),
+        ``report.html`` and ``brief.md`` (see :func:`samplewright.report.write_report`).
+        """
         p = prepare_dir(out, force=force)
         # an older run.json marks older files complete: remove it first, so an interrupted
         # overwrite never leaves new and old files under one complete-looking run.json
@@ -50,4 +54,39 @@ class RunResult:
         if self.recommendation is not None:
             write_json(self.recommendation, p / "recommendation.json")
         write_json(self.info, p / "run.json")  # last: its presence marks a complete run
+        if report:
+            from .report import write_report
+
+            write_report(self, p, svg=svg, force=True)
         return p
+
+    def figure(self, name: str, variable: str | None = None):
+        """Draw one of the report's figures as a matplotlib Figure (names: :meth:`figure_names`).
+
+        Examples
+        --------
+        >>> from samplewright import scenario_from_dict, run
+        >>> res = run(scenario_from_dict({"frame": {"synthetic": {"units": 300}},
+        ...                               "design": [{"label": "simple", "method": "srs", "n": 30}]}),
+        ...           replicates=100, seed=1)
+        >>> fig = res.figure("coverage")
+        >>> fig.get_size_inches()[0]
+        6.5
+        """
+        from .report.figures import make_figure
+
+        return make_figure(self, name, variable)
+
+    def figure_names(self) -> list[str]:
+        """The figures this run has data for, in report order."""
+        from .report.figures import figure_names
+
+        return figure_names(self)
+
+    @classmethod
+    def read(cls, folder) -> "RunResult":
+        """Read a finished run folder back (summary, replicates, allocation, run.json and, when present,
+        frontier.csv and recommendation.json); see :func:`samplewright.report.read_run`."""
+        from .report.load import read_run
+
+        return read_run(folder)

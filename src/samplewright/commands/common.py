@@ -32,6 +32,9 @@ def add_run_options(p) -> None:
     p.add_argument("--quiet", action="store_true", help="no progress bar and no summary on stdout")
     p.add_argument("--verbose", action="store_true", help="log each step on stderr")
     p.add_argument("--debug", action="store_true", help="show a traceback on unexpected failures")
+    p.add_argument("--no-report", action="store_true",
+                   help="write only the result tables, not figures/, report.html and brief.md "
+                        "(build them later with `samplewright report DIR`)")
 
 
 def logger(args):
@@ -50,11 +53,18 @@ def simulate_and_write(scenario, args) -> int:
     res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
               progress=None if not args.quiet else False, log=logger(args))
     out = res.write(args.out, force=True)
+    page = None
+    if not getattr(args, "no_report", False):
+        from ..report import write_report
+
+        page = write_report(res, out, force=True, log=logger(args))
     for w in res.warnings:
         print(f"warning: {w}", file=sys.stderr)
     if not args.quiet:
         print(format_summary(res.summary))
         print(f"results written to {out}")
+        if page is not None:
+            print(f"report: {page.resolve()}")
     return 0
 
 
