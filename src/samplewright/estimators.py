@@ -107,6 +107,15 @@ VARIANCE.update({
     "poisson": _ppsv.poisson,
 })
 
+# systematic samples (see systematic_variance; issue 4): "srs" is the shared routine, units as PSUs
+from . import systematic_variance as _sysv  # noqa: E402
+
+VARIANCE.update({
+    "srs": stratified_psu_variance,
+    "successive_differences": _sysv.successive_difference_variance,
+    "between_starts": _sysv.between_start_variance,
+})
+
 
 def degrees_of_freedom(block: SampleBlock) -> np.ndarray:
     """PSUs minus strata with at least one PSU, per replicate (at least 1)."""

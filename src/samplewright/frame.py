@@ -79,6 +79,7 @@ class Frame:
     order: np.ndarray | None = None  # (N,) unit indices in list order
     unit_cost: np.ndarray | None = None  # (N,)
     roles: dict = field(default_factory=dict)  # role -> column name, for reports
+    sort_orders: dict = field(default_factory=dict)  # sort key column -> (N,) unit indices sorted by it
     # auxiliary data for the ratio, GREG and post-stratified estimators, and domains (see layout.py)
     aux: np.ndarray | None = None  # (N, A) auxiliary variables, population totals known
     aux_names: tuple = ()
@@ -214,6 +215,7 @@ class Frame:
         order: str | None = None,
         unit_cost: str | None = None,
         id: str | None = None,
+        sort_keys=None,
         missing: str = "refuse",
         source: str = "frame",
         auxiliary=None,
@@ -260,6 +262,14 @@ class Frame:
         order_idx = None
         if order is not None:
             order_idx = np.argsort(df[order].to_numpy(), kind="stable").astype(np.int64)
+        sort_orders = {}
+        if sort_keys:  # systematic designs' sort_by columns: stable sort, ties keep the list order
+            from .validate import sort_key_codes
+
+            base = np.arange(len(df), dtype=np.int64) if order_idx is None else order_idx
+            for col, codes in sort_key_codes(df, sort_keys, source).items():
+                sort_orders[col] = base[np.argsort(codes[base], kind="stable")]
+            roles["sort_keys"] = tuple(sort_orders)
         return cls(
             variables=tuple(targets),
             y=y,
@@ -269,6 +279,7 @@ class Frame:
             cluster_labels=c_labels,
             size=None if size is None else df[size].to_numpy(dtype=np.float64),
             order=order_idx,
+            sort_orders=sort_orders,
             unit_cost=None if unit_cost is None else df[unit_cost].to_numpy(dtype=np.float64),
             roles=roles,
             **extra,

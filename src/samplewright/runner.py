@@ -42,7 +42,7 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
 
 def run(scenario: Scenario, replicates: int | None = None, seed: int | None = None, jobs: int = 1,
         block_size: int | None = None, frame: Frame | None = None, progress: bool | None = False,
-        log=None) -> RunResult:
+        exact: bool = False, log=None) -> RunResult:
     """Rehearse every design of ``scenario`` and score it.
 
     Parameters
@@ -59,6 +59,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         Show a progress bar on stderr (None: only when stderr is a terminal).
     log : callable, optional
         Called with one line of text for each step (``--verbose``).
+    exact : bool
+        Enumerate every possible sample instead of simulating (``run --exact``; see
+        :mod:`samplewright.exact`): exact design moments, no Monte Carlo error.
 
     Examples
     --------
@@ -88,6 +91,10 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     for cell in cells:
         cell.design.check(frame)
     notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
+    if exact:  # every possible sample instead of Monte Carlo (exact.py)
+        from .exact import exact_result
+
+        return exact_result(scenario, frame, cells, notes, t0, _versions(), allocation_table(frame, cells))
     say(f"{len(cells)} design x size cells, {R} replicates each, blocks of {bs}")
     bar = Progress({c.design.label: 0 for c in cells}, enabled=progress)
     for c in cells:

@@ -11,7 +11,7 @@ from __future__ import annotations
 import hashlib
 import json
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from .cost import CostModel
@@ -333,6 +333,9 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
     built = [design_from_dict(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs)]
     for d, est in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
         check_estimators(est, frame.roles, f"design {d.label!r}")
+    sort_keys = [d.sort_by for d, _ in built if isinstance(getattr(d, "sort_by", None), str)]
+    if sort_keys:  # systematic designs' sort_by columns are resolved when the frame is loaded
+        frame = replace(frame, roles={**frame.roles, "sort_keys": list(dict.fromkeys(sort_keys))})
     labels = [d.label for d, _ in built]
     dup = {x for x in labels if labels.count(x) > 1}
     if dup:

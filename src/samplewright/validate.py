@@ -70,6 +70,23 @@ def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
     return num, bad
 
 
+def sort_key_codes(df: pd.DataFrame, sort_keys, source: str = "frame") -> dict:
+    """Integer codes (in sorted order of the values) of each column a design sorts the list by.
+
+    Every column must exist and have no blank cells; numbers sort as numbers, text as text
+    (mixed types as text).  Used by systematic designs' ``sort_by`` (implicit stratification).
+    """
+    out = {}
+    for col in sort_keys:
+        _require_column(df, col, "sort_by", source)
+        blank = df[col].isna().to_numpy()
+        if blank.any():
+            raise InputError(f"{source}: sort_by column {col!r} is blank at row(s) {_rows(blank)}")
+        codes, _ = pd.factorize(_labels(df[col]), sort=True)
+        out[col] = codes.astype(np.int64)
+    return out
+
+
 def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=None, order=None,
                   unit_cost=None, id=None, missing="refuse", source="frame"):
     """Check the role columns of a frame; return the (possibly row-dropped) frame and the roles.

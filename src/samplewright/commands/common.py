@@ -51,7 +51,8 @@ def simulate_and_write(scenario, args) -> int:
     inputs = (scenario.source, scenario.frame.path)
     prepare_dir(args.out, force=args.force, inputs=inputs)  # refuse before spending time simulating
     res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
-              progress=None if not args.quiet else False, log=logger(args))
+              progress=None if not args.quiet else False, log=logger(args),
+                  exact=getattr(args, "exact", False))
     out = res.write(args.out, force=True)
     page = None
     if not getattr(args, "no_report", False):

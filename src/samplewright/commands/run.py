@@ -12,6 +12,9 @@ def add_arguments(p) -> None:
     p.add_argument("scenario", help="scenario file (TOML)")
     p.add_argument("--out", required=True, help="results folder (refused if it holds files, unless --force)")
     add_run_options(p)
+    p.add_argument("--exact", action="store_true",
+                   help="enumerate every possible sample (small frames: at most 2 million per design and size) "
+                        "and report exact design moments instead of simulating")
 
 
 def main(args) -> int:

@@ -1,4 +1,5 @@
-"""Systematic sampling along the frame's list order, with a fractional interval."""
+"""Systematic sampling along the frame's list order: linear or circular, one or several
+random starts, optionally after sorting the list by a column (implicit stratification)."""
 
 from __future__ import annotations
 
@@ -8,49 +9,154 @@ from ..block import SampleBlock
 from ..errors import InputError
 from .base import Design
 
+KINDS = ("linear", "circular")
+
 
 class Systematic(Design):
-    """Every k-th unit along the list order from a random start, k = N / n (fractional).
+    """Every k-th unit along the list order from a random start, k = N / n.
 
-    Positions are ``floor(u + j k)`` for j = 0..n-1 with u uniform on [0, k), so the sample
-    size is exactly n and every unit has inclusion probability n / N.  The default variance
-    estimate treats the sample as SRS (the usual practice, biased when the list order has
-    structure; Cochran 1977, ch. 8).
+    Parameters (scenario keys)
+    --------------------------
+    n : int or list of int
+        Units in the sample (all starts together).
+    kind : {"linear", "circular"}
+        ``linear`` (default): positions ``floor(u + j k)``, j = 0..n-1, with u uniform on
+        [0, k); a fractional k keeps the size exactly n.  ``circular``: a whole start s
+        uniform on 0..N-1 and positions ``(s + floor(j k)) mod N``, wrapping round the end of
+        the list (Lahiri's circular method when k is whole; Cochran 1977, sec. 8.1).
+    starts : int
+        r independent random starts (default 1), each taking n / r units with the interval
+        K = r k, so n must be a multiple of r.  The r start samples are independent
+        replicates of one systematic sample, which gives the between-start variance
+        estimator (Wolter, Introduction to Variance Estimation, ch. 2, random groups).  Two
+        starts can hit the same unit; it then counts twice, each time with weight N / n.
+    sort_by : str, optional
+        Sort the list by this column first (stable: ties keep the list order).  Sorting by
+        a stratifying column gives implicit stratification: each group receives its
+        proportional share of the sample, within one unit.  The frame must be loaded with the
+        column as a sort key (a scenario does this from the designs' ``sort_by``).
+    variance : {"srs", "successive_differences", "between_starts"}
+        ``srs`` (default): the SRS formula (1 - f) s^2 / n, the usual practice, biased when the
+        list order has structure (Cochran 1977, ch. 8).  ``successive_differences``: Wolter's
+        v3 on the units in list order (see :func:`samplewright.estimators.successive_difference_variance`).
+        ``between_starts``: the r start samples are the PSUs (needs starts >= 2).
+
+    Notes
+    -----
+    Inclusion probabilities.  One start, linear: unit i is taken when u falls in a set of
+    length 1 out of [0, k), so pi_i = 1 / k = n / N exactly (also for a fractional k).
+    Circular: unit i is taken for exactly n of the N starts, pi_i = n / N.  With r starts
+    each start takes a unit with probability 1 / K = n / (r N), independently, so
+    pi_i = 1 - (1 - n / (r N))^r and the expected number of selections of unit i is n / N;
+    the estimators weight each selection by N / n, which is unbiased for the total.
+
+    Examples
+    --------
+    >>> import numpy as np, pandas as pd
+    >>> from samplewright import Frame
+    >>> f = Frame.from_dataframe(pd.DataFrame({"y": np.arange(12.0)}), target="y")
+    >>> blk = Systematic("every 3rd", n=4).draw(f, np.random.default_rng(1), B=2, keep_units=True)
+    >>> np.diff(blk.units, axis=1).tolist()
+    [[3, 3, 3], [3, 3, 3]]
     """
 
     method = "systematic"
-    keys = ("n",)
+    keys = ("n", "kind", "starts", "sort_by", "variance")
+    variances = ("srs", "successive_differences", "between_starts")
 
-    def __init__(self, label: str, n):
-        super().__init__(label, n=n)
+    def __init__(self, label: str, n, kind: str = "linear", starts: int = 1, sort_by: str | None = None,
+                 variance: str = "srs"):
+        super().__init__(label, n=n, kind=kind, starts=starts, sort_by=sort_by, variance=variance)
 
+    # ------------------------------------------------------------------ checks
     def check(self, frame):
+        from ..validate import closest
+
         n = self._positive_int("n", self.n)
         if n > frame.N:
             raise InputError(f"design {self.label!r}: n = {n} is more than the {frame.N} units in the frame")
+        if self.kind not in KINDS:
+            raise InputError(f"design {self.label!r}: kind = {self.kind!r} is not known{closest(str(self.kind), KINDS)}")
+        r = self._positive_int("starts", self.starts)
+        if n % r:
+            raise InputError(f"design {self.label!r}: n = {n} is not a multiple of starts = {r} "
+                             f"(each of the {r} starts takes n / starts units)")
+        self._check_variance()
+        if self.variance_name == "between_starts" and r < 2:
+            raise InputError(f"design {self.label!r}: variance = 'between_starts' needs starts = 2 or more "
+                             f"(got starts = {r})")
+        if self.variance_name == "successive_differences" and n < 2:
+            raise InputError(f"design {self.label!r}: variance = 'successive_differences' needs n >= 2")
+        if self.sort_by is not None:
+            if not isinstance(self.sort_by, str) or not self.sort_by:
+                raise InputError(f"design {self.label!r}: sort_by must be a column name, got {self.sort_by!r}")
+            if self.sort_by not in frame.sort_orders:
+                raise InputError(f"design {self.label!r}: sort_by column {self.sort_by!r} is not a sort key of "
+                                 f"the frame (load the frame with sort_keys=[{self.sort_by!r}])")
 
+    # ------------------------------------------------------------------ geometry
     def interval(self, frame) -> float:
-        return frame.N / int(self.n)
+        """The interval between the units of one start: K = starts x N / n."""
+        return int(self.starts) * frame.N / int(self.n)
 
-    def _draw(self, frame, rng, B, keep_units):
-        n, N = int(self.n), frame.N
-        k = N / n
-        u = rng.random(B) * k
-        pos = np.floor(u[:, None] + np.arange(n)[None, :] * k).astype(np.int64)
+    def list_order(self, frame) -> np.ndarray:
+        """Unit indices in the order the design walks (the list order, or sorted by ``sort_by``)."""
+        return frame.order if self.sort_by is None else frame.sort_orders[self.sort_by]
+
+    def positions(self, frame, rng: np.random.Generator, B: int) -> np.ndarray:
+        """List positions (B, starts, n / starts) of B replicate samples."""
+        n, N, r = int(self.n), frame.N, int(self.starts)
+        m = n // r
+        j = np.arange(m)
+        if self.kind == "circular":
+            s = rng.integers(0, N, size=(B, r))
+            offsets = (j * N) // m  # floor(j K) in whole numbers, K = N / m
+            return (s[..., None] + offsets) % N
+        v = rng.random((B, r)) * N  # v = u m with u uniform on [0, K): floor(u + j K) = floor((v + j N) / m)
+        pos = np.floor((v[..., None] + j * N) / m).astype(np.int64)
         np.minimum(pos, N - 1, out=pos)  # guards the last position against rounding
-        units = frame.order[pos]
+        return pos
+
+    # ------------------------------------------------------------------ drawing
+    def _draw(self, frame, rng, B, keep_units):
+        n, N, r = int(self.n), frame.N, int(self.starts)
+        pos = self.positions(frame, rng, B)  # (B, r, m)
+        order = self.list_order(frame)
+        variance = self.variance_name
+        if variance == "between_starts":
+            units = order[pos]  # (B, r, m): each start is one PSU
+            sums = frame.gather(units).sum(axis=2)
+            weight, psu, fpc = np.full(r, N / n), np.zeros(r, dtype=np.int64), np.array([1.0])
+            units = units.reshape(B, n)
+        else:
+            flat = pos.reshape(B, n)
+            if variance == "successive_differences":
+                flat = np.sort(flat, axis=1)  # neighbours in list order
+            units = order[flat]
+            sums = frame.gather(units)
+            weight, psu, fpc = np.full(n, N / n), np.zeros(n, dtype=np.int64), np.array([1.0 - n / N])
         return SampleBlock(
-            sums=frame.gather(units),
-            weight=np.full(n, N / n),
-            psu_stratum=np.zeros(n, dtype=np.int64),
-            fpc=np.array([1.0 - n / N]),
+            sums=sums,
+            weight=weight,
+            psu_stratum=psu,
+            fpc=fpc,
             clusters=np.zeros(B),
             strata=0,
             units=units if keep_units else None,
+            variance=variance,
         )
 
+    # ------------------------------------------------------------------ probabilities
     def inclusion_probabilities(self, frame):
+        n, N, r = int(self.n), frame.N, int(self.starts)
+        if r == 1:
+            return np.full(N, n / N)
+        return np.full(N, 1.0 - (1.0 - n / (r * N)) ** r)
+
+    def expected_hits(self, frame) -> np.ndarray:
+        """Expected number of times each unit is selected (n / N; equals pi_i for one start)."""
         return np.full(frame.N, int(self.n) / frame.N)
 
     def expected_n(self, frame):
+        """Selections per sample: exactly n (with several starts a unit may be selected twice)."""
         return float(self.n)
