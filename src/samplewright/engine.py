@@ -21,6 +21,7 @@ import pandas as pd
 from .cost import CostModel
 from .designs import Design
 from .estimators import ESTIMATORS, sample_units
+from .fieldwork import replicate_columns
 from .frame import Frame
 
 
@@ -51,6 +52,15 @@ class BlockResult:
     upper: np.ndarray
     n: np.ndarray  # (B,)
     cost: np.ndarray  # (B,)
+    # fieldwork only (see fieldwork.py): counts per replicate and the full-response results
+    attempted: np.ndarray | None = None  # (B,)
+    eligible: np.ndarray | None = None  # (B,)
+    full_estimate: np.ndarray | None = None  # (E, B, V)
+    full_se: np.ndarray | None = None
+    full_lower: np.ndarray | None = None
+    full_upper: np.ndarray | None = None
+    full_cost: np.ndarray | None = None  # (B,)
+    adjustment_failed: np.ndarray | None = None  # (B,)
 
 
 def block_seed(seed: int, cell: Cell, block: int) -> np.random.SeedSequence:
@@ -66,6 +76,10 @@ def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
 def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, count: int,
               seedseq: np.random.SeedSequence, confidence: float, cost: CostModel) -> BlockResult:
     """Draw one block of replicates and estimate with every estimator of the cell."""
+    if getattr(cell.design, "fieldwork", None) is not None:  # non-response, frame errors (fieldwork.py)
+        from .fieldwork import run_fieldwork_block
+
+        return run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost)
     rng = np.random.default_rng(seedseq)
     sample = cell.design.draw(frame, rng, count)
     outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence, frame.layout) for e in cell.estimators]
@@ -150,5 +164,6 @@ def replicate_table(results: list[BlockResult], cells: list[Cell], variables) ->
             "upper": hi.transpose(0, 2, 1).reshape(-1),
             "n": np.tile(n, E * V),
             "cost": np.tile(cost, E * V),
+            **replicate_columns(mine, E, V),  # fieldwork columns, when the run has them
         }))
     return pd.concat(frames, ignore_index=True)

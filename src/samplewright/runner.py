@@ -13,6 +13,7 @@ from .checks import design_warnings, frame_warnings
 from .engine import make_cells, replicate_table, simulate
 from .errors import InputError
 from .evaluate import summarise
+from .fieldwork import prepare as prepare_fieldwork, summary_columns
 from .frame import Frame
 from .progress import Progress
 from .result import ALLOCATION_COLUMNS, RunResult
@@ -88,6 +89,10 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         frame = scenario.load_frame()
     say(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
     cells = make_cells(scenario.designs, scenario.estimators)
+    truth_frame = frame  # the true population: the evaluator's truths
+    field = prepare_fieldwork(scenario, frame, cells, seed, scenario.confidence)  # fieldwork.py
+    if field is not None:
+        frame = field.frame  # designs draw from the listed frame (frame errors)
     for cell in cells:
         cell.design.check(frame)
     notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
@@ -106,7 +111,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     t2 = time.monotonic()
     reps = replicate_table(results, cells, frame.layout.names)  # targets, then domain variables
     methods = {d.label: d.method for d in scenario.designs}
-    summary = summarise(reps, frame, methods, scenario.confidence)
+    summary = summarise(reps, truth_frame, methods, scenario.confidence)
+    if field is not None:  # response, bias split and full-response columns after the contract ones
+        summary = summary_columns(summary, reps, field, scenario.confidence)
     alloc = allocation_table(frame, cells)
     info = {
         "title": scenario.title,
@@ -128,6 +135,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "elapsed_seconds": round(time.monotonic() - t0, 3),
         "simulation_seconds": round(t2 - t1, 3),
         "warnings": notes,
+        "fieldwork": None if field is None else field.info,
     }
     say(f"simulated in {t2 - t1:.2f} s")
     return RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes)

@@ -157,7 +157,7 @@ def units_block(frame, units, weight, psu_stratum, fpc, *, mask=None, variance="
 
     B = units.shape[0]
     return SampleBlock(
-        sums=frame.values[units],
+        sums=frame.gather(units),
         weight=weight,
         psu_stratum=np.asarray(psu_stratum, dtype=np.int64),
         fpc=np.asarray(fpc, dtype=float),

@@ -22,38 +22,17 @@ Sampford on a small frame, ``sen_yates_grundy`` with exact joint probabilities; 
 from __future__ import annotations
 
 import math
-from itertools import combinations
 
 import numpy as np
 
 from ..draws import _KEY_BUDGET
+from ..enumeration import combination_chunks, product_chunks
 from ..errors import InputError
 from .base import Design
 from .pips import pips, sampford_draw, sampford_route, size_measure, units_block
 
 #: most subsets enumerated to get exact joint inclusion probabilities (and in exact mode)
 ENUMERATION_LIMIT = 2_000_000
-
-
-def combination_chunks(N: int, n: int, chunk: int):
-    """Every n-subset of range(N) in lexicographic order, as int arrays of up to ``chunk`` rows."""
-    it = combinations(range(N), n)
-    while True:
-        flat = np.fromiter((i for c in _take(it, chunk) for i in c), dtype=np.int64)
-        if flat.size == 0 and n > 0:
-            return
-        rows = flat.reshape(-1, n) if n > 0 else np.zeros((1, 0), dtype=np.int64)
-        yield rows
-        if n == 0 or rows.shape[0] < chunk:
-            return
-
-
-def _take(it, k):
-    for _ in range(k):
-        try:
-            yield next(it)
-        except StopIteration:
-            return
 
 
 class _SizeDesign(Design):
@@ -345,11 +324,5 @@ class PPSWithReplacement(Design):
         """Every ordered sequence of n draws, with probability prod p_i."""
         n, N = int(self.n), frame.N
         p = self._p(frame)
-        total = N ** n
-        for a in range(0, total, chunk):
-            code = np.arange(a, min(total, a + chunk), dtype=np.int64)
-            digits = np.empty((code.size, n), dtype=np.int64)
-            for j in range(n - 1, -1, -1):
-                digits[:, j] = code % N
-                code = code // N
-            yield self._block(frame, digits, True), p[digits].prod(axis=1)
+        for draws in product_chunks([N] * n, chunk):
+            yield self._block(frame, draws, True), p[draws].prod(axis=1)
