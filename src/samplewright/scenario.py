@@ -23,11 +23,12 @@ from .frame import Frame, read_table
 from .synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate
 from .validate import closest
 
-TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost")
+TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
+            "response", "frame_error")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
               "auxiliary", "poststratum", "domain", "domains")
 COST_KEYS = ("fixed", "per_unit", "per_cluster", "per_stratum")
-DESIGN_COMMON = ("label", "method", "estimators")
+DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
 DEFAULT_BLOCK = 500
 
 
@@ -267,6 +268,9 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
         design = cls(label, **params)
     except TypeError as exc:
         raise InputError(f"{ctx}: {exc}") from None
+    from .weighting import adjustment_from_table  # non-response adjustment (weighting.py)
+
+    design.adjustment = adjustment_from_table(table, ctx)
     return design, tuple(dict.fromkeys(est))
 
 
@@ -284,6 +288,8 @@ class Scenario:
     confidence: float = 0.95
     block_size: int = DEFAULT_BLOCK
     cost: CostModel = field(default_factory=CostModel)
+    response: object | None = None  # response.ResponseModel, from [response]
+    frame_error: object | None = None  # frame_errors.FrameErrorSpec, from [frame_error]
     source: Path | None = None
     raw: dict = field(default_factory=dict, repr=False)
 
@@ -344,6 +350,7 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
         c = doc["cost"]
         check_keys(c, COST_KEYS, "[cost]")
         kw["cost"] = CostModel(**{k: as_float(c[k], k, "[cost]", minimum=0.0) for k in c})
+    kw.update(_fieldwork_tables(doc))
     return Scenario(frame=frame, designs=tuple(d for d, _ in built), estimators=tuple(e for _, e in built),
                     source=source, raw=doc, **kw)
 
@@ -370,3 +377,16 @@ def load_scenario(path) -> Scenario:
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{p}: malformed TOML: {exc}") from None
     return scenario_from_dict(doc, base=p.parent, source=p)
+
+
+def _fieldwork_tables(doc: dict) -> dict:
+    """[response] and [frame_error] (validated in response.py and frame_errors.py)."""
+    from .frame_errors import frame_error_from_dict
+    from .response import response_from_dict
+
+    out = {}
+    if "response" in doc:
+        out["response"] = response_from_dict(doc["response"])
+    if "frame_error" in doc:
+        out["frame_error"] = frame_error_from_dict(doc["frame_error"])
+    return out
