@@ -81,7 +81,7 @@ def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, co
 
         return run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost)
     rng = np.random.default_rng(seedseq)
-    sample = cell.design.draw(frame, rng, count)
+    sample = cell.design.draw(frame, rng, count, keep_units=cost.needs_units(cell.design))
     outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence, frame.layout) for e in cell.estimators]
     return BlockResult(
         cell=cell_id, block=block, start=start,
@@ -90,7 +90,7 @@ def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, co
         lower=np.stack([o.lower for o in outs]),
         upper=np.stack([o.upper for o in outs]),
         n=sample_units(sample),
-        cost=cost.replicate_cost(sample),
+        cost=cost.replicate_cost(sample, frame),
     )
 
 
@@ -103,35 +103,135 @@ def make_cells(designs, estimators) -> list[Cell]:
     return cells
 
 
+#: where blocks run: in this process / local worker processes (joblib's loky), or a dask cluster
+BACKENDS = ("local", "dask")
+
+
 def simulate(frame: Frame, cells: list[Cell], replicates: int, seed: int, block_size: int,
-             confidence: float, cost: CostModel, jobs: int = 1, progress=None) -> list[BlockResult]:
+             confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
+             scheduler: str | None = None, store=None) -> list[BlockResult]:
     """Run every block of every cell; results come back tagged, in any order.
 
     ``progress``, when given, is called with (cell id, replicates done in that block) after
-    each block completes.
+    each block completes.  ``store`` (a :class:`~samplewright.checkpoint.BlockStore`) keeps
+    each finished block on disk and supplies the blocks a previous attempt finished.
     """
-    tasks = []
-    for ci, cell in enumerate(cells):
-        for b, s, count in block_spans(replicates, block_size):
-            tasks.append((ci, b, s, count, block_seed(seed, cell, b)))
-    results = []
-    if jobs == 1:
-        for ci, b, s, count, ss in tasks:
-            r = run_block(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
-            results.append(r)
+    tasks = [(ci, b, s, count) for ci in range(len(cells)) for b, s, count in block_spans(replicates, block_size)]
+    return list(_complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress))
+
+
+def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, seed: int, block_size: int,
+                   confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
+                   scheduler: str | None = None, store=None) -> tuple[list[BlockResult], list[dict]]:
+    """Add blocks to each cell, in block order, until it meets ``rule`` (see :mod:`samplewright.stopping`).
+
+    Every cell runs at least ``min_replicates`` (rounded up to whole blocks) and at most
+    ``rule.max_replicates``.  Blocks are dispatched in waves sized from the replicates the
+    rule still asks for; blocks past a cell's stopping point are dropped, so the replicates
+    kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the
+    per-cell report of :func:`samplewright.stopping.report`.
+    """
+    from .stopping import CellProgress, advance, report
+
+    spans = block_spans(rule.max_replicates, block_size)
+    max_blocks = len(spans)
+    min_blocks = min(max_blocks, -(-int(min_replicates) // block_size))
+    truth = frame.mean
+    states = {ci: CellProgress() for ci in range(len(cells))}
+    have: dict[int, dict[int, BlockResult]] = {ci: {} for ci in range(len(cells))}
+    scheduled = {ci: 0 for ci in range(len(cells))}
+    wave = {ci: min_blocks for ci in range(len(cells))}
+    while True:
+        tasks = []
+        for ci, st in states.items():
+            if st.stopped:
+                continue
+            upto = min(max_blocks, wave[ci])
+            tasks += [(ci, b, spans[b][1], spans[b][2]) for b in range(scheduled[ci], upto)]
+            scheduled[ci] = max(scheduled[ci], upto)
+        if not tasks:
+            break
+        for r in _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
+            have[r.cell][r.block] = r
+        for ci, st in states.items():
+            if st.stopped:
+                continue
+            advance(st, have[ci], rule, truth, min_blocks, max_blocks)
+            if not st.stopped:  # aim at the replicates still asked for, growing at most twofold per wave
+                aim = -(-st.tally.needed(rule.targets) // block_size)
+                wave[ci] = min(max_blocks, max(st.used + max(jobs, 1), min(aim, 2 * st.used)))
+    kept = [have[ci][b] for ci, st in states.items() for b in range(st.used)]
+    return kept, report(cells, states, rule)
+
+
+def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
+    """Yield the result of every task (cell id, block, start, count): from ``store`` when it
+    holds the block already, otherwise drawn now (and saved to ``store`` on arrival)."""
+    done = store.finished() if store is not None else set()
+    todo = []
+    for ci, b, s, count in tasks:
+        cell = cells[ci]
+        r = store.load(cell, ci, b) if (cell.key, cell.size_index, b) in done else None
+        if r is not None and r.start == s and len(r.n) == count:
             if progress:
                 progress(ci, count)
-        return results
-    from joblib import Parallel, delayed
-
-    par = Parallel(n_jobs=jobs, return_as="generator_unordered")
-    gen = par(delayed(run_block)(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
-              for ci, b, s, count, ss in tasks)
-    for r in gen:
-        results.append(r)
+            yield r
+        else:
+            todo.append((ci, b, s, count))
+    for r in dispatch(frame, cells, todo, seed, confidence, cost, jobs, backend, scheduler):
+        if store is not None:
+            store.save(r, cells[r.cell])
         if progress:
             progress(r.cell, len(r.n))
-    return results
+        yield r
+
+
+def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: float, cost: CostModel,
+             jobs: int = 1, backend: str = "local", scheduler: str | None = None):
+    """Run ``run_block`` for each task (cell id, block, start, count); yield results as they finish.
+
+    ``backend="local"`` runs in this process when ``jobs`` is 1, else on ``jobs`` joblib
+    worker processes; ``backend="dask"`` sends the blocks to the dask.distributed scheduler
+    at ``scheduler`` through joblib's dask backend, with the frame scattered to the workers
+    once (not shipped with every block).
+    """
+    calls = [(ci, b, s, count, block_seed(seed, cells[ci], b)) for ci, b, s, count in tasks]
+    if not calls:
+        return
+    if backend == "local" and (jobs == 1 or len(calls) == 1):
+        for ci, b, s, count, ss in calls:
+            yield run_block(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
+        return
+    from joblib import Parallel, delayed
+
+    work = (delayed(run_block)(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
+            for ci, b, s, count, ss in calls)
+    if backend == "dask":
+        from joblib import parallel_config
+
+        with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame]):
+            yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
+        return
+    yield from Parallel(n_jobs=jobs, return_as="generator_unordered")(work)
+
+
+def _dask_client(scheduler: str | None):
+    """A client of the dask scheduler at ``scheduler`` (refused with InputError when unusable)."""
+    from .errors import InputError
+
+    if not scheduler:
+        raise InputError("--backend dask needs --scheduler ADDRESS, the address of a running dask scheduler "
+                         "(e.g. tcp://scheduler-host:8786)")
+    try:
+        from distributed import Client
+    except ImportError:
+        raise InputError("--backend dask needs the optional dask packages: pip install 'samplewright[dask]'") \
+            from None
+    try:
+        return Client(scheduler, timeout="20s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(f"--scheduler {scheduler!r}: no dask scheduler could be reached there "
+                         f"({type(exc).__name__}: {exc})") from None
 
 
 def replicate_table(results: list[BlockResult], cells: list[Cell], variables) -> pd.DataFrame:

@@ -9,15 +9,21 @@ HELP = "rehearse the designs of a scenario file and write summary, replicates, a
 
 
 def add_arguments(p) -> None:
-    p.add_argument("scenario", help="scenario file (TOML)")
-    p.add_argument("--out", required=True, help="results folder (refused if it holds files, unless --force)")
+    p.add_argument("scenario", nargs="?", help="scenario file (TOML); with --resume, defaults to the saved one")
+    p.add_argument("--out", help="results folder (refused if it holds files, unless --force)")
     add_run_options(p)
     p.add_argument("--exact", action="store_true",
                    help="enumerate every possible sample (small frames: at most 2 million per design and size) "
                         "and report exact design moments instead of simulating")
+    from .longrun import add_resume_option
+
+    add_resume_option(p)
 
 
 def main(args) -> int:
     from ..scenario import load_scenario
 
-    return simulate_and_write(load_scenario(args.scenario), args)
+    from .longrun import resume_target
+
+    scenario, args.out = resume_target(args)
+    return simulate_and_write(load_scenario(scenario), args)
