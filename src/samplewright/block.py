@@ -45,6 +45,9 @@ class SampleBlock:
     design_info : dict or None
         Design constants a variance routine needs beyond the block (for example the
         population sum of squared inclusion probabilities, or exact joint probabilities).
+    cluster_cost : (B,) array or None
+        Sum of the frame's ``cluster_cost`` over the clusters each replicate visits (designs
+        that select clusters, on a frame with that column; see ``cost.cluster_costs``).
     """
 
     sums: np.ndarray
@@ -57,6 +60,7 @@ class SampleBlock:
     units: np.ndarray | None = None
     variance: str = "psu"
     design_info: dict | None = None
+    cluster_cost: np.ndarray | None = None
 
     @property
     def B(self) -> int:

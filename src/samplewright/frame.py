@@ -88,6 +88,7 @@ class Frame:
     domain: np.ndarray | None = None  # (N,) codes 0..D-1
     domain_labels: tuple = ()
     domain_keep: tuple | None = None  # codes of the domains to report (default: all)
+    cluster_cost: np.ndarray | None = None  # (C,) cost of visiting each cluster (cost.py)
     # derived, filled in __post_init__
     values: np.ndarray = field(init=False, repr=False)
     layout: "Layout" = field(init=False, repr=False)  # positions of the extra value columns
@@ -222,6 +223,7 @@ class Frame:
         poststratum: str | None = None,
         domain: str | None = None,
         domains=None,
+        cluster_cost: str | None = None,
     ) -> "Frame":
         """Bind the columns of ``df`` to roles, check them, and build a Frame.
 
@@ -240,6 +242,11 @@ class Frame:
         aux_names, aux_roles = auxiliary_columns(df, auxiliary=auxiliary, poststratum=poststratum,
                                                  domain=domain, domains=domains, source=source)
         roles.update(aux_roles)
+        if cluster_cost is not None:  # one cost per cluster, checked constant within each
+            from .validate import cluster_cost_column
+
+            per_unit_cc = cluster_cost_column(df, cluster_cost, cluster, source)
+            roles["cluster_cost"] = cluster_cost
         targets = roles["target"]
         y = df[list(targets)].to_numpy(dtype=np.float64)
         extra = {}
@@ -259,6 +266,9 @@ class Frame:
         c_codes, c_labels = (None, ())
         if cluster is not None:
             c_codes, c_labels = _codes(df[cluster])
+        if cluster_cost is not None:
+            extra["cluster_cost"] = np.zeros(len(c_labels))
+            extra["cluster_cost"][c_codes] = per_unit_cc
         order_idx = None
         if order is not None:
             order_idx = np.argsort(df[order].to_numpy(), kind="stable").astype(np.int64)

@@ -88,11 +88,13 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         say("loading the frame")
         frame = scenario.load_frame()
     say(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
-    cells = make_cells(scenario.designs, scenario.estimators)
+    designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)  # cost-optimal c_h (cost.py)
+    cells = make_cells(designs, scenario.estimators)
     truth_frame = frame  # the true population: the evaluator's truths
     field = prepare_fieldwork(scenario, frame, cells, seed, scenario.confidence)  # fieldwork.py
     if field is not None:
         frame = field.frame  # designs draw from the listed frame (frame errors)
+    frame = scenario.cost.bind(frame)  # per-stratum unit rates into the cost column (cost.py)
     for cell in cells:
         cell.design.check(frame)
     notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
@@ -138,4 +140,18 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "fieldwork": None if field is None else field.info,
     }
     say(f"simulated in {t2 - t1:.2f} s")
-    return RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes)
+    front, rec = goal_tables(summary, reps, scenario)
+    return RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes,
+                     frontier=front, recommendation=rec)
+
+
+def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
+    """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal])."""
+    from .frontier import frontier_table
+    from .recommend import recommend
+
+    goal = scenario.goal
+    conf = scenario.confidence if goal is None or goal.confidence is None else goal.confidence
+    front = frontier_table(summary, reps, conf)
+    rec = None if goal is None else recommend(front, goal, scenario.confidence)
+    return front, rec

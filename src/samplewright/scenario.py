@@ -14,7 +14,7 @@ import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
-from .cost import CostModel
+from .cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as COST_SCALARS, CostModel
 from .designs import METHODS, Design
 from .errors import InputError
 from .auxiliary import check_estimators
@@ -24,10 +24,11 @@ from .synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec
 from .validate import closest
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
-            "response", "frame_error")
+            "response", "frame_error", "goal")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
-              "auxiliary", "poststratum", "domain", "domains")
-COST_KEYS = ("fixed", "per_unit", "per_cluster", "per_stratum")
+              "auxiliary", "poststratum", "domain", "domains", "cluster_cost")
+COST_KEYS = COST_MODEL_KEYS  # cost.py lists them (scalar rates, per_unit_by_stratum, charge_touched_clusters)
+GOAL_KEYS = ("moe", "budget", "confidence", "variable")
 DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
 DEFAULT_BLOCK = 500
 
@@ -195,7 +196,7 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
         roles["target"] = synthetic.target
     else:
         raise InputError(f"{ctx}: missing required key 'target' (the study-variable column)")
-    for k in ("stratum", "cluster", "size", "order", "unit_cost", "id", "poststratum", "domain"):
+    for k in ("stratum", "cluster", "size", "order", "unit_cost", "id", "poststratum", "domain", "cluster_cost"):
         if k in table:
             roles[k] = as_str(table[k], k, ctx)
     if "auxiliary" in table:  # columns whose population totals the frame gives (ratio, greg)
@@ -288,6 +289,7 @@ class Scenario:
     confidence: float = 0.95
     block_size: int = DEFAULT_BLOCK
     cost: CostModel = field(default_factory=CostModel)
+    goal: object | None = None  # recommend.Goal, from [goal]
     response: object | None = None  # response.ResponseModel, from [response]
     frame_error: object | None = None  # frame_errors.FrameErrorSpec, from [frame_error]
     source: Path | None = None
@@ -347,12 +349,64 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
     if dup:
         raise InputError(f"design label {sorted(dup)[0]!r} is used twice; labels must be unique")
     if "cost" in doc:
-        c = doc["cost"]
-        check_keys(c, COST_KEYS, "[cost]")
-        kw["cost"] = CostModel(**{k: as_float(c[k], k, "[cost]", minimum=0.0) for k in c})
+        kw["cost"] = _cost_model(doc["cost"])
+    if "goal" in doc:
+        kw["goal"] = _goal(doc["goal"], frame.roles.get("target"))
     kw.update(_fieldwork_tables(doc))
     return Scenario(frame=frame, designs=tuple(d for d, _ in built), estimators=tuple(e for _, e in built),
                     source=source, raw=doc, **kw)
+
+
+def _cost_model(c: dict) -> CostModel:
+    """[cost]: scalar rates (numbers >= 0), [cost.per_unit_by_stratum] and charge_touched_clusters."""
+    check_keys(c, COST_KEYS, "[cost]")
+    kw = {k: as_float(c[k], k, "[cost]", minimum=0.0) for k in c if k in COST_SCALARS}
+    if "per_unit_by_stratum" in c:
+        t, ctx = c["per_unit_by_stratum"], "[cost.per_unit_by_stratum]"
+        if not isinstance(t, dict) or not t:
+            raise InputError(f"{ctx} must be a table of stratum label = cost per unit, e.g. "
+                             f"[cost.per_unit_by_stratum] with a line north = 18.0")
+        kw["per_unit_by_stratum"] = tuple((str(k), as_float(v, str(k), ctx, minimum=0.0)) for k, v in t.items())
+    if "charge_touched_clusters" in c:
+        kw["charge_touched_clusters"] = as_bool(c["charge_touched_clusters"], "charge_touched_clusters", "[cost]")
+    return CostModel(**kw)
+
+
+def _goal(g: dict, targets):
+    """[goal]: a target margin of error and/or a budget, the confidence level, the variable."""
+    from .recommend import Goal
+
+    check_keys(g, GOAL_KEYS, "[goal]")
+    if "moe" not in g and "budget" not in g:
+        raise InputError("[goal] needs moe (the margin of error to reach) and/or budget (the money available)")
+    kw = {}
+    for k in ("moe", "budget"):
+        if k in g:
+            kw[k] = as_float(g[k], k, "[goal]", minimum=0.0)
+            if kw[k] <= 0:
+                raise InputError(f"[goal]: {k} must be above 0, got {g[k]!r}")
+    if "confidence" in g:
+        kw["confidence"] = as_float(g["confidence"], "confidence", "[goal]", 0.0, 1.0, open_interval=True)
+    if "variable" in g:
+        v = as_str(g["variable"], "variable", "[goal]")
+        names = [targets] if isinstance(targets, str) else list(targets or [])
+        if names and v not in names:
+            raise InputError(f"[goal]: variable {v!r} is not a target of [frame]{closest(v, names)}")
+        kw["variable"] = v
+    return Goal(**kw)
+
+
+def _fieldwork_tables(doc: dict) -> dict:
+    """[response] and [frame_error] (validated in response.py and frame_errors.py)."""
+    from .frame_errors import frame_error_from_dict
+    from .response import response_from_dict
+
+    out = {}
+    if "response" in doc:
+        out["response"] = response_from_dict(doc["response"])
+    if "frame_error" in doc:
+        out["frame_error"] = frame_error_from_dict(doc["frame_error"])
+    return out
 
 
 def load_scenario(path) -> Scenario:
@@ -377,16 +431,3 @@ def load_scenario(path) -> Scenario:
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{p}: malformed TOML: {exc}") from None
     return scenario_from_dict(doc, base=p.parent, source=p)
-
-
-def _fieldwork_tables(doc: dict) -> dict:
-    """[response] and [frame_error] (validated in response.py and frame_errors.py)."""
-    from .frame_errors import frame_error_from_dict
-    from .response import response_from_dict
-
-    out = {}
-    if "response" in doc:
-        out["response"] = response_from_dict(doc["response"])
-    if "frame_error" in doc:
-        out["frame_error"] = frame_error_from_dict(doc["frame_error"])
-    return out

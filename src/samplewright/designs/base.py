@@ -56,6 +56,10 @@ class Design:
         setattr(d, self.size_key, int(size))
         return d
 
+    def with_params(self, **params) -> "Design":
+        """A new design of the same class with some parameters changed (built through ``__init__``)."""
+        return type(self)(self.label, **{**self._params, **params})
+
     # --------------------------------------------------------------- protocol
     def check(self, frame: Frame) -> None:
         """Refuse (InputError) parameters this frame cannot support; called once per size."""

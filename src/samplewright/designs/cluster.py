@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..block import SampleBlock
+from ..cost import cluster_costs
 from ..draws import distinct_positions
 from ..errors import InputError
 from .base import Design
@@ -56,6 +57,7 @@ class Cluster(Design):
                 clusters=np.full(B, m, dtype=float),
                 strata=0,
                 units=units,
+                cluster_cost=cluster_costs(frame, chosen),
             )
         sizes = frame.cluster_sizes[chosen]  # (B, m)
         k = min(int(self.units_per_cluster), int(frame.cluster_sizes.max()))  # a larger cap takes all
@@ -70,6 +72,7 @@ class Cluster(Design):
             clusters=np.full(B, m, dtype=float),
             strata=0,
             units=np.where(valid, units, -1).reshape(B, -1) if keep_units else None,
+            cluster_cost=cluster_costs(frame, chosen),
         )
 
     @staticmethod
