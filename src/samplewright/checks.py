@@ -30,6 +30,45 @@ def frame_warnings(frame: Frame) -> list[str]:
     return out
 
 
+def interval_warnings(frame: Frame, design) -> list[str]:
+    """Sentences for a systematic design whose interval is unsafe for a cycle along its list order.
+
+    The detector (``periodicity.frame_order_report``) runs once per frame, target and sort key
+    and is cached with the frame; the rule is ``periodicity.interval_risks``.
+    """
+    if getattr(design, "method", None) != "systematic":
+        return []
+    from .periodicity import frame_order_report, interval_risks
+
+    k = design.interval(frame)
+    sort_by = getattr(design, "sort_by", None)
+    along = "the list order" if sort_by is None else f"the list sorted by {sort_by!r}"
+    out = []
+    for v, name in enumerate(frame.variables):
+        rep = frame_order_report(frame, v, sort_by)
+        for risk in interval_risks(k, frame.N, rep.periods):
+            p = next(q for q in rep.periods if q.period == risk["period"])
+            head = (f"design {design.label!r} at size {design.size}: interval k = {k:.4g} is unsafe for target "
+                    f"{name!r}, which has a cycle of period {p.period:.4g} along {along} (strength {p.strength:.2f}, "
+                    f"Fisher's g p = {p.p_value:.2g}): ")
+            if risk["phases"] == 1:
+                why = (f"k is {risk['multiple']} x the period, so every unit of a sample sits on the same phase of "
+                       f"the cycle; the estimate swings with the start")
+            else:
+                why = (f"the period is {risk['phases']} x k, so a sample sees only {risk['phases']} points of each "
+                       f"cycle; the estimate depends on the start and the cycle's shape")
+            if design.variance_name == "between_starts":
+                tail = " (the between-start SE still measures that spread honestly, at few degrees of freedom)"
+            elif risk["phases"] > 1:
+                tail = (f"; the {design.variance_name} standard error can then be far off in either direction "
+                        f"(too large for a smooth cycle, too small for a peaked one)")
+            else:
+                tail = (f"; the cycle adds about {risk['variance_ratio']:.1f} times the SRS variance, which the "
+                        f"{design.variance_name} variance estimate does not see, so intervals will under-cover")
+            out.append(head + why + tail)
+    return out
+
+
 def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
     out = []
     g1 = stats.skew(frame.y, axis=0, bias=False) if frame.N > 2 else np.zeros(frame.V)
@@ -37,6 +76,7 @@ def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
     for cell in cells:
         d = cell.design
         out.extend(d.notes(frame))  # design set-up notes, e.g. certainty units
+        out.extend(interval_warnings(frame, d))  # systematic intervals in step with a cycle
         n = d.expected_n(frame)
         if n > LARGE_FRACTION * frame.N:
             out.append(f"design {d.label!r} at size {d.size} samples {n / frame.N:.0%} of the frame")

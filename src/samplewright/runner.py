@@ -43,7 +43,7 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
 
 def run(scenario: Scenario, replicates: int | None = None, seed: int | None = None, jobs: int = 1,
         block_size: int | None = None, frame: Frame | None = None, progress: bool | None = False,
-        exact: bool = False, log=None) -> RunResult:
+        exact: bool = False, log=None, warn=None) -> RunResult:
     """Rehearse every design of ``scenario`` and score it.
 
     Parameters
@@ -60,6 +60,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         Show a progress bar on stderr (None: only when stderr is a terminal).
     log : callable, optional
         Called with one line of text for each step (``--verbose``).
+    warn : callable, optional
+        Called with each warning as soon as the checks are done, before any simulating (the
+        CLI prints them); the warnings are also kept in run.json.
     exact : bool
         Enumerate every possible sample instead of simulating (``run --exact``; see
         :mod:`samplewright.exact`): exact design moments, no Monte Carlo error.
@@ -98,6 +101,8 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     for cell in cells:
         cell.design.check(frame)
     notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
+    for w in notes if warn is not None else ():  # said before any time is spent simulating
+        warn(w)
     if exact:  # every possible sample instead of Monte Carlo (exact.py)
         from .exact import exact_result
 

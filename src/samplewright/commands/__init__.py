@@ -1,5 +1,5 @@
 """One module per command; each has NAME, HELP, add_arguments(parser) and main(args) -> int."""
 
-from . import demo, plan, report, run, synth
+from . import demo, inspect, plan, report, run, synth
 
-COMMANDS = [run, demo, synth, plan, report]
+COMMANDS = [run, demo, synth, plan, report, inspect]

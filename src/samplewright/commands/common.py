@@ -37,6 +37,10 @@ def add_run_options(p) -> None:
                         "(build them later with `samplewright report DIR`)")
 
 
+def _warn(message: str) -> None:
+    print(f"warning: {message}", file=sys.stderr)
+
+
 def logger(args):
     if getattr(args, "verbose", False):
         return lambda msg: print(f"samplewright: {msg}", file=sys.stderr)
@@ -51,7 +55,7 @@ def simulate_and_write(scenario, args) -> int:
     inputs = (scenario.source, scenario.frame.path)
     prepare_dir(args.out, force=args.force, inputs=inputs)  # refuse before spending time simulating
     res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
-              progress=None if not args.quiet else False, log=logger(args),
+              progress=None if not args.quiet else False, log=logger(args), warn=_warn,
                   exact=getattr(args, "exact", False))
     out = res.write(args.out, force=True)
     page = None
@@ -59,8 +63,6 @@ def simulate_and_write(scenario, args) -> int:
         from ..report import write_report
 
         page = write_report(res, out, force=True, log=logger(args))
-    for w in res.warnings:
-        print(f"warning: {w}", file=sys.stderr)
     if not args.quiet:
         print(format_summary(res.summary))
         print(f"results written to {out}")
