@@ -238,7 +238,8 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
         probs, ns, costs = [], [], []
         for block, p in enumerate_design(d, frame, chunk):
             for e in cell.estimators:
-                o = ESTIMATORS[e](block, frame.N, frame.V, confidence, frame.layout)  # as engine.run_block
+                with np.errstate(invalid="ignore", divide="ignore"):  # Hajek of an empty sample is NaN
+                    o = ESTIMATORS[e](block, frame.N, frame.V, confidence, frame.layout)  # as engine.run_block
                 for acc, arr in zip(parts[e], (o.estimate, o.se, o.lower, o.upper)):
                     acc.append(arr)
             probs.append(np.asarray(p, dtype=float))
