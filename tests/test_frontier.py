@@ -1,0 +1,179 @@
+"""The cost-precision frontier, the fitted a/n + b curves and the recommendation logic.
+
+External references: the exact variance of the SRS-without-replacement mean,
+(1 - n/N) S^2 / n = S^2/n - S^2/N (Cochran 1977, eq. 2.8, from memory), which is exactly a/n + b
+with a = S^2 and b = -S^2/N; Cochran's n0 / (1 + n0/N) (sec. 4.6); Monte Carlo standard errors
+of coverage sqrt(c (1 - c) / R) (Morris, White & Crowther 2019, Table 6).  Frontier tables in
+the recommendation tests are small constructed summaries (invented numbers exercising the rules).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from conftest import Z
+from samplewright import planning
+from samplewright.frontier import FRONTIER_COLUMNS, fit_curve, frontier_table, pareto, size_for_moe
+from samplewright.recommend import COVERAGE_Z, Goal, coverage_acceptable, recommend
+from samplewright.runner import run
+from samplewright.scenario import scenario_from_dict
+
+Z95 = float(stats.norm.ppf(0.975))
+
+
+# ------------------------------------------------------------------ the fitted curve
+def test_fit_recovers_the_exact_srs_variance_curve():
+    # noiseless points on (1 - n/N) S^2 / n are fitted exactly: a = S^2, b = -S^2 / N
+    S2, N = 37.5, 1200
+    n = np.array([20.0, 60.0, 150.0, 400.0])
+    v = (1 - n / N) * S2 / n
+    c = fit_curve(n, v, np.full(4, 0.01))
+    assert c["a"] == pytest.approx(S2, rel=1e-10)
+    assert c["b"] == pytest.approx(-S2 / N, rel=1e-8)
+
+
+def test_size_for_moe_on_the_exact_curve_is_cochrans_fpc_size():
+    # solving a/n + b = (E/z)^2 with a = S^2, b = -S^2/N gives n0 / (1 + n0/N) (Cochran 1977, sec. 4.6)
+    S2, N, E = 37.5, 1200, 0.8
+    curve = {"a": S2, "b": -S2 / N, "min_size": 1.0, "max_size": float(N)}
+    n0 = Z95**2 * S2 / E**2
+    assert size_for_moe(curve, E, Z95) == pytest.approx(planning.fpc_mean(n0, N), rel=1e-12)
+    assert size_for_moe(curve, E, Z95) == pytest.approx(planning.sample_size(E, sd=np.sqrt(S2), population=N)
+                                                        ["n_after_fpc"], rel=1e-12)
+
+
+def test_fit_on_a_simulated_srs_sweep_matches_the_exact_variance():
+    # simulate SRS at four sizes, fit MSE = a/n + b by WLS, compare with the frame's exact S^2 and
+    # -S^2/N within Z standard errors of the fitted coefficients (their covariance comes from the
+    # per-point Monte Carlo SEs of the MSE, Morris et al. 2019)
+    sc = scenario_from_dict({
+        "frame": {"synthetic": {"units": 1500, "seed": 5, "mean": 50.0, "sd": 12.0}},
+        "design": [{"label": "srs", "method": "srs", "n": [15, 40, 120, 500], "estimators": ["ht"]}],
+    })
+    res = run(sc, replicates=4000, seed=77)
+    frame = sc.load_frame()
+    S2, N = float(frame.S2[0]), frame.N
+    f = res.frontier.sort_values("size")
+    c = fit_curve(f["size"], f["rmse"] ** 2, f["mse_mcse"])
+    se_a, se_b = np.sqrt(np.diag(c["cov"]))
+    assert abs(c["a"] - S2) < Z * se_a
+    assert abs(c["b"] - (-S2 / N)) < Z * se_b
+    # the tolerance is informative: the fitted a is pinned to a few percent of S^2
+    assert Z * se_a < 0.1 * S2
+
+
+# ------------------------------------------------------------------ the frontier
+def test_pareto_front_by_hand():
+    cost = np.array([10.0, 20.0, 30.0, 20.0, 40.0, np.nan])
+    moe = np.array([9.0, 5.0, 6.0, 4.0, 1.0, 0.1])
+    # (20, 5) is dominated by (20, 4); (30, 6) by (20, 4); the NaN point is never on the front
+    assert pareto(cost, moe).tolist() == [True, False, False, True, True, False]
+
+
+def test_frontier_table_columns_and_p90():
+    sc = scenario_from_dict({
+        "frame": {"synthetic": {"units": 800, "seed": 3, "clusters": {"mean_size": 20, "icc": 0.1,
+                                                                       "size_cv": 0.5}}},
+        "design": [{"label": "blocks", "method": "cluster", "clusters": [5, 10], "estimators": ["ht"]},
+                   {"label": "srs", "method": "srs", "n": [50, 100]}],
+        "cost": {"fixed": 10.0, "per_unit": 2.0},
+    })
+    res = run(sc, replicates=300, seed=4)
+    f = res.frontier
+    assert list(f.columns) == FRONTIER_COLUMNS
+    assert len(f) == len(res.summary)
+    reps = res.replicates
+    for _, r in f.iterrows():
+        cost = reps[(reps["design"] == r["design"]) & (reps["size"] == r["size"])
+                    & (reps["estimator"] == r["estimator"])]["cost"]
+        assert r["p90_cost"] == pytest.approx(np.quantile(cost, 0.9))
+        assert r["mean_cost"] == pytest.approx(cost.mean())
+    # whole clusters of unequal size: the cost varies between samples, so p90 exceeds the mean
+    blocks = f[f["design"] == "blocks"]
+    assert (blocks["p90_cost"] > blocks["mean_cost"]).all()
+    # SRS: fixed size, fixed cost
+    srs = f[f["design"] == "srs"]
+    assert (srs["p90_cost"] == srs["mean_cost"]).all()
+    assert f["on_frontier"].any()
+    assert f["moe"].to_numpy() == pytest.approx(Z95 * f["rmse"].to_numpy())
+
+
+# ------------------------------------------------------------------ recommendation
+def _front(rows):
+    base = {"method": "srs", "estimator": "ht", "variable": "y", "replicates": 1000, "mean_n": 0.0,
+            "empirical_se": 1.0, "rmse": 1.0, "mse_mcse": 0.01, "moe_mcse": 0.1, "on_frontier": False}
+    out = []
+    for r in rows:
+        d = {**base, **r}
+        d.setdefault("p90_cost", d["mean_cost"])
+        d.setdefault("coverage_mcse", float(np.sqrt(d["coverage"] * (1 - d["coverage"]) / d["replicates"])))
+        out.append(d)
+    return pd.DataFrame(out)[FRONTIER_COLUMNS]
+
+
+FRONT = [
+    # a cheap design whose intervals lie: meets the margin, cheapest, but coverage 0.80
+    {"design": "liar", "size": 100, "mean_cost": 500.0, "moe": 2.0, "coverage": 0.80},
+    {"design": "liar", "size": 200, "mean_cost": 900.0, "moe": 1.5, "coverage": 0.81},
+    {"design": "plain", "size": 100, "mean_cost": 800.0, "moe": 3.2, "coverage": 0.95},
+    {"design": "plain", "size": 200, "mean_cost": 1500.0, "moe": 2.4, "coverage": 0.948},
+    {"design": "plain", "size": 400, "mean_cost": 2900.0, "moe": 1.7, "coverage": 0.951},
+    {"design": "strata", "size": 100, "mean_cost": 1000.0, "moe": 2.6, "coverage": 0.946},
+    {"design": "strata", "size": 200, "mean_cost": 1800.0, "moe": 1.9, "coverage": 0.952},
+]
+
+
+def test_cheapest_meeting_moe_and_best_within_budget():
+    rec = recommend(_front(FRONT), Goal(moe=2.0, budget=1600.0), nominal=0.95)
+    # meeting moe <= 2.0 with good coverage: strata 200 (1800), plain 400 (2900) -> strata 200
+    assert (rec["cheapest_meeting_moe"]["design"], rec["cheapest_meeting_moe"]["size"]) == ("strata", 200)
+    # within 1600 with good coverage: plain 100 (3.2), plain 200 (2.4), strata 100 (2.6) -> plain 200
+    assert (rec["best_within_budget"]["design"], rec["best_within_budget"]["size"]) == ("plain", 200)
+    for k in ("design", "size", "mean_cost", "moe", "empirical_se", "coverage"):
+        assert k in rec["cheapest_meeting_moe"]
+    assert set(rec) >= {"cheapest_meeting_moe", "best_within_budget", "passed_over", "statement"}
+    json.dumps(rec)  # serialisable as it stands
+
+
+def test_a_design_whose_intervals_lie_is_never_picked_and_says_why():
+    rec = recommend(_front(FRONT), Goal(moe=2.0, budget=1000.0), nominal=0.95)
+    picked = {rec["cheapest_meeting_moe"]["design"], rec["best_within_budget"]["design"]}
+    assert "liar" not in picked
+    liar = [p for p in rec["passed_over"] if p["design"] == "liar"]
+    assert {p["size"] for p in liar} == {100, 200}
+    assert all("under-cover" in p["reason"] for p in liar)
+    assert "'liar'" in rec["statement"]
+    # every point not picked is accounted for
+    assert len(rec["passed_over"]) == len(FRONT) - len({(p["design"], p["size"]) for p in
+                                                          (rec["cheapest_meeting_moe"], rec["best_within_budget"])})
+
+
+def test_nothing_qualifies():
+    rec = recommend(_front(FRONT), Goal(moe=0.5, budget=100.0), nominal=0.95)
+    assert rec["cheapest_meeting_moe"] is None and rec["best_within_budget"] is None
+    assert "No rehearsed design" in rec["statement"]
+    assert len(rec["passed_over"]) == len(FRONT)
+
+
+@pytest.mark.parametrize("k,ok", [(2.9, True), (3.1, False)])
+def test_coverage_tolerance_is_z_mcse(k, ok):
+    # the rule: coverage >= nominal - COVERAGE_Z x MCSE (MCSE as reported, Morris et al. 2019)
+    mcse = 0.005
+    assert COVERAGE_Z == 3.0
+    assert coverage_acceptable(0.95 - k * mcse, mcse, 0.95) is ok
+
+
+def test_goal_confidence_rescales_the_margin():
+    sc = scenario_from_dict({
+        "frame": {"synthetic": {"units": 500, "seed": 8}},
+        "design": [{"label": "srs", "method": "srs", "n": [30, 60]}],
+        "goal": {"moe": 10.0, "confidence": 0.90},
+    })
+    res = run(sc, replicates=200, seed=2)
+    assert res.frontier["moe"].to_numpy() == pytest.approx(stats.norm.ppf(0.95) * res.frontier["rmse"].to_numpy())
+    assert res.recommendation["goal"]["confidence"] == 0.90
