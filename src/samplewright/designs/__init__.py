@@ -7,13 +7,15 @@ from .cluster import Cluster
 from .poisson import Bernoulli, Poisson
 from .pps import Pareto, PPSSystematic, PPSWithReplacement, Sampford
 from .srs import SRS
+from .strat_cluster import StratifiedCluster
 from .stratified import Stratified
 from .systematic import Systematic
 
 #: method name (as written in a scenario) -> design class
 METHODS: dict[str, type[Design]] = {cls.method: cls for cls in (SRS, Stratified, Systematic, Cluster)}
 METHODS.update({cls.method: cls for cls in (PPSWithReplacement, PPSSystematic, Sampford, Pareto, Poisson,
-                                            Bernoulli)})
+                                            Bernoulli, StratifiedCluster)})
 
 __all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS",
-           "PPSWithReplacement", "PPSSystematic", "Sampford", "Pareto", "Poisson", "Bernoulli"]
+           "PPSWithReplacement", "PPSSystematic", "Sampford", "Pareto", "Poisson", "Bernoulli",
+           "StratifiedCluster"]

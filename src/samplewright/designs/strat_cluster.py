@@ -1,0 +1,257 @@
+"""Stratified multistage sampling: clusters within strata, one or two stages, SRS or PPS.
+
+Method ``stratified_cluster``.  ``clusters`` (the size a sweep varies) is the total number of
+clusters, allocated to the strata by ``cluster_allocation``: ``equal``, ``proportional``
+(to the clusters in each stratum) or ``units`` (to the units in each stratum), at least two
+per stratum where it has them and never more than it has (``allocation.real_allocation``
+and ``round_allocation``).  Within stratum h, m_h clusters are drawn by ``selection``:
+
+- ``srs``: simple random sampling of clusters, pi_c = m_h / C_h;
+- ``pps``: Sampford's method with pi_c = m_h s_c / S_h, where the cluster size s_c is its
+  unit count (``cluster_size = "units"``) or its summed ``size`` column (``"size"``);
+  clusters with pi_c >= 1 are taken with certainty (``pips.pips``).
+
+With ``units_per_cluster`` a second stage draws that many units by SRS in each chosen
+cluster (smaller clusters whole, with ``cap_units = true``).
+
+Variance: the shared between-PSU estimator within strata (``estimators.stratified_psu_variance``)
+on the estimated cluster totals.  With SRS of clusters the first-stage finite population
+correction 1 - m_h / C_h is applied (exact for one stage, the usual ultimate-cluster
+approximation for two; Cochran 1977, ch. 10-11); with PPS no correction is applied (the
+with-replacement approximation; Sarndal, Swensson & Wretman 1992, sec. 4.6).  A certainty
+cluster is a stratum of its own: with one stage it adds no variance; with two its sampled
+units are the PSUs of that stratum, with correction 1 - k / M_c (exact for that stage).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..allocation import real_allocation, round_allocation
+from ..block import SampleBlock
+from ..draws import distinct_positions
+from ..errors import InputError
+from .base import Design
+from .cluster import Cluster
+from .pips import pips, sampford_draw, size_measure
+
+ALLOCATIONS = ("equal", "proportional", "units")
+SELECTIONS = ("srs", "pps")
+CLUSTER_SIZES = ("units", "size")
+
+
+class StratifiedCluster(Design):
+    """Clusters within strata, allocated by stratum, one or two stages, SRS or PPS of clusters.
+
+    Examples
+    --------
+    >>> import numpy as np, pandas as pd
+    >>> from samplewright import Frame
+    >>> df = pd.DataFrame({"y": np.arange(16.0), "zone": np.repeat(["n", "s"], 8),
+    ...                    "plot": np.repeat(np.arange(8), 2)})
+    >>> f = Frame.from_dataframe(df, target="y", stratum="zone", cluster="plot")
+    >>> d = StratifiedCluster("zones", clusters=4, units_per_cluster=1)
+    >>> d.check(f)
+    >>> d.cluster_allocation_of(f).tolist()
+    [2, 2]
+    """
+
+    method = "stratified_cluster"
+    size_key = "clusters"
+    keys = ("clusters", "cluster_allocation", "units_per_cluster", "cap_units", "selection", "cluster_size",
+            "variance")
+
+    def __init__(self, label: str, clusters, cluster_allocation: str = "proportional",
+                 units_per_cluster: int | None = None, cap_units: bool = False, selection: str = "srs",
+                 cluster_size: str = "units", variance: str | None = None):
+        super().__init__(label, clusters=clusters, cluster_allocation=cluster_allocation,
+                         units_per_cluster=units_per_cluster, cap_units=cap_units, selection=selection,
+                         cluster_size=cluster_size, variance=variance)
+        self._cache = {}
+
+    def at(self, size):
+        d = super().at(size)
+        d._cache = {}
+        return d
+
+    # ------------------------------------------------------------------ checks
+    def check(self, frame):
+        from ..validate import closest
+
+        self._need(frame, "cluster")
+        if frame.roles.get("stratum") is None:
+            raise InputError(f"design {self.label!r} (stratified_cluster) needs a stratum column: "
+                             f"set stratum = \"column\" in [frame]")
+        m = self._positive_int("clusters", self.clusters)
+        for key, value, options in (("cluster_allocation", self.cluster_allocation, ALLOCATIONS),
+                                    ("selection", self.selection, SELECTIONS),
+                                    ("cluster_size", self.cluster_size, CLUSTER_SIZES)):
+            if value not in options:
+                raise InputError(f"design {self.label!r}: {key} = {value!r} is not known"
+                                 f"{closest(str(value), options)}")
+        self._check_variance()
+        C_h = self.clusters_per_stratum(frame)
+        if m > C_h.sum():
+            raise InputError(f"design {self.label!r}: clusters = {m} is more than the {int(C_h.sum())} "
+                             f"clusters in the frame")
+        floor = np.minimum(2, C_h)
+        if m < floor.sum():
+            raise InputError(f"design {self.label!r}: clusters = {m} cannot give each of the {int((C_h > 0).sum())} "
+                             f"strata 2 clusters (needs clusters >= {int(floor.sum())})")
+        if self.units_per_cluster is not None:
+            k = self._positive_int("units_per_cluster", self.units_per_cluster)
+            smallest = int(frame.cluster_sizes.min())
+            if k > smallest and not self.cap_units:
+                raise InputError(f"design {self.label!r}: units_per_cluster = {k} is larger than the smallest "
+                                 f"cluster ({smallest} units); set cap_units = true to take such clusters whole")
+        if self.selection == "pps" and self.cluster_size == "size":
+            size_measure(frame, self.label)
+        self.setup(frame)
+
+    # ------------------------------------------------------------------ set-up
+    @staticmethod
+    def clusters_per_stratum(frame) -> np.ndarray:
+        return np.bincount(frame.cluster_stratum, minlength=frame.H)
+
+    def cluster_allocation_of(self, frame) -> np.ndarray:
+        """Clusters drawn in each stratum, m_h (whole numbers summing to ``clusters``)."""
+        return self.setup(frame)["m_h"]
+
+    def _k(self, frame):
+        if self.units_per_cluster is None:
+            return None
+        return min(int(self.units_per_cluster), int(frame.cluster_sizes.max()))
+
+    def setup(self, frame) -> dict:
+        key = id(frame)
+        if key in self._cache:
+            return self._cache[key]
+        m = int(self.clusters)
+        C_h = self.clusters_per_stratum(frame)
+        base = {"equal": np.ones(frame.H), "proportional": C_h.astype(float),
+                "units": frame.N_h.astype(float)}[self.cluster_allocation]
+        w = np.where(C_h > 0, base, 0.0)
+        floor = np.minimum(2, C_h)
+        m_h = round_allocation(m, real_allocation(m, w / w.sum(), C_h, floor), C_h, floor)
+        M = frame.cluster_sizes
+        if self.selection == "pps":
+            s_c = M.astype(float) if self.cluster_size == "units" else np.bincount(
+                frame.cluster, weights=size_measure(frame, self.label), minlength=frame.C)
+        k = self._k(frame)
+        groups, pi_c, certain_all, rounds = [], np.zeros(frame.C), [], 0
+        for h in range(frame.H):
+            codes = np.flatnonzero(frame.cluster_stratum == h)
+            if m_h[h] == 0:
+                continue
+            if self.selection == "pps":
+                p, cert, r = pips(s_c[codes], int(m_h[h]))
+                rounds = max(rounds, r)
+            else:
+                p, cert = np.full(codes.size, m_h[h] / codes.size), np.zeros(codes.size, dtype=bool)
+            pi_c[codes] = p
+            free = codes[~cert]
+            certain_all += codes[cert].tolist()
+            groups.append({"h": h, "free": free, "pi": p[~cert], "m": int(m_h[h]) - int(cert.sum()),
+                           "fpc": 1.0 - m_h[h] / codes.size if self.selection == "srs" else 1.0})
+        # positions: the drawn clusters of each stratum, then certainty clusters (or their units)
+        psu_stratum, fpc = [], []
+        for g in groups:
+            g["stratum"] = len(fpc)
+            psu_stratum += [g["stratum"]] * g["m"]
+            fpc.append(g["fpc"])
+        cert_layout = []
+        for c in certain_all:
+            take = int(M[c]) if k is None else min(int(M[c]), k)
+            sid = len(fpc)
+            if k is None:
+                psu_stratum.append(sid)
+                fpc.append(0.0)
+            else:
+                psu_stratum += [sid] * take
+                fpc.append(1.0 - take / M[c])
+            cert_layout.append((c, take))
+        self._cache[key] = {"m_h": m_h, "groups": groups, "pi_c": pi_c, "certain": cert_layout, "rounds": rounds,
+                            "psu_stratum": np.array(psu_stratum, dtype=np.int64), "fpc": np.array(fpc), "k": k}
+        return self._cache[key]
+
+    def notes(self, frame):
+        s = self.setup(frame)
+        parts = ", ".join(f"{frame.stratum_labels[h]}: {int(s['m_h'][h])} of {int(c)}"
+                          for h, c in enumerate(self.clusters_per_stratum(frame)))
+        out = [f"design {self.label!r} at clusters = {self.clusters}: clusters per stratum ({self.cluster_allocation}) "
+               f"{parts}"]
+        if s["certain"]:
+            out.append(f"design {self.label!r} at clusters = {self.clusters}: {len(s['certain'])} cluster(s) with "
+                       f"pi >= 1 are taken with certainty ({s['rounds']} removal round(s))")
+        return out
+
+    # ------------------------------------------------------------------ drawing
+    def _draw(self, frame, rng, B, keep_units):
+        s = self.setup(frame)
+        k = s["k"]
+        M = frame.cluster_sizes
+        chosen = []
+        for g in s["groups"]:
+            if g["m"] == 0:
+                continue
+            if self.selection == "pps":
+                pos = sampford_draw(rng, g["pi"], B)
+            else:
+                pos = distinct_positions(rng, g["free"].size, g["m"], (B,))
+            chosen.append(g["free"][pos])
+        chosen = np.concatenate(chosen, axis=1) if chosen else np.zeros((B, 0), dtype=np.int64)
+        w1 = 1.0 / s["pi_c"][chosen]
+        sums, weights, unit_parts = [], [], []
+        if k is None:
+            sums.append(frame.cluster_sums[chosen])
+            weights.append(w1)
+            if keep_units:
+                unit_parts.append(_whole_clusters(frame, chosen))
+        else:
+            sizes = M[chosen]
+            units, valid = Cluster._second_stage(frame, rng, chosen, sizes, k)
+            sums.append((frame.gather(units) * valid[..., None]).sum(axis=2))
+            weights.append(w1 * sizes / np.minimum(sizes, k))
+            unit_parts.append(np.where(valid, units, -1).reshape(B, -1))
+        for c, take in s["certain"]:
+            lo = frame.cluster_offsets[c]
+            if k is None:
+                sums.append(np.broadcast_to(frame.cluster_sums[c], (B, 1, frame.values.shape[1])))
+                weights.append(np.ones((B, 1)))
+                if keep_units:
+                    unit_parts.append(_whole_clusters(frame, np.full((B, 1), c)))
+            else:
+                u = frame.cluster_units[lo + distinct_positions(rng, int(M[c]), take, (B,))]
+                sums.append(frame.gather(u))
+                weights.append(np.full((B, take), M[c] / take))
+                unit_parts.append(u)
+        total_clusters = chosen.shape[1] + len(s["certain"])
+        return SampleBlock(
+            sums=np.concatenate(sums, axis=1),
+            weight=np.concatenate(weights, axis=1),
+            psu_stratum=s["psu_stratum"],
+            fpc=s["fpc"],
+            clusters=np.full(B, total_clusters, dtype=float),
+            strata=int((s["m_h"] > 0).sum()),
+            units=np.concatenate(unit_parts, axis=1) if keep_units and unit_parts else None,
+            variance=self.variance_name,
+        )
+
+    # ------------------------------------------------------------------ probabilities
+    def inclusion_probabilities(self, frame):
+        s = self.setup(frame)
+        M = frame.cluster_sizes[frame.cluster]
+        p1 = s["pi_c"][frame.cluster]
+        if s["k"] is None:
+            return p1
+        return p1 * np.minimum(M, s["k"]) / M
+
+
+def _whole_clusters(frame, chosen: np.ndarray) -> np.ndarray:
+    """Every unit of the chosen clusters (B, m), padded with -1 to (B, m * largest cluster)."""
+    M = frame.cluster_sizes
+    width = int(M.max())
+    j = np.arange(width)
+    valid = j < M[chosen][..., None]
+    pos = frame.cluster_offsets[chosen][..., None] + np.where(valid, j, 0)
+    return np.where(valid, frame.cluster_units[pos], -1).reshape(chosen.shape[0], -1)
