@@ -13,6 +13,7 @@ numbers unchanged.
 from __future__ import annotations
 
 import zlib
+from pathlib import Path
 from dataclasses import dataclass
 
 import numpy as np
@@ -204,15 +205,60 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
         return
     from joblib import Parallel, delayed
 
-    work = (delayed(run_block)(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
-            for ci, b, s, count, ss in calls)
     if backend == "dask":
         from joblib import parallel_config
 
-        with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame]):
+        work = (delayed(run_task)(frame, cells, ci, b, s, count, ss, confidence, cost)
+                for ci, b, s, count, ss in calls)
+        with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame, cells]):
             yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
         return
-    yield from Parallel(n_jobs=jobs, return_as="generator_unordered")(work)
+    import shutil
+    import tempfile
+
+    import joblib
+
+    folder = tempfile.mkdtemp(prefix="samplewright-shared-")
+    try:  # the frame and cells go to disk once; workers map them read-only (see run_shared)
+        path = str(Path(folder) / "shared.joblib")
+        joblib.dump((frame, cells), path)
+        work = (delayed(run_shared)(path, ci, b, s, count, ss, confidence, cost) for ci, b, s, count, ss in calls)
+        yield from Parallel(n_jobs=jobs, return_as="generator_unordered")(work)
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+def run_task(frame: Frame, cells: list[Cell], cell_id: int, *args) -> BlockResult:
+    """``run_block`` for cell ``cells[cell_id]`` (so a backend can ship the cell list once)."""
+    return run_block(frame, cells[cell_id], cell_id, *args)
+
+
+#: per worker process: (frame, cells) already read from a dispatch's shared file
+_SHARED: dict[str, tuple] = {}
+
+
+def run_shared(path: str, cell_id: int, *args) -> BlockResult:
+    """``run_task`` on the frame and cells the parent dumped to ``path``, read once per worker.
+
+    The arrays are memory-mapped read-only, so the workers share the parent's pages instead
+    of each receiving a copy with every block; design caches then live as long as the worker.
+    """
+    if path not in _SHARED:
+        import joblib
+
+        _SHARED.clear()
+        frame, cells = joblib.load(path, mmap_mode="r")
+        _plain_arrays(frame)
+        _SHARED[path] = (frame, cells)
+    frame, cells = _SHARED[path]
+    return run_task(frame, cells, cell_id, *args)
+
+
+def _plain_arrays(obj) -> None:
+    """Turn the memmap attributes of a loaded frame into plain ndarray views (no subclass overhead)."""
+    for k, v in list(vars(obj).items()):
+        if isinstance(v, np.memmap):
+            object.__setattr__(obj, k, v.view(np.ndarray))
 
 
 def _dask_client(scheduler: str | None):
