@@ -177,3 +177,44 @@ def test_goal_confidence_rescales_the_margin():
     res = run(sc, replicates=200, seed=2)
     assert res.frontier["moe"].to_numpy() == pytest.approx(stats.norm.ppf(0.95) * res.frontier["rmse"].to_numpy())
     assert res.recommendation["goal"]["confidence"] == 0.90
+
+
+# ------------------------------------------------------------------ end to end
+def test_district_scenario_pick_checks_by_hand_from_summary(tmp_path, capsys):
+    # the shipped scenario, fewer replicates: the pick must be what a reader gets from summary.csv
+    # with the stated rules (moe <= goal, coverage >= 0.95 - 3 x coverage_mcse, least mean_cost)
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    import tomllib
+
+    from samplewright.cli import main
+
+    root = Path(__file__).resolve().parents[1]
+    scen = root / "scenarios" / "district_energy.toml"
+    goal = tomllib.loads(scen.read_text())["goal"]
+    out = tmp_path / "run"
+    code = main(["run", str(scen), "--out", str(out), "--replicates", "400", "--no-report"])
+    stdout = capsys.readouterr().out
+    assert code == 0
+    assert "recommendation: " in stdout
+    summary = pd.read_csv(out / "summary.csv")
+    rec = json.loads((out / "recommendation.json").read_text())
+    ok = summary["coverage"] >= 0.95 - 3 * summary["coverage_mcse"]
+    meet = summary[ok & (summary["moe"] <= goal["moe"])].sort_values("mean_cost")
+    fit = summary[ok & (summary["mean_cost"] <= goal["budget"])].sort_values("moe")
+    c, b = rec["cheapest_meeting_moe"], rec["best_within_budget"]
+    assert (c["design"], c["size"]) == (meet.iloc[0]["design"], meet.iloc[0]["size"])
+    assert (b["design"], b["size"]) == (fit.iloc[0]["design"], fit.iloc[0]["size"])
+    assert c["mean_cost"] == pytest.approx(meet.iloc[0]["mean_cost"])
+    # the systematic design on the periodic register under-covers and is passed over for it
+    assert any(p["design"] == "every k-th listed household" and "under-cover" in p["reason"]
+               for p in rec["passed_over"])
+    assert rec["statement"] in stdout
+    front = pd.read_csv(out / "frontier.csv")
+    assert list(front.columns)[:3] == ["design", "method", "size"]
+    checker = root.parent / "shared" / "tools" / "check-contract"
+    if checker.exists():
+        r = subprocess.run([sys.executable, str(checker), str(out)], capture_output=True, text=True)
+        assert r.returncode == 0, r.stdout
