@@ -65,6 +65,8 @@ def simulate_and_write(scenario, args) -> int:
         page = write_report(res, out, force=True, log=logger(args))
     if not args.quiet:
         print(format_summary(res.summary))
+        if res.recommendation is not None:  # the plain-language pick (recommend.py)
+            print("\nrecommendation: " + res.recommendation["statement"] + "\n")
         print(f"results written to {out}")
         if page is not None:
             print(f"report: {page.resolve()}")
