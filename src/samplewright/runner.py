@@ -10,7 +10,7 @@ import pandas as pd
 
 from . import __version__
 from .checks import design_warnings, frame_warnings
-from .engine import make_cells, replicate_table, simulate
+from .engine import BACKENDS, make_cells, replicate_table, simulate, simulate_until
 from .errors import InputError
 from .evaluate import summarise
 from .fieldwork import prepare as prepare_fieldwork, summary_columns
@@ -18,6 +18,7 @@ from .frame import Frame
 from .progress import Progress
 from .result import ALLOCATION_COLUMNS, RunResult
 from .scenario import Scenario
+from .validate import closest
 
 
 def _versions() -> dict:
@@ -43,7 +44,8 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
 
 def run(scenario: Scenario, replicates: int | None = None, seed: int | None = None, jobs: int = 1,
         block_size: int | None = None, frame: Frame | None = None, progress: bool | None = False,
-        exact: bool = False, log=None, warn=None) -> RunResult:
+        exact: bool = False, log=None, until: str | None = None, max_replicates: int | None = None, out=None, resume: bool = False,
+        backend: str = "local", scheduler: str | None = None, warn=None) -> RunResult:
     """Rehearse every design of ``scenario`` and score it.
 
     Parameters
@@ -66,6 +68,18 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     exact : bool
         Enumerate every possible sample instead of simulating (``run --exact``; see
         :mod:`samplewright.exact`): exact design moments, no Monte Carlo error.
+    until : str, optional
+        Sequential stopping rule, e.g. ``"coverage_mcse=0.002"`` (see :mod:`samplewright.stopping`):
+        each design x size adds blocks until it meets the rule; ``replicates`` is then the minimum.
+    max_replicates : int, optional
+        Replicate cap of a stopping rule (default 100 times ``replicates``, at least 100,000).
+    out : path, optional
+        Results folder: finished blocks are kept in ``out/blocks/`` as they complete.
+    resume : bool
+        Continue the run whose blocks are in ``out/blocks/`` (seed, replicates, block size and
+        stopping rule default to the saved ones; a mismatch is refused).
+    backend, scheduler : str
+        ``"local"`` (default) or ``"dask"`` with the address of a dask.distributed scheduler.
 
     Examples
     --------
@@ -78,6 +92,19 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     """
     say = log or (lambda _msg: None)
     t0 = time.monotonic()
+    saved = None
+    if resume:  # the saved run's settings, unless given again (then they must agree)
+        from .checkpoint import BlockStore
+
+        if out is None:
+            raise InputError("resume needs the results folder of the run to continue")
+        saved = BlockStore.open(out)
+        m = saved.manifest
+        replicates = m.get("replicates") if replicates is None else replicates
+        seed = m.get("seed") if seed is None else seed
+        block_size = m.get("block_size") if block_size is None else block_size
+        until = m.get("until") if until is None else until
+        max_replicates = m.get("max_replicates") if max_replicates is None else max_replicates
     R = scenario.replicates if replicates is None else int(replicates)
     if R <= 0:
         raise InputError(f"replicates must be at least 1, got {R}")
@@ -87,6 +114,20 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     bs = scenario.block_size if block_size is None else int(block_size)
     if jobs < 1:
         raise InputError(f"jobs must be at least 1, got {jobs}")
+    if backend not in BACKENDS:
+        raise InputError(f"backend {backend!r} is not known{closest(backend, BACKENDS)}")
+    rule = None
+    if until is not None:
+        from .stopping import parse_until
+
+        cap = max(100 * R, 100_000) if max_replicates is None else max_replicates
+        rule = parse_until(until, cap)
+        if rule.max_replicates < R:
+            raise InputError(f"--max-replicates {rule.max_replicates} is below the {R} replicates every design "
+                             f"runs first; raise it or lower --replicates")
+    elif max_replicates is not None:
+        raise InputError("--max-replicates caps a stopping rule: give --until as well (e.g. "
+                         "--until coverage_mcse=0.002)")
     if frame is None:
         say("loading the frame")
         frame = scenario.load_frame()
@@ -111,9 +152,30 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     bar = Progress({c.design.label: 0 for c in cells}, enabled=progress)
     for c in cells:
         bar.totals[c.design.label] += R
+    store = None
+    if out is not None:
+        from .checkpoint import BlockStore
+
+        manifest = {"scenario": str(scenario.source.resolve()) if scenario.source else None,
+                    "scenario_hash": scenario.hash, "seed": seed, "block_size": bs, "replicates": R,
+                    "confidence": scenario.confidence, "until": rule.text if rule else None,
+                    "max_replicates": rule.max_replicates if rule else None,
+                    "cells": [[c.design.label, int(c.design.size)] for c in cells], "frame_units": frame.N}
+        if saved is not None:
+            saved.check(manifest, out)
+            store = saved
+            say(f"resuming: {len(store.finished())} finished blocks in {store.folder}")
+        else:
+            store = BlockStore.create(out, manifest)
     t1 = time.monotonic()
-    results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, jobs=jobs,
-                       progress=lambda ci, k: bar.update(cells[ci].design.label, k))
+    common = dict(jobs=jobs, progress=lambda ci, k: bar.update(cells[ci].design.label, k), backend=backend,
+                  scheduler=scheduler, store=store)
+    stopping = None
+    if rule is None:
+        results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, **common)
+    else:
+        results, stopping = simulate_until(frame, cells, rule, R, seed, bs, scenario.confidence, scenario.cost,
+                                           **common)
     bar.close()
     t2 = time.monotonic()
     reps = replicate_table(results, cells, frame.layout.names)  # targets, then domain variables
@@ -131,6 +193,8 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "replicates": R,
         "block_size": bs,
         "jobs": jobs,
+        "backend": backend,
+        "stopping": None if rule is None else {**rule.as_dict(), "cells": stopping},
         "confidence": scenario.confidence,
         "frame": {"units": frame.N, "strata": frame.H, "clusters": frame.C, "variables": list(frame.variables),
                   "proportions": list(frame.layout.proportions), "domain_variables": list(frame.layout.names[frame.V:]),

@@ -5,6 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from ..errors import InputError
+
 
 def whole_number(minimum: int):
     """An argparse ``type`` accepting whole numbers of at least ``minimum`` (refusals exit 2)."""
@@ -35,6 +37,9 @@ def add_run_options(p) -> None:
     p.add_argument("--no-report", action="store_true",
                    help="write only the result tables, not figures/, report.html and brief.md "
                         "(build them later with `samplewright report DIR`)")
+    from .longrun import add_scale_options
+
+    add_scale_options(p)
 
 
 def _warn(message: str) -> None:
@@ -53,10 +58,19 @@ def simulate_and_write(scenario, args) -> int:
     from ..runner import run
 
     inputs = (scenario.source, scenario.frame.path)
-    prepare_dir(args.out, force=args.force, inputs=inputs)  # refuse before spending time simulating
-    res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
-              progress=None if not args.quiet else False, log=logger(args), warn=_warn,
-                  exact=getattr(args, "exact", False))
+    from .longrun import interrupted_note, run_kwargs
+
+    extra = run_kwargs(args)
+    # refuse before spending time simulating (a resumed run continues in its own folder)
+    prepare_dir(args.out, force=args.force or extra["resume"], inputs=inputs)
+    try:
+        res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
+                  progress=None if not args.quiet else False, log=logger(args), warn=_warn,
+                  exact=getattr(args, "exact", False), **extra)
+    except BaseException as exc:
+        if not isinstance(exc, (InputError, SystemExit)):
+            interrupted_note(args.out)
+        raise
     out = res.write(args.out, force=True)
     page = None
     if not getattr(args, "no_report", False):
@@ -65,6 +79,11 @@ def simulate_and_write(scenario, args) -> int:
         page = write_report(res, out, force=True, log=logger(args))
     if not args.quiet:
         print(format_summary(res.summary))
+        if res.info.get("stopping"):
+            from ..stopping import Rule, format_report
+
+            st = res.info["stopping"]
+            print(format_report(st["cells"], Rule(st["targets"], st["max_replicates"], st["until"])))
         if res.recommendation is not None:  # the plain-language pick (recommend.py)
             print("\nrecommendation: " + res.recommendation["statement"] + "\n")
         print(f"results written to {out}")
