@@ -1,0 +1,157 @@
+"""The list-order period detector, its false-alarm rate, the unsafe-interval rule, and run's warning.
+
+Sources: Fisher (1929, Proc. R. Soc. A 125:54-59) for the exact null distribution of g, the
+largest periodogram ordinate's share under Gaussian white noise; the binomial distribution
+for false-alarm counts over many seeds (bounds at Z standard errors).  Frames are invented.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from samplewright import scenario_from_dict
+from samplewright.periodicity import (FALSE_ALARM, Period, detect_periods, fisher_g_pvalue, frame_order_report,
+                                      interval_risks, unsafe_intervals)
+from samplewright.runner import run
+from conftest import Z
+
+
+# ------------------------------------------------------------------ Fisher's g
+@pytest.mark.parametrize("x", [0.5, 0.6, 0.75, 0.9, 0.99])
+def test_fisher_pvalue_two_ordinates(x):
+    """For m = 2, E1 / (E1 + E2) is uniform, so P(g > x) = 2 (1 - x) for x >= 1/2 (derived)."""
+    assert math.isclose(fisher_g_pvalue(x, 2), 2 * (1 - x), rel_tol=1e-12)
+
+
+@pytest.mark.parametrize("m, x", [(10, 0.45), (50, 0.12), (400, 0.025)])
+def test_fisher_pvalue_against_simulated_exponentials(m, x):
+    """The tail of max/sum of m iid exponentials, simulated, within a binomial bound."""
+    rng = np.random.default_rng(m)
+    draws, over = 200_000, 0
+    for _ in range(draws // 10_000):  # in chunks: memory O(10,000 m)
+        e = rng.exponential(size=(10_000, m))
+        over += int((e.max(axis=1) / e.sum(axis=1) > x).sum())
+    p = fisher_g_pvalue(x, m)
+    assert 0.005 < p < 0.3
+    assert abs(over / draws - p) < Z * math.sqrt(p * (1 - p) / draws)
+
+
+# ------------------------------------------------------------------ detection
+@pytest.mark.parametrize("period, amp, sd, N", [(24.0, 2.0, 5.0, 2400), (37.3, 1.5, 3.0, 3000), (7.0, 1.0, 2.0, 700)])
+def test_planted_cycle_is_found_in_noise(period, amp, sd, N):
+    t = np.arange(N)
+    hits = 0
+    for seed in range(40):
+        rng = np.random.default_rng(seed)
+        y = 50 + 0.002 * t + amp * np.sin(2 * np.pi * t / period + rng.uniform(0, 6.3)) + rng.normal(0, sd, N)
+        rep = detect_periods(y)
+        top = rep.periods[0] if rep.periods else None
+        # within one Fourier bin of the planted frequency
+        if top is not None and abs(N / top.period - N / period) <= 1.0:
+            hits += 1
+    assert hits == 40
+
+
+def test_two_cycles_strongest_first_and_harmonics_labelled():
+    N = 4800
+    t = np.arange(N)
+    rng = np.random.default_rng(8)
+    y = 3 * np.sin(2 * np.pi * t / 48) + 1.5 * np.sin(2 * np.pi * t / 16 + 1) + 2 * np.sin(2 * np.pi * t / 7.5) \
+        + rng.normal(0, 1, N)
+    rep = detect_periods(y)
+    got = [round(p.period, 1) for p in rep.periods]
+    assert got[:3] == [48.0, 7.5, 16.0]
+    strengths = [p.strength for p in rep.periods]
+    assert strengths == sorted(strengths, reverse=True)
+    by = {round(p.period, 1): p for p in rep.periods}
+    assert by[16.0].harmonic_of == pytest.approx(48.0, abs=0.1)  # 16 = 48 / 3
+    assert by[7.5].harmonic_of is None  # 48 / 7.5 = 6.4 is not whole
+    # the sinusoid's share of the detrended variance: A^2/2 over the total (1 + 4.5 + 1.125 + 2)
+    assert by[48.0].strength == pytest.approx(4.5 / 8.625, abs=0.03)
+
+
+@pytest.mark.parametrize("alpha, N, trend", [(0.05, 500, False), (FALSE_ALARM, 501, False), (0.05, 600, True)])
+def test_false_alarm_rate_on_white_noise(alpha, N, trend):
+    """On Gaussian white noise (with or without a smooth non-polynomial trend) a period is reported
+    at the stated rate: the count over 2000 seeds lies within Z binomial SEs of 2000 alpha."""
+    seeds = 2000
+    t = np.arange(N) / N
+    alarms = 0
+    for seed in range(seeds):
+        y = np.random.default_rng(10_000 + seed).normal(size=N)
+        if trend:
+            y = y + 5 * np.sqrt(t)
+        alarms += detect_periods(y, alpha=alpha).significant
+    assert abs(alarms - seeds * alpha) < Z * math.sqrt(seeds * alpha * (1 - alpha))
+
+
+def test_too_short_or_constant_lists_report_nothing():
+    assert not detect_periods(np.arange(8.0)).significant
+    assert not detect_periods(np.full(500, 3.0)).significant
+
+
+# ------------------------------------------------------------------ unsafe intervals
+def test_unsafe_rule_by_hand():
+    """Period 24 of strength 0.5 on N = 8760 (the rule in periodicity's module notes)."""
+    P = [Period(period=24.0, strength=0.5, amplitude=1.0, autocorrelation=0.5, p_value=0.0)]
+    N = 8760
+    flagged = set(unsafe_intervals(P, N, k_max=100))
+    assert {24, 48, 72, 96} <= flagged  # k = a P: in phase
+    assert {12, 8, 6} <= flagged  # P = b k, b = 2, 3, 4
+    assert not ({25, 23, 7, 5, 10, 30} & flagged)
+    # fractional k: n = N / k; |k/P - 1| n = 0.000417 x 364.8 = 0.15 < 1 flags; 1.5 does not
+    assert interval_risks(24.01, N, P)[0]["kind"] == "in phase"
+    assert interval_risks(24.1, N, P) == []
+    # materiality: strength 1e-4 x n 365 / (1 - 1/24) = 0.038 < 0.5
+    weak = [Period(period=24.0, strength=1e-4, amplitude=0.01, autocorrelation=0.0, p_value=0.0)]
+    assert interval_risks(24, N, weak) == []
+    # a harmonic is checked for its own multiples only
+    h = [Period(period=12.0, strength=0.2, amplitude=1.0, autocorrelation=0.2, p_value=0.0, harmonic_of=24.0)]
+    assert interval_risks(36, N, h)[0]["multiple"] == 3
+    assert interval_risks(6, N, h) == []
+
+
+def test_detector_result_is_cached_per_frame():
+    sc = scenario_from_dict({"frame": {"synthetic": {"units": 960, "seed": 2, "period": 24, "amplitude": 20}},
+                             "design": [{"label": "s", "method": "systematic", "n": 40}]})
+    frame = sc.load_frame()
+    assert frame_order_report(frame) is frame_order_report(frame)
+
+
+# ------------------------------------------------------------------ run warns before simulating
+def _cyclic(designs, order="random"):
+    return scenario_from_dict({
+        "frame": {"synthetic": {"units": 2400, "seed": 3, "period": 24, "amplitude": 30, "sd": 10, "order": order}},
+        "design": designs,
+    })
+
+
+def test_run_warns_of_an_unsafe_interval_and_records_it(tmp_path):
+    sc = _cyclic([{"label": "every 24th", "method": "systematic", "n": 100},
+                  {"label": "every 25th", "method": "systematic", "n": 96},
+                  {"label": "simple", "method": "srs", "n": 100}])
+    said = []
+    res = run(sc, replicates=600, seed=1, warn=said.append)
+    unsafe = [w for w in said if "unsafe" in w]
+    assert len(unsafe) == 1
+    assert "'every 24th'" in unsafe[0] and "k = 24" in unsafe[0] and "period 24" in unsafe[0]
+    res.write(tmp_path / "out")
+    info = json.loads((tmp_path / "out" / "run.json").read_text())
+    assert unsafe[0] in info["warnings"]
+    s = res.summary.set_index(["design", "estimator"])
+    # the failure the warning announces: coverage far below 95% (by more than Z MCSE), not at k = 25
+    c24 = s.loc[("every 24th", "ht")]
+    assert c24["coverage"] + Z * max(c24["coverage_mcse"], 0.01) < 0.95
+    assert s.loc[("every 25th", "ht"), "coverage"] > 0.9
+
+
+def test_no_interval_warning_without_a_cycle():
+    sc = scenario_from_dict({"frame": {"synthetic": {"units": 2400, "seed": 3}},
+                             "design": [{"label": "every 24th", "method": "systematic", "n": 100}]})
+    said = []
+    run(sc, replicates=50, seed=1, warn=said.append)
+    assert not [w for w in said if "unsafe" in w]
