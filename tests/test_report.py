@@ -46,6 +46,7 @@ SCENARIO = {
         {"label": "whole depots", "method": "cluster", "clusters": 4},
     ],
     "cost": {"fixed": 500.0, "per_unit": 3.0, "per_cluster": 40.0},
+    "goal": {"moe": 6.0, "budget": 900.0},
 }
 
 
@@ -246,34 +247,30 @@ def test_report_without_the_replicate_table(run_dir, tmp_path):
                                                                                   "intervals"}
 
 
-def test_recommendation_and_goals_are_shown_when_the_run_has_them(run_dir, tmp_path):
-    # frontier.csv / recommendation.json in the contract's shape, filled from the summary
-    # (invented picks: this checks the report shows them, not how they are chosen)
-    _, res = run_dir
-    s = res.summary[res.summary["estimator"] == "ht"]
-    front = s[["design", "method", "size", "mean_cost", "empirical_se", "rmse", "moe", "coverage"]].copy()
-    front["p90_cost"] = front["mean_cost"]
-    front["on_frontier"] = front["mean_cost"].rank(method="first") <= 2
-    pick = s.iloc[1]
-    rec = {"cheapest_meeting_moe": {k: (pick[k].item() if hasattr(pick[k], "item") else pick[k])
-                                    for k in ("design", "size", "mean_cost", "moe", "empirical_se", "coverage")},
-           "best_within_budget": None,
-           "passed_over": [{"design": "whole depots", "size": 4, "reason": "coverage below nominal"}],
-           "statement": "Field the simple random sample of 120 tyres.",
-           "goal": {"moe": 5.0, "budget": 1200.0}}
-    r2 = samplewright.RunResult(summary=res.summary, replicates=res.replicates, allocation=res.allocation,
-                                info=res.info, frontier=front, recommendation=rec)
-    d = r2.write(tmp_path / "rec", report=True)
-    text = (d / "report.html").read_text(encoding="utf-8")
-    assert "Field the simple random sample of 120 tyres." in text
-    assert "Passed over: <strong>whole depots</strong>" in text
-    assert "Most precise design within the budget: no simulated design meets this goal." in text
-    assert F.goals_of(samplewright.read_run(d)) == {"moe": 5.0, "budget": 1200.0}
-    ax = F.cost_precision_plot(r2.summary, r2.frontier, F.goals_of(r2), picks=F.picks_of(r2))
+def test_recommendation_and_goals_are_shown_when_the_run_has_them(run_dir):
+    out, res = run_dir
+    rec = res.recommendation
+    assert rec is not None and res.frontier is not None and (out / "recommendation.json").exists()
+    text = (out / "report.html").read_text(encoding="utf-8")
+    from markupsafe import escape  # the escaping Jinja2 applies
+
+    assert escape(rec["statement"]) in text
+    for key in ("cheapest_meeting_moe", "best_within_budget"):
+        if rec[key] is not None:
+            assert f"<td>{escape(rec[key]['design'])}</td><td class=\"num\">{rec[key]['size']}</td>" in text
+    assert f"why it was passed over ({len(rec['passed_over'])})" in text
+    under = {p["design"] for p in rec["passed_over"] if "under-cover" in p["reason"]}
+    for d in under:
+        assert f"Passed over because its intervals under-cover: <strong>{escape(d)}</strong>" in text
+    back = samplewright.read_run(out)
+    assert F.goals_of(back) == {"moe": 6.0, "budget": 900.0}
+    assert F.goals_of(back, "another variable") == {}
+    ax = F.cost_precision_plot(back.summary, back.frontier, F.goals_of(back), picks=F.picks_of(back))
     labels = [t.get_text() for t in ax.get_legend().get_texts()]
-    assert "budget 1,200" in labels and any(t.startswith("target margin of error") for t in labels)
-    brief = (d / "brief.md").read_text(encoding="utf-8")
-    assert "**Recommendation.** Field the simple random sample of 120 tyres." in brief
+    assert "budget 900" in labels and "target margin of error 6" in labels
+    assert "frontier (best for the cost)" in labels
+    brief = (out / "brief.md").read_text(encoding="utf-8")
+    assert "**Recommendation.** " + rec["statement"] in brief
 
 
 def test_numbers_are_rounded_to_their_monte_carlo_error():
@@ -283,9 +280,9 @@ def test_numbers_are_rounded_to_their_monte_carlo_error():
     assert with_mcse(0.9425, 0.005205, scale=100) == "94.25 (0.52)"
     assert with_mcse(12.3456, 2.1) == "12.3 (2.1)"
     assert with_mcse(float("nan"), 0.1) == "n/a"
-    # coverage 0.93 with MCSE 0.005: 0.93 + 1.96 * 0.005 = 0.9398 < 0.95, below beyond MC error
+    # the recommendation's rule (recommend.COVERAGE_Z = 3 MCSEs): 0.93 < 0.95 - 3 * 0.005 = 0.935
     assert coverage_verdict(0.93, 0.005, 0.95) == "low"
-    assert coverage_verdict(0.945, 0.005, 0.95) == "ok"
+    assert coverage_verdict(0.94, 0.005, 0.95) == "ok"
     assert coverage_verdict(0.999, 0.0007, 0.95) == "high"
 
 
@@ -305,6 +302,9 @@ def test_two_study_variables_get_their_own_figures(tmp_path):
     assert {"coverage", "coverage-length", "intervals", "intervals-length", "allocation"} <= stems
     assert "allocation-length" not in stems
     assert res.figure("bias", variable="length").axes[0].get_title(loc="left").endswith("length")
+    assert res.recommendation is None
+    text = (d / "report.html").read_text(encoding="utf-8")
+    assert "<h2>What the rehearsal shows</h2>" in text and "makes no recommendation" in text
 
 
 def test_figure_names_are_checked():

@@ -459,71 +459,95 @@ def interval_plot(replicates: pd.DataFrame, summary: pd.DataFrame, confidence: f
 
 def frontier_table(summary: pd.DataFrame, frontier: pd.DataFrame | None, variable=None) -> pd.DataFrame:
     """Cost and precision points to plot: frontier.csv when the run has one, else the summary."""
+    var = _variable(summary, variable)
     if frontier is not None and len(frontier) and {"mean_cost", "moe", "design", "size"} <= set(frontier.columns):
         f = frontier.copy()
         if "variable" in f.columns:
-            f = f[f["variable"] == _variable(summary, variable)]
+            f = f[f["variable"] == var]
         if "method" not in f.columns:
             f = f.merge(summary[["design", "method"]].drop_duplicates(), on="design", how="left")
-        if "estimator" in f.columns and f.duplicated(["design", "size"]).any():
-            first = f.groupby("design", sort=False)["estimator"].first()
-            f = f[f["estimator"].to_numpy() == f["design"].map(first).to_numpy()]
+        if "estimator" not in f.columns:
+            f["estimator"] = ""
         return f.reset_index(drop=True)
-    return primary_rows(summary, variable, max_rows=10**9)
+    return summary[summary["variable"] == var].reset_index(drop=True)
+
+
+def _truthy(col: pd.Series) -> np.ndarray:
+    return col.astype(str).str.lower().isin(["true", "1", "1.0"]).to_numpy()
 
 
 @_styled
 def cost_precision_plot(summary: pd.DataFrame, frontier: pd.DataFrame | None = None, goals: dict | None = None,
                         variable=None, ax=None, picks: dict | None = None):
-    """Mean field cost against margin of error, per design and size, with the goals drawn in.
+    """Mean field cost against margin of error, per design, estimator and size, with the goals drawn in.
 
     Parameters
     ----------
+    frontier : DataFrame, optional
+        The run's frontier.csv (its ``on_frontier`` points are joined by a dotted step line).
     goals : dict, optional
         ``{"budget": B, "moe": E}`` (either may be missing): drawn as a vertical and a
         horizontal line.
     picks : dict, optional
-        ``{"name": {"design": ..., "size": ...}}`` points to ring and name (the recommendation).
+        ``{"name": {"design": ..., "size": ..., "estimator": ...}}`` points to ring and name
+        (the recommendation).
     """
     pts = frontier_table(summary, frontier, variable)
     var = _variable(summary, variable)
-    ax = _axes(ax, 4.0)
+    ax = _axes(ax, 4.2)
     designs = [d for d in design_order(summary) if d in set(pts["design"])]
-    colours = design_colours(design_order(summary))
-    for d in designs:
-        g = pts[pts["design"] == d].sort_values("size")
-        ax.plot(g["mean_cost"], g["moe"], color=colours[d], marker="o", markersize=5, linewidth=1.0, label=d)
-        if len(g) > 1:
+    colours, markers = design_colours(design_order(summary)), _marker_map(pts)
+    for (d, e), g in pts.groupby(["design", "estimator"], sort=False):
+        g = g.sort_values("size")
+        ax.plot(g["mean_cost"], g["moe"], color=colours[d], marker=markers[e], markersize=5, linewidth=1.0,
+                alpha=0.9)
+        if len(g) > 1 and e == next(iter(markers)):
             for r in g.iloc[[0, -1]].itertuples(index=False):
                 ax.annotate(f"{int(r.size)}", (r.mean_cost, r.moe), textcoords="offset points", xytext=(4, 3),
                             fontsize=7, color=colours[d])
+    handles = [Line2D([], [], color=colours[d], marker="o", linewidth=1.0, markersize=5, label=d) for d in designs]
+    if len(markers) > 1:
+        handles += [Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
+                    for e, m in markers.items()]
     if "on_frontier" in pts.columns:
-        on = pts[pts["on_frontier"].astype(str).str.lower().isin(["true", "1"])].sort_values("mean_cost")
+        on = pts[_truthy(pts["on_frontier"])].sort_values("mean_cost")
         if len(on):
-            ax.step(on["mean_cost"], on["moe"], where="post", color="#555555", linestyle=":", linewidth=1.2,
-                    label="best precision for the money")
+            ax.step(on["mean_cost"], on["moe"], where="post", color="#555555", linestyle=":", linewidth=1.3)
+            handles.append(Line2D([], [], color="#555555", linestyle=":", label="frontier (best for the cost)"))
     goals = goals or {}
     if goals.get("budget") is not None:
-        ax.axvline(float(goals["budget"]), color=TRUTH_COLOUR, linestyle="--", linewidth=1.0,
-                   label=f"budget {float(goals['budget']):,.0f}")
+        ax.axvline(float(goals["budget"]), color=TRUTH_COLOUR, linestyle="--", linewidth=1.0)
+        handles.append(Line2D([], [], color=TRUTH_COLOUR, linestyle="--", label=f"budget {float(goals['budget']):,.0f}"))
     if goals.get("moe") is not None:
-        ax.axhline(float(goals["moe"]), color=TRUTH_COLOUR, linestyle="-.", linewidth=1.0,
-                   label=f"target margin of error {float(goals['moe']):.3g}")
+        ax.axhline(float(goals["moe"]), color=TRUTH_COLOUR, linestyle="-.", linewidth=1.0)
+        handles.append(Line2D([], [], color=TRUTH_COLOUR, linestyle="-.",
+                              label=f"target margin of error {float(goals['moe']):.3g}"))
     for name, p in (picks or {}).items():
         if not p:
             continue
         hit = pts[(pts["design"] == p.get("design")) & (pts["size"] == p.get("size"))]
+        if p.get("estimator") and len(hit) > 1:
+            hit = hit[hit["estimator"] == p["estimator"]]
         if len(hit):
-            ax.plot(hit["mean_cost"].iloc[0], hit["moe"].iloc[0], marker="o", markersize=13, fillstyle="none",
-                    color=TRUTH_COLOUR, linestyle="")
-            ax.annotate(name, (hit["mean_cost"].iloc[0], hit["moe"].iloc[0]), textcoords="offset points",
-                        xytext=(8, -12), fontsize=7.5)
-    ax.set_ylim(bottom=0)
+            x, y = float(hit["mean_cost"].iloc[0]), float(hit["moe"].iloc[0])
+            ax.plot(x, y, marker="o", markersize=14, fillstyle="none", color=TRUTH_COLOUR, linestyle="")
+            ax.annotate(name, (x, y), textcoords="offset points", xytext=(10, -13), fontsize=7.5,
+                        bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none", "alpha": 0.8})
+    moe = pts["moe"].to_numpy(float)
+    moe = moe[np.isfinite(moe) & (moe > 0)]
+    if len(moe) and moe.max() / moe.min() > 8:
+        ax.set_yscale("log")
+        ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
+        ax.yaxis.set_minor_formatter(FuncFormatter(lambda v, _pos: f"{v:g}" if str(f"{v:g}")[0] in "25" else ""))
+        ylab = f"Margin of error ({var}, log scale)"
+    else:
+        ax.set_ylim(bottom=0)
+        ylab = f"Margin of error ({var})"
     ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:,.0f}" if abs(v) >= 1000 else f"{v:g}"))
     ax.set_xlabel("Average field cost of one survey (cost units of the scenario)")
-    ax.set_ylabel(f"Margin of error ({var})")
-    ax.set_title("What each design costs for the precision it buys (lower left is better)")
-    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False)
+    ax.set_ylabel(ylab)
+    ax.set_title("Cost against precision (lower left is better)")
+    ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False)
     return ax
 
 
@@ -589,25 +613,32 @@ def _confidence(res) -> float:
     return float((res.info or {}).get("confidence", 0.95))
 
 
-def goals_of(res) -> dict:
-    """The run's budget and MOE goals, wherever the run recorded them (run.json or recommendation.json)."""
+def goals_of(res, variable=None) -> dict:
+    """The run's budget and MOE goals (recommendation.json ``goal``, or run.json), for ``variable``.
+
+    A goal about another study variable than ``variable`` is left out.
+    """
     out = {}
-    for src in ((res.info or {}).get("goal"), (res.info or {}).get("goals"), (res.recommendation or {}).get("goal"),
-                (res.recommendation or {}).get("goals")):
+    for src in ((res.recommendation or {}).get("goal"), (res.info or {}).get("goal")):
         if isinstance(src, dict):
+            if variable is not None and src.get("variable") not in (None, variable):
+                continue
             for k in ("budget", "moe"):
                 if src.get(k) is not None and k not in out:
                     out[k] = src[k]
     return out
 
 
-def picks_of(res) -> dict:
+def picks_of(res, variable=None) -> dict:
+    """The recommended points (for ``variable``, when given), named for the figure."""
     rec = res.recommendation or {}
     out = {}
-    for key, name in (("cheapest_meeting_moe", "cheapest meeting the MOE"),
-                      ("best_within_budget", "best within budget")):
+    for key, name in (("cheapest_meeting_moe", "cheapest meeting the margin"),
+                      ("best_within_budget", "most precise within budget")):
         p = rec.get(key)
         if isinstance(p, dict) and p.get("design") is not None:
+            if variable is not None and p.get("variable") not in (None, variable):
+                continue
             out[name] = p
     return out
 
@@ -618,6 +649,10 @@ def keep_sizes(res) -> dict:
     for p in picks_of(res).values():
         keep.setdefault(p["design"], p.get("size"))
     return keep
+
+
+def _var(res, variable):
+    return variable if variable is not None else res.summary["variable"].iloc[0]
 
 
 def _has_rows(res) -> bool:
@@ -675,8 +710,8 @@ _register(FigureSpec(
     "the truth at the promised rate, bias included). Designs further down and to the left buy more "
     "precision for the money; the goals of the run, when it has them, are drawn as lines.",
     True, _has_rows,
-    lambda res, var, keep: _fig(cost_precision_plot(res.summary, res.frontier, goals_of(res), var,
-                                                    picks=picks_of(res)))))
+    lambda res, var, keep: _fig(cost_precision_plot(res.summary, res.frontier, goals_of(res, _var(res, var)), var,
+                                                    picks=picks_of(res, _var(res, var))))))
 _register(FigureSpec(
     "allocation", "Stratified allocation",
     "How each stratified design spreads its sample over the strata, beside each stratum's share of the "

@@ -4,9 +4,10 @@ These are descriptions of what the simulation measured, not a recommendation: th
 a budget or a margin-of-error goal is made by the planning step (recommendation.json) and only
 quoted here.
 
-A simulated coverage is called *below the promised level* when its 95% Monte Carlo interval
-lies wholly below the nominal level, c + 1.96 MCSE < nominal, and *above* it when
-c - 1.96 MCSE > nominal (MCSE = sqrt(c (1 - c) / R), Morris, White & Crowther 2019, Table 6).
+A simulated coverage is called *below the promised level* by the same rule the recommendation
+uses to pass a design over (:func:`samplewright.recommend.coverage_acceptable`: more than
+``COVERAGE_Z`` = 3 Monte Carlo SEs below nominal, MCSE = sqrt(c (1 - c) / R), Morris, White &
+Crowther 2019, Table 6), and *above* it when more than as many SEs above.
 """
 
 from __future__ import annotations
@@ -16,7 +17,8 @@ import math
 import numpy as np
 import pandas as pd
 
-from .figures import MC_Z, cell_label, estimator_name
+from ..recommend import COVERAGE_Z, coverage_acceptable
+from .figures import cell_label, estimator_name
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2
@@ -92,9 +94,9 @@ def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
     """``"low"``, ``"high"`` or ``"ok"``: the coverage against the promised level, beyond Monte Carlo error."""
     if not np.isfinite(coverage):
         return "ok"
-    if coverage + MC_Z * mcse < confidence:
+    if not coverage_acceptable(coverage, mcse, confidence):
         return "low"
-    if coverage - MC_Z * mcse > confidence:
+    if coverage - COVERAGE_Z * mcse > confidence:
         return "high"
     return "ok"
 
@@ -140,8 +142,8 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
             out.append(f"No design's intervals for the mean {var} reach the promised {nominal} coverage.")
         low = [i for i in s.index if verdict[i] == "low"]
         if low:
-            out.append(f"Intervals too narrow for the mean {var} (coverage below the promised {nominal} beyond "
-                       f"simulation error): " + "; ".join(
+            out.append(f"Intervals too narrow for the mean {var} (coverage more than {COVERAGE_Z:g} simulation "
+                       f"errors below the promised {nominal}): " + "; ".join(
                            f"{lab[i]} holds the truth {100 * s.loc[i, 'coverage']:.1f}% of the time" for i in low)
                        + ". Their reported precision cannot be trusted.")
         high = [i for i in s.index if verdict[i] == "high" and s.loc[i, "se_ratio"] > 1 + SE_RATIO_NOTE]

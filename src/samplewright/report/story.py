@@ -10,7 +10,7 @@ import numpy as np
 
 from .. import __version__
 from .findings import SHORT_ESTIMATOR, findings, money, num, summary_rows, with_mcse
-from .figures import FIGURES, estimator_name, figure_names, goals_of
+from .figures import FIGURES, estimator_name, figure_names
 
 CAUTIONS = [
     "The simulation treats the frame as the population. Units missing from the frame, duplicates and out-of-date "
@@ -54,6 +54,7 @@ def figure_plan(res) -> list[dict]:
 def _pick_row(p: dict, label: str) -> dict:
     cov = p.get("coverage")
     return {"label": label, "design": p.get("design"), "size": p.get("size"),
+            "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
             "mean_cost": money(p.get("mean_cost")), "moe": num(p.get("moe")),
             "empirical_se": num(p.get("empirical_se")),
             "coverage": "n/a" if cov is None else f"{100 * float(cov):.1f}%",
@@ -69,9 +70,31 @@ def recommendation_context(res) -> dict | None:
     passed = []
     for p in rec.get("passed_over") or []:
         if isinstance(p, dict):
-            passed.append({"design": p.get("design"), "size": p.get("size"), "reason": p.get("reason", "")})
+            reason = str(p.get("reason", ""))
+            passed.append({"design": p.get("design"), "size": p.get("size"), "reason": reason,
+                           "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
+                           "untrusted": "under-cover" in reason})
+    goal = rec.get("goal") if isinstance(rec.get("goal"), dict) else {}
+    goals = []
+    if goal.get("moe") is not None:
+        conf = goal.get("confidence")
+        goals.append(f"margin of error at most {num(goal['moe'])}"
+                     + (f" at {100 * float(conf):g}% confidence" if conf else ""))
+    if goal.get("budget") is not None:
+        goals.append(f"average cost at most {money(goal['budget'])}")
     return {"statement": rec.get("statement") or "", "picks": picks, "unmet": missing, "passed_over": passed,
-            "goals": goals_of(res)}
+            "goal_text": " and ".join(goals), "goal_variable": goal.get("variable"),
+            "untrusted": _untrusted(passed), "rules": [str(rec[k]) for k in ("coverage_rule", "margin_rule")
+                                                       if rec.get(k)]}
+
+
+def _untrusted(passed: list[dict]) -> list[dict]:
+    """Designs passed over because their intervals under-cover, one line per design (sizes listed)."""
+    by = {}
+    for p in passed:
+        if p["untrusted"]:
+            by.setdefault(p["design"], []).append(f"{p['size']}" + (f" ({p['estimator']})" if p["estimator"] else ""))
+    return [{"design": d, "where": ", ".join(dict.fromkeys(v))} for d, v in by.items()]
 
 
 def _reproduce(info: dict) -> str:
@@ -188,7 +211,7 @@ def build_context(res, folder: Path | None = None) -> dict:
                                       if SHORT_ESTIMATOR.get(e, estimator_name(e)) != estimator_name(e)),
         "brief_rows": brief_rows(res, confidence) if len(res.summary) else [],
         "warnings": warnings,
-        "passed_over": rec["passed_over"] if rec else [],
+        "untrusted": rec["untrusted"] if rec else [],
         "notes": notes,
         "metadata": metadata(info, finished),
         "reproduce": _reproduce(info),
