@@ -145,6 +145,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     for w in notes if warn is not None else ():  # said before any time is spent simulating
         warn(w)
     if exact:  # every possible sample instead of Monte Carlo (exact.py)
+        if until is not None or resume or field is not None:
+            raise InputError("--exact enumerates every possible sample without simulating: it cannot be combined "
+                             "with --until, --resume or fieldwork settings (non-response, frame errors)")
         from .exact import exact_result
 
         return exact_result(scenario, frame, cells, notes, t0, _versions(), allocation_table(frame, cells))
