@@ -286,3 +286,33 @@ def test_run_with_every_estimator_end_to_end():
     # V_lr / V_srs = 1 - rho^2), here by far more than the MCSE of the two empirical SEs
     ht, gr = s.iloc[0], s.iloc[3]
     assert gr["empirical_se"] + Z * gr["empirical_se_mcse"] < ht["empirical_se"] - Z * ht["empirical_se_mcse"]
+
+
+@pytest.mark.parametrize("method", ["pps_systematic", "sampford", "pps_wr", "pareto"])
+def test_ratio_on_the_size_measure_equals_ht_under_pips(method, structured):
+    # with pi_k proportional to x_k (certainty units at pi = 1), the HT (or Hansen-Hurwitz)
+    # estimate of X is exact in every sample, so R_hat X = t_y: the ratio estimator on the size
+    # measure is the HT estimator (SSW 1992, sec. 3.6 and 7.3; Cochran 1977, sec. 9A.3)
+    f = Frame.from_dataframe(structured, target=["y", "flag"], size="size", auxiliary=["size"])
+    blk = _draw(METHODS[method](method, n=40), f)
+    np.testing.assert_allclose(_run("ratio", blk, f).estimate, _run("ht", blk, f).estimate, rtol=1e-10)
+
+
+def test_expense_audit_scenario_runs():
+    from pathlib import Path
+
+    from samplewright.runner import run
+    from samplewright.scenario import load_scenario
+
+    sc = load_scenario(Path(__file__).parents[1] / "scenarios" / "expense_audit_pps.toml")
+    res = run(sc, replicates=40, seed=3)
+    s = res.summary
+    assert set(s["method"]) == {"srs", "stratified", "pps_systematic", "sampford"}
+    assert set(s["estimator"]) == {"ht", "hajek", "ratio", "greg"}
+    assert "overpayment[region=east]" in set(s["variable"]) and len(set(s["variable"])) == 9
+    assert res.info["frame"]["proportions"][0] == "overpaid"
+    ratio_vs_ht = s[s["method"] == "sampford"].pivot_table(index=["size", "variable"], columns="estimator",
+                                                           values="mean_estimate")
+    # the PPS designs select on the ratio's auxiliary: ratio == HT for the targets (see above)
+    targets = ratio_vs_ht.index.get_level_values("variable").isin(["approved", "overpayment", "overpaid"])
+    np.testing.assert_allclose(ratio_vs_ht.loc[targets, "ratio"], ratio_vs_ht.loc[targets, "ht"], rtol=1e-10)
