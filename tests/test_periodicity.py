@@ -103,10 +103,15 @@ def test_unsafe_rule_by_hand():
     assert {24, 48, 72, 96} <= flagged  # k = a P: in phase
     assert {12, 8, 6} <= flagged  # P = b k, b = 2, 3, 4
     assert not ({25, 23, 7, 5, 10, 30} & flagged)
-    # fractional k: n = N / k; |k/P - 1| n = 0.000417 x 364.8 = 0.15 < 1 flags; 1.5 does not
-    assert interval_risks(24.01, N, P)[0]["kind"] == "in phase"
-    assert interval_risks(24.1, N, P) == []
-    # materiality: strength 1e-4 x n 365 / (1 - 1/24) = 0.038 < 0.5
+    # fractional k: n = round(N / k) = 363, delta = 24.1 / 24 - 1; the Dirichlet factor by hand
+    n, delta = 363, 24.1 / 24 - 1
+    D = abs(math.sin(math.pi * n * delta) / (n * math.sin(math.pi * delta)))
+    risk = interval_risks(24.1, N, P)[0]
+    assert risk["kind"] == "in phase"
+    assert risk["variance_ratio"] == pytest.approx(0.5 * n * D * D / (1 - n / N), rel=1e-12)
+    # k = 24.75: the phases sweep 11 cycles (D = 0.0054), so the cycle averages out
+    assert interval_risks(24.75, N, P) == []
+    # materiality: strength 1e-4 x n 365 x D^2 (= 1) / (1 - 1/24) = 0.038 < 0.5
     weak = [Period(period=24.0, strength=1e-4, amplitude=0.01, autocorrelation=0.0, p_value=0.0)]
     assert interval_risks(24, N, weak) == []
     # a harmonic is checked for its own multiples only

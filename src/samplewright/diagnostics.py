@@ -79,9 +79,10 @@ def order_summary(frame, variable: int = 0, alpha: float | None = None, k_max: i
         "unsafe_intervals": unsafe,
         "unsafe_detail": [{k: (float(v) if isinstance(v, (float, np.floating)) else v) for k, v in r.items()}
                           for r in detail],
-        "unsafe_rule": (f"k near a multiple of a period (|k/P - a| < 1/n) or a period near a multiple of k "
-                        f"(|k/P - 1/b| < 1/(b n), b = 2..{P.MAX_PHASES}, fundamental periods), and the cycle "
-                        f"material at n = N/k (strength x n / (1 - f) >= {P.MATERIAL})"),
+        "unsafe_rule": (f"k near a multiple of a period P (k/P = a + delta) or P near a multiple of k "
+                        f"(b k/P = 1 + delta, b = 2..{P.MAX_PHASES}, fundamental periods), with "
+                        f"strength x n x D^2 / (1 - f) >= {P.MATERIAL}, n = N/k, "
+                        f"D = |sin(pi n delta) / (n sin(pi delta))|"),
     }
 
 

@@ -34,22 +34,22 @@ Method
 
 Unsafe intervals (our rule)
 ---------------------------
-With a period P of strength s and a sample of n = N / k units, k is **unsafe** when both hold:
+A sample of n = N / k units steps through the cycle by ``k / P`` cycles per unit.  If
+``k / P`` is near a whole number a >= 1 (the interval is near a multiple of the period), the
+phases barely move: with delta = k / P - a, the cycle's part of the sample mean keeps the
+factor ``D = |sin(pi n delta) / (n sin(pi delta))|`` of its amplitude (the Dirichlet kernel;
+D = 1 when every unit sits on the same phase, about 0 once the phases sweep whole cycles).
+An in-phase sinusoid of strength s then adds about ``s S^2 D^2`` to the variance of the
+mean, against the SRS variance (1 - f) S^2 / n, so the interval is **unsafe** when
 
-- *aliasing*: the sample sees the cycle at few phases and those phases drift by less than
-  the gap between them over the whole list.  Either k is near a multiple of the period,
-  ``|k / P - a| < 1 / n`` for a whole a >= 1 ("in phase": every unit on one phase), or the
-  period is near a multiple of k, ``|k / P - 1 / b| < 1 / (b n)`` for b = 2 ..
-  :data:`MAX_PHASES` ("b phases": the sample sees only b points of each cycle; this second
-  rule is applied to fundamental periods only -- a harmonic's own multiples are covered by
-  the first rule).  The tolerance is the phase drift: over n units the phases move by
-  n |k / P - q| cycles, and under 1 / b the sample never fills the cycle.
-- *materiality*: the cycle is large enough to matter at this sample size.  An in-phase
-  sinusoid adds A^2 / 2 = s S^2 to the variance of the sample mean, against the SRS
-  variance (1 - f) S^2 / n; the interval is unsafe when ``s n / (1 - f) >= MATERIAL`` (0.5:
-  the true variance is then at least 1.5 times what the SRS formula reports, so nominal
-  95% intervals cover at most about 89%; our threshold, derived from the normal
-  approximation, not a published rule).
+    s n D^2 / (1 - f) >= MATERIAL  (0.5)
+
+-- the true variance is then at least 1.5 times what the SRS formula reports, and nominal
+95% intervals cover at most about 89% (our threshold, from the normal approximation; not a
+published rule).  The same test with ``delta = b k / P - 1`` for b = 2 .. :data:`MAX_PHASES`
+covers a period near a multiple of k (P ~ b k: the sample sees only b points of each
+cycle).  A pure sinusoid cancels there, but a peaked cycle does not; this second form is
+applied to fundamental periods only (a harmonic's own multiples are covered by the first).
 
 Examples
 --------
@@ -273,13 +273,13 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
 
 
 def _label_harmonics(periods: list[Period], N: int) -> list[Period]:
-    """Mark a period as a harmonic of a longer detected one when its frequency is within one
-    Fourier bin of a whole multiple (h >= 2) of the longer one's; the strongest such wins."""
+    """Mark a period as a harmonic of a longer, stronger detected one when its frequency is within
+    one Fourier bin of a whole multiple (h >= 2) of the longer one's; the strongest such wins."""
     out = []
     for q in periods:
         best = None
         for p0 in periods:
-            if p0.period <= q.period * 1.5:
+            if p0.period <= q.period * 1.5 or p0.strength < q.strength:
                 continue
             h = round(p0.period / q.period)
             if h >= 2 and abs(N / q.period - h * N / p0.period) <= 1.0:
@@ -290,35 +290,48 @@ def _label_harmonics(periods: list[Period], N: int) -> list[Period]:
 
 
 # ---------------------------------------------------------------- unsafe intervals
+def aliasing_factor(delta: float, n: int) -> float:
+    """|sin(pi n delta) / (n sin(pi delta))|: how much of a cycle survives in the mean of n units
+    whose phases step by ``delta`` cycles (the Dirichlet kernel; 1 when they all share a phase)."""
+    d = abs(float(delta))
+    if d < 1e-12:
+        return 1.0
+    return float(abs(np.sin(np.pi * n * d) / (n * np.sin(np.pi * d))))
+
+
 def interval_risks(k: float, N: int, periods) -> list[dict]:
     """Why the interval ``k`` is unsafe for a list of N units with these periods ([] if it is not).
 
     Each entry: interval, period, kind ("in phase" or "b phases"), multiple a (k ~ a P) or
-    phases b (P ~ b k), the drift over the whole list in cycles, and the variance ratio
-    s n / (1 - f) of the materiality rule (module notes).
+    phases b (P ~ b k), the phase drift n |delta| over the sample, and the variance ratio
+    s n D^2 / (1 - f) of the rule in the module notes.
     """
     k = float(k)
     if k < 1.0:
         return []
-    n = N / k
+    n = max(1, int(round(N / k)))
     f = min(n / N, 0.999999)
     out = []
     for p in periods:
-        ratio = p.strength * n / (1.0 - f)
-        if ratio < MATERIAL:
-            continue
         x = k / p.period
         a = int(round(x))
-        if a >= 1 and n * abs(x - a) < 1.0:
-            out.append({"interval": k, "period": p.period, "kind": "in phase", "multiple": a, "phases": 1,
-                        "drift": n * abs(x - a), "variance_ratio": ratio})
-            continue
+        if a >= 1:
+            D = aliasing_factor(x - a, n)
+            ratio = p.strength * n * D * D / (1.0 - f)
+            if ratio >= MATERIAL:
+                out.append({"interval": k, "period": p.period, "kind": "in phase", "multiple": a, "phases": 1,
+                            "drift": n * abs(x - a), "variance_ratio": ratio})
+                continue
         if p.harmonic_of is not None:
             continue
         for b in range(2, MAX_PHASES + 1):
-            if n * abs(x - 1.0 / b) < 1.0 / b:
+            if abs(b * x - 1.0) >= 0.5:
+                continue
+            D = aliasing_factor(b * x - 1.0, n)
+            ratio = p.strength * n * D * D / (1.0 - f)
+            if ratio >= MATERIAL:
                 out.append({"interval": k, "period": p.period, "kind": f"{b} phases", "multiple": None,
-                            "phases": b, "drift": n * abs(x - 1.0 / b), "variance_ratio": ratio})
+                            "phases": b, "drift": n * abs(b * x - 1.0), "variance_ratio": ratio})
                 break
     return out
 
