@@ -307,6 +307,34 @@ def test_two_study_variables_get_their_own_figures(tmp_path):
     assert "<h2>What the rehearsal shows</h2>" in text and "makes no recommendation" in text
 
 
+def test_a_cycle_along_the_list_gets_its_figure(tmp_path):
+    # invented hourly counts with a 24-hour cycle; k = 2400 / 100 = 24 lands on one phase
+    sc = samplewright.scenario_from_dict({
+        "frame": {"synthetic": {"units": 2400, "seed": 2, "target": "walkers", "mean": 100, "sd": 10,
+                                "period": 24, "amplitude": 40}, "target": "walkers"},
+        "design": [{"label": "srs", "method": "srs", "n": 100},
+                   {"label": "every 24th hour", "method": "systematic", "n": 100}],
+    })
+    res = samplewright.run(sc, replicates=100, seed=1)
+    entry = res.info["frame_order"][0]
+    assert abs(entry["periods"][0]["period"] - 24) < 0.5 and 24 in entry["unsafe_intervals"]
+    d = res.write(tmp_path / "cyc", report=True)
+    assert (d / "frame_order.csv").exists()
+    back = samplewright.read_run(d)
+    assert "frame_order" in back.figure_names()
+    ax = back.figure("frame_order").axes[0]
+    marked = [ln for ln in ax.get_lines() if ln.get_label().startswith("every 24th hour")]
+    assert len(marked) == 1
+    xs = marked[0].get_xdata()
+    assert np.all(np.diff(xs) == 24)  # every 24th unit: one phase of the cycle
+    w, h = png_size((d / "figures" / "frame_order.png").read_bytes())
+    assert w == 975 and h > 300
+    # a run without a systematic design keeps no frame-order table
+    plain = samplewright.run(samplewright.scenario_from_dict({**sc.raw, "design": sc.raw["design"][:1]}),
+                             replicates=50, seed=1)
+    assert plain.frame_order is None and "frame_order" not in plain.figure_names()
+
+
 def test_figure_names_are_checked():
     res = samplewright.RunResult(summary=pd.DataFrame(), replicates=pd.DataFrame(), allocation=pd.DataFrame(),
                                  info={})

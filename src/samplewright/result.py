@@ -35,6 +35,8 @@ class RunResult:
     frontier: pd.DataFrame | None = None
     recommendation: dict | None = None
     warnings: list[str] = field(default_factory=list)
+    #: the target along a systematic design's walk order, when a cycle was found (frame_order.csv)
+    frame_order: pd.DataFrame | None = None
 
     def write(self, out, force: bool = False, report: bool = False, svg: bool = False) -> Path:
         """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``).
@@ -53,6 +55,8 @@ class RunResult:
             write_csv(self.frontier, p / "frontier.csv")
         if self.recommendation is not None:
             write_json(self.recommendation, p / "recommendation.json")
+        if self.frame_order is not None:
+            write_csv(self.frame_order, p / "frame_order.csv")
         write_json(self.info, p / "run.json")  # last: its presence marks a complete run
         if report:
             from .report import write_report

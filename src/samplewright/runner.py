@@ -187,6 +187,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     if field is not None:  # response, bias split and full-response columns after the contract ones
         summary = summary_columns(summary, reps, field, scenario.confidence)
     alloc = allocation_table(frame, cells)
+    from .report.frame_order import order_evidence
+
+    order_info, order_table = order_evidence(frame, scenario.designs)  # a cycle along a systematic walk
     info = {
         "title": scenario.title,
         "scenario": str(scenario.source) if scenario.source else None,
@@ -210,11 +213,12 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "simulation_seconds": round(t2 - t1, 3),
         "warnings": notes,
         "fieldwork": None if field is None else field.info,
+        "frame_order": order_info,
     }
     say(f"simulated in {t2 - t1:.2f} s")
     front, rec = goal_tables(summary, reps, scenario)
     return RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes,
-                     frontier=front, recommendation=rec)
+                     frontier=front, recommendation=rec, frame_order=order_table)
 
 
 def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):

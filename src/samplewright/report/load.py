@@ -31,8 +31,8 @@ def read_run(folder) -> RunResult:
     """Read the result tables of a finished run in ``folder``.
 
     ``run.json`` and ``summary.csv`` are required; ``replicates.parquet`` may be missing (the
-    figures that need it are then left out); ``allocation.csv``, ``frontier.csv`` and
-    ``recommendation.json`` are read when present.
+    figures that need it are then left out); ``allocation.csv``, ``frontier.csv``,
+    ``recommendation.json`` and ``frame_order.csv`` are read when present.
 
     Examples
     --------
@@ -72,5 +72,6 @@ def read_run(folder) -> RunResult:
     allocation = _read_csv(alloc_path) if alloc_path.exists() else pd.DataFrame(columns=ALLOCATION_COLUMNS)
     frontier = _read_csv(p / "frontier.csv") if (p / "frontier.csv").exists() else None
     rec = _read_json(p / "recommendation.json") if (p / "recommendation.json").exists() else None
+    order = _read_csv(p / "frame_order.csv") if (p / "frame_order.csv").exists() else None
     return RunResult(summary=summary, replicates=replicates, allocation=allocation, info=info, frontier=frontier,
-                     recommendation=rec, warnings=list(info.get("warnings") or []))
+                     recommendation=rec, warnings=list(info.get("warnings") or []), frame_order=order)
