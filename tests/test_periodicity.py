@@ -160,3 +160,29 @@ def test_no_interval_warning_without_a_cycle():
     said = []
     run(sc, replicates=50, seed=1, warn=said.append)
     assert not [w for w in said if "unsafe" in w]
+
+
+def test_tollgate_scenario_shows_the_failure_and_inspect_flags_the_period(capsys):
+    """The shipped cycle scenario: k = 24 under-covers far beyond its MCSE and is warned about;
+    k = 25 is not warned about and covers; inspect finds the 24-hour period."""
+    from pathlib import Path
+
+    from samplewright import load_scenario
+    from samplewright.cli import main
+
+    here = Path(__file__).resolve().parents[1] / "scenarios"
+    sc = load_scenario(here / "tollgate_hours.toml")
+    said = []
+    res = run(sc, replicates=400, seed=5, warn=said.append)
+    unsafe = [w for w in said if "unsafe" in w]
+    assert any("'every 24th hour'" in w and "k = 24" in w and "period 24" in w for w in unsafe)
+    assert not any("25th" in w for w in unsafe) and not any("sorted by hour" in w for w in unsafe)
+    s = res.summary[res.summary.estimator == "ht"].set_index("design")
+    bad, good = s.loc["every 24th hour"], s.loc["every 25th hour, successive differences"]
+    assert bad["coverage"] + Z * max(bad["coverage_mcse"], math.sqrt(0.05 * 0.95 / 400)) < 0.95
+    assert good["coverage"] > 0.95 - Z * math.sqrt(0.05 * 0.95 / 400)
+    assert s.loc["every 24th hour, sorted by hour of day", "deff"] < 1
+    assert main(["inspect", str(here / "data" / "tollgate_hours.csv"), "--target", "vehicles", "--order", "hour",
+                 "--json"]) == 0
+    rep = json.loads(capsys.readouterr().out)
+    assert abs(rep["periods"][0]["period"] - 24) < 0.1 and 24 in rep["unsafe_intervals"]

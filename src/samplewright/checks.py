@@ -46,7 +46,8 @@ def interval_warnings(frame: Frame, design) -> list[str]:
     out = []
     for v, name in enumerate(frame.variables):
         rep = frame_order_report(frame, v, sort_by)
-        for risk in interval_risks(k, frame.N, rep.periods):
+        risks = sorted(interval_risks(k, frame.N, rep.periods), key=lambda r: -r["variance_ratio"])
+        for risk in risks[:1]:  # one sentence per design and target: the worst period, the others named
             p = next(q for q in rep.periods if q.period == risk["period"])
             head = (f"design {design.label!r} at size {design.size}: interval k = {k:.4g} is unsafe for target "
                     f"{name!r}, which has a cycle of period {p.period:.4g} along {along} (strength {p.strength:.2f}, "
@@ -65,7 +66,10 @@ def interval_warnings(frame: Frame, design) -> list[str]:
             else:
                 tail = (f"; the cycle adds about {risk['variance_ratio']:.1f} times the SRS variance, which the "
                         f"{design.variance_name} variance estimate does not see, so intervals will under-cover")
-            out.append(head + why + tail)
+            others = sorted({r["period"] for r in risks[1:]} - {p.period})
+            also = (f"; the interval is also unsafe for the periods {', '.join(f'{q:.3g}' for q in others)}"
+                    if others else "")
+            out.append(head + why + tail + also)
     return out
 
 
