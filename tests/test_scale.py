@@ -326,3 +326,34 @@ def test_dask_cluster_gives_the_local_numbers(tmp_path):
     pd.testing.assert_frame_equal(stopped_local.replicates, stopped_remote.replicates)
     assert remote.info["backend"] == "dask"
     assert len(list((tmp_path / "d" / "blocks").glob("*.npz"))) == 3 * 4
+
+
+def test_crash_in_a_parallel_worker_then_resume_equals_uninterrupted(scenario_file, tmp_path, monkeypatch):
+    full, cut = tmp_path / "full", tmp_path / "cut"
+    assert main(["run", str(scenario_file), "--out", str(full), "--quiet"]) == 0
+    real = engine.run_block
+    calls = {"n": 0}
+
+    def flaky(*a, **k):  # each forked worker keeps its own count and fails on its 5th block
+        calls["n"] += 1
+        if calls["n"] == 5:
+            raise RuntimeError("worker lost")
+        return real(*a, **k)
+
+    monkeypatch.setattr(engine, "run_block", flaky)
+    assert main(["run", str(scenario_file), "--out", str(cut), "--quiet", "--jobs", "2"]) == 1
+    assert not (cut / "summary.csv").exists()
+    monkeypatch.setattr(engine, "run_block", real)
+    assert main(["run", "--resume", str(cut), "--quiet", "--jobs", "2"]) == 0
+    _assert_same_run(full, cut)
+
+
+def test_loky_workers_give_the_same_numbers(monkeypatch):
+    """Where processes cannot fork, joblib's loky workers read a memory-mapped frame instead."""
+    import multiprocessing
+
+    sc = scenario_from_dict(DOC)
+    local = run(sc, jobs=1)
+    monkeypatch.setattr(multiprocessing, "get_all_start_methods", lambda: ["spawn"])
+    spawned = run(sc, jobs=2)
+    pd.testing.assert_frame_equal(local.replicates, spawned.replicates)

@@ -191,8 +191,9 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
              jobs: int = 1, backend: str = "local", scheduler: str | None = None):
     """Run ``run_block`` for each task (cell id, block, start, count); yield results as they finish.
 
-    ``backend="local"`` runs in this process when ``jobs`` is 1, else on ``jobs`` joblib
-    worker processes; ``backend="dask"`` sends the blocks to the dask.distributed scheduler
+    ``backend="local"`` runs in this process when ``jobs`` is 1, else on ``jobs`` worker
+    processes forked from this one (where the platform forks; otherwise joblib's loky
+    workers reading a memory-mapped copy of the frame); ``backend="dask"`` sends the blocks to the dask.distributed scheduler
     at ``scheduler`` through joblib's dask backend, with the frame scattered to the workers
     once (not shipped with every block).
     """
@@ -213,6 +214,11 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
         with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame, cells]):
             yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
         return
+    import multiprocessing as mp
+
+    if "fork" in mp.get_all_start_methods():
+        yield from _forked(frame, cells, calls, jobs, confidence, cost)
+        return
     import shutil
     import tempfile
 
@@ -226,6 +232,55 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
         yield from Parallel(n_jobs=jobs, return_as="generator_unordered")(work)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
+
+
+#: frame and cells a forked worker inherits from its parent, by token
+_INHERITED: dict[str, tuple] = {}
+
+
+def _forked(frame, cells, calls, jobs, confidence, cost):
+    """Run the calls on ``jobs`` forked worker processes that inherit the frame and cells.
+
+    Forked workers share the parent's memory pages (copy-on-write) and its imports, so
+    nothing is pickled but each block's seed and its small result; a pool of fresh
+    processes would first spend seconds importing and receiving the frame.
+    """
+    import multiprocessing as mp
+    import os
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+
+    token = f"{os.getpid()}-{id(frame)}-{id(cells)}"
+    _INHERITED[token] = (frame, cells)
+    pool = ProcessPoolExecutor(jobs, mp_context=mp.get_context("fork"), initializer=_quiet_worker)
+    try:  # a few blocks in flight per worker; a worker that dies raises BrokenProcessPool here
+        todo = iter(calls)
+        pending = set()
+        while True:
+            for ci, b, s, count, ss in todo:
+                pending.add(pool.submit(_run_inherited, (token, ci, b, s, count, ss, confidence, cost)))
+                if len(pending) >= 4 * jobs:
+                    break
+            if not pending:
+                break
+            done, pending = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in done:
+                yield fut.result()
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+        _INHERITED.pop(token, None)
+
+
+def _quiet_worker() -> None:
+    """Workers leave Ctrl-C to the parent, which stops the pool (finished blocks are already saved)."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _run_inherited(args) -> BlockResult:
+    token, cell_id, *rest = args
+    frame, cells = _INHERITED[token]
+    return run_task(frame, cells, cell_id, *rest)
 
 
 def run_task(frame: Frame, cells: list[Cell], cell_id: int, *args) -> BlockResult:
