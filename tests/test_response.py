@@ -237,7 +237,7 @@ def test_response_table_refusals(table, words):
 def test_stratum_rates_must_cover_the_frame(tmp_path, population):
     sc = scenario(tmp_path, population, [{"label": "simple", "method": "srs", "n": 40}],
                   {"target": "y", "stratum": "zone"}, response={"model": "stratum", "rates": {"near": 0.5}})
-    with pytest.raises(InputError, match="no rate for stratum 'far'"):
+    with pytest.raises(InputError, match="no value for stratum .far."):
         run(sc, replicates=10)
     sc = scenario(tmp_path, population, [{"label": "simple", "method": "srs", "n": 40}],
                   {"target": "y", "stratum": "zone"},

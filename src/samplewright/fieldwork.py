@@ -320,7 +320,7 @@ def prepare(scenario, frame: Frame, cells, seed: int, confidence: float) -> Fiel
         if p.unit is not None:
             propensity = _response.Propensity(p.unit[source])
         else:
-            propensity = _response.Propensity(None, cluster=listed.cluster, a=p.a, b=p.b)
+            propensity = _response.Propensity(None, cluster=frame.cluster[source], a=p.a, b=p.b)  # true codes
         info["response"] = {**model.describe(),
                             "mean_propensity": None if p.unit is None else float(p.unit.mean())}
     census, adjustments, per_design = {}, {}, {}

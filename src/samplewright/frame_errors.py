@@ -157,10 +157,20 @@ def list_frame(true: Frame, spec: FrameErrorSpec, seed: int, columns: dict | Non
     y = true.y[source].copy()
     y[~eligible] = 0.0  # never measured: an ineligible entry has no value in the population
     s_codes, s_uniq = _recode(true.stratum[source])
-    cluster, c_labels = None, ()
+    cluster, c_labels, extra = None, (), _extra_columns(true, source)
     if true.cluster is not None:
         c_codes, c_uniq = _recode(true.cluster[source])
         cluster, c_labels = c_codes, tuple(true.cluster_labels[i] for i in c_uniq)
+        if getattr(true, "cluster_cost", None) is not None:
+            extra["cluster_cost"] = true.cluster_cost[c_uniq]
+    sort_orders = getattr(true, "sort_orders", None)
+    if sort_orders:  # a listing takes its unit's place in every sorted order (duplicates side by side)
+        ranks = {}
+        for col, so in sort_orders.items():
+            r = np.empty(N)
+            r[so] = np.arange(N)
+            ranks[col] = np.argsort(r[source], kind="stable").astype(np.int64)
+        extra["sort_orders"] = ranks
     frame = Frame(
         variables=true.variables, y=y, stratum=s_codes,
         stratum_labels=tuple(true.stratum_labels[i] for i in s_uniq),
@@ -169,7 +179,7 @@ def list_frame(true: Frame, spec: FrameErrorSpec, seed: int, columns: dict | Non
         order=order,
         unit_cost=None if true.unit_cost is None else true.unit_cost[source],
         roles=dict(true.roles),
-        **_extra_columns(true, source),
+        **extra,
     )
     counts = {"population_units": N, "listed_units": int(source.size), "missing_units": int(k_miss),
               "duplicated_units": int(k_dup), "ineligible_entries": int(k_inel)}

@@ -12,7 +12,8 @@ independent Bernoulli draw with that propensity.
     a rate per cluster drawn from Beta(a, b) (clustered non-response: whole villages,
     buildings or branches that answer well or badly).  Give ``cluster_mean`` and
     ``cluster_concentration`` (a = mean x concentration, b = (1 - mean) x concentration)
-    or ``a`` and ``b``.
+    or ``a`` and ``b``; or a ``[response.cluster_means]`` table of stratum label = mean
+    with ``cluster_concentration`` (the Beta mean then depends on the cluster's stratum).
 ``logistic``
     logit p = intercept + sum_j coefficient_j x_j over frame columns; a column may be the
     target itself, which makes the non-response non-ignorable (no weighting on other
@@ -38,8 +39,8 @@ import numpy as np
 from .errors import InputError
 
 MODELS = ("constant", "stratum", "cluster", "logistic")
-KEYS = ("model", "rate", "rates", "cluster_mean", "cluster_concentration", "a", "b", "cluster_draw",
-        "intercept", "coefficients")
+KEYS = ("model", "rate", "rates", "cluster_mean", "cluster_means", "cluster_concentration", "a", "b",
+        "cluster_draw", "intercept", "coefficients")
 #: spawn-key word of the Generator that draws population-level response rates
 POPULATION_KEY = zlib.crc32(b"response-population")
 #: spawn-key word appended to a block's key for its Bernoulli response draws
@@ -55,6 +56,8 @@ class ResponseModel:
     rates: dict = field(default_factory=dict)  # stratum label (text) -> rate
     a: float = 1.0
     b: float = 1.0
+    cluster_means: dict = field(default_factory=dict)  # stratum label (text) -> Beta mean
+    concentration: float = 0.0
     cluster_draw: str = "frame"
     intercept: float = 0.0
     coefficients: dict = field(default_factory=dict)  # column -> coefficient
@@ -69,6 +72,9 @@ class ResponseModel:
             out["rate"] = self.rate
         elif self.model == "stratum":
             out["rates"] = dict(self.rates)
+        elif self.model == "cluster" and self.cluster_means:
+            out.update(cluster_means=dict(self.cluster_means), cluster_concentration=self.concentration,
+                       cluster_draw=self.cluster_draw)
         elif self.model == "cluster":
             out.update(a=self.a, b=self.b, mean=self.a / (self.a + self.b), cluster_draw=self.cluster_draw)
         else:
@@ -86,7 +92,7 @@ def response_from_dict(table: dict, ctx: str = "[response]") -> ResponseModel:
     if model not in MODELS:
         raise InputError(f"{ctx}: model {model!r} is not known{closest(model, MODELS)}")
     allowed = {"constant": ("rate",), "stratum": ("rates",),
-               "cluster": ("cluster_mean", "cluster_concentration", "a", "b", "cluster_draw"),
+               "cluster": ("cluster_mean", "cluster_means", "cluster_concentration", "a", "b", "cluster_draw"),
                "logistic": ("intercept", "coefficients")}[model]
     for k in table:
         if k != "model" and k not in allowed:
@@ -101,6 +107,23 @@ def response_from_dict(table: dict, ctx: str = "[response]") -> ResponseModel:
         if not isinstance(rates, dict) or not rates:
             raise InputError(f"{ctx}: model = 'stratum' needs a [response.rates] table of stratum label = rate")
         return ResponseModel(model, rates={str(k): _rate(v, f"rates.{k}", ctx) for k, v in rates.items()})
+    if model == "cluster" and "cluster_means" in table:
+        means = table["cluster_means"]
+        if not isinstance(means, dict) or not means:
+            raise InputError(f"{ctx}: cluster_means must be a table of stratum label = mean rate")
+        for k in ("cluster_mean", "a", "b"):
+            if k in table:
+                raise InputError(f"{ctx}: give cluster_means or {k}, not both")
+        if "cluster_concentration" not in table:
+            raise InputError(f"{ctx}: cluster_means needs cluster_concentration (a + b of each Beta)")
+        conc = as_float(table["cluster_concentration"], "cluster_concentration", ctx, minimum=1e-9)
+        means = {str(k): as_float(v, f"cluster_means.{k}", ctx, 0.0, 1.0, open_interval=True)
+                 for k, v in means.items()}
+        draw = as_str(table.get("cluster_draw", "frame"), "cluster_draw", ctx)
+        if draw not in ("frame", "replicate"):
+            raise InputError(f"{ctx}: cluster_draw = {draw!r} is not accepted"
+                             f"{closest(draw, ('frame', 'replicate'))}")
+        return ResponseModel(model, cluster_means=means, concentration=conc, cluster_draw=draw)
     if model == "cluster":
         by_mean = "cluster_mean" in table or "cluster_concentration" in table
         by_ab = "a" in table or "b" in table
@@ -154,8 +177,8 @@ class Propensity:
 
     unit: np.ndarray | None
     cluster: np.ndarray | None = None
-    a: float = 1.0
-    b: float = 1.0
+    a: object = 1.0  # a number, or one per cluster code
+    b: object = 1.0
 
     def respond(self, rng: np.random.Generator, units: np.ndarray) -> np.ndarray:
         """Bernoulli response of every unit position in ``units`` (any shape, B first), bool array.
@@ -173,7 +196,10 @@ class Propensity:
         C = int(self.cluster.max()) + 1
         key = np.arange(B, dtype=np.int64).reshape((B,) + (1,) * (units.ndim - 1)) * C + self.cluster[units]
         uniq, inv = np.unique(key, return_inverse=True)
-        rates = rng.beta(self.a, self.b, uniq.size)
+        code = uniq % C
+        a = self.a[code] if np.ndim(self.a) else self.a
+        b = self.b[code] if np.ndim(self.b) else self.b
+        rates = rng.beta(a, b, uniq.size)
         return u < rates[inv.reshape(units.shape)]
 
 
@@ -186,27 +212,36 @@ def resolve(model: ResponseModel, frame, columns: dict, seed: int) -> Propensity
     if model.model == "constant":
         return Propensity(np.full(frame.N, model.rate))
     if model.model == "stratum":
-        labels = [str(x) for x in frame.stratum_labels]
-        missing = [lab for lab in labels if lab not in model.rates]
-        extra = [lab for lab in model.rates if lab not in labels]
-        if extra:
-            raise InputError(f"[response] rates: stratum {extra[0]!r} is not in the frame{_near(extra[0], labels)}")
-        if missing:
-            raise InputError(f"[response] rates: no rate for stratum {missing[0]!r} "
-                             f"(give one for each of: {', '.join(labels)})")
-        return Propensity(np.array([model.rates[lab] for lab in labels])[frame.stratum])
+        return Propensity(_stratum_values(model.rates, frame, "rates")[frame.stratum])
     if model.model == "cluster":
         if frame.cluster is None:
             raise InputError("[response] model = 'cluster' needs a cluster column: set cluster = \"column\" "
                              "in [frame]")
+        a, b = model.a, model.b
+        if model.cluster_means:
+            mean = _stratum_values(model.cluster_means, frame, "cluster_means")[frame.cluster_stratum]
+            a, b = mean * model.concentration, (1.0 - mean) * model.concentration
         if model.cluster_draw == "replicate":
-            return Propensity(None, cluster=frame.cluster, a=model.a, b=model.b)
+            return Propensity(None, cluster=frame.cluster, a=a, b=b)
         rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(POPULATION_KEY,)))
-        return Propensity(rng.beta(model.a, model.b, frame.C)[frame.cluster])
+        return Propensity(rng.beta(a, b, frame.C)[frame.cluster])
     eta = np.full(frame.N, model.intercept)
     for col, beta in model.coefficients.items():
         eta = eta + beta * columns[col]
     return Propensity(1.0 / (1.0 + np.exp(-eta)))
+
+
+def _stratum_values(table: dict, frame, key: str) -> np.ndarray:
+    """One value per stratum of the frame from a table keyed by stratum label, shape (H,)."""
+    labels = [str(x) for x in frame.stratum_labels]
+    missing = [lab for lab in labels if lab not in table]
+    extra = [lab for lab in table if lab not in labels]
+    if extra:
+        raise InputError(f"[response] {key}: stratum {extra[0]!r} is not in the frame{_near(extra[0], labels)}")
+    if missing:
+        raise InputError(f"[response] {key}: no value for stratum {missing[0]!r} "
+                         f"(give one for each of: {', '.join(labels)})")
+    return np.array([table[lab] for lab in labels])
 
 
 def _near(word, options) -> str:

@@ -86,7 +86,7 @@ class AdjustmentSpec:
     def describe(self) -> dict:
         out = {"adjustment": self.method, "variance": VARIANCE_NAMES[self.method]}
         if self.method in ("class", "poststrat"):
-            out["classes"] = self.classes or "design strata"
+            out["classes"] = self.classes or "the frame's strata"
         if self.method == "raking":
             out["margins"] = list(self.margins)
         return out
