@@ -423,6 +423,17 @@ def test_n_negative_in_sweep_refused(tmp_path, capsys):
                 design=SRS.replace("n = 6", "n = [4, -3]"))
 
 
+def test_absurd_sample_size_refused_before_allocating(tmp_path, capsys):
+    run_refused(tmp_path, capsys, "design 'simple'", "n", "at most 10000000", "9223372036854775807",
+                design=SRS.replace("n = 6", "n = 9223372036854775807\nreplace = true"))
+
+
+def test_absurd_synthetic_frame_refused(tmp_path, capsys):
+    p = tmp_path / "s.toml"
+    p.write_text("[frame.synthetic]\nunits = 2147483648\n" + SRS)
+    refuse(["run", p, "--out", tmp_path / "out"], capsys, "[frame.synthetic]", "units", "at most 50000000")
+
+
 def test_n_above_population_without_replacement(tmp_path, capsys):
     run_refused(tmp_path, capsys, "design 'simple'", "n = 30", "24 units", "replace = true",
                 design=SRS.replace("n = 6", "n = 30"))

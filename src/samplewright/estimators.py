@@ -158,10 +158,11 @@ def hajek(block: SampleBlock, N: int, V: int, confidence: float, ctx=None) -> Es
     zall = block.weighted()
     z, zc = zall[..., :V], zall[..., COUNT]
     t, nhat = z.sum(axis=1), zc.sum(axis=1)
-    est = t / nhat[:, None]
-    lin = z - est[:, None, :] * zc[..., None]
-    var = VARIANCE[block.variance](lin, block)
-    se = np.sqrt(np.maximum(var, 0.0)) / nhat[:, None]
+    with np.errstate(divide="ignore", invalid="ignore"):  # an empty sample (random-size designs): NaN
+        est = t / nhat[:, None]
+        lin = z - est[:, None, :] * zc[..., None]
+        var = VARIANCE[block.variance](lin, block)
+        se = np.sqrt(np.maximum(var, 0.0)) / nhat[:, None]
     df = degrees_of_freedom(block)
     lo, hi = _interval(est, se, df, confidence)
     return Estimates(est, se, lo, hi, df)

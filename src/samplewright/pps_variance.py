@@ -52,7 +52,7 @@ def hartley_rao(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     """Hartley-Rao approximate variance of the total; see module notes."""
     z0, pi, real = _stratum0(z, block)
     n = real.sum(axis=1).astype(float)[:, None]  # (B, 1)
-    c = 1.0 + block.design_info["sum_pi2"] / n
+    c = 1.0 + block.design_info["sum_pi2"] / np.maximum(n, 1.0)  # n = 0: every unit a certainty unit
     t = z0.sum(axis=1)
     Q = (z0 * z0).sum(axis=1)
     pair_c = n * Q - t * t  # sum_{i<j} (z_i - z_j)^2

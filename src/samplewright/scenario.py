@@ -31,6 +31,10 @@ COST_KEYS = COST_MODEL_KEYS  # cost.py lists them (scalar rates, per_unit_by_str
 GOAL_KEYS = ("moe", "budget", "confidence", "variable")
 DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
 DEFAULT_BLOCK = 500
+#: largest sample size and synthetic frame accepted, so an absurd value is refused before any array is
+#: allocated (sanity bounds, no published source; a frame file is limited only by the machine)
+MAX_SIZE = 10_000_000
+MAX_SYNTHETIC_UNITS = 50_000_000
 
 
 # ------------------------------------------------------------------ type checks
@@ -47,11 +51,13 @@ def check_keys(table: dict, allowed, ctx: str) -> None:
             raise InputError(f"{ctx}: unknown key {k!r}{closest(k, allowed)}")
 
 
-def as_int(value, key: str, ctx: str = "", minimum: int | None = None) -> int:
+def as_int(value, key: str, ctx: str = "", minimum: int | None = None, maximum: int | None = None) -> int:
     if isinstance(value, bool) or not isinstance(value, int):
         raise InputError(f"{_where(ctx, key)} must be a whole number, got {value!r}")
     if minimum is not None and value < minimum:
         raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {value}")
+    if maximum is not None and value > maximum:
+        raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {value}")
     return value
 
 
@@ -89,11 +95,11 @@ def as_sizes(value, key: str, ctx: str) -> int | list[int]:
     if isinstance(value, list):
         if not value:
             raise InputError(f"{_where(ctx, key)} is an empty list; give one size or several")
-        out = [as_int(v, key, ctx, minimum=1) for v in value]
+        out = [as_int(v, key, ctx, minimum=1, maximum=MAX_SIZE) for v in value]
         if len(set(out)) != len(out):
             raise InputError(f"{_where(ctx, key)} lists a size twice: {out}")
         return out
-    return as_int(value, key, ctx, minimum=1)
+    return as_int(value, key, ctx, minimum=1, maximum=MAX_SIZE)
 
 
 # ------------------------------------------------------------------ frame spec
@@ -120,7 +126,7 @@ def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
     check_keys(table, SYNTH_KEYS, ctx)
     if "units" not in table:
         raise InputError(f"{ctx}: missing required key 'units' (number of units to generate)")
-    kw = {"units": as_int(table["units"], "units", ctx, minimum=2)}
+    kw = {"units": as_int(table["units"], "units", ctx, minimum=2, maximum=MAX_SYNTHETIC_UNITS)}
     for k in ("seed",):
         if k in table:
             kw[k] = as_int(table[k], k, ctx, minimum=0)

@@ -164,7 +164,7 @@ def generate(spec: SyntheticSpec) -> pd.DataFrame:
 def _cluster_sizes(rng, units: int, mean_size: float, size_cv: float) -> np.ndarray:
     """Cluster sizes (at least 1) summing to ``units``: equal, or gamma-spread with CV ``size_cv``."""
     k = max(1, int(round(units / mean_size)))
-    if size_cv <= 0:
+    if size_cv < 1e-6:  # equal sizes (a smaller CV would not change the rounded sizes)
         w = np.ones(k)
     else:
         shape = 1.0 / size_cv**2

@@ -192,6 +192,8 @@ class Sampford(_SizeDesign):
 
     def _select(self, frame, rng, B):
         s = self.setup(frame)
+        if s["n_free"] == 0:  # every unit is a certainty unit: nothing left to draw
+            return np.zeros((B, 0), dtype=np.int64)
         if "route" not in s:
             s["route"] = sampford_route(s["pi_free"])
         return sampford_draw(rng, s["pi_free"], B, s["route"])
