@@ -316,18 +316,32 @@ def _plain_arrays(obj) -> None:
             object.__setattr__(obj, k, v.view(np.ndarray))
 
 
-def _dask_client(scheduler: str | None):
-    """A client of the dask scheduler at ``scheduler`` (refused with InputError when unusable)."""
+def check_backend(backend: str, scheduler: str | None) -> None:
+    """Refuse (InputError) an unknown backend, or dask without a scheduler address or its packages."""
     from .errors import InputError
+    from .validate import closest
 
+    if backend not in BACKENDS:
+        raise InputError(f"backend {backend!r} is not known{closest(backend, BACKENDS)}")
+    if backend != "dask":
+        return
     if not scheduler:
         raise InputError("--backend dask needs --scheduler ADDRESS, the address of a running dask scheduler "
                          "(e.g. tcp://scheduler-host:8786)")
     try:
-        from distributed import Client
+        import distributed  # noqa: F401
     except ImportError:
         raise InputError("--backend dask needs the optional dask packages: pip install 'samplewright[dask]'") \
             from None
+
+
+def _dask_client(scheduler: str | None):
+    """A client of the dask scheduler at ``scheduler`` (refused with InputError when unreachable)."""
+    from distributed import Client
+
+    from .errors import InputError
+
+    check_backend("dask", scheduler)
     try:
         return Client(scheduler, timeout="20s")
     except (OSError, TimeoutError, ValueError) as exc:

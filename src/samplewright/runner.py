@@ -10,7 +10,7 @@ import pandas as pd
 
 from . import __version__
 from .checks import design_warnings, frame_warnings
-from .engine import BACKENDS, make_cells, replicate_table, simulate, simulate_until
+from .engine import check_backend, make_cells, replicate_table, simulate, simulate_until
 from .errors import InputError
 from .evaluate import summarise
 from .fieldwork import prepare as prepare_fieldwork, summary_columns
@@ -18,7 +18,6 @@ from .frame import Frame
 from .progress import Progress
 from .result import ALLOCATION_COLUMNS, RunResult
 from .scenario import Scenario
-from .validate import closest
 
 
 def _versions() -> dict:
@@ -114,8 +113,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     bs = scenario.block_size if block_size is None else int(block_size)
     if jobs < 1:
         raise InputError(f"jobs must be at least 1, got {jobs}")
-    if backend not in BACKENDS:
-        raise InputError(f"backend {backend!r} is not known{closest(backend, BACKENDS)}")
+    check_backend(backend, scheduler)
     rule = None
     if until is not None:
         from .stopping import parse_until
