@@ -9,6 +9,7 @@ for the Monte Carlo SEs in the z-bounds.  Frames are invented.
 from __future__ import annotations
 
 import itertools
+import math
 
 import numpy as np
 import pandas as pd
@@ -122,3 +123,58 @@ def test_inclusion_frequencies_and_unbiasedness(kw, big):
     assert abs(x.mean() - f.mean[0]) <= Z * x.std() / np.sqrt(R)  # HT unbiased (Horvitz & Thompson 1952)
     if big and kw["selection"] == "pps":
         assert any("with certainty" in note for note in d.notes(f))
+
+
+# ------------------------------------------------------------------ exact mode
+def exact_summary(frame, design, estimators=("ht",)):
+    from samplewright.cost import CostModel
+    from samplewright.engine import make_cells
+    from samplewright.exact import evaluate_exact
+
+    design.check(frame)
+    cells = make_cells([design], [estimators])
+    return evaluate_exact(frame, cells, 0.95, CostModel())
+
+
+@pytest.mark.parametrize("kw,big", [
+    (dict(selection="srs"), False),
+    (dict(selection="srs", units_per_cluster=1), False),
+    (dict(selection="pps", units_per_cluster=1), False),
+    (dict(selection="pps"), True),  # a certainty plot in zone s
+])
+def test_exact_mode_unbiased_and_counts(kw, big):
+    # HT unbiased exactly (Horvitz & Thompson 1952); probabilities sum to 1; the number of
+    # samples matches the product over strata (for two stages: e_m of the second-stage counts)
+    f = zone_frame(big)
+    d = StratifiedCluster("zones", clusters=5, **kw)
+    summary, samples, counts = exact_summary(f, d)
+    assert summary["mean_estimate"].iloc[0] == pytest.approx(f.mean[0], rel=1e-12)
+    assert samples["probability"].sum() == pytest.approx(1.0, abs=1e-12)
+    assert counts["zones@5"] == len(samples) == d.count_samples(f)
+    if kw == dict(selection="srs"):
+        # one stage, SRS of clusters: the stratified estimator of cluster totals is unbiased
+        # for its variance too (Cochran 1977, eq. 5.7): E v = Var exactly
+        assert summary["mean_se"].iloc[0] == pytest.approx(summary["empirical_se"].iloc[0], rel=1e-10)
+        m_h = d.cluster_allocation_of(f)
+        assert len(samples) == math.comb(4, int(m_h[0])) * math.comb(6, int(m_h[1]))
+
+
+def test_exact_mode_agrees_with_monte_carlo_two_stage_pps():
+    from samplewright.cost import CostModel
+    from samplewright.engine import make_cells, replicate_table, simulate
+    from samplewright.evaluate import summarise
+
+    f = zone_frame()
+    d = StratifiedCluster("zones", clusters=5, selection="pps", units_per_cluster=1)
+    ex, _, _ = exact_summary(f, d, ("ht", "hajek"))
+    cells = make_cells([d], [("ht", "hajek")])
+    R = 20_000
+    reps = replicate_table(simulate(f, cells, R, 99, 2_000, 0.95, CostModel()), cells, f.layout.names)
+    mc = summarise(reps, f, {"zones": d.method}, 0.95)
+    both = ex.merge(mc, on=["design", "estimator", "variable"], suffixes=("_x", "_mc"))
+    assert len(both) == 2
+    # z-bounds from the Monte Carlo SEs (Morris, White & Crowther 2019, Table 6)
+    assert (np.abs(both["mean_estimate_mc"] - both["mean_estimate_x"]) <= Z * both["bias_mcse_mc"]).all()
+    assert (np.abs(both["empirical_se_mc"] - both["empirical_se_x"]) <= Z * both["empirical_se_mcse_mc"]).all()
+    cov_se = np.sqrt(both["coverage_x"] * (1 - both["coverage_x"]) / R)
+    assert (np.abs(both["coverage_mc"] - both["coverage_x"]) <= Z * cov_se).all()

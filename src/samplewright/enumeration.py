@@ -56,3 +56,21 @@ def product_chunks(sizes, chunk: int = 20_000):
             digits[:, j] = code % sizes[j]
             code = code // sizes[j]
         yield digits
+
+
+def elementary_symmetric(a, m: int) -> int:
+    """Elementary symmetric polynomial e_m(a) of whole numbers, exactly (Python integers).
+
+    The number of two-stage samples: choosing m clusters, each with a_c second-stage
+    samples, gives e_m(a) samples in all.
+
+    Examples
+    --------
+    >>> elementary_symmetric([1, 2, 3], 2)
+    11
+    """
+    e = [1] + [0] * m
+    for x in a:
+        for j in range(m, 0, -1):
+            e[j] += e[j - 1] * int(x)
+    return e[m]

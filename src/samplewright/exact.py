@@ -7,8 +7,8 @@ as a simulated run (``evaluate.SUMMARY_COLUMNS``), with ``replicates`` = the num
 possible samples, every MCSE column 0 and ``exact`` = True.
 
 Enumeration is available for srs, stratified, systematic, one- and two-stage cluster
-(here, from the designs' own parameters) and for the size-proportional and random-size
-designs through their ``enumerate`` method; a design whose sample count exceeds
+(here, from the designs' own parameters) and for the size-proportional, random-size and
+stratified multistage designs through their ``enumerate`` method; a design whose sample count exceeds
 :data:`LIMIT` is refused with the count.
 
 Notes
@@ -29,7 +29,7 @@ import pandas as pd
 from scipy import stats
 
 from .block import SampleBlock
-from .enumeration import combination_chunks, product_chunks
+from .enumeration import combination_chunks, elementary_symmetric, product_chunks
 from .errors import InputError
 from .estimators import ESTIMATORS, sample_units
 from .evaluate import SUMMARY_COLUMNS
@@ -144,15 +144,6 @@ def _cluster(d, frame, chunk):
                               variance=d.variance_name), np.full(R, p)
 
 
-def _esf(a, m: int) -> int:
-    """Elementary symmetric polynomial e_m(a) of whole numbers (exact integers)."""
-    e = [1] + [0] * m
-    for x in a:
-        for j in range(m, 0, -1):
-            e[j] += e[j - 1] * int(x)
-    return e[m]
-
-
 def count_samples(design, frame) -> tuple[int, str]:
     """Number of possible samples of ``design`` and how it is counted (for messages)."""
     meth = design.method
@@ -175,11 +166,13 @@ def count_samples(design, frame) -> tuple[int, str]:
         if k is None:
             return math.comb(C, m), f"C(clusters, m) = C({C}, {m})"
         a = [math.comb(int(M), min(int(M), k)) for M in frame.cluster_sizes]
-        return _esf(a, m), f"sum over the C({C}, {m}) cluster sets of prod_c C(M_c, {k})"
+        return elementary_symmetric(a, m), f"sum over the C({C}, {m}) cluster sets of prod_c C(M_c, {k})"
     count = design.count_samples(frame)  # the design's own rule (size-proportional, random size)
-    how = {"poisson": "2^(units with pi < 1)", "bernoulli": "2^N", "pps_wr": f"N^n = {frame.N}^{design.n}",
+    how = {"poisson": "2^(units with pi < 1)", "bernoulli": "2^N", "pps_wr": f"N^n = {frame.N}^{design.size}",
            "sampford": "C(units without certainty, n without certainty)",
-           "pps_systematic": "distinct random starts"}.get(meth, "possible samples")
+           "pps_systematic": "distinct random starts",
+           "stratified_cluster": "prod over strata of the cluster subsets (and their second-stage subsets)"}.get(
+        meth, "possible samples")
     return count, how
 
 

@@ -25,11 +25,14 @@ units are the PSUs of that stratum, with correction 1 - k / M_c (exact for that 
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ..allocation import real_allocation, round_allocation
 from ..block import SampleBlock
 from ..draws import distinct_positions
+from ..enumeration import combination_chunks, elementary_symmetric, product_chunks
 from ..errors import InputError
 from .base import Design
 from .cluster import Cluster
@@ -200,6 +203,20 @@ class StratifiedCluster(Design):
                 pos = distinct_positions(rng, g["free"].size, g["m"], (B,))
             chosen.append(g["free"][pos])
         chosen = np.concatenate(chosen, axis=1) if chosen else np.zeros((B, 0), dtype=np.int64)
+        units = valid = None
+        cert_units = []
+        if k is not None:
+            units, valid = Cluster._second_stage(frame, rng, chosen, M[chosen], k)
+            cert_units = [frame.cluster_units[frame.cluster_offsets[c] + distinct_positions(rng, int(M[c]), take, (B,))]
+                          for c, take in s["certain"]]
+        return self._assemble(frame, chosen, units, valid, cert_units, keep_units)
+
+    def _assemble(self, frame, chosen, units, valid, cert_units, keep_units):
+        """The block from drawn clusters (B, m'), their second-stage units and the certainty units."""
+        s = self.setup(frame)
+        k = s["k"]
+        M = frame.cluster_sizes
+        B = chosen.shape[0]
         w1 = 1.0 / s["pi_c"][chosen]
         sums, weights, unit_parts = [], [], []
         if k is None:
@@ -209,22 +226,19 @@ class StratifiedCluster(Design):
                 unit_parts.append(_whole_clusters(frame, chosen))
         else:
             sizes = M[chosen]
-            units, valid = Cluster._second_stage(frame, rng, chosen, sizes, k)
             sums.append((frame.gather(units) * valid[..., None]).sum(axis=2))
             weights.append(w1 * sizes / np.minimum(sizes, k))
             unit_parts.append(np.where(valid, units, -1).reshape(B, -1))
-        for c, take in s["certain"]:
-            lo = frame.cluster_offsets[c]
+        for j, (c, take) in enumerate(s["certain"]):
             if k is None:
                 sums.append(np.broadcast_to(frame.cluster_sums[c], (B, 1, frame.values.shape[1])))
                 weights.append(np.ones((B, 1)))
                 if keep_units:
                     unit_parts.append(_whole_clusters(frame, np.full((B, 1), c)))
             else:
-                u = frame.cluster_units[lo + distinct_positions(rng, int(M[c]), take, (B,))]
-                sums.append(frame.gather(u))
+                sums.append(frame.gather(cert_units[j]))
                 weights.append(np.full((B, take), M[c] / take))
-                unit_parts.append(u)
+                unit_parts.append(cert_units[j])
         total_clusters = chosen.shape[1] + len(s["certain"])
         return SampleBlock(
             sums=np.concatenate(sums, axis=1),
@@ -236,6 +250,81 @@ class StratifiedCluster(Design):
             units=np.concatenate(unit_parts, axis=1) if keep_units and unit_parts else None,
             variance=self.variance_name,
         )
+
+    # ------------------------------------------------------------------ exact mode
+    def _first_stage(self, frame):
+        """Per stratum group: every subset of its drawn clusters (rows of codes) and its probability."""
+        out = []
+        for g in self.setup(frame)["groups"]:
+            if g["m"] == 0:
+                continue
+            rows = np.concatenate(list(combination_chunks(g["free"].size, g["m"], 100_000)))
+            if self.selection == "pps":  # Sampford (1967): p(s) ∝ (m - sum_s pi) prod_s pi / (1 - pi)
+                pi = g["pi"]
+                logw = (np.log(pi) - np.log1p(-pi))[rows].sum(axis=1) + np.log(g["m"] - pi[rows].sum(axis=1))
+                p = np.exp(logw - np.logaddexp.reduce(logw))
+            else:
+                p = np.full(len(rows), 1.0 / len(rows))
+            out.append((g["free"][rows], p))
+        return out
+
+    def count_samples(self, frame):
+        s = self.setup(frame)
+        k = s["k"]
+        M = frame.cluster_sizes
+        count = 1
+        for g in s["groups"]:
+            if g["m"] == 0:
+                continue
+            if k is None:
+                count *= math.comb(g["free"].size, g["m"])
+            else:
+                count *= elementary_symmetric([math.comb(int(M[c]), min(int(M[c]), k)) for c in g["free"]], g["m"])
+        for c, take in s["certain"]:
+            count *= 1 if k is None else math.comb(int(M[c]), take)
+        return count
+
+    def enumerate(self, frame, chunk=20_000):
+        """Every sample: the product over strata of cluster subsets, then of second-stage subsets."""
+        s = self.setup(frame)
+        k = s["k"]
+        M = frame.cluster_sizes
+        stages = self._first_stage(frame)
+        lists = [rows for rows, _ in stages]
+        probs = [p for _, p in stages]
+        firsts = product_chunks([len(r) for r in lists], chunk if k is None else 1)
+        subsets = {}
+
+        def combos(size, take):
+            if (size, take) not in subsets:
+                subsets[(size, take)] = np.concatenate(list(combination_chunks(size, take, 100_000)))
+            return subsets[(size, take)]
+
+        for digits in firsts:
+            parts = [lists[j][digits[:, j]] for j in range(len(lists))]
+            chosen = np.concatenate(parts, axis=1) if parts else np.zeros((len(digits), 0), dtype=np.int64)
+            p1 = np.prod([probs[j][digits[:, j]] for j in range(len(lists))], axis=0) if lists else np.ones(1)
+            if k is None:
+                yield self._assemble(frame, chosen, None, None, [], True), p1
+                continue
+            row = chosen[0]  # one first-stage sample at a time
+            takes = [min(int(M[c]), k) for c in row] + [take for _, take in s["certain"]]
+            clusters = list(row) + [c for c, _ in s["certain"]]
+            second = [combos(int(M[c]), t) for c, t in zip(clusters, takes)]
+            p2 = 1.0 / float(np.prod([len(x) for x in second], dtype=float))
+            m = len(row)
+            for d2 in product_chunks([len(x) for x in second], chunk):
+                R = len(d2)
+                pos = np.zeros((R, m, k), dtype=np.int64)
+                valid = np.zeros((R, m, k), dtype=bool)
+                for j in range(m):
+                    pos[:, j, :takes[j]] = second[j][d2[:, j]]
+                    valid[:, j, :takes[j]] = True
+                ch = np.broadcast_to(row, (R, m))
+                units = frame.cluster_units[frame.cluster_offsets[ch][..., None] + pos]
+                cert = [frame.cluster_units[frame.cluster_offsets[c] + second[m + j][d2[:, m + j]]]
+                        for j, (c, _) in enumerate(s["certain"])]
+                yield self._assemble(frame, ch, units, valid, cert, True), np.full(R, p1[0] * p2)
 
     # ------------------------------------------------------------------ probabilities
     def inclusion_probabilities(self, frame):
