@@ -92,14 +92,19 @@ def test_mcar_respondent_mean_unbiased_with_srs_variance(tmp_path, population):
 
 def test_same_replicate_draws_with_and_without_nonresponse(tmp_path, population):
     designs = [{"label": "simple", "method": "srs", "n": 50, "estimators": ["ht", "hajek"]},
-               {"label": "villages", "method": "cluster", "clusters": 6, "estimators": ["hajek"]}]
-    roles = {"target": "y", "cluster": "village"}
+               {"label": "villages", "method": "cluster", "clusters": 6, "estimators": ["hajek"]},
+               {"label": "two-stage", "method": "cluster", "clusters": 6, "units_per_cluster": 5,
+                "estimators": ["hajek"]},
+               {"label": "zones", "method": "stratified", "n": 40, "estimators": ["ht"]}]
+    roles = {"target": "y", "cluster": "village", "stratum": "zone"}
+    population = population.assign(zone=np.where(population["village"] < 30, "near", "far"))
     full = run(scenario(tmp_path, population, designs, roles), replicates=700, seed=9, block_size=300)
     sub = tmp_path / "b"
     sub.mkdir()
     nr = run(scenario(sub, population, designs, roles, response={"model": "constant", "rate": 0.5}),
              replicates=700, seed=9, block_size=300)
-    for design, est in (("simple", "ht"), ("simple", "hajek"), ("villages", "hajek")):
+    for design, est in (("simple", "ht"), ("simple", "hajek"), ("villages", "hajek"), ("two-stage", "hajek"),
+                        ("zones", "ht")):
         a, b = reps(full, design, est), reps(nr, design, est)
         np.testing.assert_allclose(b["full_estimate"].to_numpy(), a["estimate"].to_numpy(), rtol=1e-12)
         np.testing.assert_allclose(b["full_se"].to_numpy(), a["se"].to_numpy(), rtol=1e-9)
@@ -244,3 +249,31 @@ def test_stratum_rates_must_cover_the_frame(tmp_path, population):
                   response={"model": "stratum", "rates": {"near": 0.5, "far": 0.5, "farr": 0.2}})
     with pytest.raises(InputError, match="'farr' is not in the frame"):
         run(sc, replicates=10)
+
+
+def test_results_do_not_depend_on_jobs(tmp_path, population):
+    designs = [{"label": "villages", "method": "cluster", "clusters": 8, "units_per_cluster": 6,
+                "estimators": ["hajek"], "adjustment": "class"}]
+    sc = scenario(tmp_path, population, designs, {"target": "y", "cluster": "village", "stratum": "zone"},
+                  response={"model": "cluster", "cluster_concentration": 3.0, "cluster_draw": "replicate",
+                            "cluster_means": {"near": 0.8, "far": 0.4}})
+    a = run(sc, replicates=600, seed=3, block_size=150).replicates
+    b = run(sc, replicates=600, seed=3, block_size=150, jobs=2).replicates
+    pd.testing.assert_frame_equal(a, b)
+
+
+def test_cluster_means_by_stratum(tmp_path, population):
+    """Village rates drawn once from Beta(mean_h c, (1 - mean_h) c): their zone means against scipy's Beta."""
+    from samplewright.response import resolve
+
+    sc = scenario(tmp_path, population.assign(zone=np.where(population["village"] < 30, "near", "far")),
+                  [{"label": "v", "method": "cluster", "clusters": 5}], {"target": "y", "cluster": "village",
+                                                                        "stratum": "zone"},
+                  response={"model": "cluster", "cluster_concentration": 5.0,
+                            "cluster_means": {"near": 0.8, "far": 0.3}})
+    frame = sc.load_frame()
+    rates = resolve(sc.response, frame, {}, seed=1).unit.reshape(50, 20)[:, 0]
+    for lo, hi, mean in ((0, 30, 0.8), (30, 50, 0.3)):
+        beta = stats.beta(mean * 5.0, (1 - mean) * 5.0)
+        r = rates[lo:hi]
+        assert abs(r.mean() - beta.mean()) < Z * beta.std() / math.sqrt(hi - lo)

@@ -129,10 +129,17 @@ def psu_units(block: SampleBlock, frame: Frame) -> tuple[np.ndarray, np.ndarray]
 
 
 def _rebuilt(sample: SampleBlock, u: np.ndarray, count: np.ndarray) -> SampleBlock:
-    """A block whose PSU sums are the adjusted linearised sums (weight 1 per position)."""
+    """A block whose weighted PSU sums are the adjusted linearised sums.
+
+    The design's weights are kept (sums = u / weight), so a variance routine that reads the
+    weights as inverse inclusion probabilities (Poisson, size-proportional designs) still
+    finds them.
+    """
     B, m = u.shape[:2]
-    sums = np.concatenate([u, count[..., None], np.zeros((B, m, 1))], axis=2)
-    return dataclasses.replace(sample, sums=sums, weight=np.ones(m), units=None)
+    w = np.broadcast_to(sample.weight, (B, m))
+    inv = np.where(w > 0, 1.0 / np.where(w > 0, w, 1.0), 0.0)[..., None]
+    sums = np.concatenate([u, count[..., None], np.zeros((B, m, 1))], axis=2) * inv
+    return dataclasses.replace(sample, sums=sums, units=None)
 
 
 def _estimate(block, frame, estimators, confidence):

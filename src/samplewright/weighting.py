@@ -37,7 +37,10 @@ Adjustments (``adjustment`` in a ``[[design]]`` table)
 A class with eligible units but no respondents in a replicate cannot be adjusted; it is
 given the replicate's overall respondent mean (collapsed into the whole sample) and the
 replicate is counted in ``adjustment_failures``.  Raking that has not converged after
-``MAX_ITER`` cycles is counted there too.  Sources for the linearisations: Sarndal,
+``MAX_ITER`` cycles is counted there too; when a raking category has no respondents, the
+raked weights are scaled up to the population total (the same collapse).  With few PSUs
+per class the linearised variance runs low (residuals from class means estimated on few
+PSUs), so check ``se_ratio``.  Sources for the linearisations: Sarndal,
 Swensson & Wretman (1992), secs. 7.6 (post-stratified estimator) and 15.6-15.7
 (weighting-class estimators under a response model).
 """
@@ -225,11 +228,16 @@ class ResolvedAdjustment:
             L = w.shape[1] * w.shape[2]
             codes = [c[units].reshape(B, L) for c in self.codes]
             g, _, ok = rake(wr.reshape(B, L), codes, self.controls)
+            total = float(self.controls[0].sum())
+            empty = np.zeros(B, dtype=bool)
+            for c, N in zip(codes, self.controls):
+                empty |= ((group_sums(c, wr.reshape(B, L), len(N)) <= 0) & (N > 0)).any(axis=1)
+            if empty.any():  # a category without respondents: its count is spread over all of them
+                g[empty] *= total / np.maximum(g[empty].sum(axis=1, keepdims=True), 1e-300)
             yy = y.reshape(B, L, -1)
             t = (g[..., None] * yy).sum(axis=1)  # (B, V)
             fit = self._fitted(g, codes, yy)
             u = (g[..., None] * (yy - fit)).reshape(y.shape).sum(axis=2) + t[:, None, :] * share[..., None]
-            total = float(self.controls[0].sum())
             return u, total * share, ~ok
         G = self.sizes[0]
         c = self.codes[0][units]
