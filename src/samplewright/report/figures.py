@@ -2,8 +2,9 @@
 
 Each plot function takes the tables it needs and ``ax=None`` (a new figure is made when no
 Axes is given), returns the Axes, and never calls ``plt.show()``: figures are
-:class:`matplotlib.figure.Figure` objects drawn with the Agg renderer, so nothing here needs
-a display or touches pyplot's global state.
+:class:`matplotlib.figure.Figure` objects, saved with the Agg renderer, so nothing here needs
+a display, selects a backend or touches pyplot's global state (in a notebook, a returned
+Figure shows inline).
 
 One colour per design, the same in every figure, from the Okabe-Ito palette (Okabe & Ito
 2008, "Color Universal Design"), which stays distinguishable under the common forms of
@@ -28,14 +29,11 @@ from dataclasses import dataclass
 from typing import Callable
 
 import matplotlib
-
-matplotlib.use("Agg", force=False)  # no display needed; a no-op where a backend is already chosen
-
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.lines import Line2D  # noqa: E402
-from matplotlib.ticker import FuncFormatter  # noqa: E402
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure  # drawn and saved with the Agg renderer; pyplot is never imported
+from matplotlib.lines import Line2D
+from matplotlib.ticker import FuncFormatter
 
 #: Okabe-Ito colours in the order designs receive them (black is kept for "misses" and truth lines)
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#999999")
