@@ -127,7 +127,7 @@ class PPSSystematic(_SizeDesign):
     ...                          target="y", size="x")
     >>> d = PPSSystematic("by size", n=3)
     >>> d.check(f)
-    >>> d.draw(f, np.random.default_rng(3), B=2).units.shape
+    >>> d.draw(f, np.random.default_rng(3), B=2, keep_units=True).units.shape
     (2, 3)
     """
 
