@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from samplewright import Frame
-from samplewright.designs import METHODS, SRS, Stratified, Systematic
+from samplewright.designs import METHODS, SRS, Stratified
 from samplewright.errors import InputError
 from samplewright.estimators import ESTIMATORS
 from samplewright.scenario import scenario_from_dict
@@ -210,7 +210,7 @@ def test_calibration_reproduces_known_totals(design, structured):
 def test_several_targets_match_one_at_a_time(design, name, structured):
     # V > 1: every estimator treats the targets column by column (same draws, same numbers)
     targets = ["y", "flag", "x2"]
-    kw = dict(stratum="band", cluster="cl", size="size", auxiliary=["size"], poststratum="band")
+    kw = {"stratum": "band", "cluster": "cl", "size": "size", "auxiliary": ["size"], "poststratum": "band"}
     f = Frame.from_dataframe(structured, target=targets, **kw)
     many = _run(name, _draw(design, f), f)
     assert many.estimate.shape == (40, 3)

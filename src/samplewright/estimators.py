@@ -190,4 +190,4 @@ def sampled_unit_cost(block: SampleBlock) -> np.ndarray:
 
 
 # ratio, GREG and post-stratified estimators register themselves (issue 8)
-from . import auxiliary as _auxiliary  # noqa: E402,F401
+from . import auxiliary as _auxiliary  # noqa: F401

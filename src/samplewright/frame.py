@@ -22,7 +22,8 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
-from .layout import Layout, build as build_layout
+from .layout import Layout
+from .layout import build as build_layout
 
 #: index of the "ones" column and of the unit-cost column, counted from the end of ``values``
 COUNT = -2
@@ -91,7 +92,7 @@ class Frame:
     cluster_cost: np.ndarray | None = None  # (C,) cost of visiting each cluster (cost.py)
     # derived, filled in __post_init__
     values: np.ndarray = field(init=False, repr=False)
-    layout: "Layout" = field(init=False, repr=False)  # positions of the extra value columns
+    layout: Layout = field(init=False, repr=False)  # positions of the extra value columns
     rows: np.ndarray = field(init=False, repr=False)  # values padded to a fast row width (see gather)
     strata_units: np.ndarray = field(init=False, repr=False)
     strata_offsets: np.ndarray = field(init=False, repr=False)
