@@ -316,3 +316,71 @@ def test_expense_audit_scenario_runs():
     # the PPS designs select on the ratio's auxiliary: ratio == HT for the targets (see above)
     targets = ratio_vs_ht.index.get_level_values("variable").isin(["approved", "overpayment", "overpaid"])
     np.testing.assert_allclose(ratio_vs_ht.loc[targets, "ratio"], ratio_vs_ht.loc[targets, "ht"], rtol=1e-10)
+
+
+# ------------------------------------------------------------------ per-sample formulas, computed by hand
+def _srs_samples(f, n=30, B=8, seed=6):
+    blk = SRS("s", n=n).draw(f, np.random.default_rng(seed), B, keep_units=True)
+    return blk, blk.units
+
+
+def test_ratio_se_is_cochrans_formula_sample_by_sample():
+    # Cochran 1977, sec. 6.4 (from memory): v(ybar_R) = (1 - f) / n * sum (y - R_hat x)^2 / (n - 1)
+    f = _linear_frame(N=600)
+    n = 30
+    blk, units = _srs_samples(f, n)
+    o = _run("ratio", blk, f)
+    X = f.aux[:, 0].mean()
+    for r, u in enumerate(units):
+        y, x = f.y[u, 0], f.aux[u, 0]
+        R = y.mean() / x.mean()
+        assert o.estimate[r, 0] == pytest.approx(R * X, rel=1e-12)
+        v = (1 - n / f.N) / n * ((y - R * x) ** 2).sum() / (n - 1)
+        assert o.se[r, 0] ** 2 == pytest.approx(v, rel=1e-10)
+
+
+def test_greg_se_and_domain_mean_from_hand_computed_g_weights():
+    # SSW 1992, sec. 6.5-6.6 (from memory): g_k = 1 + (X~ - X~_hat)' (sum_s w x~ x~')^-1 x~_k,
+    # e_k = y_k - x~_k' B_hat; under SRS v = N^2 (1 - f) / n s^2(g e) and the domain mean with
+    # the calibrated weights is sum_s w g y d / sum_s w g d (SSW sec. 10.5 style)
+    df = _structured_df()
+    f = Frame.from_dataframe(df, target="y", auxiliary=["size", "x2"], domain="reg", domains=["s"])
+    n = 40
+    blk, units = _srs_samples(f, n)
+    o = _run("greg", blk, f)
+    Xt = np.array([f.N, df["size"].sum(), df["x2"].sum()])
+    w = f.N / n
+    for r, u in enumerate(units):
+        xs = np.column_stack([np.ones(n), df["size"].to_numpy()[u], df["x2"].to_numpy()[u]])
+        ys = df["y"].to_numpy()[u]
+        M = w * xs.T @ xs
+        B = np.linalg.solve(M, w * xs.T @ ys)
+        g = 1 + xs @ np.linalg.solve(M, Xt - w * xs.sum(axis=0))
+        np.testing.assert_allclose(w * (g[:, None] * xs).sum(axis=0), Xt, rtol=1e-10)  # calibration
+        e = ys - xs @ B
+        assert o.estimate[r, 0] == pytest.approx((w * g * ys).sum() / f.N, rel=1e-10)
+        v = (1 - n / f.N) / n * np.var(g * e, ddof=1)
+        assert o.se[r, 0] ** 2 == pytest.approx(v, rel=1e-8)
+        d = (df["reg"].to_numpy()[u] == "s")
+        assert o.estimate[r, 1] == pytest.approx((g * ys * d).sum() / (g * d).sum(), rel=1e-10)
+
+
+def test_poststrat_se_from_hand_computed_residuals():
+    # SSW 1992, sec. 7.6 (from memory): g_k = N_q / N_hat_q, e_k = y_k - ybar_sq; under SRS
+    # v = N^2 (1 - f) / n s^2(g e), divided by N^2 for the mean
+    df = _structured_df()
+    f = Frame.from_dataframe(df, target="y", poststratum="band")
+    n = 45
+    blk, units = _srs_samples(f, n)
+    o = _run("poststrat", blk, f)
+    Nq = df["band"].value_counts()
+    for r, u in enumerate(units):
+        s = df.iloc[u]
+        nq = s["band"].value_counts()
+        if len(nq) < 3:
+            continue
+        g = (Nq[s["band"]].to_numpy() / (f.N / n)) / nq[s["band"]].to_numpy()
+        e = s["y"].to_numpy() - s.groupby("band")["y"].transform("mean").to_numpy()
+        est = sum(Nq[q] * s.loc[s["band"] == q, "y"].mean() for q in Nq.index) / f.N
+        assert o.estimate[r, 0] == pytest.approx(est, rel=1e-12)
+        assert o.se[r, 0] ** 2 == pytest.approx((1 - n / f.N) / n * np.var(g * e, ddof=1), rel=1e-9)
