@@ -15,6 +15,7 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 
 from samplewright import Frame
 from samplewright.cli import main
@@ -23,8 +24,6 @@ from samplewright.designs import METHODS
 from samplewright.engine import make_cells, replicate_table, simulate
 from samplewright.evaluate import summarise
 from samplewright.exact import count_samples, enumerate_design, evaluate_exact
-
-from conftest import Z
 
 
 @pytest.fixture
@@ -64,7 +63,7 @@ def exact(frame, ds, estimators=("ht",)):
 def test_ht_and_hansen_hurwitz_unbiased_exactly(frame):
     # E(t_HT) = T for every probability design with pi_i > 0 (Horvitz & Thompson 1952);
     # the Hansen-Hurwitz estimator is unbiased under PPS with replacement (Cochran 1977, 9A.6)
-    summary, samples, counts = exact(frame, designs())
+    summary, samples, _counts = exact(frame, designs())
     truth = float(frame.mean[0])
     assert (summary["exact"]).all()
     np.testing.assert_allclose(summary["mean_estimate"], truth, rtol=1e-12)
@@ -131,8 +130,8 @@ def test_systematic_samples_and_probabilities(N, n):
         for row, q in zip(map(tuple, blk.units.tolist()), p):
             got[row] = got.get(row, 0) + q
     assert set(got) == set(brute)
-    for row in brute:
-        assert got[row] == pytest.approx(brute[row], abs=1e-9)
+    for row, q in brute.items():
+        assert got[row] == pytest.approx(q, abs=1e-9)
     if N % n == 0:  # whole k: k equally likely samples
         assert len(got) == N // n and all(q == pytest.approx(n / N) for q in got.values())
 
@@ -154,8 +153,8 @@ def test_two_stage_cluster_enumeration_matches_brute_force(frame):
                 key = tuple(sorted((y[i], y[j])))
                 brute[key] = brute.get(key, 0) + 1 / (15 * 4)
     assert set(got) == set(brute)
-    for key in brute:
-        assert got[key] == pytest.approx(brute[key])
+    for key, q in brute.items():
+        assert got[key] == pytest.approx(q)
 
 
 # ------------------------------------------------------------------ exact against Monte Carlo

@@ -14,14 +14,21 @@ import itertools
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 from scipy import integrate, stats
 
 from samplewright import Frame, InputError
-from samplewright.designs import METHODS, Bernoulli, Pareto, Poisson, PPSSystematic, PPSWithReplacement, Sampford
+from samplewright.designs import (
+    METHODS,
+    Bernoulli,
+    Pareto,
+    Poisson,
+    PPSSystematic,
+    PPSWithReplacement,
+    Sampford,
+)
 from samplewright.designs.pips import pips, sampford_draw
 from samplewright.estimators import ESTIMATORS
-
-from conftest import Z
 
 SIZES = [2.0, 3.0, 1.0, 7.0, 4.0, 5.0, 2.5, 6.0]  # invented size measure
 
@@ -195,7 +202,7 @@ def test_inclusion_frequencies_with_certainty_units():
     assert pi[-1] == 1.0 and pi.sum() == pytest.approx(3)
     assert "1 unit(s) with n x_i / X >= 1" in d.notes(f)[0]
     R = 20_000
-    counts, blk = inclusion_counts(d, f, R, seed=6)
+    counts, _blk = inclusion_counts(d, f, R, seed=6)
     assert counts[-1] == R
     freq = counts / R
     free = pi < 1

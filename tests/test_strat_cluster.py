@@ -14,12 +14,11 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 
 from samplewright import Frame, InputError
 from samplewright.designs import METHODS, StratifiedCluster
 from samplewright.estimators import ESTIMATORS
-
-from conftest import Z
 
 
 def zone_frame(big: bool = False):
@@ -100,9 +99,9 @@ def test_one_stage_srs_of_clusters_exact_moments_and_monte_carlo():
 
 
 @pytest.mark.parametrize("kw", [
-    dict(selection="pps", units_per_cluster=2),
-    dict(selection="pps", cluster_size="size"),
-    dict(selection="srs", units_per_cluster=3, cap_units=True, cluster_allocation="equal"),
+    {"selection": "pps", "units_per_cluster": 2},
+    {"selection": "pps", "cluster_size": "size"},
+    {"selection": "srs", "units_per_cluster": 3, "cap_units": True, "cluster_allocation": "equal"},
 ])
 @pytest.mark.parametrize("big", [False, True])
 def test_inclusion_frequencies_and_unbiasedness(kw, big):
@@ -137,10 +136,10 @@ def exact_summary(frame, design, estimators=("ht",)):
 
 
 @pytest.mark.parametrize("kw,big", [
-    (dict(selection="srs"), False),
-    (dict(selection="srs", units_per_cluster=1), False),
-    (dict(selection="pps", units_per_cluster=1), False),
-    (dict(selection="pps"), True),  # a certainty plot in zone s
+    ({"selection": "srs"}, False),
+    ({"selection": "srs", "units_per_cluster": 1}, False),
+    ({"selection": "pps", "units_per_cluster": 1}, False),
+    ({"selection": "pps"}, True),  # a certainty plot in zone s
 ])
 def test_exact_mode_unbiased_and_counts(kw, big):
     # HT unbiased exactly (Horvitz & Thompson 1952); probabilities sum to 1; the number of
@@ -151,7 +150,7 @@ def test_exact_mode_unbiased_and_counts(kw, big):
     assert summary["mean_estimate"].iloc[0] == pytest.approx(f.mean[0], rel=1e-12)
     assert samples["probability"].sum() == pytest.approx(1.0, abs=1e-12)
     assert counts["zones@5"] == len(samples) == d.count_samples(f)
-    if kw == dict(selection="srs"):
+    if kw == {"selection": "srs"}:
         # one stage, SRS of clusters: the stratified estimator of cluster totals is unbiased
         # for its variance too (Cochran 1977, eq. 5.7): E v = Var exactly
         assert summary["mean_se"].iloc[0] == pytest.approx(summary["empirical_se"].iloc[0], rel=1e-10)

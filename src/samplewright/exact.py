@@ -221,7 +221,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     columns (one "replicate" per possible sample) plus its ``probability``; ``counts``
     maps "label@size" to the number of samples.
     """
-    counts = check_counts(frame, cells, limit)
+    check_counts(frame, cells, limit)
     z = float(stats.norm.ppf(0.5 + confidence / 2.0))
     names, truth, S2 = frame.layout.names, frame.layout.truth, frame.layout.S2  # as evaluate.summarise
     rows, tables, by_label = [], [], {}
@@ -244,7 +244,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
         total_p = p.sum()
         if not np.isclose(total_p, 1.0, rtol=0, atol=1e-9):
             raise RuntimeError(f"design {d.label!r}: sample probabilities sum to {total_p!r}, not 1")
-        by_label[f"{d.label}@{d.size}"] = int(len(p))
+        by_label[f"{d.label}@{d.size}"] = len(p)
         mean_n = float(p @ n)
         for e in cell.estimators:
             est, se, lo, hi = (np.concatenate(a, axis=0) for a in parts[e])
@@ -252,7 +252,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
                 m = _moments(p, est[:, v], se[:, v], lo[:, v], hi[:, v], float(truth[v]), z)
                 srs_var = (1.0 - mean_n / frame.N) * S2[v] / mean_n if mean_n < frame.N else 0.0
                 rows.append({"design": d.label, "method": d.method, "size": int(d.size), "estimator": e,
-                             "variable": var, "replicates": int(len(p)), **m,
+                             "variable": var, "replicates": len(p), **m,
                              "deff": m["empirical_se"] ** 2 / srs_var if srs_var > 0 else float("nan"),
                              "mean_n": mean_n, "mean_cost": float(p @ c), "exact": True})
                 tables.append(pd.DataFrame({

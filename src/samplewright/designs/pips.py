@@ -112,7 +112,7 @@ def sampford_draw(rng: np.random.Generator, pi: np.ndarray, B: int, route: str |
     """
     pi = np.asarray(pi, dtype=float)
     N = pi.size
-    n = int(round(pi.sum()))
+    n = round(pi.sum())
     out = np.empty((B, n), dtype=np.int64)
     if n == 0:
         return out

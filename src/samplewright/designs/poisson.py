@@ -21,6 +21,7 @@ from ..draws import _KEY_BUDGET, distinct_positions
 from .base import Design
 from .pips import pips, size_measure, units_block
 
+
 def _padded(frame, inc: np.ndarray, pi: np.ndarray, keep_units: bool, variance: str):
     """Block from an inclusion matrix ``inc`` (B, N) bool, padded to the largest sample."""
     B = inc.shape[0]
@@ -115,8 +116,9 @@ def _empty_note(design, frame) -> list[str]:
     p0 = float(np.prod(1.0 - pi))
     if p0 < 1e-6:
         return []
-    return [f"design {design.label!r} at n = {design.n}: an empty sample has probability {p0:.2g}; "
-            f"the Hajek mean is undefined (NaN) for such a replicate"]
+    note = (f"design {design.label!r} at n = {design.n}: an empty sample has probability {p0:.2g}; "
+            f"the Hajek mean is undefined (NaN) for such a replicate")
+    return [note]
 
 
 class Poisson(_IndependentDesign):
@@ -144,11 +146,12 @@ class Poisson(_IndependentDesign):
         return pips(size_measure(frame, self.label), int(self.n))[0]
 
     def notes(self, frame):
-        pi, certain, rounds = pips(size_measure(frame, self.label), int(self.n))
+        _pi, certain, rounds = pips(size_measure(frame, self.label), int(self.n))
         if not certain.any():
             return _empty_note(self, frame)
-        return _empty_note(self, frame) + [f"design {self.label!r} at n = {self.n}: {int(certain.sum())} unit(s) with n x_i / X >= 1 "
-                f"on size column {frame.roles.get('size')!r} are always taken ({rounds} removal round(s))"]
+        note = (f"design {self.label!r} at n = {self.n}: {int(certain.sum())} unit(s) with n x_i / X >= 1 "
+                f"on size column {frame.roles.get('size')!r} are always taken ({rounds} removal round(s))")
+        return [*_empty_note(self, frame), note]
 
 
 class Bernoulli(_IndependentDesign):

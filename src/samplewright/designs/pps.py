@@ -83,9 +83,10 @@ class _SizeDesign(Design):
         if not c:
             return []
         col = frame.roles.get("size")
-        return [f"design {self.label!r} at n = {self.n}: {c} unit(s) with n x_i / X >= 1 on size column "
+        note = (f"design {self.label!r} at n = {self.n}: {c} unit(s) with n x_i / X >= 1 on size column "
                 f"{col!r} are taken with certainty ({s['rounds']} removal round(s)); the other "
-                f"{s['n_free']} are drawn from {s['free'].size} units"]
+                f"{s['n_free']} are drawn from {s['free'].size} units")
+        return [note]
 
     def _layout(self, frame, chosen: np.ndarray, keep_units: bool):
         """Block from sampled free positions ``chosen`` (B, n') plus the certainty units."""

@@ -181,8 +181,8 @@ class StratifiedCluster(Design):
         s = self.setup(frame)
         parts = ", ".join(f"{frame.stratum_labels[h]}: {int(s['m_h'][h])} of {int(c)}"
                           for h, c in enumerate(self.clusters_per_stratum(frame)))
-        out = [f"design {self.label!r} at clusters = {self.clusters}: clusters per stratum ({self.cluster_allocation}) "
-               f"{parts}"]
+        out = [f"design {self.label!r} at clusters = {self.clusters}: clusters per stratum "
+               + f"({self.cluster_allocation}) {parts}"]
         if s["certain"]:
             out.append(f"design {self.label!r} at clusters = {self.clusters}: {len(s['certain'])} cluster(s) with "
                        f"pi >= 1 are taken with certainty ({s['rounds']} removal round(s))")
