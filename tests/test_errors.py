@@ -756,6 +756,26 @@ def test_interrupted_run_leaves_no_partial_results(tmp_path, capsys, monkeypatch
     assert "run.json" not in names, names
 
 
+def test_every_output_file_is_renamed_into_place(tmp_path, capsys, monkeypatch):
+    # every file a run leaves in --out arrived by a rename from a temporary name (atomic_write)
+    renamed = set()
+    real = os.replace
+
+    def spy(src, dst, *a, **k):
+        renamed.add(Path(dst).resolve())
+        return real(src, dst, *a, **k)
+
+    monkeypatch.setattr(os, "replace", spy)
+    sc = setup(tmp_path)
+    out = tmp_path / "out"
+    code, _, err = cli(["run", sc, "--out", out, "--quiet", "--replicates", "40"], capsys)
+    assert code == 0, err
+    files = {f.resolve() for f in out.rglob("*") if f.is_file()}
+    assert {"run.json", "summary.csv", "replicates.parquet"} <= {f.name for f in files}
+    assert files <= renamed, sorted(str(f) for f in files - renamed)
+    assert not [f for f in files if f.name.endswith(".tmp")]
+
+
 # ------------------------------------------------------------------ warnings (not errors)
 def _stderr_warnings(err: str) -> list[str]:
     return [ln for ln in err.splitlines() if ln.startswith("warning: ")]
