@@ -220,3 +220,29 @@ def test_domains_without_domain_column_is_refused():
            "design": [{"label": "s", "method": "srs", "n": 5}]}
     with pytest.raises(InputError, match=r"domains is given but domain"):
         scenario_from_dict(doc)
+
+
+def test_exact_mode_domain_and_calibration_moments():
+    # exact design moments (run --exact, every possible sample): under SRS the HT domain mean is
+    # unbiased with an unbiased variance estimator (Cochran 1977, Theorem 2.4 for y d), the
+    # Hajek-type domain mean is unbiased when every sample meets the domain (sec. 2.13), and the
+    # GREG estimate of an auxiliary's mean has no variance at all (calibration; SSW 1992, sec. 6.5)
+    from samplewright.runner import run
+
+    rng = np.random.default_rng(12)
+    x = np.round(rng.gamma(3.0, 4.0, 16), 1)
+    df = pd.DataFrame({"y": np.round(2 * x + rng.normal(0, 3, 16), 1), "x": x,
+                       "zone": ["e"] * 8 + ["w"] * 8})
+    frame = Frame.from_dataframe(df, target=["y", "x"], auxiliary=["x"], domain="zone", domains=["e"])
+    sc = scenario_from_dict({"frame": {"path": "in-memory.csv", "target": ["y", "x"], "auxiliary": ["x"],
+                                       "domain": "zone", "domains": ["e"]},
+                             "design": [{"label": "simple", "method": "srs", "n": 9,
+                                         "estimators": ["ht", "hajek", "greg"]}]})
+    s = run(sc, frame=frame, exact=True).summary.set_index(["estimator", "variable"])
+    assert (s["replicates"] == 11440).all()  # C(16, 9)
+    for v in ("y[zone=e]", "x[zone=e]"):
+        assert abs(s.loc[("ht", v), "bias"]) < 1e-10
+        assert s.loc[("ht", v), "mean_se"] == pytest.approx(s.loc[("ht", v), "empirical_se"], rel=1e-10)
+        assert abs(s.loc[("hajek", v), "bias"]) < 1e-10
+    assert s.loc[("greg", "x"), "empirical_se"] < 1e-9
+    assert s.loc[("greg", "x"), "mean_se"] < 1e-9
