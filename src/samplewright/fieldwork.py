@@ -165,8 +165,12 @@ def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.S
     y = frame.values[units][..., : frame.values.shape[1] - 2]  # every value column but count and cost
     positions = np.ones((B, m), dtype=bool) if sample.mask is None else sample.mask
     u, cnt, failed = fw.adjustment.apply(units, w, y, e, r, positions)
-    uf, cntf, _ = fw.adjustment.apply(units, w, y, e, e, positions)
-    return (_rebuilt(sample, u, cnt), _rebuilt(sample, uf, cntf), valid.sum(axis=(1, 2)).astype(float),
+    if fw.adjustment.method in ("none", "class") and fw.eligible.all():
+        full = sample  # with every unit eligible and responding these adjustments change nothing
+    else:
+        uf, cntf, _ = fw.adjustment.apply(units, w, y, e, e, positions)
+        full = _rebuilt(sample, uf, cntf)
+    return (_rebuilt(sample, u, cnt), full, valid.sum(axis=(1, 2)).astype(float),
             e.sum(axis=(1, 2)).astype(float), r.sum(axis=(1, 2)).astype(float), failed)
 
 
