@@ -123,6 +123,8 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float
 
 
 def _reason(r, goal, nominal, z, cheapest, best) -> str:
+    if not (r["coverage"] == r["coverage"]):
+        return "no coverage to judge (no intervals were formed), so it cannot be recommended"
     if not coverage_acceptable(r["coverage"], r["coverage_mcse"], nominal, z):
         return (f"intervals under-cover: {r['coverage']:.1%} of {nominal:.0%} intervals held the true value "
                 f"(Monte Carlo SE {r['coverage_mcse']:.1%}), more than {z:g} SEs below nominal; its reported "
