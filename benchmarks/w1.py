@@ -106,8 +106,12 @@ def naive_loop(df, info, replicates: int, per_design: int, seed: int = 1):
 
 
 # ------------------------------------------------------------------ the lower bound
-def lower_bound(frame: Frame, n_h, replicates: int, block: int = 500, seed: int = 1) -> float:
-    """Draw the indices and sum the values, per design, in blocks; nothing else."""
+def lower_bound(frame: Frame, n_h, replicates: int, block: int = 500, seed: int = 1, distinct: bool = False) -> float:
+    """Draw the indices and sum the values, per design, in blocks; nothing else.
+
+    With ``distinct``, the SRS and stratified indices are also sorted and checked for
+    repeats (the least a without-replacement draw needs; the rare redraw is left out).
+    """
     y = frame.y[:, 0].copy()
     ys = y[frame.strata_units]  # grouped by stratum beforehand (not timed)
     yo = y[frame.order]
@@ -117,11 +121,20 @@ def lower_bound(frame: Frame, n_h, replicates: int, block: int = 500, seed: int 
     rng = np.random.default_rng(seed)
     sink = 0.0
     t = time.perf_counter()
+    repeats = []
+
+    def draw(high, k):
+        idx = rng.integers(0, high, (block, k))
+        if distinct:
+            idx.sort(axis=1)
+            repeats.append(bool((idx[:, 1:] == idx[:, :-1]).any()))  # a real draw redraws these few
+        return idx
+
     for _ in range(replicates // block):
-        sink += np.take(y, rng.integers(0, N, (block, 1000))).sum(axis=1)[0]
+        sink += np.take(y, draw(N, 1000)).sum(axis=1)[0]
         s = 0.0
         for h in range(len(N_h)):
-            s = s + np.take(ys, rng.integers(0, N_h[h], (block, int(n_h[h]))) + off[h]).sum(axis=1)
+            s = s + np.take(ys, draw(N_h[h], int(n_h[h])) + off[h]).sum(axis=1)
         sink += s[0]
         k = N / 1000
         pos = (rng.random(block)[:, None] * k + np.arange(1000) * k).astype(np.int64)
@@ -140,6 +153,30 @@ def srs_scenario(n: int, R: int, units: int = 1000):
 def simple_frame(N: int, seed: int = 4) -> Frame:
     y = np.random.default_rng(seed).normal(100, 20, N)
     return Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")
+
+
+def stages(sc, frame, B: int = 500, k: int = 10) -> dict:
+    """Milliseconds per block of each step of ``run_block``, per design (best of ``k``)."""
+    from samplewright.engine import make_cells
+    from samplewright.estimators import ESTIMATORS, sample_units
+
+    cells = make_cells(sc.designs, sc.estimators)
+    rng = np.random.default_rng(5)
+    out = {}
+    for c in cells:
+        c.design.check(frame)
+        blk = c.design.draw(frame, rng, B)
+        est = ESTIMATORS[c.estimators[0]]
+
+        def best(fn):
+            return round(min(timed(fn)[0] for _ in range(k)) * 1e3, 2)
+
+        out[c.design.label] = {
+            "draw": best(lambda: c.design.draw(frame, rng, B)),
+            "estimate_se_ci": best(lambda: est(blk, frame.N, frame.V, 0.95, frame.layout)),
+            "units_and_cost": best(lambda: (sample_units(blk), sc.cost.replicate_cost(blk, frame))),
+        }
+    return out
 
 
 def peak_memory(replicates: int) -> dict:
@@ -187,8 +224,13 @@ def main(argv=None) -> int:
     # lower bound
     n_h = sc.designs[1].n_h(frame)
     t_lb = min(lower_bound(frame, n_h, R, seed=s) for s in (1, 2))
+    t_lbd = min(lower_bound(frame, n_h, R, seed=s, distinct=True) for s in (1, 2))
     res["lower_bound_seconds"] = round(t_lb, 3)
-    print(f"lower-bound kernel: {t_lb:.3f} s")
+    res["lower_bound_distinct_seconds"] = round(t_lbd, 3)
+    print(f"lower-bound kernel: {t_lb:.3f} s ({t_lbd:.3f} s with the sort and repeat check of a "
+          f"without-replacement draw)")
+    res["stages_ms_per_block_of_500"] = stages(sc, frame)
+    print("where the time goes (ms per block of 500 replicates):", res["stages_ms_per_block_of_500"])
 
     # naive pandas loop
     df = sc.frame.dataframe()
@@ -203,7 +245,8 @@ def main(argv=None) -> int:
     res["ratios"] = {"naive_over_samplewright": round(naive["scaled_seconds"] / t_sw, 1),
                      "samplewright_over_lower_bound": round(t_sw / t_lb, 2),
                      "samplewright_simulation_over_lower_bound":
-                         round(out.info["simulation_seconds"] / t_lb, 2)}
+                         round(out.info["simulation_seconds"] / t_lb, 2),
+                     "samplewright_over_lower_bound_distinct": round(t_sw / t_lbd, 2)}
     print("ratios:", res["ratios"])
 
     # time against replicates (W1, all four designs)

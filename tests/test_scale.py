@@ -115,6 +115,9 @@ def test_resume_after_interruption_equals_uninterrupted_run(scenario_file, tmp_p
     # finished blocks kept, nothing of the summary written
     assert len(list((cut / "blocks").glob("*.npz"))) == 7
     assert not (cut / "summary.csv").exists() and not (cut / "run.json").exists()
+    # running again without --resume points at it rather than discarding the blocks
+    assert main(["run", str(scenario_file), "--out", str(cut), "--quiet"]) == 2
+    assert "samplewright run --resume" in capsys.readouterr().err
     # a crash in the middle of writing a block leaves only a temporary file, which is ignored
     (cut / "blocks" / ".c00000000-s0-b000099.npz.x1.tmp").write_bytes(b"half a block")
 

@@ -36,6 +36,11 @@ def run_kwargs(args) -> dict:
     """Keyword arguments of :func:`samplewright.runner.run` for these options."""
     if getattr(args, "scheduler", None) and getattr(args, "backend", "local") != "dask":
         raise InputError("--scheduler is for --backend dask; add --backend dask or drop --scheduler")
+    out = Path(args.out)
+    unfinished = (out / "blocks" / "manifest.json").exists() and not (out / "run.json").exists()
+    if unfinished and not getattr(args, "resume", None) and not getattr(args, "force", False):
+        raise InputError(f"output folder {str(out)!r} holds the finished blocks of an interrupted run; "
+                         f"continue it with: samplewright run --resume {out} (or use --force to start again)")
     return {"until": getattr(args, "until", None), "max_replicates": getattr(args, "max_replicates", None),
             "backend": getattr(args, "backend", "local"), "scheduler": getattr(args, "scheduler", None),
             "out": args.out, "resume": bool(getattr(args, "resume", None))}
