@@ -90,10 +90,13 @@ def _greg(z, Z, N, L: Layout):
     diff = total[None, :] - M[:, 0, :]  # known minus estimated totals of x~
     T = Z[:, L.ext] + np.einsum("bk,bke->be", diff, Bhat)
     lam = np.einsum("bkj,bj->bk", Minv, diff)  # g_k = 1 + lam' x~_k
-    sx = z[..., XX[0]]  # (B, m, k)
-    resid = z[..., L.ext] - np.einsum("bmk,bke->bme", sx, Bhat)
-    lam_xx = np.einsum("bk,bmkj->bmj", lam, z[..., XX])  # lam' sum_{k in i} w x~ x~'
-    u = resid + np.einsum("bk,bmke->bme", lam, z[..., XE]) - np.einsum("bmj,bje->bme", lam_xx, Bhat)
+    # u_i = sum_{k in i} w_k g_k e_k = s_e - s_x' B + lam' (s_xe - s_xx B), with s_. the PSU's
+    # weighted sums; a loop over the k (few) model terms keeps every temporary (B, m, E)
+    u = z[..., L.ext].copy()
+    for a in range(XX.shape[0]):
+        s_xB = sum(z[..., XX[a, j]][..., None] * Bhat[:, None, j, :] for j in range(XX.shape[0]))
+        u -= z[..., XX[0, a]][..., None] * Bhat[:, None, a, :]
+        u += lam[:, None, a, None] * (z[..., XE[a]] - s_xB)
     return T, u
 
 
