@@ -66,8 +66,13 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
     S2 = dict(zip(frame.layout.names, frame.layout.S2))
+    domain_vars = set(frame.layout.names[frame.V:])
     rows = []
     for (design, size, est, var), g in reps.groupby(["design", "size", "estimator", "variable"], sort=False):
+        if var in domain_vars:  # a replicate that met no unit of the domain has no estimate: not counted
+            g = g[np.isfinite(g["estimate"].to_numpy())]
+            if g.empty:
+                continue
         m = measures(g["estimate"].to_numpy(), g["se"].to_numpy(), g["lower"].to_numpy(),
                      g["upper"].to_numpy(), float(truth[var]), z)
         mean_n = float(g["n"].mean())
