@@ -246,3 +246,23 @@ def test_exact_mode_domain_and_calibration_moments():
         assert abs(s.loc[("hajek", v), "bias"]) < 1e-10
     assert s.loc[("greg", "x"), "empirical_se"] < 1e-9
     assert s.loc[("greg", "x"), "mean_se"] < 1e-9
+
+
+def test_replicates_without_domain_units_are_not_counted():
+    # a rare domain (6 of 400 units) is missed by some samples of 20: P(n_d = 0) is the
+    # hypergeometric pmf at 0; those replicates have no estimate and the row counts the others
+    from samplewright.runner import run
+
+    zone = np.array(["rare"] * 6 + ["common"] * 394)
+    df = pd.DataFrame({"y": np.arange(400.0) % 7, "zone": zone})
+    frame = Frame.from_dataframe(df, target="y", domain="zone", domains=["rare"])
+    sc = scenario_from_dict({"frame": {"path": "in-memory.csv", "target": "y", "domain": "zone",
+                                       "domains": ["rare"]},
+                             "design": [{"label": "simple", "method": "srs", "n": 20, "estimators": ["hajek"]}]})
+    R = 4000
+    res = run(sc, frame=frame, replicates=R, seed=4)
+    row = res.summary.set_index("variable").loc["y[zone=rare]"]
+    p0 = stats.hypergeom.pmf(0, 400, 6, 20)
+    missed = R - row["replicates"]
+    assert abs(missed - R * p0) < Z * math.sqrt(R * p0 * (1 - p0))  # binomial count of empty samples
+    assert np.isfinite(row["bias"]) and np.isfinite(row["coverage"])
