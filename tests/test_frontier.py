@@ -18,7 +18,7 @@ from scipy import stats
 
 from conftest import Z
 from samplewright import planning
-from samplewright.frontier import FRONTIER_COLUMNS, fit_curve, frontier_table, pareto, size_for_moe
+from samplewright.frontier import FRONTIER_COLUMNS, fit_curve, pareto, size_for_moe
 from samplewright.recommend import COVERAGE_Z, Goal, coverage_acceptable, recommend
 from samplewright.runner import run
 from samplewright.scenario import scenario_from_dict
@@ -216,5 +216,5 @@ def test_district_scenario_pick_checks_by_hand_from_summary(tmp_path, capsys):
     assert list(front.columns)[:3] == ["design", "method", "size"]
     checker = root.parent / "shared" / "tools" / "check-contract"
     if checker.exists():
-        r = subprocess.run([sys.executable, str(checker), str(out)], capture_output=True, text=True)
+        r = subprocess.run([sys.executable, str(checker), str(out)], capture_output=True, text=True, check=False)
         assert r.returncode == 0, r.stdout

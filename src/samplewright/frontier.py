@@ -88,7 +88,7 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     with np.errstate(divide="ignore", invalid="ignore"):
         t["moe_mcse"] = np.where(t["rmse"] > 0, z * t["mse_mcse"] / (2.0 * t["rmse"]), 0.0)
     t["on_frontier"] = False
-    for _, idx in t.groupby("variable", sort=False).groups.items():
+    for idx in t.groupby("variable", sort=False).groups.values():
         t.loc[idx, "on_frontier"] = pareto(t.loc[idx, "mean_cost"].to_numpy(), t.loc[idx, "moe"].to_numpy())
     return t[FRONTIER_COLUMNS].reset_index(drop=True)
 

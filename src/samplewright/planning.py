@@ -295,7 +295,7 @@ def allocate_strata(units, sd, cost=None, rule="neyman", n=None, budget=None, mo
             left = C - c0 - float((c_h * N_h)[~free].sum())
             return max(left, 0.0) / float((c_h * wf)[free].sum())
 
-        real, n_free, census = _solve_capped(N_h, w, total_for)
+        real, _, _ = _solve_capped(N_h, w, total_for)
         whole = np.minimum(np.floor(real + 1e-9), N_h).astype(np.int64)
         while True:  # spend what is left where a unit cuts the variance most per unit of cost
             spare = C - c0 - float((c_h * whole).sum())
@@ -324,7 +324,7 @@ def allocate_strata(units, sd, cost=None, rule="neyman", n=None, budget=None, mo
             n0_holder.setdefault("n0", n0)
             return n0 / (1.0 + float((W * S_h**2)[free].sum()) / (N * V))
 
-        real, n_free, census = _solve_capped(N_h, w, total_for)
+        real, _, _ = _solve_capped(N_h, w, total_for)
         whole = np.minimum(np.floor(real + 1e-9), N_h).astype(np.int64)
         if S_h.sum() > 0:
             whole = np.maximum(whole, np.where(S_h > 0, np.minimum(1, N_h), 0))

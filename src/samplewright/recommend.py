@@ -44,7 +44,7 @@ class Goal:
 
 def coverage_acceptable(coverage: float, coverage_mcse: float, nominal: float, z: float = COVERAGE_Z) -> bool:
     """Coverage not below ``nominal`` by more than z Monte Carlo SEs (see module notes)."""
-    if not (coverage == coverage):  # NaN: no intervals to judge
+    if math.isnan(coverage):  # no intervals to judge
         return False
     return bool(coverage >= nominal - z * coverage_mcse)
 
@@ -123,7 +123,7 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float
 
 
 def _reason(r, goal, nominal, z, cheapest, best) -> str:
-    if not (r["coverage"] == r["coverage"]):
+    if math.isnan(r["coverage"]):
         return "no coverage to judge (no intervals were formed), so it cannot be recommended"
     if not coverage_acceptable(r["coverage"], r["coverage_mcse"], nominal, z):
         return (f"intervals under-cover: {r['coverage']:.1%} of {nominal:.0%} intervals held the true value "
@@ -186,16 +186,22 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
         lines.append(f"Passed over because their confidence intervals under-cover (below {nominal:.0%} by more "
                      f"than Monte Carlo error allows) at one or more sizes: {', '.join(repr(n) for n in names)}.")
     for row in rec["interpolated"]:
-        if g["moe"] is None or row.get("size_for_moe") is None or row["moe_basis"] != "interpolated":
-            continue
         if not row["coverage_acceptable_at_every_size"]:
             continue
-        if c is not None and row["design"] == c["design"] and row["estimator"] == c["estimator"]:
+        if c is not None and row["design"] == c["design"] and row["estimator"] == c["estimator"] \
+                and row.get("size_for_moe") is not None and row["moe_basis"] == "interpolated":
             need = math.ceil(row["size_for_moe"])
             if need < c["size"]:
                 lines.append(f"Between the rehearsed sizes, '{row['design']}' would meet the margin at about "
                              f"{need} (cost about {_money(row['cost_for_moe'])}); this is interpolated from a fit "
                              f"of MSE = a/n + b, not simulated.")
+        if b is not None and row["design"] == b["design"] and row["estimator"] == b["estimator"] \
+                and row.get("size_for_budget") is not None and row["budget_basis"] == "interpolated" \
+                and row.get("moe_for_budget") is not None and math.floor(row["size_for_budget"]) > b["size"]:
+            buy = math.floor(row["size_for_budget"])
+            lines.append(f"Between the rehearsed sizes, the budget would buy about {buy} with '{row['design']}' "
+                         f"(margin about +-{_num(row['moe_for_budget'])}); this is interpolated from a fit of "
+                         f"MSE = a/n + b, not simulated.")
     R = int(pts["replicates"].max()) if len(pts) else 0
     lines.append(f"Evidence: {R:,} rehearsed samples per design and size drawn from the frame; the margin is "
                  f"{z_of(conf):.2f} x the root mean square error of the estimates around the frame's true mean.")
