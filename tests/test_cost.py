@@ -166,3 +166,17 @@ def _doc(**extra):
 def test_scenario_cost_and_goal_checks(extra, word):
     with pytest.raises(InputError, match=word):
         scenario_from_dict(_doc(**extra))
+
+
+def test_cost_optimal_copy_keeps_other_design_attributes():
+    # the runner hands the model's c_h to an optimal stratified design through with_params;
+    # attributes set after construction (e.g. a non-response adjustment) must survive
+    _, f = _frame()
+    d = Stratified("opt", n=12, allocation="optimal")
+    d.adjustment = "kept"
+    d.n_h(f)  # fills the per-frame memo
+    e = CostModel(per_unit=2.0, per_unit_by_stratum=(("north", 8.0),)).for_design(d, f)
+    assert e is not d and e.adjustment == "kept"
+    assert e.stratum_costs == (2.0, 8.0, 2.0) and d.stratum_costs is None
+    assert e.n_h(f).tolist() == allocate(12, "optimal", f.N_h, np.sqrt(f.stratum_S2()[:, 0]),
+                                         [2.0, 8.0, 2.0]).tolist()

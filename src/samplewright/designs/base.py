@@ -57,8 +57,18 @@ class Design:
         return d
 
     def with_params(self, **params) -> "Design":
-        """A new design of the same class with some parameters changed (built through ``__init__``)."""
-        return type(self)(self.label, **{**self._params, **params})
+        """A copy of this design with some parameters changed.
+
+        Other attributes set after construction (a non-response adjustment, say) are kept; a
+        per-frame memo in ``_cache`` starts afresh.
+        """
+        d = copy.copy(self)
+        d._params = {**self._params, **params}
+        for k, v in params.items():
+            setattr(d, k, v)
+        if "_cache" in vars(d):
+            d._cache = {}
+        return d
 
     # --------------------------------------------------------------- protocol
     def check(self, frame: Frame) -> None:
