@@ -13,6 +13,7 @@ numbers unchanged.
 from __future__ import annotations
 
 import zlib
+from contextlib import contextmanager
 from pathlib import Path
 from dataclasses import dataclass
 
@@ -132,16 +133,28 @@ def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, s
     kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the
     per-cell report of :func:`samplewright.stopping.report`.
     """
-    from .stopping import CellProgress, advance, report
+    from .stopping import CellProgress, report
 
     spans = block_spans(rule.max_replicates, block_size)
-    max_blocks = len(spans)
-    min_blocks = min(max_blocks, -(-int(min_replicates) // block_size))
-    truth = frame.mean
+    min_blocks = min(len(spans), -(-int(min_replicates) // block_size))
     states = {ci: CellProgress() for ci in range(len(cells))}
     have: dict[int, dict[int, BlockResult]] = {ci: {} for ci in range(len(cells))}
     scheduled = {ci: 0 for ci in range(len(cells))}
     wave = {ci: min_blocks for ci in range(len(cells))}
+    with backend_session(backend, scheduler, frame, cells):  # one dask client and scatter for every wave
+        _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
+                     block_size, min_blocks, states, have, scheduled, wave)
+    kept = [have[ci][b] for ci, st in states.items() for b in range(st.used)]
+    return kept, report(cells, states, rule)
+
+
+def _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
+                 block_size, min_blocks, states, have, scheduled, wave) -> None:
+    """The waves of :func:`simulate_until`: dispatch, consume in block order, size the next wave."""
+    from .stopping import advance
+
+    max_blocks = len(spans)
+    truth = frame.mean
     while True:
         tasks = []
         for ci, st in states.items():
@@ -161,8 +174,6 @@ def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, s
             if not st.stopped:  # aim at the replicates still asked for, growing at most twofold per wave
                 aim = -(-st.tally.needed(rule.targets) // block_size)
                 wave[ci] = min(max_blocks, max(st.used + max(jobs, 1), min(aim, 2 * st.used)))
-    kept = [have[ci][b] for ci, st in states.items() for b in range(st.used)]
-    return kept, report(cells, states, rule)
 
 
 def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
@@ -211,6 +222,9 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
 
         work = (delayed(run_task)(frame, cells, ci, b, s, count, ss, confidence, cost)
                 for ci, b, s, count, ss in calls)
+        if (scheduler, id(frame), id(cells)) in _SESSIONS:  # inside backend_session: already scattered
+            yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
+            return
         with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame, cells]):
             yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
         return
@@ -314,6 +328,27 @@ def _plain_arrays(obj) -> None:
     for k, v in list(vars(obj).items()):
         if isinstance(v, np.memmap):
             object.__setattr__(obj, k, v.view(np.ndarray))
+
+
+#: dask sessions open in this process: (scheduler, id(frame), id(cells))
+_SESSIONS: set = set()
+
+
+@contextmanager
+def backend_session(backend: str, scheduler: str | None, frame: Frame, cells: list[Cell]):
+    """Keep one dask client and one scatter of the frame and cells for several dispatches."""
+    if backend != "dask":
+        yield
+        return
+    from joblib import parallel_config
+
+    key = (scheduler, id(frame), id(cells))
+    with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame, cells]):
+        _SESSIONS.add(key)
+        try:
+            yield
+        finally:
+            _SESSIONS.discard(key)
 
 
 def check_backend(backend: str, scheduler: str | None) -> None:
