@@ -130,12 +130,14 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
         verdict = {i: coverage_verdict(c, m, confidence) for i, c, m in zip(s.index, s["coverage"], s["coverage_mcse"])}
         honest = s[[verdict[i] != "low" for i in s.index]]
         if len(honest):
+            costed = bool(np.nanmax(s["mean_cost"].to_numpy(float)) > 0)
             best = honest.loc[honest["rmse"].idxmin()]
             out.append(f"Most precise for the mean {var} among designs whose intervals keep their promise: "
-                       f"{lab[best.name]}, margin of error {num(best.moe)} at an average cost of "
-                       f"{money(best.mean_cost)} (design effect {num(best.deff, 3)}).")
+                       f"{lab[best.name]}, margin of error {num(best.moe)}"
+                       + (f" at an average cost of {money(best.mean_cost)}" if costed else "")
+                       + f" (design effect {num(best.deff, 3)}).")
             cheap = honest.loc[honest["mean_cost"].idxmin()]
-            if cheap.name != best.name:
+            if costed and cheap.name != best.name and cheap.mean_cost < best.mean_cost:
                 out.append(f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost)}, "
                            f"margin of error {num(cheap.moe)}.")
         else:
