@@ -360,3 +360,18 @@ def test_loky_workers_give_the_same_numbers(monkeypatch):
     monkeypatch.setattr(multiprocessing, "get_all_start_methods", lambda: ["spawn"])
     spawned = run(sc, jobs=2)
     pd.testing.assert_frame_equal(local.replicates, spawned.replicates)
+
+
+@pytest.mark.parametrize("with_cost", [False, True])
+def test_gather_equals_plain_indexing(with_cost):
+    """Frame.gather (one-column or padded-row path) gives exactly numpy's values[units]."""
+    from samplewright import Frame
+
+    rng = np.random.default_rng(3)
+    df = pd.DataFrame({"y": rng.normal(size=5000), "band": rng.integers(0, 4, 5000), "fee": rng.random(5000)})
+    f = Frame.from_dataframe(df, target="y", stratum="band", unit_cost="fee" if with_cost else None)
+    assert (f.column is None) == with_cost  # a unit cost column varies: the padded-row path
+    units = rng.integers(0, 5000, (7, 30, 2))
+    got = f.gather(units)
+    assert got.shape == units.shape + (f.values.shape[1],)
+    np.testing.assert_array_equal(got, f.values[units])

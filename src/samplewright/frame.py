@@ -36,6 +36,14 @@ def _codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
     return codes.astype(np.int64), tuple(labels.tolist())
 
 
+def _constant_columns(values: np.ndarray) -> dict[int, float]:
+    """Columns of ``values`` that hold one value throughout (the ones column; a cost column of zeros)."""
+    if values.shape[0] == 0:
+        return {}
+    first = values[0]
+    return {j: float(first[j]) for j in range(values.shape[1]) if np.all(values[:, j] == first[j])}
+
+
 def _padded_rows(values: np.ndarray) -> np.ndarray:
     """``values`` with zero columns appended up to 2, 4 or 8 columns (unchanged if wider)."""
     k = values.shape[1]
@@ -93,7 +101,9 @@ class Frame:
     # derived, filled in __post_init__
     values: np.ndarray = field(init=False, repr=False)
     layout: Layout = field(init=False, repr=False)  # positions of the extra value columns
-    rows: np.ndarray = field(init=False, repr=False)  # values padded to a fast row width (see gather)
+    rows: np.ndarray | None = field(init=False, repr=False)  # values padded to a fast row width (see gather)
+    column: np.ndarray | None = field(init=False, repr=False)  # the one varying column, contiguous (see gather)
+    constants: dict = field(init=False, repr=False)  # column -> its single value
     strata_units: np.ndarray = field(init=False, repr=False)
     strata_offsets: np.ndarray = field(init=False, repr=False)
     cluster_units: np.ndarray | None = field(init=False, repr=False, default=None)
@@ -114,7 +124,15 @@ class Frame:
         object.__setattr__(self, "layout", layout)
         values = np.column_stack([y, extra, np.ones(n), cost])
         object.__setattr__(self, "values", values)
-        object.__setattr__(self, "rows", _padded_rows(values))
+        constants = _constant_columns(values)
+        varying = [j for j in range(values.shape[1]) if j not in constants]
+        object.__setattr__(self, "constants", constants)
+        if len(varying) == 1:  # one study variable, no unit cost: gather one column, fill the rest
+            object.__setattr__(self, "column", np.ascontiguousarray(values[:, varying[0]]))
+            object.__setattr__(self, "rows", None)
+        else:
+            object.__setattr__(self, "column", None)
+            object.__setattr__(self, "rows", _padded_rows(values))
         if self.order is None:
             object.__setattr__(self, "order", np.arange(n, dtype=np.int64))
         su, so = _group_index(self.stratum, self.H)
@@ -135,12 +153,23 @@ class Frame:
     def gather(self, units: np.ndarray) -> np.ndarray:
         """Rows of ``values`` for an integer array of unit indices, shape ``units.shape + (K,)``.
 
-        The same numbers as ``values[units]``, several times faster: the rows are copied from
-        a table padded to 16, 32 or 64 bytes, a width numpy copies without a per-row memmove.
-        The result may be a strided view of the padded copy.
+        The same numbers as ``values[units]``, several times faster.  When all columns but
+        one are constant (a single study variable and no unit cost), only that column is
+        gathered and the constant columns are filled in, each as one contiguous run: the
+        result is then a view, column by column in memory, of shape ``units.shape + (K,)``.
+        Otherwise the rows are copied from a table padded to 16, 32 or 64 bytes, a width
+        numpy copies without a per-row memmove (the result may be a strided view of it).
         """
-        out = np.take(self.rows, units, axis=0)
         k = self.values.shape[1]
+        if self.column is not None:
+            out = np.empty((k,) + np.shape(units))
+            for j in range(k):
+                if j in self.constants:
+                    out[j].fill(self.constants[j])
+                else:
+                    out[j] = np.take(self.column, units)
+            return np.moveaxis(out, 0, -1)
+        out = np.take(self.rows, units, axis=0)
         return out if out.shape[-1] == k else out[..., :k]
 
     # ----------------------------------------------------------------- sizes
