@@ -37,7 +37,7 @@ def _json(capsys, argv):
 
 
 def test_json_report_flags_the_planted_period(cyclic_csv, capsys):
-    path, df = cyclic_csv
+    path, _ = cyclic_csv
     rep = _json(capsys, ["inspect", str(path), "--target", "count", "--order", "hour", "--json"])
     assert {"periods", "unsafe_intervals", "units", "missing", "strata", "clusters", "autocorrelation"} <= set(rep)
     assert rep["units"] == 2399 and rep["rows_dropped"] == 1 and rep["missing"] == {"count": 1}
@@ -72,7 +72,7 @@ def test_strata_and_clusters_match_pandas(cyclic_csv, capsys):
     c = rep["clusters"]
     assert c["clusters"] == 100 and c["size_min"] == sizes.min() and c["size_max"] == sizes.max()
     # ANOVA ICC by hand: (MSB - MSW) / (MSB + (m0 - 1) MSW), m0 = (N - sum M^2 / N) / (C - 1)
-    y, cl = d["count"].to_numpy(), d["day"].to_numpy()
+    y = d["count"].to_numpy()
     M = sizes.to_numpy(dtype=float)
     means = d.groupby("day")["count"].mean().to_numpy()
     N, C = len(y), len(M)

@@ -12,12 +12,19 @@ import math
 
 import numpy as np
 import pytest
+from conftest import Z
 
 from samplewright import scenario_from_dict
-from samplewright.periodicity import (FALSE_ALARM, Period, detect_periods, fisher_g_pvalue, frame_order_report,
-                                      interval_risks, unsafe_intervals)
+from samplewright.periodicity import (
+    FALSE_ALARM,
+    Period,
+    detect_periods,
+    fisher_g_pvalue,
+    frame_order_report,
+    interval_risks,
+    unsafe_intervals,
+)
 from samplewright.runner import run
-from conftest import Z
 
 
 # ------------------------------------------------------------------ Fisher's g

@@ -16,6 +16,7 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 from scipy import stats
 
 from samplewright import Frame
@@ -26,7 +27,6 @@ from samplewright.engine import Cell, replicate_table, simulate
 from samplewright.errors import InputError
 from samplewright.estimators import hajek, horvitz_thompson
 from samplewright.scenario import scenario_from_dict
-from conftest import Z
 
 CONF = 0.95
 R = 20_000
@@ -142,7 +142,7 @@ def test_multiple_starts_match_enumeration_of_start_pairs(periodic_frame):
     Between-start variance of the mean: sum_s (ybar_s - ybar)^2 / (r (r - 1)) with r - 1 df
     (Wolter, Introduction to Variance Estimation, ch. 2, random groups, from memory)."""
     frame, y = periodic_frame
-    N, n, r = 24, 4, 2
+    n, r = 4, 2  # N = 24
     K, m = 12, 2
     samples = []
     for s1, s2 in itertools.product(range(K), repeat=2):

@@ -343,7 +343,7 @@ def unsafe_intervals(periods, N: int, k_max: int | None = None) -> list[int]:
 
 
 # ---------------------------------------------------------------- frames
-_CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+_CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
 
 def frame_order_report(frame, variable: int = 0, sort_by: str | None = None,

@@ -87,7 +87,7 @@ def format_report(rep: dict) -> str:
         out.append(f"strata ({len(rep['strata'])}):")
         out.append(f"  {'stratum':<16} {'N_h':>8} {'mean':>12} {'S_h':>12}")
         for s in rep["strata"]:
-            out.append(f"  {str(s['stratum']):<16} {s['units']:>8d} {s['mean']:>12.4g} {s['sd']:>12.4g}")
+            out.append(f"  {s['stratum']!s:<16} {s['units']:>8d} {s['mean']:>12.4g} {s['sd']:>12.4g}")
     c = rep["clusters"]
     if c:
         out.append("")
