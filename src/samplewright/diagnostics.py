@@ -56,18 +56,23 @@ def cluster_summary(frame, variable: int = 0) -> dict | None:
             "size_max": float(q[4]), "icc": float(icc)}
 
 
+#: unsafe intervals whose reasons the report spells out
+DETAIL = 200
+
+
 def order_summary(frame, variable: int = 0, alpha: float | None = None, k_max: int | None = None) -> dict:
     """Periods of one target along the list order and the unsafe systematic intervals.
 
     ``periods`` is strongest first; ``unsafe_intervals`` lists the whole intervals 2 .. k_max
-    (default N // 2) the rule of :func:`samplewright.periodicity.interval_risks` flags, and
-    ``unsafe_detail`` gives the reason for each (interval, period, kind, drift, variance ratio).
+    (default min(N // 2, 5000)) the rule of :func:`samplewright.periodicity.interval_risks`
+    flags, and ``unsafe_detail`` gives the reason for the first :data:`DETAIL` of them
+    (interval, period, kind, drift, variance ratio).
     """
     from . import periodicity as P
 
     rep = P.frame_order_report(frame, variable, alpha=P.FALSE_ALARM if alpha is None else alpha)
     unsafe = P.unsafe_intervals(rep.periods, frame.N, k_max)
-    detail = [r for k in unsafe for r in P.interval_risks(k, frame.N, rep.periods)]
+    detail = [r for k in unsafe[:DETAIL] for r in P.interval_risks(k, frame.N, rep.periods)]
     return {
         "method": rep.method,
         "false_alarm_rate": rep.alpha,

@@ -290,13 +290,32 @@ def _label_harmonics(periods: list[Period], N: int) -> list[Period]:
 
 
 # ---------------------------------------------------------------- unsafe intervals
-def aliasing_factor(delta: float, n: int) -> float:
+def aliasing_factor(delta, n):
     """|sin(pi n delta) / (n sin(pi delta))|: how much of a cycle survives in the mean of n units
-    whose phases step by ``delta`` cycles (the Dirichlet kernel; 1 when they all share a phase)."""
-    d = abs(float(delta))
-    if d < 1e-12:
-        return 1.0
-    return float(abs(np.sin(np.pi * n * d) / (n * np.sin(np.pi * d))))
+    whose phases step by ``delta`` cycles (the Dirichlet kernel; 1 when they all share a phase).
+    Works elementwise on arrays."""
+    d = np.abs(np.asarray(delta, dtype=float))
+    n = np.asarray(n, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        D = np.abs(np.sin(np.pi * n * d) / (n * np.sin(np.pi * d)))
+    D = np.where(d < 1e-12, 1.0, D)
+    return float(D) if D.ndim == 0 else D
+
+
+def _ratios(k: np.ndarray, N: int, p: Period):
+    """For intervals ``k`` and one period: sample sizes, the in-phase multiple a and its variance
+    ratio s n D^2 / (1 - f), and for b = 2..MAX_PHASES the "b phases" ratios (module notes)."""
+    n = np.maximum(1.0, np.round(N / k))
+    scale = p.strength * n / (1.0 - np.minimum(n / N, 0.999999))
+    x = k / p.period
+    a = np.round(x)
+    inphase = np.where(a >= 1, scale * aliasing_factor(x - a, n) ** 2, 0.0)
+    phases = {}
+    if p.harmonic_of is None:
+        for b in range(2, MAX_PHASES + 1):
+            d = b * x - 1.0
+            phases[b] = (np.where(np.abs(d) < 0.5, scale * aliasing_factor(d, n) ** 2, 0.0), d)
+    return n, x, a, inphase, phases
 
 
 def interval_risks(k: float, N: int, periods) -> list[dict]:
@@ -309,37 +328,36 @@ def interval_risks(k: float, N: int, periods) -> list[dict]:
     k = float(k)
     if k < 1.0:
         return []
-    n = max(1, int(round(N / k)))
-    f = min(n / N, 0.999999)
     out = []
     for p in periods:
-        x = k / p.period
-        a = int(round(x))
-        if a >= 1:
-            D = aliasing_factor(x - a, n)
-            ratio = p.strength * n * D * D / (1.0 - f)
-            if ratio >= MATERIAL:
-                out.append({"interval": k, "period": p.period, "kind": "in phase", "multiple": a, "phases": 1,
-                            "drift": n * abs(x - a), "variance_ratio": ratio})
-                continue
-        if p.harmonic_of is not None:
+        n, x, a, inphase, phases = _ratios(np.array([k]), N, p)
+        if inphase[0] >= MATERIAL:
+            out.append({"interval": k, "period": p.period, "kind": "in phase", "multiple": int(a[0]), "phases": 1,
+                        "drift": float(n[0] * abs(x[0] - a[0])), "variance_ratio": float(inphase[0])})
             continue
-        for b in range(2, MAX_PHASES + 1):
-            if abs(b * x - 1.0) >= 0.5:
-                continue
-            D = aliasing_factor(b * x - 1.0, n)
-            ratio = p.strength * n * D * D / (1.0 - f)
-            if ratio >= MATERIAL:
+        for b, (ratio, d) in phases.items():
+            if ratio[0] >= MATERIAL:
                 out.append({"interval": k, "period": p.period, "kind": f"{b} phases", "multiple": None,
-                            "phases": b, "drift": n * abs(b * x - 1.0), "variance_ratio": ratio})
+                            "phases": b, "drift": float(n[0] * abs(d[0])), "variance_ratio": float(ratio[0])})
                 break
     return out
 
 
+#: whole intervals checked by default: 2 .. min(N // 2, MAX_INTERVAL)
+MAX_INTERVAL = 5000
+
+
 def unsafe_intervals(periods, N: int, k_max: int | None = None) -> list[int]:
-    """Whole intervals 2 .. k_max (default N // 2) that :func:`interval_risks` flags."""
-    k_max = N // 2 if k_max is None else int(k_max)
-    return [k for k in range(2, k_max + 1) if interval_risks(k, N, periods)]
+    """Whole intervals 2 .. k_max (default min(N // 2, MAX_INTERVAL)) that :func:`interval_risks` flags."""
+    k_max = min(N // 2, MAX_INTERVAL) if k_max is None else int(k_max)
+    k = np.arange(2, k_max + 1, dtype=float)
+    bad = np.zeros(k.shape, dtype=bool)
+    for p in periods:
+        _, _, _, inphase, phases = _ratios(k, N, p)
+        bad |= inphase >= MATERIAL
+        for ratio, _ in phases.values():
+            bad |= ratio >= MATERIAL
+    return k[bad].astype(int).tolist()
 
 
 # ---------------------------------------------------------------- frames

@@ -41,7 +41,7 @@ def add_arguments(p) -> None:
     p.add_argument("--false-alarm", type=_rate, default=None,
                    help="chance of reporting a period on a list with no cycle (default 0.01)")
     p.add_argument("--max-interval", type=whole_number(2), default=None,
-                   help="largest interval k checked for safety (default N / 2)")
+                   help="largest interval k checked for safety (default N / 2, at most 5000)")
     p.add_argument("--debug", action="store_true", help="show a traceback on unexpected failures")
 
 
