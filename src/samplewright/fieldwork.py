@@ -154,7 +154,8 @@ def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.S
     the counts per replicate (B,).
     """
     units, valid = psu_units(sample, frame)
-    e = valid & fw.eligible[units]
+    all_eligible = bool(fw.eligible.all())
+    e = valid if all_eligible else valid & fw.eligible[units]
     if fw.propensity is None:
         r = e
     else:
@@ -162,10 +163,12 @@ def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.S
         r = e & fw.propensity.respond(rng, units)
     B, m = sample.sums.shape[:2]
     w = np.broadcast_to(np.broadcast_to(sample.weight, (B, m))[..., None], units.shape)
-    y = frame.values[units][..., : frame.values.shape[1] - 2]  # every value column but count and cost
+    gather = getattr(frame, "gather", None)  # the padded-row gather where the frame has it
+    rows = gather(units) if gather is not None else frame.values[units]
+    y = rows[..., : frame.values.shape[1] - 2]  # every value column but count and cost
     positions = np.ones((B, m), dtype=bool) if sample.mask is None else sample.mask
     u, cnt, failed = fw.adjustment.apply(units, w, y, e, r, positions)
-    if fw.adjustment.method in ("none", "class") and fw.eligible.all():
+    if fw.adjustment.method in ("none", "class") and all_eligible:
         full = sample  # with every unit eligible and responding these adjustments change nothing
     else:
         uf, cntf, _ = fw.adjustment.apply(units, w, y, e, e, positions)

@@ -183,21 +183,29 @@ def rake(weights: np.ndarray, codes, controls, tol: float = TOLERANCE, max_iter:
     iterations = np.zeros(B, dtype=np.int64)
     converged = np.zeros(B, dtype=bool)
     controls = [np.asarray(c, dtype=float) for c in controls]
+    # a category with a control but no weight can never be met: the others are raked, and the
+    # replicate is reported as not converged
+    feasible = [(group_sums(c, g, len(N)) > 0) | (N == 0) for c, N in zip(codes, controls)]
+    stuck = np.zeros(B, dtype=bool)
+    for ok in feasible:
+        stuck |= ~ok.all(axis=1)
+    met = np.zeros(B, dtype=bool)
     for it in range(1, max_iter + 1):
-        active = ~converged
         for c, N in zip(codes, controls):
             tot = group_sums(c, g, len(N))
             f = np.where(tot > 0, N / np.where(tot > 0, tot, 1.0), 1.0)
-            f[converged] = 1.0
+            f[met] = 1.0
             g *= _pick(f, c)
-        iterations[active] = it
+        iterations[~met] = it
         worst = np.zeros(B)
-        for c, N in zip(codes, controls):
+        for c, N, ok in zip(codes, controls, feasible):
             tot = group_sums(c, g, len(N))
-            worst = np.maximum(worst, (np.abs(tot - N) / np.where(N > 0, N, 1.0)).max(axis=1))
-        converged |= worst < tol
-        if converged.all():
+            gap = np.where(ok, np.abs(tot - N) / np.where(N > 0, N, 1.0), 0.0)
+            worst = np.maximum(worst, gap.max(axis=1))
+        met |= worst < tol
+        if met.all():
             break
+    converged = met & ~stuck
     return g, iterations, converged
 
 
