@@ -14,12 +14,11 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 
 from samplewright import Frame
 from samplewright.allocation import RULES
 from samplewright.designs import METHODS
-
-from conftest import Z
 
 R = 6000
 

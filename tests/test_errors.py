@@ -101,7 +101,7 @@ def run_refused(tmp_path, capsys, *needles, extra=(), **kw) -> str:
 
 def run_ok(tmp_path, capsys, extra=(), **kw):
     sc = setup(tmp_path, **kw)
-    code, out, err = cli(["run", sc, "--out", tmp_path / "out", "--quiet", *extra], capsys)
+    code, _, err = cli(["run", sc, "--out", tmp_path / "out", "--quiet", *extra], capsys)
     assert code == 0, err
     assert "Traceback" not in err
     return json.loads((tmp_path / "out" / "run.json").read_text()), err

@@ -15,6 +15,7 @@ import contextlib
 import datetime as dt
 import io
 import json
+import math
 import re
 import tempfile
 from pathlib import Path
@@ -27,7 +28,8 @@ from hypothesis import strategies as st
 from samplewright.cli import main
 from samplewright.designs import METHODS
 from samplewright.scenario import COST_KEYS, DESIGN_COMMON, FRAME_KEYS, TOP_KEYS
-from samplewright.synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS
+from samplewright.synth import CLUSTER_KEYS, STRATUM_KEYS
+from samplewright.synth import KEYS as SYNTH_KEYS
 
 FUZZ = settings(max_examples=60, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
@@ -53,7 +55,7 @@ def _value(v) -> str:
     if isinstance(v, int):
         return str(v)
     if isinstance(v, float):
-        if v != v:
+        if math.isnan(v):
             return "nan"
         if v in (float("inf"), float("-inf")):
             return "inf" if v > 0 else "-inf"

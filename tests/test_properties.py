@@ -27,17 +27,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
+from test_fuzz_scenario import to_toml
 
 from samplewright import Frame
 from samplewright.allocation import RULES
 from samplewright.designs import METHODS
 from samplewright.errors import InputError
 from samplewright.estimators import sample_units
-
-from conftest import Z
-from test_fuzz_scenario import to_toml
 
 PROPS = settings(max_examples=60, deadline=None, derandomize=True, database=None,
                  suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])

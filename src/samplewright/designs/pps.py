@@ -230,6 +230,9 @@ class Sampford(_SizeDesign):
         if "pij" not in s:
             M = s["free"].size
             pij = np.zeros((M, M))
+            if s["n_free"] == 0:  # every unit is a certainty unit: no random part, no joint terms
+                s["pij"] = pij
+                return pij
             logw = self._log_weights(frame)
             for rows in combination_chunks(M, s["n_free"], 50_000):
                 p = np.exp(logw(rows))
