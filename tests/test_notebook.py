@@ -19,16 +19,23 @@ def test_notebook_runs_top_to_bottom(tmp_path, monkeypatch):
     # whatever other kernels the machine has (a fresh CI machine may have none)
     spec = tmp_path / "jupyter" / "kernels" / "samplewright-test"
     spec.mkdir(parents=True)
-    (spec / "kernel.json").write_text(json.dumps({
-        "argv": [sys.executable, "-m", "ipykernel_launcher", "-f", "{connection_file}"],
-        "display_name": "samplewright test", "language": "python"}))
+    (spec / "kernel.json").write_text(
+        json.dumps(
+            {
+                "argv": [sys.executable, "-m", "ipykernel_launcher", "-f", "{connection_file}"],
+                "display_name": "samplewright test",
+                "language": "python",
+            }
+        )
+    )
     monkeypatch.setenv("JUPYTER_PATH", str(tmp_path / "jupyter"))
     monkeypatch.setenv("SAMPLEWRIGHT_NOTEBOOK_REPLICATES", "200")
     monkeypatch.setenv("SAMPLEWRIGHT_NOTEBOOK_OUT", str(tmp_path))
     monkeypatch.setenv("PYDEVD_DISABLE_FILE_VALIDATION", "1")
     nb = nbformat.read(NOTEBOOK, as_version=4)
-    client = nbclient.NotebookClient(nb, timeout=600, kernel_name="samplewright-test",
-                                     resources={"metadata": {"path": str(tmp_path)}})
+    client = nbclient.NotebookClient(
+        nb, timeout=600, kernel_name="samplewright-test", resources={"metadata": {"path": str(tmp_path)}}
+    )
     client.execute()  # raises CellExecutionError on the first failing cell
     outputs = [o for c in nb.cells if c.cell_type == "code" for o in c.get("outputs", [])]
     assert not [o for o in outputs if o.get("output_type") == "error"]
@@ -37,7 +44,14 @@ def test_notebook_runs_top_to_bottom(tmp_path, monkeypatch):
     text = "".join(o.get("text", "") for o in outputs if o.get("output_type") == "stream")
     assert "200 replicates per design and size" in text
     results = tmp_path / "results"
-    for name in ("summary.csv", "replicates.parquet", "frontier.csv", "recommendation.json", "run.json",
-                 "report.html", "brief.md"):
+    for name in (
+        "summary.csv",
+        "replicates.parquet",
+        "frontier.csv",
+        "recommendation.json",
+        "run.json",
+        "report.html",
+        "brief.md",
+    ):
         assert (results / name).exists(), name
     assert json.loads((results / "run.json").read_text())["replicates"] == 200

@@ -50,7 +50,9 @@ def test_clock():
 
 
 def test_quiet_run_prints_nothing(tmp_path, capsys):
-    assert cli.main(["demo", "--out", str(tmp_path / "q"), "--replicates", "50", "--quiet", "--no-report"]) == 0
+    assert (
+        cli.main(["demo", "--out", str(tmp_path / "q"), "--replicates", "50", "--quiet", "--no-report"]) == 0
+    )
     out, err = capsys.readouterr()
     assert out == ""
     assert " left | " not in err  # no bar (warnings may still be printed)
@@ -59,6 +61,9 @@ def test_quiet_run_prints_nothing(tmp_path, capsys):
 def test_verbose_logs_each_step_including_the_report(tmp_path, capsys):
     assert cli.main(["demo", "--out", str(tmp_path / "v"), "--replicates", "50", "--verbose"]) == 0
     err = capsys.readouterr().err
-    for step in ("samplewright: loading the frame", "samplewright: drawing figure coverage",
-                 "samplewright: writing report.html and brief.md"):
+    for step in (
+        "samplewright: loading the frame",
+        "samplewright: drawing figure coverage",
+        "samplewright: writing report.html and brief.md",
+    ):
         assert step in err, step

@@ -24,21 +24,38 @@ from samplewright import cli
 from samplewright.report import figures as F
 from samplewright.report.findings import coverage_verdict, with_mcse
 
-EXPECTED_FIGURES = {"sampling_distribution", "bias", "coverage", "se_check", "intervals", "cost_precision",
-                    "allocation"}
+EXPECTED_FIGURES = {
+    "sampling_distribution",
+    "bias",
+    "coverage",
+    "se_check",
+    "intervals",
+    "cost_precision",
+    "allocation",
+}
 SECTIONS = {"scenario", "recommendation", "summary", "figures", "warnings", "metadata", "cautions"}
 
 SCENARIO = {
     "title": "Depot tyre-wear audit (test)",
     "seed": 99,
     "replicates": 300,
-    "frame": {"synthetic": {
-        "units": 3000, "seed": 5, "target": "wear", "order": "grouped", "skew": "gamma", "skewness": 0.8,
-        "strata": [{"name": "north", "share": 0.5, "mean": 40, "sd": 8},
-                   {"name": "south", "share": 0.3, "mean": 55, "sd": 15},
-                   {"name": "hills", "share": 0.2, "mean": 70, "sd": 25}],
-        "clusters": {"mean_size": 30, "icc": 0.2}},
-        "target": "wear"},
+    "frame": {
+        "synthetic": {
+            "units": 3000,
+            "seed": 5,
+            "target": "wear",
+            "order": "grouped",
+            "skew": "gamma",
+            "skewness": 0.8,
+            "strata": [
+                {"name": "north", "share": 0.5, "mean": 40, "sd": 8},
+                {"name": "south", "share": 0.3, "mean": 55, "sd": 15},
+                {"name": "hills", "share": 0.2, "mean": 70, "sd": 25},
+            ],
+            "clusters": {"mean_size": 30, "icc": 0.2},
+        },
+        "target": "wear",
+    },
     "design": [
         {"label": "simple random", "method": "srs", "n": [60, 120]},
         {"label": "by depot region", "method": "stratified", "n": 120, "allocation": "neyman"},
@@ -124,7 +141,9 @@ def test_one_colour_per_design_in_every_figure(run_dir):
     for name in ("bias", "coverage", "se_check"):
         fig = res.figure(name)
         used = {to_hex(c).upper() for ax in fig.axes for line in ax.get_lines() for c in [line.get_color()]}
-        used |= {to_hex(c).upper() for ax in fig.axes for coll in ax.collections for c in coll.get_edgecolor()}
+        used |= {
+            to_hex(c).upper() for ax in fig.axes for coll in ax.collections for c in coll.get_edgecolor()
+        }
         for d, c in colours.items():
             assert c.upper() in used, f"{d}'s colour {c} missing from {name}"
 
@@ -183,7 +202,9 @@ def test_brief_tells_the_story_on_one_page(run_dir):
     brief = (out / "brief.md").read_text(encoding="utf-8")
     assert brief.startswith("<!-- samplewright")
     assert "# Depot tyre-wear audit (test)" in brief
-    table = [ln for ln in brief.splitlines() if ln.startswith("| ") and not ln.startswith(("| Design", "| ---"))]
+    table = [
+        ln for ln in brief.splitlines() if ln.startswith("| ") and not ln.startswith(("| Design", "| ---"))
+    ]
     cells = res.summary[["design", "size"]].drop_duplicates()
     assert len(table) == len(cells)
     assert "--seed 99 --replicates 300" not in brief  # a scenario built in Python has no file to re-run
@@ -243,8 +264,10 @@ def test_report_without_the_replicate_table(run_dir, tmp_path):
     page = samplewright.write_report(samplewright.read_run(d), d)
     text = page.read_text(encoding="utf-8")
     assert "replicates.parquet is missing" in text
-    assert {p.stem for p in (d / "figures").glob("*.png")} == EXPECTED_FIGURES - {"sampling_distribution",
-                                                                                  "intervals"}
+    assert {p.stem for p in (d / "figures").glob("*.png")} == EXPECTED_FIGURES - {
+        "sampling_distribution",
+        "intervals",
+    }
 
 
 def test_recommendation_and_goals_are_shown_when_the_run_has_them(run_dir):
@@ -257,7 +280,7 @@ def test_recommendation_and_goals_are_shown_when_the_run_has_them(run_dir):
     assert escape(rec["statement"]) in text
     for key in ("cheapest_meeting_moe", "best_within_budget"):
         if rec[key] is not None:
-            assert f"<td>{escape(rec[key]['design'])}</td><td class=\"num\">{rec[key]['size']}</td>" in text
+            assert f'<td>{escape(rec[key]["design"])}</td><td class="num">{rec[key]["size"]}</td>' in text
     assert f"why it was passed over ({len(rec['passed_over'])})" in text
     under = {p["design"] for p in rec["passed_over"] if "under-cover" in p["reason"]}
     for d in under:
@@ -288,14 +311,24 @@ def test_numbers_are_rounded_to_their_monte_carlo_error():
 
 def test_two_study_variables_get_their_own_figures(tmp_path):
     rng = np.random.default_rng(3)
-    df = pd.DataFrame({"weight": rng.gamma(4.0, 2.0, 600), "length": rng.normal(30, 4, 600),
-                       "pen": np.repeat(["a", "b", "c"], 200)})
+    df = pd.DataFrame(
+        {
+            "weight": rng.gamma(4.0, 2.0, 600),
+            "length": rng.normal(30, 4, 600),
+            "pen": np.repeat(["a", "b", "c"], 200),
+        }
+    )
     df.to_csv(tmp_path / "frame.csv", index=False)
-    sc = samplewright.scenario_from_dict({
-        "frame": {"path": "frame.csv", "target": ["weight", "length"], "stratum": "pen"},
-        "design": [{"label": "srs", "method": "srs", "n": 40},
-                   {"label": "by pen", "method": "stratified", "n": 40, "allocation": "proportional"}],
-    }, base=tmp_path)
+    sc = samplewright.scenario_from_dict(
+        {
+            "frame": {"path": "frame.csv", "target": ["weight", "length"], "stratum": "pen"},
+            "design": [
+                {"label": "srs", "method": "srs", "n": 40},
+                {"label": "by pen", "method": "stratified", "n": 40, "allocation": "proportional"},
+            ],
+        },
+        base=tmp_path,
+    )
     res = samplewright.run(sc, replicates=100, seed=4)
     d = res.write(tmp_path / "out", report=True)
     stems = {p.stem for p in (d / "figures").glob("*.png")}
@@ -309,12 +342,26 @@ def test_two_study_variables_get_their_own_figures(tmp_path):
 
 def test_a_cycle_along_the_list_gets_its_figure(tmp_path):
     # invented hourly counts with a 24-hour cycle; k = 2400 / 100 = 24 lands on one phase
-    sc = samplewright.scenario_from_dict({
-        "frame": {"synthetic": {"units": 2400, "seed": 2, "target": "walkers", "mean": 100, "sd": 10,
-                                "period": 24, "amplitude": 40}, "target": "walkers"},
-        "design": [{"label": "srs", "method": "srs", "n": 100},
-                   {"label": "every 24th hour", "method": "systematic", "n": 100}],
-    })
+    sc = samplewright.scenario_from_dict(
+        {
+            "frame": {
+                "synthetic": {
+                    "units": 2400,
+                    "seed": 2,
+                    "target": "walkers",
+                    "mean": 100,
+                    "sd": 10,
+                    "period": 24,
+                    "amplitude": 40,
+                },
+                "target": "walkers",
+            },
+            "design": [
+                {"label": "srs", "method": "srs", "n": 100},
+                {"label": "every 24th hour", "method": "systematic", "n": 100},
+            ],
+        }
+    )
     res = samplewright.run(sc, replicates=100, seed=1)
     entry = res.info["frame_order"][0]
     assert abs(entry["periods"][0]["period"] - 24) < 0.5 and 24 in entry["unsafe_intervals"]
@@ -330,14 +377,16 @@ def test_a_cycle_along_the_list_gets_its_figure(tmp_path):
     w, h = png_size((d / "figures" / "frame_order.png").read_bytes())
     assert w == 975 and h > 300
     # a run without a systematic design keeps no frame-order table
-    plain = samplewright.run(samplewright.scenario_from_dict({**sc.raw, "design": sc.raw["design"][:1]}),
-                             replicates=50, seed=1)
+    plain = samplewright.run(
+        samplewright.scenario_from_dict({**sc.raw, "design": sc.raw["design"][:1]}), replicates=50, seed=1
+    )
     assert plain.frame_order is None and "frame_order" not in plain.figure_names()
 
 
 def test_figure_names_are_checked():
-    res = samplewright.RunResult(summary=pd.DataFrame(), replicates=pd.DataFrame(), allocation=pd.DataFrame(),
-                                 info={})
+    res = samplewright.RunResult(
+        summary=pd.DataFrame(), replicates=pd.DataFrame(), allocation=pd.DataFrame(), info={}
+    )
     with pytest.raises(KeyError, match="did you mean 'coverage'"):
         res.figure("coverag")
 
@@ -348,15 +397,27 @@ def test_run_and_demo_write_the_report_and_no_report_skips_it(tmp_path, capsys):
     page = (tmp_path / "demo" / "report.html").resolve()
     assert out[-1] == f"report: {page}" and page.exists()
     assert (tmp_path / "demo" / "brief.md").exists()
-    assert cli.main(["demo", "--out", str(tmp_path / "bare"), "--replicates", "100", "--no-report", "--quiet"]) == 0
+    assert (
+        cli.main(["demo", "--out", str(tmp_path / "bare"), "--replicates", "100", "--no-report", "--quiet"])
+        == 0
+    )
     assert not (tmp_path / "bare" / "report.html").exists()
     assert not (tmp_path / "bare" / "figures").exists()
     assert json.loads((tmp_path / "bare" / "run.json").read_text())["replicates"] == 100
 
 
 def test_public_api_surface():
-    for name in ("load_scenario", "run", "scenario_from_dict", "RunResult", "read_run", "write_report", "Frame",
-                 "InputError", "__version__"):
+    for name in (
+        "load_scenario",
+        "run",
+        "scenario_from_dict",
+        "RunResult",
+        "read_run",
+        "write_report",
+        "Frame",
+        "InputError",
+        "__version__",
+    ):
         assert name in samplewright.__all__
         assert getattr(samplewright, name) is not None
     with pytest.raises(AttributeError):

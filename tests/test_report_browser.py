@@ -18,20 +18,35 @@ import samplewright
 
 pytestmark = pytest.mark.browser
 
-CHROMIUM = next((shutil.which(n) for n in ("chromium", "chromium-browser", "google-chrome") if shutil.which(n)),
-                None)
+CHROMIUM = next(
+    (shutil.which(n) for n in ("chromium", "chromium-browser", "google-chrome") if shutil.which(n)), None
+)
 DRIVER = shutil.which("chromedriver")
-FLAGS = ["--headless=new", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-         "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         "--disable-dev-shm-usage", "--window-size=1200,1600", "--hide-scrollbars"]
+FLAGS = [
+    "--headless=new",
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-quic",
+    "--no-first-run",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--disable-dev-shm-usage",
+    "--window-size=1200,1600",
+    "--hide-scrollbars",
+]
 
 
 @pytest.fixture(scope="module")
 def browser(tmp_path_factory):
     if CHROMIUM is None or DRIVER is None:
-        pytest.skip("no headless browser here: install the Debian packages chromium and chromium-driver "
-                    "(.ci/run does) to run the report's browser test")
-    webdriver = pytest.importorskip("selenium.webdriver", reason="selenium is not installed (pip install -e '.[test]')")
+        pytest.skip(
+            "no headless browser here: install the Debian packages chromium and chromium-driver "
+            "(.ci/run does) to run the report's browser test"
+        )
+    webdriver = pytest.importorskip(
+        "selenium.webdriver", reason="selenium is not installed (pip install -e '.[test]')"
+    )
     from selenium.webdriver.chrome.service import Service
 
     os.environ.setdefault("SE_AVOID_STATS", "true")
@@ -55,18 +70,32 @@ def _open(driver, path: Path):
 
 @pytest.fixture(scope="module")
 def report(tmp_path_factory):
-    sc = samplewright.scenario_from_dict({
-        "title": "Harbour crane inspection audit (browser test)",
-        "frame": {"synthetic": {"units": 2000, "seed": 8, "target": "defects", "skew": "gamma",
-                                "strata": [{"name": "east quay", "share": 0.6, "mean": 12, "sd": 3},
-                                           {"name": "west quay", "share": 0.4, "mean": 20, "sd": 6}],
-                                "clusters": {"mean_size": 25, "icc": 0.1}}, "target": "defects"},
-        "design": [{"label": "simple random", "method": "srs", "n": [50, 100]},
-                   {"label": "by quay", "method": "stratified", "n": 100, "allocation": "neyman"},
-                   {"label": "whole cranes", "method": "cluster", "clusters": 4}],
-        "goal": {"moe": 1.0, "budget": 2000.0},
-        "cost": {"fixed": 300.0, "per_unit": 5.0, "per_cluster": 80.0},
-    })
+    sc = samplewright.scenario_from_dict(
+        {
+            "title": "Harbour crane inspection audit (browser test)",
+            "frame": {
+                "synthetic": {
+                    "units": 2000,
+                    "seed": 8,
+                    "target": "defects",
+                    "skew": "gamma",
+                    "strata": [
+                        {"name": "east quay", "share": 0.6, "mean": 12, "sd": 3},
+                        {"name": "west quay", "share": 0.4, "mean": 20, "sd": 6},
+                    ],
+                    "clusters": {"mean_size": 25, "icc": 0.1},
+                },
+                "target": "defects",
+            },
+            "design": [
+                {"label": "simple random", "method": "srs", "n": [50, 100]},
+                {"label": "by quay", "method": "stratified", "n": 100, "allocation": "neyman"},
+                {"label": "whole cranes", "method": "cluster", "clusters": 4},
+            ],
+            "goal": {"moe": 1.0, "budget": 2000.0},
+            "cost": {"fixed": 300.0, "per_unit": 5.0, "per_cluster": 80.0},
+        }
+    )
     res = samplewright.run(sc, replicates=200, seed=5)
     return res.write(tmp_path_factory.mktemp("browser") / "run", report=True) / "report.html"
 
@@ -77,7 +106,8 @@ def test_report_renders_offline_without_console_errors(browser, report, tmp_path
     for sid in ("scenario", "recommendation", "summary", "figures", "warnings", "metadata", "cautions"):
         assert browser.execute_script(f"return document.getElementById('{sid}').offsetHeight") > 0, sid
     imgs = browser.execute_script(
-        "return Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])")
+        "return Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])"
+    )
     n_png = len(list((report.parent / "figures").glob("*.png")))
     assert len(imgs) == n_png >= 6
     assert all(ok and w == 975 and h > 300 for ok, w, h in imgs), imgs  # every embedded figure decoded
@@ -99,8 +129,9 @@ def test_the_console_check_sees_a_blocked_request(browser, report, tmp_path):
     # policy blocks it (no network needed) and Chromium logs the refusal as a console error
     page = tmp_path / "with-external.html"
     text = report.read_text(encoding="utf-8")
-    page.write_text(text.replace("</main>", '<img src="https://example.invalid/x.png" alt="x"></main>'),
-                    encoding="utf-8")
+    page.write_text(
+        text.replace("</main>", '<img src="https://example.invalid/x.png" alt="x"></main>'), encoding="utf-8"
+    )
     errors = _open(browser, page)
     assert errors, "a blocked external image should have logged a console error"
     assert any("Content Security Policy" in e.get("message", "") for e in errors), errors

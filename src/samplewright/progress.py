@@ -59,8 +59,8 @@ class Progress:
         """Finish the line (a last redraw, then a newline) when the bar was shown."""
         if self.enabled:
             self.stream.write("\r" + " " * self._width + "\r")
-            self.stream.write(f"{sum(self.done.values()):,} replicates of {len(self.totals)} design(s) done in "
-                              f"{clock(time.monotonic() - self.start)}\n")
+            self.stream.write(f"{sum(self.done.values()):,} replicates of {len(self.totals)} design(s) "
+                              f"done in {clock(time.monotonic() - self.start)}\n")
             self.stream.flush()
 
 

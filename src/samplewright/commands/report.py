@@ -1,4 +1,4 @@
-"""samplewright report DIR: rebuild figures/, report.html and brief.md of a finished run (no re-simulation)."""
+"""samplewright report DIR: rebuild figures/, report.html and brief.md of a finished run (no simulation)."""
 
 from __future__ import annotations
 
@@ -9,8 +9,11 @@ HELP = "rebuild the figures, report.html and brief.md of a finished run folder, 
 def add_arguments(p) -> None:
     p.add_argument("folder", metavar="DIR", help="a finished run folder (holds run.json and summary.csv)")
     p.add_argument("--svg", action="store_true", help="also write every figure as SVG in DIR/figures/")
-    p.add_argument("--force", action="store_true",
-                   help="replace a report.html or brief.md in DIR that samplewright did not write")
+    p.add_argument(
+        "--force",
+        action="store_true",
+        help="replace a report.html or brief.md in DIR that samplewright did not write",
+    )
     p.add_argument("--quiet", action="store_true", help="print nothing on success")
     p.add_argument("--verbose", action="store_true", help="log each step on stderr")
     p.add_argument("--debug", action="store_true", help="show a traceback on unexpected failures")

@@ -51,9 +51,19 @@ ESTIMATOR_NAMES = {"ht": "Horvitz-Thompson", "hajek": "Hajek"}
 MARKERS = ("o", "s", "^", "D", "v", "P", "X")
 
 _RC = {
-    "font.size": 8.5, "axes.titlesize": 10, "axes.labelsize": 9, "xtick.labelsize": 8, "ytick.labelsize": 8,
-    "legend.fontsize": 8, "axes.spines.top": False, "axes.spines.right": False, "axes.grid": True,
-    "grid.color": "#dddddd", "grid.linewidth": 0.6, "axes.axisbelow": True, "font.family": "DejaVu Sans",
+    "font.size": 8.5,
+    "axes.titlesize": 10,
+    "axes.labelsize": 9,
+    "xtick.labelsize": 8,
+    "ytick.labelsize": 8,
+    "legend.fontsize": 8,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.grid": True,
+    "grid.color": "#dddddd",
+    "grid.linewidth": 0.6,
+    "axes.axisbelow": True,
+    "font.family": "DejaVu Sans",
     "svg.fonttype": "none",
 }
 
@@ -63,6 +73,7 @@ def _styled(fn):
     def wrapper(*args, **kwargs):
         with matplotlib.rc_context(_RC):
             return fn(*args, **kwargs)
+
     return wrapper
 
 
@@ -101,7 +112,9 @@ def _variable(summary: pd.DataFrame, variable):
     if variable is None:
         return summary["variable"].iloc[0]
     if variable not in set(summary["variable"]):
-        raise ValueError(f"variable {variable!r} is not in the summary; it has {sorted(set(summary['variable']))}")
+        raise ValueError(
+            f"variable {variable!r} is not in the summary; it has {sorted(set(summary['variable']))}"
+        )
     return variable
 
 
@@ -111,8 +124,9 @@ def cell_label(design: str, method: str, size) -> str:
     return f"{design}, {unit}"
 
 
-def primary_rows(summary: pd.DataFrame, variable=None, max_rows: int = MAX_ROWS,
-                 keep: dict | None = None) -> pd.DataFrame:
+def primary_rows(
+    summary: pd.DataFrame, variable=None, max_rows: int = MAX_ROWS, keep: dict | None = None
+) -> pd.DataFrame:
     """The summary rows a one-estimator figure shows: each design's first estimator, one variable.
 
     With more than ``max_rows`` design x size cells, only one size per design is kept: the
@@ -167,10 +181,14 @@ def _marker_map(rows: pd.DataFrame) -> dict[str, str]:
 
 
 def _design_legend(ax, designs, colours, markers=None, loc="best"):
-    handles = [Line2D([], [], color=colours[d], marker="o", linestyle="", markersize=6, label=d) for d in designs]
+    handles = [
+        Line2D([], [], color=colours[d], marker="o", linestyle="", markersize=6, label=d) for d in designs
+    ]
     if markers and len(markers) > 1:
-        handles += [Line2D([], [], color="#555555", marker=m, linestyle="", markersize=6, label=estimator_name(e))
-                    for e, m in markers.items()]
+        handles += [
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=6, label=estimator_name(e))
+            for e, m in markers.items()
+        ]
     ax.legend(handles=handles, loc=loc, frameon=False)
 
 
@@ -191,14 +209,23 @@ def _cell_positions(rows: pd.DataFrame):
 
 def _estimator_legend(ax, markers, above: bool = True):
     if len(markers) > 1:
-        handles = [Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
-                   for e, m in markers.items()]
+        handles = [
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
+            for e, m in markers.items()
+        ]
         if above:
-            ax.legend(handles=handles, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=len(handles),
-                      frameon=False, borderaxespad=0.2)
+            ax.legend(
+                handles=handles,
+                loc="lower left",
+                bbox_to_anchor=(0.0, 1.0),
+                ncol=len(handles),
+                frameon=False,
+                borderaxespad=0.2,
+            )
         else:
-            ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False,
-                      title="estimator")
+            ax.legend(
+                handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False, title="estimator"
+            )
 
 
 def _row_axis(ax, labels):
@@ -209,10 +236,47 @@ def _row_axis(ax, labels):
     return y
 
 
+def sample_weights(rep: pd.DataFrame) -> np.ndarray:
+    """Weight of each replicate row: 1, or its ``probability`` in an exact (enumerated) run."""
+    if "probability" in rep.columns:
+        w = rep["probability"].to_numpy(float)
+        if np.all(np.isfinite(w)) and w.sum() > 0:
+            return w / w.sum()
+    return np.full(len(rep), 1.0 / max(len(rep), 1))
+
+
+def weighted_quantiles(x, w, qs) -> np.ndarray:
+    """Quantiles of a weighted sample: the smallest x whose cumulative weight reaches q."""
+    order = np.argsort(x, kind="stable")
+    cw = np.cumsum(w[order]) / np.sum(w)
+    idx = np.minimum(np.searchsorted(cw, np.asarray(qs) - 1e-12), len(x) - 1)
+    return x[order][idx]
+
+
+def _violin(ax, x, w, y, colour):
+    """A horizontal violin of a weighted sample (Gaussian kernel density, Scott's bandwidth)."""
+    from matplotlib import cbook
+    from scipy.stats import gaussian_kde
+
+    def density(data, coords):
+        try:
+            return gaussian_kde(data, weights=w)(coords)
+        except (np.linalg.LinAlgError, ValueError):  # all but one value alike: no density to draw
+            return np.zeros_like(coords)
+
+    stats = cbook.violin_stats([x], density)
+    parts = ax.violin(stats, positions=[y], orientation="horizontal", widths=0.8, showextrema=False)
+    for body in parts["bodies"]:
+        body.set_facecolor(colour)
+        body.set_edgecolor(colour)
+        body.set_alpha(0.55)
+
+
 # ------------------------------------------------------------------ the figures
 @_styled
-def sampling_distribution(replicates: pd.DataFrame, summary: pd.DataFrame, variable=None, ax=None,
-                          keep: dict | None = None):
+def sampling_distribution(
+    replicates: pd.DataFrame, summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = None
+):
     """Spread of each design's replicate estimates around the true value (one violin per design).
 
     Parameters
@@ -236,33 +300,43 @@ def sampling_distribution(replicates: pd.DataFrame, summary: pd.DataFrame, varia
     labels = _labels(rows, with_estimator=False)
     y = _row_axis(ax, labels)
     sel = replicates[replicates["variable"] == var]
-    groups = {k: g["estimate"].to_numpy() for k, g in sel.groupby(["design", "size", "estimator"], sort=False)}
+    groups = {k: g for k, g in sel.groupby(["design", "size", "estimator"], sort=False)}
     for yi, r in zip(y, rows.itertuples(index=False)):
-        x = groups.get((r.design, r.size, r.estimator))
-        if x is None or len(x) == 0:
+        g = groups.get((r.design, r.size, r.estimator))
+        if g is None or len(g) == 0:
             continue
-        x = x[np.isfinite(x)]
+        x, w = g["estimate"].to_numpy(float), sample_weights(g)
+        keep = np.isfinite(x)
+        x, w = x[keep], w[keep]
+        if len(x) == 0:
+            continue
         col = colours[r.design]
         if len(x) > 1 and np.ptp(x) > 0:
-            parts = ax.violinplot([x], positions=[yi], orientation="horizontal", widths=0.8, showextrema=False)
-            for body in parts["bodies"]:
-                body.set_facecolor(col)
-                body.set_edgecolor(col)
-                body.set_alpha(0.55)
-        q1, med, q3 = np.percentile(x, [25, 50, 75])
-        lo, hi = np.percentile(x, [2.5, 97.5])
+            _violin(ax, x, w, yi, col)
+        lo, q1, med, q3, hi = weighted_quantiles(x, w, [0.025, 0.25, 0.5, 0.75, 0.975])
         ax.plot([lo, hi], [yi, yi], color=col, linewidth=1.2)
         ax.plot([q1, q3], [yi, yi], color=col, linewidth=4.5, solid_capstyle="butt")
         ax.plot([med], [yi], marker="|", color="white", markersize=8, markeredgewidth=2)
     truth = float(rows["truth"].iloc[0])
     ax.axvline(truth, color=TRUTH_COLOUR, linestyle="--", linewidth=1.2, label=f"true value {truth:.4g}")
     reps = int(rows["replicates"].max())
-    ax.set_title(f"Where the estimates of the mean {var} fall ({reps:,} samples per design)")
+    many = (
+        "every possible sample, by its probability"
+        if "probability" in replicates.columns
+        else f"{reps:,} samples per design"
+    )
+    ax.set_title(f"Where the estimates of the mean {var} fall ({many})")
     ax.set_xlabel(f"Estimated mean {var}")
-    ax.legend(handles=[Line2D([], [], color=TRUTH_COLOUR, linestyle="--", label=f"true value {truth:.4g}"),
-                       Line2D([], [], color="#555555", linewidth=4.5, label="middle half of estimates"),
-                       Line2D([], [], color="#555555", linewidth=1.2, label="middle 95% of estimates")],
-              loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False)
+    ax.legend(
+        handles=[
+            Line2D([], [], color=TRUTH_COLOUR, linestyle="--", label=f"true value {truth:.4g}"),
+            Line2D([], [], color="#555555", linewidth=4.5, label="middle half of estimates"),
+            Line2D([], [], color="#555555", linewidth=1.2, label="middle 95% of estimates"),
+        ],
+        loc="upper left",
+        bbox_to_anchor=(1.0, 1.0),
+        frameon=False,
+    )
     return ax
 
 
@@ -283,12 +357,21 @@ def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None =
     colours, markers = design_colours(design_order(summary)), _marker_map(rows)
     _row_axis(ax, _labels(cells, with_estimator=False))
     for yi, r in zip(ypos, rows.itertuples(index=False)):
-        ax.errorbar(r.bias, yi, xerr=MC_Z * r.bias_mcse, fmt=markers[r.estimator], color=colours[r.design],
-                    capsize=3, markersize=5)
+        ax.errorbar(
+            r.bias,
+            yi,
+            xerr=MC_Z * r.bias_mcse,
+            fmt=markers[r.estimator],
+            color=colours[r.design],
+            capsize=3,
+            markersize=5,
+        )
     _estimator_legend(ax, markers, above=False)
     ax.axvline(0.0, color=TRUTH_COLOUR, linewidth=1.0)
     truth = float(rows["truth"].iloc[0])
-    span = np.nanmax(np.abs(np.r_[rows["bias"] - MC_Z * rows["bias_mcse"], rows["bias"] + MC_Z * rows["bias_mcse"]]))
+    span = np.nanmax(
+        np.abs(np.r_[rows["bias"] - MC_Z * rows["bias_mcse"], rows["bias"] + MC_Z * rows["bias_mcse"]])
+    )
     if np.isfinite(span) and span > 0:
         ax.set_xlim(-1.1 * span, 1.1 * span)
     ax.set_xlabel(f"Average estimate minus true value ({var})")
@@ -300,8 +383,9 @@ def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None =
 
 
 @_styled
-def coverage_plot(summary: pd.DataFrame, confidence: float = 0.95, variable=None, ax=None,
-                  keep: dict | None = None):
+def coverage_plot(
+    summary: pd.DataFrame, confidence: float = 0.95, variable=None, ax=None, keep: dict | None = None
+):
     """Share of replicate intervals that hold the truth, with 95% Monte Carlo intervals and the nominal level.
 
     Notes
@@ -345,8 +429,16 @@ def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = N
         g = g.sort_values("size")
         if len(g) > 1:
             ax.plot(g["empirical_se"], g["mean_se"], color=colours[d], linewidth=0.8, alpha=0.6)
-        ax.errorbar(g["empirical_se"], g["mean_se"], xerr=MC_Z * g["empirical_se_mcse"], fmt=markers[e],
-                    color=colours[d], capsize=2, markersize=6, linestyle="")
+        ax.errorbar(
+            g["empirical_se"],
+            g["mean_se"],
+            xerr=MC_Z * g["empirical_se_mcse"],
+            fmt=markers[e],
+            color=colours[d],
+            capsize=2,
+            markersize=6,
+            linestyle="",
+        )
     vals = np.r_[rows["empirical_se"].to_numpy(float), rows["mean_se"].to_numpy(float)]
     vals = vals[np.isfinite(vals) & (vals > 0)]
     if len(vals):
@@ -364,10 +456,26 @@ def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = N
         ax.plot([lo, hi], [lo, hi], color=TRUTH_COLOUR, linestyle="--", linewidth=1.0)
         ax.set_xlim(lo, hi)
         ax.set_ylim(lo, hi)
-        ax.text(0.03, 0.97, "formula overstates the spread\n(intervals wider than needed)", transform=ax.transAxes,
-                va="top", ha="left", fontsize=8, color="#444444")
-        ax.text(0.97, 0.03, "formula understates the spread\n(intervals too narrow)", transform=ax.transAxes,
-                va="bottom", ha="right", fontsize=8, color="#444444")
+        ax.text(
+            0.03,
+            0.97,
+            "formula overstates the spread\n(intervals wider than needed)",
+            transform=ax.transAxes,
+            va="top",
+            ha="left",
+            fontsize=8,
+            color="#444444",
+        )
+        ax.text(
+            0.97,
+            0.03,
+            "formula understates the spread\n(intervals too narrow)",
+            transform=ax.transAxes,
+            va="bottom",
+            ha="right",
+            fontsize=8,
+            color="#444444",
+        )
     ax.set_xlabel(f"Empirical SE: real spread of the estimates ({var})")
     ax.set_ylabel(f"Estimated SE from the formula ({var})")
     ax.set_title("Does the standard-error formula tell the truth?")
@@ -394,8 +502,15 @@ def zip_order(estimate, se, truth):
 
 
 @_styled
-def interval_panel(rep: pd.DataFrame, truth: float, confidence: float, colour: str, title: str = "",
-                   shown: int = 100, ax=None):
+def interval_panel(
+    rep: pd.DataFrame,
+    truth: float,
+    confidence: float,
+    colour: str,
+    title: str = "",
+    shown: int = 100,
+    ax=None,
+):
     """One design's ranked replicate intervals: ``shown`` of them, evenly spaced in rank.
 
     Intervals that hold the truth are drawn in the design's colour, misses in black; the
@@ -404,11 +519,14 @@ def interval_panel(rep: pd.DataFrame, truth: float, confidence: float, colour: s
     ax = _axes(ax, 3.0)
     order = zip_order(rep["estimate"].to_numpy(), rep["se"].to_numpy(), truth)
     R = len(order)
-    pick = np.unique(np.round(np.linspace(0, R - 1, min(shown, R))).astype(int))
+    w = sample_weights(rep)[order]
+    mid = np.cumsum(w) - w / 2.0  # each interval at the middle of its share of the rank scale
+    targets = (np.arange(min(shown, R)) + 0.5) / min(shown, R)
+    pick = np.unique(np.minimum(np.searchsorted(np.cumsum(w), targets - 1e-12), R - 1))
     idx = order[pick]
     lo, hi = rep["lower"].to_numpy()[idx], rep["upper"].to_numpy()[idx]
     cover = (lo <= truth) & (truth <= hi)
-    centile = 100.0 * (pick + 0.5) / R
+    centile = 100.0 * mid[pick]
     for mask, col, lw in ((cover, colour, 1.0), (~cover, MISS_COLOUR, 1.2)):
         if mask.any():
             ax.hlines(centile[mask], lo[mask], hi[mask], colors=col, linewidth=lw)
@@ -421,8 +539,15 @@ def interval_panel(rep: pd.DataFrame, truth: float, confidence: float, colour: s
 
 
 @_styled
-def interval_plot(replicates: pd.DataFrame, summary: pd.DataFrame, confidence: float = 0.95, variable=None,
-                  fig: Figure | None = None, keep: dict | None = None, shown: int = 100) -> Figure:
+def interval_plot(
+    replicates: pd.DataFrame,
+    summary: pd.DataFrame,
+    confidence: float = 0.95,
+    variable=None,
+    fig: Figure | None = None,
+    keep: dict | None = None,
+    shown: int = 100,
+) -> Figure:
     """Ranked replicate intervals, one panel per design and size (Morris, White & Crowther 2019, Fig. 4).
 
     Returns the Figure (it has one Axes per panel; see :func:`interval_panel` for one panel).
@@ -448,17 +573,27 @@ def interval_plot(replicates: pd.DataFrame, summary: pd.DataFrame, confidence: f
         axes[j // ncol][j % ncol].set_visible(False)
     for row in axes:
         row[0].set_ylabel("Rank of the miss\n(centile)")
-    fig.supxlabel(f"{100 * confidence:g}% interval for the mean {var} from each simulated sample (each panel has its own scale)",
-                  fontsize=9)
-    fig.suptitle(f"Which intervals miss? {min(shown, int(rows['replicates'].max()))} ranked intervals per design "
-                 f"(black: misses the true value)", fontsize=10)
+    which = "possible" if "probability" in replicates.columns else "simulated"
+    fig.supxlabel(
+        f"{100 * confidence:g}% interval for the mean {var} from each {which} sample "
+        f"(each panel has its own scale)",
+        fontsize=9,
+    )
+    fig.suptitle(
+        f"Which intervals miss? Up to {shown} ranked intervals per design (black: misses the true value)",
+        fontsize=10,
+    )
     return fig
 
 
 def frontier_table(summary: pd.DataFrame, frontier: pd.DataFrame | None, variable=None) -> pd.DataFrame:
     """Cost and precision points to plot: frontier.csv when the run has one, else the summary."""
     var = _variable(summary, variable)
-    if frontier is not None and len(frontier) and {"mean_cost", "moe", "design", "size"} <= set(frontier.columns):
+    if (
+        frontier is not None
+        and len(frontier)
+        and {"mean_cost", "moe", "design", "size"} <= set(frontier.columns)
+    ):
         f = frontier.copy()
         if "variable" in f.columns:
             f = f[f["variable"] == var]
@@ -475,8 +610,14 @@ def _truthy(col: pd.Series) -> np.ndarray:
 
 
 @_styled
-def cost_precision_plot(summary: pd.DataFrame, frontier: pd.DataFrame | None = None, goals: dict | None = None,
-                        variable=None, ax=None, picks: dict | None = None):
+def cost_precision_plot(
+    summary: pd.DataFrame,
+    frontier: pd.DataFrame | None = None,
+    goals: dict | None = None,
+    variable=None,
+    ax=None,
+    picks: dict | None = None,
+):
     """Mean field cost against margin of error, per design, estimator and size, with the goals drawn in.
 
     Parameters
@@ -497,29 +638,57 @@ def cost_precision_plot(summary: pd.DataFrame, frontier: pd.DataFrame | None = N
     colours, markers = design_colours(design_order(summary)), _marker_map(pts)
     for (d, e), g in pts.groupby(["design", "estimator"], sort=False):
         g = g.sort_values("size")
-        ax.plot(g["mean_cost"], g["moe"], color=colours[d], marker=markers[e], markersize=5, linewidth=1.0,
-                alpha=0.9)
+        ax.plot(
+            g["mean_cost"],
+            g["moe"],
+            color=colours[d],
+            marker=markers[e],
+            markersize=5,
+            linewidth=1.0,
+            alpha=0.9,
+        )
         if len(g) > 1 and e == next(iter(markers)):
             for r in g.iloc[[0, -1]].itertuples(index=False):
-                ax.annotate(f"{int(r.size)}", (r.mean_cost, r.moe), textcoords="offset points", xytext=(4, 3),
-                            fontsize=7, color=colours[d])
-    handles = [Line2D([], [], color=colours[d], marker="o", linewidth=1.0, markersize=5, label=d) for d in designs]
+                ax.annotate(
+                    f"{int(r.size)}",
+                    (r.mean_cost, r.moe),
+                    textcoords="offset points",
+                    xytext=(4, 3),
+                    fontsize=7,
+                    color=colours[d],
+                )
+    handles = [
+        Line2D([], [], color=colours[d], marker="o", linewidth=1.0, markersize=5, label=d) for d in designs
+    ]
     if len(markers) > 1:
-        handles += [Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
-                    for e, m in markers.items()]
+        handles += [
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
+            for e, m in markers.items()
+        ]
     if "on_frontier" in pts.columns:
         on = pts[_truthy(pts["on_frontier"])].sort_values("mean_cost")
         if len(on):
             ax.step(on["mean_cost"], on["moe"], where="post", color="#555555", linestyle=":", linewidth=1.3)
-            handles.append(Line2D([], [], color="#555555", linestyle=":", label="frontier (best for the cost)"))
+            handles.append(
+                Line2D([], [], color="#555555", linestyle=":", label="frontier (best for the cost)")
+            )
     goals = goals or {}
     if goals.get("budget") is not None:
         ax.axvline(float(goals["budget"]), color=TRUTH_COLOUR, linestyle="--", linewidth=1.0)
-        handles.append(Line2D([], [], color=TRUTH_COLOUR, linestyle="--", label=f"budget {float(goals['budget']):,.0f}"))
+        handles.append(
+            Line2D([], [], color=TRUTH_COLOUR, linestyle="--", label=f"budget {float(goals['budget']):,.0f}")
+        )
     if goals.get("moe") is not None:
         ax.axhline(float(goals["moe"]), color=TRUTH_COLOUR, linestyle="-.", linewidth=1.0)
-        handles.append(Line2D([], [], color=TRUTH_COLOUR, linestyle="-.",
-                              label=f"target margin of error {float(goals['moe']):.3g}"))
+        handles.append(
+            Line2D(
+                [],
+                [],
+                color=TRUTH_COLOUR,
+                linestyle="-.",
+                label=f"target margin of error {float(goals['moe']):.3g}",
+            )
+        )
     for name, p in (picks or {}).items():
         if not p:
             continue
@@ -529,14 +698,22 @@ def cost_precision_plot(summary: pd.DataFrame, frontier: pd.DataFrame | None = N
         if len(hit):
             x, y = float(hit["mean_cost"].iloc[0]), float(hit["moe"].iloc[0])
             ax.plot(x, y, marker="o", markersize=14, fillstyle="none", color=TRUTH_COLOUR, linestyle="")
-            ax.annotate(name, (x, y), textcoords="offset points", xytext=(10, -13), fontsize=7.5,
-                        bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none", "alpha": 0.8})
+            ax.annotate(
+                name,
+                (x, y),
+                textcoords="offset points",
+                xytext=(10, -13),
+                fontsize=7.5,
+                bbox={"boxstyle": "round,pad=0.2", "fc": "white", "ec": "none", "alpha": 0.8},
+            )
     moe = pts["moe"].to_numpy(float)
     moe = moe[np.isfinite(moe) & (moe > 0)]
     if len(moe) and moe.max() / moe.min() > 8:
         ax.set_yscale("log")
         ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
-        ax.yaxis.set_minor_formatter(FuncFormatter(lambda v, _pos: f"{v:g}" if str(f"{v:g}")[0] in "25" else ""))
+        ax.yaxis.set_minor_formatter(
+            FuncFormatter(lambda v, _pos: f"{v:g}" if str(f"{v:g}")[0] in "25" else "")
+        )
         ylab = f"Margin of error ({var}, log scale)"
     else:
         ax.set_ylim(bottom=0)
@@ -550,8 +727,9 @@ def cost_precision_plot(summary: pd.DataFrame, frontier: pd.DataFrame | None = N
 
 
 @_styled
-def allocation_plot(allocation: pd.DataFrame, summary: pd.DataFrame | None = None, ax=None,
-                    keep: dict | None = None):
+def allocation_plot(
+    allocation: pd.DataFrame, summary: pd.DataFrame | None = None, ax=None, keep: dict | None = None
+):
     """Share of each stratified design's sample per stratum, beside each stratum's share of the frame.
 
     Each bar is labelled with its number of sampled units.  For a design with several sizes
@@ -561,8 +739,10 @@ def allocation_plot(allocation: pd.DataFrame, summary: pd.DataFrame | None = Non
     designs = list(dict.fromkeys(a["design"]))
     order = design_order(summary) if summary is not None else designs
     colours = design_colours(order)
-    chosen = {d: ((keep or {}).get(d) if (keep or {}).get(d) in set(g["size"]) else g["size"].max())
-              for d, g in a.groupby("design", sort=False)}
+    chosen = {
+        d: ((keep or {}).get(d) if (keep or {}).get(d) in set(g["size"]) else g["size"].max())
+        for d, g in a.groupby("design", sort=False)
+    }
     a = a[a["size"].to_numpy() == a["design"].map(chosen).to_numpy()]
     strata = list(dict.fromkeys(a["stratum"].astype(str)))
     ax = _axes(ax, max(2.6, 1.2 + 0.3 * len(strata) * (len(designs) + 1)))
@@ -571,15 +751,25 @@ def allocation_plot(allocation: pd.DataFrame, summary: pd.DataFrame | None = Non
     base = np.arange(len(strata))[::-1].astype(float)
     pop = a.drop_duplicates("stratum").set_index(a.drop_duplicates("stratum")["stratum"].astype(str))
     pop_share = pop["population_units"] / pop["population_units"].sum()
-    ax.barh(base + 0.4 - h / 2, [100 * pop_share[s] for s in strata], height=h, color="#cccccc",
-            label="share of the frame")
+    ax.barh(
+        base + 0.4 - h / 2,
+        [100 * pop_share[s] for s in strata],
+        height=h,
+        color="#cccccc",
+        label="share of the frame",
+    )
     for j, d in enumerate(designs):
         g = a[a["design"] == d].set_index(a[a["design"] == d]["stratum"].astype(str))
         tot = g["sample_units"].sum()
         share = [100.0 * g["sample_units"].get(s, 0) / tot if tot else 0.0 for s in strata]
         yy = base + 0.4 - h / 2 - (j + 1) * h
-        ax.barh(yy, share, height=h, color=colours.get(d, PALETTE[j % len(PALETTE)]),
-                label=f"{d} (n = {int(tot)})")
+        ax.barh(
+            yy,
+            share,
+            height=h,
+            color=colours.get(d, PALETTE[j % len(PALETTE)]),
+            label=f"{d} (n = {int(tot)})",
+        )
         for yv, sv, s in zip(yy, share, strata):
             ax.text(sv, yv, f" {int(g['sample_units'].get(s, 0))}", va="center", ha="left", fontsize=7)
     ax.set_yticks(base, strata)
@@ -620,10 +810,19 @@ def frame_order_plot(order: pd.DataFrame, entry: dict, summary: pd.DataFrame | N
             k = N / float(r.size)
             pos = 1 + np.floor(np.arange(0, int(x.max() / k) + 1) * k).astype(int)
             pos = pos[pos <= x.max()]
-            ax.plot(pos, y[pos - 1], linestyle="", marker="o", markersize=4.5, color=colours[r.design],
-                    label=f"{r.design}, n = {int(r.size)}: interval k = {k:.4g}, first start")
+            ax.plot(
+                pos,
+                y[pos - 1],
+                linestyle="",
+                marker="o",
+                markersize=4.5,
+                color=colours[r.design],
+                label=f"{r.design}, n = {int(r.size)}: interval k = {k:.4g}, first start",
+            )
     ax.set_xlim(0.5, x.max() + 0.5)
-    ax.set_xlabel(f"Position in the {entry['order']} (first {int(x.max()):,} of {int(entry['units']):,} units)")
+    ax.set_xlabel(
+        f"Position in the {entry['order']} (first {int(x.max()):,} of {int(entry['units']):,} units)"
+    )
     ax.set_ylabel(str(entry["variable"]))
     ax.set_title(f"A cycle of {P:.4g} units along the {entry['order']} (dotted lines one period apart)")
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.22), frameon=False, ncol=1)
@@ -671,8 +870,10 @@ def picks_of(res, variable=None) -> dict:
     """The recommended points (for ``variable``, when given), named for the figure."""
     rec = res.recommendation or {}
     out = {}
-    for key, name in (("cheapest_meeting_moe", "cheapest meeting the margin"),
-                      ("best_within_budget", "most precise within budget")):
+    for key, name in (
+        ("cheapest_meeting_moe", "cheapest meeting the margin"),
+        ("best_within_budget", "most precise within budget"),
+    ):
         p = rec.get(key)
         if isinstance(p, dict) and p.get("design") is not None:
             if variable is not None and p.get("variable") not in (None, variable):
@@ -708,55 +909,106 @@ def _register(spec: FigureSpec):
     FIGURES[spec.name] = spec
 
 
-_register(FigureSpec(
-    "sampling_distribution", "Where the estimates fall",
-    "Each shape is the spread of one design's estimates over all simulated samples; the dashed line is the "
-    "true population value. A narrow shape centred on the line is a precise, unbiased design; thick bar: the "
-    "middle half of the estimates, thin line: the middle 95%.",
-    True, _has_reps,
-    lambda res, var, keep: _fig(sampling_distribution(res.replicates, res.summary, var, keep=keep))))
-_register(FigureSpec(
-    "bias", "Bias",
-    "How far the average estimate sits from the truth, with 95% simulation error bars (the bars shrink as "
-    "replicates grow). A bar crossing zero means no bias that this many replicates can detect; the top axis "
-    "gives the bias as a percentage of the true value.",
-    True, _has_rows, lambda res, var, keep: _fig(bias_plot(res.summary, var, keep=keep))))
-_register(FigureSpec(
-    "coverage", "Do the intervals keep their promise?",
-    "The share of simulated samples whose confidence interval holds the true value, with its 95% simulation "
-    "error bar; the dashed line is the promised level. A design whose bar lies wholly left of the line "
-    "reports intervals that are too narrow: its stated precision cannot be trusted.",
-    True, _has_rows,
-    lambda res, var, keep: _fig(coverage_plot(res.summary, _confidence(res), var, keep=keep))))
-_register(FigureSpec(
-    "se_check", "Does the standard-error formula tell the truth?",
-    "Each point compares the standard error the analysis would report (vertical) with the real spread of "
-    "the estimates over the simulated samples (horizontal). Points on the dashed diagonal are honest; "
-    "points below it belong to designs whose formula understates the uncertainty.",
-    True, _has_rows, lambda res, var, keep: _fig(se_plot(res.summary, var, keep=keep))))
-_register(FigureSpec(
-    "intervals", "Which intervals miss?",
-    "A sample of each design's confidence intervals, ranked from the closest hit (bottom) to the widest "
-    "miss (top); black intervals miss the true value (vertical line). Below the dashed line all intervals "
-    "should hold the truth, above it all should miss: misses starting well below the line mean the "
-    "intervals lie (Morris, White and Crowther 2019).",
-    True, _has_reps,
-    lambda res, var, keep: interval_plot(res.replicates, res.summary, _confidence(res), var, keep=keep)))
-_register(FigureSpec(
-    "cost_precision", "Cost against precision",
-    "Average field cost of one survey against its margin of error (the half-width an interval needs to hold "
-    "the truth at the promised rate, bias included). Designs further down and to the left buy more "
-    "precision for the money; the goals of the run, when it has them, are drawn as lines.",
-    True, _has_rows,
-    lambda res, var, keep: _fig(cost_precision_plot(res.summary, res.frontier, goals_of(res, _var(res, var)), var,
-                                                    picks=picks_of(res, _var(res, var))))))
-_register(FigureSpec(
-    "allocation", "Stratified allocation",
-    "How each stratified design spreads its sample over the strata, beside each stratum's share of the "
-    "frame (grey). Neyman and cost-optimal allocations give more units to strata that vary more (or cost "
-    "less to reach).",
-    False, lambda res: res.allocation is not None and len(res.allocation) > 0,
-    lambda res, var, keep: _fig(allocation_plot(res.allocation, res.summary, keep=keep))))
+_register(
+    FigureSpec(
+        "sampling_distribution",
+        "Where the estimates fall",
+        "Each shape is the spread of one design's estimates over all simulated samples; the dashed line is "
+        "the "
+        "true population value. A narrow shape centred on the line is a precise, unbiased design; thick "
+        "bar: the "
+        "middle half of the estimates, thin line: the middle 95%.",
+        True,
+        _has_reps,
+        lambda res, var, keep: _fig(sampling_distribution(res.replicates, res.summary, var, keep=keep)),
+    )
+)
+_register(
+    FigureSpec(
+        "bias",
+        "Bias",
+        "How far the average estimate sits from the truth, with 95% simulation error bars (the bars shrink "
+        "as "
+        "replicates grow). A bar crossing zero means no bias that this many replicates can detect; the top "
+        "axis "
+        "gives the bias as a percentage of the true value.",
+        True,
+        _has_rows,
+        lambda res, var, keep: _fig(bias_plot(res.summary, var, keep=keep)),
+    )
+)
+_register(
+    FigureSpec(
+        "coverage",
+        "Do the intervals keep their promise?",
+        "The share of simulated samples whose confidence interval holds the true value, with its 95% "
+        "simulation "
+        "error bar; the dashed line is the promised level. A design whose bar lies wholly left of the line "
+        "reports intervals that are too narrow: its stated precision cannot be trusted.",
+        True,
+        _has_rows,
+        lambda res, var, keep: _fig(coverage_plot(res.summary, _confidence(res), var, keep=keep)),
+    )
+)
+_register(
+    FigureSpec(
+        "se_check",
+        "Does the standard-error formula tell the truth?",
+        "Each point compares the standard error the analysis would report (vertical) with the real spread of "
+        "the estimates over the simulated samples (horizontal). Points on the dashed diagonal are honest; "
+        "points below it belong to designs whose formula understates the uncertainty.",
+        True,
+        _has_rows,
+        lambda res, var, keep: _fig(se_plot(res.summary, var, keep=keep)),
+    )
+)
+_register(
+    FigureSpec(
+        "intervals",
+        "Which intervals miss?",
+        "A sample of each design's confidence intervals, ranked from the closest hit (bottom) to the widest "
+        "miss (top); black intervals miss the true value (vertical line). Below the dashed line all "
+        "intervals "
+        "should hold the truth, above it all should miss: misses starting well below the line mean the "
+        "intervals lie (Morris, White and Crowther 2019).",
+        True,
+        _has_reps,
+        lambda res, var, keep: interval_plot(res.replicates, res.summary, _confidence(res), var, keep=keep),
+    )
+)
+_register(
+    FigureSpec(
+        "cost_precision",
+        "Cost against precision",
+        "Average field cost of one survey against its margin of error (the half-width an interval needs to "
+        "hold "
+        "the truth at the promised rate, bias included). Designs further down and to the left buy more "
+        "precision for the money; the goals of the run, when it has them, are drawn as lines.",
+        True,
+        _has_rows,
+        lambda res, var, keep: _fig(
+            cost_precision_plot(
+                res.summary,
+                res.frontier,
+                goals_of(res, _var(res, var)),
+                var,
+                picks=picks_of(res, _var(res, var)),
+            )
+        ),
+    )
+)
+_register(
+    FigureSpec(
+        "allocation",
+        "Stratified allocation",
+        "How each stratified design spreads its sample over the strata, beside each stratum's share of the "
+        "frame (grey). Neyman and cost-optimal allocations give more units to strata that vary more (or cost "
+        "less to reach).",
+        False,
+        lambda res: res.allocation is not None and len(res.allocation) > 0,
+        lambda res, var, keep: _fig(allocation_plot(res.allocation, res.summary, keep=keep)),
+    )
+)
 
 
 def _order_entries(res) -> list:
@@ -777,13 +1029,19 @@ def _draw_order(res, var, keep):
     return fig
 
 
-_register(FigureSpec(
-    "frame_order", "A cycle along the frame's list order",
-    "The study variable along the order a systematic design walks, for its first few cycles; the dotted "
-    "lines are one detected period apart. Coloured points are the units one systematic sample would take "
-    "(the first start). When they sit on the same phase of the cycle at every pass, the estimate depends "
-    "on the start and the usual standard error does not see it.",
-    False, lambda res: len(_order_entries(res)) > 0, _draw_order))
+_register(
+    FigureSpec(
+        "frame_order",
+        "A cycle along the frame's list order",
+        "The study variable along the order a systematic design walks, for its first few cycles; the dotted "
+        "lines are one detected period apart. Coloured points are the units one systematic sample would take "
+        "(the first start). When they sit on the same phase of the cycle at every pass, the estimate depends "
+        "on the start and the usual standard error does not see it.",
+        False,
+        lambda res: len(_order_entries(res)) > 0,
+        _draw_order,
+    )
+)
 
 
 def figure_names(res) -> list[str]:

@@ -64,7 +64,7 @@ def num(value, digits: int = 4) -> str:
         return str(value)
     if not np.isfinite(v):
         return "n/a"
-    if abs(v) >= 10 ** digits or (abs(v) >= 1000 and v == round(v)):
+    if abs(v) >= 10**digits or (abs(v) >= 1000 and v == round(v)):
         return f"{v:,.0f}"
     return f"{v:.{digits}g}"
 
@@ -91,7 +91,7 @@ SHORT_ESTIMATOR = {"ht": "HT", "hajek": "Hajek"}
 
 
 def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
-    """``"low"``, ``"high"`` or ``"ok"``: the coverage against the promised level, beyond Monte Carlo error."""
+    """``"low"``, ``"high"`` or ``"ok"``: coverage against the promised level, beyond Monte Carlo error."""
     if not np.isfinite(coverage):
         return "ok"
     if not coverage_acceptable(coverage, mcse, confidence):
@@ -105,18 +105,31 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
     """The summary table as display strings (one dict per row), with MCSEs beside their measures."""
     out = []
     for r in summary.itertuples(index=False):
-        out.append({
-            "design": r.design, "method": r.method, "size": int(r.size), "estimator": SHORT_ESTIMATOR.get(r.estimator, r.estimator),
-            "variable": r.variable, "mean_n": num(r.mean_n), "mean_cost": money(r.mean_cost),
-            "truth": num(r.truth, 6),
-            "bias": with_mcse(r.bias, r.bias_mcse),
-            "relative_bias": percent_like(r.relative_bias, r.bias_mcse / abs(r.truth) if r.truth else float("nan")),
-            "empirical_se": with_mcse(r.empirical_se, r.empirical_se_mcse),
-            "mean_se": num(r.mean_se), "se_ratio": num(r.se_ratio, 3), "rmse": num(r.rmse),
-            "deff": num(r.deff, 3), "coverage": with_mcse(r.coverage, r.coverage_mcse, scale=100.0),
-            "coverage_flag": coverage_verdict(r.coverage, r.coverage_mcse, confidence),
-            "moe": num(r.moe), "replicates": int(r.replicates),
-        })
+        out.append(
+            {
+                "design": r.design,
+                "method": r.method,
+                "size": int(r.size),
+                "estimator": SHORT_ESTIMATOR.get(r.estimator, r.estimator),
+                "variable": r.variable,
+                "mean_n": num(r.mean_n),
+                "mean_cost": money(r.mean_cost),
+                "truth": num(r.truth, 6),
+                "bias": with_mcse(r.bias, r.bias_mcse),
+                "relative_bias": percent_like(
+                    r.relative_bias, r.bias_mcse / abs(r.truth) if r.truth else float("nan")
+                ),
+                "empirical_se": with_mcse(r.empirical_se, r.empirical_se_mcse),
+                "mean_se": num(r.mean_se),
+                "se_ratio": num(r.se_ratio, 3),
+                "rmse": num(r.rmse),
+                "deff": num(r.deff, 3),
+                "coverage": with_mcse(r.coverage, r.coverage_mcse, scale=100.0),
+                "coverage_flag": coverage_verdict(r.coverage, r.coverage_mcse, confidence),
+                "moe": num(r.moe),
+                "replicates": int(r.replicates),
+            }
+        )
     return out
 
 
@@ -125,32 +138,50 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
     out = []
     nominal = f"{100 * confidence:g}%"
     for var, s in summary.groupby("variable", sort=False):
-        lab = {i: f"{cell_label(d, m, n)} ({estimator_name(e)})"
-               for i, d, m, n, e in zip(s.index, s["design"], s["method"], s["size"], s["estimator"])}
-        verdict = {i: coverage_verdict(c, m, confidence) for i, c, m in zip(s.index, s["coverage"], s["coverage_mcse"])}
+        lab = {
+            i: f"{cell_label(d, m, n)} ({estimator_name(e)})"
+            for i, d, m, n, e in zip(s.index, s["design"], s["method"], s["size"], s["estimator"])
+        }
+        verdict = {
+            i: coverage_verdict(c, m, confidence)
+            for i, c, m in zip(s.index, s["coverage"], s["coverage_mcse"])
+        }
         honest = s[[verdict[i] != "low" for i in s.index]]
         if len(honest):
             costed = bool(np.nanmax(s["mean_cost"].to_numpy(float)) > 0)
             best = honest.loc[honest["rmse"].idxmin()]
-            out.append(f"Most precise for the mean {var} among designs whose intervals keep their promise: "
-                       f"{lab[best.name]}, margin of error {num(best.moe)}"
-                       + (f" at an average cost of {money(best.mean_cost)}" if costed else "")
-                       + f" (design effect {num(best.deff, 3)}).")
+            out.append(
+                f"Most precise for the mean {var} among designs whose intervals keep their promise: "
+                f"{lab[best.name]}, margin of error {num(best.moe)}"
+                + (f" at an average cost of {money(best.mean_cost)}" if costed else "")
+                + f" (design effect {num(best.deff, 3)})."
+            )
             cheap = honest.loc[honest["mean_cost"].idxmin()]
             if costed and cheap.name != best.name and cheap.mean_cost < best.mean_cost:
-                out.append(f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost)}, "
-                           f"margin of error {num(cheap.moe)}.")
+                out.append(
+                    f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost)}, "
+                    f"margin of error {num(cheap.moe)}."
+                )
         else:
             out.append(f"No design's intervals for the mean {var} reach the promised {nominal} coverage.")
         low = [i for i in s.index if verdict[i] == "low"]
         if low:
-            out.append(f"Intervals too narrow for the mean {var} (coverage more than {COVERAGE_Z:g} simulation "
-                       f"errors below the promised {nominal}): " + "; ".join(
-                           f"{lab[i]} holds the truth {100 * s.loc[i, 'coverage']:.1f}% of the time" for i in low)
-                       + ". Their reported precision cannot be trusted.")
+            out.append(
+                f"Intervals too narrow for the mean {var} (coverage more than {COVERAGE_Z:g} simulation "
+                f"errors below the promised {nominal}): "
+                + "; ".join(
+                    f"{lab[i]} holds the truth {100 * s.loc[i, 'coverage']:.1f}% of the time" for i in low
+                )
+                + ". Their reported precision cannot be trusted."
+            )
         high = [i for i in s.index if verdict[i] == "high" and s.loc[i, "se_ratio"] > 1 + SE_RATIO_NOTE]
         if high:
-            out.append(f"Intervals wider than needed for the mean {var}: " + "; ".join(
-                f"{lab[i]} (its formula's SE is {num(s.loc[i, 'se_ratio'], 3)} times the real spread)" for i in high)
-                + ". The design is more precise than its analysis would claim.")
+            out.append(
+                f"Intervals wider than needed for the mean {var}: "
+                + "; ".join(
+                    f"{lab[i]} (its formula's SE is {num(s.loc[i, 'se_ratio'], 3)} times the real spread)"
+                    for i in high
+                )
+                + ". The design is more precise than its analysis would claim."
+            )
     return out

@@ -45,8 +45,12 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
             seen.add((sort_by, v))
             rep = frame_order_report(frame, v, sort_by)
             walkers = [x for x in systematic if getattr(x, "sort_by", None) == sort_by]
-            at_risk = [x.label for x in walkers for size in x.sizes()
-                       if rep.periods and interval_risks(x.at(size).interval(frame), frame.N, rep.periods)]
+            at_risk = [
+                x.label
+                for x in walkers
+                for size in x.sizes()
+                if rep.periods and interval_risks(x.at(size).interval(frame), frame.N, rep.periods)
+            ]
             if not at_risk:
                 continue
             longest = max(p.period for p in rep.periods)
@@ -54,13 +58,24 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
             order = frame.order if sort_by is None else frame.sort_orders[sort_by]
             vals = np.asarray(frame.y[np.asarray(order)[:W], v], dtype=float)
             along = _along(sort_by)
-            tables.append(pd.DataFrame({"order": along, "variable": name, "position": np.arange(1, W + 1),
-                                        "value": vals}))
-            infos.append({"order": along, "sort_by": sort_by, "variable": name, "units": int(frame.N),
-                          "positions_kept": W, "periods": [p.as_dict() for p in rep.periods],
-                          "unsafe_intervals": unsafe_intervals(rep.periods, frame.N, min(frame.N // 2, 5000)),
-                          "designs": [x.label for x in walkers],
-                          "designs_at_risk": list(dict.fromkeys(at_risk))})
+            tables.append(
+                pd.DataFrame(
+                    {"order": along, "variable": name, "position": np.arange(1, W + 1), "value": vals}
+                )
+            )
+            infos.append(
+                {
+                    "order": along,
+                    "sort_by": sort_by,
+                    "variable": name,
+                    "units": int(frame.N),
+                    "positions_kept": W,
+                    "periods": [p.as_dict() for p in rep.periods],
+                    "unsafe_intervals": unsafe_intervals(rep.periods, frame.N, min(frame.N // 2, 5000)),
+                    "designs": [x.label for x in walkers],
+                    "designs_at_risk": list(dict.fromkeys(at_risk)),
+                }
+            )
     if not infos:
         return None, None
     return infos, pd.concat(tables, ignore_index=True)[FRAME_ORDER_COLUMNS]

@@ -50,8 +50,10 @@ def read_run(folder) -> RunResult:
         raise InputError(f"run folder {str(p)!r} does not exist or is not a folder")
     for name in ("run.json", "summary.csv"):
         if not (p / name).exists():
-            raise InputError(f"{p}: {name} is missing; this is not a finished samplewright run "
-                             f"(run `samplewright run SCENARIO --out {p}` first)")
+            raise InputError(
+                f"{p}: {name} is missing; this is not a finished samplewright run "
+                f"(run `samplewright run SCENARIO --out {p}` first)"
+            )
     info = _read_json(p / "run.json")
     if not isinstance(info, dict):
         raise InputError(f"{p / 'run.json'}: expected a JSON object")
@@ -66,12 +68,33 @@ def read_run(folder) -> RunResult:
         except Exception as exc:  # pyarrow raises several types for a damaged file
             raise InputError(f"{reps_path}: could not be read as Parquet: {exc}") from None
     else:
-        replicates = pd.DataFrame(columns=["replicate", "design", "size", "estimator", "variable", "estimate",
-                                           "se", "lower", "upper", "n", "cost"])
+        replicates = pd.DataFrame(
+            columns=[
+                "replicate",
+                "design",
+                "size",
+                "estimator",
+                "variable",
+                "estimate",
+                "se",
+                "lower",
+                "upper",
+                "n",
+                "cost",
+            ]
+        )
     alloc_path = p / "allocation.csv"
     allocation = _read_csv(alloc_path) if alloc_path.exists() else pd.DataFrame(columns=ALLOCATION_COLUMNS)
     frontier = _read_csv(p / "frontier.csv") if (p / "frontier.csv").exists() else None
     rec = _read_json(p / "recommendation.json") if (p / "recommendation.json").exists() else None
     order = _read_csv(p / "frame_order.csv") if (p / "frame_order.csv").exists() else None
-    return RunResult(summary=summary, replicates=replicates, allocation=allocation, info=info, frontier=frontier,
-                     recommendation=rec, warnings=list(info.get("warnings") or []), frame_order=order)
+    return RunResult(
+        summary=summary,
+        replicates=replicates,
+        allocation=allocation,
+        info=info,
+        frontier=frontier,
+        recommendation=rec,
+        warnings=list(info.get("warnings") or []),
+        frame_order=order,
+    )

@@ -13,8 +13,10 @@ from .findings import SHORT_ESTIMATOR, findings, money, num, summary_rows, with_
 from .figures import FIGURES, estimator_name, figure_names
 
 CAUTIONS = [
-    "The simulation treats the frame as the population. Units missing from the frame, duplicates and out-of-date "
-    "records are not rehearsed unless the scenario models them; a real frame is only as good as its coverage.",
+    "The simulation treats the frame as the population. Units missing from the frame, duplicates and "
+    "out-of-date "
+    "records are not rehearsed unless the scenario models them; a real frame is only as good as its "
+    "coverage.",
     "A synthetic frame is only as good as the structure asked for (strata, clusters, skewness, list order): "
     "the ranking of designs can change on a population that differs from it.",
     "Unless the scenario models non-response or measurement error, every sampled unit is assumed to respond "
@@ -24,11 +26,14 @@ CAUTIONS = [
     "Every measure carries Monte Carlo error (shown in brackets). A difference between designs smaller than "
     "about two of those errors is not evidence of a difference.",
     "Decisions with legal, financial or health consequences (audit findings, health or safety surveys) must "
-    "follow the applicable professional standards and local regulations, and a qualified statistician's review.",
+    "follow the applicable professional standards and local regulations, and a qualified statistician's "
+    "review.",
 ]
 
-PICKS = (("cheapest_meeting_moe", "Cheapest design meeting the margin-of-error goal"),
-         ("best_within_budget", "Most precise design within the budget"))
+PICKS = (
+    ("cheapest_meeting_moe", "Cheapest design meeting the margin-of-error goal"),
+    ("best_within_budget", "Most precise design within the budget"),
+)
 
 
 def slug(text: str) -> str:
@@ -47,18 +52,25 @@ def figure_plan(res) -> list[dict]:
         for i, var in enumerate(targets):
             stem = name if (i == 0 or var is None) else f"{name}-{slug(var)}"
             head = spec.heading if (var is None or len(variables) == 1) else f"{spec.heading}: {var}"
-            plan.append({"name": name, "stem": stem, "variable": var, "heading": head, "caption": spec.caption})
+            plan.append(
+                {"name": name, "stem": stem, "variable": var, "heading": head, "caption": spec.caption}
+            )
     return plan
 
 
 def _pick_row(p: dict, label: str) -> dict:
     cov = p.get("coverage")
-    return {"label": label, "design": p.get("design"), "size": p.get("size"),
-            "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
-            "mean_cost": money(p.get("mean_cost")), "moe": num(p.get("moe")),
-            "empirical_se": num(p.get("empirical_se")),
-            "coverage": "n/a" if cov is None else f"{100 * float(cov):.1f}%",
-            "interpolated": bool(p.get("interpolated", False))}
+    return {
+        "label": label,
+        "design": p.get("design"),
+        "size": p.get("size"),
+        "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
+        "mean_cost": money(p.get("mean_cost")),
+        "moe": num(p.get("moe")),
+        "empirical_se": num(p.get("empirical_se")),
+        "coverage": "n/a" if cov is None else f"{100 * float(cov):.1f}%",
+        "interpolated": bool(p.get("interpolated", False)),
+    }
 
 
 def recommendation_context(res) -> dict | None:
@@ -71,21 +83,35 @@ def recommendation_context(res) -> dict | None:
     for p in rec.get("passed_over") or []:
         if isinstance(p, dict):
             reason = str(p.get("reason", ""))
-            passed.append({"design": p.get("design"), "size": p.get("size"), "reason": reason,
-                           "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
-                           "untrusted": "under-cover" in reason})
+            passed.append(
+                {
+                    "design": p.get("design"),
+                    "size": p.get("size"),
+                    "reason": reason,
+                    "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
+                    "untrusted": "under-cover" in reason,
+                }
+            )
     goal = rec.get("goal") if isinstance(rec.get("goal"), dict) else {}
     goals = []
     if goal.get("moe") is not None:
         conf = goal.get("confidence")
-        goals.append(f"margin of error at most {num(goal['moe'])}"
-                     + (f" at {100 * float(conf):g}% confidence" if conf else ""))
+        goals.append(
+            f"margin of error at most {num(goal['moe'])}"
+            + (f" at {100 * float(conf):g}% confidence" if conf else "")
+        )
     if goal.get("budget") is not None:
         goals.append(f"average cost at most {money(goal['budget'])}")
-    return {"statement": rec.get("statement") or "", "picks": picks, "unmet": missing, "passed_over": passed,
-            "goal_text": " and ".join(goals), "goal_variable": goal.get("variable"),
-            "untrusted": _untrusted(passed), "rules": [str(rec[k]) for k in ("coverage_rule", "margin_rule")
-                                                       if rec.get(k)]}
+    return {
+        "statement": rec.get("statement") or "",
+        "picks": picks,
+        "unmet": missing,
+        "passed_over": passed,
+        "goal_text": " and ".join(goals),
+        "goal_variable": goal.get("variable"),
+        "untrusted": _untrusted(passed),
+        "rules": [str(rec[k]) for k in ("coverage_rule", "margin_rule") if rec.get(k)],
+    }
 
 
 def _untrusted(passed: list[dict]) -> list[dict]:
@@ -93,20 +119,26 @@ def _untrusted(passed: list[dict]) -> list[dict]:
     by = {}
     for p in passed:
         if p["untrusted"]:
-            by.setdefault(p["design"], []).append(f"{p['size']}" + (f" ({p['estimator']})" if p["estimator"] else ""))
+            by.setdefault(p["design"], []).append(
+                f"{p['size']}" + (f" ({p['estimator']})" if p["estimator"] else "")
+            )
     return [{"design": d, "where": ", ".join(dict.fromkeys(v))} for d, v in by.items()]
 
 
 def _reproduce(info: dict) -> str:
     seed, R = info.get("seed"), info.get("replicates")
     src = str(info.get("scenario") or "")
-    tail = f" --seed {seed} --replicates {R}" + (f" --jobs {info['jobs']}" if info.get("jobs", 1) != 1 else "")
+    tail = f" --seed {seed} --replicates {R}" + (
+        f" --jobs {info['jobs']}" if info.get("jobs", 1) != 1 else ""
+    )
     if src.replace("\\", "/").endswith("samplewright/data/demo.toml"):
         return f"samplewright demo --out NEW_FOLDER{tail}"
     if src:
         return f"samplewright run {src} --out NEW_FOLDER{tail}"
-    return (f"samplewright.run(scenario, replicates={R}, seed={seed}) with the same scenario "
-            f"(built in Python; its hash is recorded below)")
+    return (
+        f"samplewright.run(scenario, replicates={R}, seed={seed}) with the same scenario "
+        f"(built in Python; its hash is recorded below)"
+    )
 
 
 def _utc(ts: float | None) -> str | None:
@@ -126,8 +158,11 @@ def metadata(info: dict, finished: float | None) -> list[tuple[str, str]]:
         ("Confidence level", f"{100 * float(info.get('confidence', 0.95)):g}%"),
         ("Scenario file", str(info.get("scenario") or "built in Python")),
         ("Scenario hash (SHA-256)", str(info.get("scenario_hash"))),
-        ("Elapsed time", f"{float(info.get('elapsed_seconds', float('nan'))):.2f} s "
-                         f"(simulation {float(info.get('simulation_seconds', float('nan'))):.2f} s)"),
+        (
+            "Elapsed time",
+            f"{float(info.get('elapsed_seconds', float('nan'))):.2f} s "
+            f"(simulation {float(info.get('simulation_seconds', float('nan'))):.2f} s)",
+        ),
     ]
     if finished is not None:
         rows.append(("Run finished", _utc(finished)))
@@ -146,23 +181,45 @@ def frame_context(res) -> dict:
     if res.allocation is not None and len(res.allocation):
         pop = res.allocation.drop_duplicates("stratum")
         tot = pop["population_units"].sum()
-        strata = [{"stratum": r.stratum, "units": num(r.population_units, 9),
-                   "share": f"{100 * r.population_units / tot:.1f}%"} for r in pop.itertuples(index=False)]
-    return {"units": num(fr.get("units"), 9), "strata": fr.get("strata"), "clusters": fr.get("clusters"),
-            "variables": ", ".join(map(str, fr.get("variables") or [t["variable"] for t in truths])),
-            "source": fr.get("source") or "", "roles": roles, "truths": truths, "strata_rows": strata}
+        strata = [
+            {
+                "stratum": r.stratum,
+                "units": num(r.population_units, 9),
+                "share": f"{100 * r.population_units / tot:.1f}%",
+            }
+            for r in pop.itertuples(index=False)
+        ]
+    return {
+        "units": num(fr.get("units"), 9),
+        "strata": fr.get("strata"),
+        "clusters": fr.get("clusters"),
+        "variables": ", ".join(map(str, fr.get("variables") or [t["variable"] for t in truths])),
+        "source": fr.get("source") or "",
+        "roles": roles,
+        "truths": truths,
+        "strata_rows": strata,
+    }
 
 
 def design_rows(res) -> list[dict]:
     info = res.info or {}
     sizes = {d: sorted(set(int(x) for x in g["size"])) for d, g in res.summary.groupby("design", sort=False)}
-    ests = {d: ", ".join(estimator_name(e) for e in dict.fromkeys(g["estimator"]))
-            for d, g in res.summary.groupby("design", sort=False)}
+    ests = {
+        d: ", ".join(estimator_name(e) for e in dict.fromkeys(g["estimator"]))
+        for d, g in res.summary.groupby("design", sort=False)
+    }
     out = []
     for d in info.get("designs") or [{"label": x, "method": "", "parameters": ""} for x in sizes]:
         lab = d.get("label")
-        out.append({"label": lab, "method": d.get("method", ""), "parameters": d.get("parameters", ""),
-                    "sizes": ", ".join(map(str, sizes.get(lab, []))), "estimators": ests.get(lab, "")})
+        out.append(
+            {
+                "label": lab,
+                "method": d.get("method", ""),
+                "parameters": d.get("parameters", ""),
+                "sizes": ", ".join(map(str, sizes.get(lab, []))),
+                "estimators": ests.get(lab, ""),
+            }
+        )
     return out
 
 
@@ -173,10 +230,18 @@ def brief_rows(res, confidence: float) -> list[dict]:
     rows = []
     for var in dict.fromkeys(res.summary["variable"]):
         for r in primary_rows(res.summary, var, max_rows=10**9).itertuples(index=False):
-            rows.append({"design": r.design, "size": int(r.size), "variable": var, "mean_cost": money(r.mean_cost),
-                         "moe": num(r.moe), "bias": with_mcse(r.bias, r.bias_mcse),
-                         "coverage": with_mcse(r.coverage, r.coverage_mcse, scale=100.0),
-                         "estimator": estimator_name(r.estimator)})
+            rows.append(
+                {
+                    "design": r.design,
+                    "size": int(r.size),
+                    "variable": var,
+                    "mean_cost": money(r.mean_cost),
+                    "moe": num(r.moe),
+                    "bias": with_mcse(r.bias, r.bias_mcse),
+                    "coverage": with_mcse(r.coverage, r.coverage_mcse, scale=100.0),
+                    "estimator": estimator_name(r.estimator),
+                }
+            )
     return rows
 
 
@@ -191,8 +256,10 @@ def build_context(res, folder: Path | None = None) -> dict:
     rec = recommendation_context(res)
     notes = []
     if res.replicates is None or len(res.replicates) == 0:
-        notes.append("replicates.parquet is missing, so the figures drawn from single replicates "
-                     "(where the estimates fall, which intervals miss) are left out.")
+        notes.append(
+            "replicates.parquet is missing, so the figures drawn from single replicates "
+            "(where the estimates fall, which intervals miss) are left out."
+        )
     return {
         "title": info.get("title") or "samplewright run",
         "generator": f"samplewright {__version__}",
@@ -200,15 +267,18 @@ def build_context(res, folder: Path | None = None) -> dict:
         "confidence": confidence,
         "nominal": f"{100 * confidence:g}%",
         "replicates": num(info.get("replicates"), 9),
+        "exact": bool(info.get("exact")),
         "frame": frame_context(res),
         "designs": design_rows(res),
         "recommendation": rec,
         "findings": findings(res.summary, confidence) if len(res.summary) else [],
         "summary_rows": summary_rows(res.summary, confidence),
         "multi_variable": res.summary["variable"].nunique() > 1,
-        "estimator_legend": "; ".join(f"{SHORT_ESTIMATOR[e]}: {estimator_name(e)}"
-                                      for e in dict.fromkeys(res.summary["estimator"])
-                                      if SHORT_ESTIMATOR.get(e, estimator_name(e)) != estimator_name(e)),
+        "estimator_legend": "; ".join(
+            f"{SHORT_ESTIMATOR[e]}: {estimator_name(e)}"
+            for e in dict.fromkeys(res.summary["estimator"])
+            if SHORT_ESTIMATOR.get(e, estimator_name(e)) != estimator_name(e)
+        ),
         "brief_rows": brief_rows(res, confidence) if len(res.summary) else [],
         "warnings": warnings,
         "untrusted": rec["untrusted"] if rec else [],

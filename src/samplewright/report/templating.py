@@ -16,9 +16,14 @@ def _md(text) -> str:
 @lru_cache(maxsize=2)
 def environment(autoescape: bool) -> jinja2.Environment:
     src = files("samplewright.report") / "templates"
-    env = jinja2.Environment(loader=jinja2.FunctionLoader(lambda name: (src / name).read_text(encoding="utf-8")),
-                             autoescape=autoescape, undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
-                             trim_blocks=False, lstrip_blocks=False)
+    env = jinja2.Environment(
+        loader=jinja2.FunctionLoader(lambda name: (src / name).read_text(encoding="utf-8")),
+        autoescape=autoescape,
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+        trim_blocks=False,
+        lstrip_blocks=False,
+    )
     env.filters["md"] = _md
     return env
 
