@@ -374,6 +374,7 @@ def test_a_cycle_along_the_list_gets_its_figure(tmp_path):
     assert len(marked) == 1
     xs = marked[0].get_xdata()
     assert np.all(np.diff(xs) == 24)  # every 24th unit: one phase of the cycle
+    assert entry["walks"] == [{"design": "every 24th hour", "size": 100, "interval": 24.0, "starts": 1}]
     w, h = png_size((d / "figures" / "frame_order.png").read_bytes())
     assert w == 975 and h > 300
     # a run without a systematic design keeps no frame-order table

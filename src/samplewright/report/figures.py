@@ -782,50 +782,58 @@ def allocation_plot(
 
 @_styled
 def frame_order_plot(order: pd.DataFrame, entry: dict, summary: pd.DataFrame | None = None, ax=None):
-    """The target along the list order with its detected cycle, and where every k-th unit falls.
+    """The target along the list order with its detected cycle, and where a systematic sample falls.
 
     Parameters
     ----------
     order : DataFrame
         The run's frame_order.csv (order, variable, position, value).
     entry : dict
-        One item of run.json ``frame_order``: order, variable, units, periods, designs.
+        One item of run.json ``frame_order``: order, variable, units, periods, walks (design,
+        size, interval K between the units of one start, starts).
     summary : DataFrame, optional
-        For each systematic design's sizes: the units a sample from the first start takes
-        (positions 1 + floor(j k), k = N / n) are marked in the design's colour.
+        For the design colours.
+
+    Notes
+    -----
+    Below the series, one row of ticks per systematic design and size marks the positions
+    1 + floor(j K), j = 0, 1, ... that one start at the top of the list takes: ticks that sit
+    on the same phase between the dotted period lines show the aliasing that makes the
+    interval unsafe.
     """
     g = order[(order["order"] == entry["order"]) & (order["variable"] == entry["variable"])]
-    ax = _axes(ax, 3.4)
+    ax = _axes(ax, 3.8)
     x, y = g["position"].to_numpy(), g["value"].to_numpy(float)
-    ax.plot(x, y, color="#888888", linewidth=0.7, label=f"{entry['variable']} along the list")
+    ax.plot(x, y, color="#777777", linewidth=0.8, label=f"{entry['variable']} along the list")
     main = max(entry["periods"], key=lambda p: p["strength"])
     P = float(main["period"])
-    for m in np.arange(P, x.max() + 1, P) if P >= 1 else []:
-        ax.axvline(1 + m, color="#bbbbbb", linestyle=":", linewidth=0.8)
-    if summary is not None:
-        colours = design_colours(design_order(summary))
-        N = int(entry["units"])
-        rows = summary[summary["design"].isin(entry.get("designs") or [])].drop_duplicates(["design", "size"])
-        for r in rows.itertuples(index=False):
-            k = N / float(r.size)
-            pos = 1 + np.floor(np.arange(0, int(x.max() / k) + 1) * k).astype(int)
-            pos = pos[pos <= x.max()]
-            ax.plot(
-                pos,
-                y[pos - 1],
-                linestyle="",
-                marker="o",
-                markersize=4.5,
-                color=colours[r.design],
-                label=f"{r.design}, n = {int(r.size)}: interval k = {k:.4g}, first start",
-            )
+    if P >= 1:
+        for m in np.arange(P, x.max() + 1, P):
+            ax.axvline(1 + m, color="#bbbbbb", linestyle=":", linewidth=0.8)
+    walks = list(entry.get("walks") or [])
+    colours = design_colours(design_order(summary) if summary is not None else [w["design"] for w in walks])
+    lo, hi = float(np.nanmin(y)), float(np.nanmax(y))
+    span = hi - lo if hi > lo else 1.0
+    for i, w in enumerate(walks):
+        K = float(w["interval"])
+        if K <= 0:
+            continue
+        pos = 1 + np.floor(np.arange(0, int(x.max() / K) + 1) * K).astype(int)
+        pos = pos[pos <= x.max()]
+        row = lo - span * 0.12 * (i + 1)
+        starts = int(w.get("starts", 1))
+        extra = f", one of its {starts} starts" if starts > 1 else ""
+        ax.plot(pos, np.full(len(pos), row), linestyle="", marker="|", markersize=9, markeredgewidth=1.6,
+                color=colours.get(w["design"], PALETTE[i % len(PALETTE)]),
+                label=f"{w['design']}, n = {int(w['size'])}: every {K:.4g} units{extra}")
+    ax.set_ylim(lo - span * 0.12 * (len(walks) + 0.8), hi + span * 0.05)
+    ax.set_yticks([t for t in ax.get_yticks() if lo - 0.01 * span <= t <= hi])  # none beside the tick rows
     ax.set_xlim(0.5, x.max() + 0.5)
-    ax.set_xlabel(
-        f"Position in the {entry['order']} (first {int(x.max()):,} of {int(entry['units']):,} units)"
-    )
+    ax.set_xlabel(f"Position in the {entry['order']} (first {int(x.max()):,} of {int(entry['units']):,} units)")
     ax.set_ylabel(str(entry["variable"]))
-    ax.set_title(f"A cycle of {P:.4g} units along the {entry['order']} (dotted lines one period apart)")
-    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.22), frameon=False, ncol=1)
+    ax.set_title(f"A cycle of {P:.4g} units along the {entry['order']}; ticks: where one systematic sample falls",
+                 fontsize=9.5)
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), frameon=False, ncol=1)
     return ax
 
 
@@ -1034,9 +1042,9 @@ _register(
         "frame_order",
         "A cycle along the frame's list order",
         "The study variable along the order a systematic design walks, for its first few cycles; the dotted "
-        "lines are one detected period apart. Coloured points are the units one systematic sample would take "
-        "(the first start). When they sit on the same phase of the cycle at every pass, the estimate depends "
-        "on the start and the usual standard error does not see it.",
+        "lines are one detected period apart. Each row of coloured ticks below marks the units one systematic "
+        "sample takes from a start at the top of the list. Ticks that land on the same phase of the cycle at "
+        "every pass mean the estimate depends on the start, and the usual standard error does not see it.",
         False,
         lambda res: len(_order_entries(res)) > 0,
         _draw_order,

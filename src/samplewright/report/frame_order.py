@@ -2,8 +2,8 @@
 
 When a run has a systematic design and the frame-order detector
 (:func:`samplewright.periodicity.frame_order_report`) finds a cycle along the order that
-design walks, the run keeps a small table (``frame_order.csv``: the first few cycles of the
-target along that order) and the detected periods (run.json ``frame_order``), so the report
+design walks, the run keeps a small table (``frame_order.csv``: the first few cycles of its
+strongest period, along that order) and the detected periods (run.json ``frame_order``), so the report
 can show the cycle and where every k-th unit falls on it without the frame.
 """
 
@@ -16,7 +16,7 @@ import pandas as pd
 
 FRAME_ORDER_COLUMNS = ["order", "variable", "position", "value"]
 #: cycles of the longest detected period shown, and the most list positions kept per order and target
-CYCLES_SHOWN = 6
+CYCLES_SHOWN = 8
 MAX_POSITIONS = 3000
 
 
@@ -53,8 +53,8 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
             ]
             if not at_risk:
                 continue
-            longest = max(p.period for p in rep.periods)
-            W = int(min(frame.N, MAX_POSITIONS, max(200, math.ceil(CYCLES_SHOWN * longest))))
+            strongest = max(rep.periods, key=lambda p: p.strength).period
+            W = int(min(frame.N, MAX_POSITIONS, max(200, math.ceil(CYCLES_SHOWN * strongest))))
             order = frame.order if sort_by is None else frame.sort_orders[sort_by]
             vals = np.asarray(frame.y[np.asarray(order)[:W], v], dtype=float)
             along = _along(sort_by)
@@ -74,6 +74,12 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
                     "unsafe_intervals": unsafe_intervals(rep.periods, frame.N, min(frame.N // 2, 5000)),
                     "designs": [x.label for x in walkers],
                     "designs_at_risk": list(dict.fromkeys(at_risk)),
+                    "walks": [
+                        {"design": x.label, "size": int(size), "interval": float(x.at(size).interval(frame)),
+                         "starts": int(getattr(x, "starts", 1) or 1)}
+                        for x in walkers
+                        for size in x.sizes()
+                    ],
                 }
             )
     if not infos:

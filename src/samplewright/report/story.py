@@ -42,9 +42,16 @@ def slug(text: str) -> str:
     return s or "x"
 
 
+def figure_variables(res) -> list[str]:
+    """Study variables that get their own figures: the frame's targets (domain rows stay in the table)."""
+    have = list(dict.fromkeys(res.summary["variable"])) if len(res.summary) else []
+    targets = [v for v in ((res.info or {}).get("frame") or {}).get("variables") or [] if v in have]
+    return targets or have
+
+
 def figure_plan(res) -> list[dict]:
     """Every figure the report draws: name, file stem, variable, heading and caption."""
-    variables = list(dict.fromkeys(res.summary["variable"])) if len(res.summary) else []
+    variables = figure_variables(res)
     plan = []
     for name in figure_names(res):
         spec = FIGURES[name]
@@ -271,7 +278,9 @@ def build_context(res, folder: Path | None = None) -> dict:
         "frame": frame_context(res),
         "designs": design_rows(res),
         "recommendation": rec,
-        "findings": findings(res.summary, confidence) if len(res.summary) else [],
+        "findings": findings(res.summary[res.summary["variable"].isin(figure_variables(res))], confidence)
+        if len(res.summary)
+        else [],
         "summary_rows": summary_rows(res.summary, confidence),
         "multi_variable": res.summary["variable"].nunique() > 1,
         "estimator_legend": "; ".join(
