@@ -384,36 +384,68 @@ def _dask_client(scheduler: str | None):
                          f"({type(exc).__name__}: {exc})") from None
 
 
-def replicate_table(results: list[BlockResult], cells: list[Cell], variables) -> pd.DataFrame:
-    """Tidy per-replicate table (contract columns), ordered by design, size, estimator, variable, replicate."""
-    results = sorted(results, key=lambda r: (r.cell, r.block))
-    frames = []
+def replicate_table(results: list[BlockResult], cells: list[Cell], variables, consume: bool = False) -> pd.DataFrame:
+    """Tidy per-replicate table (contract columns), ordered by design, size, estimator, variable, replicate.
+
+    Each column is allocated once at its final length and filled block by block.  With
+    ``consume``, ``results`` is emptied and each cell's blocks are released as soon as they
+    are copied in, so building the table of a long run needs little more memory than the
+    blocks or the table, not both plus intermediate copies.
+    """
+    by_cell: dict[int, list[BlockResult]] = {}
+    for r in sorted(results, key=lambda r: (r.cell, r.block)):
+        by_cell.setdefault(r.cell, []).append(r)
+    if consume:
+        results.clear()
     V = len(variables)
+    plan, total = [], 0  # (cell id, cell, estimators E, replicates R, first row)
     for ci, cell in enumerate(cells):
-        mine = [r for r in results if r.cell == ci]
-        if not mine:
-            continue
-        est = np.concatenate([r.estimate for r in mine], axis=1)  # (E, R, V)
-        se = np.concatenate([r.se for r in mine], axis=1)
-        lo = np.concatenate([r.lower for r in mine], axis=1)
-        hi = np.concatenate([r.upper for r in mine], axis=1)
-        n = np.concatenate([r.n for r in mine])
-        cost = np.concatenate([r.cost for r in mine])
-        rep = np.concatenate([np.arange(r.start, r.start + len(r.n)) for r in mine])
-        E, R = est.shape[0], est.shape[1]
-        # layout: estimator, variable, replicate
-        frames.append(pd.DataFrame({
-            "replicate": np.tile(rep, E * V),
-            "design": cell.design.label,
-            "size": int(cell.design.size),
-            "estimator": np.repeat(np.array(cell.estimators, dtype=object), V * R),
-            "variable": np.tile(np.repeat(np.array(variables, dtype=object), R), E),
-            "estimate": est.transpose(0, 2, 1).reshape(-1),
-            "se": se.transpose(0, 2, 1).reshape(-1),
-            "lower": lo.transpose(0, 2, 1).reshape(-1),
-            "upper": hi.transpose(0, 2, 1).reshape(-1),
-            "n": np.tile(n, E * V),
-            "cost": np.tile(cost, E * V),
-            **replicate_columns(mine, E, V),  # fieldwork columns, when the run has them
-        }))
-    return pd.concat(frames, ignore_index=True)
+        if by_cell.get(ci):
+            E, R = by_cell[ci][0].estimate.shape[0], sum(len(r.n) for r in by_cell[ci])
+            plan.append((ci, cell, E, R, total))
+            total += E * V * R
+    num = {"replicate": np.empty(total, dtype=np.int64)}
+    for k in ("estimate", "se", "lower", "upper", "n", "cost"):
+        num[k] = np.empty(total)
+    extras = []
+    for ci, cell, E, R, first in plan:
+        mine = by_cell.pop(ci)
+        rows = slice(first, first + E * V * R)
+        for k in ("estimate", "se", "lower", "upper"):  # rows ordered estimator, variable, replicate
+            dst, at = num[k][rows].reshape(E, V, R), 0
+            for r in mine:
+                b = len(r.n)
+                dst[:, :, at:at + b] = getattr(r, k).transpose(0, 2, 1)
+                at += b
+        num["n"][rows].reshape(E * V, R)[:] = np.concatenate([r.n for r in mine])
+        num["cost"][rows].reshape(E * V, R)[:] = np.concatenate([r.cost for r in mine])
+        num["replicate"][rows].reshape(E * V, R)[:] = np.concatenate(
+            [np.arange(r.start, r.start + len(r.n)) for r in mine])
+        extras.append(replicate_columns(mine, E, V))  # fieldwork columns, when the run has them
+        del mine
+    lengths = [E * V * R for _, _, E, R, _ in plan]
+    text = {
+        "design": np.repeat(np.array([c.design.label for _, c, _, _, _ in plan], dtype=object), lengths),
+        "estimator": np.concatenate([np.repeat(np.array(c.estimators, dtype=object), V * R)
+                                     for _, c, E, R, _ in plan] or [np.array([], dtype=object)]),
+        "variable": np.concatenate([np.tile(np.repeat(np.array(variables, dtype=object), R), E)
+                                    for _, c, E, R, _ in plan] or [np.array([], dtype=object)]),
+    }
+    size = np.repeat(np.array([int(c.design.size) for _, c, _, _, _ in plan], dtype=np.int64), lengths)
+    columns = {"replicate": num.pop("replicate")}
+    columns["design"] = pd.Series(text.pop("design"))  # text: the dtype pandas infers for it
+    columns["size"] = size
+    columns["estimator"] = pd.Series(text.pop("estimator"))
+    columns["variable"] = pd.Series(text.pop("variable"))
+    columns.update(num)
+    table = pd.DataFrame(columns, copy=False)
+    if any(extras):
+        keys = list(extras[0])
+        if all(list(e) == keys for e in extras):
+            for k in keys:
+                table[k] = np.concatenate([e.pop(k) for e in extras])
+        else:  # cells with different extra columns: aligned by pandas, NaN where a cell has none
+            more = pd.concat([pd.DataFrame(e, index=pd.RangeIndex(first, first + n))
+                              for e, (_, _, _, _, first), n in zip(extras, plan, lengths)])
+            table = pd.concat([table, more], axis=1)
+    return table

@@ -179,7 +179,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
                                            **common)
     bar.close()
     t2 = time.monotonic()
-    reps = replicate_table(results, cells, frame.layout.names)  # targets, then domain variables
+    reps = replicate_table(results, cells, frame.layout.names, consume=True)  # targets, then domain variables
     methods = {d.label: d.method for d in scenario.designs}
     summary = summarise(reps, truth_frame, methods, scenario.confidence)
     if field is not None:  # response, bias split and full-response columns after the contract ones
