@@ -174,6 +174,11 @@ def metadata(info: dict, finished: float | None) -> list[tuple[str, str]]:
     if finished is not None:
         rows.append(("Run finished", _utc(finished)))
     rows.append(("Versions", ", ".join(f"{k} {v}" for k, v in versions.items())))
+    import jinja2
+    import matplotlib
+
+    rows.append(("Report drawn with", f"samplewright {__version__}, matplotlib {matplotlib.__version__}, "
+                                      f"jinja2 {jinja2.__version__}"))
     return rows
 
 
