@@ -85,12 +85,19 @@ def sampford_route(pi: np.ndarray) -> str:
     when the Poisson sample has n - 1 units and the draw is not among them; cost about N
     per attempt, acceptance about 1 / sqrt(2 pi sum pi_i (1 - pi_i)).
     """
+    a_draws, a_pois = sampford_acceptance(pi)
+    n = float(pi.sum())
+    return "draws" if a_draws / max(n, 1.0) >= a_pois / pi.size else "poisson"
+
+
+def sampford_acceptance(pi: np.ndarray) -> tuple[float, float]:
+    """Approximate acceptance rates of the "draws" and "poisson" routes (see `sampford_route`)."""
     n = float(pi.sum())
     lam = pi / (1.0 - pi)
     q = lam / lam.sum()
-    a_draws = np.exp(-0.5 * n * n * float((q * q).sum()))
+    a_draws = float(np.exp(-0.5 * n * n * float((q * q).sum())))
     a_pois = 1.0 / np.sqrt(2.0 * np.pi * max(float((pi * (1 - pi)).sum()), 1e-12))
-    return "draws" if a_draws / max(n, 1.0) >= a_pois / pi.size else "poisson"
+    return a_draws, a_pois
 
 
 def sampford_draw(rng: np.random.Generator, pi: np.ndarray, B: int, route: str | None = None) -> np.ndarray:
