@@ -228,3 +228,16 @@ def test_exact_run_writes_contract_files(tmp_path):
     assert {d["label"]: d["variance"] for d in info["designs"]} == {"simple": "psu", "by size": "hansen_hurwitz"}
     reps = pd.read_parquet(out / "replicates.parquet")
     assert reps.groupby(["design", "estimator"])["probability"].sum().round(12).eq(1.0).all()
+
+
+def test_every_design_exposes_enumeration(frame):
+    # the classic designs reach exact.py through Design.enumerate / count_samples
+    srs = METHODS["srs"]("srs", n=4)
+    assert srs.count_samples(frame) == math.comb(12, 4)
+    rows = sum(len(p) for _, p in srs.enumerate(frame, chunk=100))
+    assert rows == math.comb(12, 4)
+    from samplewright import InputError
+
+    pareto = METHODS["pareto"]("p", n=3)
+    with pytest.raises(InputError, match="exact mode is not available for method 'pareto'"):
+        pareto.enumerate(frame)

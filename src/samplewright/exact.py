@@ -144,43 +144,54 @@ def _cluster(d, frame, chunk):
                               variance=d.variance_name), np.full(R, p)
 
 
+def _count_srs(design, frame):
+    n, N = int(design.n), frame.N
+    if design.replace:
+        return N ** n, f"N^n = {N}^{n}"
+    return math.comb(N, n), f"C(N, n) = C({N}, {n})"
+
+
+def _count_stratified(design, frame):
+    n_h = design.n_h(frame)
+    parts = [(int(N), int(k)) for N, k in zip(frame.N_h, n_h) if k > 0]
+    count = math.prod(math.comb(N, k) for N, k in parts)
+    shown = " x ".join(f"C({N}, {k})" for N, k in parts[:4]) + (" x ..." if len(parts) > 4 else "")
+    return count, f"prod_h C(N_h, n_h) = {shown}"
+
+
+def _count_systematic(design, frame):
+    return len(_systematic_starts(design, frame)[0]), "distinct random starts"
+
+
+def _count_cluster(design, frame):
+    m, C = int(design.clusters), frame.C
+    k = _cluster_take(design, frame)
+    if k is None:
+        return math.comb(C, m), f"C(clusters, m) = C({C}, {m})"
+    a = [math.comb(int(M), min(int(M), k)) for M in frame.cluster_sizes]
+    return elementary_symmetric(a, m), f"sum over the C({C}, {m}) cluster sets of prod_c C(M_c, {k})"
+
+
+#: the four classic designs are enumerated here (their classes reach these through Design.enumerate)
+CORE_ENUMERATORS = {"srs": _srs, "stratified": _stratified, "systematic": _systematic, "cluster": _cluster}
+CORE_COUNTS = {"srs": _count_srs, "stratified": _count_stratified, "systematic": _count_systematic,
+               "cluster": _count_cluster}
+
+#: how each other method's count is described in a refusal
+_COUNT_TEXT = {"poisson": "2^(units with pi < 1)", "bernoulli": "2^N", "pps_wr": "N^n",
+               "sampford": "C(units without certainty, n without certainty)", "pps_systematic": "distinct random starts",
+               "stratified_cluster": "prod over strata of the cluster subsets (and their second-stage subsets)"}
+
+
 def count_samples(design, frame) -> tuple[int, str]:
     """Number of possible samples of ``design`` and how it is counted (for messages)."""
-    meth = design.method
-    if meth == "srs":
-        n, N = int(design.n), frame.N
-        if design.replace:
-            return N ** n, f"N^n = {N}^{n}"
-        return math.comb(N, n), f"C(N, n) = C({N}, {n})"
-    if meth == "stratified":
-        n_h = design.n_h(frame)
-        parts = [(int(N), int(k)) for N, k in zip(frame.N_h, n_h) if k > 0]
-        count = math.prod(math.comb(N, k) for N, k in parts)
-        shown = " x ".join(f"C({N}, {k})" for N, k in parts[:4]) + (" x ..." if len(parts) > 4 else "")
-        return count, f"prod_h C(N_h, n_h) = {shown}"
-    if meth == "systematic":
-        return len(_systematic_starts(design, frame)[0]), "distinct random starts"
-    if meth == "cluster":
-        m, C = int(design.clusters), frame.C
-        k = _cluster_take(design, frame)
-        if k is None:
-            return math.comb(C, m), f"C(clusters, m) = C({C}, {m})"
-        a = [math.comb(int(M), min(int(M), k)) for M in frame.cluster_sizes]
-        return elementary_symmetric(a, m), f"sum over the C({C}, {m}) cluster sets of prod_c C(M_c, {k})"
-    count = design.count_samples(frame)  # the design's own rule (size-proportional, random size)
-    how = {"poisson": "2^(units with pi < 1)", "bernoulli": "2^N", "pps_wr": f"N^n = {frame.N}^{design.size}",
-           "sampford": "C(units without certainty, n without certainty)",
-           "pps_systematic": "distinct random starts",
-           "stratified_cluster": "prod over strata of the cluster subsets (and their second-stage subsets)"}.get(
-        meth, "possible samples")
-    return count, how
+    if design.method in CORE_COUNTS:
+        return CORE_COUNTS[design.method](design, frame)
+    return design.count_samples(frame), _COUNT_TEXT.get(design.method, "possible samples")
 
 
 def enumerate_design(design, frame, chunk: int = 20_000):
     """Yield ``(SampleBlock, probabilities)`` over every possible sample of ``design``."""
-    core = {"srs": _srs, "stratified": _stratified, "systematic": _systematic, "cluster": _cluster}
-    if design.method in core:
-        return core[design.method](design, frame, chunk)
     return design.enumerate(frame, chunk)
 
 

@@ -101,10 +101,18 @@ class Design:
     # ------------------------------------------------------------ exact mode
     def count_samples(self, frame: Frame) -> int:
         """Number of possible samples (with positive probability); see :mod:`samplewright.exact`."""
+        from ..exact import CORE_COUNTS
+
+        if self.method in CORE_COUNTS:  # srs, stratified, systematic, cluster: counted in exact.py
+            return CORE_COUNTS[self.method](self, frame)[0]
         raise InputError(f"design {self.label!r}: exact mode is not available for method {self.method!r}")
 
     def enumerate(self, frame: Frame, chunk: int = 20_000):
         """Yield ``(SampleBlock, probabilities)`` over every possible sample, in chunks."""
+        from ..exact import CORE_ENUMERATORS
+
+        if self.method in CORE_ENUMERATORS:  # srs, stratified, systematic, cluster: enumerated in exact.py
+            return CORE_ENUMERATORS[self.method](self, frame, chunk)
         raise InputError(f"design {self.label!r}: exact mode is not available for method {self.method!r}")
 
     @property
