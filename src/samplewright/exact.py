@@ -195,6 +195,14 @@ def enumerate_design(design, frame, chunk: int = 20_000):
     return design.enumerate(frame, chunk)
 
 
+def _big(count: int) -> str:
+    """A count with thousands separators, or as about d.dd x 10^k when it has more than 15 digits."""
+    text = str(count)
+    if len(text) <= 15:
+        return f"{count:,}"
+    return f"about {text[0]}.{text[1:3]} x 10^{len(text) - 1}"
+
+
 def check_counts(frame, cells, limit: int = LIMIT) -> dict:
     """Refuse (InputError) any cell with more than ``limit`` samples; return the counts by cell index."""
     counts = {}
@@ -202,7 +210,7 @@ def check_counts(frame, cells, limit: int = LIMIT) -> dict:
         d = cell.design
         count, how = count_samples(d, frame)
         if count > limit:
-            raise InputError(f"--exact: design {d.label!r} at size {d.size} has {how} = {count:,} possible "
+            raise InputError(f"--exact: design {d.label!r} at size {d.size} has {how} = {_big(count)} possible "
                              f"samples, more than the limit of {limit:,}; run without --exact (Monte Carlo) "
                              f"or use a smaller frame or sample")
         counts[ci] = count
