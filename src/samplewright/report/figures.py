@@ -689,9 +689,13 @@ def cost_precision_plot(
                 label=f"target margin of error {float(goals['moe']):.3g}",
             )
         )
+    merged = {}  # one ring and one label per point, even when it answers both goals
     for name, p in (picks or {}).items():
-        if not p:
-            continue
+        if p:
+            key = (p.get("design"), p.get("size"), p.get("estimator"), p.get("variable"))
+            merged.setdefault(key, (p, []))[1].append(name)
+    for p, names in merged.values():
+        name = " and ".join(names)
         hit = pts[(pts["design"] == p.get("design")) & (pts["size"] == p.get("size"))]
         if p.get("estimator") and len(hit) > 1:
             hit = hit[hit["estimator"] == p["estimator"]]
