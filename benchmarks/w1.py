@@ -180,17 +180,27 @@ def stages(sc, frame, B: int = 500, k: int = 10) -> dict:
 
 
 def peak_memory(replicates: int) -> dict:
-    """Peak resident memory (ru_maxrss) of a child process that builds W1 and runs it."""
+    """Peak resident memory of a child process that builds W1 and runs it.
+
+    Read from the child's own VmHWM (/proc/self/status): Linux carries ru_maxrss over
+    fork and exec, so the child's ru_maxrss would start at this (large) process's peak.
+    """
     code = (
         "import sys, resource, json; sys.path.insert(0, %r)\n"
+        "def hwm():\n"
+        "    try:\n"
+        "        for line in open('/proc/self/status'):\n"
+        "            if line.startswith('VmHWM:'): return int(line.split()[1])\n"
+        "    except OSError: pass\n"
+        "    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
         "from w1_scenario import w1_doc\n"
         "from samplewright.scenario import scenario_from_dict\n"
         "from samplewright.runner import run\n"
         "sc = scenario_from_dict(w1_doc(%d)); f = sc.load_frame()\n"
-        "base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+        "base = hwm()\n"
         "res = run(sc, frame=f)\n"
         "print(json.dumps({'after_frame_kib': base, "
-        "'peak_kib': resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, 'rows': len(res.replicates), "
+        "'peak_kib': hwm(), 'rows': len(res.replicates), "
         "'table_bytes': int(res.replicates.memory_usage(deep=True).sum())}))\n"
     ) % (str(HERE), replicates)
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
