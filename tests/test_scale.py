@@ -375,3 +375,5 @@ def test_gather_equals_plain_indexing(with_cost):
     got = f.gather(units)
     assert got.shape == units.shape + (f.values.shape[1],)
     np.testing.assert_array_equal(got, f.values[units])
+    # positions in the stratum-grouped order read the same rows as their units
+    np.testing.assert_array_equal(f.gather_in_strata(units), f.values[f.strata_units[units]])

@@ -172,6 +172,29 @@ class Frame:
         out = np.take(self.rows, units, axis=0)
         return out if out.shape[-1] == k else out[..., :k]
 
+    def gather_in_strata(self, pos: np.ndarray) -> np.ndarray:
+        """``gather(strata_units[pos])`` for positions in the stratum-grouped unit order.
+
+        The rows are read from a copy of the table sorted by stratum (built on first use), so
+        positions drawn within strata read memory in increasing order instead of at random.
+        """
+        table = self.__dict__.get("_by_stratum")
+        if table is None:
+            source = self.column if self.column is not None else self.rows
+            table = np.take(source, self.strata_units, axis=0)
+            object.__setattr__(self, "_by_stratum", table)
+        k = self.values.shape[1]
+        if self.column is not None:
+            out = np.empty((k,) + np.shape(pos))
+            for j in range(k):
+                if j in self.constants:
+                    out[j].fill(self.constants[j])
+                else:
+                    out[j] = np.take(table, pos)
+            return np.moveaxis(out, 0, -1)
+        out = np.take(table, pos, axis=0)
+        return out if out.shape[-1] == k else out[..., :k]
+
     # ----------------------------------------------------------------- sizes
     @property
     def N(self) -> int:

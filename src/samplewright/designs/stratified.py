@@ -87,15 +87,18 @@ class Stratified(Design):
     def _draw(self, frame, rng, B, keep_units):
         n_h = self.n_h(frame)
         N_h = frame.N_h
-        parts = []
-        for h in np.flatnonzero(n_h):
-            pos = distinct_positions(rng, N_h[h], int(n_h[h]), (B,))
-            parts.append(frame.strata_units[frame.strata_offsets[h] + pos])
-        units = np.concatenate(parts, axis=1)
         strata = np.flatnonzero(n_h)
+        pos = np.empty((B, int(n_h.sum())), dtype=np.int64)  # positions in the stratum-grouped order
+        at = 0
+        for h in strata:
+            k = int(n_h[h])
+            pos[:, at:at + k] = distinct_positions(rng, N_h[h], k, (B,))
+            pos[:, at:at + k] += frame.strata_offsets[h]
+            at += k
+        units = np.take(frame.strata_units, pos) if keep_units else None
         psu_stratum = np.repeat(strata, n_h[strata])
         return SampleBlock(
-            sums=frame.gather(units),
+            sums=frame.gather_in_strata(pos),
             weight=(N_h / np.maximum(n_h, 1))[psu_stratum],
             psu_stratum=psu_stratum,
             fpc=1.0 - n_h / N_h,
