@@ -173,16 +173,24 @@ class Frame:
         return out if out.shape[-1] == k else out[..., :k]
 
     def gather_in_strata(self, pos: np.ndarray) -> np.ndarray:
-        """``gather(strata_units[pos])`` for positions in the stratum-grouped unit order.
+        """``gather(strata_units[pos])`` for positions in the stratum-grouped unit order."""
+        return self.gather_through(self.strata_units, pos)
 
-        The rows are read from a copy of the table sorted by stratum (built on first use), so
-        positions drawn within strata read memory in increasing order instead of at random.
+    def gather_through(self, index: np.ndarray, pos: np.ndarray) -> np.ndarray:
+        """``gather(index[pos])``, for ``index`` one of the frame's own unit orders.
+
+        The rows are read from a copy of the table permuted by ``index`` (built on first use
+        and kept), so positions that increase along that order (within strata, along the
+        list) read memory in increasing order instead of at random.
         """
-        table = self.__dict__.get("_by_stratum")
+        cache = self.__dict__.get("_permuted")
+        if cache is None:
+            cache = {}
+            object.__setattr__(self, "_permuted", cache)
+        table = cache.get(id(index))
         if table is None:
             source = self.column if self.column is not None else self.rows
-            table = np.take(source, self.strata_units, axis=0)
-            object.__setattr__(self, "_by_stratum", table)
+            table = cache[id(index)] = np.take(source, index, axis=0)
         k = self.values.shape[1]
         if self.column is not None:
             out = np.empty((k,) + np.shape(pos))

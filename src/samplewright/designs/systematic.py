@@ -132,8 +132,8 @@ class Systematic(Design):
             flat = pos.reshape(B, n)
             if variance == "successive_differences":
                 flat = np.sort(flat, axis=1)  # neighbours in list order
-            units = order[flat]
-            sums = frame.gather(units)
+            units = order[flat] if keep_units else None
+            sums = frame.gather_through(order, flat)  # rows read along the list order
             weight, psu, fpc = np.full(n, N / n), np.zeros(n, dtype=np.int64), np.array([1.0 - n / N])
         return SampleBlock(
             sums=sums,
