@@ -40,15 +40,23 @@ def distinct_positions(rng: np.random.Generator, M, k: int, lead: tuple[int, ...
         return _by_keys(rng, M, k, lead, mmax)
     Mb = np.broadcast_to(M, lead)[..., None]
     pos = np.floor(rng.random(lead + (k,)) * Mb).astype(np.int64)
-    while True:
-        pos.sort(axis=-1)
-        dup = np.zeros(pos.shape, dtype=bool)
-        dup[..., 1:] = pos[..., 1:] == pos[..., :-1]
-        count = int(dup.sum())
-        if count == 0:
+    pos.sort(axis=-1)
+    flat = pos.reshape(-1, k)  # a view: rows are the cells of lead
+    Mrows = np.broadcast_to(Mb, pos.shape).reshape(-1, k)
+    rows = np.arange(flat.shape[0])  # rows still to check; once a row has no repeat it is final
+    while True:  # redraw repeats in row order, then re-sort and re-check only the rows that had them
+        sub = flat[rows]
+        same = sub[:, 1:] == sub[:, :-1]
+        bad = same.any(axis=1)
+        if not bad.any():
             return pos
-        fresh = np.floor(rng.random(count) * np.broadcast_to(Mb, pos.shape)[dup]).astype(np.int64)
-        pos[dup] = fresh
+        rows, sub = rows[bad], sub[bad]
+        dup = np.zeros(sub.shape, dtype=bool)
+        dup[:, 1:] = same[bad]
+        count = int(dup.sum())
+        sub[dup] = np.floor(rng.random(count) * Mrows[rows][dup]).astype(np.int64)
+        sub.sort(axis=-1)
+        flat[rows] = sub
 
 
 def _by_keys(rng, M, k, lead, mmax):
