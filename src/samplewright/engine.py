@@ -203,8 +203,9 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
     """Run ``run_block`` for each task (cell id, block, start, count); yield results as they finish.
 
     ``backend="local"`` runs in this process when ``jobs`` is 1, else on ``jobs`` worker
-    processes forked from this one (where the platform forks; otherwise joblib's loky
-    workers reading a memory-mapped copy of the frame); ``backend="dask"`` sends the blocks to the dask.distributed scheduler
+    processes forked from this one (where the platform forks and this process runs no
+    other thread; otherwise joblib's loky workers reading a memory-mapped copy of the
+    frame); ``backend="dask"`` sends the blocks to the dask.distributed scheduler
     at ``scheduler`` through joblib's dask backend, with the frame scattered to the workers
     once (not shipped with every block).
     """
@@ -229,8 +230,10 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
             yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
         return
     import multiprocessing as mp
+    import threading
 
-    if "fork" in mp.get_all_start_methods():
+    # forking a process that runs other threads can deadlock the child: then loky's workers
+    if "fork" in mp.get_all_start_methods() and threading.active_count() == 1:
         yield from _forked(frame, cells, calls, jobs, confidence, cost)
         return
     import shutil
