@@ -28,3 +28,49 @@ def small_frame():
 def mc_tolerance(sd: float, replicates: int, z: float = Z) -> float:
     """z times the Monte Carlo SE of a mean of ``replicates`` draws with standard deviation ``sd``."""
     return z * sd / np.sqrt(replicates)
+
+
+def simulate_design(frame, design, estimator="ht", replicates=20_000, seed=7, confidence=0.95):
+    """Replicate table of one design at one size (blocks of 1000), for checks against exact values."""
+    from samplewright.cost import CostModel
+    from samplewright.engine import Cell, replicate_table, simulate
+
+    cells = [Cell(design=design, design_index=0, size_index=0, estimators=(estimator,))]
+    res = simulate(frame, cells, replicates, seed, 1000, confidence, CostModel())
+    return replicate_table(res, cells, frame.variables)
+
+
+def assert_matches_exact(reps, samples, truth, confidence=0.95, unbiased=False):
+    """Simulated replicates against the exact design distribution of an enumeration.
+
+    ``samples`` lists (probability, estimate, se, df) for every possible sample.  The mean,
+    variance, coverage and mean estimated variance of the replicates must agree with the exact
+    values within Z Monte Carlo SEs (Morris, White & Crowther 2019, Table 6; the MCSE of a
+    sample variance is sqrt((m4 - var^2) / R), from the exact fourth central moment).
+    Returns the exact (mean, variance, coverage).
+    """
+    import math
+
+    from scipy import stats
+
+    p = np.array([s[0] for s in samples])
+    assert abs(p.sum() - 1.0) < 1e-12
+    est = np.array([s[1] for s in samples])
+    se = np.array([s[2] for s in samples])
+    q = np.array([stats.t.ppf(0.5 + confidence / 2, s[3]) for s in samples])
+    mean = float(p @ est)
+    var = float(p @ (est - mean) ** 2)
+    m4 = float(p @ (est - mean) ** 4)
+    cover_exact = float(p @ ((est - q * se <= truth) & (truth <= est + q * se)))
+    if unbiased:
+        assert abs(mean - truth) < 1e-9  # HT is exactly unbiased over the design's samples
+    x = reps["estimate"].to_numpy()
+    n = len(x)
+    assert abs(x.mean() - mean) < Z * math.sqrt(var / n) + 1e-12
+    assert abs(x.var(ddof=1) - var) < Z * math.sqrt(max(m4 - var**2, 1e-300) / n)
+    cover = float(((reps["lower"] <= truth) & (truth <= reps["upper"])).mean())
+    assert abs(cover - cover_exact) < Z * math.sqrt(max(cover_exact * (1 - cover_exact), 1 / n) / n)
+    v_exact = float(p @ se**2)
+    v_sd = math.sqrt(float(p @ (se**2 - v_exact) ** 2))
+    assert abs((reps["se"].to_numpy() ** 2).mean() - v_exact) < Z * v_sd / math.sqrt(n) + 1e-12
+    return mean, var, cover_exact

@@ -16,53 +16,20 @@ import math
 
 import numpy as np
 import pytest
-from scipy import stats
 
 from samplewright.designs import SRS, Cluster, Systematic
-from samplewright.engine import Cell, replicate_table, simulate
-from samplewright.cost import CostModel
-from conftest import Z
+from conftest import Z, assert_matches_exact, simulate_design
 
 CONF = 0.95
 R = 20_000
 
 
-def exact_moments(samples):
-    """samples: list of (probability, estimate, se, df) -> exact E, Var, m4, coverage, given truth."""
-    p = np.array([s[0] for s in samples])
-    assert abs(p.sum() - 1.0) < 1e-12
-    est = np.array([s[1] for s in samples])
-    se = np.array([s[2] for s in samples])
-    q = np.array([stats.t.ppf(0.5 + CONF / 2, s[3]) for s in samples])
-    mean = float(p @ est)
-    var = float(p @ (est - mean) ** 2)
-    m4 = float(p @ (est - mean) ** 4)
-    return p, est, se, q, mean, var, m4
-
-
-def simulated(frame, design, estimator="ht", replicates=R, seed=7):
-    cells = [Cell(design=design, design_index=0, size_index=0, estimators=(estimator,))]
-    res = simulate(frame, cells, replicates, seed, 1000, CONF, CostModel())
-    return replicate_table(res, cells, frame.variables)
+def simulated(frame, design, estimator="ht"):
+    return simulate_design(frame, design, estimator, replicates=R, seed=7, confidence=CONF)
 
 
 def check_against_exact(reps, samples, truth):
-    p, est, se, q, mean, var, m4 = exact_moments(samples)
-    cover_exact = float(p @ ((est - q * se <= truth) & (truth <= est + q * se)))
-    x = reps["estimate"].to_numpy()
-    n = len(x)
-    # mean: MCSE = sqrt(Var / R)
-    assert abs(x.mean() - mean) < Z * math.sqrt(var / n)
-    # variance: MCSE of a sample variance = sqrt((m4 - var^2) / R) (moment formula)
-    assert abs(x.var(ddof=1) - var) < Z * math.sqrt(max(m4 - var**2, 1e-300) / n)
-    # coverage: binomial MCSE sqrt(c (1 - c) / R)
-    cover = float(((reps["lower"] <= truth) & (truth <= reps["upper"])).mean())
-    assert abs(cover - cover_exact) < Z * math.sqrt(max(cover_exact * (1 - cover_exact), 1 / n) / n)
-    # mean estimated variance: MCSE from the exact spread of se^2
-    v_exact = float(p @ se**2)
-    v_sd = math.sqrt(float(p @ (se**2 - v_exact) ** 2))
-    assert abs((reps["se"].to_numpy() ** 2).mean() - v_exact) < Z * v_sd / math.sqrt(n) + 1e-12
-    return mean, var, cover_exact
+    return assert_matches_exact(reps, samples, truth, confidence=CONF)
 
 
 def srs_sample_stats(values, N):

@@ -16,14 +16,11 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import Z
-from scipy import stats
+from conftest import Z, assert_matches_exact, simulate_design
 
 from samplewright import Frame
 from samplewright.block import SampleBlock
-from samplewright.cost import CostModel
 from samplewright.designs import Systematic
-from samplewright.engine import Cell, replicate_table, simulate
 from samplewright.errors import InputError
 from samplewright.estimators import hajek, horvitz_thompson
 from samplewright.scenario import scenario_from_dict
@@ -33,30 +30,12 @@ R = 20_000
 
 
 def simulated(frame, design, estimator="ht", replicates=R, seed=11):
-    cells = [Cell(design=design, design_index=0, size_index=0, estimators=(estimator,))]
-    res = simulate(frame, cells, replicates, seed, 1000, CONF, CostModel())
-    return replicate_table(res, cells, frame.variables)
+    return simulate_design(frame, design, estimator, replicates=replicates, seed=seed, confidence=CONF)
 
 
 def exact_check(reps, samples, truth):
     """samples: (probability, estimate, se, df).  Mean, variance and coverage within Z MCSE."""
-    p = np.array([s[0] for s in samples])
-    assert abs(p.sum() - 1) < 1e-12
-    est = np.array([s[1] for s in samples])
-    se = np.array([s[2] for s in samples])
-    q = np.array([stats.t.ppf(0.5 + CONF / 2, s[3]) for s in samples])
-    mean = float(p @ est)
-    var = float(p @ (est - mean) ** 2)
-    m4 = float(p @ (est - mean) ** 4)
-    cover = float(p @ ((est - q * se <= truth) & (truth <= est + q * se)))
-    x = reps["estimate"].to_numpy()
-    n = len(x)
-    assert abs(mean - truth) < 1e-9  # HT is exactly unbiased over the starts
-    assert abs(x.mean() - mean) < Z * math.sqrt(var / n) + 1e-12
-    assert abs(x.var(ddof=1) - var) < Z * math.sqrt(max(m4 - var**2, 1e-300) / n)
-    c = float(((reps["lower"] <= truth) & (truth <= reps["upper"])).mean())
-    assert abs(c - cover) < Z * math.sqrt(max(cover * (1 - cover), 1 / n) / n)
-    return mean, var, cover
+    return assert_matches_exact(reps, samples, truth, confidence=CONF, unbiased=True)
 
 
 def srs_se(ys, N):
