@@ -50,11 +50,7 @@ class Design:
 
     def at(self, size: int) -> "Design":
         """A copy of this design with a single size (one point of a sweep)."""
-        d = copy.copy(self)
-        d._params = dict(self._params)
-        d._params[self.size_key] = int(size)
-        setattr(d, self.size_key, int(size))
-        return d
+        return self.with_params(**{self.size_key: int(size)})
 
     def with_params(self, **params) -> "Design":
         """A copy of this design with some parameters changed.
@@ -76,8 +72,7 @@ class Design:
 
     def draw(self, frame: Frame, rng: np.random.Generator, B: int, keep_units: bool = False) -> SampleBlock:
         """Draw ``B`` replicate samples as one :class:`SampleBlock`."""
-        block = self._draw(frame, rng, int(B), keep_units)
-        return block
+        return self._draw(frame, rng, int(B), keep_units)
 
     def _draw(self, frame, rng, B, keep_units) -> SampleBlock:  # pragma: no cover - abstract
         raise NotImplementedError
@@ -134,6 +129,16 @@ class Design:
         if not present:
             raise InputError(f"design {self.label!r} ({self.method}) needs a {role} column: "
                              f"set {role} = \"column\" in [frame]")
+
+    def _check_second_stage(self, frame: Frame) -> None:
+        """Refuse a ``units_per_cluster`` above the smallest cluster unless ``cap_units`` is set."""
+        if self.units_per_cluster is None:
+            return
+        k = self._positive_int("units_per_cluster", self.units_per_cluster)
+        smallest = int(frame.cluster_sizes.min())
+        if k > smallest and not self.cap_units:
+            raise InputError(f"design {self.label!r}: units_per_cluster = {k} is larger than the smallest "
+                             f"cluster ({smallest} units); set cap_units = true to take such clusters whole")
 
     def _positive_int(self, key: str, value) -> int:
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value <= 0:

@@ -33,12 +33,7 @@ class Cluster(Design):
         if m > frame.C:
             raise InputError(f"design {self.label!r}: clusters = {m} is more than the {frame.C} clusters "
                              f"in the frame")
-        if self.units_per_cluster is not None:
-            k = self._positive_int("units_per_cluster", self.units_per_cluster)
-            smallest = int(frame.cluster_sizes.min())
-            if k > smallest and not self.cap_units:
-                raise InputError(f"design {self.label!r}: units_per_cluster = {k} is larger than the smallest "
-                                 f"cluster ({smallest} units); set cap_units = true to take such clusters whole")
+        self._check_second_stage(frame)
 
     def _draw(self, frame, rng, B, keep_units):
         m, C = int(self.clusters), frame.C

@@ -45,11 +45,6 @@ class _SizeDesign(Design):
         super().__init__(label, n=n, variance=variance)
         self._cache = {}
 
-    def at(self, size):
-        d = super().at(size)
-        d._cache = {}
-        return d
-
     def check(self, frame):
         n = self._positive_int("n", self.n)
         size_measure(frame, self.label)

@@ -72,11 +72,6 @@ class StratifiedCluster(Design):
                          cluster_size=cluster_size, variance=variance)
         self._cache = {}
 
-    def at(self, size):
-        d = super().at(size)
-        d._cache = {}
-        return d
-
     # ------------------------------------------------------------------ checks
     def check(self, frame):
         from ..validate import closest
@@ -101,12 +96,7 @@ class StratifiedCluster(Design):
         if m < floor.sum():
             raise InputError(f"design {self.label!r}: clusters = {m} cannot give each of the {int((C_h > 0).sum())} "
                              f"strata 2 clusters (needs clusters >= {int(floor.sum())})")
-        if self.units_per_cluster is not None:
-            k = self._positive_int("units_per_cluster", self.units_per_cluster)
-            smallest = int(frame.cluster_sizes.min())
-            if k > smallest and not self.cap_units:
-                raise InputError(f"design {self.label!r}: units_per_cluster = {k} is larger than the smallest "
-                                 f"cluster ({smallest} units); set cap_units = true to take such clusters whole")
+        self._check_second_stage(frame)
         if self.selection == "pps" and self.cluster_size == "size":
             size_measure(frame, self.label)
         self.setup(frame)

@@ -79,11 +79,6 @@ class Stratified(Design):
             self._cache[key] = allocate(int(self.n), self.allocation, frame.N_h, S_h, c_h)
         return self._cache[key]
 
-    def at(self, size):
-        d = super().at(size)
-        d._cache = {}
-        return d
-
     def _draw(self, frame, rng, B, keep_units):
         n_h = self.n_h(frame)
         N_h = frame.N_h
