@@ -60,6 +60,16 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
     }
 
 
+def group_rows(reps: pd.DataFrame, keys: list[str]) -> list[tuple[tuple, np.ndarray]]:
+    """(key tuple, row positions) of every group of ``reps`` by ``keys``, in order of first row.
+
+    Callers slice numpy columns with the positions instead of building per-group DataFrames,
+    so measures over a long run need little memory beyond the replicate table itself.
+    """
+    groups = reps.groupby(keys, sort=False).indices
+    return sorted(groups.items(), key=lambda kv: kv[1][0])
+
+
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
     """One summary row per design x size x estimator x variable (contract columns, in order)."""
     z = float(stats.norm.ppf(0.5 + confidence / 2.0))
@@ -68,16 +78,20 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
     S2 = dict(zip(frame.layout.names, frame.layout.S2))
     domain_vars = set(frame.layout.names[frame.V:])
     rows = []
-    for (design, size, est, var), g in reps.groupby(["design", "size", "estimator", "variable"], sort=False):
+    # group by row positions and slice the numeric columns once: no per-group DataFrame copies,
+    # so evaluating a long run needs little memory beyond the replicate table itself
+    col = {k: reps[k].to_numpy() for k in ("estimate", "se", "lower", "upper", "n", "cost")}
+    for (design, size, est, var), idx in group_rows(reps, ["design", "size", "estimator", "variable"]):
         if var in domain_vars:  # a replicate that met no unit of the domain has no estimate: not counted
-            g = g[np.isfinite(g["estimate"].to_numpy())]
-            if g.empty:
+            idx = idx[np.isfinite(col["estimate"][idx])]
+            if len(idx) == 0:
                 continue
-        m = measures(g["estimate"].to_numpy(), g["se"].to_numpy(), g["lower"].to_numpy(),
-                     g["upper"].to_numpy(), float(truth[var]), z)
-        mean_n = float(g["n"].mean())
+        m = measures(col["estimate"][idx], col["se"][idx], col["lower"][idx], col["upper"][idx],
+                     float(truth[var]), z)
+        mean_n = float(col["n"][idx].mean())
         srs_var = (1.0 - mean_n / frame.N) * S2[var] / mean_n if mean_n < frame.N else 0.0
         deff = m["empirical_se"] ** 2 / srs_var if srs_var > 0 else float("nan")
         rows.append({"design": design, "method": methods.get(design, ""), "size": int(size), "estimator": est,
-                     "variable": var, **m, "deff": deff, "mean_n": mean_n, "mean_cost": float(g["cost"].mean())})
+                     "variable": var, **m, "deff": deff, "mean_n": mean_n,
+                     "mean_cost": float(col["cost"][idx].mean())})
     return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)

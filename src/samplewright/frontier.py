@@ -25,6 +25,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .evaluate import group_rows
+
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
     "empirical_se", "rmse", "mse_mcse", "moe", "moe_mcse", "coverage", "coverage_mcse", "on_frontier",
@@ -40,19 +42,26 @@ def cost_quantile(reps: pd.DataFrame, q: float = 0.9) -> pd.DataFrame:
 
     Cost is a property of the sample, so one estimator and variable per replicate is enough.
     """
-    one = reps.drop_duplicates(["design", "size", "replicate"])
-    out = one.groupby(["design", "size"], sort=False)["cost"].quantile(q).rename("p90_cost").reset_index()
-    return out
+    cost, rep = reps["cost"].to_numpy(), reps["replicate"].to_numpy()
+    rows = []
+    for (design, size), idx in group_rows(reps, ["design", "size"]):
+        first = np.unique(rep[idx], return_index=True)[1]  # one row per replicate
+        rows.append({"design": design, "size": size, "p90_cost": float(np.quantile(cost[idx][first], q))})
+    return pd.DataFrame(rows, columns=["design", "size", "p90_cost"])
 
 
 def mse_mcse(reps: pd.DataFrame, summary: pd.DataFrame) -> pd.DataFrame:
     """Monte Carlo SE of each point's MSE, sd((x - T)^2) / sqrt(R) (Morris, White & Crowther 2019, Table 6)."""
     keys = ["design", "size", "estimator", "variable"]
-    t = reps[keys + ["estimate"]].merge(summary[keys + ["truth"]], on=keys, how="left")
-    t["sq"] = (t["estimate"] - t["truth"]) ** 2
-    g = t.groupby(keys, sort=False)["sq"]
-    out = (g.std(ddof=1) / np.sqrt(g.count())).rename("mse_mcse").reset_index()
-    return out
+    truth = {tuple(k): t for k, t in zip(summary[keys].itertuples(index=False), summary["truth"])}
+    x = reps["estimate"].to_numpy()
+    rows = []
+    for key, idx in group_rows(reps, keys):
+        sq = (x[idx] - truth.get(key, np.nan)) ** 2
+        sq = sq[np.isfinite(sq)]  # domain rows: replicates without an estimate do not count
+        mcse = float(sq.std(ddof=1) / np.sqrt(len(sq))) if len(sq) > 1 else float("nan")
+        rows.append(dict(zip(keys, key), mse_mcse=mcse))
+    return pd.DataFrame(rows, columns=keys + ["mse_mcse"])
 
 
 def pareto(cost: np.ndarray, loss: np.ndarray) -> np.ndarray:

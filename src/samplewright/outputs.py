@@ -75,8 +75,31 @@ def write_csv(df: pd.DataFrame, path) -> Path:
     return atomic_write(path, lambda t: df.to_csv(t, index=False))
 
 
-def write_parquet(df: pd.DataFrame, path) -> Path:
-    return atomic_write(path, lambda t: df.to_parquet(t, index=False))
+def write_parquet(df: pd.DataFrame, path, rows_per_group: int = 500_000) -> Path:
+    """Write ``df`` as Parquet, converting at most ``rows_per_group`` rows at a time.
+
+    Converting a long replicate table in one piece would hold a second full copy of it in
+    memory; row groups keep that copy to one group.  A table whose later rows do not fit the
+    first group's column types (a column blank at first) is written in one piece instead.
+    """
+    def write(tmp: Path) -> None:
+        if len(df) <= rows_per_group:
+            df.to_parquet(tmp, index=False)
+            return
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        first = pa.Table.from_pandas(df.iloc[:rows_per_group], preserve_index=False)
+        try:
+            with pq.ParquetWriter(tmp, first.schema) as out:
+                out.write_table(first)
+                for s in range(rows_per_group, len(df), rows_per_group):
+                    part = df.iloc[s:s + rows_per_group]
+                    out.write_table(pa.Table.from_pandas(part, schema=first.schema, preserve_index=False))
+        except (pa.ArrowInvalid, pa.ArrowTypeError):
+            df.to_parquet(tmp, index=False)
+
+    return atomic_write(path, write)
 
 
 def write_json(obj, path) -> Path:
