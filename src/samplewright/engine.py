@@ -12,6 +12,7 @@ numbers unchanged.
 
 from __future__ import annotations
 
+import itertools
 import zlib
 from contextlib import contextmanager
 from pathlib import Path
@@ -253,6 +254,8 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
 
 #: frame and cells a forked worker inherits from its parent, by token
 _INHERITED: dict[str, tuple] = {}
+#: blocks a forked worker runs per task (the numbers do not depend on it: each block has its own seed)
+FORK_CHUNK = 4
 
 
 def _forked(frame, cells, calls, jobs, confidence, cost):
@@ -269,19 +272,21 @@ def _forked(frame, cells, calls, jobs, confidence, cost):
     token = f"{os.getpid()}-{id(frame)}-{id(cells)}"
     _INHERITED[token] = (frame, cells)
     pool = ProcessPoolExecutor(jobs, mp_context=mp.get_context("fork"), initializer=_quiet_worker)
-    try:  # a few blocks in flight per worker; a worker that dies raises BrokenProcessPool here
+    try:  # a few chunks of blocks in flight per worker; a worker that dies raises BrokenProcessPool here
         todo = iter(calls)
         pending = set()
         while True:
-            for ci, b, s, count, ss in todo:
-                pending.add(pool.submit(_run_inherited, (token, ci, b, s, count, ss, confidence, cost)))
-                if len(pending) >= 4 * jobs:
+            while len(pending) < 2 * jobs:
+                chunk = [(token, ci, b, s, count, ss, confidence, cost)
+                         for ci, b, s, count, ss in itertools.islice(todo, FORK_CHUNK)]
+                if not chunk:
                     break
+                pending.add(pool.submit(_run_inherited_chunk, chunk))
             if not pending:
                 break
             done, pending = wait(pending, return_when=FIRST_COMPLETED)
             for fut in done:
-                yield fut.result()
+                yield from fut.result()
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
         _INHERITED.pop(token, None)
@@ -298,6 +303,11 @@ def _run_inherited(args) -> BlockResult:
     token, cell_id, *rest = args
     frame, cells = _INHERITED[token]
     return run_task(frame, cells, cell_id, *rest)
+
+
+def _run_inherited_chunk(chunk) -> list[BlockResult]:
+    """Several blocks in one task: fewer round trips to the parent for short blocks."""
+    return [_run_inherited(args) for args in chunk]
 
 
 def run_task(frame: Frame, cells: list[Cell], cell_id: int, *args) -> BlockResult:
