@@ -96,7 +96,7 @@ def stratified_psu_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
 #: variance estimators a design may name in ``SampleBlock.variance``
 VARIANCE = {"psu": stratified_psu_variance}
 
-# size-proportional and random-size designs (see pps_variance; issue 8)
+# size-proportional and random-size designs (see pps_variance)
 from . import pps_variance as _ppsv  # noqa: E402
 
 VARIANCE.update({
@@ -107,7 +107,7 @@ VARIANCE.update({
     "poisson": _ppsv.poisson,
 })
 
-# systematic samples (see systematic_variance; issue 4): "srs" is the shared routine, units as PSUs
+# systematic samples (see systematic_variance): "srs" is the shared routine, units as PSUs
 from . import systematic_variance as _sysv  # noqa: E402
 
 VARIANCE.update({
@@ -189,5 +189,5 @@ def sampled_unit_cost(block: SampleBlock) -> np.ndarray:
     return c.sum(axis=1)
 
 
-# ratio, GREG and post-stratified estimators register themselves (issue 8)
+# ratio, GREG and post-stratified estimators register themselves (see auxiliary)
 from . import auxiliary as _auxiliary  # noqa: F401
