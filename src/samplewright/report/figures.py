@@ -340,6 +340,16 @@ def sampling_distribution(
     return ax
 
 
+def _row_plot(summary, variable, keep, ax):
+    """Shared set-up of the one-row-per-design-and-size figures (bias, coverage)."""
+    rows = all_rows(summary, variable, keep=keep)
+    cells, ypos = _cell_positions(rows)
+    ax = _axes(ax, _rows_height(len(cells)))
+    _row_axis(ax, _labels(cells, with_estimator=False))
+    colours, markers = design_colours(design_order(summary)), _marker_map(rows)
+    return rows, rows["variable"].iloc[0], cells, ypos, ax, colours, markers
+
+
 @_styled
 def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = None):
     """Bias of each design and estimator with 95% Monte Carlo error bars; relative bias on the top axis.
@@ -350,12 +360,7 @@ def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None =
     2019, Table 6).  Bars span bias +- 1.96 MCSE: a bar that crosses zero shows no bias the
     simulation can detect.
     """
-    rows = all_rows(summary, variable, keep=keep)
-    var = rows["variable"].iloc[0]
-    cells, ypos = _cell_positions(rows)
-    ax = _axes(ax, _rows_height(len(cells)))
-    colours, markers = design_colours(design_order(summary)), _marker_map(rows)
-    _row_axis(ax, _labels(cells, with_estimator=False))
+    rows, var, cells, ypos, ax, colours, markers = _row_plot(summary, variable, keep, ax)
     for yi, r in zip(ypos, rows.itertuples(index=False)):
         ax.errorbar(
             r.bias,
@@ -392,12 +397,7 @@ def coverage_plot(
     -----
     Coverage MCSE = sqrt(c (1 - c) / R) (Morris, White & Crowther 2019, Table 6).
     """
-    rows = all_rows(summary, variable, keep=keep)
-    var = rows["variable"].iloc[0]
-    cells, ypos = _cell_positions(rows)
-    ax = _axes(ax, _rows_height(len(cells)))
-    colours, markers = design_colours(design_order(summary)), _marker_map(rows)
-    _row_axis(ax, _labels(cells, with_estimator=False))
+    rows, var, cells, ypos, ax, colours, markers = _row_plot(summary, variable, keep, ax)
     for yi, r in zip(ypos, rows.itertuples(index=False)):
         c, e = 100.0 * r.coverage, 100.0 * MC_Z * r.coverage_mcse
         ax.errorbar(c, yi, xerr=e, fmt=markers[r.estimator], color=colours[r.design], capsize=3, markersize=5)
