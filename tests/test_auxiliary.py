@@ -52,7 +52,8 @@ def _all_designs():
     out = []
     for method, cls in METHODS.items():
         key = cls.size_key
-        out.append(cls(method, **{key: 8 if key == "clusters" else 40}))
+        extra = {"replace": True} if method == "pps" else {}  # pps is the with-replacement method
+        out.append(cls(method, **{key: 8 if key == "clusters" else 40}, **extra))
     out.append(METHODS["cluster"]("two-stage", clusters=8, units_per_cluster=4))
     return out
 
@@ -288,13 +289,13 @@ def test_run_with_every_estimator_end_to_end():
     assert gr["empirical_se"] + Z * gr["empirical_se_mcse"] < ht["empirical_se"] - Z * ht["empirical_se_mcse"]
 
 
-@pytest.mark.parametrize("method", ["pps_systematic", "sampford", "pps_wr", "pareto"])
+@pytest.mark.parametrize("method", ["pps_systematic", "sampford", "pps", "pareto"])
 def test_ratio_on_the_size_measure_equals_ht_under_pips(method, structured):
     # with pi_k proportional to x_k (certainty units at pi = 1), the HT (or Hansen-Hurwitz)
     # estimate of X is exact in every sample, so R_hat X = t_y: the ratio estimator on the size
     # measure is the HT estimator (SSW 1992, sec. 3.6 and 7.3; Cochran 1977, sec. 9A.3)
     f = Frame.from_dataframe(structured, target=["y", "flag"], size="size", auxiliary=["size"])
-    blk = _draw(METHODS[method](method, n=40), f)
+    blk = _draw(METHODS[method](method, n=40, **({"replace": True} if method == "pps" else {})), f)
     np.testing.assert_allclose(_run("ratio", blk, f).estimate, _run("ht", blk, f).estimate, rtol=1e-10)
 
 

@@ -526,7 +526,7 @@ def _size_based_methods() -> list[str]:
     out = []
     for m, cls in METHODS.items():
         try:
-            cls("probe", **{cls.size_key: 4}).check(f)
+            cls("probe", **{cls.size_key: 4}, **({"replace": True} if m == "pps" else {})).check(f)
         except InputError as exc:
             if "size" in str(exc):
                 out.append(m)
@@ -536,13 +536,19 @@ def _size_based_methods() -> list[str]:
 SIZE_METHODS = _size_based_methods()
 
 
+def sized_design(method: str) -> str:
+    """A [[design]] table of ``method`` at n = 4 (``pps`` is the with-replacement method)."""
+    extra = "replace = true\n" if method == "pps" else ""
+    return f'[[design]]\nlabel = "sized"\nmethod = "{method}"\nn = 4\n{extra}'
+
+
 def test_size_based_designs_exist():
-    assert {"pps_wr", "pps_systematic", "sampford", "pareto"} <= set(SIZE_METHODS)
+    assert {"pps", "pps_systematic", "sampford", "pareto"} <= set(SIZE_METHODS)
 
 
 @pytest.mark.parametrize("method", SIZE_METHODS)
 def test_size_design_without_size_column(tmp_path, capsys, method):
-    design = f'[[design]]\nlabel = "sized"\nmethod = "{method}"\nn = 4\n'
+    design = sized_design(method)
     run_refused(tmp_path, capsys, "design 'sized'", "size", design=design)
 
 
@@ -551,7 +557,7 @@ def test_size_design_without_size_column(tmp_path, capsys, method):
 def test_size_design_non_positive_size(tmp_path, capsys, method, bad):
     df = claims_frame()
     df.loc[[4, 17], "pages"] = bad
-    design = f'[[design]]\nlabel = "sized"\nmethod = "{method}"\nn = 4\n'
+    design = sized_design(method)
     run_refused(tmp_path, capsys, "design 'sized'", "size column 'pages'", "above 0", "2 value(s)",
                 f"first {bad} at row(s) 6, 19", df=df, design=design, frame_extra='size = "pages"')
 
@@ -561,13 +567,13 @@ def test_size_rows_after_dropped_rows(tmp_path, capsys, method):
     df = claims_frame()
     df.loc[0, "amount"] = np.nan
     df.loc[5, "pages"] = 0
-    design = f'[[design]]\nlabel = "sized"\nmethod = "{method}"\nn = 4\n'
+    design = sized_design(method)
     run_refused(tmp_path, capsys, "size column 'pages'", "unit(s) 5 (counted after the 1 dropped rows)",
                 df=df, design=design, frame_extra='size = "pages"\nmissing = "drop"')
 
 
 def test_size_design_positive_size_runs(tmp_path, capsys):
-    design = f'[[design]]\nlabel = "sized"\nmethod = "{SIZE_METHODS[0]}"\nn = 4\n'
+    design = sized_design(SIZE_METHODS[0])
     run_ok(tmp_path, capsys, design=design, frame_extra='size = "pages"')
 
 

@@ -44,7 +44,7 @@ def designs():
         METHODS["systematic"]("sys", n=5),
         METHODS["cluster"]("one stage", clusters=3),
         METHODS["cluster"]("two stage", clusters=3, units_per_cluster=1),
-        METHODS["pps_wr"]("wr", n=3),
+        METHODS["pps"]("wr", n=3, replace=True),
         METHODS["pps_systematic"]("pps sys", n=4),
         METHODS["sampford"]("sampford", n=4, variance="sen_yates_grundy"),
         METHODS["poisson"]("poisson", n=4),

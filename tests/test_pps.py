@@ -83,9 +83,10 @@ def test_pips_sum_to_n_and_proportional():
 def test_size_measure_refused_when_not_positive():
     df = pd.DataFrame({"y": [1.0, 2, 3, 4], "invoice": [3.0, 0.0, 2.0, -1.0]})
     f = Frame.from_dataframe(df, target="y", size="invoice")
-    for cls in (Sampford, PPSSystematic, Pareto, PPSWithReplacement, Poisson):
+    for d in (Sampford("by size", n=2), PPSSystematic("by size", n=2), Pareto("by size", n=2),
+              PPSWithReplacement("by size", n=2, replace=True), Poisson("by size", n=2)):
         with pytest.raises(InputError, match=r"size column 'invoice' must be above 0.*row\(s\) 3, 5"):
-            cls("by size", n=2).check(f)
+            d.check(f)
 
 
 def test_unknown_variance_refused():
@@ -209,10 +210,10 @@ def test_inclusion_frequencies_with_certainty_units():
     assert (np.abs(freq - pi)[free] <= Z * np.sqrt(pi * (1 - pi) / R)[free]).all()
 
 
-def test_pps_wr_expected_hits_and_bernoulli_frequencies():
+def test_pps_with_replacement_expected_hits_and_bernoulli_frequencies():
     f = size_frame()
     R = 30_000
-    d = PPSWithReplacement("wr", n=3)
+    d = PPSWithReplacement("wr", n=3, replace=True)
     d.check(f)
     counts, _ = inclusion_counts(d, f, R, seed=7)
     p = np.array(SIZES) / sum(SIZES)
@@ -297,7 +298,7 @@ def test_hartley_rao_and_brewer_reduce_to_srs_under_equal_sizes():
 def test_hansen_hurwitz_variance_formula():
     # Cochran 1977, eq. 9A.8: v(t) = sum (y_i / p_i - t)^2 / (n (n - 1)), t = mean of y_i / p_i
     f = size_frame()
-    d = PPSWithReplacement("wr", n=4)
+    d = PPSWithReplacement("wr", n=4, replace=True)
     d.check(f)
     blk = d.draw(f, np.random.default_rng(14), 50, keep_units=True)
     est = ESTIMATORS["ht"](blk, f.N, f.V, 0.95, f.layout)
@@ -325,8 +326,8 @@ def test_poisson_variance_formula():
 
 def test_same_seed_same_sample_for_every_new_design():
     f = size_frame()
-    for method in ("pps_wr", "pps_systematic", "sampford", "pareto", "poisson", "bernoulli"):
-        d = METHODS[method]("d", n=3)
+    for method in ("pps", "pps_systematic", "sampford", "pareto", "poisson", "bernoulli"):
+        d = METHODS[method]("d", n=3, **({"replace": True} if method == "pps" else {}))
         d.check(f)
         a = d.draw(f, np.random.default_rng(3), 40, keep_units=True)
         b = d.draw(f, np.random.default_rng(3), 40, keep_units=True)

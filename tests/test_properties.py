@@ -104,11 +104,10 @@ def design_on_frame(draw, method: str):
 def may_repeat(design) -> bool:
     """Designs whose one sample can hold a unit twice (selection with replacement).
 
-    SRS with ``replace``, size-proportional with replacement (``pps_wr``) and systematic
-    samples with several random starts (two starts can hit one unit).
+    SRS and size-proportional sampling with ``replace`` and systematic samples with several
+    random starts (two starts can hit one unit).
     """
-    return bool(getattr(design, "replace", False)) or design.method.endswith("_wr") or \
-        int(getattr(design, "starts", 1) or 1) > 1
+    return bool(getattr(design, "replace", False)) or int(getattr(design, "starts", 1) or 1) > 1
 
 
 def sample_unit_lists(block) -> list[np.ndarray]:

@@ -255,7 +255,7 @@ def test_until_empirical_se_relative_mcse_matches_the_closed_form(scenario_file)
     # relative MCSE of the empirical SE is 1 / sqrt(2 (R - 1)) whatever the data (MWC 2019, Table 6),
     # so the target 0.05 needs R >= 1 + 1 / (2 * 0.05^2) = 201, i.e. three blocks of 100
     sc = load_scenario(scenario_file)
-    res = run(sc, replicates=100, until="empse_rel_mcse=0.05", max_replicates=1000)
+    res = run(sc, replicates=100, until="empirical_se_rel_mcse=0.05", max_replicates=1000)
     assert set(res.summary["replicates"]) == {300}
     assert all(r["replicates_needed"] == 201 for r in res.info["stopping"]["cells"])
 

@@ -178,7 +178,7 @@ CORE_COUNTS = {"srs": _count_srs, "stratified": _count_stratified, "systematic":
                "cluster": _count_cluster}
 
 #: how each other method's count is described in a refusal
-_COUNT_TEXT = {"poisson": "2^(units with pi < 1)", "bernoulli": "2^N", "pps_wr": "N^n",
+_COUNT_TEXT = {"poisson": "2^(units with pi < 1)", "bernoulli": "2^N", "pps": "N^n",
                "sampford": "C(units without certainty, n without certainty)", "pps_systematic": "distinct random starts",
                "stratified_cluster": "prod over strata of the cluster subsets (and their second-stage subsets)"}
 

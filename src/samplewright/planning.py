@@ -123,6 +123,9 @@ def sample_size(moe, confidence=0.95, sd=None, proportion=None, population=None,
         formula = "n0 = z^2 S^2 / E^2"
     else:
         P = _num(proportion, "proportion (--proportion)", 0.0, 1.0, high_open=True)
+        if E >= 1.0:
+            raise InputError(f"moe (--moe) = {E:g} is not a margin for a proportion, which lies in (0, 1): "
+                             f"give it as a fraction, e.g. 0.03 for 3 percentage points")
         S2 = P * (1.0 - P)
         out.update({"proportion": P, "variance": S2})
         formula = "n0 = z^2 P (1 - P) / E^2"
@@ -371,11 +374,11 @@ def _share_text(rule: str) -> str:
 
 
 # ------------------------------------------------------------------ two-stage cluster take
-def optimal_cluster_take(cluster_cost, unit_cost, icc, budget=None) -> dict:
+def optimal_cluster_take(cluster_cost, unit_cost, icc, budget=None, fixed_cost=0.0) -> dict:
     """Kish's optimal number of units per cluster, m_opt = sqrt((c1 / c2) (1 - rho) / rho).
 
-    With a ``budget``, also the number of clusters it pays for at the whole-number take,
-    floor(budget / (c1 + c2 m)).
+    With a ``budget`` C, also the number of clusters it pays for at the whole-number take after
+    the ``fixed_cost`` c0, floor((C - c0) / (c1 + c2 m)) (cost model C = c0 + a (c1 + c2 m)).
 
     Examples
     --------
@@ -398,8 +401,17 @@ def optimal_cluster_take(cluster_cost, unit_cost, icc, budget=None) -> dict:
     out = {"cluster_cost": c1, "unit_cost": c2, "icc": rho, "m_opt": m_opt, "n0": m_opt, "n": m,
            "deff": 1.0 + (m - 1) * rho,
            "formula": "m_opt = sqrt((c1 / c2) (1 - rho) / rho) (Kish 1965, sec. 8.3); n = round(m_opt)"}
+    c0 = _num(fixed_cost, "fixed cost (--fixed-cost)", 0.0, low_open=False)
     if budget is not None:
         C = _num(budget, "budget (--budget)", 0.0)
-        a = int(math.floor(C / (c1 + c2 * m) + 1e-9))
-        out.update({"budget": C, "clusters": a, "units": a * m, "cost": a * (c1 + c2 * m)})
+        if C <= c0:
+            raise InputError(f"budget (--budget) = {C:g} leaves nothing for clusters after the fixed cost "
+                             f"(--fixed-cost) {c0:g}")
+        a = math.floor((C - c0) / (c1 + c2 * m) + 1e-9)
+        if a < 1:
+            raise InputError(f"budget (--budget) = {C:g} less the fixed cost {c0:g} does not pay for one "
+                             f"cluster of {m} units (c1 + c2 m = {c1 + c2 * m:g})")
+        out.update({"budget": C, "fixed_cost": c0, "clusters": a, "units": a * m,
+                    "cost": c0 + a * (c1 + c2 * m),
+                    "formula": out["formula"] + "; clusters = floor((C - c0) / (c1 + c2 n))"})
     return out

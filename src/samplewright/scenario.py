@@ -15,7 +15,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from .cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as COST_SCALARS, CostModel
-from .designs import METHODS, Design
+from .designs import METHODS, RENAMED_METHODS, Design
 from .errors import InputError
 from .auxiliary import check_estimators
 from .estimators import ESTIMATORS
@@ -242,6 +242,8 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
     label = as_str(table["label"], "label", ctx)
     ctx = f"design {label!r}"
     method = as_str(table["method"], "method", ctx)
+    if method in RENAMED_METHODS:
+        raise InputError(f"{ctx}: method {method!r} is no longer accepted: use {RENAMED_METHODS[method]}")
     if method not in METHODS:
         raise InputError(f"{ctx}: method {method!r} is not known{closest(method, METHODS)}")
     cls = METHODS[method]

@@ -13,7 +13,7 @@ Targets (the names a rule may use)
     Monte Carlo SE of the coverage, sqrt(c (1 - c) / R).
 ``bias_mcse``
     Monte Carlo SE of the bias, sqrt(var(x) / R).
-``empse_rel_mcse``
+``empirical_se_rel_mcse``
     Relative Monte Carlo SE of the empirical SE, 1 / sqrt(2 (R - 1)).
 
 Notes
@@ -40,8 +40,10 @@ from .validate import closest
 TARGETS = {
     "coverage_mcse": "Monte Carlo SE of the coverage",
     "bias_mcse": "Monte Carlo SE of the bias",
-    "empse_rel_mcse": "relative Monte Carlo SE of the empirical SE",
+    "empirical_se_rel_mcse": "relative Monte Carlo SE of the empirical SE",
 }
+#: former target names, refused with the current one
+RENAMED = {"empse_rel_mcse": "empirical_se_rel_mcse"}
 
 
 @dataclass(frozen=True)
@@ -74,6 +76,9 @@ def parse_until(text: str, max_replicates: int) -> Rule:
             raise InputError(f"--until {part!r}: write NAME=VALUE, e.g. coverage_mcse=0.002 "
                              f"(names: {', '.join(TARGETS)})")
         name, _, value = (s.strip() for s in part.partition("="))
+        if name in RENAMED:
+            raise InputError(f"--until {name}={value}: the target {name!r} is now named {RENAMED[name]!r} "
+                             f"(write {RENAMED[name]}={value})")
         if name not in TARGETS:
             raise InputError(f"--until: unknown target {name!r}{closest(name, TARGETS)}")
         try:
@@ -131,7 +136,7 @@ class Tally:
         return {
             "coverage_mcse": np.sqrt(c * (1.0 - c) / R),
             "bias_mcse": np.sqrt(var / R),
-            "empse_rel_mcse": np.full_like(c, 1.0 / math.sqrt(2.0 * (R - 1)) if R > 1 else np.inf),
+            "empirical_se_rel_mcse": np.full_like(c, 1.0 / math.sqrt(2.0 * (R - 1)) if R > 1 else np.inf),
         }
 
     def needed(self, targets: dict) -> int:
@@ -142,7 +147,7 @@ class Tally:
         need = {
             "coverage_mcse": lambda t: c * (1.0 - c) / t**2,
             "bias_mcse": lambda t: var / t**2,
-            "empse_rel_mcse": lambda t: np.full_like(c, 1.0 + 1.0 / (2.0 * t**2)),
+            "empirical_se_rel_mcse": lambda t: np.full_like(c, 1.0 + 1.0 / (2.0 * t**2)),
         }
         worst = 0.0
         for name, t in targets.items():

@@ -14,7 +14,7 @@ def add_scale_options(p) -> None:
 
     p.add_argument("--until", metavar="NAME=VALUE[,...]",
                    help="add blocks of replicates until every design meets these Monte Carlo errors: "
-                        "coverage_mcse, bias_mcse, empse_rel_mcse (e.g. coverage_mcse=0.002); "
+                        "coverage_mcse, bias_mcse, empirical_se_rel_mcse (e.g. coverage_mcse=0.002); "
                         "--replicates is then the minimum")
     p.add_argument("--max-replicates", type=whole_number(2),
                    help="replicate cap per design and size for --until (default 100 x --replicates, "

@@ -46,9 +46,9 @@ def add_arguments(p) -> None:
                    help="equal, proportional, neyman or optimal (cost-weighted); default neyman")
     s.add_argument("--n", type=int, help="total sample size to allocate")
     s.add_argument("--budget", type=float, help="total budget (stratified: c0 + sum c_h n_h; cluster: "
-                                                "clusters the budget pays for)")
-    s.add_argument("--fixed-cost", type=float, default=0.0, help="c0, the part of the budget that does not "
-                                                                 "depend on n (default 0)")
+                                                "c0 + clusters x (c1 + c2 m))")
+    s.add_argument("--fixed-cost", type=float, help="c0, the part of the budget that does not depend on n "
+                                                    "(default 0)")
     c = p.add_argument_group("units per cluster (two-stage)")
     c.add_argument("--icc", type=float, help="intra-cluster correlation rho, in (0, 1)")
     c.add_argument("--cluster-cost", type=float, help="cost of taking one more cluster (c1)")
@@ -107,6 +107,7 @@ def main(args) -> int:
     cluster = args.icc is not None or args.cluster_cost is not None or args.unit_cost is not None
     if stratified and cluster:
         raise InputError("give strata (--strata or --stratum-units) or a cluster take (--icc), not both")
+    fixed_cost = 0.0 if args.fixed_cost is None else args.fixed_cost
     if stratified:
         _refuse(args, ("--sd", "--proportion", "--population"), "allocating strata")
         if args.deff != 1.0 or args.response_rate != 1.0:
@@ -123,7 +124,7 @@ def main(args) -> int:
             cost = None if args.stratum_cost is None else _floats(args.stratum_cost, "--stratum-cost")
             labels = None
         res = planning.allocate_strata(units, sd, cost, rule=args.allocation, n=args.n, budget=args.budget,
-                                       moe=args.moe, confidence=args.confidence, fixed_cost=args.fixed_cost,
+                                       moe=args.moe, confidence=args.confidence, fixed_cost=fixed_cost,
                                        labels=labels)
         text = _strata_text(res)
     elif cluster:
@@ -132,10 +133,13 @@ def main(args) -> int:
             if getattr(args, f) is None:
                 raise InputError(f"the cluster take needs --icc, --cluster-cost and --unit-cost "
                                  f"(missing --{f.replace('_', '-')})")
-        res = planning.optimal_cluster_take(args.cluster_cost, args.unit_cost, args.icc, budget=args.budget)
+        if args.budget is None:
+            _refuse(args, ("--fixed-cost",), "planning a cluster take without --budget")
+        res = planning.optimal_cluster_take(args.cluster_cost, args.unit_cost, args.icc, budget=args.budget,
+                                            fixed_cost=fixed_cost)
         text = _cluster_text(res)
     else:
-        _refuse(args, ("--n", "--budget"), "sizing a mean or a proportion")
+        _refuse(args, ("--n", "--budget", "--fixed-cost"), "sizing a mean or a proportion")
         if args.moe is None:
             raise InputError("--moe is required (the margin of error to reach)")
         if args.sd is None and args.proportion is None:
@@ -193,6 +197,7 @@ def _cluster_text(r: dict) -> str:
              f"{_g(r['unit_cost'])}) x (1 - {_g(r['icc'])}) / {_g(r['icc'])}) = {r['m_opt']:.3f} (Kish 1965)",
              f"n = {r['n']} units per cluster; design effect 1 + (m - 1) rho = {r['deff']:.3f}"]
     if "budget" in r:
-        lines.append(f"budget {_g(r['budget'])} pays for {r['clusters']} clusters x {r['n']} units = "
+        fixed = f" less the fixed cost {_g(r['fixed_cost'])}" if r["fixed_cost"] else ""
+        lines.append(f"budget {_g(r['budget'])}{fixed} pays for {r['clusters']} clusters x {r['n']} units = "
                      f"{r['units']} units (cost {_g(r['cost'])})")
     return "\n".join(lines)

@@ -15,7 +15,9 @@ from .systematic import Systematic
 METHODS: dict[str, type[Design]] = {cls.method: cls for cls in (SRS, Stratified, Systematic, Cluster)}
 METHODS.update({cls.method: cls for cls in (PPSWithReplacement, PPSSystematic, Sampford, Pareto, Poisson,
                                             Bernoulli, StratifiedCluster)})
+#: former method names, refused with what to write instead
+RENAMED_METHODS = {"pps_wr": 'method = "pps" with replace = true'}
 
-__all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS",
+__all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS", "RENAMED_METHODS",
            "PPSWithReplacement", "PPSSystematic", "Sampford", "Pareto", "Poisson", "Bernoulli",
            "StratifiedCluster"]

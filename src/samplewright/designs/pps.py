@@ -2,8 +2,10 @@
 
 Methods (scenario ``method =``):
 
-- ``pps_wr``: n independent draws with p_i = x_i / X (with replacement); the
-  Hansen-Hurwitz estimator (Cochran 1977, sec. 9A.3).
+- ``pps`` with ``replace = true``: n independent draws with p_i = x_i / X (with replacement);
+  the Hansen-Hurwitz estimator (Cochran 1977, sec. 9A.3).  ``pps`` without ``replace = true``
+  is refused: a fixed-size sample without replacement needs one of the methods below, which
+  differ in their joint inclusion probabilities and variance estimators.
 - ``pps_systematic``: systematic selection along cumulated pi_i in list order from one
   random start (Madow 1949; Sarndal, Swensson & Wretman 1992, sec. 3.6).
 - ``sampford``: Sampford's (1967) rejective fixed-size method; pi_i = n x_i / X exactly.
@@ -281,17 +283,22 @@ class PPSWithReplacement(Design):
     estimator t = (1/n) sum y_i / p_i, and the shared PSU variance routine with no finite
     population correction is its unbiased variance estimator
     v = sum (y_i / p_i - t)^2 / (n (n - 1)) (Cochran 1977, eqs. 9A.6 and 9A.8).
-    A unit drawn twice counts twice in the sample size and cost.
+    A unit drawn twice counts twice in the sample size and cost.  ``replace`` must be true (see
+    the module notes).
     """
 
-    method = "pps_wr"
-    keys = ("n", "variance")
+    method = "pps"
+    keys = ("n", "replace", "variance")
     variances = ("hansen_hurwitz",)
 
-    def __init__(self, label: str, n, variance: str | None = None):
-        super().__init__(label, n=n, variance=variance)
+    def __init__(self, label: str, n, replace: bool | None = None, variance: str | None = None):
+        super().__init__(label, n=n, replace=replace, variance=variance)
 
     def check(self, frame):
+        if self.replace is not True:
+            raise InputError(f'design {self.label!r}: method = "pps" draws with replacement and needs '
+                             'replace = true; for a fixed-size sample without replacement use method = '
+                             '"sampford", "pareto" or "pps_systematic"')
         self._positive_int("n", self.n)
         size_measure(frame, self.label)
         self._check_variance()
