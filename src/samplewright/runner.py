@@ -176,13 +176,21 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
                     "scenario_hash": scenario.hash, "seed": seed, "block_size": bs, "replicates": R,
                     "confidence": scenario.confidence, "until": rule.text if rule else None,
                     "max_replicates": rule.max_replicates if rule else None,
-                    "cells": [[c.design.label, int(c.design.size)] for c in cells], "frame_units": frame.N}
+                    "cells": [[c.design.label, int(c.design.size)] for c in cells], "frame_units": frame.N,
+                    "frame": truth_frame.roles.get("source"), "frame_hash": truth_frame.content_hash}
         if saved is not None:
             saved.check(manifest, out)
             store = saved
             say(f"resuming: {len(store.finished())} finished blocks in {store.folder}")
         else:
             store = BlockStore.create(out, manifest)
+
+        def damaged(message: str) -> None:  # a block file drawn again: said now and kept in run.json
+            notes.append(message)
+            if warn is not None:
+                warn(message)
+
+        store.warn = damaged
     t1 = time.monotonic()
     common = dict(jobs=jobs, progress=lambda ci, k: bar.update(cells[ci].design.label, k), backend=backend,
                   scheduler=scheduler, store=store)
