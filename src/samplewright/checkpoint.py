@@ -183,7 +183,7 @@ class BlockStore:
         if not path.is_file():  # absent (a FIFO or a loop in its place is not read either)
             return None
         try:
-            with np.load(path, allow_pickle=False) as z:
+            with open(path, "rb") as fh, np.load(fh, allow_pickle=False) as z:  # fh closed even if np.load fails
                 content = {k: z[k] for k in z.files}
         except Exception as exc:  # noqa: BLE001 -- whatever a damaged file raises, the block is drawn again
             why = f"cannot be read ({type(exc).__name__}: it is truncated or damaged)"
