@@ -8,12 +8,14 @@ The frame is an exact small CSV made here.
 from __future__ import annotations
 
 import json
+import os
 
 import numpy as np
 import pandas as pd
 import pytest
 
 from samplewright import engine
+from samplewright.checkpoint import checksum
 from samplewright.cli import main
 
 SCENARIO = """
@@ -93,7 +95,8 @@ def _blocks(out):
     return sorted((out / "blocks").glob("*.npz"))
 
 
-@pytest.mark.parametrize("damage", ["truncated", "flipped value", "another block's file", "not a zip"])
+@pytest.mark.parametrize("damage", ["truncated", "flipped value", "another block's file", "not a zip",
+                                    "mis-shaped with a matching checksum"])
 def test_a_damaged_block_is_drawn_again_with_a_warning(scenario_file, tmp_path, monkeypatch, capsys, damage):
     full, cut = tmp_path / "full", tmp_path / "cut"
     _full(scenario_file, full)
@@ -108,6 +111,12 @@ def test_a_damaged_block_is_drawn_again_with_a_warning(scenario_file, tmp_path, 
         content["r_estimate"].flat[0] += 1.0
         with open(first, "wb") as fh:
             np.savez(fh, **content)
+    elif damage == "mis-shaped with a matching checksum":  # one replicate short, checksum recomputed
+        with np.load(first) as z:
+            content = {k: z[k] for k in z.files if k != "checksum"}
+        content["r_n"] = content["r_n"][:-1]
+        with open(first, "wb") as fh:
+            np.savez(fh, checksum=checksum(content), **content)
     elif damage == "another block's file":
         first.write_bytes(second.read_bytes())
     else:
@@ -139,3 +148,15 @@ def test_a_manifest_with_a_wrong_type_is_refused_naming_the_key(scenario_file, t
     assert main(["run", "--resume", str(out), "--quiet", "--no-report"]) == 2
     err = capsys.readouterr().err
     assert err.startswith("error:") and err.count("\n") == 1 and repr(key) in err and "manifest.json" in err
+
+
+def test_a_manifest_that_is_not_a_regular_file_is_refused(scenario_file, tmp_path, monkeypatch, capsys):
+    out = tmp_path / "cut"
+    _interrupted(scenario_file, out, monkeypatch)
+    path = out / "blocks" / "manifest.json"
+    path.unlink()
+    os.mkfifo(path)  # reading it would block for ever
+    capsys.readouterr()
+    assert main(["run", "--resume", str(out), "--quiet", "--no-report"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error:") and "manifest.json" in err and "not a regular file" in err

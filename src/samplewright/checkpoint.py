@@ -114,9 +114,11 @@ class BlockStore:
         if not path.exists():
             raise InputError(f"--resume {str(out)!r}: no {FOLDER}/{MANIFEST} there, so nothing to resume "
                              f"(start a run with --out {str(out)!r} first)")
+        if not path.is_file():  # a folder, FIFO or device: never read (a FIFO would hang)
+            raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} is not a regular file")
         try:
             manifest = json.loads(path.read_text(encoding="utf-8"))
-        except (OSError, ValueError) as exc:
+        except (OSError, ValueError, RecursionError) as exc:
             raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} cannot be read: {exc}") from None
         if not isinstance(manifest, dict) or "scenario_hash" not in manifest:
             raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} is not a samplewright blocks manifest")
@@ -220,7 +222,7 @@ def _mismatch(content: dict, cell, block: int, start: int, count: int, width: in
         a = content["r_" + k]
         shape = (E, count, width) if k.removeprefix("full_") in _PER_ESTIMATOR else (count,)
         if a.shape != shape or a.dtype.kind not in "biuf":
-            return f"holds {k} of shape {a.shape}, not {shape}"
+            return f"holds {k} as {a.dtype} of shape {a.shape}, not numbers of shape {shape}"
     return None
 
 
