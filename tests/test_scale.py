@@ -189,7 +189,8 @@ def test_block_store_round_trip(scenario_file, tmp_path):
     store = BlockStore.create(tmp_path, {"seed": 1})
     results = engine.simulate(frame, cells[:1], 250, 1, 100, 0.95, sc.cost, store=store)
     assert store.finished() == {(cells[0].key, 0, b) for b in range(3)}
-    back = [store.load(cells[0], 0, b) for b in range(3)]
+    width = len(frame.layout.names)
+    back = [store.load(cells[0], 0, b, s, count, width) for b, s, count in engine.block_spans(250, 100)]
     for r, s in zip(results, back):
         assert (r.block, r.start) == (s.block, s.start)
         for k in ("estimate", "se", "lower", "upper", "n", "cost"):

@@ -3,26 +3,30 @@
 Seeding
 -------
 One root ``numpy.random.SeedSequence(seed)`` per run.  Block b of size point s of a design
-draws from ``SeedSequence(seed, spawn_key=(design_key, s, b))`` where ``design_key`` is a
-stable checksum of the design's label: the child a ``spawn`` would give, rebuilt by key.
-The block size is fixed per run (and recorded), so the numbers never depend on ``--jobs``,
-the backend or the order in which blocks finish, and adding a design leaves the others'
-numbers unchanged.
+draws from ``SeedSequence(seed, spawn_key=(*design_key, s, b))`` where ``design_key`` is the
+SHA-256 of the design's label (UTF-8) as eight 32-bit words: the child a ``spawn`` would
+give, rebuilt by key.  Labels are unique within a scenario and a 256-bit hash does not
+collide in practice (a 32-bit checksum did: two labels with the same crc32 drew identical
+replicates); :func:`make_cells` still refuses two designs with one key.  The block size is
+fixed per run (and recorded), so the numbers never depend on ``--jobs``, the backend or the
+order in which blocks finish, and adding or dropping a design leaves the others' numbers
+unchanged.
 """
 
 from __future__ import annotations
 
+import hashlib
 import itertools
-import zlib
 from contextlib import contextmanager
-from pathlib import Path
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from .cost import CostModel
 from .designs import Design
+from .errors import InputError
 from .estimators import ESTIMATORS, sample_units
 from .fieldwork import replicate_columns
 from .frame import Frame
@@ -38,8 +42,14 @@ class Cell:
     estimators: tuple[str, ...]
 
     @property
-    def key(self) -> int:
-        return zlib.crc32(self.design.label.encode("utf-8"))
+    def key(self) -> tuple[int, ...]:
+        return stream_key(self.design.label)
+
+
+def stream_key(label: str) -> tuple[int, ...]:
+    """The random-stream key of a design: the SHA-256 of its label as eight 32-bit words."""
+    digest = hashlib.sha256(label.encode("utf-8")).digest()
+    return tuple(int.from_bytes(digest[i:i + 4], "big") for i in range(0, 32, 4))
 
 
 @dataclass
@@ -68,7 +78,7 @@ class BlockResult:
 
 def block_seed(seed: int, cell: Cell, block: int) -> np.random.SeedSequence:
     """The seed of one block (see module notes)."""
-    return np.random.SeedSequence(seed, spawn_key=(cell.key, cell.size_index, block))
+    return np.random.SeedSequence(seed, spawn_key=(*cell.key, cell.size_index, block))
 
 
 def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
@@ -98,9 +108,13 @@ def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, co
 
 
 def make_cells(designs, estimators) -> list[Cell]:
-    """Expand every design's size sweep into cells."""
-    cells = []
+    """Expand every design's size sweep into cells (refused: two designs with one stream key)."""
+    cells, owner = [], {}
     for i, (d, est) in enumerate(zip(designs, estimators)):
+        first = owner.setdefault(stream_key(d.label), i)
+        if first != i:
+            raise InputError(f"designs {designs[first].label!r} and {d.label!r} would draw the same random numbers "
+                             f"(their labels give one stream key); give them different labels")
         for j, size in enumerate(d.sizes()):
             cells.append(Cell(design=d.at(size), design_index=i, size_index=j, estimators=tuple(est)))
     return cells
@@ -181,11 +195,12 @@ def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, schedu
     """Yield the result of every task (cell id, block, start, count): from ``store`` when it
     holds the block already, otherwise drawn now (and saved to ``store`` on arrival)."""
     done = store.finished() if store is not None else set()
+    width = len(frame.layout.names)
     todo = []
     for ci, b, s, count in tasks:
         cell = cells[ci]
-        r = store.load(cell, ci, b) if (cell.key, cell.size_index, b) in done else None
-        if r is not None and r.start == s and len(r.n) == count:
+        r = store.load(cell, ci, b, s, count, width) if (cell.key, cell.size_index, b) in done else None
+        if r is not None:
             if progress:
                 progress(ci, count)
             yield r
@@ -366,7 +381,6 @@ def backend_session(backend: str, scheduler: str | None, frame: Frame, cells: li
 
 def check_backend(backend: str, scheduler: str | None) -> None:
     """Refuse (InputError) an unknown backend, or dask without a scheduler address or its packages."""
-    from .errors import InputError
     from .validate import closest
 
     if backend not in BACKENDS:
@@ -386,8 +400,6 @@ def check_backend(backend: str, scheduler: str | None) -> None:
 def _dask_client(scheduler: str | None):
     """A client of the dask scheduler at ``scheduler`` (refused with InputError when unreachable)."""
     from distributed import Client
-
-    from .errors import InputError
 
     check_backend("dask", scheduler)
     try:

@@ -15,7 +15,9 @@ records where), so COUNT and COST are always indexed from the end.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import hashlib
+from dataclasses import dataclass, field, fields
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -203,6 +205,20 @@ class Frame:
         out = np.take(table, pos, axis=0)
         return out if out.shape[-1] == k else out[..., :k]
 
+    @cached_property
+    def content_hash(self) -> str:
+        """SHA-256 of what the frame holds: every unit's values and codes, the labels and the
+        column roles (not the file's name), computed once.  A resumed run refuses a frame whose
+        hash differs from the one its blocks were drawn from (see :mod:`samplewright.checkpoint`)."""
+        h = hashlib.sha256()
+        for f in fields(self):
+            if f.init:
+                value = getattr(self, f.name)
+                if f.name == "roles":
+                    value = {k: v for k, v in value.items() if k != "source"}
+                _digest(h, f.name, value)
+        return h.hexdigest()
+
     # ----------------------------------------------------------------- sizes
     @property
     def N(self) -> int:
@@ -360,6 +376,19 @@ class Frame:
     def load(cls, path, **roles) -> "Frame":
         """Read a CSV or Parquet file and bind its columns (see :meth:`from_dataframe`)."""
         return cls.from_dataframe(read_table(path), source=str(path), **roles)
+
+
+def _digest(h, name: str, value) -> None:
+    """Feed ``value`` (an array, a dict of them, or a plain value) to the hash ``h``, tagged with its name."""
+    if isinstance(value, np.ndarray):
+        a = np.ascontiguousarray(value)
+        h.update(f"{name}:{a.dtype.str}{a.shape}:".encode())
+        h.update(a)
+    elif isinstance(value, dict):
+        for k in sorted(value, key=str):
+            _digest(h, f"{name}.{k}", value[k])
+    else:
+        h.update(f"{name}={value!r};".encode())
 
 
 def read_table(path) -> pd.DataFrame:

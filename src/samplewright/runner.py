@@ -154,6 +154,15 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     frame = scenario.cost.bind(frame)  # per-stratum unit rates into the cost column (cost.py)
     for cell in cells:
         cell.design.check(frame)
+    manifest = None if out is None else {  # what the blocks kept in out/blocks/ are drawn from
+        "scenario": str(scenario.source.resolve()) if scenario.source else None,
+        "scenario_hash": scenario.hash, "seed": seed, "block_size": bs, "replicates": R,
+        "confidence": scenario.confidence, "until": rule.text if rule else None,
+        "max_replicates": rule.max_replicates if rule else None,
+        "cells": [[c.design.label, int(c.design.size)] for c in cells], "frame_units": frame.N,
+        "frame": truth_frame.roles.get("source"), "frame_hash": truth_frame.content_hash}
+    if saved is not None:  # refused before any warning about the run asked for now
+        saved.check(manifest, out)
     notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
     for w in notes if warn is not None else ():  # said before any time is spent simulating
         warn(w)
@@ -172,17 +181,18 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     if out is not None:
         from .checkpoint import BlockStore
 
-        manifest = {"scenario": str(scenario.source.resolve()) if scenario.source else None,
-                    "scenario_hash": scenario.hash, "seed": seed, "block_size": bs, "replicates": R,
-                    "confidence": scenario.confidence, "until": rule.text if rule else None,
-                    "max_replicates": rule.max_replicates if rule else None,
-                    "cells": [[c.design.label, int(c.design.size)] for c in cells], "frame_units": frame.N}
         if saved is not None:
-            saved.check(manifest, out)
             store = saved
             say(f"resuming: {len(store.finished())} finished blocks in {store.folder}")
         else:
             store = BlockStore.create(out, manifest)
+
+        def damaged(message: str) -> None:  # a block file drawn again: said now and kept in run.json
+            notes.append(message)
+            if warn is not None:
+                warn(message)
+
+        store.warn = damaged
     t1 = time.monotonic()
     common = dict(jobs=jobs, progress=lambda ci, k: bar.update(cells[ci].design.label, k), backend=backend,
                   scheduler=scheduler, store=store)
