@@ -309,8 +309,8 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
     ss_total = float(np.sum((x - x.mean()) ** 2)) if N else 0.0
     acf = autocorrelation(r, min(ACF_LAGS, N // 4))
     lo, hi = MIN_CYCLES, (N - 1) // 2
-    base = dict(N=N, alpha=alpha, acf=acf, grouped=groups is not None,
-                noise_share=ss / ss_total if ss_total > 0 else 1.0)
+    base = {"N": N, "alpha": alpha, "acf": acf, "grouped": groups is not None,
+            "noise_share": ss / ss_total if ss_total > 0 else 1.0}
     if hi - lo + 1 < 3 or ss <= 1e-12 * max(1.0, float(_inner(x, x))):
         return OrderReport(tested=max(0, hi - lo + 1), g=float("nan"), p_value=1.0, **base)
     live = np.ones(hi - lo + 1, dtype=bool)
@@ -351,7 +351,7 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
         for f, p, a, b in found:
             amp = float(np.hypot(a, b))
             P = 1.0 / f
-            lag = int(round(P))
+            lag = round(P)
             rho = float(acf[lag - 1]) if 1 <= lag <= acf.shape[0] else float(autocorrelation(r, lag)[-1])
             periods.append(Period(period=P, strength=min(1.0, amp * amp / 2.0 / var), amplitude=amp,
                                   autocorrelation=rho, p_value=p))
@@ -373,9 +373,9 @@ def _label_harmonics(periods: list[Period], N: int) -> list[Period]:
             if p0.period <= q.period * 1.5 or p0.strength < q.strength:
                 continue
             h = round(p0.period / q.period)
-            if h >= 2 and abs(N / q.period - h * N / p0.period) <= 1.0:
-                if best is None or p0.strength > best.strength:
-                    best = p0
+            near = h >= 2 and abs(N / q.period - h * N / p0.period) <= 1.0
+            if near and (best is None or p0.strength > best.strength):
+                best = p0
         out.append(q if best is None else Period(**{**asdict(q), "harmonic_of": best.period}))
     return out
 
@@ -386,7 +386,7 @@ def _components(periods, I: np.ndarray, N: int, ss: float, ss_total: float, alph
     var_total = ss_total / N
     out = []
     for p in periods:
-        h = 1 if p.harmonic_of is None else int(round(p.harmonic_of / p.period))
+        h = 1 if p.harmonic_of is None else round(p.harmonic_of / p.period)
         out.append(Component(period=p.period, share=p.strength * (ss / N) / var_total,
                              fundamental=p.period if h == 1 else p.harmonic_of, harmonic=h))
     nyq = I.shape[0] - 1  # the last bin: the Nyquist frequency 1/2 itself when N is even
@@ -407,7 +407,7 @@ def _components(periods, I: np.ndarray, N: int, ss: float, ss_total: float, alph
         c = h * N / P
         if np.min(np.abs(taken - c)) <= HARMONIC_BINS:
             continue  # detected as a period of its own
-        j = min(int(round(c)), nyq)
+        j = min(round(c), nyq)
         if not np.any(I[j - 1: j + 2] >= cut[j - 1: j + 2]):
             continue
         lo, hi = max(1, j - HARMONIC_BINS), min(nyq, j + HARMONIC_BINS) + 1
@@ -470,7 +470,7 @@ def interval_risks(k: float, rep: OrderReport) -> list[dict]:
     for c, term in sorted(zip(rep.components, terms[:, 0]), key=lambda z: -z[1]):
         if term < 0.1:
             continue
-        a = int(round(k / c.period))
+        a = round(k / c.period)
         seen = c.harmonic // gcd(a, c.harmonic) if a >= 1 else c.harmonic
         out.append({"interval": k, "period": c.fundamental, "harmonic": c.harmonic, "multiple": a,
                     "phases": seen, "share": c.share, "term": float(term), "variance_ratio": R})
