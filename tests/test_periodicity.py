@@ -20,6 +20,8 @@ from samplewright.periodicity import (
     FALSE_ALARM,
     Component,
     OrderReport,
+    _fast_length,
+    autocorrelation,
     detect_periods,
     fisher_g_pvalue,
     frame_order_report,
@@ -101,6 +103,23 @@ def test_false_alarm_rate_on_white_noise(alpha, N, trend):
             y = y + 5 * np.sqrt(t)
         alarms += detect_periods(y, alpha=alpha).significant
     assert abs(alarms - seeds * alpha) < Z * math.sqrt(seeds * alpha * (1 - alpha))
+
+
+def test_autocorrelation_matches_direct_sums_and_fft_lengths_are_smallest_smooth():
+    """The FFT autocorrelation (zero padded to a 5-smooth length) equals the direct lagged sums."""
+    r = np.random.default_rng(3).normal(size=997)
+    r -= r.mean()
+    direct = [np.dot(r[:-lag], r[lag:]) / np.dot(r, r) for lag in range(1, 60)]
+    assert np.allclose(autocorrelation(r, 59), direct, rtol=0, atol=1e-12)
+
+    def smooth(m):
+        for p in (2, 3, 5):
+            while m % p == 0:
+                m //= p
+        return m == 1
+
+    for m in range(1, 500):  # brute force: the smallest 2^a 3^b 5^c >= m
+        assert _fast_length(m) == next(x for x in range(m, 2 * m + 2) if smooth(x))
 
 
 def test_too_short_or_constant_lists_report_nothing():

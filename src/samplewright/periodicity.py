@@ -90,7 +90,6 @@ from dataclasses import asdict, dataclass, field
 from math import gcd
 
 import numpy as np
-from scipy.fft import next_fast_len
 from scipy.special import chdtri, gammaln
 
 #: probability of reporting a period on a list with no cycle (Gaussian white noise)
@@ -207,6 +206,19 @@ def periodogram(r) -> np.ndarray:
     return np.abs(np.fft.rfft(r)) ** 2 / r.shape[0]
 
 
+def _fast_length(m: int) -> int:
+    """The smallest 2^a 3^b 5^c >= m: an FFT length numpy transforms quickly (scipy.fft is not
+    imported for this: it costs most of a second at start-up)."""
+    best, p5 = 1 << max(0, (m - 1).bit_length()), 1
+    while p5 < best:
+        p35 = p5
+        while p35 < best:
+            best = min(best, p35 << max(0, (-(-m // p35) - 1).bit_length()))
+            p35 *= 3
+        p5 *= 5
+    return best
+
+
 def autocorrelation(r, max_lag: int) -> np.ndarray:
     """Sample autocorrelation sum_t r_t r_{t+l} / sum_t r_t^2 of a mean-zero list, lags 1..max_lag."""
     r = np.asarray(r, dtype=float)
@@ -214,7 +226,7 @@ def autocorrelation(r, max_lag: int) -> np.ndarray:
     max_lag = int(min(max_lag, N - 1))
     if max_lag < 1:
         return np.zeros(0)
-    size = next_fast_len(N + max_lag, real=True)  # zero padding beyond the largest lag: no wrap-around
+    size = _fast_length(N + max_lag)  # zero padding beyond the largest lag: no wrap-around
     f = np.fft.rfft(r, size)
     acov = np.fft.irfft(f * np.conj(f), size)[: max_lag + 1]
     return acov[1:] / acov[0] if acov[0] > 0 else np.zeros(max_lag)
