@@ -58,6 +58,8 @@ FRAMES = {  # signal, noise SD
     "square wave 40": (5 * np.sign(np.sin(2 * np.pi * (t + 0.5) / 40)), 3.0),
     "sawtooth 30": (10 * (t % 30) / 30, 1.5),
     "peak every 50": (8 * np.exp(-(((t % 50) - 25.0) ** 2) / 8), 1.0),
+    "sawtooth 30, no noise": (10 * (t % 30) / 30, 0.0),
+    "sinusoid 24, no noise": (np.sin(2 * np.pi * t / 24), 0.0),
 }
 
 

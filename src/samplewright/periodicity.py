@@ -330,14 +330,16 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
     found: list[list] = []  # [frequency in cycles per unit, p-value, a, b]
     g0 = p0 = None
     I0 = None
+    first = 0.0
     for _ in range(max_periods):
         X = np.fft.rfft(resid)
         if I0 is None:
             I0 = np.abs(X) ** 2 / N  # periodogram of the detrended list, kept for the harmonics
         ords = np.abs(X[lo:hi + 1]) ** 2 / N
         total = float(ords[live].sum())
-        if total <= 0:
-            break
+        if total <= 1e-10 * (first or total) or total <= 0:
+            break  # nothing left but rounding: a noiseless list has no more periods to find
+        first = first or total
         i = int(np.argmax(np.where(live, ords, -1.0)))
         g = float(ords[i]) / total
         p = fisher_g_pvalue(g, int(live.sum()))
@@ -406,7 +408,7 @@ def _components(periods, I: np.ndarray, N: int, ss: float, ss_total: float, alph
     weight = np.full(I.shape[0], 2.0 / N)  # power of a sinusoid from its ordinates: 2 I / N,
     if N % 2 == 0:
         weight[nyq] = 1.0 / N  # but I / N at the Nyquist frequency, where it is cos(pi t) alone
-    taken = np.array([N / p.period for p in periods])
+    taken = [N / p.period for p in periods]  # bins already weighed: a window never counts twice
     fundamentals = [p.period for p in periods if p.harmonic_of is None]
     wanted = [(P, h) for P in fundamentals for h in range(2, int(P) + 1) if h * N / P <= nyq + 0.5]
     if not wanted or floor <= 0:
@@ -417,13 +419,14 @@ def _components(periods, I: np.ndarray, N: int, ss: float, ss_total: float, alph
         cut[nyq] = floor * chdtri(1, q)  # but chi-square with 1 degree of freedom at the Nyquist frequency
     for P, h in wanted:
         c = h * N / P
-        if np.min(np.abs(taken - c)) <= HARMONIC_BINS:
-            continue  # detected as a period of its own
+        if min(abs(b - c) for b in taken) < 2 * HARMONIC_BINS + 1:
+            continue  # detected as a period of its own, or measured as another fundamental's harmonic
         j = min(round(c), nyq)
         if not np.any(I[j - 1: j + 2] >= cut[j - 1: j + 2]):
             continue
         lo, hi = max(1, j - HARMONIC_BINS), min(nyq, j + HARMONIC_BINS) + 1
         power = max(0.0, float(np.sum(weight[lo:hi] * (I[lo:hi] - floor))))
+        taken.append(c)
         out.append(Component(period=P / h, share=power / var_total, fundamental=P, harmonic=h))
     return tuple(out)
 

@@ -94,10 +94,13 @@ def format_report(rep: dict) -> str:
         out.append(f"clusters: {c['clusters']}, size mean {c['mean_size']:.3g} (CV {c['size_cv']:.2f}); "
                    f"min {c['size_min']:.0f}, quartiles {c['size_q1']:.0f} / {c['size_median']:.0f} / "
                    f"{c['size_q3']:.0f}, max {c['size_max']:.0f}")
-        out.append(f"  intra-cluster correlation (ANOVA estimator): {c['icc']:.4f}")
+        within = ", within strata" if rep["strata"] else ""
+        out.append(f"  intra-cluster correlation (ANOVA estimator{within}): {c['icc']:.4f}")
     out.append("")
     out.append(f"list order: {rep['method']}; false-alarm rate {rep['false_alarm_rate']:g} "
                f"({rep['ordinates_tested']} ordinates tested)")
+    if rep["grouped_list"]:
+        out.append("  the list runs stratum by stratum or cluster by cluster: group means removed, not a trend")
     if not rep["periods"]:
         p = rep["fisher_p"]
         out.append(f"  no period found (largest ordinate: Fisher's g p = {p:.3g})")
