@@ -58,7 +58,7 @@ def frame_report(path, target: str, order=None, stratum=None, cluster=None, fals
     y = frame.y[:, 0]
     rep = {
         "frame": str(path),
-        "rows": int(len(df)),
+        "rows": len(df),
         "units": frame.N,
         "rows_dropped": int(frame.roles.get("dropped_rows", 0)),
         "target": target,
@@ -112,7 +112,7 @@ def format_report(rep: dict) -> str:
                        f"{p['autocorrelation']:>7.3f} {p['p_value']:>9.2g}  {note}")
     acf = rep["autocorrelation"]
     if acf:
-        lags = [1, 2, 3, 4, 5] + [int(round(p["period"])) for p in rep["periods"][:3]]
+        lags = [1, 2, 3, 4, 5] + [round(p["period"]) for p in rep["periods"][:3]]
         shown = sorted({lag for lag in lags if 1 <= lag <= len(acf)})
         out.append("  autocorrelation of the detrended target: "
                    + ", ".join(f"lag {lag} {acf[lag - 1]:+.3f}" for lag in shown))
