@@ -43,7 +43,8 @@ Method (O(N log N) time, O(N) memory: no N x d matrix is ever built)
    is significant against the noise floor (median ordinate / ln 2; Bonferroni over the
    harmonics tested at level ``alpha``) is measured from the periodogram: its power is the
    sum of I_j - floor over that bin and its two neighbours, times 2 / N (1 / N at the
-   Nyquist frequency).
+   Nyquist frequency); its frequency is refined at its own peak (Candan's estimator), since
+   h / P inherits h times the error of the fundamental's.
 
 Unsafe intervals (our rule)
 ---------------------------
@@ -329,12 +330,12 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
     resid = r.copy()
     found: list[list] = []  # [frequency in cycles per unit, p-value, a, b]
     g0 = p0 = None
-    I0 = None
+    X0 = None
     first = 0.0
     for _ in range(max_periods):
         X = np.fft.rfft(resid)
-        if I0 is None:
-            I0 = np.abs(X) ** 2 / N  # periodogram of the detrended list, kept for the harmonics
+        if X0 is None:
+            X0 = X  # the DFT of the detrended list, kept for the harmonics
         ords = np.abs(X[lo:hi + 1]) ** 2 / N
         total = float(ords[live].sum())
         if total <= 1e-10 * (first or total) or total <= 0:
@@ -371,7 +372,7 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
                                   autocorrelation=rho, p_value=p))
         periods = _label_harmonics(periods, N)
         periods.sort(key=lambda q: -q.strength)
-    components = _components(periods, I0, N, ss, ss_total, alpha) if periods else ()
+    components = _components(periods, X0, N, ss, ss_total, alpha) if periods else ()
     noise = max(0.0, ss / ss_total - sum(c.share for c in components))
     return OrderReport(tested=hi - lo + 1, g=float(g0), p_value=float(p0), periods=tuple(periods),
                        components=components, **{**base, "noise_share": noise})
@@ -394,10 +395,11 @@ def _label_harmonics(periods: list[Period], N: int) -> list[Period]:
     return out
 
 
-def _components(periods, I: np.ndarray, N: int, ss: float, ss_total: float, alpha: float) -> tuple:
+def _components(periods, X: np.ndarray, N: int, ss: float, ss_total: float, alpha: float) -> tuple:
     """The detected periods with their shares of the variance, and the significant harmonics of
-    each fundamental measured from the periodogram ``I`` of the detrended list (module notes, 6)."""
+    each fundamental measured from the DFT ``X`` of the detrended list (module notes, 6)."""
     var_total = ss_total / N
+    I = np.abs(X) ** 2 / N
     out = []
     for p in periods:
         h = 1 if p.harmonic_of is None else round(p.harmonic_of / p.period)
@@ -427,7 +429,10 @@ def _components(periods, I: np.ndarray, N: int, ss: float, ss_total: float, alph
         lo, hi = max(1, j - HARMONIC_BINS), min(nyq, j + HARMONIC_BINS) + 1
         power = max(0.0, float(np.sum(weight[lo:hi] * (I[lo:hi] - floor))))
         taken.append(c)
-        out.append(Component(period=P / h, share=power / var_total, fundamental=P, harmonic=h))
+        # the harmonic's own frequency, refined at its peak: h / P drifts by h times the error in 1 / P
+        peak = j - 1 + int(np.argmax(I[j - 1: j + 2])) if j + 1 <= nyq else j
+        own = _refine(X, peak, N) if abs(_refine(X, peak, N) - c) <= 1.0 else c
+        out.append(Component(period=N / own, share=power / var_total, fundamental=P, harmonic=h))
     return tuple(out)
 
 
