@@ -244,3 +244,40 @@ def test_rule_agrees_with_exact_enumeration_on_the_bundled_hourly_series():
     assert [k for k, r in exact.items() if r >= 2.0 and k not in flagged] == []
     assert [k for k, r in exact.items() if r <= BAND[0] and k in flagged] == []
     assert {4, 6, 8, 12, 24, 168} <= flagged and not {5, 7, 23, 25} & flagged  # peaked: harmonics count
+
+
+# ------------------------------------------------------------------ the run's warning
+def _warnings_for(y, n):
+    from samplewright.checks import interval_warnings
+    from samplewright.designs.systematic import Systematic
+
+    frame = Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")
+    return interval_warnings(frame, Systematic(f"n {n}", n=n).at(n))
+
+
+@pytest.mark.parametrize("size, seed", [(2400, 31), (9600, 32)])
+def test_warning_spares_half_the_period_of_a_sinusoid_at_two_sizes_of_evidence(size, seed):
+    """Old rule: 'the period is 2 x k' for k = 12 on a pure daily sinusoid, although two points per cycle
+    cancel it (exact ratio below 1.2).  Now: no warning at k = 12, a warning at k = 24, on 100 and on 400
+    days of the same cycle."""
+    tt = np.arange(size)
+    sig = 10 * np.sin(2 * np.pi * tt / 24)
+    y = sig + np.random.default_rng(seed).normal(0, 7, size)
+    assert exact_ratio(sig, 7.0, 12) < BAND[0] and exact_ratio(sig, 7.0, 24) > BAND[1]
+    assert _warnings_for(y, size // 12) == []
+    (w,) = _warnings_for(y, size // 24)
+    assert "k = 24" in w and "period 24" in w and "1 x the period" in w
+
+
+@pytest.mark.parametrize("size, seed", [(2400, 33), (9600, 34)])
+def test_warning_names_the_harmonic_of_a_peaked_cycle_at_two_sizes_of_evidence(size, seed):
+    """A morning and an evening peak every 24 units: the second harmonic is strong, so k = 12 is unsafe by
+    that component's own strength (exact ratio far above 1.9), at both sizes."""
+    tt = np.arange(size)
+    h = tt % 24
+    sig = 20 * np.exp(-((h - 8.0) ** 2) / 4) + 20 * np.exp(-((h - 17.0) ** 2) / 4)
+    y = sig + np.random.default_rng(seed).normal(0, 3, size)
+    assert exact_ratio(sig, 3.0, 12) > BAND[1]
+    (w,) = _warnings_for(y, size // 12)
+    # the 12-unit component may be the stronger one, then reported as a period of its own (k = 1 x it)
+    assert "k = 12" in w and (("period 24" in w and "harmonic 2" in w) or ("period 12" in w and "1 x the period" in w))
