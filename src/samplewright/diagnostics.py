@@ -80,9 +80,11 @@ def order_summary(frame, variable: int = 0, alpha: float | None = None, k_max: i
     """Periods of one target along the list order and the unsafe systematic intervals.
 
     ``periods`` is strongest first; ``unsafe_intervals`` lists the whole intervals 2 .. k_max
-    (default min(N // 2, 5000)) the rule of :func:`samplewright.periodicity.interval_risks`
-    flags, and ``unsafe_detail`` gives the reason for the first :data:`DETAIL` of them
-    (interval, period, kind, drift, variance ratio).
+    (default min(N // 2, 5000)) where the predicted variance ratio R(k) of
+    :mod:`samplewright.periodicity` is at least 1.5, and ``unsafe_detail`` gives the reason for
+    the first :data:`DETAIL` of them (interval, fundamental period, harmonic, multiple, points per
+    cycle, share, term, R(k)).  ``components`` are the cycle parts R(k) weighs, ``noise_share`` the
+    rest; ``grouped_list`` is true when group means were removed instead of a trend.
     """
     from . import periodicity as P
 
