@@ -46,7 +46,8 @@ def test_json_report_flags_the_planted_period(cyclic_csv, capsys):
     assert abs(top["period"] - 24) < 24**2 / 2399  # within one Fourier bin
     strengths = [p["strength"] for p in rep["periods"]]
     assert strengths == sorted(strengths, reverse=True)
-    assert {24, 48, 12} <= set(rep["unsafe_intervals"]) and 25 not in rep["unsafe_intervals"]
+    # a sinusoid: k = P and 2P are unsafe; k = P / 2 is not (two points per cycle cancel it)
+    assert {24, 48} <= set(rep["unsafe_intervals"]) and not {12, 25} & set(rep["unsafe_intervals"])
     assert all(d["interval"] in rep["unsafe_intervals"] for d in rep["unsafe_detail"])
 
 
@@ -71,14 +72,16 @@ def test_strata_and_clusters_match_pandas(cyclic_csv, capsys):
     sizes = d.groupby("day").size()
     c = rep["clusters"]
     assert c["clusters"] == 100 and c["size_min"] == sizes.min() and c["size_max"] == sizes.max()
-    # ANOVA ICC by hand: (MSB - MSW) / (MSB + (m0 - 1) MSW), m0 = (N - sum M^2 / N) / (C - 1)
+    # ANOVA ICC within strata by hand (days nested in halves): (MSB - MSW) / (MSB + (m0 - 1) MSW) with
+    # MSB = sum M_hc (ybar_hc - ybar_h)^2 / (C - H), m0 = (N - sum_h sum_c M_hc^2 / N_h) / (C - H)
+    # (one-way nested classification; Searle, Casella and McCulloch 1992, from memory)
     y = d["count"].to_numpy()
-    M = sizes.to_numpy(dtype=float)
-    means = d.groupby("day")["count"].mean().to_numpy()
-    N, C = len(y), len(M)
-    msb = np.sum(M * (means - y.mean()) ** 2) / (C - 1)
+    cl = d.groupby(["half", "day"])["count"].agg(["size", "mean"]).reset_index()
+    st = d.groupby("half")["count"].agg(["size", "mean"])
+    M, N, C, H = cl["size"].to_numpy(float), len(y), len(cl), len(st)
+    msb = np.sum(M * (cl["mean"].to_numpy() - st["mean"].loc[cl["half"]].to_numpy()) ** 2) / (C - H)
     msw = np.sum((y - d.groupby("day")["count"].transform("mean").to_numpy()) ** 2) / (N - C)
-    m0 = (N - np.sum(M**2) / N) / (C - 1)
+    m0 = (N - np.sum(M**2 / st["size"].loc[cl["half"]].to_numpy())) / (C - H)
     assert c["icc"] == pytest.approx((msb - msw) / (msb + (m0 - 1) * msw), rel=1e-10)
 
 

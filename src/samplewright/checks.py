@@ -46,30 +46,31 @@ def interval_warnings(frame: Frame, design) -> list[str]:
     out = []
     for v, name in enumerate(frame.variables):
         rep = frame_order_report(frame, v, sort_by)
-        risks = sorted(interval_risks(k, frame.N, rep.periods), key=lambda r: -r["variance_ratio"])
-        for risk in risks[:1]:  # one sentence per design and target: the worst period, the others named
-            p = next(q for q in rep.periods if q.period == risk["period"])
-            head = (f"design {design.label!r} at size {design.size}: interval k = {k:.4g} is unsafe for target "
-                    f"{name!r}, which has a cycle of period {p.period:.4g} along {along} (strength {p.strength:.2f}, "
-                    f"Fisher's g p = {p.p_value:.2g}): ")
-            if risk["phases"] == 1:
-                why = (f"k is {risk['multiple']} x the period, so every unit of a sample sits on the same phase of "
-                       f"the cycle; the estimate swings with the start")
-            else:
-                why = (f"the period is {risk['phases']} x k, so a sample sees only {risk['phases']} points of each "
-                       f"cycle; the estimate depends on the start and the cycle's shape")
-            if design.variance_name == "between_starts":
-                tail = " (the between-start SE still measures that spread honestly, at few degrees of freedom)"
-            elif risk["phases"] > 1:
-                tail = (f"; the {design.variance_name} standard error can then be far off in either direction "
-                        f"(too large for a smooth cycle, too small for a peaked one)")
-            else:
-                tail = (f"; the cycle adds about {risk['variance_ratio']:.1f} times the SRS variance, which the "
-                        f"{design.variance_name} variance estimate does not see, so intervals will under-cover")
-            others = sorted({r["period"] for r in risks[1:]} - {p.period})
-            also = (f"; the interval is also unsafe for the periods {', '.join(f'{q:.3g}' for q in others)}"
-                    if others else "")
-            out.append(head + why + tail + also)
+        risks = interval_risks(k, rep)
+        if not risks:
+            continue
+        risk = risks[0]  # one sentence per design and target: the component adding most, the others named
+        p = next(q for q in rep.periods if q.period == risk["period"])
+        head = (f"design {design.label!r} at size {design.size}: interval k = {k:.4g} is unsafe for target "
+                f"{name!r}, which has a cycle of period {p.period:.4g} along {along} (strength {p.strength:.2f}, "
+                f"Fisher's g p = {p.p_value:.2g}): ")
+        if risk["phases"] == 1:
+            why = (f"k is {risk['multiple']} x the period, so every unit of a sample sits on the same phase of "
+                   f"the cycle; the estimate swings with the start")
+        else:
+            why = (f"k is {risk['multiple']}/{risk['harmonic']} of the period, so a sample sees only "
+                   f"{risk['phases']} points of each cycle and the cycle's harmonic {risk['harmonic']} "
+                   f"(share {risk['share']:.2f} of the variance) stays in the estimate")
+        if design.variance_name == "between_starts":
+            tail = " (the between-start SE still measures that spread honestly, at few degrees of freedom)"
+        else:
+            tail = (f"; the true variance is about {risk['variance_ratio']:.1f} times what the SRS formula "
+                    f"reports, which the {design.variance_name} variance estimate does not see, so intervals "
+                    f"will under-cover")
+        others = sorted({r["period"] for r in risks[1:]} - {p.period})
+        also = (f"; the interval is also unsafe for the periods {', '.join(f'{q:.3g}' for q in others)}"
+                if others else "")
+        out.append(head + why + tail + also)
     return out
 
 

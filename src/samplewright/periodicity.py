@@ -6,50 +6,69 @@ the same phase of the cycle: the estimate depends on the start far more than the
 variance formula admits, and the intervals it gives under-cover.  This module finds such
 cycles in the frame itself (before any fieldwork) and lists the intervals to avoid.
 
-Method
+Method (O(N log N) time, O(N) memory: no N x d matrix is ever built)
 ------
-1. **Detrend.**  A smooth trend is removed first: the least-squares polynomial of degree
-   :data:`TREND_DEGREE` (3, a cubic) in the list position.  A trend is not a cycle, and a
-   smooth trend helps a systematic sample rather than hurting it (Cochran 1977, sec. 8.7).
-2. **Periodogram.**  I_j = |sum_t r_t exp(-2 pi i j t / N)|^2 / N at the Fourier frequencies
-   j = :data:`MIN_CYCLES` .. floor((N - 1) / 2): periods from N / MIN_CYCLES (at least four
-   whole cycles along the list) down to just above 2.
+1. **Detrend.**  When the list is grouped (each stratum, or each cluster, one contiguous
+   block along the list), the group means are removed: a list sorted stratum by stratum is
+   a step function, not a cycle, and systematic sampling along it is implicit
+   stratification.  Otherwise a smooth trend is removed: the least-squares polynomial of
+   degree :data:`TREND_DEGREE` (3, a cubic) in the list position, projected out one discrete
+   orthogonal polynomial at a time (the Stieltjes three-term recurrence on the positions; each
+   polynomial is one length-N vector).  A trend is not a cycle, and a smooth trend helps a
+   systematic sample rather than hurting it (Cochran 1977, sec. 8.7).
+2. **Periodogram** by the FFT: I_j = |sum_t r_t exp(-2 pi i j t / N)|^2 / N at the Fourier
+   frequencies j = :data:`MIN_CYCLES` .. floor((N - 1) / 2): periods from N / MIN_CYCLES (at
+   least four whole cycles along the list) down to just above 2.
 3. **Significance: Fisher's g test** (Fisher 1929, Proc. R. Soc. A 125:54-59).  Under
    Gaussian white noise the m ordinates are independent exponentials, and the share of the
    largest one, g = max I_j / sum I_j, has the exact tail
    ``P(g > x) = sum_{k=1}^{floor(1/x)} (-1)^(k-1) C(m, k) (1 - k x)^(m-1)``.
    A period is declared when this p-value is at most the false-alarm rate ``alpha``
    (:data:`FALSE_ALARM`, 1%): on a list with no cycle, a period is reported with probability
-   alpha (exactly, for Gaussian noise and no trend; the cubic trend removal changes the
-   lowest ordinates slightly, which the tests show does not move the rate).
+   alpha (exactly, for Gaussian noise and no trend; the tests show the trend or group-mean
+   removal does not move the rate).
 4. **More periods.**  The detected sinusoid is fitted by least squares at a refined
    frequency (Candan's three-bin estimator, IEEE Signal Processing Letters 18:351-354, 2011;
-   from memory) together with those found before, and removed; its frequency bin and the two
-   next to it leave the candidate set; the test is repeated on what is left, up to
-   :data:`MAX_PERIODS` times (a sequential use of Fisher's test, common practice).  The
-   white-noise false-alarm rate is that of the first test.
+   from memory) -- a 2 x 2 system whose cross-products are closed-form sums -- and removed;
+   its frequency bin and the two next to it leave the candidate set; the test is repeated
+   on what is left, up to :data:`MAX_PERIODS` times (sequential prewhitening with Fisher's
+   test, common practice).  One back-fitting pass then refits each sinusoid with the others
+   removed.  The white-noise false-alarm rate is that of the first test.
 5. **Strength** of a period: the share of the detrended variance its fitted sinusoid
    carries, A^2 / 2 over mean(r^2), between 0 and 1.  The autocorrelation of the detrended
    list at the lag nearest the period is reported beside it.
+6. **Harmonics.**  A cycle that is not a pure sinusoid (a peak, a step, a ramp) also has
+   power at the harmonics h / P, h = 2, 3, ...  For every fundamental period, each harmonic
+   below the Nyquist frequency whose largest periodogram ordinate within one bin of h N / P
+   is significant against the noise floor (median ordinate / ln 2; Bonferroni over the
+   harmonics tested at level ``alpha``) is measured from the periodogram: its power is the
+   sum of I_j - floor over that bin and its two neighbours, times 2 / N (1 / N at the
+   Nyquist frequency); its frequency is refined at its own peak (Candan's estimator), since
+   h / P inherits h times the error of the fundamental's.
 
 Unsafe intervals (our rule)
 ---------------------------
-A sample of n = N / k units steps through the cycle by ``k / P`` cycles per unit.  If
-``k / P`` is near a whole number a >= 1 (the interval is near a multiple of the period), the
-phases barely move: with delta = k / P - a, the cycle's part of the sample mean keeps the
-factor ``D = |sin(pi n delta) / (n sin(pi delta))|`` of its amplitude (the Dirichlet kernel;
-D = 1 when every unit sits on the same phase, about 0 once the phases sweep whole cycles).
-An in-phase sinusoid of strength s then adds about ``s S^2 D^2`` to the variance of the
-mean, against the SRS variance (1 - f) S^2 / n, so the interval is **unsafe** when
+For an interval k the sample has n = N / k units, f = n / N.  Each cycle component c (a
+detected period or a measured harmonic) of frequency phi_c = h / P and share s_c of the
+list's variance S^2 adds to the variance of the sample mean about
 
-    s n D^2 / (1 - f) >= MATERIAL  (0.5)
+    s_c S^2 D_n(k phi_c)^2 (1 - D_k(phi_c)^2),   D_m(x) = |sin(pi m x) / (m sin(pi x))|,
 
--- the true variance is then at least 1.5 times what the SRS formula reports, and nominal
-95% intervals cover at most about 89% (our threshold, from the normal approximation; not a
-published rule).  The same test with ``delta = b k / P - 1`` for b = 2 .. :data:`MAX_PHASES`
-covers a period near a multiple of k (P ~ b k: the sample sees only b points of each
-cycle).  A pure sinusoid cancels there, but a peaked cycle does not; this second form is
-applied to fundamental periods only (a harmonic's own multiples are covered by the first).
+(the Dirichlet kernel: D_n(k phi) = 1 when k phi is a whole number -- every unit of the
+sample sits on the same phase of that component -- and about 0 once the phases sweep whole
+cycles; 1 - D_k(phi)^2 is the spread of the phase over the k starts).  The rest of the
+variance (noise, share s_0 after the trend, groups and cycles) behaves as under SRS; the
+trend and the group means add nothing.  The predicted ratio of the true variance of the
+systematic mean to what the SRS formula (1 - f) S^2 / n reports is therefore
+
+    R(k) = s_0 + sum_c s_c n D_n(k phi_c)^2 (1 - D_k(phi_c)^2) / (1 - f),
+
+and the interval is **unsafe** when R(k) >= 1 + :data:`MATERIAL` = 1.5 (nominal 95% intervals
+then cover at most about 89%; our threshold, from the normal approximation, not a published
+rule).  When k divides N, R(k) computed from the periodogram itself is exact: the variance
+over the k starts is (1 / N) sum_{m=1}^{k-1} I_{m N / k} (Parseval).  So b points per cycle
+(P ~ b k) alias only the b-th harmonic: a pure sinusoid cancels there, a peaked cycle does
+not, each by its own measured strength.
 
 Examples
 --------
@@ -60,7 +79,8 @@ Examples
 >>> rep = detect_periods(y)
 >>> round(rep.periods[0].period, 2)
 24.0
->>> 24 in unsafe_intervals(rep.periods, len(y)) and 25 not in unsafe_intervals(rep.periods, len(y))
+>>> bad = unsafe_intervals(rep)
+>>> 24 in bad and 25 not in bad and 12 not in bad
 True
 """
 
@@ -68,9 +88,10 @@ from __future__ import annotations
 
 import weakref
 from dataclasses import asdict, dataclass, field
+from math import gcd
 
 import numpy as np
-from scipy.special import gammaln
+from scipy.special import chdtri, gammaln
 
 #: probability of reporting a period on a list with no cycle (Gaussian white noise)
 FALSE_ALARM = 0.01
@@ -80,15 +101,16 @@ TREND_DEGREE = 3
 MIN_CYCLES = 4
 #: at most this many periods are reported
 MAX_PERIODS = 8
-#: the "period near a multiple of k" rule checks up to this many phases per cycle
-MAX_PHASES = 4
-#: an aliased cycle matters when it adds at least this share of the SRS variance
+#: an interval is unsafe when the predicted variance ratio is at least 1 + MATERIAL
 MATERIAL = 0.5
 #: the autocorrelation function is returned up to this lag (or N // 4)
 ACF_LAGS = 200
+#: half-width, in Fourier bins, of the window a harmonic's power is summed over
+HARMONIC_BINS = 1
 
-DETREND_TEXT = (f"least-squares polynomial of degree {TREND_DEGREE} in the list position removed; "
-                f"periodogram at the Fourier frequencies; Fisher's g test (Fisher 1929)")
+DETREND_TEXT = (f"group means removed when the list is grouped, else a least-squares polynomial of degree "
+                f"{TREND_DEGREE} in the list position; FFT periodogram at the Fourier frequencies; "
+                f"Fisher's g test (Fisher 1929)")
 
 
 @dataclass(frozen=True)
@@ -107,8 +129,23 @@ class Period:
 
 
 @dataclass(frozen=True)
+class Component:
+    """A sinusoidal part of the list that the unsafe-interval rule weighs: a detected period or a
+    measured harmonic h of a detected fundamental period."""
+
+    period: float  # of this sinusoid, in list positions
+    share: float  # of the list's variance (about its mean, divisor N)
+    fundamental: float  # the fundamental period it belongs to (itself when harmonic == 1)
+    harmonic: int = 1
+
+    def as_dict(self) -> dict:
+        return {k: (float(v) if isinstance(v, float) else int(v)) for k, v in asdict(self).items()}
+
+
+@dataclass(frozen=True)
 class OrderReport:
-    """What the detector found on one list: the periods (strongest first) and the test details."""
+    """What the detector found on one list: the periods (strongest first), the components the
+    unsafe-interval rule weighs, and the test details."""
 
     N: int
     alpha: float
@@ -118,6 +155,9 @@ class OrderReport:
     periods: tuple[Period, ...] = ()
     acf: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)  # lags 1..L
     method: str = DETREND_TEXT
+    components: tuple[Component, ...] = ()
+    noise_share: float = 1.0  # share of the variance left after groups or trend, and the components
+    grouped: bool = False  # True when group means were removed instead of a trend
 
     @property
     def significant(self) -> bool:
@@ -125,25 +165,59 @@ class OrderReport:
 
 
 # ---------------------------------------------------------------- building blocks
-def detrend(x, degree: int = TREND_DEGREE) -> np.ndarray:
-    """Residuals of ``x`` after a least-squares polynomial of ``degree`` in the position.
+def _inner(a, b):
+    """sum_t a_t b_t (einsum: a threaded BLAS dot is slow on a busy machine for one vector pair)."""
+    return np.einsum("i,i->", a, b)
 
-    A Legendre basis on positions scaled to [-1, 1] keeps the fit well conditioned.
+
+def detrend(x, degree: int = TREND_DEGREE, groups=None) -> np.ndarray:
+    """Residuals of ``x`` after removing the means of ``groups`` (codes 0..G-1), or, without
+    groups, a least-squares polynomial of ``degree`` in the position.
+
+    The polynomial is projected out one discrete orthogonal polynomial at a time: positions
+    scaled to [-1, 1], p_0 = 1, p_{j+1} = (t - a_j) p_j - b_j p_{j-1} with a_j = <t p_j, p_j> /
+    <p_j, p_j> and b_j = <p_j, p_j> / <p_{j-1}, p_{j-1}> (Stieltjes), so at most three length-N
+    vectors are held; projecting on orthogonal vectors one by one gives the least-squares fit.
     """
     x = np.asarray(x, dtype=float)
     N = x.shape[0]
+    if groups is not None:
+        codes = np.asarray(groups)
+        sizes = np.bincount(codes)
+        means = np.bincount(codes, weights=x) / np.maximum(sizes, 1)
+        return x - means[codes]
+    r = x - x.mean()
     if N <= degree + 1:
-        return x - x.mean()
+        return r
     t = np.linspace(-1.0, 1.0, N)
-    X = np.polynomial.legendre.legvander(t, degree)
-    coef, *_ = np.linalg.lstsq(X, x, rcond=None)
-    return x - X @ coef
+    prev, p = np.zeros(N), np.ones(N)
+    norm_prev, norm = 1.0, float(N)
+    for _ in range(degree):
+        a = float(_inner(t * p, p)) / norm
+        nxt = (t - a) * p - (norm / norm_prev) * prev
+        prev, p = p, nxt
+        norm_prev, norm = norm, float(_inner(p, p))
+        r -= (float(_inner(r, p)) / norm) * p
+    return r
 
 
 def periodogram(r) -> np.ndarray:
     """I_j = |DFT_j(r)|^2 / N for j = 0 .. N // 2."""
     r = np.asarray(r, dtype=float)
     return np.abs(np.fft.rfft(r)) ** 2 / r.shape[0]
+
+
+def _fast_length(m: int) -> int:
+    """The smallest 2^a 3^b 5^c >= m: an FFT length numpy transforms quickly (scipy.fft is not
+    imported for this: it costs most of a second at start-up)."""
+    best, p5 = 1 << max(0, (m - 1).bit_length()), 1
+    while p5 < best:
+        p35 = p5
+        while p35 < best:
+            best = min(best, p35 << max(0, (-(-m // p35) - 1).bit_length()))
+            p35 *= 3
+        p5 *= 5
+    return best
 
 
 def autocorrelation(r, max_lag: int) -> np.ndarray:
@@ -153,7 +227,7 @@ def autocorrelation(r, max_lag: int) -> np.ndarray:
     max_lag = int(min(max_lag, N - 1))
     if max_lag < 1:
         return np.zeros(0)
-    size = 1 << int(np.ceil(np.log2(2 * N)))
+    size = _fast_length(N + max_lag)  # zero padding beyond the largest lag: no wrap-around
     f = np.fft.rfft(r, size)
     acov = np.fft.irfft(f * np.conj(f), size)[: max_lag + 1]
     return acov[1:] / acov[0] if acov[0] > 0 else np.zeros(max_lag)
@@ -205,40 +279,68 @@ def _refine(X: np.ndarray, j: int, N: int) -> float:
     return j + float(np.clip(delta, -0.5, 0.5))
 
 
-def _design(N: int, freqs) -> np.ndarray:
-    t = np.arange(N, dtype=float)
-    cols = []
-    for f in freqs:
-        w = 2.0 * np.pi * f * t
-        cols.extend([np.cos(w), np.sin(w)])
-    return np.column_stack(cols)
+def _exp_sum(theta: float, N: int) -> complex:
+    """sum_{t=0}^{N-1} exp(i theta t) in closed form (a geometric sum)."""
+    half = np.sin(theta / 2.0)
+    if abs(half) < 1e-12:
+        return complex(N)
+    return complex(np.exp(0.5j * theta * (N - 1)) * np.sin(N * theta / 2.0) / half)
+
+
+def _fit_sinusoid(r: np.ndarray, freq: float) -> tuple[float, float, np.ndarray]:
+    """Least-squares a cos(w t) + b sin(w t), w = 2 pi freq, fitted to r: (a, b, fitted values).
+
+    The 2 x 2 cross-product matrix is in closed form (sums of cos 2wt and sin 2wt); the right-hand
+    side is the DFT of r at freq.  One length-N complex vector is built, no design matrix.
+    """
+    N = r.shape[0]
+    w = 2.0 * np.pi * freq
+    e = np.exp(1j * w * np.arange(N, dtype=float))
+    z = complex(_inner(r, e))  # sum r cos + i sum r sin
+    s2 = _exp_sum(2.0 * w, N)
+    cc, ss, cs = (N + s2.real) / 2.0, (N - s2.real) / 2.0, s2.imag / 2.0
+    det = cc * ss - cs * cs
+    if det <= 1e-9 * N * N:
+        return 0.0, 0.0, np.zeros(N)
+    a = (ss * z.real - cs * z.imag) / det
+    b = (cc * z.imag - cs * z.real) / det
+    return a, b, a * e.real + b * e.imag
 
 
 # ---------------------------------------------------------------- the detector
-def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS) -> OrderReport:
-    """Find the periods of ``x`` (values in list order) after removing a smooth trend.
+def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS, groups=None) -> OrderReport:
+    """Find the periods of ``x`` (values in list order) after removing a smooth trend, or the
+    means of ``groups`` (codes along the list, each group one contiguous block).
 
     See the module notes for the method and its sources.  Returns an :class:`OrderReport`
     whose ``periods`` are sorted strongest first.
     """
     x = np.asarray(x, dtype=float)
     N = int(x.shape[0])
-    r = detrend(x)
-    ss = float(np.dot(r, r))
+    r = detrend(x, groups=groups)
+    ss = float(_inner(r, r))
+    ss_total = float(np.sum((x - x.mean()) ** 2)) if N else 0.0
     acf = autocorrelation(r, min(ACF_LAGS, N // 4))
     lo, hi = MIN_CYCLES, (N - 1) // 2
-    if hi - lo + 1 < 3 or ss <= 1e-12 * max(1.0, float(np.dot(x, x))):
-        return OrderReport(N=N, alpha=alpha, tested=max(0, hi - lo + 1), g=float("nan"), p_value=1.0, acf=acf)
+    base = {"N": N, "alpha": alpha, "acf": acf, "grouped": groups is not None,
+            "noise_share": ss / ss_total if ss_total > 0 else 1.0}
+    if hi - lo + 1 < 3 or ss <= 1e-12 * max(1.0, float(_inner(x, x))):
+        return OrderReport(tested=max(0, hi - lo + 1), g=float("nan"), p_value=1.0, **base)
     live = np.ones(hi - lo + 1, dtype=bool)
-    resid = r
-    found: list[tuple[float, float]] = []  # (frequency in cycles per unit, p-value)
+    resid = r.copy()
+    found: list[list] = []  # [frequency in cycles per unit, p-value, a, b]
     g0 = p0 = None
+    X0 = None
+    first = 0.0
     for _ in range(max_periods):
         X = np.fft.rfft(resid)
+        if X0 is None:
+            X0 = X  # the DFT of the detrended list, kept for the harmonics
         ords = np.abs(X[lo:hi + 1]) ** 2 / N
         total = float(ords[live].sum())
-        if total <= 0:
-            break
+        if total <= 1e-10 * (first or total) or total <= 0:
+            break  # nothing left but rounding: a noiseless list has no more periods to find
+        first = first or total
         i = int(np.argmax(np.where(live, ords, -1.0)))
         g = float(ords[i]) / total
         p = fisher_g_pvalue(g, int(live.sum()))
@@ -246,30 +348,34 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
             g0, p0 = g, p
         if p > alpha:
             break
-        j = lo + i
-        found.append((_refine(X, j, N) / N, p))
+        f = _refine(X, lo + i, N) / N
+        a, b, fit = _fit_sinusoid(resid, f)
+        resid -= fit
+        found.append([f, p, a, b])
         live[max(0, i - 1): i + 2] = False
         if live.sum() < 3:
             break
-        D = _design(N, [f for f, _ in found])
-        coef, *_ = np.linalg.lstsq(D, r, rcond=None)
-        resid = r - D @ coef
     periods = []
     if found:
-        D = _design(N, [f for f, _ in found])
-        coef, *_ = np.linalg.lstsq(D, r, rcond=None)
+        for item in found if len(found) > 1 else ():  # one back-fitting pass: each refitted, the others removed
+            w = 2.0 * np.pi * item[0] * np.arange(N, dtype=float)
+            resid += item[2] * np.cos(w) + item[3] * np.sin(w)
+            item[2], item[3], fit = _fit_sinusoid(resid, item[0])
+            resid -= fit
         var = ss / N
-        for s, (f, p) in enumerate(found):
-            amp = float(np.hypot(coef[2 * s], coef[2 * s + 1]))
+        for f, p, a, b in found:
+            amp = float(np.hypot(a, b))
             P = 1.0 / f
-            lag = int(round(P))
+            lag = round(P)
             rho = float(acf[lag - 1]) if 1 <= lag <= acf.shape[0] else float(autocorrelation(r, lag)[-1])
             periods.append(Period(period=P, strength=min(1.0, amp * amp / 2.0 / var), amplitude=amp,
                                   autocorrelation=rho, p_value=p))
         periods = _label_harmonics(periods, N)
         periods.sort(key=lambda q: -q.strength)
-    return OrderReport(N=N, alpha=alpha, tested=hi - lo + 1, g=float(g0), p_value=float(p0),
-                       periods=tuple(periods), acf=acf)
+    components = _components(periods, X0, N, ss, ss_total, alpha) if periods else ()
+    noise = max(0.0, ss / ss_total - sum(c.share for c in components))
+    return OrderReport(tested=hi - lo + 1, g=float(g0), p_value=float(p0), periods=tuple(periods),
+                       components=components, **{**base, "noise_share": noise})
 
 
 def _label_harmonics(periods: list[Period], N: int) -> list[Period]:
@@ -282,11 +388,52 @@ def _label_harmonics(periods: list[Period], N: int) -> list[Period]:
             if p0.period <= q.period * 1.5 or p0.strength < q.strength:
                 continue
             h = round(p0.period / q.period)
-            if h >= 2 and abs(N / q.period - h * N / p0.period) <= 1.0:
-                if best is None or p0.strength > best.strength:
-                    best = p0
+            near = h >= 2 and abs(N / q.period - h * N / p0.period) <= 1.0
+            if near and (best is None or p0.strength > best.strength):
+                best = p0
         out.append(q if best is None else Period(**{**asdict(q), "harmonic_of": best.period}))
     return out
+
+
+def _components(periods, X: np.ndarray, N: int, ss: float, ss_total: float, alpha: float) -> tuple:
+    """The detected periods with their shares of the variance, and the significant harmonics of
+    each fundamental measured from the DFT ``X`` of the detrended list (module notes, 6)."""
+    var_total = ss_total / N
+    I = np.abs(X) ** 2 / N
+    out = []
+    for p in periods:
+        h = 1 if p.harmonic_of is None else round(p.harmonic_of / p.period)
+        out.append(Component(period=p.period, share=p.strength * (ss / N) / var_total,
+                             fundamental=p.period if h == 1 else p.harmonic_of, harmonic=h))
+    nyq = I.shape[0] - 1  # the last bin: the Nyquist frequency 1/2 itself when N is even
+    floor = float(np.median(I[1:nyq])) / np.log(2.0) if nyq > 2 else 0.0
+    weight = np.full(I.shape[0], 2.0 / N)  # power of a sinusoid from its ordinates: 2 I / N,
+    if N % 2 == 0:
+        weight[nyq] = 1.0 / N  # but I / N at the Nyquist frequency, where it is cos(pi t) alone
+    taken = [N / p.period for p in periods]  # bins already weighed: a window never counts twice
+    fundamentals = [p.period for p in periods if p.harmonic_of is None]
+    wanted = [(P, h) for P in fundamentals for h in range(2, int(P) + 1) if h * N / P <= nyq + 0.5]
+    if not wanted or floor <= 0:
+        return tuple(out)
+    q = alpha / (3.0 * len(wanted))  # per ordinate: P(any of the 3 near a harmonic passes) <= alpha / tests
+    cut = np.full(I.shape[0], floor * np.log(1.0 / q))  # noise ordinates are exponential with mean floor,
+    if N % 2 == 0:
+        cut[nyq] = floor * chdtri(1, q)  # but chi-square with 1 degree of freedom at the Nyquist frequency
+    for P, h in wanted:
+        c = h * N / P
+        if min(abs(b - c) for b in taken) < 2 * HARMONIC_BINS + 1:
+            continue  # detected as a period of its own, or measured as another fundamental's harmonic
+        j = min(round(c), nyq)
+        if not np.any(I[j - 1: j + 2] >= cut[j - 1: j + 2]):
+            continue
+        lo, hi = max(1, j - HARMONIC_BINS), min(nyq, j + HARMONIC_BINS) + 1
+        power = max(0.0, float(np.sum(weight[lo:hi] * (I[lo:hi] - floor))))
+        taken.append(c)
+        # the harmonic's own frequency, refined at its peak: h / P drifts by h times the error in 1 / P
+        peak = j - 1 + int(np.argmax(I[j - 1: j + 2])) if j + 1 <= nyq else j
+        own = _refine(X, peak, N) if abs(_refine(X, peak, N) - c) <= 1.0 else c
+        out.append(Component(period=N / own, share=power / var_total, fundamental=P, harmonic=h))
+    return tuple(out)
 
 
 # ---------------------------------------------------------------- unsafe intervals
@@ -295,6 +442,7 @@ def aliasing_factor(delta, n):
     whose phases step by ``delta`` cycles (the Dirichlet kernel; 1 when they all share a phase).
     Works elementwise on arrays."""
     d = np.abs(np.asarray(delta, dtype=float))
+    d = np.abs(d - np.round(d))
     n = np.asarray(n, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         D = np.abs(np.sin(np.pi * n * d) / (n * np.sin(np.pi * d)))
@@ -302,44 +450,50 @@ def aliasing_factor(delta, n):
     return float(D) if D.ndim == 0 else D
 
 
-def _ratios(k: np.ndarray, N: int, p: Period):
-    """For intervals ``k`` and one period: sample sizes, the in-phase multiple a and its variance
-    ratio s n D^2 / (1 - f), and for b = 2..MAX_PHASES the "b phases" ratios (module notes)."""
+def _contributions(k: np.ndarray, N: int, components) -> tuple[np.ndarray, np.ndarray]:
+    """Sample sizes n = round(N / k) and, per component (rows), its term of R(k) (module notes)."""
     n = np.maximum(1.0, np.round(N / k))
-    scale = p.strength * n / (1.0 - np.minimum(n / N, 0.999999))
-    x = k / p.period
-    a = np.round(x)
-    inphase = np.where(a >= 1, scale * aliasing_factor(x - a, n) ** 2, 0.0)
-    phases = {}
-    if p.harmonic_of is None:
-        for b in range(2, MAX_PHASES + 1):
-            d = b * x - 1.0
-            phases[b] = (np.where(np.abs(d) < 0.5, scale * aliasing_factor(d, n) ** 2, 0.0), d)
-    return n, x, a, inphase, phases
+    f = np.minimum(n / N, 0.999999)
+    terms = np.zeros((len(components), k.shape[0]))
+    for i, c in enumerate(components):
+        phi = 1.0 / c.period
+        spread = 1.0 - aliasing_factor(phi, k) ** 2
+        terms[i] = c.share * n * aliasing_factor(k * phi, n) ** 2 * spread / (1.0 - f)
+    return n, terms
 
 
-def interval_risks(k: float, N: int, periods) -> list[dict]:
-    """Why the interval ``k`` is unsafe for a list of N units with these periods ([] if it is not).
+def variance_ratio(k, rep: OrderReport):
+    """Predicted ratio R(k) of the true variance of the systematic mean to the SRS formula's
+    (module notes), for one interval or an array of them."""
+    kk = np.atleast_1d(np.asarray(k, dtype=float))
+    _, terms = _contributions(kk, rep.N, rep.components)
+    R = rep.noise_share + terms.sum(axis=0)
+    return float(R[0]) if np.ndim(k) == 0 else R
 
-    Each entry: interval, period, kind ("in phase" or "b phases"), multiple a (k ~ a P) or
-    phases b (P ~ b k), the phase drift n |delta| over the sample, and the variance ratio
-    s n D^2 / (1 - f) of the rule in the module notes.
+
+def interval_risks(k: float, rep: OrderReport) -> list[dict]:
+    """Why the interval ``k`` is unsafe for the list behind ``rep`` ([] if it is not).
+
+    One entry per component that adds at least a tenth of the SRS variance, largest first:
+    interval, period (the fundamental), harmonic h, the multiple a (k ~ a P / h), the number of
+    points of each cycle a sample sees (h / gcd(a, h), 1 when k is a multiple of P), the
+    component's share and term, and the predicted variance ratio R(k) of the rule.
     """
     k = float(k)
-    if k < 1.0:
+    if k < 1.0 or not rep.components:
         return []
+    R = variance_ratio(k, rep)
+    if R < 1.0 + MATERIAL:
+        return []
+    _, terms = _contributions(np.array([k]), rep.N, rep.components)
     out = []
-    for p in periods:
-        n, x, a, inphase, phases = _ratios(np.array([k]), N, p)
-        if inphase[0] >= MATERIAL:
-            out.append({"interval": k, "period": p.period, "kind": "in phase", "multiple": int(a[0]), "phases": 1,
-                        "drift": float(n[0] * abs(x[0] - a[0])), "variance_ratio": float(inphase[0])})
+    for c, term in sorted(zip(rep.components, terms[:, 0]), key=lambda z: -z[1]):
+        if term < 0.1:
             continue
-        for b, (ratio, d) in phases.items():
-            if ratio[0] >= MATERIAL:
-                out.append({"interval": k, "period": p.period, "kind": f"{b} phases", "multiple": None,
-                            "phases": b, "drift": float(n[0] * abs(d[0])), "variance_ratio": float(ratio[0])})
-                break
+        a = round(k / c.period)
+        seen = c.harmonic // gcd(a, c.harmonic) if a >= 1 else c.harmonic
+        out.append({"interval": k, "period": c.fundamental, "harmonic": c.harmonic, "multiple": a,
+                    "phases": seen, "share": c.share, "term": float(term), "variance_ratio": R})
     return out
 
 
@@ -347,30 +501,47 @@ def interval_risks(k: float, N: int, periods) -> list[dict]:
 MAX_INTERVAL = 5000
 
 
-def unsafe_intervals(periods, N: int, k_max: int | None = None) -> list[int]:
-    """Whole intervals 2 .. k_max (default min(N // 2, MAX_INTERVAL)) that :func:`interval_risks` flags."""
-    k_max = min(N // 2, MAX_INTERVAL) if k_max is None else int(k_max)
+def unsafe_intervals(rep: OrderReport, k_max: int | None = None) -> list[int]:
+    """Whole intervals 2 .. k_max (default min(N // 2, MAX_INTERVAL)) where R(k) >= 1 + MATERIAL."""
+    k_max = min(rep.N // 2, MAX_INTERVAL) if k_max is None else int(k_max)
     k = np.arange(2, k_max + 1, dtype=float)
-    bad = np.zeros(k.shape, dtype=bool)
-    for p in periods:
-        _, _, _, inphase, phases = _ratios(k, N, p)
-        bad |= inphase >= MATERIAL
-        for ratio, _ in phases.values():
-            bad |= ratio >= MATERIAL
-    return k[bad].astype(int).tolist()
+    if not rep.components or k.size == 0:
+        return []
+    return k[variance_ratio(k, rep) >= 1.0 + MATERIAL].astype(int).tolist()
 
 
 # ---------------------------------------------------------------- frames
 _CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
 
+def contiguous_groups(codes_along) -> bool:
+    """True when every group occupies one contiguous block of the list (a grouped list)."""
+    c = np.asarray(codes_along)
+    if c.size == 0:
+        return False
+    runs = 1 + int(np.count_nonzero(c[1:] != c[:-1]))
+    return runs == np.unique(c).size and runs > 1
+
+
+def list_groups(frame, order) -> np.ndarray | None:
+    """Group codes along ``order`` when the list is grouped by stratum and/or cluster (each a
+    contiguous block; the finest such grouping), else None."""
+    parts = [g[order] for g in (frame.stratum, frame.cluster) if g is not None and contiguous_groups(g[order])]
+    if not parts:
+        return None
+    if len(parts) == 1:
+        return parts[0]
+    return np.unique(parts[0].astype(np.int64) * (int(parts[1].max()) + 1) + parts[1], return_inverse=True)[1]
+
+
 def frame_order_report(frame, variable: int = 0, sort_by: str | None = None,
                        alpha: float = FALSE_ALARM) -> OrderReport:
     """The detector's report on one target of a frame along its list order (or a sort key's
-    order), computed once per frame and kept while the frame lives."""
+    order), computed once per frame and kept while the frame lives.  A list grouped by stratum
+    or cluster has its group means removed instead of a trend (module notes, 1)."""
     per = _CACHE.setdefault(frame, {})
     key = (variable, sort_by, alpha)
     if key not in per:
-        order = frame.order if sort_by is None else frame.sort_orders[sort_by]
-        per[key] = detect_periods(frame.y[order, variable], alpha=alpha)
+        order = np.asarray(frame.order if sort_by is None else frame.sort_orders[sort_by])
+        per[key] = detect_periods(frame.y[order, variable], alpha=alpha, groups=list_groups(frame, order))
     return per[key]

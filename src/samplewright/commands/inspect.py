@@ -58,7 +58,7 @@ def frame_report(path, target: str, order=None, stratum=None, cluster=None, fals
     y = frame.y[:, 0]
     rep = {
         "frame": str(path),
-        "rows": int(len(df)),
+        "rows": len(df),
         "units": frame.N,
         "rows_dropped": int(frame.roles.get("dropped_rows", 0)),
         "target": target,
@@ -94,10 +94,13 @@ def format_report(rep: dict) -> str:
         out.append(f"clusters: {c['clusters']}, size mean {c['mean_size']:.3g} (CV {c['size_cv']:.2f}); "
                    f"min {c['size_min']:.0f}, quartiles {c['size_q1']:.0f} / {c['size_median']:.0f} / "
                    f"{c['size_q3']:.0f}, max {c['size_max']:.0f}")
-        out.append(f"  intra-cluster correlation (ANOVA estimator): {c['icc']:.4f}")
+        within = ", within strata" if rep["strata"] else ""
+        out.append(f"  intra-cluster correlation (ANOVA estimator{within}): {c['icc']:.4f}")
     out.append("")
     out.append(f"list order: {rep['method']}; false-alarm rate {rep['false_alarm_rate']:g} "
                f"({rep['ordinates_tested']} ordinates tested)")
+    if rep["grouped_list"]:
+        out.append("  the list runs stratum by stratum or cluster by cluster: group means removed, not a trend")
     if not rep["periods"]:
         p = rep["fisher_p"]
         out.append(f"  no period found (largest ordinate: Fisher's g p = {p:.3g})")
@@ -109,7 +112,7 @@ def format_report(rep: dict) -> str:
                        f"{p['autocorrelation']:>7.3f} {p['p_value']:>9.2g}  {note}")
     acf = rep["autocorrelation"]
     if acf:
-        lags = [1, 2, 3, 4, 5] + [int(round(p["period"])) for p in rep["periods"][:3]]
+        lags = [1, 2, 3, 4, 5] + [round(p["period"]) for p in rep["periods"][:3]]
         shown = sorted({lag for lag in lags if 1 <= lag <= len(acf)})
         out.append("  autocorrelation of the detrended target: "
                    + ", ".join(f"lag {lag} {acf[lag - 1]:+.3f}" for lag in shown))

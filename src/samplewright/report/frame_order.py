@@ -49,7 +49,7 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
                 x.label
                 for x in walkers
                 for size in x.sizes()
-                if rep.periods and interval_risks(x.at(size).interval(frame), frame.N, rep.periods)
+                if interval_risks(x.at(size).interval(frame), rep)
             ]
             if not at_risk:
                 continue
@@ -71,7 +71,7 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
                     "units": int(frame.N),
                     "positions_kept": W,
                     "periods": [p.as_dict() for p in rep.periods],
-                    "unsafe_intervals": unsafe_intervals(rep.periods, frame.N, min(frame.N // 2, 5000)),
+                    "unsafe_intervals": unsafe_intervals(rep),
                     "designs": [x.label for x in walkers],
                     "designs_at_risk": list(dict.fromkeys(at_risk)),
                     "walks": [
