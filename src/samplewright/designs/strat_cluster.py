@@ -36,7 +36,7 @@ from ..enumeration import combination_chunks, elementary_symmetric, product_chun
 from ..errors import InputError
 from .base import Design
 from .cluster import Cluster
-from .pips import pips, sampford_draw, size_measure
+from .pips import SampfordSampler, pips, size_measure
 
 ALLOCATIONS = ("equal", "proportional", "units")
 SELECTIONS = ("srs", "pps")
@@ -188,7 +188,9 @@ class StratifiedCluster(Design):
             if g["m"] == 0:
                 continue
             if self.selection == "pps":
-                pos = sampford_draw(rng, g["pi"], B)
+                if "sampler" not in g:
+                    g["sampler"] = SampfordSampler(g["pi"])
+                pos = g["sampler"].draw(rng, B)
             else:
                 pos = distinct_positions(rng, g["free"].size, g["m"], (B,))
             chosen.append(g["free"][pos])
