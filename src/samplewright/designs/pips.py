@@ -15,6 +15,8 @@ sec. 9A.2 on large units).
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ..errors import InputError
@@ -100,7 +102,8 @@ class SampfordSampler:
     the block.  Memory O((N / L + L) n); time per block O(N (band + B)).
     """
 
-    #: checkpoint memory aimed at (bytes); ``L`` grows past 64 units to stay under it
+    #: checkpoints every 64 units while they fit in this many bytes; past it, the L that
+    #: minimises checkpoints (16 N (n + 1) / L bytes) plus a segment's tables (about 32 L^2)
     CHECKPOINT_BYTES = 64 * 2**20
 
     def __init__(self, pi):
@@ -109,7 +112,8 @@ class SampfordSampler:
         self.n = round(float(pi.sum()))
         self.w = pi / (1.0 - pi)
         self.c = 1.0 - pi
-        self.L = max(64, -(-16 * self.N * (self.n + 1) // self.CHECKPOINT_BYTES))
+        cells = self.N * (self.n + 1)
+        self.L = 64 if 16 * cells / 64 <= self.CHECKPOINT_BYTES else math.ceil((cells / 4) ** (1 / 3))
         self._checkpoints = None
 
     @staticmethod
@@ -166,7 +170,9 @@ class SampfordSampler:
         if n == N:
             return np.broadcast_to(np.arange(N), (B, N)).copy()
         rows = self.checkpoints()
-        take = np.zeros((N, B), dtype=bool)
+        out = np.empty((B, n), dtype=np.int64)
+        filled = np.zeros(B, dtype=np.int64)  # units taken so far by each replicate
+        take = np.empty((L, B), dtype=bool)
         r = np.full(B, n, dtype=np.int64)
         m = np.zeros(B, dtype=np.int64)
         for k0 in range(0, N, L):
@@ -188,13 +194,18 @@ class SampfordSampler:
             st = 2 * (r - blo) + m
             u = rng.random((k1 - k0, B))
             for j in range(k1 - k0):
-                t = np.less(u[j], CT[j].take(st), out=take[k0 + j])
+                t = np.less(u[j], CT[j].take(st), out=take[j])
                 mark = u[j] < CM[j].take(st)
                 st -= t
                 st -= t
                 st += mark
             r, m = st // 2 + blo, st % 2
-        return (np.flatnonzero(np.ascontiguousarray(take.T)) % N).reshape(B, n)
+            b, kk = np.nonzero(take[:k1 - k0].T)  # by replicate, then unit
+            count = np.bincount(b, minlength=B)
+            rank = np.arange(b.size) - (np.cumsum(count) - count)[b]
+            out[b, filled[b] + rank] = k0 + kk
+            filled += count
+        return out
 
 
 def units_block(frame, units, weight, psu_stratum, fpc, *, mask=None, variance="hansen_hurwitz",
