@@ -1,6 +1,9 @@
 """The command line: a thin shell over the Python API that turns errors into exit codes.
 
-Exit codes: 0 ok; 2 bad input (one line on stderr starting ``error:``); 1 unexpected.
+Exit codes: 0 ok; 2 bad input (one line on stderr starting ``error:``); 1 unexpected; 130 interrupted.
+When a run's simulation finished but a later step (frontier, recommendation, figures, report) failed,
+the result tables and run.json are already written, each failure is an ``error:`` line, and the
+status is 1 (2 when the cause is refused input, such as a file that cannot be written).
 """
 
 from __future__ import annotations
