@@ -13,7 +13,7 @@ import sys
 
 from . import __version__
 from .commands import COMMANDS
-from .errors import InputError
+from .errors import INTERRUPTED, InputError
 
 
 class _Parser(argparse.ArgumentParser):
@@ -34,6 +34,14 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
+    try:
+        return _main(argv)
+    except KeyboardInterrupt:  # also during start-up: parsing, and the imports each command makes
+        print(INTERRUPTED, file=sys.stderr)
+        return 130
+
+
+def _main(argv) -> int:
     parser = build_parser()
     try:
         args = parser.parse_args(argv)
@@ -47,10 +55,6 @@ def main(argv=None) -> int:
     except InputError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print("error: interrupted; files already written are complete, nothing half-written was kept",
-              file=sys.stderr)
-        return 130
     except BrokenPipeError:
         return 0
     except Exception as exc:  # unexpected: say so in one line, keep the detail for --debug

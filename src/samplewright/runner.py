@@ -234,7 +234,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
                     frame_order=order_table)
     try:
         res.frontier, res.recommendation = goal_tables(summary, reps, scenario)
-    except Exception as exc:  # a failure after the simulation must never cost its tables
+    except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         res.late_failures.append(("the cost-precision frontier and recommendation", exc))
         if warn is None:
             import warnings

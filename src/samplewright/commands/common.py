@@ -79,7 +79,7 @@ def simulate_and_write(scenario, args) -> int:
 
         try:
             page = write_report(res, out, force=True, log=logger(args))
-        except Exception as exc:  # the tables are written: say what failed, keep them
+        except Exception as exc:  # noqa: BLE001 -- the tables are written: say what failed, keep them
             failures.append(("the report (figures/, report.html, brief.md)", exc))
     if not args.quiet:
         print(format_summary(res.summary))
