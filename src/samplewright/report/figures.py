@@ -119,7 +119,7 @@ def plain(text) -> str:
 
 
 def estimator_name(code: str) -> str:
-    return plain(ESTIMATOR_NAMES.get(code, code))
+    return ESTIMATOR_NAMES.get(code, str(code))
 
 
 def _variable(summary: pd.DataFrame, variable):
@@ -135,7 +135,7 @@ def _variable(summary: pd.DataFrame, variable):
 def cell_label(design: str, method: str, size) -> str:
     """How a design at one size is named in figures: clusters are counted as clusters."""
     unit = f"{int(size)} clusters" if method == "cluster" else f"n = {int(size)}"
-    return f"{plain(design)}, {unit}"
+    return f"{design}, {unit}"
 
 
 def primary_rows(
@@ -182,7 +182,7 @@ def _labels(rows: pd.DataFrame, with_estimator: bool) -> list[str]:
         lab = cell_label(r.design, r.method, r.size)
         if with_estimator:
             lab += f" ({estimator_name(r.estimator)})"
-        out.append(lab)
+        out.append(plain(lab))
     return out
 
 
@@ -200,7 +200,7 @@ def _design_legend(ax, designs, colours, markers=None, loc="best"):
     ]
     if markers and len(markers) > 1:
         handles += [
-            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=6, label=estimator_name(e))
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=6, label=plain(estimator_name(e)))
             for e, m in markers.items()
         ]
     ax.legend(handles=handles, loc=loc, frameon=False)
@@ -224,7 +224,7 @@ def _cell_positions(rows: pd.DataFrame):
 def _estimator_legend(ax, markers, above: bool = True):
     if len(markers) > 1:
         handles = [
-            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=plain(estimator_name(e)))
             for e, m in markers.items()
         ]
         if above:
@@ -580,7 +580,7 @@ def interval_plot(
     for i, r in enumerate(rows.itertuples(index=False)):
         ax = axes[i // ncol][i % ncol]
         g = groups.get((r.design, r.size, r.estimator))
-        title = f"{cell_label(r.design, r.method, r.size)}\nhold the truth: {100 * r.coverage:.1f}%"
+        title = f"{plain(cell_label(r.design, r.method, r.size))}\nhold the truth: {100 * r.coverage:.1f}%"
         if g is not None and len(g):
             interval_panel(g, truth, confidence, colours[r.design], title=title, shown=shown, ax=ax)
     for j in range(k, nrow * ncol):
@@ -676,7 +676,7 @@ def cost_precision_plot(
     ]
     if len(markers) > 1:
         handles += [
-            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=plain(estimator_name(e)))
             for e, m in markers.items()
         ]
     if "on_frontier" in pts.columns:
