@@ -112,8 +112,8 @@ def plain(text) -> str:
 
     Examples
     --------
-    >>> plain("cost $x^$")
-    'cost \\$x^\\$'
+    >>> print(plain("cost $x^$"))
+    cost \\$x^\\$
     """
     return str(text).replace("$", r"\$")
 
