@@ -692,7 +692,7 @@ def test_synth_refuses_existing_file(tmp_path, capsys):
 
 
 def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
-    import tempfile
+    from samplewright import outputs
 
     p = tmp_path / "s.toml"
     p.write_text("[frame.synthetic]\nunits = 50\n" + SRS)
@@ -700,7 +700,7 @@ def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
     def denied(*a, **k):
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr(tempfile, "mkstemp", denied)
+    monkeypatch.setattr(outputs, "_new_temp", denied)  # creating the temporary file is refused
     refuse(["synth", p, "--out", tmp_path / "frame.csv"], capsys, "frame.csv", "cannot be written")
 
 

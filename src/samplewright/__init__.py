@@ -18,12 +18,12 @@ from __future__ import annotations
 __version__ = "0.1.0"
 
 from .errors import InputError
-from .frame import Frame
 
 __all__ = ["__version__", "Frame", "InputError", "RunResult", "Scenario", "load_scenario", "read_run", "run",
            "scenario_from_dict", "write_report"]
 
 _LAZY = {
+    "Frame": ("frame", "Frame"),
     "run": ("runner", "run"),
     "load_scenario": ("scenario", "load_scenario"),
     "scenario_from_dict": ("scenario", "scenario_from_dict"),

@@ -1,6 +1,9 @@
 """The command line: a thin shell over the Python API that turns errors into exit codes.
 
-Exit codes: 0 ok; 2 bad input (one line on stderr starting ``error:``); 1 unexpected.
+Exit codes: 0 ok; 2 bad input (one line on stderr starting ``error:``); 1 unexpected; 130 interrupted.
+When a run's simulation finished but a later step (frontier, recommendation, figures, report) failed,
+the result tables and run.json are already written, each failure is an ``error:`` line, and the
+status is 1 (2 when the cause is refused input, such as a file that cannot be written).
 """
 
 from __future__ import annotations
@@ -10,7 +13,7 @@ import sys
 
 from . import __version__
 from .commands import COMMANDS
-from .errors import InputError
+from .errors import INTERRUPTED, InputError
 
 
 class _Parser(argparse.ArgumentParser):
@@ -31,6 +34,14 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv=None) -> int:
+    try:
+        return _main(argv)
+    except KeyboardInterrupt:  # also during start-up: parsing, and the imports each command makes
+        print(INTERRUPTED, file=sys.stderr)
+        return 130
+
+
+def _main(argv) -> int:
     parser = build_parser()
     try:
         args = parser.parse_args(argv)
@@ -44,10 +55,6 @@ def main(argv=None) -> int:
     except InputError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print("error: interrupted; files already written are complete, nothing half-written was kept",
-              file=sys.stderr)
-        return 130
     except BrokenPipeError:
         return 0
     except Exception as exc:  # unexpected: say so in one line, keep the detail for --debug

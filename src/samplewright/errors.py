@@ -13,3 +13,7 @@ class InputError(ValueError):
 
 class SamplewrightWarning(UserWarning):
     """A condition worth telling the user about that does not stop the run."""
+
+
+#: the one line printed on Ctrl-C, wherever it lands (start-up, simulation, writing); exit status 130
+INTERRUPTED = "error: interrupted; files already written are complete, nothing half-written was kept"

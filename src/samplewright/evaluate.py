@@ -31,6 +31,21 @@ SUMMARY_COLUMNS = [
 ]
 
 
+#: relative rounding slack of :func:`holds` (a zero-width census interval is its estimate, rounded)
+ROUNDING = 1e-12
+
+
+def holds(lower, upper, truth):
+    """Whether each interval holds the truth, up to rounding (arrays broadcast).
+
+    A census, or any sample whose variance estimate is 0, gives a zero-width interval at its
+    estimate, which equals the truth up to the order of summation: a slack of :data:`ROUNDING`
+    times the largest magnitude involved counts it as holding, as it does in exact arithmetic.
+    """
+    tol = ROUNDING * np.maximum(np.abs(truth), np.maximum(np.abs(lower), np.abs(upper)))
+    return (lower - tol <= truth) & (truth <= upper + tol)
+
+
 def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray, truth: float,
              z: float) -> dict:
     """Morris-White-Crowther measures of one method from its replicate arrays."""
@@ -38,7 +53,7 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
     mean = float(np.mean(x))
     var = float(np.var(x, ddof=1)) if R > 1 else float("nan")
     emp_se = float(np.sqrt(var))
-    cover = float(np.mean((lower <= truth) & (truth <= upper)))
+    cover = float(np.mean(holds(lower, upper, truth)))
     rmse = float(np.sqrt(np.mean((x - truth) ** 2)))
     mod_se = float(np.sqrt(np.mean(se**2)))
     return {

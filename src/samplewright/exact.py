@@ -32,7 +32,7 @@ from .block import SampleBlock
 from .enumeration import combination_chunks, elementary_symmetric, product_chunks
 from .errors import InputError
 from .estimators import ESTIMATORS, sample_units
-from .evaluate import SUMMARY_COLUMNS
+from .evaluate import SUMMARY_COLUMNS, holds
 
 #: most samples enumerated for one design at one size
 LIMIT = 2_000_000
@@ -222,7 +222,7 @@ def _moments(p, x, se, lo, hi, truth, z):
     mean = float(p @ x)
     var = float(p @ (x - mean) ** 2)
     emp = float(np.sqrt(var))
-    cover = float(p @ ((lo <= truth) & (truth <= hi)))
+    cover = float(p @ holds(lo, hi, truth))
     rmse = float(np.sqrt(p @ (x - truth) ** 2))
     mod = float(np.sqrt(p @ se**2))
     return {"truth": truth, "mean_estimate": mean, "bias": mean - truth, "bias_mcse": 0.0,

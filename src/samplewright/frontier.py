@@ -15,6 +15,14 @@ for stratified SRS with a fixed allocation (Cochran eq. 5.6, with n_h = n w_h) a
 cluster sampling in the number of clusters; for other designs it is an approximation.  The
 size meeting a margin E at normal quantile z solves a/n + b = (E / z)^2.  An answer inside the
 simulated range is labelled "interpolated", one outside it "extrapolated".
+
+A point whose MSE has no Monte Carlo error (a census, where every replicate takes the whole
+frame, or any size at which every replicate gives the same estimate) is known exactly, so it
+cannot take a weight 1 / 0.  Its MCSE is 0 or rounding error: a point counts as exact when its
+MCSE is at most :data:`EXACT_MCSE` times the sweep's largest MSE.  Such points are constraints: the curve passes through them and
+the other points are fitted by weighted least squares in the directions the constraints leave
+free.  With exact points at two or more sizes the curve is fixed by them alone (a least-squares
+solve among them).
 """
 
 from __future__ import annotations
@@ -31,6 +39,10 @@ FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
     "empirical_se", "rmse", "mse_mcse", "moe", "moe_mcse", "coverage", "coverage_mcse", "on_frontier",
 ]
+
+
+#: MCSE (relative to the sweep's largest MSE) at or below which a point's MSE is exact: rounding error
+EXACT_MCSE = 1e-12
 
 
 def z_of(confidence: float) -> float:
@@ -104,16 +116,19 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
 
 # ------------------------------------------------------------------ fitted curves
 def fit_curve(size, mse, mcse) -> dict | None:
-    """Weighted least-squares fit of MSE(n) = a / n + b over a sweep; None with fewer than 2 sizes.
+    """Weighted least-squares fit of MSE(n) = a / n + b over a sweep; None when a and b are not determined.
 
-    Returns a, b, their covariance matrix (from the weights, which are 1 / MCSE^2) and the
-    range of sizes fitted.
+    Weights are 1 / MCSE^2; points with MCSE 0 are exact and held as constraints (module notes).
+    Returns a, b, their covariance matrix and the range of sizes fitted.
 
     Examples
     --------
     >>> c = fit_curve([10, 20, 40], [0.95, 0.45, 0.2], [0.01, 0.01, 0.01])
     >>> round(c["a"], 3), round(c["b"], 3)
     (10.0, -0.05)
+    >>> c = fit_curve([10, 20, 40], [0.9, 0.45, 0.0], [0.01, 0.01, 0.0])  # a census at n = 40
+    >>> abs(c["a"] / 40 + c["b"]) < 1e-12
+    True
     """
     n = np.asarray(size, dtype=float)
     y = np.asarray(mse, dtype=float)
@@ -122,13 +137,29 @@ def fit_curve(size, mse, mcse) -> dict | None:
     n, y, s = n[ok], y[ok], s[ok]
     if len(np.unique(n)) < 2:
         return None
-    good = np.isfinite(s) & (s > 0)
+    exact = np.isfinite(s) & (s <= EXACT_MCSE * np.abs(y).max())
+    good = np.isfinite(s) & ~exact
     floor = s[good].min() if good.any() else 1.0
     w = 1.0 / np.where(good, s, floor) ** 2
     X = np.column_stack([1.0 / n, np.ones_like(n)])
-    XtW = X.T * w
-    cov = np.linalg.inv(XtW @ X)
-    a, b = cov @ (XtW @ y)
+    # beta = beta0 + Z t: beta0 meets the exact points, Z spans what they leave free (all of it if none)
+    beta0, Z = np.zeros(2), np.eye(2)
+    if exact.any():
+        C = X[exact]
+        beta0 = np.linalg.lstsq(C, y[exact], rcond=None)[0]
+        _, sv, vt = np.linalg.svd(C)
+        Z = vt[int((sv > 1e-12 * sv[0]).sum()):].T
+    cov = np.zeros((2, 2))
+    if Z.shape[1]:
+        free = ~exact
+        Xf = X[free] @ Z
+        M = (Xf.T * w[free]) @ Xf
+        if not free.any() or np.linalg.matrix_rank(M) < Z.shape[1]:
+            return None
+        cov_t = np.linalg.inv(M)
+        t = cov_t @ ((Xf.T * w[free]) @ (y[free] - X[free] @ beta0))
+        beta0, cov = beta0 + Z @ t, Z @ cov_t @ Z.T
+    a, b = beta0
     return {"a": float(a), "b": float(b), "cov": cov, "min_size": float(n.min()), "max_size": float(n.max()),
             "points": int(len(n))}
 

@@ -1,13 +1,18 @@
 """Safe writing of results: refuse to overwrite without ``force``; temporary name, then rename.
 
-An interrupted write leaves the previous file (or none), never a truncated one.
+An interrupted write leaves the previous file (or none), never a truncated one.  New files get
+the permissions the user's umask allows (0644 under the usual 022), like any other tool's.
+
+Every CSV file goes through :func:`write_csv`, which guards text cells against spreadsheet
+formula injection (see :func:`protect_cell`); :func:`restore_cell` undoes it when a CSV is read back.
 """
 
 from __future__ import annotations
 
+import csv
 import json
 import os
-import tempfile
+import secrets
 from pathlib import Path
 
 import pandas as pd
@@ -49,14 +54,29 @@ def prepare_dir(out, force: bool = False, inputs=()) -> Path:
     return p
 
 
+def _new_temp(path: Path) -> Path:
+    """Create an empty, uniquely named file beside ``path``, mode 0666 less the umask (not mkstemp's 0600)."""
+    for _ in range(100):
+        tmp = path.with_name(f".{path.name}.{secrets.token_hex(6)}.tmp")
+        try:
+            fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)  # the kernel applies the umask
+        except FileExistsError:
+            continue
+        os.close(fd)
+        return tmp
+    raise FileExistsError(f"no free temporary name beside {path.name}")
+
+
 def atomic_write(path, write) -> Path:
-    """Call ``write(tmp_path)`` on a temporary file beside ``path``, then rename it into place."""
+    """Call ``write(tmp_path)`` on a temporary file beside ``path``, then rename it into place.
+
+    The file ends with the permissions of any new file under the user's umask.
+    """
     path = Path(path)
     try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+        tmp = _new_temp(path)
     except OSError as exc:
         raise InputError(f"{str(path)!r} cannot be written: {exc.strerror or exc}") from None
-    os.close(fd)
     try:
         write(Path(tmp))
         os.replace(tmp, path)
@@ -71,8 +91,82 @@ def atomic_write(path, write) -> Path:
     return path
 
 
+#: first characters that make a spreadsheet read a text cell as a formula ("CSV injection")
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def _formula_like(text: str) -> bool:
+    """Would ``text``, less any leading single quotes, start a spreadsheet formula?
+
+    A signed number written as text (``-1.5``) is not a formula and is left alone.
+    """
+    core = text.lstrip("'")
+    if not core.startswith(FORMULA_START):
+        return False
+    if core[0] in "+-" and core == core.strip():
+        try:
+            float(core)
+            return False
+        except ValueError:
+            pass
+    return True
+
+
+def protect_cell(value):
+    """A text cell that a spreadsheet would run as a formula, prefixed with one single quote.
+
+    The usual protection against formula injection: ``=HYPERLINK("x")`` is written
+    ``'=HYPERLINK("x")``.  A text that already starts with quotes before such a character gets
+    one more, so that :func:`restore_cell` gives every text back exactly.  Numbers are untouched.
+
+    Examples
+    --------
+    >>> protect_cell('=1+2'), protect_cell("'=x"), protect_cell('-1.5'), protect_cell(-1.5), protect_cell('a')
+    ("'=1+2", "''=x", '-1.5', -1.5, 'a')
+    """
+    return "'" + value if isinstance(value, str) and _formula_like(value) else value
+
+
+def restore_cell(value):
+    """Undo :func:`protect_cell` on a cell read back from a CSV file written by samplewright."""
+    if isinstance(value, str) and value.startswith("'") and _formula_like(value[1:]):
+        return value[1:]
+    return value
+
+
+def _text_columns(df: pd.DataFrame) -> list:
+    return [c for c in df.columns if not (pd.api.types.is_numeric_dtype(df[c]) or pd.api.types.is_bool_dtype(df[c]))]
+
+
+def protect_table(df: pd.DataFrame) -> pd.DataFrame:
+    """``df`` with :func:`protect_cell` applied to every text cell and column name (a copy when needed)."""
+    out = df.rename(columns=protect_cell)
+    for c in _text_columns(out):
+        out[c] = out[c].astype(object).map(protect_cell)
+    return out
+
+
+def restore_table(df: pd.DataFrame) -> pd.DataFrame:
+    """Undo :func:`protect_table` on a table read from CSV (text columns and column names)."""
+    out = df.rename(columns=restore_cell)
+    for c in _text_columns(out):
+        out[c] = out[c].map(restore_cell)
+    return out
+
+
 def write_csv(df: pd.DataFrame, path) -> Path:
-    return atomic_write(path, lambda t: df.to_csv(t, index=False))
+    """Write ``df`` as CSV (no index) with formula-like text cells protected (:func:`protect_table`).
+
+    A text cell holding a carriage return is quoted only when the whole file quotes its text
+    cells (Python's csv writer quotes line breaks of its own line terminator only), so such a
+    table is written with every text cell quoted; any other is written with minimal quoting.
+    """
+    safe = protect_table(df)
+    text = _text_columns(safe)
+    has_cr = any(safe[c].map(lambda v: isinstance(v, str) and "\r" in v).any() for c in text) or any(
+        isinstance(c, str) and "\r" in c for c in safe.columns)
+    quoting = csv.QUOTE_NONNUMERIC if has_cr else csv.QUOTE_MINIMAL
+    return atomic_write(path, lambda t: safe.to_csv(t, index=False, quoting=quoting))
 
 
 def write_parquet(df: pd.DataFrame, path, rows_per_group: int = 500_000) -> Path:

@@ -37,6 +37,8 @@ class RunResult:
     warnings: list[str] = field(default_factory=list)
     #: the target along a systematic design's walk order, when a cycle was found (frame_order.csv)
     frame_order: pd.DataFrame | None = None
+    #: (what, exception) of each step after the simulation that failed (the tables are still complete)
+    late_failures: list = field(default_factory=list)
 
     def write(self, out, force: bool = False, report: bool = False, svg: bool = False) -> Path:
         """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``).
@@ -46,18 +48,22 @@ class RunResult:
         """
         p = prepare_dir(out, force=force)
         # an older run.json marks older files complete: remove it first, so an interrupted
-        # overwrite never leaves new and old files under one complete-looking run.json
-        (p / "run.json").unlink(missing_ok=True)
+        # overwrite never leaves new and old files under one complete-looking run.json; older
+        # derived files go too, so a run without them never shows another run's
+        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv"):
+            (p / name).unlink(missing_ok=True)
+        # the simulated tables first, run.json marking them complete; then what is derived from them,
+        # so that a failure there never loses the simulation
         write_parquet(self.replicates, p / "replicates.parquet")
         write_csv(self.summary, p / "summary.csv")
         write_csv(self.allocation, p / "allocation.csv")
+        if self.frame_order is not None:
+            write_csv(self.frame_order, p / "frame_order.csv")
+        write_json(self.info, p / "run.json")
         if self.frontier is not None:
             write_csv(self.frontier, p / "frontier.csv")
         if self.recommendation is not None:
             write_json(self.recommendation, p / "recommendation.json")
-        if self.frame_order is not None:
-            write_csv(self.frame_order, p / "frame_order.csv")
-        write_json(self.info, p / "run.json")  # last: its presence marks a complete run
         if report:
             from .report import write_report
 

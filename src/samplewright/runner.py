@@ -240,9 +240,20 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "frame_order": order_info,
     }
     say(f"simulated in {t2 - t1:.2f} s")
-    front, rec = goal_tables(summary, reps, scenario)
-    return RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes,
-                     frontier=front, recommendation=rec, frame_order=order_table)
+    res = RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes,
+                    frame_order=order_table)
+    try:
+        res.frontier, res.recommendation = goal_tables(summary, reps, scenario)
+    except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
+        res.late_failures.append(("the cost-precision frontier and recommendation", exc))
+        if warn is None:
+            import warnings
+
+            from .errors import SamplewrightWarning
+
+            warnings.warn(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
+                          f"tables are complete", SamplewrightWarning, stacklevel=2)
+    return res
 
 
 def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):

@@ -11,6 +11,7 @@ from __future__ import annotations
 import hashlib
 import json
 import tomllib
+import unicodedata
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -79,8 +80,14 @@ def as_float(value, key: str, ctx: str = "", minimum: float | None = None, maxim
 
 
 def as_str(value, key: str, ctx: str = "") -> str:
+    """A non-empty text of one line: control characters (line breaks, tabs, NUL...) are refused,
+    since labels and titles end up in CSV rows, figures, Markdown and terminal lines."""
     if not isinstance(value, str) or not value.strip():
         raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {value!r}")
+    bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
+    if bad is not None:
+        raise InputError(f"{_where(ctx, key)} = {value[:60]!r} contains the control character {bad!r}; "
+                         f"give one line of printable text")
     return value
 
 

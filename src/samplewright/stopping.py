@@ -34,6 +34,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
+from .evaluate import holds
 from .validate import closest
 
 #: target name -> what it bounds (for messages and the README)
@@ -113,7 +114,7 @@ class Tally:
             return
         bm = x.mean(axis=1)
         bm2 = ((x - bm[:, None, :]) ** 2).sum(axis=1)
-        cov = ((result.lower <= truth) & (truth <= result.upper)).sum(axis=1)
+        cov = holds(result.lower, result.upper, truth).sum(axis=1)
         if self.R == 0:
             self.mean, self.m2, self.covered = bm, bm2, cov.astype(float)
         else:

@@ -71,12 +71,16 @@ def simulate_and_write(scenario, args) -> int:
         if not isinstance(exc, (InputError, SystemExit)):
             interrupted_note(args.out)
         raise
-    out = res.write(args.out, force=True)
+    out = res.write(args.out, force=True)  # the simulated tables and run.json first
+    failures = list(res.late_failures)
     page = None
     if not getattr(args, "no_report", False):
         from ..report import write_report
 
-        page = write_report(res, out, force=True, log=logger(args))
+        try:
+            page = write_report(res, out, force=True, log=logger(args))
+        except Exception as exc:  # noqa: BLE001 -- the tables are written: say what failed, keep them
+            failures.append(("the report (figures/, report.html, brief.md)", exc))
     if not args.quiet:
         print(format_summary(res.summary))
         if res.info.get("stopping"):
@@ -89,7 +93,24 @@ def simulate_and_write(scenario, args) -> int:
         print(f"results written to {out}")
         if page is not None:
             print(f"report: {page.resolve()}")
-    return 0
+    return late_failure_status(failures, out, args)
+
+
+def late_failure_status(failures, out, args) -> int:
+    """Report the steps that failed after the tables were written; the exit status (module notes of cli.py).
+
+    Each failure is one ``error:`` line; the status is 0 with none, 2 when every cause is refused
+    input (an unwritable file...), else 1.  With ``--debug`` the first failure's traceback is shown.
+    """
+    if failures and getattr(args, "debug", False):
+        raise failures[0][1]
+    for what, exc in failures:
+        print(f"error: {what} failed ({type(exc).__name__}: {exc}); the result tables in {out} are complete "
+              f"(summary.csv, replicates.parquet, run.json); rebuild the report with `samplewright report {out}`",
+              file=sys.stderr)
+    if not failures:
+        return 0
+    return 2 if all(isinstance(exc, InputError) for _, exc in failures) else 1
 
 
 def format_summary(summary) -> str:

@@ -9,8 +9,6 @@ from __future__ import annotations
 
 import json
 
-import numpy as np
-
 NAME = "inspect"
 HELP = "report a frame's strata, clusters and list-order cycles, and the systematic intervals to avoid"
 #: intervals listed in the text report (the JSON lists them all)
@@ -139,6 +137,8 @@ def main(args) -> int:
 
 
 def _jsonable(v):
+    import numpy as np  # here, not at start-up: the command line starts without numpy
+
     if isinstance(v, np.generic):
         return v.item()
     return str(v)

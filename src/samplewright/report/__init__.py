@@ -81,12 +81,12 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
         say(f"drawing figure {item['stem']}")
         try:
             fig = make_figure(res, item["name"], item["variable"])
+            buf = io.BytesIO()
+            fig.savefig(buf, format="png", dpi=DPI)  # text is laid out here: it can fail too
         except Exception as exc:  # a figure that cannot be drawn must not cost the rest of the report
             failed.append(f"The figure {item['heading']!r} could not be drawn ({type(exc).__name__}: {exc}).")
             say(failed[-1])
             continue
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=DPI)
         png = buf.getvalue()
         atomic_write(figdir / f"{item['stem']}.png", lambda t, b=png: t.write_bytes(b))
         if svg:

@@ -9,7 +9,7 @@ MARKER = "samplewright"
 
 def render_brief(context: dict) -> str:
     """The brief from :func:`~samplewright.report.story.build_context`."""
-    text = render("brief.md", context, autoescape=False)
+    text = render("brief.md", context, markup="markdown")
     lines = [ln.rstrip() for ln in text.splitlines()]
     out, blank = [], 0
     for ln in lines:  # at most one blank line in a row

@@ -22,4 +22,4 @@ def render_html(context: dict, figures: list[dict]) -> str:
     ``height`` (pixels).
     """
     figs = [{**f, "src": data_uri(f["png"])} for f in figures]
-    return render("report.html", {**context, "figures": figs}, autoescape=True)
+    return render("report.html", {**context, "figures": figs}, markup="html")
