@@ -221,3 +221,23 @@ def test_variance_option_is_checked():
         StratifiedCluster("z", clusters=4, variance="two-stage").check(frame)
     assert METHODS["cluster"].variances[0] == "two_stage"
     assert StratifiedCluster("z", clusters=4).variance_name == "two_stage"
+
+
+def test_stratified_cluster_size_is_said_in_clusters_with_expected_units():
+    """The size of a cluster design counts clusters; the expected units sum the pi_k (SSW 1992, sec. 2.6)."""
+    from samplewright.recommend import _describe
+    from samplewright.report.figures import cell_label
+
+    frame, _ = unequal_frame()
+    d = StratifiedCluster("zones", clusters=4, units_per_cluster=2)
+    d.check(frame)
+    expected = d.expected_n(frame)
+    assert expected == pytest.approx(4 * 2)  # every plot has at least 2 units: 2 per drawn plot
+    note = d.notes(frame)[0]
+    assert "clusters = 4" in note and "about 8 units expected" in note
+    pick = {"design": "zones", "method": "stratified_cluster", "size": 4, "estimator": "ht", "mean_n": expected,
+            "mean_cost": 10.0, "p90_cost": 10.0, "moe": 1.0, "moe_mcse": 0.1, "coverage": 0.95}
+    text = _describe(pick, 0.95)
+    assert "with 4 clusters (about 8 units expected)" in text and "4 units" not in text
+    assert cell_label("zones", "stratified_cluster", 4, expected) == "zones, 4 clusters (about 8 units expected)"
+    assert cell_label("simple", "srs", 40) == "simple, n = 40"

@@ -172,7 +172,7 @@ class StratifiedCluster(Design):
         parts = ", ".join(f"{frame.stratum_labels[h]}: {int(s['m_h'][h])} of {int(c)}"
                           for h, c in enumerate(self.clusters_per_stratum(frame)))
         out = [f"design {self.label!r} at clusters = {self.clusters}: clusters per stratum "
-               + f"({self.cluster_allocation}) {parts}"]
+               + f"({self.cluster_allocation}) {parts}; about {self.expected_n(frame):.4g} units expected"]
         if s["certain"]:
             out.append(f"design {self.label!r} at clusters = {self.clusters}: {len(s['certain'])} cluster(s) with "
                        f"pi >= 1 are taken with certainty ({s['rounds']} removal round(s))")
