@@ -7,7 +7,8 @@ as a simulated run (``evaluate.SUMMARY_COLUMNS``), with ``replicates`` = the num
 possible samples, every MCSE column 0 and ``exact`` = True.
 
 Enumeration is available for srs, stratified, systematic, one- and two-stage cluster
-(here, from the designs' own parameters) and for the size-proportional, random-size and
+(here, from the designs' own parameters; cluster blocks are built by ``Cluster.block``, as
+in a simulated run) and for the size-proportional, random-size and
 stratified multistage designs through their ``enumerate`` method; a design whose sample count exceeds
 :data:`LIMIT` is refused with the count.
 
