@@ -241,3 +241,14 @@ def test_stratified_cluster_size_is_said_in_clusters_with_expected_units():
     assert "with 4 clusters (about 8 units expected)" in text and "4 units" not in text
     assert cell_label("zones", "stratified_cluster", 4, expected) == "zones, 4 clusters (about 8 units expected)"
     assert cell_label("simple", "srs", 40) == "simple, n = 40"
+
+
+def test_take_all_with_one_unit_per_cluster_is_noted():
+    """One unit per certainty cluster: no within-cluster variance can be estimated (s_2i^2 needs k_i >= 2)."""
+    frame, _ = unequal_frame()
+    assert any("cannot be estimated" in n for n in Cluster("all", clusters=6, units_per_cluster=1).notes(frame))
+    assert not Cluster("all", clusters=6, units_per_cluster=2).notes(frame)
+    assert not Cluster("some", clusters=3, units_per_cluster=1).notes(frame)
+    d = StratifiedCluster("zones", clusters=5, cluster_allocation="equal", units_per_cluster=1)
+    d.check(frame)
+    assert any("3 cluster(s) are taken with certainty and one unit" in n for n in d.notes(frame))

@@ -63,6 +63,16 @@ def within_factor(variance: str, pi1, take: np.ndarray, sizes: np.ndarray, srs: 
     return np.where(pi1 >= 1.0, 1.0, own) * (1.0 - take / sizes)
 
 
+def one_unit_note(design, certain: int, k) -> list[str]:
+    """A note when ``certain`` clusters are taken with certainty and only one unit is drawn in each:
+    their within-cluster variance, all the variance they have, cannot be estimated."""
+    if k != 1 or certain == 0:
+        return []
+    return [(f"design {design.label!r} at clusters = {design.clusters}: {certain} cluster(s) are taken with "
+             f"certainty and one unit is drawn in each, so their within-cluster variance cannot be estimated "
+             f"and is left out of the standard errors (draw 2 or more units per cluster)")]
+
+
 def _slot_starts(block: SampleBlock) -> np.ndarray:
     psu = block.psu
     return np.flatnonzero(np.concatenate([[True], psu[1:] != psu[:-1]]))

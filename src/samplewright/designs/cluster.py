@@ -8,7 +8,7 @@ from ..block import SampleBlock
 from ..cost import cluster_costs
 from ..draws import distinct_positions
 from ..errors import InputError
-from ..two_stage_variance import within_factor
+from ..two_stage_variance import one_unit_note, within_factor
 from .base import Design
 
 
@@ -48,6 +48,9 @@ class Cluster(Design):
         if self.units_per_cluster is not None:
             units, valid = self._second_stage(frame, rng, chosen, frame.cluster_sizes[chosen], self.take(frame))
         return self.block(frame, chosen, units, valid, keep_units)
+
+    def notes(self, frame):
+        return one_unit_note(self, frame.C if int(self.clusters) == frame.C else 0, self.take(frame))
 
     def take(self, frame) -> int | None:
         """Units drawn per cluster (a cap above the largest cluster takes all), None for one stage."""

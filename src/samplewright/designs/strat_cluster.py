@@ -37,6 +37,7 @@ from ..block import SampleBlock
 from ..draws import distinct_positions
 from ..enumeration import combination_chunks, elementary_symmetric, product_chunks
 from ..errors import InputError
+from ..two_stage_variance import one_unit_note
 from .base import Design
 from .cluster import Cluster, second_stage_block
 from .pips import pips, sampford_draw, size_measure
@@ -176,7 +177,8 @@ class StratifiedCluster(Design):
         if s["certain"]:
             out.append(f"design {self.label!r} at clusters = {self.clusters}: {len(s['certain'])} cluster(s) with "
                        f"pi >= 1 are taken with certainty ({s['rounds']} removal round(s))")
-        return out
+        take_all = sum(g["m"] for g in s["groups"] if g["fpc"] == 0.0)  # every cluster of the stratum drawn
+        return out + one_unit_note(self, len(s["certain"]) + take_all, s["k"])
 
     # ------------------------------------------------------------------ drawing
     def _draw(self, frame, rng, B, keep_units):
