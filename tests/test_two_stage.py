@@ -252,3 +252,20 @@ def test_take_all_with_one_unit_per_cluster_is_noted():
     d = StratifiedCluster("zones", clusters=5, cluster_allocation="equal", units_per_cluster=1)
     d.check(frame)
     assert any("3 cluster(s) are taken with certainty and one unit" in n for n in d.notes(frame))
+
+
+def test_a_replicate_constant_spread_by_slot_shares_adds_no_variance():
+    """Non-response adjustments spread a replicate constant over the positions; with two stages and
+    unequal takes (capped clusters) it must add nothing to the two-stage v (both of its terms are
+    sums of squared deviations, Cochran 1977, Thm 11.2)."""
+    from samplewright.two_stage_variance import slot_shares, two_stage_variance
+
+    frame, _ = unequal_frame()
+    d = Cluster("capped", clusters=3, units_per_cluster=4, cap_units=True)
+    d.check(frame)
+    blk = d.draw(frame, np.random.default_rng(2), 50)
+    assert blk.mask is not None  # some chosen clusters have 3 units: unequal takes
+    share = slot_shares(blk)
+    np.testing.assert_allclose(share.sum(axis=1), 3.0)  # one per cluster
+    v = two_stage_variance(7.5 * share[..., None], blk)
+    np.testing.assert_allclose(v, 0.0, atol=1e-9)

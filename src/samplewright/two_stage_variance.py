@@ -78,6 +78,16 @@ def _slot_starts(block: SampleBlock) -> np.ndarray:
     return np.flatnonzero(np.concatenate([[True], psu[1:] != psu[:-1]]))
 
 
+def slot_shares(block: SampleBlock) -> np.ndarray:
+    """(B, m) weights of the real positions, summing to 1 within each cluster slot: a replicate
+    constant spread by them adds the same to every cluster total and nothing within a cluster,
+    so it adds no variance (as a constant per PSU does in a one-stage block)."""
+    real = np.ones(block.sums.shape[:2]) if block.mask is None else block.mask.astype(float)
+    starts = _slot_starts(block)
+    per_slot = np.add.reduceat(real, starts, axis=1)  # (B, S) real units per slot
+    return real / np.maximum(per_slot, 1.0)[:, block.psu]
+
+
 def _first_stage(z: np.ndarray, block: SampleBlock):
     """Estimated cluster totals (B, S, V) and the block seen at the first stage (every slot a cluster)."""
     starts = _slot_starts(block)
