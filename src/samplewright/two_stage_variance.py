@@ -20,7 +20,10 @@ w_i (M_i / k_i) y_ij the expanded unit values:
 
   with s_th^2 the variance of the estimated cluster totals and s_2i^2 the within-cluster
   sample variance; unbiased for the variance of the HT total (Cochran 1977, Theorem 11.2
-  and its unequal-size form, sec. 11.8; Sarndal, Swensson & Wretman 1992, Result 4.3.1).
+  for equal sizes and its unequal-size form in ch. 11, section from memory; Sarndal,
+  Swensson & Wretman 1992, Result 4.3.1).  A cluster with one sampled unit has no s_2i^2
+  and adds no within-cluster term (the designs note it when such a cluster is taken with
+  certainty, where that term is all its variance).
   The second term is, per cluster, the shared between-PSU routine on its units z_ij with
   correction pi_i (1 - f_2i): (1 - f_2i) pi_i k_i s_z^2 = w_i M_i^2 (1 - f_2i) s_2i^2 / k_i.
 - ``ultimate_cluster``: the first term only (the between-cluster estimator with the
@@ -37,6 +40,9 @@ w_i (M_i / k_i) y_ij the expanded unit values:
   that form already estimates the second-stage variance (SSW 1992, sec. 4.6), so no
   within-cluster term is added for the drawn clusters under either option; certainty
   clusters follow the take-all rule.
+
+With one stage (whole clusters) there is no second stage: both options are the
+between-cluster estimator with the first-stage correction, exact (Cochran 1977, ch. 9).
 
 Degrees of freedom: clusters minus strata over the strata that are sampled, plus, in a
 take-all stratum, units minus clusters (its units act as the PSUs).
