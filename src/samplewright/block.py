@@ -48,6 +48,12 @@ class SampleBlock:
     cluster_cost : (B,) array or None
         Sum of the frame's ``cluster_cost`` over the clusters each replicate visits (designs
         that select clusters, on a frame with that column; see ``cost.cluster_costs``).
+    psu : (m,) int array or None
+        Two-stage designs only, whose positions are the sampled second-stage units: the
+        cluster slot (0, 1, ..., in order) of each position; ``psu_stratum`` and ``fpc`` then
+        describe the first stage (see ``two_stage_variance``).
+    within_fpc : (B, S) array or None
+        Two-stage designs only: each cluster slot's factor for its within-cluster variance term.
     """
 
     sums: np.ndarray
@@ -61,6 +67,8 @@ class SampleBlock:
     variance: str = "psu"
     design_info: dict | None = None
     cluster_cost: np.ndarray | None = None
+    psu: np.ndarray | None = None
+    within_fpc: np.ndarray | None = None
 
     @property
     def B(self) -> int:

@@ -12,8 +12,8 @@ Variance of an estimated total from PSU totals z_hi within strata (the with-repl
 
 It is exact (unbiased) for SRS without replacement, stratified SRS and one-stage cluster
 sampling of whole clusters (Cochran 1977, eqs. 2.10, 5.7 and 9.x), and the standard
-approximation for two-stage and systematic samples (Wolter, Introduction to Variance
-Estimation, ch. 2).  Horvitz-Thompson mean: t / N.  Hajek mean: t / N_hat, variance by
+approximation for systematic samples (Wolter, Introduction to Variance Estimation, ch. 2).
+Two-stage cluster samples add a within-cluster term (``two_stage_variance``).  Horvitz-Thompson mean: t / N.  Hajek mean: t / N_hat, variance by
 linearisation with z_hi = sum_k w_k (y_k - ybar) (Sarndal, Swensson & Wretman 1992, sec. 5.7).
 Intervals: estimate +- t_{df} * SE with df = PSUs - strata (common practice for design-based
 intervals; Korn & Graubard use the same count).
@@ -116,9 +116,21 @@ VARIANCE.update({
     "between_starts": _sysv.between_start_variance,
 })
 
+# two-stage cluster samples (see two_stage_variance): the design sets each cluster's
+# within-cluster factor for the option asked for, so both names share one routine
+from . import two_stage_variance as _tsv2
+
+VARIANCE.update({
+    "two_stage": _tsv2.two_stage_variance,
+    "ultimate_cluster": _tsv2.two_stage_variance,
+})
+
 
 def degrees_of_freedom(block: SampleBlock) -> np.ndarray:
-    """PSUs minus strata with at least one PSU, per replicate (at least 1)."""
+    """PSUs minus strata with at least one PSU, per replicate (at least 1); two-stage blocks
+    count clusters (and units in take-all strata), see ``two_stage_variance``."""
+    if block.psu is not None:
+        return np.maximum(_tsv2.degrees_of_freedom(block), 1.0)
     n_h = psu_counts(block)
     return np.maximum(n_h.sum(axis=1) - (n_h > 0).sum(axis=1), 1.0)
 

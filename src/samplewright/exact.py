@@ -7,7 +7,8 @@ as a simulated run (``evaluate.SUMMARY_COLUMNS``), with ``replicates`` = the num
 possible samples, every MCSE column 0 and ``exact`` = True.
 
 Enumeration is available for srs, stratified, systematic, one- and two-stage cluster
-(here, from the designs' own parameters) and for the size-proportional, random-size and
+(here, from the designs' own parameters; cluster blocks are built by ``Cluster.block``, as
+in a simulated run) and for the size-proportional, random-size and
 stratified multistage designs through their ``enumerate`` method; a design whose sample count exceeds
 :data:`LIMIT` is refused with the count.
 
@@ -97,32 +98,22 @@ def _systematic(d, frame, chunk):
                           variance=d.variance_name), prob[a:a + chunk]
 
 
-def _cluster_take(d, frame) -> int | None:
-    if d.units_per_cluster is None:
-        return None
-    return min(int(d.units_per_cluster), int(frame.cluster_sizes.max()))
-
-
 def _cluster(d, frame, chunk):
+    """One- or two-stage cluster sampling; blocks built by the design itself (``Cluster.block``)."""
     m, C = int(d.clusters), frame.C
-    k = _cluster_take(d, frame)
-    fpc = np.array([1.0 - m / C])
+    k = d.take(frame)
     p1 = 1.0 / math.comb(C, m)
     if k is None:
         for chosen in combination_chunks(C, m, chunk):
-            yield SampleBlock(sums=frame.cluster_sums[chosen], weight=np.full(m, C / m),
-                              psu_stratum=np.zeros(m, dtype=np.int64), fpc=fpc,
-                              clusters=np.full(len(chosen), m, dtype=float), strata=0,
-                              variance=d.variance_name), np.full(len(chosen), p1)
+            yield d.block(frame, chosen), np.full(len(chosen), p1)
         return
     sizes_all = frame.cluster_sizes
     subsets = {}
     for first in combination_chunks(C, m, 1):
         chosen = first[0]
-        sizes = sizes_all[chosen]
-        take = np.minimum(sizes, k)
+        take = np.minimum(sizes_all[chosen], k)
         lists = []
-        for c, M, t in zip(chosen, sizes, take):
+        for M, t in zip(sizes_all[chosen], take):
             if (int(M), int(t)) not in subsets:
                 subsets[(int(M), int(t))] = np.concatenate(list(combination_chunks(int(M), int(t), 100_000)))
             lists.append(subsets[(int(M), int(t))])
@@ -137,11 +128,7 @@ def _cluster(d, frame, chunk):
                 pos[:, j, :t] = lists[j][digits[:, j]]
                 valid[:, j, :t] = True
             units = frame.cluster_units[off[None, :, None] + pos]
-            sums = (frame.gather(units) * valid[..., None]).sum(axis=2)
-            yield SampleBlock(sums=sums, weight=np.broadcast_to((C / m) * sizes / take, (R, m)).copy(),
-                              psu_stratum=np.zeros(m, dtype=np.int64), fpc=fpc,
-                              clusters=np.full(R, m, dtype=float), strata=0,
-                              variance=d.variance_name), np.full(R, p)
+            yield d.block(frame, np.broadcast_to(chosen, (R, m)), units, valid), np.full(R, p)
 
 
 def _count_srs(design, frame):
@@ -165,7 +152,7 @@ def _count_systematic(design, frame):
 
 def _count_cluster(design, frame):
     m, C = int(design.clusters), frame.C
-    k = _cluster_take(design, frame)
+    k = design.take(frame)
     if k is None:
         return math.comb(C, m), f"C(clusters, m) = C({C}, {m})"
     a = [math.comb(int(M), min(int(M), k)) for M in frame.cluster_sizes]

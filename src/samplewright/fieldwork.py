@@ -39,6 +39,7 @@ from .block import SampleBlock
 from .errors import InputError
 from .estimators import ESTIMATORS
 from .frame import Frame
+from .two_stage_variance import slot_shares
 from .weighting import AdjustmentSpec, ResolvedAdjustment
 
 #: per-replicate columns fieldwork adds to the replicate table (after the contract columns)
@@ -167,6 +168,8 @@ def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.S
     rows = gather(units) if gather is not None else frame.values[units]
     y = rows[..., : frame.values.shape[1] - 2]  # every value column but count and cost
     positions = np.ones((B, m), dtype=bool) if sample.mask is None else sample.mask
+    if sample.psu is not None:  # two stages: the positions are units, counted as shares of their cluster
+        positions = slot_shares(sample)
     u, cnt, failed = fw.adjustment.apply(units, w, y, e, r, positions)
     if fw.adjustment.method in ("none", "class") and all_eligible:
         full = sample  # with every unit eligible and responding these adjustments change nothing

@@ -19,13 +19,14 @@ from dataclasses import asdict, dataclass
 
 import pandas as pd
 
+from .designs import size_words
 from .frontier import interpolate_goal, z_of
 
 #: how many Monte Carlo SEs of coverage below nominal are tolerated (see module notes)
 COVERAGE_Z = 3.0
 
-PICK_KEYS = ("design", "method", "size", "estimator", "variable", "mean_cost", "p90_cost", "moe", "moe_mcse",
-             "empirical_se", "rmse", "coverage", "coverage_mcse", "replicates")
+PICK_KEYS = ("design", "method", "size", "estimator", "variable", "mean_n", "mean_cost", "p90_cost", "moe",
+             "moe_mcse", "empirical_se", "rmse", "coverage", "coverage_mcse", "replicates")
 
 
 @dataclass(frozen=True)
@@ -146,11 +147,11 @@ def _reason(r, goal, nominal, z, cheapest, best) -> str:
 
 
 def _describe(p: dict, conf: float) -> str:
-    unit = "clusters" if p["method"] == "cluster" else "units"
     cost = f"mean cost {_money(p['mean_cost'])}"
     if p["p90_cost"] > p["mean_cost"] * (1 + 1e-9):
         cost += f" (90% of rehearsals at most {_money(p['p90_cost'])})"
-    return (f"'{p['design']}' ({p['method']}, {p['estimator']} estimator) with {p['size']} {unit}: margin of "
+    size = size_words(p["method"], p["size"], p.get("mean_n"))
+    return (f"'{p['design']}' ({p['method']}, {p['estimator']} estimator) with {size}: margin of "
             f"error +-{_num(p['moe'])} (Monte Carlo SE {_num(p['moe_mcse'])}), {p['coverage']:.1%} of intervals "
             f"held the true value, {cost}")
 

@@ -224,7 +224,8 @@ class ResolvedAdjustment:
 
         ``units`` (B, m, k) listed-unit indices (0 where not a unit), ``w`` base weights,
         ``y`` values (B, m, k, V), ``e``/``r`` eligible and responding units,
-        ``positions`` (B, m) the PSU positions the estimators count.
+        ``positions`` (B, m) the PSU positions the estimators count (for a two-stage block, each
+        unit's share of its cluster: ``two_stage_variance.slot_shares``).
         """
         we, wr = w * e, w * r
         B = w.shape[0]

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from .base import Design
 from .cluster import Cluster
 from .poisson import Bernoulli, Poisson
@@ -18,6 +20,19 @@ METHODS.update({cls.method: cls for cls in (PPSWithReplacement, PPSSystematic, S
 #: former method names, refused with what to write instead
 RENAMED_METHODS = {"pps_wr": 'method = "pps" with replace = true'}
 
+
+def size_words(method: str, size, mean_n=None, units: str = "{} units") -> str:
+    """How a design's size is said: "6 clusters" for methods whose size counts clusters, with
+    the expected number of units beside it when ``mean_n`` is known; else ``units`` with the size."""
+    cls = METHODS.get(method)
+    if cls is None or cls.size_key != "clusters":
+        return units.format(int(size))
+    text = f"{int(size)} clusters"
+    if mean_n is not None and not math.isnan(mean_n):
+        text += f" (about {float(mean_n):.4g} units expected)"
+    return text
+
+
 __all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS", "RENAMED_METHODS",
            "PPSWithReplacement", "PPSSystematic", "Sampford", "Pareto", "Poisson", "Bernoulli",
-           "StratifiedCluster"]
+           "StratifiedCluster", "size_words"]

@@ -132,10 +132,12 @@ def _variable(summary: pd.DataFrame, variable):
     return variable
 
 
-def cell_label(design: str, method: str, size) -> str:
-    """How a design at one size is named in figures: clusters are counted as clusters."""
-    unit = f"{int(size)} clusters" if method == "cluster" else f"n = {int(size)}"
-    return f"{design}, {unit}"
+def cell_label(design: str, method: str, size, mean_n=None) -> str:
+    """How a design at one size is named in figures: clusters are counted as clusters (with the
+    expected units when ``mean_n`` is given; ``designs.size_words``)."""
+    from ..designs import size_words
+
+    return f"{design}, {size_words(method, size, mean_n, units='n = {}')}"
 
 
 def primary_rows(
@@ -179,7 +181,7 @@ def _limit_sizes(s: pd.DataFrame, max_rows: int, keep: dict | None) -> pd.DataFr
 def _labels(rows: pd.DataFrame, with_estimator: bool) -> list[str]:
     out = []
     for r in rows.itertuples(index=False):
-        lab = cell_label(r.design, r.method, r.size)
+        lab = cell_label(r.design, r.method, r.size, getattr(r, "mean_n", None))
         if with_estimator:
             lab += f" ({estimator_name(r.estimator)})"
         out.append(plain(lab))
@@ -580,7 +582,9 @@ def interval_plot(
     for i, r in enumerate(rows.itertuples(index=False)):
         ax = axes[i // ncol][i % ncol]
         g = groups.get((r.design, r.size, r.estimator))
-        title = f"{plain(cell_label(r.design, r.method, r.size))}\nhold the truth: {100 * r.coverage:.1f}%"
+        label = plain(cell_label(r.design, r.method, r.size, getattr(r, "mean_n", None)))
+        title = f"{label}
+hold the truth: {100 * r.coverage:.1f}%"
         if g is not None and len(g):
             interval_panel(g, truth, confidence, colours[r.design], title=title, shown=shown, ax=ax)
     for j in range(k, nrow * ncol):

@@ -139,8 +139,8 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
     nominal = f"{100 * confidence:g}%"
     for var, s in summary.groupby("variable", sort=False):
         lab = {
-            i: f"{cell_label(d, m, n)} ({estimator_name(e)})"
-            for i, d, m, n, e in zip(s.index, s["design"], s["method"], s["size"], s["estimator"])
+            i: f"{cell_label(d, m, n, u)} ({estimator_name(e)})"
+            for i, d, m, n, u, e in zip(s.index, s["design"], s["method"], s["size"], s["mean_n"], s["estimator"])
         }
         verdict = {
             i: coverage_verdict(c, m, confidence)
