@@ -583,8 +583,7 @@ def interval_plot(
         ax = axes[i // ncol][i % ncol]
         g = groups.get((r.design, r.size, r.estimator))
         label = plain(cell_label(r.design, r.method, r.size, getattr(r, "mean_n", None)))
-        title = f"{label}
-hold the truth: {100 * r.coverage:.1f}%"
+        title = f"{label}\nhold the truth: {100 * r.coverage:.1f}%"
         if g is not None and len(g):
             interval_panel(g, truth, confidence, colours[r.design], title=title, shown=shown, ax=ax)
     for j in range(k, nrow * ncol):
