@@ -48,6 +48,7 @@ from .block import SampleBlock
 from .errors import InputError
 from .estimators import ESTIMATORS, VARIANCE, Estimates, _interval, degrees_of_freedom
 from .frame import COUNT
+from .gram import gram_pinv, gram_solve
 from .layout import Layout
 
 
@@ -84,8 +85,8 @@ def _greg(z, Z, N, L: Layout):
     XX, XE = _model_index(L)
     M = Z[:, XX]  # (B, k, k)
     C = Z[:, XE]  # (B, k, E)
-    Minv = np.linalg.pinv(M, hermitian=True)
-    Bhat = Minv @ C  # (B, k, E)
+    Minv, plain = gram_pinv(M)  # a constant or repeated auxiliary gets coefficient 0 (see gram.py)
+    Bhat = gram_solve(M, C, Minv, plain)  # (B, k, E)
     total = np.concatenate([[float(N)], L.X])  # (k,)
     diff = total[None, :] - M[:, 0, :]  # known minus estimated totals of x~
     T = Z[:, L.ext] + np.einsum("bk,bke->be", diff, Bhat)
