@@ -190,8 +190,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     if rule is None:
         results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, **common)
     else:
+        truths = dict(zip(truth_frame.layout.names, truth_frame.layout.truth))  # as summarise scores them
         results, stopping = simulate_until(frame, cells, rule, R, seed, bs, scenario.confidence, scenario.cost,
-                                           **common)
+                                           truth=np.array([truths[v] for v in frame.layout.names]), **common)
     bar.close()
     t2 = time.monotonic()
     reps = replicate_table(results, cells, frame.layout.names, consume=True)  # targets, then domain variables
