@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .checks import design_warnings, frame_warnings
+from .checks import design_warnings, frame_warnings, variance_warnings
 from .engine import check_backend, make_cells, replicate_table, simulate, simulate_until
 from .errors import InputError
 from .evaluate import summarise
@@ -154,7 +154,8 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     frame = scenario.cost.bind(frame)  # per-stratum unit rates into the cost column (cost.py)
     for cell in cells:
         cell.design.check(frame)
-    notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
+    notes = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(truth_frame)
+                               + design_warnings(frame, cells, R)))  # each once
     for w in notes if warn is not None else ():  # said before any time is spent simulating
         warn(w)
     if exact:  # every possible sample instead of Monte Carlo (exact.py)

@@ -34,6 +34,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .errors import InputError
+from .evaluate import covers
 from .validate import closest
 
 #: target name -> what it bounds (for messages and the README)
@@ -116,7 +117,7 @@ class Tally:
         with np.errstate(invalid="ignore", divide="ignore"):  # 0 / 0 for a domain absent from the block
             bm = np.where(ok, x, 0.0).sum(axis=1) / nb
             bm2 = np.where(ok, (x - bm[:, None, :]) ** 2, 0.0).sum(axis=1)
-        cov = ((result.lower <= truth) & (truth <= result.upper) & ok).sum(axis=1)
+        cov = (covers(result.lower, result.upper, truth) & ok).sum(axis=1)
         bm, bm2 = np.where(nb > 0, bm, 0.0), np.where(nb > 0, bm2, 0.0)
         if self.R == 0:
             self.n, self.mean, self.m2, self.covered = nb, bm, bm2, cov.astype(float)
