@@ -6,6 +6,9 @@ cell; the cell stops at the first block count where all of them meet every targe
 the replicate cap.  Because the check runs in block order on the same blocks, a cell stops
 at the same replicate count whatever ``--jobs``, the backend or the number of blocks that
 were dispatched at once (blocks computed past the stopping point are not used).
+Coverage is counted against the true population's value of every output variable, the
+summary's ``truth`` (under ``[frame_error]`` not the listed frame's mean), and a domain mean
+counts only the replicates that have an estimate of it, as in the summary.
 
 Targets (the names a rule may use)
 ----------------------------------

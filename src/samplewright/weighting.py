@@ -32,12 +32,19 @@ Adjustments (``adjustment`` in a ``[[design]]`` table)
     within a relative tolerance; u_k = g_k e_k with e_k the residual of y_k from the
     g-weighted regression on all margin indicators, plus the constant that carries the
     total (raking has the regression estimator's asymptotic variance: Deville & Sarndal
-    1992, JASA 87:376-382).
+    1992, JASA 87:376-382).  The indicators of every margin after the first repeat the
+    intercept, so their cross-product matrix is singular by construction; it is solved on
+    the independent indicators of each replicate (:mod:`samplewright.gram`: all categories
+    of the first margin, all but one of each later one, minus any category without
+    respondents), so the residuals are exactly orthogonal to every indicator and the
+    linearised variable adds nothing to the raked total.
 
 A class with eligible units but no respondents in a replicate cannot be adjusted; it is
 given the replicate's overall respondent mean (collapsed into the whole sample) and the
 replicate is counted in ``adjustment_failures``.  Raking that has not converged after
-``MAX_ITER`` cycles is counted there too; when a raking category has no respondents, the
+``MAX_ITER`` cycles (margins that no positive weights on the respondents can meet, e.g. a
+category of one margin whose respondents all fall in a smaller category of another) is
+counted there too; when a raking category has no respondents, the
 raked weights are scaled up to the population total (the same collapse).  With few PSUs
 per class the linearised variance runs low (residuals from class means estimated on few
 PSUs), so check ``se_ratio``.  Sources for the linearisations: Sarndal,
