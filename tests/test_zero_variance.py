@@ -5,8 +5,8 @@ the SRS-without-replacement mean, (1 - f) S^2 / n (Cochran 1977, eq. 2.8), which
 every unit has the same value.  The documented values (evaluate.py): deff and se_ratio are
 empty only where they are 0 / 0, infinite where only the denominator is 0.  The HT mean
 under Poisson sampling does vary for a constant target (its sample size is random), with
-exact variance sum_k (1 - pi_k) y_k^2 / pi_k / N^2 (Sarndal, Swensson & Wretman 1992,
-eq. 3.3.x for Poisson sampling; from memory), so its deff is infinite; the Hajek mean and
+exact variance sum_k (1 - pi_k) y_k^2 / pi_k / N^2 (the HT variance with pi_kl = pi_k pi_l;
+Sarndal, Swensson & Wretman 1992, ch. 3; from memory), so its deff is infinite; the Hajek mean and
 every fixed-size SRS estimate the constant exactly (to rounding), so theirs is 0 / 0.
 """
 
