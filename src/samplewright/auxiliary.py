@@ -24,7 +24,12 @@ With design weights w_k (inverse inclusion probabilities), PSU i, HT totals t^ =
   M = sum_s w x~ x~', B^ = M^-1 sum_s w x~ y, T = t^_y + (X~ - X~^)' B^ and the g-weights
   g_k = 1 + (X~ - X~^)' M^-1 x~_k; u_i = sum_{k in i} w_k g_k e_k with e_k = y_k - x~_k' B^,
   the g-weighted residual form (SSW 1992, eq. 6.6.9 and sec. 7.10; from memory).  With the
-  intercept alone (no auxiliary) it is exactly the Hajek estimator, SE included.
+  intercept alone (no auxiliary) it is exactly the Hajek estimator, SE included.  M is
+  inverted on its independent columns (:mod:`samplewright.gram`): an auxiliary that is
+  constant or repeats another (in the frame, or only in a replicate's sample) gets
+  coefficient 0 and lam 0, so it is the GREG on the other auxiliaries; where the dropped
+  auxiliary's known total disagrees with what the sample implies (constant in the sample,
+  not in the frame), no calibration can meet it and that replicate ignores it.
 - **post-stratification** (post-strata q with known counts N_q): T = sum_q N_q t^_yq / N^_q,
   u_i = sum_q (N_q / N^_q) sum_{k in i, q} w_k (y_k - ybar_q), the g-weighted residuals
   from the post-stratum means (SSW 1992, sec. 7.6).  A post-stratum with no sampled unit
@@ -48,6 +53,7 @@ from .block import SampleBlock
 from .errors import InputError
 from .estimators import ESTIMATORS, VARIANCE, Estimates, _interval, degrees_of_freedom
 from .frame import COUNT
+from .gram import gram_pinv, gram_solve
 from .layout import Layout
 
 
@@ -84,8 +90,8 @@ def _greg(z, Z, N, L: Layout):
     XX, XE = _model_index(L)
     M = Z[:, XX]  # (B, k, k)
     C = Z[:, XE]  # (B, k, E)
-    Minv = np.linalg.pinv(M, hermitian=True)
-    Bhat = Minv @ C  # (B, k, E)
+    Minv, plain = gram_pinv(M)  # a constant or repeated auxiliary gets coefficient 0 (see gram.py)
+    Bhat = gram_solve(M, C, Minv, plain)  # (B, k, E)
     total = np.concatenate([[float(N)], L.X])  # (k,)
     diff = total[None, :] - M[:, 0, :]  # known minus estimated totals of x~
     T = Z[:, L.ext] + np.einsum("bk,bke->be", diff, Bhat)

@@ -30,6 +30,38 @@ def frame_warnings(frame: Frame) -> list[str]:
     return out
 
 
+def variance_warnings(frame: Frame) -> list[str]:
+    """One sentence per output variable without variance in the frame (its S^2 is 0).
+
+    Design effects compare with the SRS variance, which is then 0: ``deff`` is empty where the
+    design's estimates do not vary either and infinite where they do (see ``evaluate``).  A
+    domain mean is named only when its target does vary.
+    """
+    L = frame.layout
+    out = []
+    for i, (name, s2) in enumerate(zip(L.names, L.S2)):
+        if s2 > 0 or (i >= frame.V and L.S2[(i - frame.V) % frame.V] == 0):
+            continue
+        what = "target" if i < frame.V else "domain mean"
+        out.append(f"{what} {name!r} has no variance in the frame (every unit has the value {L.truth[i]:g}): "
+                   f"its design effects are undefined (deff is left empty where the estimates do not vary "
+                   f"either, infinite where they do) and se_ratio is left empty where both SEs are 0")
+    return out
+
+
+def skewness(frame: Frame) -> np.ndarray:
+    """Fisher-Pearson skewness G1 (bias-adjusted) of each target; 0 for a target without variance."""
+    if frame.N <= 2:
+        return np.zeros(frame.V)
+    varies = np.ptp(frame.y, axis=0) > 0
+    if varies.all():
+        return stats.skew(frame.y, axis=0, bias=False)
+    g1 = np.zeros(frame.V)
+    if varies.any():
+        g1[varies] = stats.skew(frame.y[:, varies], axis=0, bias=False)
+    return g1
+
+
 def interval_warnings(frame: Frame, design) -> list[str]:
     """Sentences for a systematic design whose interval is unsafe for a cycle along its list order.
 
@@ -76,7 +108,7 @@ def interval_warnings(frame: Frame, design) -> list[str]:
 
 def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
     out = []
-    g1 = stats.skew(frame.y, axis=0, bias=False) if frame.N > 2 else np.zeros(frame.V)
+    g1 = skewness(frame)
     small = {v: [] for v in frame.variables}  # variable -> designs/sizes below Cochran's bound
     for cell in cells:
         d = cell.design

@@ -139,8 +139,13 @@ def simulate(frame: Frame, cells: list[Cell], replicates: int, seed: int, block_
 
 def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, seed: int, block_size: int,
                    confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
-                   scheduler: str | None = None, store=None) -> tuple[list[BlockResult], list[dict]]:
+                   scheduler: str | None = None, store=None,
+                   truth: np.ndarray | None = None) -> tuple[list[BlockResult], list[dict]]:
     """Add blocks to each cell, in block order, until it meets ``rule`` (see :mod:`samplewright.stopping`).
+
+    Coverage is scored against ``truth``, the true population's value of every output variable
+    of ``frame.layout`` (targets, then domain means); by default ``frame.layout.truth``, which
+    is wrong when ``frame`` is a listed frame with frame errors (pass the true population's).
 
     Every cell runs at least ``min_replicates`` (rounded up to whole blocks) and at most
     ``rule.max_replicates``.  Blocks are dispatched in waves sized from the replicates the
@@ -158,18 +163,18 @@ def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, s
     wave = {ci: min_blocks for ci in range(len(cells))}
     with backend_session(backend, scheduler, frame, cells):  # one dask client and scatter for every wave
         _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
-                     block_size, min_blocks, states, have, scheduled, wave)
+                     block_size, min_blocks, states, have, scheduled, wave,
+                     frame.layout.truth if truth is None else np.asarray(truth, dtype=float))
     kept = [have[ci][b] for ci, st in states.items() for b in range(st.used)]
     return kept, report(cells, states, rule)
 
 
 def _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
-                 block_size, min_blocks, states, have, scheduled, wave) -> None:
+                 block_size, min_blocks, states, have, scheduled, wave, truth) -> None:
     """The waves of :func:`simulate_until`: dispatch, consume in block order, size the next wave."""
     from .stopping import advance
 
     max_blocks = len(spans)
-    truth = frame.mean
     while True:
         tasks = []
         for ci, st in states.items():

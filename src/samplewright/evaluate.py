@@ -14,6 +14,16 @@ The design effect is Kish's: the design's empirical variance over the exact vari
 SRS-without-replacement mean at the same mean sample size (Kish 1965, sec. 8.2).  The
 margin of error is z_{1-alpha/2} x RMSE (common practice: the half-width a normal interval
 would need to hold the truth at the nominal rate, bias included).
+
+Ratios with a zero denominator: ``se_ratio`` (mean SE / empirical SE) and ``deff`` (empirical
+variance / SRS variance) are left empty (NaN) only where they are 0 / 0, and are infinite
+where only the denominator is 0.  The SRS variance is 0 for a variable without variance in
+the frame (every unit has the same value; the run warns about it once) and for a census;
+an SE counts as 0 when it is below ``ROUNDING`` times the magnitude of the truth or of the
+mean estimate (the spread a constant estimate picks up from floating-point rounding).  For
+the same reason an interval holds the truth T when lower - d <= T <= upper + d with
+d = ``ROUNDING`` max(|T|, |lower|, |upper|) (:func:`holds`), so the zero-width interval of an estimate that equals
+T up to rounding counts as covering it.
 """
 
 from __future__ import annotations
@@ -46,6 +56,35 @@ def holds(lower, upper, truth):
     return (lower - tol <= truth) & (truth <= upper + tol)
 
 
+def _zero(se: float, scale: float) -> bool:
+    return se <= ROUNDING * scale
+
+
+def _ratio(num: float, den: float, num_zero: bool, den_zero: bool) -> float:
+    if np.isnan(num) or np.isnan(den):
+        return float("nan")
+    if den_zero:
+        return float("nan") if num_zero else float("inf")
+    return num / den
+
+
+def se_ratio(mean_se: float, emp_se: float, scale: float) -> float:
+    """mean SE / empirical SE (see module notes for 0 / 0 and x / 0); ``scale`` = max(|truth|, |mean|)."""
+    return _ratio(mean_se, emp_se, _zero(mean_se, scale), _zero(emp_se, scale))
+
+
+def srs_variance(mean_n: float, N: int, S2: float) -> float:
+    """Variance of the SRS-without-replacement mean at size ``mean_n`` (Cochran 1977, eq. 2.8); 0 for a census."""
+    if not mean_n > 0:
+        return float("nan")
+    return (1.0 - mean_n / N) * S2 / mean_n if mean_n < N else 0.0
+
+
+def design_effect(emp_se: float, srs_var: float, scale: float) -> float:
+    """Kish's deff, empirical variance / SRS variance (see module notes for 0 / 0 and x / 0)."""
+    return _ratio(emp_se**2, srs_var, _zero(emp_se, scale), srs_var <= 0)
+
+
 def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray, truth: float,
              z: float) -> dict:
     """Morris-White-Crowther measures of one method from its replicate arrays."""
@@ -67,7 +106,7 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
         "empirical_se_mcse": emp_se / np.sqrt(2.0 * (R - 1)) if R > 1 else float("nan"),
         "rmse": rmse,
         "mean_se": mod_se,
-        "se_ratio": mod_se / emp_se if emp_se > 0 else float("nan"),
+        "se_ratio": se_ratio(mod_se, emp_se, max(abs(truth), abs(mean))),
         "coverage": cover,
         "coverage_mcse": float(np.sqrt(cover * (1.0 - cover) / R)),
         "mean_ci_width": float(np.mean(upper - lower)),
@@ -104,8 +143,8 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
         m = measures(col["estimate"][idx], col["se"][idx], col["lower"][idx], col["upper"][idx],
                      float(truth[var]), z)
         mean_n = float(col["n"][idx].mean())
-        srs_var = (1.0 - mean_n / frame.N) * S2[var] / mean_n if mean_n < frame.N else 0.0
-        deff = m["empirical_se"] ** 2 / srs_var if srs_var > 0 else float("nan")
+        deff = design_effect(m["empirical_se"], srs_variance(mean_n, frame.N, S2[var]),
+                             max(abs(m["truth"]), abs(m["mean_estimate"])))
         rows.append({"design": design, "method": methods.get(design, ""), "size": int(size), "estimator": est,
                      "variable": var, **m, "deff": deff, "mean_n": mean_n,
                      "mean_cost": float(col["cost"][idx].mean())})

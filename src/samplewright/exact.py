@@ -33,7 +33,7 @@ from .block import SampleBlock
 from .enumeration import combination_chunks, elementary_symmetric, product_chunks
 from .errors import InputError
 from .estimators import ESTIMATORS, sample_units
-from .evaluate import SUMMARY_COLUMNS, holds
+from .evaluate import SUMMARY_COLUMNS, holds, design_effect, se_ratio, srs_variance
 
 #: most samples enumerated for one design at one size
 LIMIT = 2_000_000
@@ -215,7 +215,7 @@ def _moments(p, x, se, lo, hi, truth, z):
     return {"truth": truth, "mean_estimate": mean, "bias": mean - truth, "bias_mcse": 0.0,
             "relative_bias": (mean - truth) / truth if truth != 0 else float("nan"),
             "empirical_se": emp, "empirical_se_mcse": 0.0, "rmse": rmse, "mean_se": mod,
-            "se_ratio": mod / emp if emp > 0 else float("nan"), "coverage": cover, "coverage_mcse": 0.0,
+            "se_ratio": se_ratio(mod, emp, max(abs(truth), abs(mean))), "coverage": cover, "coverage_mcse": 0.0,
             "mean_ci_width": float(p @ (hi - lo)), "moe": z * rmse}
 
 
@@ -256,10 +256,10 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
             est, se, lo, hi = (np.concatenate(a, axis=0) for a in parts[e])
             for v, var in enumerate(names):
                 m = _moments(p, est[:, v], se[:, v], lo[:, v], hi[:, v], float(truth[v]), z)
-                srs_var = (1.0 - mean_n / frame.N) * S2[v] / mean_n if mean_n < frame.N else 0.0
+                deff = design_effect(m["empirical_se"], srs_variance(mean_n, frame.N, S2[v]),
+                                     max(abs(m["truth"]), abs(m["mean_estimate"])))
                 rows.append({"design": d.label, "method": d.method, "size": int(d.size), "estimator": e,
-                             "variable": var, "replicates": len(p), **m,
-                             "deff": m["empirical_se"] ** 2 / srs_var if srs_var > 0 else float("nan"),
+                             "variable": var, "replicates": len(p), **m, "deff": deff,
                              "mean_n": mean_n, "mean_cost": float(p @ c), "exact": True})
                 tables.append(pd.DataFrame({
                     "replicate": np.arange(len(p)), "design": d.label, "size": int(d.size), "estimator": e,

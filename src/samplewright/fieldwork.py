@@ -38,6 +38,7 @@ from . import response as _response
 from .block import SampleBlock
 from .errors import InputError
 from .estimators import ESTIMATORS
+from .evaluate import holds
 from .frame import Frame
 from .two_stage_variance import slot_shares
 from .weighting import AdjustmentSpec, ResolvedAdjustment
@@ -373,7 +374,7 @@ def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup
         resp, att, elig = g["n"].mean(), g["attempted"].mean(), g["eligible"].mean()
         cost, fcost = g["cost"].mean(), g["full_cost"].mean()
         d = x - xf
-        cover = float(np.mean((g["full_lower"].to_numpy() <= T) & (T <= g["full_upper"].to_numpy())))
+        cover = float(np.mean(holds(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T)))
         extra.append({
             "adjustment": setup.adjustments[row["design"]].method,
             "mean_attempted": float(att),

@@ -14,7 +14,8 @@
 
 Counts are ``round(share x eligible pool)`` units chosen by simple random sampling from a
 Generator seeded by the run's seed, so a scenario always lists the same frame.  The
-truth the evaluator scores against stays the true population's mean.
+truth the evaluator and the ``--until`` stopping rule score against stays the true
+population's mean (``FieldSetup.truth``), never the listed frame's.
 
 Closed forms (used by the tests): for under-coverage of a set U of the population with
 share W_u, a census of the list has mean Ybar_c, and

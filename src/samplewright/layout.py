@@ -170,7 +170,8 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
     # truths of the output variables
     names = list(variables)
     truth = list(y.mean(axis=0))
-    S2 = list(y.var(axis=0, ddof=1) if N > 1 else np.zeros(V))
+    # S^2 is exactly 0 for a variable whose units all have one value (not rounding noise)
+    S2 = list(np.where(np.ptp(y, axis=0) == 0, 0.0, y.var(axis=0, ddof=1)) if N > 1 else np.zeros(V))
     N_d = []
     for j in keep:
         inside = domain == j
@@ -181,7 +182,8 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
         for v, name in enumerate(variables):
             names.append(f"{name}[{domain_column}={domain_labels[j]}]")
             truth.append(float(yd[:, v].mean()))
-            S2.append(float(yd[:, v].var(ddof=1)) / share if Nd > 1 else 0.0)
+            flat_d = Nd < 2 or yd[:, v].min() == yd[:, v].max()
+            S2.append(0.0 if flat_d else float(yd[:, v].var(ddof=1)) / share)
     binary = {v for v, name in enumerate(variables) if np.isin(y[:, v], (0.0, 1.0)).all()}
     proportions = tuple(nm for i, nm in enumerate(names) if (i % V if i >= V else i) in binary) if V else ()
     extra = np.column_stack(blocks) if blocks else np.zeros((N, 0))

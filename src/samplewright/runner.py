@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .checks import design_warnings, frame_warnings
+from .checks import design_warnings, frame_warnings, variance_warnings
 from .engine import check_backend, make_cells, replicate_table, simulate, simulate_until
 from .errors import InputError
 from .evaluate import summarise
@@ -163,7 +163,8 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "frame": truth_frame.roles.get("source"), "frame_hash": truth_frame.content_hash}
     if saved is not None:  # refused before any warning about the run asked for now
         saved.check(manifest, out)
-    notes = list(dict.fromkeys(frame_warnings(frame) + design_warnings(frame, cells, R)))  # each once
+    notes = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(truth_frame)
+                               + design_warnings(frame, cells, R)))  # each once
     for w in notes if warn is not None else ():  # said before any time is spent simulating
         warn(w)
     if exact:  # every possible sample instead of Monte Carlo (exact.py)
@@ -200,8 +201,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     if rule is None:
         results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, **common)
     else:
+        truths = dict(zip(truth_frame.layout.names, truth_frame.layout.truth))  # as summarise scores them
         results, stopping = simulate_until(frame, cells, rule, R, seed, bs, scenario.confidence, scenario.cost,
-                                           **common)
+                                           truth=np.array([truths[v] for v in frame.layout.names]), **common)
     bar.close()
     t2 = time.monotonic()
     reps = replicate_table(results, cells, frame.layout.names, consume=True)  # targets, then domain variables

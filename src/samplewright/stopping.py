@@ -6,6 +6,9 @@ cell; the cell stops at the first block count where all of them meet every targe
 the replicate cap.  Because the check runs in block order on the same blocks, a cell stops
 at the same replicate count whatever ``--jobs``, the backend or the number of blocks that
 were dispatched at once (blocks computed past the stopping point are not used).
+Coverage is counted against the true population's value of every output variable, the
+summary's ``truth`` (under ``[frame_error]`` not the listed frame's mean), and a domain mean
+counts only the replicates that have an estimate of it, as in the summary.
 
 Targets (the names a rule may use)
 ----------------------------------
@@ -99,52 +102,74 @@ class Tally:
     """Running sums of one cell's replicates, per estimator x variable, merged block by block.
 
     Means and squared deviations are merged with the pairwise update of Chan, Golub &
-    LeVeque (1979), so the variance is stable however many blocks are added.
+    LeVeque (1979), so the variance is stable however many blocks are added.  Each
+    estimator x variable counts its own replicates ``n``: a domain mean has no estimate in
+    a replicate that met no unit of the domain, and such replicates are left out of its
+    measures, as in the summary.
     """
 
     R: int = 0
+    n: np.ndarray | None = None  # (E, V) replicates with an estimate
     mean: np.ndarray | None = None  # (E, V)
     m2: np.ndarray | None = None
     covered: np.ndarray | None = None
 
     def add(self, result, truth: np.ndarray) -> None:
+        """Add one block; ``truth`` (V,) holds the true population's value of every output variable."""
         x = result.estimate  # (E, B, V)
         b = x.shape[1]
         if b == 0:
             return
-        bm = x.mean(axis=1)
-        bm2 = ((x - bm[:, None, :]) ** 2).sum(axis=1)
-        cov = holds(result.lower, result.upper, truth).sum(axis=1)
+        ok = np.isfinite(x)
+        nb = ok.sum(axis=1).astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):  # 0 / 0 for a domain absent from the block
+            bm = np.where(ok, x, 0.0).sum(axis=1) / nb
+            bm2 = np.where(ok, (x - bm[:, None, :]) ** 2, 0.0).sum(axis=1)
+        cov = (holds(result.lower, result.upper, truth) & ok).sum(axis=1)
+        bm, bm2 = np.where(nb > 0, bm, 0.0), np.where(nb > 0, bm2, 0.0)
         if self.R == 0:
-            self.mean, self.m2, self.covered = bm, bm2, cov.astype(float)
+            self.n, self.mean, self.m2, self.covered = nb, bm, bm2, cov.astype(float)
         else:
-            n = self.R + b
+            n = self.n + nb
             delta = bm - self.mean
-            self.mean = self.mean + delta * b / n
-            self.m2 = self.m2 + bm2 + delta**2 * self.R * b / n
+            with np.errstate(invalid="ignore", divide="ignore"):
+                self.mean = np.where(n > 0, self.mean + delta * nb / n, 0.0)
+                self.m2 = np.where(n > 0, self.m2 + bm2 + delta**2 * self.n * nb / n, 0.0)
+            self.n = n
             self.covered = self.covered + cov
         self.R += b
 
     def coverage(self) -> np.ndarray:
-        """Coverage for the stopping check, (covered + 1) / (R + 2) (see module notes)."""
-        return (self.covered + 1.0) / (self.R + 2.0)
+        """Coverage for the stopping check, (covered + 1) / (n + 2) (see module notes)."""
+        return (self.covered + 1.0) / (self.n + 2.0)
+
+    def _var(self) -> np.ndarray:
+        """Sample variance of each estimator x variable (inf below two estimates: not yet known)."""
+        n = self.n
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(n > 1, self.m2 / (n - 1), np.inf)
 
     def values(self) -> dict:
         """Current MCSE of every target, arrays of shape (E, V)."""
-        R = self.R
-        c = self.coverage()
-        var = self.m2 / (R - 1) if R > 1 else np.full_like(self.m2, np.inf)
-        return {
-            "coverage_mcse": np.sqrt(c * (1.0 - c) / R),
-            "bias_mcse": np.sqrt(var / R),
-            "empirical_se_rel_mcse": np.full_like(c, 1.0 / math.sqrt(2.0 * (R - 1)) if R > 1 else np.inf),
-        }
+        n = self.n
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return {
+                "coverage_mcse": np.where(n > 0, np.sqrt(self.coverage() * (1.0 - self.coverage()) / n), np.inf),
+                "bias_mcse": np.sqrt(self._var() / n),
+                "empirical_se_rel_mcse": np.where(n > 1, 1.0 / np.sqrt(2.0 * (n - 1)), np.inf),
+            }
 
     def needed(self, targets: dict) -> int:
-        """Replicates each target asks for at the current estimates (see module notes)."""
-        R = max(self.R, 1)
+        """Replicates each target asks for at the current estimates (see module notes).
+
+        The count of estimates a target asks for is scaled by R / n, the replicates per estimate
+        (1 but for a domain that some replicates miss).
+        """
+        if self.R == 0:
+            return 0
         c = self.coverage()
-        var = self.m2 / (R - 1) if R > 1 else np.zeros_like(self.m2)
+        var = np.where(self.n > 1, self._var(), 0.0)
+        per = self.R / np.maximum(self.n, 1.0)
         need = {
             "coverage_mcse": lambda t: c * (1.0 - c) / t**2,
             "bias_mcse": lambda t: var / t**2,
@@ -152,8 +177,8 @@ class Tally:
         }
         worst = 0.0
         for name, t in targets.items():
-            worst = max(worst, float(np.max(need[name](t))))
-        return int(math.ceil(worst))
+            worst = max(worst, float(np.max(need[name](t) * per)))
+        return math.ceil(worst)
 
     def meets(self, targets: dict) -> bool:
         if self.R < 2:
@@ -174,7 +199,11 @@ class CellProgress:
 
 def advance(state: CellProgress, results_by_block: dict, rule: Rule, truth: np.ndarray,
             min_blocks: int, max_blocks: int) -> None:
-    """Consume the cell's finished blocks in block order, stopping at the first count that meets the rule."""
+    """Consume the cell's finished blocks in block order, stopping at the first count that meets the rule.
+
+    ``truth`` (V,) is the true population's value of every output variable (targets, then domain
+    means), the values summary.csv's ``truth`` column reports.
+    """
     while not state.stopped and state.used in results_by_block:
         state.tally.add(results_by_block[state.used], truth)
         state.used += 1

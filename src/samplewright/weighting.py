@@ -32,12 +32,19 @@ Adjustments (``adjustment`` in a ``[[design]]`` table)
     within a relative tolerance; u_k = g_k e_k with e_k the residual of y_k from the
     g-weighted regression on all margin indicators, plus the constant that carries the
     total (raking has the regression estimator's asymptotic variance: Deville & Sarndal
-    1992, JASA 87:376-382).
+    1992, JASA 87:376-382).  The indicators of every margin after the first repeat the
+    intercept, so their cross-product matrix is singular by construction; it is solved on
+    the independent indicators of each replicate (:mod:`samplewright.gram`: all categories
+    of the first margin, all but one of each later one, minus any category without
+    respondents), so the residuals are exactly orthogonal to every indicator and the
+    linearised variable adds nothing to the raked total.
 
 A class with eligible units but no respondents in a replicate cannot be adjusted; it is
 given the replicate's overall respondent mean (collapsed into the whole sample) and the
 replicate is counted in ``adjustment_failures``.  Raking that has not converged after
-``MAX_ITER`` cycles is counted there too; when a raking category has no respondents, the
+``MAX_ITER`` cycles (margins that no positive weights on the respondents can meet, e.g. a
+category of one margin whose respondents all fall in a smaller category of another) is
+counted there too; when a raking category has no respondents, the
 raked weights are scaled up to the population total (the same collapse).  With few PSUs
 per class the linearised variance runs low (residuals from class means estimated on few
 PSUs), so check ``se_ratio``.  Sources for the linearisations: Sarndal,
@@ -52,12 +59,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import InputError
+from .gram import gram_pinv, gram_solve
 
 METHODS = ("none", "class", "poststrat", "raking")
 DESIGN_KEYS = ("adjustment", "adjustment_classes", "raking_margins")
-#: relative tolerance on every raking margin, and the cycle cap
-TOLERANCE = 1e-9
-MAX_ITER = 200
+#: relative tolerance on every raking margin (a tenth of the 1e-9 promised, so that rounding in
+#: the estimate cannot take a met margin past it), and the cycle cap
+TOLERANCE = 1e-10
+MAX_ITER = 1000
 
 #: the variance estimator each adjustment's results carry, as named in run.json
 VARIANCE_NAMES = {
@@ -169,7 +178,8 @@ def rake(weights: np.ndarray, codes, controls, tol: float = TOLERANCE, max_iter:
     Deming & Stephan (1940), Ann. Math. Statist. 11:427-444: scale the weights to each
     margin in turn and cycle until every margin holds; the fitted table keeps the seed's
     interactions (its cross-product ratios).  Here a replicate is converged when every
-    category total is within ``tol`` of its control, relative to the control.
+    category total is within ``tol`` of its control, relative to the control; a converged
+    replicate is left as it is while the others go on cycling.
 
     Examples
     --------
@@ -181,7 +191,6 @@ def rake(weights: np.ndarray, codes, controls, tol: float = TOLERANCE, max_iter:
     g = np.array(weights, dtype=float)
     B = g.shape[0]
     iterations = np.zeros(B, dtype=np.int64)
-    converged = np.zeros(B, dtype=bool)
     controls = [np.asarray(c, dtype=float) for c in controls]
     # a category with a control but no weight can never be met: the others are raked, and the
     # replicate is reported as not converged
@@ -190,20 +199,24 @@ def rake(weights: np.ndarray, codes, controls, tol: float = TOLERANCE, max_iter:
     for ok in feasible:
         stuck |= ~ok.all(axis=1)
     met = np.zeros(B, dtype=bool)
+    rows = np.arange(B)  # the replicates still being raked: a met one is left as it is
     for it in range(1, max_iter + 1):
-        for c, N in zip(codes, controls):
-            tot = group_sums(c, g, len(N))
-            f = np.where(tot > 0, N / np.where(tot > 0, tot, 1.0), 1.0)
-            f[met] = 1.0
-            g *= _pick(f, c)
-        iterations[~met] = it
-        worst = np.zeros(B)
-        for c, N, ok in zip(codes, controls, feasible):
-            tot = group_sums(c, g, len(N))
-            gap = np.where(ok, np.abs(tot - N) / np.where(N > 0, N, 1.0), 0.0)
+        sub = g[rows]
+        cs = [c[rows] for c in codes]
+        for c, N in zip(cs, controls):
+            tot = group_sums(c, sub, len(N))
+            sub *= _pick(np.where(tot > 0, N / np.where(tot > 0, tot, 1.0), 1.0), c)
+        g[rows] = sub
+        iterations[rows] = it
+        worst = np.zeros(rows.size)
+        for c, N, ok in zip(cs, controls, feasible):
+            tot = group_sums(c, sub, len(N))
+            gap = np.where(ok[rows], np.abs(tot - N) / np.where(N > 0, N, 1.0), 0.0)
             worst = np.maximum(worst, gap.max(axis=1))
-        met |= worst < tol
-        if met.all():
+        done = worst < tol
+        met[rows[done]] = True
+        rows = rows[~done]
+        if rows.size == 0:
             break
     converged = met & ~stuck
     return g, iterations, converged
@@ -282,5 +295,5 @@ class ResolvedAdjustment:
                 block = group_sums(ci * Gj + cj, g, Gi * Gj).reshape(B, Gi, Gj)
                 xtx[:, offsets[i]:offsets[i + 1], offsets[j]:offsets[j + 1]] = block
         xty = np.concatenate([_by_group(c, g[..., None] * yy, G) for c, G in zip(codes, self.sizes)], axis=1)
-        beta = np.linalg.pinv(xtx, hermitian=True) @ xty  # (B, p, V)
+        beta = gram_solve(xtx, xty, *gram_pinv(xtx))  # (B, p, V); later margins repeat the intercept
         return sum(_pick(beta[:, offsets[i]:offsets[i + 1], :], c) for i, c in enumerate(codes))

@@ -35,6 +35,8 @@ from matplotlib.figure import Figure  # drawn and saved with the Agg renderer; p
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter
 
+from ..evaluate import holds
+
 #: Okabe-Ito colours in the order designs receive them (black is kept for "misses" and truth lines)
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#999999")
 MISS_COLOUR = "#000000"
@@ -541,7 +543,7 @@ def interval_panel(
     pick = np.unique(np.minimum(np.searchsorted(np.cumsum(w), targets - 1e-12), R - 1))
     idx = order[pick]
     lo, hi = rep["lower"].to_numpy()[idx], rep["upper"].to_numpy()[idx]
-    cover = (lo <= truth) & (truth <= hi)
+    cover = holds(lo, hi, truth)
     centile = 100.0 * mid[pick]
     for mask, col, lw in ((cover, colour, 1.0), (~cover, MISS_COLOUR, 1.2)):
         if mask.any():

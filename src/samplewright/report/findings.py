@@ -62,6 +62,8 @@ def num(value, digits: int = 4) -> str:
         v = float(value)
     except (TypeError, ValueError):
         return str(value)
+    if np.isinf(v):  # e.g. a design effect against an SRS variance of 0 (evaluate.py)
+        return "infinite" if v > 0 else "minus infinite"
     if not np.isfinite(v):
         return "n/a"
     if abs(v) >= 10**digits or (abs(v) >= 1000 and v == round(v)):
