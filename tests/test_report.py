@@ -8,12 +8,12 @@ re-simulated), plus the ranked-interval order of Morris, White & Crowther (2019)
 from __future__ import annotations
 
 import base64
+import importlib.metadata
 import io
 import json
 import struct
 import zlib
 from html.parser import HTMLParser
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -239,7 +239,7 @@ def test_report_command_rebuilds_without_simulating(run_dir, tmp_path, monkeypat
 
 
 def test_report_refuses_a_foreign_report_without_force(run_dir, tmp_path, capsys):
-    out, res = run_dir
+    _, res = run_dir
     other = tmp_path / "copy"
     res.write(other)
     (other / "report.html").write_text("<html>my own notes</html>", encoding="utf-8")
@@ -408,19 +408,17 @@ def test_run_and_demo_write_the_report_and_no_report_skips_it(tmp_path, capsys):
 
 
 def test_public_api_surface():
-    for name in (
-        "load_scenario",
-        "run",
-        "scenario_from_dict",
-        "RunResult",
-        "read_run",
-        "write_report",
-        "Frame",
-        "InputError",
-        "__version__",
-    ):
-        assert name in samplewright.__all__
-        assert getattr(samplewright, name) is not None
+    # the promised names, exactly: a name added to or dropped from __all__ must be added here too
+    names = {"load_scenario", "run", "scenario_from_dict", "Scenario", "RunResult", "read_run", "write_report",
+             "Frame", "InputError", "__version__"}
+    assert set(samplewright.__all__) == names
+    for name in names - {"__version__"}:
+        obj = getattr(samplewright, name)
+        # each name resolves (lazily or not) to the package's own object of that name, not a stand-in
+        assert obj.__name__ == name and obj.__module__.startswith("samplewright."), (name, obj)
+        assert callable(obj), name
+    assert issubclass(samplewright.InputError, Exception)
+    # the version matches the installed distribution's metadata (PEP 566)
+    assert samplewright.__version__ == importlib.metadata.version("samplewright")
     with pytest.raises(AttributeError):
         samplewright.no_such_thing  # noqa: B018
-    assert Path(samplewright.__file__).name == "__init__.py"
