@@ -14,13 +14,13 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 
 from samplewright import Frame
 from samplewright.designs import METHODS, SRS, Stratified
 from samplewright.errors import InputError
 from samplewright.estimators import ESTIMATORS
 from samplewright.scenario import scenario_from_dict
-from conftest import Z
 
 AUX = ("ratio", "greg", "poststrat")
 
@@ -68,7 +68,7 @@ def _run(name, block, frame, conf=0.95):
 
 # ------------------------------------------------------------------ closed forms under SRS
 R_MC = 20_000
-N_SRS = 400  # n large enough that the neglected terms (relative order 1/n) are ~1% of V
+N_SRS = 400  # n large enough that the neglected terms (relative order 1/n) are below the MCSE
 
 
 def _simulate(frame, name, n=N_SRS, R=R_MC, seed=11):
@@ -89,15 +89,16 @@ def _variance_mcse(x):
     return np.sqrt((np.mean(d**4) - np.mean(d**2) ** 2) / len(x))
 
 
-def _check_variance(est, var, closed, n):
-    # neglected terms: the closed forms are first-order (Cochran 1977, sec. 6.3 and 7.2 state
-    # them as large-sample approximations with errors of relative order 1/n); we allow 3 V / n
-    # (common practice: a generous multiple of the order of the first neglected term).
-    approx = 3.0 * closed / n
+def _check_variance(est, var, closed):
+    # The closed forms are first order (Cochran 1977, sec. 6.3 and 7.2: large-sample forms whose
+    # neglected terms are of relative order 1/n).  On this near-proportional frame at n = 400 those
+    # terms are below the Monte Carlo resolution, so both checks are plain z-bounds on the
+    # replicates' own MCSEs (Morris, White & Crowther 2019, Table 6): the empirical variance with
+    # the fourth-moment MCSE, the mean estimated variance with SD / sqrt(R).
     emp = est.var(ddof=1)
-    assert abs(emp - closed) < Z * _variance_mcse(est) + approx, (emp, closed)
+    assert abs(emp - closed) < Z * _variance_mcse(est), (emp, closed)
     mean_v = var.mean()
-    assert abs(mean_v - closed) < Z * var.std(ddof=1) / np.sqrt(len(var)) + approx, (mean_v, closed)
+    assert abs(mean_v - closed) < Z * var.std(ddof=1) / np.sqrt(len(var)), (mean_v, closed)
 
 
 def test_ratio_variance_matches_cochran_closed_form():
@@ -108,7 +109,7 @@ def test_ratio_variance_matches_cochran_closed_form():
     S = np.cov(y, x, ddof=1)
     closed = (1 - N_SRS / f.N) / N_SRS * (S[0, 0] - 2 * R * S[0, 1] + R**2 * S[1, 1])
     est, var = _simulate(f, "ratio")
-    _check_variance(est, var, closed, N_SRS)
+    _check_variance(est, var, closed)
     # and the ratio estimator's bias is O(1/n): within MCSE plus |B| <= sd / sqrt(n) x CV(xbar)
     # (Cochran 1977, sec. 6.8, the bound |bias| / sigma <= CV of xbar)
     cv_xbar = np.sqrt((1 - N_SRS / f.N) / N_SRS) * x.std(ddof=1) / x.mean()
@@ -123,7 +124,7 @@ def test_regression_variance_matches_cochran_closed_form():
     rho = np.corrcoef(y, x)[0, 1]
     closed = (1 - N_SRS / f.N) / N_SRS * y.var(ddof=1) * (1 - rho**2)
     est, var = _simulate(f, "greg")
-    _check_variance(est, var, closed, N_SRS)
+    _check_variance(est, var, closed)
 
 
 def test_greg_one_auxiliary_is_the_classical_regression_estimator():
