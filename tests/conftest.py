@@ -30,6 +30,23 @@ def mc_tolerance(sd: float, replicates: int, z: float = Z) -> float:
     return z * sd / np.sqrt(replicates)
 
 
+#: significance level of the exact binomial tests of coverage against the nominal level
+COVERAGE_ALPHA = 1e-3
+
+
+def assert_coverage_is_nominal(hits: int, replicates: int, nominal: float, what: str = "") -> None:
+    """Coverage (``hits`` intervals of ``replicates`` holding the truth) against the nominal level.
+
+    An exact two-sided binomial test (scipy.stats.binomtest) at COVERAGE_ALPHA: each replicate's
+    interval covers or not, independently, with the true coverage as success probability
+    (Morris, White & Crowther 2019, sec. 5, coverage as a binomial proportion).
+    """
+    from scipy import stats
+
+    p = stats.binomtest(int(hits), int(replicates), nominal).pvalue
+    assert p > COVERAGE_ALPHA, (what, hits, replicates, nominal, p)
+
+
 def simulate_design(frame, design, estimator="ht", replicates=20_000, seed=7, confidence=0.95):
     """Replicate table of one design at one size (blocks of 1000), for checks against exact values."""
     from samplewright.cost import CostModel

@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import Z
+from conftest import Z, assert_coverage_is_nominal
 
 from samplewright import Frame
 from samplewright.designs import METHODS, SRS, Stratified
@@ -229,14 +229,14 @@ def test_a_binary_target_is_labelled_a_proportion(structured):
 
 
 def test_coverage_of_aux_estimators_under_srs():
-    # each interval's coverage against the nominal 95% within the binomial MCSE (Morris et al.
-    # 2019) plus 0.01 for the t-interval's own O(1/n) error (common practice allowance)
+    # each interval's coverage against the nominal 95%: exact two-sided binomial test at
+    # alpha = 1e-3 (scipy.stats.binomtest; Morris et al. 2019, coverage as a binomial proportion)
     f = _linear_frame()
     for name in AUX[:2]:
         blk = SRS("s", n=N_SRS).draw(f, np.random.default_rng(5), 4000)
         o = _run(name, blk, f)
-        c = np.mean((o.lower[:, 0] <= f.mean[0]) & (f.mean[0] <= o.upper[:, 0]))
-        assert abs(c - 0.95) < Z * np.sqrt(0.95 * 0.05 / 4000) + 0.01, (name, c)
+        hits = np.sum((o.lower[:, 0] <= f.mean[0]) & (f.mean[0] <= o.upper[:, 0]))
+        assert_coverage_is_nominal(hits, 4000, 0.95, name)
 
 
 # ------------------------------------------------------------------ scenario keys
