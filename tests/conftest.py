@@ -14,6 +14,29 @@ from samplewright import Frame
 Z = 4.0
 
 
+#: replicates of the shared finished demo run (enough for every table and figure; kept small for time)
+DEMO_REPLICATES = 150
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory):
+    """One finished run of `python -m samplewright demo` (with its report), made once per session.
+
+    For end-to-end tests that only READ a finished run's outputs: they must not write into
+    ``demo_run.out`` (copy it first).  Returns the folder and the process's exit code and output.
+    """
+    import subprocess
+    import sys
+    from types import SimpleNamespace
+
+    out = tmp_path_factory.mktemp("finished") / "demo"
+    proc = subprocess.run([sys.executable, "-m", "samplewright", "demo", "--out", str(out),
+                           "--replicates", str(DEMO_REPLICATES)], capture_output=True, text=True, timeout=600,
+                          check=False)
+    return SimpleNamespace(out=out, returncode=proc.returncode, stdout=proc.stdout, stderr=proc.stderr,
+                           replicates=DEMO_REPLICATES)
+
+
 @pytest.fixture
 def small_frame():
     """Twelve units in three strata and six clusters of two (values invented for exercising code)."""

@@ -392,12 +392,13 @@ def test_figure_names_are_checked():
         res.figure("coverag")
 
 
-def test_run_and_demo_write_the_report_and_no_report_skips_it(tmp_path, capsys):
-    assert cli.main(["demo", "--out", str(tmp_path / "demo"), "--replicates", "100"]) == 0
-    out = capsys.readouterr().out.strip().splitlines()
-    page = (tmp_path / "demo" / "report.html").resolve()
+def test_run_and_demo_write_the_report_and_no_report_skips_it(demo_run, tmp_path):
+    # the shared finished demo run (conftest.demo_run) wrote its report and said where
+    assert demo_run.returncode == 0, demo_run.stderr
+    out = demo_run.stdout.strip().splitlines()
+    page = (demo_run.out / "report.html").resolve()
     assert out[-1] == f"report: {page}" and page.exists()
-    assert (tmp_path / "demo" / "brief.md").exists()
+    assert (demo_run.out / "brief.md").exists()
     assert (
         cli.main(["demo", "--out", str(tmp_path / "bare"), "--replicates", "100", "--no-report", "--quiet"])
         == 0
