@@ -35,6 +35,7 @@ def check_contract(out: Path, replicates: int):
     return summary
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("scenario", SCENARIOS, ids=[s.stem for s in SCENARIOS])
 def test_run_every_scenario(scenario, tmp_path, capsys):
     out = tmp_path / "res"
@@ -45,6 +46,7 @@ def test_run_every_scenario(scenario, tmp_path, capsys):
     assert summary["coverage"].between(0, 1).all()
 
 
+@pytest.mark.slow
 def test_demo_writes_contract_files(demo_run):
     # the shared finished run (conftest.demo_run): `python -m samplewright demo` in a subprocess
     assert demo_run.returncode == 0, demo_run.stderr
@@ -53,6 +55,7 @@ def test_demo_writes_contract_files(demo_run):
     assert "Traceback" not in demo_run.stderr
 
 
+@pytest.mark.slow
 def test_run_refuses_to_overwrite_without_force(demo_run, tmp_path, capsys):
     # a finished run's folder is refused without --force and left as it was; a copy of it is
     # overwritten with --force (the shared run itself is only read)

@@ -171,6 +171,7 @@ def _domain_scenario(extra=None, replicates=None):
     return scenario_from_dict(doc)
 
 
+@pytest.mark.slow
 def test_domain_rows_in_summary_unbiased_and_covering():
     from samplewright.runner import run
 

@@ -108,6 +108,7 @@ def run_dir(tmp_path_factory):
     return out, res
 
 
+@pytest.mark.slow
 def test_every_figure_is_a_png_of_the_promised_size(run_dir):
     out, res = run_dir
     assert set(res.figure_names()) == EXPECTED_FIGURES
@@ -213,6 +214,7 @@ def test_brief_tells_the_story_on_one_page(run_dir):
     assert len(brief.splitlines()) < 60
 
 
+@pytest.mark.slow
 def test_report_command_rebuilds_without_simulating(run_dir, tmp_path, monkeypatch, capsys):
     out, _ = run_dir
     before = {p.name: p.read_bytes() for p in (out / "figures").glob("*.png")}
@@ -309,6 +311,7 @@ def test_numbers_are_rounded_to_their_monte_carlo_error():
     assert coverage_verdict(0.999, 0.0007, 0.95) == "high"
 
 
+@pytest.mark.slow
 def test_two_study_variables_get_their_own_figures(tmp_path):
     rng = np.random.default_rng(3)
     df = pd.DataFrame(
@@ -392,6 +395,7 @@ def test_figure_names_are_checked():
         res.figure("coverag")
 
 
+@pytest.mark.slow
 def test_run_and_demo_write_the_report_and_no_report_skips_it(demo_run, tmp_path):
     # the shared finished demo run (conftest.demo_run) wrote its report and said where
     assert demo_run.returncode == 0, demo_run.stderr
