@@ -273,6 +273,7 @@ def scenarios(draw) -> dict:
 MIN_RAN = 15
 
 
+@pytest.mark.slow
 def test_valid_scenarios_run_or_are_refused():
     outcomes = Counter()
     check_scenario_runs_or_is_refused(outcomes)
@@ -316,6 +317,7 @@ def check_scenario_runs_or_is_refused(outcomes, doc):
     assert np.isfinite(res.replicates["n"]).all()
 
 
+@pytest.mark.slow
 @settings(max_examples=15, deadline=None, derandomize=True, database=None,
           suppress_health_check=[HealthCheck.too_slow])
 @given(doc=scenarios())
