@@ -214,6 +214,7 @@ def test_exact_refused_when_too_many_samples(tmp_path, capsys):
     assert not (tmp_path / "out" / "summary.csv").exists()
 
 
+@pytest.mark.slow
 def test_exact_run_writes_contract_files(tmp_path):
     s = write_scenario(tmp_path, 3)
     out = tmp_path / "out"

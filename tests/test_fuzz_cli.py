@@ -118,6 +118,7 @@ def _run(argv: list[str]) -> None:
         assert len(lines) == 1 and lines[0].startswith("error: "), (argv, msg)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("command", COMMANDS)
 @FUZZ
 @given(data=st.data())

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import io
 
+import pytest
+
 from samplewright import cli
 from samplewright.progress import Progress, clock
 
@@ -58,6 +60,7 @@ def test_quiet_run_prints_nothing(tmp_path, capsys):
     assert " left | " not in err  # no bar (warnings may still be printed)
 
 
+@pytest.mark.slow
 def test_verbose_logs_each_step_including_the_report(tmp_path, capsys):
     assert cli.main(["demo", "--out", str(tmp_path / "v"), "--replicates", "50", "--verbose"]) == 0
     err = capsys.readouterr().err
