@@ -19,7 +19,7 @@ from .designs import METHODS, Design
 from .errors import InputError, show
 from .auxiliary import check_estimators
 from .estimators import ESTIMATORS
-from .frame import Frame, read_table
+from .frame import Frame, input_file, read_table
 from .synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
 from .validate import closest
 
@@ -35,6 +35,8 @@ DEFAULT_BLOCK = 500
 #: allocated (sanity bounds, no published source; a frame file is limited only by the machine)
 MAX_SIZE = 10_000_000
 MAX_SYNTHETIC_UNITS = 50_000_000
+#: largest scenario file read (a settings file; 1 MiB is some 30,000 lines of settings: a sanity bound)
+MAX_SCENARIO_BYTES = 1 << 20
 
 
 # ------------------------------------------------------------------ type checks
@@ -190,7 +192,12 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
     if has_path == has_synth:
         raise InputError(f"{ctx}: give either path = \"file.csv\" or a [frame.synthetic] table (exactly one)")
     synthetic = _synthetic(table["synthetic"], "[frame.synthetic]") if has_synth else None
-    path = (base / as_str(table["path"], "path", ctx)) if has_path else None
+    path = None
+    if has_path:
+        name = as_str(table["path"], "path", ctx)
+        if "\0" in name:
+            raise InputError(f"{ctx}: path {show(name)} contains a NUL byte; no file can have that name")
+        path = base / name
     roles = {}
     if "target" in table:
         t = table["target"]
@@ -427,9 +434,11 @@ def load_scenario(path) -> Scenario:
     >>> len(sc.designs) >= 3
     True
     """
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"scenario file {str(p)!r} does not exist")
+    p = input_file(path, "scenario file")
+    size = p.stat().st_size
+    if size > MAX_SCENARIO_BYTES:
+        raise InputError(f"scenario file {str(p)!r} is {size:,} bytes, more than the {MAX_SCENARIO_BYTES:,} "
+                         f"a scenario may have (it holds settings, not data: put data in the frame file)")
     try:
         text = p.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
@@ -438,4 +447,6 @@ def load_scenario(path) -> Scenario:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{p}: malformed TOML: {exc}") from None
+    except RecursionError:  # tomllib parses nested arrays and tables recursively
+        raise InputError(f"{p}: malformed TOML: arrays or tables nested too deeply to read") from None
     return scenario_from_dict(doc, base=p.parent, source=p)

@@ -21,8 +21,28 @@ def closest(word: str, options) -> str:
     if near:
         return f" (did you mean {show(near[0])}?)"
     if len(options) <= 12:
-        return f" (expected one of: {', '.join(options)})"
+        return f" (expected one of: {', '.join(_cut(o) for o in options)})"
     return ""
+
+
+def _cut(name: str, limit: int = 30) -> str:
+    return name if len(name) <= limit else name[:limit - 3] + "..."
+
+
+def _header_hint(col: str, columns) -> str:
+    """A close match, else the frame's first column names: at most 20, each cut to 20 characters,
+    at most 200 characters in all."""
+    names = [str(c) for c in columns]
+    near = difflib.get_close_matches(str(col), names, n=1, cutoff=0.5)
+    if near:
+        return f" (did you mean {show(near[0])}?)"
+    shown = []
+    for n in names[:20]:
+        if sum(len(s) + 2 for s in shown) + len(_cut(n, 20)) > 200:
+            break
+        shown.append(_cut(n, 20))
+    more = f", ... ({len(names)} in all)" if len(shown) < len(names) else ""
+    return f" (its columns: {', '.join(shown)}{more})"
 
 
 def _rows(mask: np.ndarray, limit: int = 5, kept: np.ndarray | None = None) -> str:
@@ -50,7 +70,7 @@ def _require_column(df: pd.DataFrame, col, role: str, source: str) -> str:
     if not isinstance(col, str) or not col:
         raise InputError(f"{source}: the {role} column must be given as a column name, got {show(col)}")
     if col not in df.columns:
-        raise InputError(f"{source}: {role} column {show(col)} is not in the frame{closest(col, df.columns)}")
+        raise InputError(f"{source}: {role} column {show(col)} is not in the frame{_header_hint(col, df.columns)}")
     return col
 
 
@@ -58,6 +78,11 @@ def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
              kept: np.ndarray | None = None) -> tuple[pd.Series, np.ndarray]:
     """Coerce a column to float; return it and a mask of rows that are not finite numbers."""
     raw = df[col]
+    if role != "order":  # amounts: a list may be ordered by date, but a date or a yes/no is no amount
+        kind = _not_amount(raw)
+        if kind:
+            raise InputError(f"{source}: {role} column {show(col)} holds {kind} values, not numbers; "
+                             f"give a numeric column (e.g. 0/1 for yes/no)")
     num = pd.to_numeric(raw, errors="coerce").astype(float)
     text = num.isna() & raw.notna()
     bad = ~np.isfinite(num.to_numpy())
@@ -67,7 +92,32 @@ def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
             f"{source}: {role} column {show(col)} has {int(text.sum())} non-numeric value(s), "
             f"first {show(first)} at row(s) {_rows(text.to_numpy(), kept=kept)}"
         )
+    big = float(np.abs(num.to_numpy()[~bad]).max(initial=0.0))
+    with np.errstate(over="ignore"):
+        overflow = role != "order" and not np.isfinite((len(num) * big) ** 2)
+    if overflow:  # totals reach N max|y|; variances square them
+        raise InputError(f"{source}: {role} column {show(col)} has values as large as {big:.3g}: over "
+                         f"{len(num):,} units their total or its square would overflow to infinity; "
+                         f"rescale the column (e.g. to thousands or millions)")
     return num, bad
+
+
+def _not_amount(raw: pd.Series) -> str | None:
+    """'true/false' or 'date/time' when the column holds such values (which to_numeric would turn
+    into 1/0 or nanoseconds), else None."""
+    if pd.api.types.is_bool_dtype(raw):
+        return "true/false"
+    if pd.api.types.is_datetime64_any_dtype(raw) or pd.api.types.is_timedelta64_dtype(raw):
+        return "date/time"
+    if raw.dtype == object:  # e.g. True/False with blanks, or dates read from Parquet as objects
+        import datetime as dt
+
+        kinds = {type(v) for v in raw.dropna().to_numpy()}
+        if any(issubclass(k, (bool, np.bool_)) for k in kinds):
+            return "true/false"
+        if any(issubclass(k, (dt.date, dt.time, dt.timedelta, np.datetime64, np.timedelta64)) for k in kinds):
+            return "date/time"
+    return None
 
 
 def sort_key_codes(df: pd.DataFrame, sort_keys, source: str = "frame") -> dict:
