@@ -71,13 +71,16 @@ def test_synthetic_stratum_rounding_to_no_unit_is_refused(tmp_path, clusters):
     refused(sw("synth", sc, "--out", tmp_path / "f.csv", cwd=tmp_path), "'tiny'")
 
 
-def test_cluster_sizes_end_for_any_mean_size():
+def test_cluster_sizes_end_for_any_mean_size(tmp_path):
     # the Python API skips the scenario's mean_size >= 1 check: fewer than one unit per cluster
-    # must still give clusters of at least one unit that sum to the stratum (and end)
-    from samplewright.synth import SyntheticSpec, generate
-
-    df = generate(SyntheticSpec(units=7, clusters={"mean_size": 0.25, "size_cv": 0.5}))
-    assert df.groupby("cluster").size().min() >= 1 and len(df) == 7
+    # must still give clusters of at least one unit that sum to the stratum, and end (in a
+    # subprocess under a timeout, so a hang fails the test)
+    code = ("from samplewright.synth import SyntheticSpec, generate\n"
+            "df = generate(SyntheticSpec(units=7, clusters={'mean_size': 0.25, 'size_cv': 0.5}))\n"
+            "print(len(df), df.groupby('cluster').size().min())\n")
+    env = {**os.environ, "PYTHONPATH": SRC}
+    proc = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=60)
+    assert proc.stdout.split() == ["7", "1"], proc.stderr[-2000:]
 
 
 # ------------------------------------------------------------------ item 10: paths, TOML, sizes, memory
