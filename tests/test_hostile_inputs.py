@@ -210,11 +210,6 @@ def test_missing_column_lists_at_most_20_cut_header_names(tmp_path):
     assert "c00_" in line and "c20_" not in line and "z" * 20 not in line
 
 
-def test_missing_column_lists_the_header_of_a_table(tmp_path):
-    pd.DataFrame({"amount": [1.0, 2.0], "office": ["a", "b"]}).to_csv(tmp_path / "f.csv", index=False)
-    refused(run_in(tmp_path), "'y'", "amount, office")
-
-
 # ------------------------------------------------------------------ item 15: column names and types
 def test_duplicate_csv_column_is_refused(tmp_path):
     write(tmp_path / "f.csv", "y,g,y\n1,a,5\n2,b,6\n3,c,7\n")
