@@ -21,6 +21,16 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"error: {message} (see '{self.prog} --help')\n")
 
 
+#: longest error line printed (messages cut echoed values to 60 characters; this bounds the rest)
+MAX_ERROR = 500
+
+
+def one_line(message: str) -> str:
+    """``message`` on one line (line breaks shown as spaces) of at most :data:`MAX_ERROR` characters."""
+    text = " ".join(message.split("\n")).replace("\r", " ")
+    return text if len(text) <= MAX_ERROR else text[:MAX_ERROR - 3] + "..."
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(prog="samplewright",
                      description="Rehearse competing sampling designs on a population frame and score them.")
@@ -53,7 +63,7 @@ def _main(argv) -> int:
     try:
         return int(args._main(args) or 0)
     except InputError as exc:
-        print(f"error: {exc}", file=sys.stderr)
+        print(f"error: {one_line(str(exc))}", file=sys.stderr)
         return 2
     except BrokenPipeError:
         return 0

@@ -59,7 +59,7 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
 def run(scenario: Scenario, replicates: int | None = None, seed: int | None = None, jobs: int = 1,
         block_size: int | None = None, frame: Frame | None = None, progress: bool | None = False,
         exact: bool = False, log=None, until: str | None = None, max_replicates: int | None = None, out=None, resume: bool = False,
-        backend: str = "local", scheduler: str | None = None, warn=None) -> RunResult:
+        backend: str = "local", scheduler: str | None = None, warn=None, ready=None) -> RunResult:
     """Rehearse every design of ``scenario`` and score it.
 
     Parameters
@@ -94,6 +94,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         stopping rule default to the saved ones; a mismatch is refused).
     backend, scheduler : str
         ``"local"`` (default) or ``"dask"`` with the address of a dask.distributed scheduler.
+    ready : callable, optional
+        Called once every check has passed, before anything is simulated or written (the CLI
+        makes the results folder then, so a refused run leaves no folder behind).
 
     Examples
     --------
@@ -163,14 +166,25 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "frame": truth_frame.roles.get("source"), "frame_hash": truth_frame.content_hash}
     if saved is not None:  # refused before any warning about the run asked for now
         saved.check(manifest, out)
-    notes = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(truth_frame)
-                               + design_warnings(frame, cells, R)))  # each once
-    for w in notes if warn is not None else ():  # said before any time is spent simulating
-        warn(w)
     if exact:  # every possible sample instead of Monte Carlo (exact.py)
         if until is not None or resume or field is not None:
             raise InputError("--exact enumerates every possible sample without simulating: it cannot be combined "
                              "with --until, --resume or fieldwork settings (non-response, frame errors)")
+        from .exact import check_counts
+
+        check_counts(frame, cells)
+    else:  # before anything is allocated or written (limits.py)
+        from .limits import check_run_memory
+
+        check_run_memory(frame, cells, R, bs, jobs if backend == "local" else 1,
+                         rule.max_replicates if rule else None)
+    if ready is not None:  # every check passed
+        ready()
+    notes = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(truth_frame)
+                               + design_warnings(frame, cells, R)))  # each once
+    for w in notes if warn is not None else ():  # said before any time is spent simulating
+        warn(w)
+    if exact:
         from .exact import exact_result
 
         return exact_result(scenario, frame, cells, notes, t0, _versions(), allocation_table(frame, cells))

@@ -17,11 +17,11 @@ from pathlib import Path
 
 from .cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as COST_SCALARS, CostModel
 from .designs import METHODS, RENAMED_METHODS, Design
-from .errors import InputError
+from .errors import InputError, show
 from .auxiliary import check_estimators
 from .estimators import ESTIMATORS
-from .frame import Frame, read_table
-from .synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate
+from .frame import Frame, input_file, read_table
+from .synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
 from .validate import closest
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
@@ -36,6 +36,8 @@ DEFAULT_BLOCK = 500
 #: allocated (sanity bounds, no published source; a frame file is limited only by the machine)
 MAX_SIZE = 10_000_000
 MAX_SYNTHETIC_UNITS = 50_000_000
+#: largest scenario file read (a settings file; 1 MiB is some 30,000 lines of settings: a sanity bound)
+MAX_SCENARIO_BYTES = 1 << 20
 
 
 # ------------------------------------------------------------------ type checks
@@ -49,12 +51,12 @@ def check_keys(table: dict, allowed, ctx: str) -> None:
         raise InputError(f"{ctx} must be a table, got {type(table).__name__}")
     for k in table:
         if k not in allowed:
-            raise InputError(f"{ctx}: unknown key {k!r}{closest(k, allowed)}")
+            raise InputError(f"{ctx}: unknown key {show(k)}{closest(k, allowed)}")
 
 
 def as_int(value, key: str, ctx: str = "", minimum: int | None = None, maximum: int | None = None) -> int:
     if isinstance(value, bool) or not isinstance(value, int):
-        raise InputError(f"{_where(ctx, key)} must be a whole number, got {value!r}")
+        raise InputError(f"{_where(ctx, key)} must be a whole number, got {show(value)}")
     if minimum is not None and value < minimum:
         raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {value}")
     if maximum is not None and value > maximum:
@@ -65,17 +67,17 @@ def as_int(value, key: str, ctx: str = "", minimum: int | None = None, maximum: 
 def as_float(value, key: str, ctx: str = "", minimum: float | None = None, maximum: float | None = None,
              open_interval: bool = False) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{_where(ctx, key)} must be a number, got {value!r}")
+        raise InputError(f"{_where(ctx, key)} must be a number, got {show(value)}")
     v = float(value)
     if v != v or v in (float("inf"), float("-inf")):
-        raise InputError(f"{_where(ctx, key)} must be a finite number, got {value!r}")
+        raise InputError(f"{_where(ctx, key)} must be a finite number, got {show(value)}")
     if open_interval and not (minimum < v < maximum):
-        raise InputError(f"{_where(ctx, key)} must lie strictly between {minimum} and {maximum}, got {value!r}")
+        raise InputError(f"{_where(ctx, key)} must lie strictly between {minimum} and {maximum}, got {show(value)}")
     if not open_interval:
         if minimum is not None and v < minimum:
-            raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {value!r}")
+            raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {show(value)}")
         if maximum is not None and v > maximum:
-            raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {value!r}")
+            raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {show(value)}")
     return v
 
 
@@ -83,17 +85,17 @@ def as_str(value, key: str, ctx: str = "") -> str:
     """A non-empty text of one line: control characters (line breaks, tabs, NUL...) are refused,
     since labels and titles end up in CSV rows, figures, Markdown and terminal lines."""
     if not isinstance(value, str) or not value.strip():
-        raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {value!r}")
+        raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
     bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
     if bad is not None:
-        raise InputError(f"{_where(ctx, key)} = {value[:60]!r} contains the control character {bad!r}; "
+        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}; "
                          f"give one line of printable text")
     return value
 
 
 def as_bool(value, key: str, ctx: str = "") -> bool:
     if not isinstance(value, bool):
-        raise InputError(f"{_where(ctx, key)} must be true or false, got {value!r}")
+        raise InputError(f"{_where(ctx, key)} must be true or false, got {show(value)}")
     return value
 
 
@@ -104,7 +106,7 @@ def as_sizes(value, key: str, ctx: str) -> int | list[int]:
             raise InputError(f"{_where(ctx, key)} is an empty list; give one size or several")
         out = [as_int(v, key, ctx, minimum=1, maximum=MAX_SIZE) for v in value]
         if len(set(out)) != len(out):
-            raise InputError(f"{_where(ctx, key)} lists a size twice: {out}")
+            raise InputError(f"{_where(ctx, key)} lists a size twice: {show(out)}")
         return out
     return as_int(value, key, ctx, minimum=1, maximum=MAX_SIZE)
 
@@ -156,7 +158,7 @@ def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
         if k in table:
             v = as_str(table[k], k, ctx)
             if v not in options:
-                raise InputError(f"{ctx}: {k} = {v!r} is not accepted{closest(v, options)}")
+                raise InputError(f"{ctx}: {k} = {show(v)} is not accepted{closest(v, options)}")
             kw[k] = v
     if "strata" in table:
         strata = table["strata"]
@@ -186,7 +188,9 @@ def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
         if "size_cv" in c:
             as_float(c["size_cv"], "size_cv", cctx, minimum=0.0)
         kw["clusters"] = dict(c)
-    return SyntheticSpec(**kw)
+    spec = SyntheticSpec(**kw)
+    stratum_units(spec)  # every stratum gets a unit: refused here, before any output folder is made
+    return spec
 
 
 def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
@@ -195,7 +199,12 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
     if has_path == has_synth:
         raise InputError(f"{ctx}: give either path = \"file.csv\" or a [frame.synthetic] table (exactly one)")
     synthetic = _synthetic(table["synthetic"], "[frame.synthetic]") if has_synth else None
-    path = (base / as_str(table["path"], "path", ctx)) if has_path else None
+    path = None
+    if has_path:
+        name = as_str(table["path"], "path", ctx)
+        if "\0" in name:
+            raise InputError(f"{ctx}: path {show(name)} contains a NUL byte; no file can have that name")
+        path = base / name
     roles = {}
     if "target" in table:
         t = table["target"]
@@ -216,12 +225,12 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
         a = table["auxiliary"]
         a = [a] if isinstance(a, str) else a
         if not isinstance(a, list) or not a:
-            raise InputError(f"{ctx}: auxiliary must be a column name or a non-empty list of them, got {a!r}")
+            raise InputError(f"{ctx}: auxiliary must be a column name or a non-empty list of them, got {show(a)}")
         roles["auxiliary"] = [as_str(v, "auxiliary", ctx) for v in a]
     if "domains" in table:  # which values of the domain column to report
         d = table["domains"]
         if not isinstance(d, list) or not d or any(isinstance(v, (bool, dict, list)) for v in d):
-            raise InputError(f"{ctx}: domains must be a non-empty list of domain values, got {d!r}")
+            raise InputError(f"{ctx}: domains must be a non-empty list of domain values, got {show(d)}")
         if "domain" not in table:
             raise InputError(f"{ctx}: domains is given but domain (the column defining them) is not")
         roles["domains"] = list(d)
@@ -234,7 +243,7 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
             roles.setdefault("size", "size")
     missing = table.get("missing", "refuse")
     if missing not in ("refuse", "drop"):
-        raise InputError(f"{ctx}: missing = {missing!r} is not accepted (use 'refuse' or 'drop')")
+        raise InputError(f"{ctx}: missing = {show(missing)} is not accepted (use 'refuse' or 'drop')")
     return FrameSpec(path=path, synthetic=synthetic, roles=roles, missing=missing)
 
 
@@ -245,14 +254,14 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
         raise InputError(f"{ctx} must be a table")
     for req in ("label", "method"):
         if req not in table:
-            raise InputError(f"{ctx}: missing required key {req!r}")
+            raise InputError(f"{ctx}: missing required key {show(req)}")
     label = as_str(table["label"], "label", ctx)
-    ctx = f"design {label!r}"
+    ctx = f"design {show(label)}"
     method = as_str(table["method"], "method", ctx)
     if method in RENAMED_METHODS:
         raise InputError(f"{ctx}: method {method!r} is no longer accepted: use {RENAMED_METHODS[method]}")
     if method not in METHODS:
-        raise InputError(f"{ctx}: method {method!r} is not known{closest(method, METHODS)}")
+        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, METHODS)}")
     cls = METHODS[method]
     check_keys(table, DESIGN_COMMON + cls.keys, ctx)
     params = {}
@@ -271,15 +280,15 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
         else:
             params[k] = v
     if cls.size_key not in params:
-        raise InputError(f"{ctx}: missing required key {cls.size_key!r} (the sample size)")
+        raise InputError(f"{ctx}: missing required key {show(cls.size_key)} (the sample size)")
     est = table.get("estimators", ["ht", "hajek"])
     if isinstance(est, str):
         est = [est]
     if not isinstance(est, list) or not est:
-        raise InputError(f"{ctx}: estimators must be a non-empty list, got {est!r}")
+        raise InputError(f"{ctx}: estimators must be a non-empty list, got {show(est)}")
     for e in est:
         if not isinstance(e, str) or e not in ESTIMATORS:
-            raise InputError(f"{ctx}: estimator {e!r} is not known{closest(str(e), ESTIMATORS)}")
+            raise InputError(f"{ctx}: estimator {show(e)} is not known{closest(str(e), ESTIMATORS)}")
     try:
         design = cls(label, **params)
     except TypeError as exc:
@@ -355,14 +364,14 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
         raise InputError("design must be written as [[design]] tables (a list)")
     built = [design_from_dict(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs)]
     for d, est in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
-        check_estimators(est, frame.roles, f"design {d.label!r}")
+        check_estimators(est, frame.roles, f"design {show(d.label)}")
     sort_keys = [d.sort_by for d, _ in built if isinstance(getattr(d, "sort_by", None), str)]
     if sort_keys:  # systematic designs' sort_by columns are resolved when the frame is loaded
         frame = replace(frame, roles={**frame.roles, "sort_keys": list(dict.fromkeys(sort_keys))})
     labels = [d.label for d, _ in built]
     dup = {x for x in labels if labels.count(x) > 1}
     if dup:
-        raise InputError(f"design label {sorted(dup)[0]!r} is used twice; labels must be unique")
+        raise InputError(f"design label {show(sorted(dup)[0])} is used twice; labels must be unique")
     if "cost" in doc:
         kw["cost"] = _cost_model(doc["cost"])
     if "goal" in doc:
@@ -399,14 +408,14 @@ def _goal(g: dict, targets):
         if k in g:
             kw[k] = as_float(g[k], k, "[goal]", minimum=0.0)
             if kw[k] <= 0:
-                raise InputError(f"[goal]: {k} must be above 0, got {g[k]!r}")
+                raise InputError(f"[goal]: {k} must be above 0, got {show(g[k])}")
     if "confidence" in g:
         kw["confidence"] = as_float(g["confidence"], "confidence", "[goal]", 0.0, 1.0, open_interval=True)
     if "variable" in g:
         v = as_str(g["variable"], "variable", "[goal]")
         names = [targets] if isinstance(targets, str) else list(targets or [])
         if names and v not in names:
-            raise InputError(f"[goal]: variable {v!r} is not a target of [frame]{closest(v, names)}")
+            raise InputError(f"[goal]: variable {show(v)} is not a target of [frame]{closest(v, names)}")
         kw["variable"] = v
     return Goal(**kw)
 
@@ -434,9 +443,11 @@ def load_scenario(path) -> Scenario:
     >>> len(sc.designs) >= 3
     True
     """
-    p = Path(path)
-    if not p.exists():
-        raise InputError(f"scenario file {str(p)!r} does not exist")
+    p = input_file(path, "scenario file")
+    size = p.stat().st_size
+    if size > MAX_SCENARIO_BYTES:
+        raise InputError(f"scenario file {str(p)!r} is {size:,} bytes, more than the {MAX_SCENARIO_BYTES:,} "
+                         f"a scenario may have (it holds settings, not data: put data in the frame file)")
     try:
         text = p.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
@@ -445,4 +456,6 @@ def load_scenario(path) -> Scenario:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{p}: malformed TOML: {exc}") from None
+    except RecursionError:  # tomllib parses nested arrays and tables recursively
+        raise InputError(f"{p}: malformed TOML: arrays or tables nested too deeply to read") from None
     return scenario_from_dict(doc, base=p.parent, source=p)

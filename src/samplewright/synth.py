@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .errors import InputError
+from .errors import InputError, show
 
 KEYS = {
     "units": "number of units in the frame (required)",
@@ -87,7 +87,7 @@ def _noise(rng, n, skew, skewness):
         x = np.exp(np.sqrt(s2) * rng.standard_normal(n))
         m, v = np.exp(s2 / 2), (np.exp(s2) - 1) * np.exp(s2)
         return (x - m) / np.sqrt(v)
-    raise InputError(f"[frame.synthetic] skew = {skew!r} is not known (use 'none', 'gamma' or 'lognormal')")
+    raise InputError(f"[frame.synthetic] skew = {show(skew)} is not known (use 'none', 'gamma' or 'lognormal')")
 
 
 def _stratum_table(spec: SyntheticSpec):
@@ -100,10 +100,21 @@ def _stratum_table(spec: SyntheticSpec):
     return names, share / share.sum(), means, sds
 
 
-def _counts(total: int, shares: np.ndarray) -> np.ndarray:
+def stratum_units(spec: SyntheticSpec) -> np.ndarray:
+    """Units of each stratum (largest-remainder rounding of ``units x share``); refuse an empty stratum.
+
+    Every stratum must get at least one unit: a stratum that rounds to none would silently
+    vanish from the frame (and, with clusters, could not be split into clusters).
+    """
     from .allocation import round_allocation
 
-    return round_allocation(total, total * shares, np.full(len(shares), total), None)
+    names, share, _, _ = _stratum_table(spec)
+    counts = round_allocation(spec.units, spec.units * share, np.full(len(share), spec.units), None)
+    for name, s, c in zip(names, share, counts):
+        if c < 1:
+            raise InputError(f"[frame.synthetic]: stratum {show(name)} gets 0 of the {spec.units} units "
+                             f"(share {s:.3g} of the total); raise its share or units")
+    return counts
 
 
 def generate(spec: SyntheticSpec) -> pd.DataFrame:
@@ -116,8 +127,8 @@ def generate(spec: SyntheticSpec) -> pd.DataFrame:
     (1000, ['unit', 'y'])
     """
     rng = np.random.default_rng(spec.seed)
-    names, share, means, sds = _stratum_table(spec)
-    N_h = _counts(spec.units, share)
+    names, _, means, sds = _stratum_table(spec)
+    N_h = stratum_units(spec)
     stratum = np.repeat(np.arange(len(names)), N_h)
     y = means[stratum].astype(float)
     sd_unit = sds[stratum]
@@ -162,8 +173,11 @@ def generate(spec: SyntheticSpec) -> pd.DataFrame:
 
 
 def _cluster_sizes(rng, units: int, mean_size: float, size_cv: float) -> np.ndarray:
-    """Cluster sizes (at least 1) summing to ``units``: equal, or gamma-spread with CV ``size_cv``."""
-    k = max(1, int(round(units / mean_size)))
+    """Cluster sizes (at least 1) summing to ``units`` (at least 1): equal, or gamma-spread with CV ``size_cv``.
+
+    There are at most ``units`` clusters, so the rounding loop below always ends.
+    """
+    k = min(units, max(1, int(round(units / mean_size))))
     if size_cv < 1e-6:  # equal sizes (a smaller CV would not change the rounded sizes)
         w = np.ones(k)
     else:

@@ -61,12 +61,15 @@ def simulate_and_write(scenario, args) -> int:
     from .longrun import interrupted_note, run_kwargs
 
     extra = run_kwargs(args)
-    # refuse before spending time simulating (a resumed run continues in its own folder)
-    prepare_dir(args.out, force=args.force or extra["resume"], inputs=inputs)
+
+    def ready():  # once every check passed, before simulating: a refused run leaves no folder behind
+        # (a resumed run continues in its own folder)
+        prepare_dir(args.out, force=args.force or extra["resume"], inputs=inputs)
+
     try:
         res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
                   progress=None if not args.quiet else False, log=logger(args), warn=_warn,
-                  exact=getattr(args, "exact", False), **extra)
+                  exact=getattr(args, "exact", False), ready=ready, **extra)
     except BaseException as exc:
         if not isinstance(exc, (InputError, SystemExit)):
             interrupted_note(args.out)
