@@ -154,13 +154,13 @@ def test_absurd_replicates_refused_before_any_folder_or_manifest(tmp_path, args)
     assert not (tmp_path / "out").exists()  # no results folder, so no blocks/manifest.json
 
 
-def test_pps_wr_far_beyond_memory_is_refused_with_the_estimate(tmp_path):
+def test_pps_with_replacement_far_beyond_memory_is_refused_with_the_estimate(tmp_path):
     from samplewright.limits import physical_memory
 
     if physical_memory() > 200 << 30:  # 500 x 10^7 selections x 48 bytes = 223.5 GiB
         pytest.skip("this machine could hold the blocks")
     small_frame(tmp_path)
-    body = DESIGN.replace('"srs"', '"pps_wr"').replace("n = 5", "n = 10000000")
+    body = DESIGN.replace("\"srs\"", "\"pps\"\nreplace = true").replace("n = 5", "n = 10000000")
     sc = scenario(tmp_path, body=body, frame_extra='size = "x"')
     line = refused(run_in(tmp_path, sc), "'simple'", "223.5 GiB")
     assert "memory" in line and not (tmp_path / "out").exists()
@@ -178,11 +178,11 @@ def test_memory_bound_is_the_documented_formula():
 
     frame = Frame.from_dataframe(pd.DataFrame({"y": np.arange(1.0, 101.0), "x": np.arange(1.0, 101.0)}),
                                  target="y", size="x")
-    cells = make_cells([METHODS["pps_wr"]("w", n=100)], [("ht",)])
+    cells = make_cells([METHODS["pps"]("w", n=100, replace=True)], [("ht",)])
     check_run_memory(frame, cells, 10, 500, memory=2_400_000)
     with pytest.raises(InputError, match="'w' at size 100"):
         check_run_memory(frame, cells, 10, 500, memory=2_399_999)
-    one = make_cells([METHODS["pps_wr"]("w", n=1)], [("ht",)])  # block: 500 x 1 x 48 = 24,000 bytes
+    one = make_cells([METHODS["pps"]("w", n=1, replace=True)], [("ht",)])  # block: 500 x 1 x 48 = 24,000 bytes
     need = 10**4 * 1 * 1 * 160 + 20 * 2048  # 10^4 replicates x 1 estimator x 1 variable; 20 blocks of 500
     check_run_memory(frame, one, 10**4, 500, memory=need)
     with pytest.raises(InputError, match="replicate table"):

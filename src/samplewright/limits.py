@@ -13,7 +13,7 @@ platform does not say, a documented cap of 64 GiB):
 The constants are measured peaks of runs of this code (not a published source): a run of
 4 million rows rose 644 MB above a 10 000-replicate run (161 bytes a row); 100 000 blocks of
 one replicate added about 1.2 kB each beyond their rows; blocks of 500 x 20 000 and
-500 x 40 000 ``pps_wr`` selections on a frame with K = 3 used 45-46 bytes a selection.
+500 x 40 000 ``pps`` (with replacement) selections on a frame with K = 3 used 45-46 bytes a selection.
 """
 
 from __future__ import annotations

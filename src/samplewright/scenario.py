@@ -88,7 +88,7 @@ def as_str(value, key: str, ctx: str = "") -> str:
         raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
     bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
     if bad is not None:
-        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}; "
+        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}{' (a NUL byte)' if bad == chr(0) else ''}; "
                          f"give one line of printable text")
     return value
 
