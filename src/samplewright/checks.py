@@ -133,5 +133,5 @@ def cost_notes(cost, frame: Frame) -> list[str]:
     rates = [getattr(cost, f.name) for f in dataclasses.fields(cost) if isinstance(getattr(cost, f.name), float)]
     if any(rates) or cost.per_unit_by_stratum or frame.unit_cost is not None or frame.cluster_cost is not None:
         return []
-    return ["costs are not modelled (no [cost] table and no unit_cost or cluster_cost column): mean_cost is 0 "
-            "for every design, so designs are compared on precision alone"]
+    return [("costs are not modelled (no [cost] table and no unit_cost or cluster_cost column): mean_cost is 0 "
+             "for every design, so designs are compared on precision alone")]
