@@ -139,17 +139,17 @@ def _untrusted(passed: list[dict]) -> list[dict]:
 def _reproduce(info: dict) -> str:
     seed, R = info.get("seed"), info.get("replicates")
     src = str(info.get("scenario") or "")
-    tail = f" --seed {seed} --replicates {R}" + (
+    exact = bool(info.get("exact"))  # every possible sample: no seed and no replicates
+    tail = " --exact" if exact else f" --seed {seed} --replicates {R}" + (
         f" --jobs {info['jobs']}" if info.get("jobs", 1) != 1 else ""
     )
-    if info.get("exact"):  # no seed and no replicates: every possible sample
-        tail = " --exact"
     if src.replace("\\", "/").endswith("samplewright/data/demo.toml"):
         return f"samplewright demo --out NEW_FOLDER{tail}"
     if src:
         return f"samplewright run {src} --out NEW_FOLDER{tail}"
+    call = "exact=True" if exact else f"replicates={R}, seed={seed}"
     return (
-        f"samplewright.run(scenario, replicates={R}, seed={seed}) with the same scenario "
+        f"samplewright.run(scenario, {call}) with the same scenario "
         f"(built in Python; its hash is recorded below)"
     )
 
