@@ -193,9 +193,8 @@ SRS = '[[design]]\nlabel = "s"\nmethod = "srs"\nn = 50\n'
 
 
 def _run(tmp_path, sc, *extra):
-    proc = subprocess.run([sys.executable, "-m", "samplewright", "run", str(sc), "--out", str(tmp_path / "o"),
-                           "--no-report", *extra], capture_output=True, text=True, env={**os.environ,
-                                                                                      "PYTHONPATH": SRC})
+    argv = [sys.executable, "-m", "samplewright", "run", str(sc), "--out", str(tmp_path / "o"), "--no-report", *extra]
+    proc = subprocess.run(argv, capture_output=True, text=True, env={**os.environ, "PYTHONPATH": SRC}, check=False)
     assert proc.returncode == 0, proc.stderr
     return proc.stdout, proc.stderr, json.loads((tmp_path / "o" / "run.json").read_text())
 
