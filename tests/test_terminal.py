@@ -304,6 +304,8 @@ def test_exact_mode_texts_say_the_exact_thing():
     low = [t for t in ctx["findings"] if "Intervals too narrow" in t]
     assert len(low) == 1 and "possible samples" in low[0] and "exact coverage" in low[0]
     assert "exact=True" in ctx["reproduce"] and "seed" not in ctx["reproduce"]
+    # no cost model: the report's tables show a dash, not a cost of 0 everywhere
+    assert {r["mean_cost"] for r in ctx["summary_rows"] + ctx["brief_rows"]} == {"\u2014"}
 
 
 # ------------------------------------------------------------------ help and version

@@ -17,7 +17,7 @@ def add_scale_options(p) -> None:
                         "coverage_mcse, bias_mcse, empirical_se_rel_mcse (e.g. coverage_mcse=0.002); "
                         "--replicates is then the minimum (default: none, run exactly --replicates)")
     p.add_argument("--max-replicates", type=whole_number(2),
-                   help="replicate cap per design and size for --until (default 100 x --replicates, "
+                   help="replicate cap per design and size for --until (default: 100 x --replicates, "
                         "at least 100000)")
     p.add_argument("--backend", choices=("local", "dask"), default="local",
                    help="where blocks run: local processes (--jobs) or a dask cluster (--scheduler) "

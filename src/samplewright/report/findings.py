@@ -98,6 +98,13 @@ def is_exact(summary: pd.DataFrame) -> bool:
     return "exact" in summary.columns and len(summary) > 0 and bool(summary["exact"].astype(bool).all())
 
 
+def cost_text(summary: pd.DataFrame):
+    """How a mean cost is shown: ``money``, or a dash for every row when no cost is modelled (all 0)."""
+    if len(summary) and not (summary["mean_cost"] != 0).any():
+        return lambda _value: "—"
+    return money
+
+
 def measure_text(exact: bool):
     """How a measure and its MCSE are shown: ``with_mcse``, or the bare number in exact mode."""
     if exact:
@@ -119,7 +126,7 @@ def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
 def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
     """The summary table as display strings (one dict per row), with MCSEs beside their measures."""
     out = []
-    show = measure_text(is_exact(summary))
+    show, cost = measure_text(is_exact(summary)), cost_text(summary)
     for r in summary.itertuples(index=False):
         out.append(
             {
@@ -129,7 +136,7 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
                 "estimator": SHORT_ESTIMATOR.get(r.estimator, r.estimator),
                 "variable": r.variable,
                 "mean_n": num(r.mean_n),
-                "mean_cost": money(r.mean_cost),
+                "mean_cost": cost(r.mean_cost),
                 "truth": num(r.truth, 6),
                 "bias": show(r.bias, r.bias_mcse),
                 "relative_bias": percent_like(

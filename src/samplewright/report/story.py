@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from .findings import SHORT_ESTIMATOR, findings, is_exact, measure_text, money, num, summary_rows
+from .findings import SHORT_ESTIMATOR, cost_text, findings, is_exact, measure_text, money, num, summary_rows
 from .figures import FIGURES, estimator_name, figure_names
 
 CAUTIONS = [
@@ -255,7 +255,7 @@ def brief_rows(res, confidence: float) -> list[dict]:
     from .figures import primary_rows
 
     rows = []
-    show = measure_text(is_exact(res.summary))
+    show, cost = measure_text(is_exact(res.summary)), cost_text(res.summary)
     for var in dict.fromkeys(res.summary["variable"]):
         for r in primary_rows(res.summary, var, max_rows=10**9).itertuples(index=False):
             rows.append(
@@ -263,7 +263,7 @@ def brief_rows(res, confidence: float) -> list[dict]:
                     "design": r.design,
                     "size": int(r.size),
                     "variable": var,
-                    "mean_cost": money(r.mean_cost),
+                    "mean_cost": cost(r.mean_cost),
                     "moe": num(r.moe),
                     "bias": show(r.bias, r.bias_mcse),
                     "coverage": show(r.coverage, r.coverage_mcse, scale=100.0),
