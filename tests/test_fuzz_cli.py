@@ -114,7 +114,7 @@ def _run(argv: list[str]) -> None:
     assert "Traceback" not in msg, msg
     assert code in (0, 2), (code, argv, msg)
     if code == 2:
-        lines = [ln for ln in msg.strip().splitlines() if not ln.startswith("warning: ")]
+        lines = [ln for ln in msg.strip().splitlines() if not ln.startswith(("warning: ", "note: "))]
         assert len(lines) == 1 and lines[0].startswith("error: "), (argv, msg)
 
 

@@ -1,9 +1,14 @@
 """Warnings that are not errors: conditions a planner should know about before trusting a run.
 
-Each check returns plain sentences; the runner prints them once and records them in run.json.
+Each check returns plain sentences; the runner prints them once and records them in run.json:
+warnings (``warning:`` lines, run.json ``warnings``) where a result may mislead, and notes
+(``note:`` lines, run.json ``notes``) for facts of the set-up, such as how an allocation was
+rounded or that costs are not modelled.
 """
 
 from __future__ import annotations
+
+import dataclasses
 
 import numpy as np
 from scipy import stats
@@ -106,13 +111,25 @@ def interval_warnings(frame: Frame, design) -> list[str]:
     return out
 
 
-def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
+def skewness(frame: Frame) -> np.ndarray:
+    """Fisher's G1 of each target (``scipy.stats.skew``, bias=False); 0 for a constant target.
+
+    A constant column has no skewness to speak of, and scipy would warn about precision loss on it.
+    """
+    g1 = np.zeros(frame.V)
+    varies = np.ptp(frame.y, axis=0) > 0 if frame.N > 2 else np.zeros(frame.V, dtype=bool)
+    if varies.any():
+        g1[varies] = stats.skew(frame.y[:, varies], axis=0, bias=False)
+    return g1
+
+
+def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
+    """Warnings about the designs on this frame; ``replicates`` is None in exact mode (no Monte Carlo)."""
     out = []
     g1 = skewness(frame)
     small = {v: [] for v in frame.variables}  # variable -> designs/sizes below Cochran's bound
     for cell in cells:
         d = cell.design
-        out.extend(d.notes(frame))  # design set-up notes, e.g. certainty units
         out.extend(interval_warnings(frame, d))  # systematic intervals in step with a cycle
         n = d.expected_n(frame)
         if n > LARGE_FRACTION * frame.N:
@@ -122,11 +139,31 @@ def design_warnings(frame: Frame, cells, replicates: int) -> list[str]:
             if n < 25.0 * g * g:
                 small[v].append(f"{d.label} ({n:.0f})")
     for v, g in zip(frame.variables, g1):
-        if small[v]:
-            out.append(f"target {v!r} is skewed (G1 = {g:.2f}): Cochran's rule n > 25 G1^2 = {25 * g * g:.0f} "
+        bound = 25 * g * g
+        if bound >= frame.N:  # no sample size from this frame meets the rule: say what that means instead
+            out.append(f"target {v!r} is so skewed (G1 = {g:.2f}) that Cochran's rule n > 25 G1^2 = {bound:.0f} "
+                       f"asks for more units than the {frame.N} in the frame: the normal approximation cannot be "
+                       f"reached by sampling more, so intervals may under-cover at every size; the rehearsal's "
+                       f"coverage column shows by how much")
+        elif small[v]:
+            out.append(f"target {v!r} is skewed (G1 = {g:.2f}): Cochran's rule n > 25 G1^2 = {bound:.0f} "
                        f"is not met by {', '.join(small[v])}; intervals based on the normal approximation "
                        f"may under-cover")
-    if replicates < FEW_REPLICATES:
+    if replicates is not None and replicates < FEW_REPLICATES:
         mcse = np.sqrt(0.95 * 0.05 / replicates)
         out.append(f"only {replicates} replicates: coverage near 95% has a Monte Carlo SE of about {mcse:.3f}")
     return out
+
+
+def design_notes(frame: Frame, cells) -> list[str]:
+    """How the designs were set up (allocation to strata, certainty units): facts, not warnings."""
+    return [note for cell in cells for note in cell.design.notes(frame)]
+
+
+def cost_notes(cost, frame: Frame) -> list[str]:
+    """One note when nothing in the scenario costs anything (no [cost] rate, no cost column)."""
+    rates = [getattr(cost, f.name) for f in dataclasses.fields(cost) if isinstance(getattr(cost, f.name), float)]
+    if any(rates) or cost.per_unit_by_stratum or frame.unit_cost is not None or frame.cluster_cost is not None:
+        return []
+    return [("costs are not modelled (no [cost] table and no unit_cost or cluster_cost column): mean_cost is 0 "
+             "for every design, so designs are compared on precision alone")]

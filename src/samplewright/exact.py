@@ -270,8 +270,11 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     return summary, samples, by_label
 
 
-def exact_result(scenario, frame, cells, notes, started: float, versions: dict, allocation):
-    """The :class:`~samplewright.result.RunResult` of an exact-mode run (``run --exact``)."""
+def exact_result(scenario, frame, cells, warnings, notes, started: float, versions: dict, allocation):
+    """The :class:`~samplewright.result.RunResult` of an exact-mode run (``run --exact``).
+
+    ``warnings`` and ``notes`` are the run's checks (``checks.py``), made without any about replicates.
+    """
     import time
 
     from .result import RunResult
@@ -279,8 +282,6 @@ def exact_result(scenario, frame, cells, notes, started: float, versions: dict, 
     t1 = time.monotonic()
     summary, samples, counts = evaluate_exact(frame, cells, scenario.confidence, scenario.cost)
     t2 = time.monotonic()
-    # no Monte Carlo error in exact mode: drop the few-replicates caution
-    notes = [w for w in notes if not (w.startswith("only ") and "replicates" in w)]
     info = {
         "title": scenario.title,
         "scenario": str(scenario.source) if scenario.source else None,
@@ -298,6 +299,7 @@ def exact_result(scenario, frame, cells, notes, started: float, versions: dict, 
         "versions": versions,
         "elapsed_seconds": round(time.monotonic() - started, 3),
         "enumeration_seconds": round(t2 - t1, 3),
-        "warnings": notes,
+        "warnings": warnings,
+        "notes": notes,
     }
-    return RunResult(summary=summary, replicates=samples, allocation=allocation, info=info, warnings=notes)
+    return RunResult(summary=summary, replicates=samples, allocation=allocation, info=info, warnings=warnings)

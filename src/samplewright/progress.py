@@ -6,38 +6,68 @@ import shutil
 import sys
 import time
 
+#: half-life, in seconds, of the weights of the replicate rate behind the time-left estimate
+HALF_LIFE = 30.0
+
 
 class Progress:
     """Counts replicates done per design and redraws one status line on stderr.
 
     Silent when ``enabled`` is false (``--quiet``, or stderr is not a terminal).
+
+    The time left is the replicates still to run divided by a smoothed rate: an exponentially
+    weighted rate, replicates done over time spent, in which each finished block's count and
+    the time it took weigh half as much for every ``HALF_LIFE`` (30) seconds since it finished.
+    A start-up pause or a burst of blocks finishing together (``--jobs``) so fades out in a
+    minute or two instead of pulling the estimate for the rest of the run, and one slow or
+    quick block moves it little.  ``timer`` (seconds, default ``time.monotonic``) is for tests.
     """
 
-    def __init__(self, totals: dict[str, int], enabled: bool | None = None, stream=None):
+    def __init__(self, totals: dict[str, int], enabled: bool | None = None, stream=None, timer=time.monotonic):
         self.stream = stream or sys.stderr
         self.enabled = self.stream.isatty() if enabled is None else enabled
         self.totals = dict(totals)
         self.done = {k: 0 for k in totals}
-        self.start = time.monotonic()
+        self.timer = timer
+        self.start = timer()
         self._last = 0.0
         self._width = 0
+        self._seen = self.start  # time of the last update, and the weighted replicates and seconds
+        self._reps = 0.0
+        self._secs = 0.0
 
     def update(self, name: str, count: int) -> None:
         self.done[name] = self.done.get(name, 0) + count
+        now = self.timer()
+        decay = 0.5 ** ((now - self._seen) / HALF_LIFE)
+        self._reps = self._reps * decay + count
+        self._secs = self._secs * decay + (now - self._seen)
+        self._seen = now
         if not self.enabled:
             return
-        now = time.monotonic()
         if now - self._last < 0.1 and sum(self.done.values()) < sum(self.totals.values()):
             return
         self._last = now
-        self._draw(name, now)
+        self._draw(name)
 
-    def line(self, name: str, now: float | None = None) -> str:
+    def time_left(self) -> float:
+        """Seconds left at the smoothed rate (see the class notes); NaN before the first replicate."""
+        left = max(sum(self.totals.values()) - sum(self.done.values()), 0)
+        if not left:
+            return 0.0
+        return left * self._secs / self._reps if self._reps > 0 else float("nan")
+
+    def break_line(self) -> None:
+        """End the bar's line, so a message printed next (Ctrl-C, a warning) starts on its own line."""
+        if self.enabled and self._width:
+            self.stream.write("\n")
+            self.stream.flush()
+            self._width = 0
+
+    def line(self, name: str) -> str:
         """The status line: overall bar, this design's replicates, designs finished, time left."""
-        now = time.monotonic() if now is None else now
         total, done = sum(self.totals.values()), sum(self.done.values())
-        elapsed = now - self.start
-        left = elapsed * max(total - done, 0) / done if done else float("nan")
+        left = self.time_left()
         width = 16
         fill = min(width, int(width * done / total)) if total else width
         bar = "#" * fill + "-" * (width - fill)
@@ -46,8 +76,8 @@ class Progress:
         return (f"[{bar}] {pct:3.0f}% {clock(left):>6} left | {name[:24]} {self.done.get(name, 0):,}/"
                 f"{self.totals.get(name, 0):,} | designs done {finished}/{len(self.totals)}")
 
-    def _draw(self, name: str, now: float) -> None:
-        text = self.line(name, now)
+    def _draw(self, name: str) -> None:
+        text = self.line(name)
         cols = shutil.get_terminal_size((100, 24)).columns - 1
         text = text[:cols] if cols > 20 else text
         pad = max(0, self._width - len(text))
@@ -60,7 +90,7 @@ class Progress:
         if self.enabled:
             self.stream.write("\r" + " " * self._width + "\r")
             self.stream.write(f"{sum(self.done.values()):,} replicates of {len(self.totals)} design(s) "
-                              f"done in {clock(time.monotonic() - self.start)}\n")
+                              f"done in {clock(self.timer() - self.start)}\n")
             self.stream.flush()
 
 

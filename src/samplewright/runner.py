@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
-from .checks import design_warnings, frame_warnings, variance_warnings
+from .checks import cost_notes, design_notes, design_warnings, frame_warnings, variance_warnings
 from .engine import check_backend, make_cells, replicate_table, simulate, simulate_until
 from .errors import InputError
 from .evaluate import summarise
@@ -59,7 +59,7 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
 def run(scenario: Scenario, replicates: int | None = None, seed: int | None = None, jobs: int = 1,
         block_size: int | None = None, frame: Frame | None = None, progress: bool | None = False,
         exact: bool = False, log=None, until: str | None = None, max_replicates: int | None = None, out=None, resume: bool = False,
-        backend: str = "local", scheduler: str | None = None, warn=None, ready=None) -> RunResult:
+        backend: str = "local", scheduler: str | None = None, warn=None, note=None, ready=None) -> RunResult:
     """Rehearse every design of ``scenario`` and score it.
 
     Parameters
@@ -79,6 +79,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     warn : callable, optional
         Called with each warning as soon as the checks are done, before any simulating (the
         CLI prints them); the warnings are also kept in run.json.
+    note : callable, optional
+        Called, like ``warn``, with each note: a fact of the set-up that needs no action (how an
+        allocation was rounded, certainty units, costs not modelled); kept in run.json ``notes``.
     exact : bool
         Enumerate every possible sample instead of simulating (``run --exact``; see
         :mod:`samplewright.exact`): exact design moments, no Monte Carlo error.
@@ -180,14 +183,18 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
                          rule.max_replicates if rule else None)
     if ready is not None:  # every check passed
         ready()
-    notes = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(truth_frame)
-                               + design_warnings(frame, cells, R)))  # each once
-    for w in notes if warn is not None else ():  # said before any time is spent simulating
+    warned = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(truth_frame)
+                                + design_warnings(frame, cells, None if exact else R)))  # each once
+    notes = list(dict.fromkeys(design_notes(frame, cells) + cost_notes(scenario.cost, frame)))
+    for w in warned if warn is not None else ():  # said before any time is spent simulating
         warn(w)
+    for m in notes if note is not None else ():
+        note(m)
     if exact:
         from .exact import exact_result
 
-        return exact_result(scenario, frame, cells, notes, t0, _versions(), allocation_table(frame, cells))
+        return exact_result(scenario, frame, cells, warned, notes, t0, _versions(),
+                            allocation_table(frame, cells))
     say(f"{len(cells)} design x size cells, {R} replicates each, blocks of {bs}")
     bar = Progress({c.design.label: 0 for c in cells}, enabled=progress)
     for c in cells:
@@ -203,8 +210,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
             store = BlockStore.create(out, manifest)
 
         def damaged(message: str) -> None:  # a block file drawn again: said now and kept in run.json
-            notes.append(message)
+            warned.append(message)
             if warn is not None:
+                bar.break_line()
                 warn(message)
 
         store.warn = damaged
@@ -212,12 +220,17 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     common = dict(jobs=jobs, progress=lambda ci, k: bar.update(cells[ci].design.label, k), backend=backend,
                   scheduler=scheduler, store=store)
     stopping = None
-    if rule is None:
-        results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, **common)
-    else:
-        truths = dict(zip(truth_frame.layout.names, truth_frame.layout.truth))  # as summarise scores them
-        results, stopping = simulate_until(frame, cells, rule, R, seed, bs, scenario.confidence, scenario.cost,
-                                           truth=np.array([truths[v] for v in frame.layout.names]), **common)
+    try:
+        if rule is None:
+            results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, **common)
+        else:
+            truths = dict(zip(truth_frame.layout.names, truth_frame.layout.truth))  # as summarise scores them
+            results, stopping = simulate_until(frame, cells, rule, R, seed, bs, scenario.confidence,
+                                               scenario.cost, truth=np.array([truths[v] for v in frame.layout.names]),
+                                               **common)
+    except BaseException:  # Ctrl-C or a failure: its message starts on a line of its own
+        bar.break_line()
+        raise
     bar.close()
     t2 = time.monotonic()
     reps = replicate_table(results, cells, frame.layout.names, consume=True)  # targets, then domain variables
@@ -251,12 +264,13 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         "versions": _versions(),
         "elapsed_seconds": round(time.monotonic() - t0, 3),
         "simulation_seconds": round(t2 - t1, 3),
-        "warnings": notes,
+        "warnings": warned,
+        "notes": notes,
         "fieldwork": None if field is None else field.info,
         "frame_order": order_info,
     }
     say(f"simulated in {t2 - t1:.2f} s")
-    res = RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=notes,
+    res = RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=warned,
                     frame_order=order_table)
     try:
         res.frontier, res.recommendation = goal_tables(summary, reps, scenario)

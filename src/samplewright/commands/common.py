@@ -27,16 +27,17 @@ def whole_number(minimum: int):
 def add_run_options(p) -> None:
     """Options of every command that simulates (run, demo)."""
     p.add_argument("--replicates", type=whole_number(1),
-                   help="replicates per design and size (overrides the scenario)")
-    p.add_argument("--seed", type=whole_number(0), help="root seed of the run (overrides the scenario)")
-    p.add_argument("--jobs", type=whole_number(1), default=1, help="parallel workers; results do not depend on it")
-    p.add_argument("--force", action="store_true", help="overwrite results already in --out")
-    p.add_argument("--quiet", action="store_true", help="no progress bar and no summary on stdout")
-    p.add_argument("--verbose", action="store_true", help="log each step on stderr")
-    p.add_argument("--debug", action="store_true", help="show a traceback on unexpected failures")
+                   help="replicates per design and size (default: the scenario's replicates)")
+    p.add_argument("--seed", type=whole_number(0), help="root seed of the run (default: the scenario's seed)")
+    p.add_argument("--jobs", type=whole_number(1), default=1, help="parallel workers; results do not depend on it (default: 1)")
+    p.add_argument("--force", action="store_true", help="overwrite results already in --out (default: off, refuse)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar and no summary on stdout (default: off)")
+    p.add_argument("--verbose", action="store_true", help="log each step on stderr (default: off)")
+    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a "
+                        "one-line message (default: off)")
     p.add_argument("--no-report", action="store_true",
                    help="write only the result tables, not figures/, report.html and brief.md "
-                        "(build them later with `samplewright report DIR`)")
+                        "(build them later with `samplewright report DIR`; default: off, the report is written)")
     from .longrun import add_scale_options
 
     add_scale_options(p)
@@ -44,6 +45,10 @@ def add_run_options(p) -> None:
 
 def _warn(message: str) -> None:
     print(f"warning: {message}", file=sys.stderr)
+
+
+def _note(message: str) -> None:
+    print(f"note: {message}", file=sys.stderr)
 
 
 def logger(args):
@@ -68,7 +73,7 @@ def simulate_and_write(scenario, args) -> int:
 
     try:
         res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
-                  progress=None if not args.quiet else False, log=logger(args), warn=_warn,
+                  progress=None if not args.quiet else False, log=logger(args), warn=_warn, note=_note,
                   exact=getattr(args, "exact", False), ready=ready, **extra)
     except BaseException as exc:
         if not isinstance(exc, (InputError, SystemExit)):
@@ -117,7 +122,8 @@ def late_failure_status(failures, out, args) -> int:
 
 
 def format_summary(summary) -> str:
+    """The summary printed after a run; without a cost model (every mean_cost 0) the cost column is left out."""
     cols = ["design", "size", "estimator", "variable", "bias", "empirical_se", "mean_se", "coverage", "deff",
-            "mean_n", "mean_cost"]
+            "mean_n"] + (["mean_cost"] if (summary["mean_cost"] != 0).any() else [])
     s = summary[cols].copy()
     return s.to_string(index=False, float_format=lambda v: f"{v:.4g}")

@@ -12,7 +12,7 @@ DEFAULT_OUT = "samplewright-demo"
 
 
 def add_arguments(p) -> None:
-    p.add_argument("--out", default=DEFAULT_OUT, help=f"results folder (default {DEFAULT_OUT})")
+    p.add_argument("--out", default=DEFAULT_OUT, help=f"results folder (default: {DEFAULT_OUT})")
     add_run_options(p)
 
 

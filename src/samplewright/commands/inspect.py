@@ -31,16 +31,17 @@ def add_arguments(p) -> None:
     from .common import whole_number
 
     p.add_argument("frame", help="frame file (.csv or .parquet)")
-    p.add_argument("--target", required=True, help="study-variable column")
+    p.add_argument("--target", required=True, help="study-variable column (required)")
     p.add_argument("--order", help="column giving the list order (default: the file order)")
-    p.add_argument("--stratum", help="stratum column")
-    p.add_argument("--cluster", help="cluster column")
-    p.add_argument("--json", action="store_true", help="print one JSON object instead of the text report")
+    p.add_argument("--stratum", help="stratum column (default: none, one stratum)")
+    p.add_argument("--cluster", help="cluster column (default: none, no clusters)")
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of the text report (default: off)")
     p.add_argument("--false-alarm", type=_rate, default=None,
-                   help="chance of reporting a period on a list with no cycle (default 0.01)")
+                   help="chance of reporting a period on a list with no cycle (default: 0.01)")
     p.add_argument("--max-interval", type=whole_number(2), default=None,
-                   help="largest interval k checked for safety (default N / 2, at most 5000)")
-    p.add_argument("--debug", action="store_true", help="show a traceback on unexpected failures")
+                   help="largest interval k checked for safety (default: N / 2, at most 5000)")
+    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a "
+                        "one-line message (default: off)")
 
 
 def frame_report(path, target: str, order=None, stratum=None, cluster=None, false_alarm=None,

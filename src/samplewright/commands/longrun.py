@@ -15,21 +15,23 @@ def add_scale_options(p) -> None:
     p.add_argument("--until", metavar="NAME=VALUE[,...]",
                    help="add blocks of replicates until every design meets these Monte Carlo errors: "
                         "coverage_mcse, bias_mcse, empirical_se_rel_mcse (e.g. coverage_mcse=0.002); "
-                        "--replicates is then the minimum")
+                        "--replicates is then the minimum (default: none, run exactly --replicates)")
     p.add_argument("--max-replicates", type=whole_number(2),
-                   help="replicate cap per design and size for --until (default 100 x --replicates, "
+                   help="replicate cap per design and size for --until (default: 100 x --replicates, "
                         "at least 100000)")
     p.add_argument("--backend", choices=("local", "dask"), default="local",
-                   help="where blocks run: local processes (--jobs) or a dask cluster (--scheduler)")
+                   help="where blocks run: local processes (--jobs) or a dask cluster (--scheduler) "
+                        "(default: local)")
     p.add_argument("--scheduler", metavar="ADDRESS",
-                   help="address of a running dask.distributed scheduler, e.g. tcp://scheduler-host:8786")
+                   help="address of a running dask.distributed scheduler, e.g. tcp://scheduler-host:8786; "
+                        "required with --backend dask (default: none)")
 
 
 def add_resume_option(p) -> None:
     """--resume DIR (``run`` only)."""
     p.add_argument("--resume", metavar="DIR",
                    help="continue the interrupted run whose results folder is DIR (its blocks/ are kept; "
-                        "only missing blocks are drawn)")
+                        "only missing blocks are drawn; default: none, a new run)")
 
 
 def run_kwargs(args) -> dict:

@@ -27,34 +27,36 @@ STRATA_COLUMNS = ("stratum", "units", "sd", "cost")
 
 def add_arguments(p) -> None:
     g = p.add_argument_group("a mean or a proportion")
-    g.add_argument("--sd", type=float, help="population standard deviation S of the variable (a mean)")
-    g.add_argument("--proportion", type=float, help="expected proportion P, in (0, 1) (0.5 is the safe guess)")
+    g.add_argument("--sd", type=float, help="population standard deviation S of the variable (a mean; default: none)")
+    g.add_argument("--proportion", type=float, help="expected proportion P, in (0, 1) (0.5 is the safe guess; default: none)")
     g.add_argument("--moe", type=float, help="margin of error E (half-width of the interval); with strata, "
-                                             "the target for the stratified mean")
-    g.add_argument("--population", type=int, help="population size N (applies the finite population correction)")
-    g.add_argument("--confidence", type=float, default=0.95, help="confidence level (default 0.95)")
-    g.add_argument("--deff", type=float, default=1.0, help="design effect to inflate by (default 1)")
+                                             "the target for the stratified mean (default: none)")
+    g.add_argument("--population", type=int, help="population size N (applies the finite population correction; "
+                   "default: none, no correction)")
+    g.add_argument("--confidence", type=float, default=0.95, help="confidence level (default: 0.95)")
+    g.add_argument("--deff", type=float, default=1.0, help="design effect to inflate by (default: 1.0)")
     g.add_argument("--response-rate", type=float, default=1.0,
-                   help="expected share of units that respond, in (0, 1] (default 1)")
+                   help="expected share of units that respond, in (0, 1] (default: 1.0)")
     s = p.add_argument_group("stratified allocation")
     s.add_argument("--strata", metavar="FILE.csv", help="strata table with columns units, sd and optionally "
-                                                        "cost and stratum (a label)")
-    s.add_argument("--stratum-units", metavar="N1,N2,...", help="stratum sizes N_h, comma-separated")
-    s.add_argument("--stratum-sd", metavar="S1,S2,...", help="stratum standard deviations S_h")
-    s.add_argument("--stratum-cost", metavar="C1,C2,...", help="cost per unit c_h in each stratum (default 1)")
+                                                        "cost and stratum (a label) (default: none)")
+    s.add_argument("--stratum-units", metavar="N1,N2,...", help="stratum sizes N_h, comma-separated (default: none)")
+    s.add_argument("--stratum-sd", metavar="S1,S2,...", help="stratum standard deviations S_h (default: none)")
+    s.add_argument("--stratum-cost", metavar="C1,C2,...", help="cost per unit c_h in each stratum (default: 1 each)")
     s.add_argument("--allocation", default="neyman",
-                   help="equal, proportional, neyman or optimal (cost-weighted); default neyman")
-    s.add_argument("--n", type=int, help="total sample size to allocate")
+                   help="equal, proportional, neyman or optimal (cost-weighted) (default: neyman)")
+    s.add_argument("--n", type=int, help="total sample size to allocate (default: none, from --moe or --budget)")
     s.add_argument("--budget", type=float, help="total budget (stratified: c0 + sum c_h n_h; cluster: "
-                                                "c0 + clusters x (c1 + c2 m))")
+                                                "c0 + clusters x (c1 + c2 m)) (default: none)")
     s.add_argument("--fixed-cost", type=float, help="c0, the part of the budget that does not depend on n "
-                                                    "(default 0)")
+                                                    "(default: 0)")
     c = p.add_argument_group("units per cluster (two-stage)")
-    c.add_argument("--icc", type=float, help="intra-cluster correlation rho, in (0, 1)")
-    c.add_argument("--cluster-cost", type=float, help="cost of taking one more cluster (c1)")
-    c.add_argument("--unit-cost", type=float, help="cost of one more unit inside a cluster (c2)")
-    p.add_argument("--json", action="store_true", help="print one JSON object with every intermediate")
-    p.add_argument("--debug", action="store_true", help="show a traceback on unexpected failures")
+    c.add_argument("--icc", type=float, help="intra-cluster correlation rho, in (0, 1) (default: none)")
+    c.add_argument("--cluster-cost", type=float, help="cost of taking one more cluster (c1) (default: none)")
+    c.add_argument("--unit-cost", type=float, help="cost of one more unit inside a cluster (c2) (default: none)")
+    p.add_argument("--json", action="store_true", help="print one JSON object with every intermediate (default: off)")
+    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a one-line "
+                        "message (default: off)")
 
 
 def _floats(text: str, flag: str) -> list[float]:

@@ -9,12 +9,13 @@ HELP = "rehearse the designs of a scenario file and write summary, replicates, a
 
 
 def add_arguments(p) -> None:
-    p.add_argument("scenario", nargs="?", help="scenario file (TOML); with --resume, defaults to the saved one")
-    p.add_argument("--out", help="results folder (refused if it holds files, unless --force)")
+    p.add_argument("scenario", nargs="?", help="scenario file (TOML); required unless --resume, which defaults to the saved one")
+    p.add_argument("--out", help="results folder, required (refused if it holds files, unless --force; default with "
+                        "--resume: its DIR)")
     add_run_options(p)
     p.add_argument("--exact", action="store_true",
                    help="enumerate every possible sample (small frames: at most 2 million per design and size) "
-                        "and report exact design moments instead of simulating")
+                        "and report exact design moments instead of simulating (default: off, simulate)")
     from .longrun import add_resume_option
 
     add_resume_option(p)

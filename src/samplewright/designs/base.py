@@ -90,7 +90,7 @@ class Design:
         return None
 
     def notes(self, frame: Frame) -> list[str]:
-        """Plain sentences about how the design was set up (e.g. certainty units); run.json warnings."""
+        """Plain sentences about how the design was set up (e.g. certainty units); run.json notes."""
         return []
 
     # ------------------------------------------------------------ exact mode
