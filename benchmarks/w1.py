@@ -37,9 +37,9 @@ sys.path.insert(0, str(HERE))
 
 from w1_scenario import w1_doc  # noqa: E402
 
-from samplewright import Frame  # noqa: E402
-from samplewright.runner import run  # noqa: E402
-from samplewright.scenario import scenario_from_dict  # noqa: E402
+from samplewright import Frame
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 
 
 def timed(fn, repeat: int = 1):
@@ -157,8 +157,8 @@ def simple_frame(N: int, seed: int = 4) -> Frame:
 
 def stages(sc, frame, B: int = 500, k: int = 10) -> dict:
     """Milliseconds per block of each step of ``run_block``, per design (best of ``k``)."""
-    from samplewright.engine import make_cells
-    from samplewright.estimators import ESTIMATORS, sample_units
+    from samplewright.simulation.engine import make_cells
+    from samplewright.estimation.estimators import ESTIMATORS, sample_units
 
     cells = make_cells(sc.designs, sc.estimators)
     rng = np.random.default_rng(5)
@@ -194,8 +194,8 @@ def peak_memory(replicates: int) -> dict:
         "    except OSError: pass\n"
         "    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
         "from w1_scenario import w1_doc\n"
-        "from samplewright.scenario import scenario_from_dict\n"
-        "from samplewright.runner import run\n"
+        "from samplewright.config.scenario import scenario_from_dict\n"
+        "from samplewright.api import run\n"
         "sc = scenario_from_dict(w1_doc(%d)); f = sc.load_frame()\n"
         "base = hwm()\n"
         "res = run(sc, frame=f)\n"

@@ -19,8 +19,8 @@ from conftest import Z, assert_coverage_is_nominal
 from samplewright import Frame
 from samplewright.designs import METHODS, SRS, Stratified
 from samplewright.errors import InputError
-from samplewright.estimators import ESTIMATORS
-from samplewright.scenario import scenario_from_dict
+from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.config.scenario import scenario_from_dict
 
 AUX = ("ratio", "greg", "poststrat")
 
@@ -274,7 +274,7 @@ def test_auxiliary_key_type_is_checked():
 
 
 def test_run_with_every_estimator_end_to_end():
-    from samplewright.runner import run
+    from samplewright.api import run
 
     sc = scenario_from_dict({
         "frame": {"synthetic": {"units": 400, "seed": 2, "size_correlation": 0.9}, "auxiliary": ["size"]},
@@ -303,8 +303,8 @@ def test_ratio_on_the_size_measure_equals_ht_under_pips(method, structured):
 def test_expense_audit_scenario_runs():
     from pathlib import Path
 
-    from samplewright.runner import run
-    from samplewright.scenario import load_scenario
+    from samplewright.api import run
+    from samplewright.config.scenario import load_scenario
 
     sc = load_scenario(Path(__file__).parents[1] / "scenarios" / "expense_audit_pps.toml")
     res = run(sc, replicates=40, seed=3)

@@ -10,9 +10,9 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from samplewright.cli import main
-from samplewright.evaluate import SUMMARY_COLUMNS
-from samplewright.result import ALLOCATION_COLUMNS
+from samplewright.cli.main import main
+from samplewright.evaluation.measures import SUMMARY_COLUMNS
+from samplewright.results.result import ALLOCATION_COLUMNS
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))

@@ -22,13 +22,13 @@ from conftest import Z, assert_coverage_is_nominal
 from scipy import stats
 
 from samplewright import Frame
-from samplewright.block import SampleBlock
-from samplewright.cost import CostModel
+from samplewright.designs.block import SampleBlock
+from samplewright.estimation.cost import CostModel
 from samplewright.designs import SRS
-from samplewright.engine import Cell, replicate_table, simulate
+from samplewright.simulation.engine import Cell, replicate_table, simulate
 from samplewright.errors import InputError
-from samplewright.estimators import ESTIMATORS
-from samplewright.scenario import scenario_from_dict
+from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.config.scenario import scenario_from_dict
 
 # ten units, two domains (invented values for exercising code)
 TINY = pd.DataFrame({
@@ -173,7 +173,7 @@ def _domain_scenario(extra=None, replicates=None):
 
 @pytest.mark.slow
 def test_domain_rows_in_summary_unbiased_and_covering():
-    from samplewright.runner import run
+    from samplewright.api import run
 
     sc = _domain_scenario()
     frame = sc.load_frame()
@@ -231,7 +231,7 @@ def test_exact_mode_domain_and_calibration_moments():
     # unbiased with an unbiased variance estimator (Cochran 1977, Theorem 2.4 for y d), the
     # Hajek-type domain mean is unbiased when every sample meets the domain (sec. 2.13), and the
     # GREG estimate of an auxiliary's mean has no variance at all (calibration; SSW 1992, sec. 6.5)
-    from samplewright.runner import run
+    from samplewright.api import run
 
     rng = np.random.default_rng(12)
     x = np.round(rng.gamma(3.0, 4.0, 16), 1)
@@ -255,7 +255,7 @@ def test_exact_mode_domain_and_calibration_moments():
 def test_replicates_without_domain_units_are_not_counted():
     # a rare domain (6 of 400 units) is missed by some samples of 20: P(n_d = 0) is the
     # hypergeometric pmf at 0; those replicates have no estimate and the row counts the others
-    from samplewright.runner import run
+    from samplewright.api import run
 
     zone = np.array(["rare"] * 6 + ["common"] * 394)
     df = pd.DataFrame({"y": np.arange(400.0) % 7, "zone": zone})

@@ -21,7 +21,7 @@ import pytest
 from scipy import stats
 
 from samplewright import Frame
-from samplewright.cli import main
+from samplewright.cli.main import main
 from samplewright.errors import InputError
 
 AS_ROOT = hasattr(os, "geteuid") and os.geteuid() == 0
@@ -698,7 +698,7 @@ def test_synth_refuses_existing_file(tmp_path, capsys):
 
 
 def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
-    from samplewright import outputs
+    from samplewright import files as outputs
 
     p = tmp_path / "s.toml"
     p.write_text("[frame.synthetic]\nunits = 50\n" + SRS)
@@ -712,7 +712,7 @@ def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
 
 # ------------------------------------------------------------------ nothing lost
 def test_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
-    from samplewright import outputs
+    from samplewright import files as outputs
 
     df = pd.DataFrame({"a": np.arange(1000)})
 
@@ -727,7 +727,7 @@ def test_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
 
 
 def test_interrupted_write_keeps_previous_file(tmp_path, monkeypatch):
-    from samplewright import outputs
+    from samplewright import files as outputs
 
     (tmp_path / "summary.csv").write_text("old complete file\n")
 
@@ -835,9 +835,9 @@ def test_cochran_skewness_rule():
     # Cochran (1977), Sampling Techniques, sec. 2.15: the normal approximation for the mean
     # needs n > 25 G1^2, G1 the population skewness (Fisher's coefficient; scipy.stats.skew
     # with bias=False is the reference computation).
-    from samplewright.checks import design_warnings
+    from samplewright.diagnostics.checks import design_warnings
     from samplewright.designs import SRS as SRSDesign
-    from samplewright.engine import make_cells
+    from samplewright.simulation.engine import make_cells
 
     y = np.concatenate([np.ones(180), np.full(20, 30.0)])
     f = Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")
@@ -854,7 +854,7 @@ def test_cochran_skewness_rule():
 
 @pytest.mark.slow
 def test_duplicate_warnings_printed_once(tmp_path, capsys, monkeypatch):
-    from samplewright import runner
+    from samplewright import api as runner
 
     monkeypatch.setattr(runner, "frame_warnings", lambda frame: ["the same thing"])
     monkeypatch.setattr(runner, "design_warnings", lambda frame, cells, R: ["the same thing", "another"])
@@ -874,7 +874,7 @@ def test_warnings_go_to_stderr_not_errors(tmp_path, capsys):
 
 def test_error_messages_one_line_for_api_users():
     # the Python API raises the same InputError the CLI prints
-    from samplewright.scenario import scenario_from_dict
+    from samplewright.config.scenario import scenario_from_dict
 
     with pytest.raises(InputError, match="unknown key 'replicats'"):
         scenario_from_dict({"replicats": 3, "frame": {"synthetic": {"units": 30}},

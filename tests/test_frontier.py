@@ -18,11 +18,11 @@ from conftest import Z
 from scipy import stats
 from scipy.optimize import brentq
 
-from samplewright import planning
-from samplewright.frontier import FRONTIER_COLUMNS, fit_curve, pareto, size_for_moe
-from samplewright.recommend import COVERAGE_Z, Goal, coverage_acceptable, recommend
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
+from samplewright.decision import planning
+from samplewright.decision.frontier import FRONTIER_COLUMNS, fit_curve, pareto, size_for_moe
+from samplewright.decision.recommend import COVERAGE_Z, Goal, coverage_acceptable, recommend
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 
 Z95 = float(stats.norm.ppf(0.975))
 
@@ -204,7 +204,7 @@ def test_district_scenario_pick_checks_by_hand_from_summary(tmp_path, capsys):
     import tomllib
     from pathlib import Path
 
-    from samplewright.cli import main
+    from samplewright.cli.main import main
 
     root = Path(__file__).resolve().parents[1]
     scen = root / "scenarios" / "district_energy.toml"

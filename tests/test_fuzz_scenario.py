@@ -26,11 +26,11 @@ import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from samplewright.cli import main
+from samplewright.cli.main import main
 from samplewright.designs import METHODS
-from samplewright.scenario import COST_KEYS, DESIGN_COMMON, FRAME_KEYS, TOP_KEYS
-from samplewright.synth import CLUSTER_KEYS, STRATUM_KEYS
-from samplewright.synth import KEYS as SYNTH_KEYS
+from samplewright.config.scenario import COST_KEYS, DESIGN_COMMON, FRAME_KEYS, TOP_KEYS
+from samplewright.population.synth import CLUSTER_KEYS, STRATUM_KEYS
+from samplewright.population.synth import KEYS as SYNTH_KEYS
 
 FUZZ = settings(max_examples=60, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])

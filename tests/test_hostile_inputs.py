@@ -75,7 +75,7 @@ def test_cluster_sizes_end_for_any_mean_size(tmp_path):
     # the Python API skips the scenario's mean_size >= 1 check: fewer than one unit per cluster
     # must still give clusters of at least one unit that sum to the stratum, and end (in a
     # subprocess under a timeout, so a hang fails the test)
-    code = ("from samplewright.synth import SyntheticSpec, generate\n"
+    code = ("from samplewright.population.synth import SyntheticSpec, generate\n"
             "df = generate(SyntheticSpec(units=7, clusters={'mean_size': 0.25, 'size_cv': 0.5}))\n"
             "print(len(df), df.groupby('cluster').size().min())\n")
     env = {**os.environ, "PYTHONPATH": SRC}
@@ -155,7 +155,7 @@ def test_absurd_replicates_refused_before_any_folder_or_manifest(tmp_path, args)
 
 
 def test_pps_with_replacement_far_beyond_memory_is_refused_with_the_estimate(tmp_path):
-    from samplewright.limits import physical_memory
+    from samplewright.simulation.limits import physical_memory
 
     if physical_memory() > 200 << 30:  # 500 x 10^7 selections x 48 bytes = 223.5 GiB
         pytest.skip("this machine could hold the blocks")
@@ -172,9 +172,9 @@ def test_memory_bound_is_the_documented_formula():
     # the table needs 160 bytes a row and 2048 a block
     from samplewright import Frame
     from samplewright.designs import METHODS
-    from samplewright.engine import make_cells
+    from samplewright.simulation.engine import make_cells
     from samplewright.errors import InputError
-    from samplewright.limits import check_run_memory
+    from samplewright.simulation.limits import check_run_memory
 
     frame = Frame.from_dataframe(pd.DataFrame({"y": np.arange(1.0, 101.0), "x": np.arange(1.0, 101.0)}),
                                  target="y", size="x")

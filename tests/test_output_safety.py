@@ -17,10 +17,10 @@ import pandas as pd
 import pytest
 from conftest import Z
 
-from samplewright.cli import main
-from samplewright.frontier import fit_curve
-from samplewright.outputs import protect_cell, restore_cell, write_csv, write_json, write_parquet, write_text
-from samplewright.scenario import scenario_from_dict
+from samplewright.cli.main import main
+from samplewright.decision.frontier import fit_curve
+from samplewright.files import protect_cell, restore_cell, write_csv, write_json, write_parquet, write_text
+from samplewright.config.scenario import scenario_from_dict
 
 SRC = str(Path(__file__).resolve().parents[1] / "src")
 
@@ -97,7 +97,7 @@ def test_census_point_in_a_sweep_with_a_goal_runs_and_is_recommended(tmp_path, c
 
 # ------------------------------------------------------------------ late failures keep the tables (item 9)
 def test_a_failing_frontier_keeps_the_tables_and_the_report_can_be_rebuilt(tmp_path, capsys, monkeypatch):
-    from samplewright import frontier
+    from samplewright.decision import frontier
 
     def broken(*a, **k):
         raise RuntimeError("fit exploded")
@@ -274,7 +274,7 @@ def test_report_on_a_damaged_folder_is_one_error_line_naming_the_file(tmp_path, 
 
 # ------------------------------------------------------------------ Ctrl-C at start-up (item 11)
 def test_ctrl_c_while_parsing_is_one_line_and_130(capsys, monkeypatch):
-    import samplewright.cli as cli_module
+    import samplewright.cli.main as cli_module
 
     def interrupted():
         raise KeyboardInterrupt

@@ -6,8 +6,8 @@ import io
 
 import pytest
 
-from samplewright import cli
-from samplewright.progress import Progress, clock
+from samplewright.cli import main as cli
+from samplewright.simulation.progress import Progress, clock
 
 
 class _Tty(io.StringIO):

@@ -34,10 +34,10 @@ from hypothesis import strategies as st
 from test_fuzz_scenario import to_toml
 
 from samplewright import Frame
-from samplewright.allocation import RULES
+from samplewright.designs.allocation import RULES
 from samplewright.designs import METHODS
 from samplewright.errors import InputError
-from samplewright.estimators import sample_units
+from samplewright.estimation.estimators import sample_units
 
 PROPS = settings(max_examples=60, deadline=None, derandomize=True, database=None,
                  suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
@@ -294,8 +294,8 @@ def units_past_the_frame(doc: dict) -> bool:
 @PROPS
 @given(doc=scenarios())
 def check_scenario_runs_or_is_refused(outcomes, doc):
-    from samplewright.runner import run
-    from samplewright.scenario import scenario_from_dict
+    from samplewright.api import run
+    from samplewright.config.scenario import scenario_from_dict
 
     try:
         sc = scenario_from_dict(doc)
@@ -322,7 +322,7 @@ def check_scenario_runs_or_is_refused(outcomes, doc):
 @given(doc=scenarios())
 def test_valid_scenarios_through_the_cli(doc):
     # the same scenarios written as TOML and run by the command line: exit 0 or a clean 2
-    from samplewright.cli import main
+    from samplewright.cli.main import main
 
     with tempfile.TemporaryDirectory() as tmp:
         p = Path(tmp) / "scenario.toml"

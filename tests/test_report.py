@@ -20,7 +20,7 @@ import pandas as pd
 import pytest
 
 import samplewright
-from samplewright import cli
+from samplewright.cli import main as cli
 from samplewright.report import figures as F
 from samplewright.report.findings import coverage_verdict, with_mcse
 
@@ -223,11 +223,11 @@ def test_report_command_rebuilds_without_simulating(run_dir, tmp_path, monkeypat
     def no_simulation(*_a, **_k):
         raise AssertionError("report must not simulate")
 
-    import samplewright.engine
-    import samplewright.runner
+    import samplewright.simulation.engine
+    import samplewright.api
 
-    monkeypatch.setattr(samplewright.runner, "run", no_simulation)
-    monkeypatch.setattr(samplewright.engine, "simulate", no_simulation)
+    monkeypatch.setattr(samplewright.api, "run", no_simulation)
+    monkeypatch.setattr(samplewright.simulation.engine, "simulate", no_simulation)
     for p in (out / "figures").glob("*.png"):
         p.unlink()
     (out / "report.html").unlink()

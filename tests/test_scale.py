@@ -16,13 +16,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright import engine
-from samplewright.checkpoint import BlockStore
-from samplewright.cli import main
+from samplewright.simulation import engine
+from samplewright.simulation.checkpoint import BlockStore
+from samplewright.cli.main import main
 from samplewright.errors import InputError
-from samplewright.runner import run
-from samplewright.scenario import load_scenario, scenario_from_dict
-from samplewright.stopping import parse_until
+from samplewright.api import run
+from samplewright.config.scenario import load_scenario, scenario_from_dict
+from samplewright.evaluation.stopping import parse_until
 
 SCENARIO = """
 title = "Toll gate hourly counts (invented, for exercising code)"

@@ -28,8 +28,9 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from samplewright import Frame, cli
-from samplewright.progress import HALF_LIFE, Progress
+from samplewright import Frame
+from samplewright.cli import main as cli
+from samplewright.simulation.progress import HALF_LIFE, Progress
 
 SRC = str(Path(__file__).resolve().parents[1] / "src")
 
@@ -234,13 +235,13 @@ def test_with_a_cost_model_the_cost_column_is_printed(tmp_path):
 # ------------------------------------------------------------------ the skewness rule
 def _srs_cells(n):
     from samplewright.designs import SRS as SRSDesign
-    from samplewright.engine import make_cells
+    from samplewright.simulation.engine import make_cells
 
     return make_cells([SRSDesign("simple", n=n)], [("ht",)])
 
 
 def test_skewness_rule_never_asks_for_more_units_than_the_frame_holds():
-    from samplewright.checks import design_warnings
+    from samplewright.diagnostics.checks import design_warnings
 
     y = np.concatenate([np.ones(39), [200.0]])  # one huge unit among 40
     f = Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")
@@ -257,7 +258,7 @@ def test_skewness_rule_never_asks_for_more_units_than_the_frame_holds():
 
 def test_skewness_rule_on_a_constant_target_raises_no_numpy_warning():
     # pytest turns warnings into errors here: scipy's precision-loss warning would fail the test
-    from samplewright.checks import design_warnings
+    from samplewright.diagnostics.checks import design_warnings
 
     f = Frame.from_dataframe(pd.DataFrame({"y": np.full(50, 7.0)}), target="y")
     said = design_warnings(f, _srs_cells(5), 1000)

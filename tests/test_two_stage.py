@@ -23,8 +23,8 @@ from scipy import stats
 
 from samplewright import Frame, InputError
 from samplewright.designs import METHODS, Cluster, StratifiedCluster
-from samplewright.estimators import ESTIMATORS
-from samplewright.exact import enumerate_design
+from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.evaluation.exact import enumerate_design
 
 
 def unequal_frame():
@@ -153,9 +153,9 @@ def test_take_all_clusters_keep_their_second_stage_variance():
 
 def test_stratified_take_all_stratum_exact_mode():
     """Zone a fully taken (3 of 3 plots), zone b 2 of 3, 2 units per plot; summary from run --exact's engine."""
-    from samplewright.cost import CostModel
-    from samplewright.engine import make_cells
-    from samplewright.exact import evaluate_exact
+    from samplewright.estimation.cost import CostModel
+    from samplewright.simulation.engine import make_cells
+    from samplewright.evaluation.exact import evaluate_exact
 
     frame, df = unequal_frame()
     d = StratifiedCluster("zones", clusters=5, cluster_allocation="equal", units_per_cluster=2)
@@ -225,7 +225,7 @@ def test_variance_option_is_checked():
 
 def test_stratified_cluster_size_is_said_in_clusters_with_expected_units():
     """The size of a cluster design counts clusters; the expected units sum the pi_k (SSW 1992, sec. 2.6)."""
-    from samplewright.recommend import _describe
+    from samplewright.decision.recommend import _describe
     from samplewright.report.figures import cell_label
 
     frame, _ = unequal_frame()
@@ -258,7 +258,7 @@ def test_a_replicate_constant_spread_by_slot_shares_adds_no_variance():
     """Non-response adjustments spread a replicate constant over the positions; with two stages and
     unequal takes (capped clusters) it must add nothing to the two-stage v (both of its terms are
     sums of squared deviations, Cochran 1977, Thm 11.2)."""
-    from samplewright.two_stage_variance import slot_shares, two_stage_variance
+    from samplewright.estimation.two_stage_variance import slot_shares, two_stage_variance
 
     frame, _ = unequal_frame()
     d = Cluster("capped", clusters=3, units_per_cluster=4, cap_units=True)

@@ -17,7 +17,7 @@ import math
 import numpy as np
 import pandas as pd
 
-from samplewright.cli import main
+from samplewright.cli.main import main
 
 SCENARIO = """
 [frame]

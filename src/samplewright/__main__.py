@@ -3,9 +3,9 @@
 import sys
 
 try:
-    from .cli import main
+    from samplewright.cli.main import main
 except KeyboardInterrupt:  # before main() can catch it: the imports of start-up
-    from .errors import INTERRUPTED
+    from samplewright.errors import INTERRUPTED
 
     print(INTERRUPTED, file=sys.stderr)
     raise SystemExit(130) from None

@@ -4,14 +4,14 @@ from __future__ import annotations
 
 import math
 
-from .base import Design
-from .cluster import Cluster
-from .poisson import Bernoulli, Poisson
-from .pps import Pareto, PPSSystematic, PPSWithReplacement, Sampford
-from .srs import SRS
-from .strat_cluster import StratifiedCluster
-from .stratified import Stratified
-from .systematic import Systematic
+from samplewright.designs.base import Design
+from samplewright.designs.cluster import Cluster
+from samplewright.designs.poisson import Bernoulli, Poisson
+from samplewright.designs.pps import Pareto, PPSSystematic, PPSWithReplacement, Sampford
+from samplewright.designs.srs import SRS
+from samplewright.designs.strat_cluster import StratifiedCluster
+from samplewright.designs.stratified import Stratified
+from samplewright.designs.systematic import Systematic
 
 #: method name (as written in a scenario) -> design class
 METHODS: dict[str, type[Design]] = {cls.method: cls for cls in (SRS, Stratified, Systematic, Cluster)}

@@ -4,12 +4,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..block import SampleBlock
-from ..cost import cluster_costs
-from ..draws import distinct_positions
-from ..errors import InputError
-from ..two_stage_variance import one_unit_note, within_factor
-from .base import Design
+from samplewright.designs.block import SampleBlock
+from samplewright.designs.draws import distinct_positions
+from samplewright.errors import InputError
+from samplewright.estimation.two_stage_variance import one_unit_note, within_factor
+from samplewright.designs.base import Design
 
 
 class Cluster(Design):
@@ -19,7 +18,7 @@ class Cluster(Design):
     ``cap_units = true`` (otherwise the design is refused).  Variance (``variance =``): with
     one stage the between-cluster estimator with the first-stage finite population
     correction (exact; Cochran 1977, ch. 9); with two, ``two_stage`` (default, unbiased) or
-    ``ultimate_cluster`` (see :mod:`samplewright.two_stage_variance`, also for the take-all
+    ``ultimate_cluster`` (see :mod:`samplewright.estimation.two_stage_variance`, also for the take-all
     rule when clusters = every cluster).
     """
 
@@ -64,7 +63,7 @@ class Cluster(Design):
         B = chosen.shape[0]
         fpc = np.array([1.0 - m / C])
         common = {"fpc": fpc, "clusters": np.full(B, m, dtype=float), "strata": 0, "variance": self.variance_name,
-                  "cluster_cost": cluster_costs(frame, chosen)}
+                  "cluster_cost": _cluster_costs(frame, chosen)}
         if units is None:
             kept = None
             if keep_units:
@@ -101,7 +100,7 @@ class Cluster(Design):
 
 def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs, variance, keep_units,
                        **fields) -> SampleBlock:
-    """A two-stage block laid out unit by unit (see :mod:`samplewright.two_stage_variance`).
+    """A two-stage block laid out unit by unit (see :mod:`samplewright.estimation.two_stage_variance`).
 
     ``units`` (B, S, k) are the second-stage units of S cluster slots (``valid`` marks the
     real ones), ``sizes`` (B, S) the cluster sizes, ``w1`` (S,) or (B, S) the first-stage
@@ -124,3 +123,10 @@ def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs
         within_fpc=within_factor(variance, 1.0 / w1, take, sizes, srs),
         **fields,
     )
+
+
+def _cluster_costs(frame, chosen: np.ndarray) -> np.ndarray | None:
+    """Summed cluster_cost of the chosen clusters, (B, m) codes -> (B,); None without that column."""
+    if getattr(frame, "cluster_cost", None) is None:
+        return None
+    return frame.cluster_cost[chosen].sum(axis=1)

@@ -32,15 +32,15 @@ import math
 
 import numpy as np
 
-from ..allocation import real_allocation, round_allocation
-from ..block import SampleBlock
-from ..draws import distinct_positions
-from ..enumeration import combination_chunks, elementary_symmetric, product_chunks
-from ..errors import InputError
-from ..two_stage_variance import one_unit_note
-from .base import Design
-from .cluster import Cluster, second_stage_block
-from .pips import pips, sampford_draw, size_measure
+from samplewright.designs.allocation import real_allocation, round_allocation
+from samplewright.designs.block import SampleBlock
+from samplewright.designs.draws import distinct_positions
+from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
+from samplewright.errors import InputError
+from samplewright.estimation.two_stage_variance import one_unit_note
+from samplewright.designs.base import Design
+from samplewright.designs.cluster import Cluster, second_stage_block
+from samplewright.designs.pips import pips, sampford_draw, size_measure
 
 ALLOCATIONS = ("equal", "proportional", "units")
 SELECTIONS = ("srs", "pps")
@@ -79,7 +79,7 @@ class StratifiedCluster(Design):
 
     # ------------------------------------------------------------------ checks
     def check(self, frame):
-        from ..validate import closest
+        from samplewright.config.validate import closest
 
         self._need(frame, "cluster")
         if frame.roles.get("stratum") is None:

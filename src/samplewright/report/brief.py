@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from .templating import render
+from samplewright.report.templating import render
 
 MARKER = "samplewright"
 

@@ -35,7 +35,7 @@ from matplotlib.figure import Figure  # drawn and saved with the Agg renderer; p
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter
 
-from ..evaluate import holds
+from samplewright.evaluation.measures import holds
 
 #: Okabe-Ito colours in the order designs receive them (black is kept for "misses" and truth lines)
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#999999")
@@ -137,7 +137,7 @@ def _variable(summary: pd.DataFrame, variable):
 def cell_label(design: str, method: str, size, mean_n=None) -> str:
     """How a design at one size is named in figures: clusters are counted as clusters (with the
     expected units when ``mean_n`` is given; ``designs.size_words``)."""
-    from ..designs import size_words
+    from samplewright.designs import size_words
 
     return f"{design}, {size_words(method, size, mean_n, units='n = {}')}"
 
@@ -1081,9 +1081,9 @@ def figure_names(res) -> list[str]:
 
 
 def make_figure(res, name: str, variable=None) -> Figure:
-    """Draw figure ``name`` of a run (a :class:`~samplewright.result.RunResult`)."""
+    """Draw figure ``name`` of a run (a :class:`~samplewright.results.result.RunResult`)."""
     if name not in FIGURES:
-        from ..validate import closest
+        from samplewright.config.validate import closest
 
         raise KeyError(f"no figure named {name!r}{closest(name, list(FIGURES))}")
     spec = FIGURES[name]

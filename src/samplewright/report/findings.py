@@ -5,7 +5,7 @@ a budget or a margin-of-error goal is made by the planning step (recommendation.
 quoted here.
 
 A simulated coverage is called *below the promised level* by the same rule the recommendation
-uses to pass a design over (:func:`samplewright.recommend.coverage_acceptable`: more than
+uses to pass a design over (:func:`samplewright.decision.recommend.coverage_acceptable`: more than
 ``COVERAGE_Z`` = 3 Monte Carlo SEs below nominal, MCSE = sqrt(c (1 - c) / R), Morris, White &
 Crowther 2019, Table 6), and *above* it when more than as many SEs above.  An exact-mode run
 (``run --exact``, an ``exact`` column in the summary) has no Monte Carlo error: its coverage is
@@ -20,8 +20,8 @@ import math
 import numpy as np
 import pandas as pd
 
-from ..recommend import COVERAGE_Z, coverage_acceptable
-from .figures import cell_label, estimator_name
+from samplewright.decision.recommend import COVERAGE_Z, coverage_acceptable
+from samplewright.report.figures import cell_label, estimator_name
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import base64
 
-from .templating import render
+from samplewright.report.templating import render
 
 #: the marker by which a report.html written by samplewright is recognised (and may be rebuilt)
 MARKER = 'name="generator" content="samplewright'

@@ -8,9 +8,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
-from .findings import SHORT_ESTIMATOR, cost_text, findings, is_exact, measure_text, money, num, summary_rows
-from .figures import FIGURES, estimator_name, figure_names
+from samplewright import __version__
+from samplewright.report.findings import SHORT_ESTIMATOR, cost_text, findings, is_exact, measure_text, money, num, summary_rows
+from samplewright.report.figures import FIGURES, estimator_name, figure_names
 
 CAUTIONS = [
     "The rehearsal treats the frame as the population. Units missing from the frame, duplicates and "
@@ -252,7 +252,7 @@ def design_rows(res) -> list[dict]:
 
 def brief_rows(res, confidence: float) -> list[dict]:
     """One line per design x size for the brief: each design's first estimator."""
-    from .figures import primary_rows
+    from samplewright.report.figures import primary_rows
 
     rows = []
     show, cost = measure_text(is_exact(res.summary)), cost_text(res.summary)
