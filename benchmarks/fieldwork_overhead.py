@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 
 from samplewright import Frame
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 
 DESIGNS = [{"label": "srs", "method": "srs", "n": 1000},
            {"label": "strat", "method": "stratified", "n": 1000},

@@ -47,8 +47,8 @@ from cli_timing import run_cli, write_scenario
 from w1_scenario import w1_doc
 
 from samplewright import Frame
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 
 
 def timed(fn, repeat: int = 1):
@@ -128,8 +128,8 @@ def simple_frame(N: int, seed: int = 4) -> Frame:
 
 def stages(sc, frame, B: int = 500, k: int = 10) -> dict:
     """Milliseconds per block of each step of ``run_block``, per design (best of ``k``)."""
-    from samplewright.engine import make_cells
-    from samplewright.estimators import ESTIMATORS, sample_units
+    from samplewright.estimation.estimators import ESTIMATORS, sample_units
+    from samplewright.simulation.engine import make_cells
 
     cells = make_cells(sc.designs, sc.estimators)
     rng = np.random.default_rng(5)

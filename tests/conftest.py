@@ -14,6 +14,29 @@ from samplewright import Frame
 Z = 4.0
 
 
+#: replicates of the shared finished demo run (enough for every table and figure; kept small for time)
+DEMO_REPLICATES = 150
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory):
+    """One finished run of `python -m samplewright demo` (with its report), made once per session.
+
+    For end-to-end tests that only READ a finished run's outputs: they must not write into
+    ``demo_run.out`` (copy it first).  Returns the folder and the process's exit code and output.
+    """
+    import subprocess
+    import sys
+    from types import SimpleNamespace
+
+    out = tmp_path_factory.mktemp("finished") / "demo"
+    proc = subprocess.run([sys.executable, "-m", "samplewright", "demo", "--out", str(out),
+                           "--replicates", str(DEMO_REPLICATES)], capture_output=True, text=True, timeout=600,
+                          check=False)
+    return SimpleNamespace(out=out, returncode=proc.returncode, stdout=proc.stdout, stderr=proc.stderr,
+                           replicates=DEMO_REPLICATES)
+
+
 @pytest.fixture
 def small_frame():
     """Twelve units in three strata and six clusters of two (values invented for exercising code)."""
@@ -30,10 +53,27 @@ def mc_tolerance(sd: float, replicates: int, z: float = Z) -> float:
     return z * sd / np.sqrt(replicates)
 
 
+#: significance level of the exact binomial tests of coverage against the nominal level
+COVERAGE_ALPHA = 1e-3
+
+
+def assert_coverage_is_nominal(hits: int, replicates: int, nominal: float, what: str = "") -> None:
+    """Coverage (``hits`` intervals of ``replicates`` holding the truth) against the nominal level.
+
+    An exact two-sided binomial test (scipy.stats.binomtest) at COVERAGE_ALPHA: each replicate's
+    interval covers or not, independently, with the true coverage as success probability
+    (Morris, White & Crowther 2019, sec. 5, coverage as a binomial proportion).
+    """
+    from scipy import stats
+
+    p = stats.binomtest(int(hits), int(replicates), nominal).pvalue
+    assert p > COVERAGE_ALPHA, (what, hits, replicates, nominal, p)
+
+
 def simulate_design(frame, design, estimator="ht", replicates=20_000, seed=7, confidence=0.95):
     """Replicate table of one design at one size (blocks of 1000), for checks against exact values."""
-    from samplewright.cost import CostModel
-    from samplewright.engine import Cell, replicate_table, simulate
+    from samplewright.estimation.cost import CostModel
+    from samplewright.simulation.engine import Cell, replicate_table, simulate
 
     cells = [Cell(design=design, design_index=0, size_index=0, estimators=(estimator,))]
     res = simulate(frame, cells, replicates, seed, 1000, confidence, CostModel())

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from samplewright.allocation import allocate, shares
+from samplewright.designs.allocation import allocate, shares
 from samplewright.errors import InputError
 
 

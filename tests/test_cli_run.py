@@ -3,17 +3,16 @@
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
+import shutil
 from pathlib import Path
 
 import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from samplewright.cli import main
-from samplewright.evaluate import SUMMARY_COLUMNS
-from samplewright.result import ALLOCATION_COLUMNS
+from samplewright.cli.main import main
+from samplewright.evaluation.measures import SUMMARY_COLUMNS
+from samplewright.results.result import ALLOCATION_COLUMNS
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))
@@ -36,6 +35,7 @@ def check_contract(out: Path, replicates: int):
     return summary
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("scenario", SCENARIOS, ids=[s.stem for s in SCENARIOS])
 def test_run_every_scenario(scenario, tmp_path, capsys):
     out = tmp_path / "res"
@@ -46,27 +46,31 @@ def test_run_every_scenario(scenario, tmp_path, capsys):
     assert summary["coverage"].between(0, 1).all()
 
 
-def test_demo_writes_contract_files(tmp_path):
-    out = tmp_path / "demo"
-    proc = subprocess.run([sys.executable, "-m", "samplewright", "demo", "--out", str(out), "--replicates", "150"],
-                          capture_output=True, text=True, timeout=300)
-    assert proc.returncode == 0, proc.stderr
-    summary = check_contract(out, 150)
+@pytest.mark.slow
+def test_demo_writes_contract_files(demo_run):
+    # the shared finished run (conftest.demo_run): `python -m samplewright demo` in a subprocess
+    assert demo_run.returncode == 0, demo_run.stderr
+    summary = check_contract(demo_run.out, demo_run.replicates)
     assert set(summary["method"]) >= {"srs", "stratified", "systematic", "cluster"}
-    assert "Traceback" not in proc.stderr
+    assert "Traceback" not in demo_run.stderr
 
 
-def test_run_refuses_to_overwrite_without_force(tmp_path, capsys):
-    out = tmp_path / "res"
-    args = ["run", str(SCENARIOS[0]), "--out", str(out), "--replicates", "50", "--quiet"]
-    assert main(args) == 0
-    capsys.readouterr()
-    before = (out / "summary.csv").read_bytes()
-    assert main(args) == 2
+@pytest.mark.slow
+def test_run_refuses_to_overwrite_without_force(demo_run, tmp_path, capsys):
+    # a finished run's folder is refused without --force and left as it was; a copy of it is
+    # overwritten with --force (the shared run itself is only read)
+    def digest(folder):
+        return {f.relative_to(folder): f.read_bytes() for f in sorted(folder.rglob("*")) if f.is_file()}
+
+    before = digest(demo_run.out)
+    assert main(["demo", "--out", str(demo_run.out), "--replicates", "50", "--quiet"]) == 2
     err = capsys.readouterr().err
-    assert err.startswith("error:") and str(out) in err and "--force" in err
-    assert (out / "summary.csv").read_bytes() == before
-    assert main(args + ["--force"]) == 0
+    assert err.startswith("error:") and str(demo_run.out) in err and "--force" in err
+    assert digest(demo_run.out) == before
+    copy = tmp_path / "res"
+    shutil.copytree(demo_run.out, copy)
+    assert main(["demo", "--out", str(copy), "--replicates", "50", "--quiet", "--no-report", "--force"]) == 0
+    assert json.loads((copy / "run.json").read_text())["replicates"] == 50
 
 
 def test_synth_writes_the_frame(tmp_path, capsys):

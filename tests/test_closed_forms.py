@@ -23,11 +23,11 @@ import pandas as pd
 import pytest
 
 from samplewright import Frame
-from samplewright.allocation import allocate
-from samplewright.cost import CostModel
+from samplewright.designs.allocation import allocate
+from samplewright.estimation.cost import CostModel
 from samplewright.designs import SRS, Cluster, Stratified
-from samplewright.engine import Cell, replicate_table, simulate
-from samplewright.synth import SyntheticSpec, generate
+from samplewright.simulation.engine import Cell, replicate_table, simulate
+from samplewright.population.synth import SyntheticSpec, generate
 from conftest import Z
 
 R = 8000

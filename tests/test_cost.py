@@ -16,12 +16,12 @@ from scipy import stats
 
 from conftest import Z, mc_tolerance
 from samplewright import Frame
-from samplewright.allocation import allocate
-from samplewright.cost import CostModel
+from samplewright.designs.allocation import allocate
+from samplewright.estimation.cost import CostModel
 from samplewright.designs import SRS, Cluster, Stratified
 from samplewright.errors import InputError
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 
 
 def _frame(cluster_cost=True, unit_cost=False):

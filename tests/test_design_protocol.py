@@ -17,7 +17,7 @@ import pytest
 from conftest import Z
 
 from samplewright import Frame
-from samplewright.allocation import RULES
+from samplewright.designs.allocation import RULES
 from samplewright.designs import METHODS
 
 R = 6000

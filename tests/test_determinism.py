@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pandas as pd
 
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 
 DOC = {
     "seed": 99,

@@ -21,7 +21,7 @@ import pytest
 from scipy import stats
 
 from samplewright import Frame
-from samplewright.cli import main
+from samplewright.cli.main import main
 from samplewright.errors import InputError
 
 AS_ROOT = hasattr(os, "geteuid") and os.geteuid() == 0
@@ -350,6 +350,7 @@ def test_target_infinite_refused(tmp_path, capsys):
     run_refused(tmp_path, capsys, "'amount'", "1 missing or non-finite", "row(s) 6", df=df)
 
 
+@pytest.mark.slow
 def test_missing_drop_drops_and_reports(tmp_path, capsys):
     df = claims_frame().astype({"amount": object})
     df.loc[[0, 5], "amount"] = [np.nan, "pending"]
@@ -439,6 +440,7 @@ def test_n_above_population_without_replacement(tmp_path, capsys):
                 design=SRS.replace("n = 6", "n = 30"))
 
 
+@pytest.mark.slow
 def test_n_above_population_with_replacement_runs(tmp_path, capsys):
     info, _ = run_ok(tmp_path, capsys, design=SRS.replace("n = 6", "n = 30\nreplace = true"))
     assert info["frame"]["units"] == 24
@@ -504,6 +506,7 @@ def test_units_per_cluster_larger_than_cluster_refused(tmp_path, capsys):
                 design=design)
 
 
+@pytest.mark.slow
 def test_units_per_cluster_capped_runs(tmp_path, capsys):
     design = ('[[design]]\nlabel = "batches"\nmethod = "cluster"\nclusters = 2\nunits_per_cluster = 5\n'
               "cap_units = true\n")
@@ -511,6 +514,7 @@ def test_units_per_cluster_capped_runs(tmp_path, capsys):
     assert info["designs"][0]["label"] == "batches"
 
 
+@pytest.mark.slow
 def test_huge_units_per_cluster_capped_runs(tmp_path, capsys):
     # a cap far above every cluster must not allocate arrays of that size
     design = ('[[design]]\nlabel = "batches"\nmethod = "cluster"\nclusters = 2\n'
@@ -572,6 +576,7 @@ def test_size_rows_after_dropped_rows(tmp_path, capsys, method):
                 df=df, design=design, frame_extra='size = "pages"\nmissing = "drop"')
 
 
+@pytest.mark.slow
 def test_size_design_positive_size_runs(tmp_path, capsys):
     design = sized_design(SIZE_METHODS[0])
     run_ok(tmp_path, capsys, design=design, frame_extra='size = "pages"')
@@ -616,6 +621,7 @@ def test_block_size_zero(tmp_path, capsys):
 
 
 # ------------------------------------------------------------------ output folder
+@pytest.mark.slow
 def test_output_not_empty_refused_and_unchanged(tmp_path, capsys):
     sc = setup(tmp_path)
     out = tmp_path / "out"
@@ -692,7 +698,7 @@ def test_synth_refuses_existing_file(tmp_path, capsys):
 
 
 def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
-    import tempfile
+    from samplewright import files as outputs
 
     p = tmp_path / "s.toml"
     p.write_text("[frame.synthetic]\nunits = 50\n" + SRS)
@@ -700,13 +706,13 @@ def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
     def denied(*a, **k):
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr(tempfile, "mkstemp", denied)
+    monkeypatch.setattr(outputs, "_new_temp", denied)  # creating the temporary file is refused
     refuse(["synth", p, "--out", tmp_path / "frame.csv"], capsys, "frame.csv", "cannot be written")
 
 
 # ------------------------------------------------------------------ nothing lost
 def test_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
-    from samplewright import outputs
+    from samplewright import files as outputs
 
     df = pd.DataFrame({"a": np.arange(1000)})
 
@@ -721,7 +727,7 @@ def test_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
 
 
 def test_interrupted_write_keeps_previous_file(tmp_path, monkeypatch):
-    from samplewright import outputs
+    from samplewright import files as outputs
 
     (tmp_path / "summary.csv").write_text("old complete file\n")
 
@@ -736,6 +742,7 @@ def test_interrupted_write_keeps_previous_file(tmp_path, monkeypatch):
     assert (tmp_path / "summary.csv").read_text() == "old complete file\n"
 
 
+@pytest.mark.slow
 def test_interrupted_run_leaves_no_partial_results(tmp_path, capsys, monkeypatch):
     # the run's writer fails on its second file: no temporary file remains and no run.json
     # (whose presence marks a complete set) is written, nor an old one kept beside new files
@@ -762,6 +769,7 @@ def test_interrupted_run_leaves_no_partial_results(tmp_path, capsys, monkeypatch
     assert "run.json" not in names, names
 
 
+@pytest.mark.slow
 def test_every_output_file_is_renamed_into_place(tmp_path, capsys, monkeypatch):
     # every file a run leaves in --out arrived by a rename from a temporary name (atomic_write)
     renamed = set()
@@ -787,6 +795,7 @@ def _stderr_warnings(err: str) -> list[str]:
     return [ln for ln in err.splitlines() if ln.startswith("warning: ")]
 
 
+@pytest.mark.slow
 def test_warning_tiny_stratum(tmp_path, capsys):
     df = claims_frame()
     df.loc[21:23, ["office", "batch"]] = ["east", "east-0"]  # east has three claims
@@ -795,12 +804,14 @@ def test_warning_tiny_stratum(tmp_path, capsys):
     assert sum("tiny strata" in w for w in _stderr_warnings(err)) == 1
 
 
+@pytest.mark.slow
 def test_warning_large_sampling_fraction(tmp_path, capsys):
     info, err = run_ok(tmp_path, capsys, design=SRS.replace("n = 6", "n = 20"))
     assert any("samples 83% of the frame" in w for w in info["warnings"])
     assert sum("% of the frame" in w for w in _stderr_warnings(err)) == 1
 
 
+@pytest.mark.slow
 def test_warning_few_replicates(tmp_path, capsys):
     info, err = run_ok(tmp_path, capsys, extra=("--replicates", "100"))
     # MCSE of a 95% coverage from 100 replicates: sqrt(0.95 * 0.05 / 100) = 0.0218 (Morris et al. 2019, Table 6)
@@ -808,6 +819,7 @@ def test_warning_few_replicates(tmp_path, capsys):
     assert sum("only 100 replicates" in w for w in _stderr_warnings(err)) == 1
 
 
+@pytest.mark.slow
 def test_no_warning_when_nothing_to_say(tmp_path, capsys):
     df = pd.DataFrame({"claim_id": [f"C{i}" for i in range(400)], "office": "north", "batch": "b",
                        "amount": np.tile([10.0, 11.0, 12.0, 13.0], 100), "pages": 1, "handling": 1.0})
@@ -823,9 +835,9 @@ def test_cochran_skewness_rule():
     # Cochran (1977), Sampling Techniques, sec. 2.15: the normal approximation for the mean
     # needs n > 25 G1^2, G1 the population skewness (Fisher's coefficient; scipy.stats.skew
     # with bias=False is the reference computation).
-    from samplewright.checks import design_warnings
+    from samplewright.diagnostics.checks import design_warnings
     from samplewright.designs import SRS as SRSDesign
-    from samplewright.engine import make_cells
+    from samplewright.simulation.engine import make_cells
 
     y = np.concatenate([np.ones(180), np.full(20, 30.0)])
     f = Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")
@@ -840,8 +852,9 @@ def test_cochran_skewness_rule():
         assert any("Cochran" in w for w in notes) is expect, (n, notes)
 
 
+@pytest.mark.slow
 def test_duplicate_warnings_printed_once(tmp_path, capsys, monkeypatch):
-    from samplewright import runner
+    from samplewright import api as runner
 
     monkeypatch.setattr(runner, "frame_warnings", lambda frame: ["the same thing"])
     monkeypatch.setattr(runner, "design_warnings", lambda frame, cells, R: ["the same thing", "another"])
@@ -850,6 +863,7 @@ def test_duplicate_warnings_printed_once(tmp_path, capsys, monkeypatch):
     assert _stderr_warnings(err) == ["warning: the same thing", "warning: another"]
 
 
+@pytest.mark.slow
 def test_warnings_go_to_stderr_not_errors(tmp_path, capsys):
     sc = setup(tmp_path)
     code, out, err = cli(["run", sc, "--out", tmp_path / "out", "--replicates", "50"], capsys)
@@ -860,7 +874,7 @@ def test_warnings_go_to_stderr_not_errors(tmp_path, capsys):
 
 def test_error_messages_one_line_for_api_users():
     # the Python API raises the same InputError the CLI prints
-    from samplewright.scenario import scenario_from_dict
+    from samplewright.config.scenario import scenario_from_dict
 
     with pytest.raises(InputError, match="unknown key 'replicats'"):
         scenario_from_dict({"replicats": 3, "frame": {"synthetic": {"units": 30}},

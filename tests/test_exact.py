@@ -18,12 +18,12 @@ import pytest
 from conftest import Z
 
 from samplewright import Frame
-from samplewright.cli import main
-from samplewright.cost import CostModel
+from samplewright.cli.main import main
+from samplewright.estimation.cost import CostModel
 from samplewright.designs import METHODS
-from samplewright.engine import make_cells, replicate_table, simulate
-from samplewright.evaluate import summarise
-from samplewright.exact import count_samples, enumerate_design, evaluate_exact
+from samplewright.simulation.engine import make_cells, replicate_table, simulate
+from samplewright.evaluation.measures import summarise
+from samplewright.evaluation.exact import count_samples, enumerate_design, evaluate_exact
 
 
 @pytest.fixture
@@ -214,6 +214,7 @@ def test_exact_refused_when_too_many_samples(tmp_path, capsys):
     assert not (tmp_path / "out" / "summary.csv").exists()
 
 
+@pytest.mark.slow
 def test_exact_run_writes_contract_files(tmp_path):
     s = write_scenario(tmp_path, 3)
     out = tmp_path / "out"

@@ -24,9 +24,9 @@ import pytest
 
 from samplewright import Frame
 from samplewright.errors import InputError
-from samplewright.frame_errors import FrameErrorSpec, frame_error_from_dict, list_frame
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
+from samplewright.population.frame_errors import FrameErrorSpec, frame_error_from_dict, list_frame
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 from conftest import Z
 
 

@@ -19,7 +19,7 @@ import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from samplewright.cli import build_parser, main
+from samplewright.cli.main import build_parser, main
 
 FUZZ = settings(max_examples=40, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow])
@@ -114,10 +114,11 @@ def _run(argv: list[str]) -> None:
     assert "Traceback" not in msg, msg
     assert code in (0, 2), (code, argv, msg)
     if code == 2:
-        lines = [ln for ln in msg.strip().splitlines() if not ln.startswith("warning: ")]
+        lines = [ln for ln in msg.strip().splitlines() if not ln.startswith(("warning: ", "note: "))]
         assert len(lines) == 1 and lines[0].startswith("error: "), (argv, msg)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("command", COMMANDS)
 @FUZZ
 @given(data=st.data())

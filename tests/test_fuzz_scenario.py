@@ -22,14 +22,15 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from samplewright.cli import main
+from samplewright.cli.main import main
 from samplewright.designs import METHODS
-from samplewright.scenario import COST_KEYS, DESIGN_COMMON, FRAME_KEYS, TOP_KEYS
-from samplewright.synth import CLUSTER_KEYS, STRATUM_KEYS
-from samplewright.synth import KEYS as SYNTH_KEYS
+from samplewright.config.scenario import COST_KEYS, DESIGN_COMMON, FRAME_KEYS, TOP_KEYS
+from samplewright.population.synth import CLUSTER_KEYS, STRATUM_KEYS
+from samplewright.population.synth import KEYS as SYNTH_KEYS
 
 FUZZ = settings(max_examples=60, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
@@ -201,6 +202,7 @@ def run_text(text: str, file_frame: bool) -> None:
         assert len(lines) == 1 and lines[0].startswith("error: "), msg
 
 
+@pytest.mark.slow
 def test_base_scenarios_run():
     # the unmutated documents are valid: both must run (so mutations start from a working scenario)
     for file_frame in (True, False):
@@ -214,12 +216,14 @@ def test_base_scenarios_run():
             assert code == 0, err.getvalue()
 
 
+@pytest.mark.slow
 @FUZZ
 @given(doc=st.dictionaries(keys, values, max_size=8), file_frame=st.booleans())
 def test_random_documents(doc, file_frame):
     run_text(to_toml(doc), file_frame)
 
 
+@pytest.mark.slow
 @FUZZ
 @given(case=mutated_docs())
 def test_mutated_scenarios(case):

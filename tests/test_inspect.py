@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright.cli import main
+from samplewright.cli.main import main
 
 
 @pytest.fixture

@@ -11,6 +11,7 @@ import pytest
 NOTEBOOK = Path(__file__).resolve().parents[1] / "notebooks" / "school_meals_survey.ipynb"
 
 
+@pytest.mark.slow
 def test_notebook_runs_top_to_bottom(tmp_path, monkeypatch):
     nbformat = pytest.importorskip("nbformat")
     nbclient = pytest.importorskip("nbclient")

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from samplewright.outputs import write_parquet
+from samplewright.files import write_parquet
 
 
 def test_row_groups_give_the_same_table(tmp_path):

@@ -17,17 +17,9 @@ import pytest
 from scipy.stats import binomtest
 
 from samplewright import Frame
-from samplewright.cli import main
-from samplewright.diagnostics import anova_icc
-from samplewright.periodicity import (
-    FALSE_ALARM,
-    MATERIAL,
-    detect_periods,
-    frame_order_report,
-    periodogram,
-    unsafe_intervals,
-    variance_ratio,
-)
+from samplewright.cli.main import main
+from samplewright.diagnostics.inspection import anova_icc
+from samplewright.diagnostics.periodicity import FALSE_ALARM, MATERIAL, detect_periods, frame_order_report, periodogram, unsafe_intervals, variance_ratio
 
 #: the rule predicts a ratio; where the exact ratio lies in this band it may go either way
 BAND = (1.2, 1.9)
@@ -248,7 +240,7 @@ def test_rule_agrees_with_exact_enumeration_on_the_bundled_hourly_series():
 
 # ------------------------------------------------------------------ the run's warning
 def _warnings_for(y, n):
-    from samplewright.checks import interval_warnings
+    from samplewright.diagnostics.checks import interval_warnings
     from samplewright.designs.systematic import Systematic
 
     frame = Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")

@@ -16,20 +16,8 @@ from conftest import Z
 from scipy.stats import binomtest
 
 from samplewright import scenario_from_dict
-from samplewright.periodicity import (
-    FALSE_ALARM,
-    Component,
-    OrderReport,
-    _fast_length,
-    autocorrelation,
-    detect_periods,
-    fisher_g_pvalue,
-    frame_order_report,
-    interval_risks,
-    unsafe_intervals,
-    variance_ratio,
-)
-from samplewright.runner import run
+from samplewright.diagnostics.periodicity import FALSE_ALARM, Component, OrderReport, _fast_length, autocorrelation, detect_periods, fisher_g_pvalue, frame_order_report, interval_risks, unsafe_intervals, variance_ratio
+from samplewright.api import run
 
 
 # ------------------------------------------------------------------ Fisher's g
@@ -218,7 +206,7 @@ def test_tollgate_scenario_shows_the_failure_and_inspect_flags_the_period(capsys
     from pathlib import Path
 
     from samplewright import load_scenario
-    from samplewright.cli import main
+    from samplewright.cli.main import main
 
     here = Path(__file__).resolve().parents[1] / "scenarios"
     sc = load_scenario(here / "tollgate_hours.toml")

@@ -4,8 +4,10 @@ from __future__ import annotations
 
 import io
 
-from samplewright import cli
-from samplewright.progress import Progress, clock
+import pytest
+
+from samplewright.cli import main as cli
+from samplewright.simulation.progress import Progress, clock
 
 
 class _Tty(io.StringIO):
@@ -58,6 +60,7 @@ def test_quiet_run_prints_nothing(tmp_path, capsys):
     assert " left | " not in err  # no bar (warnings may still be printed)
 
 
+@pytest.mark.slow
 def test_verbose_logs_each_step_including_the_report(tmp_path, capsys):
     assert cli.main(["demo", "--out", str(tmp_path / "v"), "--replicates", "50", "--verbose"]) == 0
     err = capsys.readouterr().err

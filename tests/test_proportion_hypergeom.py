@@ -17,9 +17,9 @@ import pytest
 from scipy import stats
 
 from samplewright import Frame
-from samplewright.cost import CostModel
+from samplewright.estimation.cost import CostModel
 from samplewright.designs import SRS
-from samplewright.engine import Cell, replicate_table, simulate
+from samplewright.simulation.engine import Cell, replicate_table, simulate
 from conftest import Z
 
 

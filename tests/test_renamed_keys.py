@@ -14,9 +14,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright.cli import main
+from samplewright.cli.main import main
 from samplewright.errors import InputError
-from samplewright.stopping import parse_until
+from samplewright.evaluation.stopping import parse_until
 
 # an exact small frame: y and a size measure x (x not proportional to y)
 Y = [3.0, 8.0, 1.0, 12.0, 5.0, 9.0]

@@ -8,19 +8,19 @@ re-simulated), plus the ranked-interval order of Morris, White & Crowther (2019)
 from __future__ import annotations
 
 import base64
+import importlib.metadata
 import io
 import json
 import struct
 import zlib
 from html.parser import HTMLParser
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
 import samplewright
-from samplewright import cli
+from samplewright.cli import main as cli
 from samplewright.report import figures as F
 from samplewright.report.findings import coverage_verdict, with_mcse
 
@@ -108,6 +108,7 @@ def run_dir(tmp_path_factory):
     return out, res
 
 
+@pytest.mark.slow
 def test_every_figure_is_a_png_of_the_promised_size(run_dir):
     out, res = run_dir
     assert set(res.figure_names()) == EXPECTED_FIGURES
@@ -213,6 +214,7 @@ def test_brief_tells_the_story_on_one_page(run_dir):
     assert len(brief.splitlines()) < 60
 
 
+@pytest.mark.slow
 def test_report_command_rebuilds_without_simulating(run_dir, tmp_path, monkeypatch, capsys):
     out, _ = run_dir
     before = {p.name: p.read_bytes() for p in (out / "figures").glob("*.png")}
@@ -221,11 +223,11 @@ def test_report_command_rebuilds_without_simulating(run_dir, tmp_path, monkeypat
     def no_simulation(*_a, **_k):
         raise AssertionError("report must not simulate")
 
-    import samplewright.engine
-    import samplewright.runner
+    import samplewright.simulation.engine
+    import samplewright.api
 
-    monkeypatch.setattr(samplewright.runner, "run", no_simulation)
-    monkeypatch.setattr(samplewright.engine, "simulate", no_simulation)
+    monkeypatch.setattr(samplewright.api, "run", no_simulation)
+    monkeypatch.setattr(samplewright.simulation.engine, "simulate", no_simulation)
     for p in (out / "figures").glob("*.png"):
         p.unlink()
     (out / "report.html").unlink()
@@ -239,7 +241,7 @@ def test_report_command_rebuilds_without_simulating(run_dir, tmp_path, monkeypat
 
 
 def test_report_refuses_a_foreign_report_without_force(run_dir, tmp_path, capsys):
-    out, res = run_dir
+    _, res = run_dir
     other = tmp_path / "copy"
     res.write(other)
     (other / "report.html").write_text("<html>my own notes</html>", encoding="utf-8")
@@ -309,6 +311,7 @@ def test_numbers_are_rounded_to_their_monte_carlo_error():
     assert coverage_verdict(0.999, 0.0007, 0.95) == "high"
 
 
+@pytest.mark.slow
 def test_two_study_variables_get_their_own_figures(tmp_path):
     rng = np.random.default_rng(3)
     df = pd.DataFrame(
@@ -392,12 +395,14 @@ def test_figure_names_are_checked():
         res.figure("coverag")
 
 
-def test_run_and_demo_write_the_report_and_no_report_skips_it(tmp_path, capsys):
-    assert cli.main(["demo", "--out", str(tmp_path / "demo"), "--replicates", "100"]) == 0
-    out = capsys.readouterr().out.strip().splitlines()
-    page = (tmp_path / "demo" / "report.html").resolve()
+@pytest.mark.slow
+def test_run_and_demo_write_the_report_and_no_report_skips_it(demo_run, tmp_path):
+    # the shared finished demo run (conftest.demo_run) wrote its report and said where
+    assert demo_run.returncode == 0, demo_run.stderr
+    out = demo_run.stdout.strip().splitlines()
+    page = (demo_run.out / "report.html").resolve()
     assert out[-1] == f"report: {page}" and page.exists()
-    assert (tmp_path / "demo" / "brief.md").exists()
+    assert (demo_run.out / "brief.md").exists()
     assert (
         cli.main(["demo", "--out", str(tmp_path / "bare"), "--replicates", "100", "--no-report", "--quiet"])
         == 0
@@ -408,19 +413,17 @@ def test_run_and_demo_write_the_report_and_no_report_skips_it(tmp_path, capsys):
 
 
 def test_public_api_surface():
-    for name in (
-        "load_scenario",
-        "run",
-        "scenario_from_dict",
-        "RunResult",
-        "read_run",
-        "write_report",
-        "Frame",
-        "InputError",
-        "__version__",
-    ):
-        assert name in samplewright.__all__
-        assert getattr(samplewright, name) is not None
+    # the promised names, exactly: a name added to or dropped from __all__ must be added here too
+    names = {"load_scenario", "run", "scenario_from_dict", "Scenario", "RunResult", "read_run", "write_report",
+             "Frame", "InputError", "__version__"}
+    assert set(samplewright.__all__) == names
+    for name in names - {"__version__"}:
+        obj = getattr(samplewright, name)
+        # each name resolves (lazily or not) to the package's own object of that name, not a stand-in
+        assert obj.__name__ == name and obj.__module__.startswith("samplewright."), (name, obj)
+        assert callable(obj), name
+    assert issubclass(samplewright.InputError, Exception)
+    # the version matches the installed distribution's metadata (PEP 566)
+    assert samplewright.__version__ == importlib.metadata.version("samplewright")
     with pytest.raises(AttributeError):
         samplewright.no_such_thing  # noqa: B018
-    assert Path(samplewright.__file__).name == "__init__.py"

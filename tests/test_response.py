@@ -31,8 +31,8 @@ import pytest
 from scipy import stats
 
 from samplewright.errors import InputError
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
 from conftest import Z
 
 
@@ -170,7 +170,7 @@ def test_clustered_response_fixed_per_population(tmp_path, population):
                   response={"model": "cluster", "cluster_mean": 0.6, "cluster_concentration": 4.0})
     res = run(sc, replicates=400, seed=4)
     # all 50 villages every time: completed counts are sums of 1,000 independent Bernoulli(p_k)
-    from samplewright.response import resolve
+    from samplewright.simulation.response import resolve
 
     p = resolve(sc.response, sc.load_frame(), {}, 4).unit  # the run's seed
     done = reps(res, "villages")["n"].to_numpy()
@@ -233,7 +233,7 @@ def test_attempts_and_completes_are_costed_separately(tmp_path, population):
     ({"model": "logistic", "coefficients": {"y": "big"}}, "must be a number"),
 ])
 def test_response_table_refusals(table, words):
-    from samplewright.response import response_from_dict
+    from samplewright.simulation.response import response_from_dict
 
     with pytest.raises(InputError, match=words):
         response_from_dict(table)
@@ -264,7 +264,7 @@ def test_results_do_not_depend_on_jobs(tmp_path, population):
 
 def test_cluster_means_by_stratum(tmp_path, population):
     """Village rates drawn once from Beta(mean_h c, (1 - mean_h) c): their zone means against scipy's Beta."""
-    from samplewright.response import resolve
+    from samplewright.simulation.response import resolve
 
     sc = scenario(tmp_path, population.assign(zone=np.where(population["village"] < 30, "near", "far")),
                   [{"label": "v", "method": "cluster", "clusters": 5}], {"target": "y", "cluster": "village",

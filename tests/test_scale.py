@@ -16,13 +16,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright import engine
-from samplewright.checkpoint import BlockStore
-from samplewright.cli import main
+from samplewright.simulation import engine
+from samplewright.simulation.checkpoint import BlockStore
+from samplewright.cli.main import main
 from samplewright.errors import InputError
-from samplewright.runner import run
-from samplewright.scenario import load_scenario, scenario_from_dict
-from samplewright.stopping import parse_until
+from samplewright.api import run
+from samplewright.config.scenario import load_scenario, scenario_from_dict
+from samplewright.evaluation.stopping import parse_until
 
 SCENARIO = """
 title = "Toll gate hourly counts (invented, for exercising code)"
@@ -95,6 +95,7 @@ def _assert_same_run(a, b):
 
 
 # ---------------------------------------------------------------- resume
+@pytest.mark.slow
 def test_resume_after_interruption_equals_uninterrupted_run(scenario_file, tmp_path, monkeypatch, capsys):
     full, cut = tmp_path / "full", tmp_path / "cut"
     assert main(["run", str(scenario_file), "--out", str(full), "--quiet"]) == 0
@@ -130,6 +131,7 @@ def test_resume_after_interruption_equals_uninterrupted_run(scenario_file, tmp_p
     _assert_same_run(full, cut)
 
 
+@pytest.mark.slow
 def test_crash_in_a_parallel_worker_then_resume_equals_uninterrupted(scenario_file, tmp_path, monkeypatch):
     import threading
 
@@ -154,6 +156,7 @@ def test_crash_in_a_parallel_worker_then_resume_equals_uninterrupted(scenario_fi
     _assert_same_run(full, cut)
 
 
+@pytest.mark.slow
 def test_resume_refuses_a_changed_scenario_or_seed(scenario_file, tmp_path, capsys):
     out = tmp_path / "res"
     assert main(["run", str(scenario_file), "--out", str(out), "--quiet"]) == 0
@@ -173,6 +176,7 @@ def test_resume_without_saved_blocks_is_refused(tmp_path, capsys):
     assert "nothing to resume" in capsys.readouterr().err
 
 
+@pytest.mark.slow
 def test_forced_rerun_starts_from_no_blocks(scenario_file, tmp_path):
     """--force over an earlier run's folder must not reuse its blocks (another seed here)."""
     out, ref = tmp_path / "again", tmp_path / "ref"
@@ -261,6 +265,7 @@ def test_until_empirical_se_relative_mcse_matches_the_closed_form(scenario_file)
     assert all(r["replicates_needed"] == 201 for r in res.info["stopping"]["cells"])
 
 
+@pytest.mark.slow
 def test_until_stops_at_the_cap_and_says_so(scenario_file, tmp_path, capsys):
     out = tmp_path / "cap"
     assert main(["run", str(scenario_file), "--out", str(out), "--replicates", "100",
@@ -273,6 +278,7 @@ def test_until_stops_at_the_cap_and_says_so(scenario_file, tmp_path, capsys):
     assert set(pd.read_csv(out / "summary.csv")["replicates"]) == {300}
 
 
+@pytest.mark.slow
 def test_resume_of_a_stopping_run_equals_the_uninterrupted_one(scenario_file, tmp_path, monkeypatch):
     full, cut = tmp_path / "full", tmp_path / "cut"
     opts = ["--quiet", "--replicates", "100", "--until", "coverage_mcse=0.015", "--max-replicates", "2000"]
@@ -339,6 +345,7 @@ def test_unknown_backend_and_missing_scheduler_are_refused():
         run(sc, backend="dask")
 
 
+@pytest.mark.slow
 def test_dask_cluster_gives_the_local_numbers(tmp_path):
     distributed = pytest.importorskip("distributed")
     sc = scenario_from_dict(DOC)
@@ -356,6 +363,7 @@ def test_dask_cluster_gives_the_local_numbers(tmp_path):
     assert len(list((tmp_path / "d" / "blocks").glob("*.npz"))) == 3 * 4
 
 
+@pytest.mark.slow
 def test_loky_workers_give_the_same_numbers(monkeypatch):
     """Where processes cannot fork, joblib's loky workers read a memory-mapped frame instead."""
     import multiprocessing

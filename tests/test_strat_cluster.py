@@ -18,7 +18,7 @@ from conftest import Z
 
 from samplewright import Frame, InputError
 from samplewright.designs import METHODS, StratifiedCluster
-from samplewright.estimators import ESTIMATORS
+from samplewright.estimation.estimators import ESTIMATORS
 
 
 def zone_frame(big: bool = False):
@@ -126,9 +126,9 @@ def test_inclusion_frequencies_and_unbiasedness(kw, big):
 
 # ------------------------------------------------------------------ exact mode
 def exact_summary(frame, design, estimators=("ht",)):
-    from samplewright.cost import CostModel
-    from samplewright.engine import make_cells
-    from samplewright.exact import evaluate_exact
+    from samplewright.estimation.cost import CostModel
+    from samplewright.simulation.engine import make_cells
+    from samplewright.evaluation.exact import evaluate_exact
 
     design.check(frame)
     cells = make_cells([design], [estimators])
@@ -159,9 +159,9 @@ def test_exact_mode_unbiased_and_counts(kw, big):
 
 
 def test_exact_mode_agrees_with_monte_carlo_two_stage_pps():
-    from samplewright.cost import CostModel
-    from samplewright.engine import make_cells, replicate_table, simulate
-    from samplewright.evaluate import summarise
+    from samplewright.estimation.cost import CostModel
+    from samplewright.simulation.engine import make_cells, replicate_table, simulate
+    from samplewright.evaluation.measures import summarise
 
     f = zone_frame()
     d = StratifiedCluster("zones", clusters=5, selection="pps", units_per_cluster=1)

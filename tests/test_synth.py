@@ -17,8 +17,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from samplewright.diagnostics import anova_icc
-from samplewright.synth import SyntheticSpec, generate
+from samplewright.diagnostics.inspection import anova_icc
+from samplewright.population.synth import SyntheticSpec, generate
 from conftest import Z
 
 

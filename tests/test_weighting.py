@@ -20,9 +20,9 @@ import pandas as pd
 import pytest
 
 from samplewright.errors import InputError
-from samplewright.runner import run
-from samplewright.scenario import scenario_from_dict
-from samplewright.weighting import rake
+from samplewright.api import run
+from samplewright.config.scenario import scenario_from_dict
+from samplewright.estimation.weighting import rake
 from conftest import Z
 
 

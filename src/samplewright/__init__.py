@@ -17,19 +17,19 @@ from __future__ import annotations
 
 __version__ = "0.1.0"
 
-from .errors import InputError
-from .frame import Frame
+from samplewright.errors import InputError
 
 __all__ = ["__version__", "Frame", "InputError", "RunResult", "Scenario", "load_scenario", "read_run", "run",
            "scenario_from_dict", "write_report"]
 
 _LAZY = {
-    "run": ("runner", "run"),
-    "load_scenario": ("scenario", "load_scenario"),
-    "scenario_from_dict": ("scenario", "scenario_from_dict"),
-    "Scenario": ("scenario", "Scenario"),
-    "RunResult": ("result", "RunResult"),
-    "read_run": ("report.load", "read_run"),
+    "Frame": ("population.frame", "Frame"),
+    "run": ("api", "run"),
+    "load_scenario": ("config.scenario", "load_scenario"),
+    "scenario_from_dict": ("config.scenario", "scenario_from_dict"),
+    "Scenario": ("config.scenario", "Scenario"),
+    "RunResult": ("results.result", "RunResult"),
+    "read_run": ("results.load", "read_run"),
     "write_report": ("report", "write_report"),
 }
 

@@ -13,9 +13,9 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..block import SampleBlock
-from ..errors import InputError
-from ..frame import Frame
+from samplewright.designs.block import SampleBlock
+from samplewright.errors import InputError
+from samplewright.population.frame import Frame
 
 
 class Design:
@@ -90,13 +90,13 @@ class Design:
         return None
 
     def notes(self, frame: Frame) -> list[str]:
-        """Plain sentences about how the design was set up (e.g. certainty units); run.json warnings."""
+        """Plain sentences about how the design was set up (e.g. certainty units); run.json notes."""
         return []
 
     # ------------------------------------------------------------ exact mode
     def count_samples(self, frame: Frame) -> int:
-        """Number of possible samples (with positive probability); see :mod:`samplewright.exact`."""
-        from ..exact import CORE_COUNTS
+        """Number of possible samples (with positive probability); see :mod:`samplewright.evaluation.exact`."""
+        from samplewright.evaluation.exact import CORE_COUNTS
 
         if self.method in CORE_COUNTS:  # srs, stratified, systematic, cluster: counted in exact.py
             return CORE_COUNTS[self.method](self, frame)[0]
@@ -104,7 +104,7 @@ class Design:
 
     def enumerate(self, frame: Frame, chunk: int = 20_000):
         """Yield ``(SampleBlock, probabilities)`` over every possible sample, in chunks."""
-        from ..exact import CORE_ENUMERATORS
+        from samplewright.evaluation.exact import CORE_ENUMERATORS
 
         if self.method in CORE_ENUMERATORS:  # srs, stratified, systematic, cluster: enumerated in exact.py
             return CORE_ENUMERATORS[self.method](self, frame, chunk)
@@ -119,7 +119,7 @@ class Design:
     def _check_variance(self) -> None:
         v = self._params.get("variance")
         if v is not None and v not in self.variances:
-            from ..validate import closest
+            from samplewright.config.validate import closest
 
             raise InputError(f"design {self.label!r} ({self.method}): variance = {v!r} is not available "
                              f"for this method{closest(str(v), self.variances)}")

@@ -4,31 +4,37 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..block import SampleBlock
-from ..cost import cluster_costs
-from ..draws import distinct_positions
-from ..errors import InputError
-from .base import Design
+from samplewright.designs.block import SampleBlock
+from samplewright.designs.draws import distinct_positions
+from samplewright.errors import InputError
+from samplewright.estimation.two_stage_variance import one_unit_note, within_factor
+from samplewright.designs.base import Design
 
 
 class Cluster(Design):
     """SRS of ``clusters`` clusters; all their units, or an SRS of ``units_per_cluster`` in each.
 
     In a two-stage sample a cluster smaller than ``units_per_cluster`` is taken whole when
-    ``cap_units = true`` (otherwise the design is refused).  The variance estimate is the
-    between-cluster ("ultimate cluster") estimator with the first-stage finite population
-    correction: exact for one stage, the usual approximation for two (Cochran 1977, ch. 10-11).
+    ``cap_units = true`` (otherwise the design is refused).  Variance (``variance =``): with
+    one stage the between-cluster estimator with the first-stage finite population
+    correction (exact; Cochran 1977, ch. 9); with two, ``two_stage`` (default, unbiased) or
+    ``ultimate_cluster`` (see :mod:`samplewright.estimation.two_stage_variance`, also for the take-all
+    rule when clusters = every cluster).
     """
 
     method = "cluster"
     size_key = "clusters"
-    keys = ("clusters", "units_per_cluster", "cap_units")
+    keys = ("clusters", "units_per_cluster", "cap_units", "variance")
+    variances = ("two_stage", "ultimate_cluster")
 
-    def __init__(self, label: str, clusters, units_per_cluster: int | None = None, cap_units: bool = False):
-        super().__init__(label, clusters=clusters, units_per_cluster=units_per_cluster, cap_units=cap_units)
+    def __init__(self, label: str, clusters, units_per_cluster: int | None = None, cap_units: bool = False,
+                 variance: str | None = None):
+        super().__init__(label, clusters=clusters, units_per_cluster=units_per_cluster, cap_units=cap_units,
+                         variance=variance)
 
     def check(self, frame):
         self._need(frame, "cluster")
+        self._check_variance()
         m = self._positive_int("clusters", self.clusters)
         if m > frame.C:
             raise InputError(f"design {self.label!r}: clusters = {m} is more than the {frame.C} clusters "
@@ -36,39 +42,37 @@ class Cluster(Design):
         self._check_second_stage(frame)
 
     def _draw(self, frame, rng, B, keep_units):
-        m, C = int(self.clusters), frame.C
-        chosen = distinct_positions(rng, C, m, (B,))  # (B, m) cluster codes
-        fpc = np.array([1.0 - m / C])
+        chosen = distinct_positions(rng, frame.C, int(self.clusters), (B,))  # (B, m) cluster codes
+        units = valid = None
+        if self.units_per_cluster is not None:
+            units, valid = self._second_stage(frame, rng, chosen, frame.cluster_sizes[chosen], self.take(frame))
+        return self.block(frame, chosen, units, valid, keep_units)
+
+    def notes(self, frame):
+        return one_unit_note(self, frame.C if int(self.clusters) == frame.C else 0, self.take(frame))
+
+    def take(self, frame) -> int | None:
+        """Units drawn per cluster (a cap above the largest cluster takes all), None for one stage."""
         if self.units_per_cluster is None:
-            units = None
+            return None
+        return min(int(self.units_per_cluster), int(frame.cluster_sizes.max()))
+
+    def block(self, frame, chosen, units=None, valid=None, keep_units=False) -> SampleBlock:
+        """The block of chosen clusters (B, m) and, for two stages, their units (B, m, k) and mask."""
+        m, C = int(self.clusters), frame.C
+        B = chosen.shape[0]
+        fpc = np.array([1.0 - m / C])
+        common = {"fpc": fpc, "clusters": np.full(B, m, dtype=float), "strata": 0, "variance": self.variance_name,
+                  "cluster_cost": _cluster_costs(frame, chosen)}
+        if units is None:
+            kept = None
             if keep_units:
-                units = [np.concatenate([frame.cluster_units[frame.cluster_offsets[c]:frame.cluster_offsets[c + 1]]
-                                         for c in row]) for row in chosen]
-            return SampleBlock(
-                sums=frame.cluster_sums[chosen],
-                weight=np.full(m, C / m),
-                psu_stratum=np.zeros(m, dtype=np.int64),
-                fpc=fpc,
-                clusters=np.full(B, m, dtype=float),
-                strata=0,
-                units=units,
-                cluster_cost=cluster_costs(frame, chosen),
-            )
-        sizes = frame.cluster_sizes[chosen]  # (B, m)
-        k = min(int(self.units_per_cluster), int(frame.cluster_sizes.max()))  # a larger cap takes all
-        take = np.minimum(sizes, k)
-        units, valid = self._second_stage(frame, rng, chosen, sizes, k)
-        gathered = frame.gather(units) * valid[..., None]
-        return SampleBlock(
-            sums=gathered.sum(axis=2),
-            weight=(C / m) * sizes / take,
-            psu_stratum=np.zeros(m, dtype=np.int64),
-            fpc=fpc,
-            clusters=np.full(B, m, dtype=float),
-            strata=0,
-            units=np.where(valid, units, -1).reshape(B, -1) if keep_units else None,
-            cluster_cost=cluster_costs(frame, chosen),
-        )
+                kept = [np.concatenate([frame.cluster_units[frame.cluster_offsets[c]:frame.cluster_offsets[c + 1]]
+                                        for c in row]) for row in chosen]
+            return SampleBlock(sums=frame.cluster_sums[chosen], weight=np.full(m, C / m),
+                               psu_stratum=np.zeros(m, dtype=np.int64), units=kept, **common)
+        return second_stage_block(frame, units, valid, frame.cluster_sizes[chosen], np.full(m, C / m),
+                                  np.zeros(m, dtype=np.int64), srs=True, keep_units=keep_units, **common)
 
     @staticmethod
     def _second_stage(frame, rng, chosen, sizes, k):
@@ -92,3 +96,37 @@ class Cluster(Design):
 
     def expected_n(self, frame):
         return float(self.inclusion_probabilities(frame).sum())
+
+
+def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs, variance, keep_units,
+                       **fields) -> SampleBlock:
+    """A two-stage block laid out unit by unit (see :mod:`samplewright.estimation.two_stage_variance`).
+
+    ``units`` (B, S, k) are the second-stage units of S cluster slots (``valid`` marks the
+    real ones), ``sizes`` (B, S) the cluster sizes, ``w1`` (S,) or (B, S) the first-stage
+    weights (1 for a certainty cluster), ``slot_stratum`` (S,) each slot's design stratum
+    and ``fpc`` the first-stage correction per stratum; ``srs``: SRS of clusters (else the
+    with-replacement approximation for the first stage).
+    """
+    B, S, k = units.shape
+    take = valid.sum(axis=2)
+    w1 = np.broadcast_to(w1, (B, S))
+    return SampleBlock(
+        sums=(frame.gather(units) * valid[..., None]).reshape(B, S * k, -1),
+        weight=np.repeat(w1 * sizes / take, k, axis=1),
+        psu_stratum=np.repeat(slot_stratum, k),
+        fpc=fpc,
+        mask=None if valid.all() else valid.reshape(B, S * k),
+        units=np.where(valid, units, -1).reshape(B, -1) if keep_units else None,
+        variance=variance,
+        psu=np.repeat(np.arange(S), k),
+        within_fpc=within_factor(variance, 1.0 / w1, take, sizes, srs),
+        **fields,
+    )
+
+
+def _cluster_costs(frame, chosen: np.ndarray) -> np.ndarray | None:
+    """Summed cluster_cost of the chosen clusters, (B, m) codes -> (B,); None without that column."""
+    if getattr(frame, "cluster_cost", None) is None:
+        return None
+    return frame.cluster_cost[chosen].sum(axis=1)

@@ -19,7 +19,7 @@ import math
 
 import numpy as np
 
-from ..errors import InputError
+from samplewright.errors import InputError
 
 
 def size_measure(frame, label: str) -> np.ndarray:
@@ -211,7 +211,7 @@ class SampfordSampler:
 def units_block(frame, units, weight, psu_stratum, fpc, *, mask=None, variance="hansen_hurwitz",
                 design_info=None, keep_units=True):
     """A :class:`SampleBlock` whose PSUs are single units ``units`` (B, m) of the frame."""
-    from ..block import SampleBlock
+    from samplewright.designs.block import SampleBlock
 
     B = units.shape[0]
     return SampleBlock(

@@ -27,11 +27,11 @@ import math
 
 import numpy as np
 
-from ..draws import _KEY_BUDGET
-from ..enumeration import combination_chunks, product_chunks
-from ..errors import InputError
-from .base import Design
-from .pips import SampfordSampler, pips, size_measure, units_block
+from samplewright.designs.base import Design
+from samplewright.designs.draws import _KEY_BUDGET
+from samplewright.designs.enumeration import combination_chunks, product_chunks
+from samplewright.designs.pips import SampfordSampler, pips, size_measure, units_block
+from samplewright.errors import InputError
 
 #: most subsets enumerated to get exact joint inclusion probabilities (and in exact mode)
 ENUMERATION_LIMIT = 2_000_000

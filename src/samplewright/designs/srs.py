@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..block import SampleBlock
-from ..draws import distinct_positions, with_replacement
-from ..errors import InputError
-from .base import Design
+from samplewright.designs.block import SampleBlock
+from samplewright.designs.draws import distinct_positions, with_replacement
+from samplewright.errors import InputError
+from samplewright.designs.base import Design
 
 
 class SRS(Design):

@@ -16,11 +16,14 @@ cluster (smaller clusters whole, with ``cap_units = true``).
 
 Variance: the shared between-PSU estimator within strata (``estimators.stratified_psu_variance``)
 on the estimated cluster totals.  With SRS of clusters the first-stage finite population
-correction 1 - m_h / C_h is applied (exact for one stage, the usual ultimate-cluster
-approximation for two; Cochran 1977, ch. 10-11); with PPS no correction is applied (the
-with-replacement approximation; Sarndal, Swensson & Wretman 1992, sec. 4.6).  A certainty
-cluster is a stratum of its own: with one stage it adds no variance; with two its sampled
-units are the PSUs of that stratum, with correction 1 - k / M_c (exact for that stage).
+correction 1 - m_h / C_h is applied (exact for one stage; Cochran 1977, ch. 9); with PPS no
+correction is applied (the with-replacement approximation; Sarndal, Swensson & Wretman 1992,
+sec. 4.6).  With two stages ``variance = "two_stage"`` (default) adds each cluster's
+within-cluster term, which makes it unbiased under SRS of clusters, and ``"ultimate_cluster"``
+leaves it out; under PPS the with-replacement form already holds the second stage and both
+options agree (``two_stage_variance``).  A certainty cluster, or every cluster of a take-all
+stratum (m_h = C_h), adds no first-stage variance: with one stage none at all, with two its
+within-cluster term (its units as PSUs, correction 1 - k / M_c).
 """
 
 from __future__ import annotations
@@ -29,14 +32,15 @@ import math
 
 import numpy as np
 
-from ..allocation import real_allocation, round_allocation
-from ..block import SampleBlock
-from ..draws import distinct_positions
-from ..enumeration import combination_chunks, elementary_symmetric, product_chunks
-from ..errors import InputError
-from .base import Design
-from .cluster import Cluster
-from .pips import SampfordSampler, pips, size_measure
+from samplewright.designs.allocation import real_allocation, round_allocation
+from samplewright.designs.base import Design
+from samplewright.designs.block import SampleBlock
+from samplewright.designs.cluster import Cluster, second_stage_block
+from samplewright.designs.draws import distinct_positions
+from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
+from samplewright.designs.pips import SampfordSampler, pips, size_measure
+from samplewright.errors import InputError
+from samplewright.estimation.two_stage_variance import one_unit_note
 
 ALLOCATIONS = ("equal", "proportional", "units")
 SELECTIONS = ("srs", "pps")
@@ -63,6 +67,7 @@ class StratifiedCluster(Design):
     size_key = "clusters"
     keys = ("clusters", "cluster_allocation", "units_per_cluster", "cap_units", "selection", "cluster_size",
             "variance")
+    variances = ("two_stage", "ultimate_cluster")
 
     def __init__(self, label: str, clusters, cluster_allocation: str = "proportional",
                  units_per_cluster: int | None = None, cap_units: bool = False, selection: str = "srs",
@@ -74,7 +79,7 @@ class StratifiedCluster(Design):
 
     # ------------------------------------------------------------------ checks
     def check(self, frame):
-        from ..validate import closest
+        from samplewright.config.validate import closest
 
         self._need(frame, "cluster")
         if frame.roles.get("stratum") is None:
@@ -146,7 +151,9 @@ class StratifiedCluster(Design):
             certain_all += codes[cert].tolist()
             groups.append({"h": h, "free": free, "pi": p[~cert], "m": int(m_h[h]) - int(cert.sum()),
                            "fpc": 1.0 - m_h[h] / codes.size if self.selection == "srs" else 1.0})
-        # positions: the drawn clusters of each stratum, then certainty clusters (or their units)
+        # cluster slots: the drawn clusters of each stratum, then each certainty cluster as a
+        # stratum of its own with no first-stage variance (with two stages its units are laid
+        # out unit by unit, see _assemble and two_stage_variance)
         psu_stratum, fpc = [], []
         for g in groups:
             g["stratum"] = len(fpc)
@@ -154,15 +161,9 @@ class StratifiedCluster(Design):
             fpc.append(g["fpc"])
         cert_layout = []
         for c in certain_all:
-            take = int(M[c]) if k is None else min(int(M[c]), k)
-            sid = len(fpc)
-            if k is None:
-                psu_stratum.append(sid)
-                fpc.append(0.0)
-            else:
-                psu_stratum += [sid] * take
-                fpc.append(1.0 - take / M[c])
-            cert_layout.append((c, take))
+            psu_stratum.append(len(fpc))
+            fpc.append(0.0)
+            cert_layout.append((c, int(M[c]) if k is None else min(int(M[c]), k)))
         self._cache[key] = {"m_h": m_h, "groups": groups, "pi_c": pi_c, "certain": cert_layout, "rounds": rounds,
                             "psu_stratum": np.array(psu_stratum, dtype=np.int64), "fpc": np.array(fpc), "k": k}
         return self._cache[key]
@@ -172,11 +173,12 @@ class StratifiedCluster(Design):
         parts = ", ".join(f"{frame.stratum_labels[h]}: {int(s['m_h'][h])} of {int(c)}"
                           for h, c in enumerate(self.clusters_per_stratum(frame)))
         out = [f"design {self.label!r} at clusters = {self.clusters}: clusters per stratum "
-               + f"({self.cluster_allocation}) {parts}"]
+               + f"({self.cluster_allocation}) {parts}; about {self.expected_n(frame):.4g} units expected"]
         if s["certain"]:
             out.append(f"design {self.label!r} at clusters = {self.clusters}: {len(s['certain'])} cluster(s) with "
                        f"pi >= 1 are taken with certainty ({s['rounds']} removal round(s))")
-        return out
+        take_all = sum(g["m"] for g in s["groups"] if g["fpc"] == 0.0)  # every cluster of the stratum drawn
+        return out + one_unit_note(self, len(s["certain"]) + take_all, s["k"])
 
     # ------------------------------------------------------------------ drawing
     def _draw(self, frame, rng, B, keep_units):
@@ -209,39 +211,29 @@ class StratifiedCluster(Design):
         k = s["k"]
         M = frame.cluster_sizes
         B = chosen.shape[0]
+        certain = np.array([c for c, _ in s["certain"]], dtype=np.int64)
+        common = {"fpc": s["fpc"], "clusters": np.full(B, chosen.shape[1] + certain.size, dtype=float),
+                  "strata": int((s["m_h"] > 0).sum()), "variance": self.variance_name}
         w1 = 1.0 / s["pi_c"][chosen]
-        sums, weights, unit_parts = [], [], []
         if k is None:
-            sums.append(frame.cluster_sums[chosen])
-            weights.append(w1)
-            if keep_units:
-                unit_parts.append(_whole_clusters(frame, chosen))
-        else:
-            sizes = M[chosen]
-            sums.append((frame.gather(units) * valid[..., None]).sum(axis=2))
-            weights.append(w1 * sizes / np.minimum(sizes, k))
-            unit_parts.append(np.where(valid, units, -1).reshape(B, -1))
-        for j, (c, take) in enumerate(s["certain"]):
-            if k is None:
-                sums.append(np.broadcast_to(frame.cluster_sums[c], (B, 1, frame.values.shape[1])))
-                weights.append(np.ones((B, 1)))
-                if keep_units:
-                    unit_parts.append(_whole_clusters(frame, np.full((B, 1), c)))
-            else:
-                sums.append(frame.gather(cert_units[j]))
-                weights.append(np.full((B, take), M[c] / take))
-                unit_parts.append(cert_units[j])
-        total_clusters = chosen.shape[1] + len(s["certain"])
-        return SampleBlock(
-            sums=np.concatenate(sums, axis=1),
-            weight=np.concatenate(weights, axis=1),
-            psu_stratum=s["psu_stratum"],
-            fpc=s["fpc"],
-            clusters=np.full(B, total_clusters, dtype=float),
-            strata=int((s["m_h"] > 0).sum()),
-            units=np.concatenate(unit_parts, axis=1) if keep_units and unit_parts else None,
-            variance=self.variance_name,
-        )
+            every = np.concatenate([chosen, np.broadcast_to(certain, (B, certain.size))], axis=1)
+            return SampleBlock(
+                sums=frame.cluster_sums[every],
+                weight=np.concatenate([w1, np.ones((B, certain.size))], axis=1),
+                psu_stratum=s["psu_stratum"],
+                units=_whole_clusters(frame, every) if keep_units else None,
+                **common,
+            )
+        # certainty clusters' units padded to k positions, after the drawn clusters' slots
+        cu = np.zeros((B, certain.size, k), dtype=np.int64)
+        cv = np.zeros((B, certain.size, k), dtype=bool)
+        for j, (_, take) in enumerate(s["certain"]):
+            cu[:, j, :take] = cert_units[j]
+            cv[:, j, :take] = True
+        every = np.concatenate([chosen, np.broadcast_to(certain, (B, certain.size))], axis=1)
+        return second_stage_block(frame, np.concatenate([units, cu], axis=1), np.concatenate([valid, cv], axis=1),
+                                  M[every], np.concatenate([w1, np.ones((B, certain.size))], axis=1),
+                                  s["psu_stratum"], srs=self.selection == "srs", keep_units=keep_units, **common)
 
     # ------------------------------------------------------------------ exact mode
     def _first_stage(self, frame):

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..allocation import RULES, allocate
-from ..block import SampleBlock
-from ..draws import distinct_positions
-from ..errors import InputError
-from .base import Design
+from samplewright.designs.allocation import RULES, allocate
+from samplewright.designs.block import SampleBlock
+from samplewright.designs.draws import distinct_positions
+from samplewright.errors import InputError
+from samplewright.designs.base import Design
 
 
 class Stratified(Design):

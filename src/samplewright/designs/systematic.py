@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..block import SampleBlock
-from ..errors import InputError
-from .base import Design
+from samplewright.designs.block import SampleBlock
+from samplewright.errors import InputError
+from samplewright.designs.base import Design
 
 KINDS = ("linear", "circular")
 
@@ -38,7 +38,7 @@ class Systematic(Design):
     variance : {"srs", "successive_differences", "between_starts"}
         ``srs`` (default): the SRS formula (1 - f) s^2 / n, the usual practice, biased when the
         list order has structure (Cochran 1977, ch. 8).  ``successive_differences``: Wolter's
-        v3 on the units in list order (see :func:`samplewright.estimators.successive_difference_variance`).
+        v3 on the units in list order (see :func:`samplewright.estimation.estimators.successive_difference_variance`).
         ``between_starts``: the r start samples are the PSUs (needs starts >= 2).
 
     Notes
@@ -70,7 +70,7 @@ class Systematic(Design):
 
     # ------------------------------------------------------------------ checks
     def check(self, frame):
-        from ..validate import closest
+        from samplewright.config.validate import closest
 
         n = self._positive_int("n", self.n)
         if n > frame.N:

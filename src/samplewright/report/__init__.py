@@ -17,16 +17,16 @@ from __future__ import annotations
 import io
 from pathlib import Path
 
-from ..errors import InputError
-from ..outputs import atomic_write, write_text
-from .load import read_run
+from samplewright.errors import InputError
+from samplewright.files import atomic_write, write_text
+from samplewright.results.load import read_run
 
 __all__ = ["write_report", "read_run", "report_folder"]
 
 
 def _check_overwrite(p: Path, force: bool) -> None:
-    from .brief import MARKER as BRIEF_MARKER
-    from .html import MARKER as HTML_MARKER
+    from samplewright.report.brief import MARKER as BRIEF_MARKER
+    from samplewright.report.html import MARKER as HTML_MARKER
 
     if force:
         return
@@ -61,10 +61,10 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
     -------
     Path of report.html.
     """
-    from .brief import render_brief
-    from .figures import DPI, make_figure
-    from .html import render_html
-    from .story import build_context, figure_plan
+    from samplewright.report.brief import render_brief
+    from samplewright.report.figures import DPI, make_figure
+    from samplewright.report.html import render_html
+    from samplewright.report.story import build_context, figure_plan
 
     say = log or (lambda _msg: None)
     p = Path(out)
@@ -81,12 +81,12 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
         say(f"drawing figure {item['stem']}")
         try:
             fig = make_figure(res, item["name"], item["variable"])
+            buf = io.BytesIO()
+            fig.savefig(buf, format="png", dpi=DPI)  # text is laid out here: it can fail too
         except Exception as exc:  # a figure that cannot be drawn must not cost the rest of the report
             failed.append(f"The figure {item['heading']!r} could not be drawn ({type(exc).__name__}: {exc}).")
             say(failed[-1])
             continue
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=DPI)
         png = buf.getvalue()
         atomic_write(figdir / f"{item['stem']}.png", lambda t, b=png: t.write_bytes(b))
         if svg:

@@ -2,14 +2,14 @@
 
 from __future__ import annotations
 
-from .templating import render
+from samplewright.report.templating import render
 
 MARKER = "samplewright"
 
 
 def render_brief(context: dict) -> str:
     """The brief from :func:`~samplewright.report.story.build_context`."""
-    text = render("brief.md", context, autoescape=False)
+    text = render("brief.md", context, markup="markdown")
     lines = [ln.rstrip() for ln in text.splitlines()]
     out, blank = [], 0
     for ln in lines:  # at most one blank line in a row

@@ -35,6 +35,8 @@ from matplotlib.figure import Figure  # drawn and saved with the Agg renderer; p
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter
 
+from samplewright.evaluation.measures import holds
+
 #: Okabe-Ito colours in the order designs receive them (black is kept for "misses" and truth lines)
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#999999")
 MISS_COLOUR = "#000000"
@@ -104,6 +106,20 @@ def design_colours(designs) -> dict[str, str]:
     return {d: PALETTE[i % len(PALETTE)] for i, d in enumerate(designs)}
 
 
+def plain(text) -> str:
+    """``text`` as matplotlib shows it literally: every ``$`` escaped, so no label is read as mathtext.
+
+    Every text from the run's data (design, variable, stratum, order names) passes through
+    here before a figure sees it; a label such as ``$x^$`` would otherwise fail at drawing time.
+
+    Examples
+    --------
+    >>> print(plain("cost $x^$"))
+    cost \\$x^\\$
+    """
+    return str(text).replace("$", r"\$")
+
+
 def estimator_name(code: str) -> str:
     return ESTIMATOR_NAMES.get(code, str(code))
 
@@ -118,10 +134,12 @@ def _variable(summary: pd.DataFrame, variable):
     return variable
 
 
-def cell_label(design: str, method: str, size) -> str:
-    """How a design at one size is named in figures: clusters are counted as clusters."""
-    unit = f"{int(size)} clusters" if method == "cluster" else f"n = {int(size)}"
-    return f"{design}, {unit}"
+def cell_label(design: str, method: str, size, mean_n=None) -> str:
+    """How a design at one size is named in figures: clusters are counted as clusters (with the
+    expected units when ``mean_n`` is given; ``designs.size_words``)."""
+    from samplewright.designs import size_words
+
+    return f"{design}, {size_words(method, size, mean_n, units='n = {}')}"
 
 
 def primary_rows(
@@ -165,10 +183,10 @@ def _limit_sizes(s: pd.DataFrame, max_rows: int, keep: dict | None) -> pd.DataFr
 def _labels(rows: pd.DataFrame, with_estimator: bool) -> list[str]:
     out = []
     for r in rows.itertuples(index=False):
-        lab = cell_label(r.design, r.method, r.size)
+        lab = cell_label(r.design, r.method, r.size, getattr(r, "mean_n", None))
         if with_estimator:
             lab += f" ({estimator_name(r.estimator)})"
-        out.append(lab)
+        out.append(plain(lab))
     return out
 
 
@@ -182,11 +200,11 @@ def _marker_map(rows: pd.DataFrame) -> dict[str, str]:
 
 def _design_legend(ax, designs, colours, markers=None, loc="best"):
     handles = [
-        Line2D([], [], color=colours[d], marker="o", linestyle="", markersize=6, label=d) for d in designs
+        Line2D([], [], color=colours[d], marker="o", linestyle="", markersize=6, label=plain(d)) for d in designs
     ]
     if markers and len(markers) > 1:
         handles += [
-            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=6, label=estimator_name(e))
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=6, label=plain(estimator_name(e)))
             for e, m in markers.items()
         ]
     ax.legend(handles=handles, loc=loc, frameon=False)
@@ -210,7 +228,7 @@ def _cell_positions(rows: pd.DataFrame):
 def _estimator_legend(ax, markers, above: bool = True):
     if len(markers) > 1:
         handles = [
-            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=plain(estimator_name(e)))
             for e, m in markers.items()
         ]
         if above:
@@ -325,8 +343,8 @@ def sampling_distribution(
         if "probability" in replicates.columns
         else f"{reps:,} samples per design"
     )
-    ax.set_title(f"Where the estimates of the mean {var} fall ({many})")
-    ax.set_xlabel(f"Estimated mean {var}")
+    ax.set_title(f"Where the estimates of the mean {plain(var)} fall ({many})")
+    ax.set_xlabel(f"Estimated mean {plain(var)}")
     ax.legend(
         handles=[
             Line2D([], [], color=TRUTH_COLOUR, linestyle="--", label=f"true value {truth:.4g}"),
@@ -379,8 +397,8 @@ def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None =
     )
     if np.isfinite(span) and span > 0:
         ax.set_xlim(-1.1 * span, 1.1 * span)
-    ax.set_xlabel(f"Average estimate minus true value ({var})")
-    ax.set_title(f"Bias of the estimated mean {var}", loc="left")
+    ax.set_xlabel(f"Average estimate minus true value ({plain(var)})")
+    ax.set_title(f"Bias of the estimated mean {plain(var)}", loc="left")
     if truth != 0 and np.isfinite(truth):
         top = ax.secondary_xaxis("top", functions=(lambda b: 100.0 * b / truth, lambda p: p * truth / 100.0))
         top.set_xlabel("Relative bias (% of the true value)")
@@ -408,7 +426,7 @@ def coverage_plot(
     lo = min(float(np.nanmin(100.0 * (rows["coverage"] - MC_Z * rows["coverage_mcse"]))), nominal - 5.0)
     ax.set_xlim(max(0.0, lo - 1.0), 100.5)
     ax.set_xlabel("Share of intervals that hold the true value (%)")
-    ax.set_title(f"Coverage of the {nominal:g}% intervals for the mean {var}", loc="left", pad=18)
+    ax.set_title(f"Coverage of the {nominal:g}% intervals for the mean {plain(var)}", loc="left", pad=18)
     return ax
 
 
@@ -476,8 +494,8 @@ def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = N
             fontsize=8,
             color="#444444",
         )
-    ax.set_xlabel(f"Empirical SE: real spread of the estimates ({var})")
-    ax.set_ylabel(f"Estimated SE from the formula ({var})")
+    ax.set_xlabel(f"Empirical SE: real spread of the estimates ({plain(var)})")
+    ax.set_ylabel(f"Estimated SE from the formula ({plain(var)})")
     ax.set_title("Does the standard-error formula tell the truth?")
     _design_legend(ax, designs, colours, markers, loc="upper left")
     ax.legend_.set_bbox_to_anchor((1.0, 1.0))
@@ -525,7 +543,7 @@ def interval_panel(
     pick = np.unique(np.minimum(np.searchsorted(np.cumsum(w), targets - 1e-12), R - 1))
     idx = order[pick]
     lo, hi = rep["lower"].to_numpy()[idx], rep["upper"].to_numpy()[idx]
-    cover = (lo <= truth) & (truth <= hi)
+    cover = holds(lo, hi, truth)
     centile = 100.0 * mid[pick]
     for mask, col, lw in ((cover, colour, 1.0), (~cover, MISS_COLOUR, 1.2)):
         if mask.any():
@@ -566,7 +584,8 @@ def interval_plot(
     for i, r in enumerate(rows.itertuples(index=False)):
         ax = axes[i // ncol][i % ncol]
         g = groups.get((r.design, r.size, r.estimator))
-        title = f"{cell_label(r.design, r.method, r.size)}\nhold the truth: {100 * r.coverage:.1f}%"
+        label = plain(cell_label(r.design, r.method, r.size, getattr(r, "mean_n", None)))
+        title = f"{label}\nhold the truth: {100 * r.coverage:.1f}%"
         if g is not None and len(g):
             interval_panel(g, truth, confidence, colours[r.design], title=title, shown=shown, ax=ax)
     for j in range(k, nrow * ncol):
@@ -575,7 +594,7 @@ def interval_plot(
         row[0].set_ylabel("Rank of the miss\n(centile)")
     which = "possible" if "probability" in replicates.columns else "simulated"
     fig.supxlabel(
-        f"{100 * confidence:g}% interval for the mean {var} from each {which} sample "
+        f"{100 * confidence:g}% interval for the mean {plain(var)} from each {which} sample "
         f"(each panel has its own scale)",
         fontsize=9,
     )
@@ -658,11 +677,11 @@ def cost_precision_plot(
                     color=colours[d],
                 )
     handles = [
-        Line2D([], [], color=colours[d], marker="o", linewidth=1.0, markersize=5, label=d) for d in designs
+        Line2D([], [], color=colours[d], marker="o", linewidth=1.0, markersize=5, label=plain(d)) for d in designs
     ]
     if len(markers) > 1:
         handles += [
-            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=estimator_name(e))
+            Line2D([], [], color="#555555", marker=m, linestyle="", markersize=5, label=plain(estimator_name(e)))
             for e, m in markers.items()
         ]
     if "on_frontier" in pts.columns:
@@ -718,10 +737,10 @@ def cost_precision_plot(
         ax.yaxis.set_minor_formatter(
             FuncFormatter(lambda v, _pos: f"{v:g}" if str(f"{v:g}")[0] in "25" else "")
         )
-        ylab = f"Margin of error ({var}, log scale)"
+        ylab = f"Margin of error ({plain(var)}, log scale)"
     else:
         ax.set_ylim(bottom=0)
-        ylab = f"Margin of error ({var})"
+        ylab = f"Margin of error ({plain(var)})"
     ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:,.0f}" if abs(v) >= 1000 else f"{v:g}"))
     ax.set_xlabel("Average field cost of one survey (cost units of the scenario)")
     ax.set_ylabel(ylab)
@@ -772,11 +791,11 @@ def allocation_plot(
             share,
             height=h,
             color=colours.get(d, PALETTE[j % len(PALETTE)]),
-            label=f"{d} (n = {int(tot)})",
+            label=f"{plain(d)} (n = {int(tot)})",
         )
         for yv, sv, s in zip(yy, share, strata):
             ax.text(sv, yv, f" {int(g['sample_units'].get(s, 0))}", va="center", ha="left", fontsize=7)
-    ax.set_yticks(base, strata)
+    ax.set_yticks(base, [plain(s) for s in strata])
     ax.grid(axis="y", visible=False)
     ax.set_xlabel("Share of the sample or of the frame (%); numbers: units sampled")
     ax.set_title("How the stratified sample is spread over the strata")
@@ -808,7 +827,7 @@ def frame_order_plot(order: pd.DataFrame, entry: dict, summary: pd.DataFrame | N
     g = order[(order["order"] == entry["order"]) & (order["variable"] == entry["variable"])]
     ax = _axes(ax, 3.8)
     x, y = g["position"].to_numpy(), g["value"].to_numpy(float)
-    ax.plot(x, y, color="#777777", linewidth=0.8, label=f"{entry['variable']} along the list")
+    ax.plot(x, y, color="#777777", linewidth=0.8, label=f"{plain(entry['variable'])} along the list")
     main = max(entry["periods"], key=lambda p: p["strength"])
     P = float(main["period"])
     if P >= 1:
@@ -829,13 +848,13 @@ def frame_order_plot(order: pd.DataFrame, entry: dict, summary: pd.DataFrame | N
         extra = f", one of its {starts} starts" if starts > 1 else ""
         ax.plot(pos, np.full(len(pos), row), linestyle="", marker="|", markersize=9, markeredgewidth=1.6,
                 color=colours.get(w["design"], PALETTE[i % len(PALETTE)]),
-                label=f"{w['design']}, n = {int(w['size'])}: every {K:.4g} units{extra}")
+                label=f"{plain(w['design'])}, n = {int(w['size'])}: every {K:.4g} units{extra}")
     ax.set_ylim(lo - span * 0.12 * (len(walks) + 0.8), hi + span * 0.05)
     ax.set_yticks([t for t in ax.get_yticks() if lo - 0.01 * span <= t <= hi])  # none beside the tick rows
     ax.set_xlim(0.5, x.max() + 0.5)
-    ax.set_xlabel(f"Position in the {entry['order']} (first {int(x.max()):,} of {int(entry['units']):,} units)")
-    ax.set_ylabel(str(entry["variable"]))
-    ax.set_title(f"A cycle of {P:.4g} units along the {entry['order']}; ticks: where one systematic sample falls",
+    ax.set_xlabel(f"Position in the {plain(entry['order'])} (first {int(x.max()):,} of {int(entry['units']):,} units)")
+    ax.set_ylabel(plain(entry["variable"]))
+    ax.set_title(f"A cycle of {P:.4g} units along the {plain(entry['order'])}; ticks: where one systematic sample falls",
                  fontsize=9.5)
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), frameon=False, ncol=1)
     return ax
@@ -1062,9 +1081,9 @@ def figure_names(res) -> list[str]:
 
 
 def make_figure(res, name: str, variable=None) -> Figure:
-    """Draw figure ``name`` of a run (a :class:`~samplewright.result.RunResult`)."""
+    """Draw figure ``name`` of a run (a :class:`~samplewright.results.result.RunResult`)."""
     if name not in FIGURES:
-        from ..validate import closest
+        from samplewright.config.validate import closest
 
         raise KeyError(f"no figure named {name!r}{closest(name, list(FIGURES))}")
     spec = FIGURES[name]

@@ -5,9 +5,12 @@ a budget or a margin-of-error goal is made by the planning step (recommendation.
 quoted here.
 
 A simulated coverage is called *below the promised level* by the same rule the recommendation
-uses to pass a design over (:func:`samplewright.recommend.coverage_acceptable`: more than
+uses to pass a design over (:func:`samplewright.decision.recommend.coverage_acceptable`: more than
 ``COVERAGE_Z`` = 3 Monte Carlo SEs below nominal, MCSE = sqrt(c (1 - c) / R), Morris, White &
-Crowther 2019, Table 6), and *above* it when more than as many SEs above.
+Crowther 2019, Table 6), and *above* it when more than as many SEs above.  An exact-mode run
+(``run --exact``, an ``exact`` column in the summary) has no Monte Carlo error: its coverage is
+the probability-weighted share of every possible sample, so it is below or above the promised
+level as it stands, and its numbers are shown without brackets.
 """
 
 from __future__ import annotations
@@ -17,8 +20,8 @@ import math
 import numpy as np
 import pandas as pd
 
-from ..recommend import COVERAGE_Z, coverage_acceptable
-from .figures import cell_label, estimator_name
+from samplewright.decision.recommend import COVERAGE_Z, coverage_acceptable
+from samplewright.report.figures import cell_label, estimator_name
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2
@@ -62,6 +65,8 @@ def num(value, digits: int = 4) -> str:
         v = float(value)
     except (TypeError, ValueError):
         return str(value)
+    if np.isinf(v):  # e.g. a design effect against an SRS variance of 0 (evaluate.py)
+        return "infinite" if v > 0 else "minus infinite"
     if not np.isfinite(v):
         return "n/a"
     if abs(v) >= 10**digits or (abs(v) >= 1000 and v == round(v)):
@@ -90,6 +95,25 @@ def percent_like(value: float, mcse: float) -> str:
 SHORT_ESTIMATOR = {"ht": "HT", "hajek": "Hajek"}
 
 
+def is_exact(summary: pd.DataFrame) -> bool:
+    """Whether ``summary`` comes from exact mode (every possible sample, no Monte Carlo error)."""
+    return "exact" in summary.columns and len(summary) > 0 and bool(summary["exact"].astype(bool).all())
+
+
+def cost_text(summary: pd.DataFrame):
+    """How a mean cost is shown: ``money``, or a dash for every row when no cost is modelled (all 0)."""
+    if len(summary) and not (summary["mean_cost"] != 0).any():
+        return lambda _value: "—"
+    return money
+
+
+def measure_text(exact: bool):
+    """How a measure and its MCSE are shown: ``with_mcse``, or the bare number in exact mode."""
+    if exact:
+        return lambda value, _mcse, scale=1.0: num(value * scale if value is not None else None)
+    return with_mcse
+
+
 def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
     """``"low"``, ``"high"`` or ``"ok"``: coverage against the promised level, beyond Monte Carlo error."""
     if not np.isfinite(coverage):
@@ -104,6 +128,7 @@ def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
 def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
     """The summary table as display strings (one dict per row), with MCSEs beside their measures."""
     out = []
+    show, cost = measure_text(is_exact(summary)), cost_text(summary)
     for r in summary.itertuples(index=False):
         out.append(
             {
@@ -113,18 +138,18 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
                 "estimator": SHORT_ESTIMATOR.get(r.estimator, r.estimator),
                 "variable": r.variable,
                 "mean_n": num(r.mean_n),
-                "mean_cost": money(r.mean_cost),
+                "mean_cost": cost(r.mean_cost),
                 "truth": num(r.truth, 6),
-                "bias": with_mcse(r.bias, r.bias_mcse),
+                "bias": show(r.bias, r.bias_mcse),
                 "relative_bias": percent_like(
                     r.relative_bias, r.bias_mcse / abs(r.truth) if r.truth else float("nan")
                 ),
-                "empirical_se": with_mcse(r.empirical_se, r.empirical_se_mcse),
+                "empirical_se": show(r.empirical_se, r.empirical_se_mcse),
                 "mean_se": num(r.mean_se),
                 "se_ratio": num(r.se_ratio, 3),
                 "rmse": num(r.rmse),
                 "deff": num(r.deff, 3),
-                "coverage": with_mcse(r.coverage, r.coverage_mcse, scale=100.0),
+                "coverage": show(r.coverage, r.coverage_mcse, scale=100.0),
                 "coverage_flag": coverage_verdict(r.coverage, r.coverage_mcse, confidence),
                 "moe": num(r.moe),
                 "replicates": int(r.replicates),
@@ -137,10 +162,11 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
     """Sentences a reader needs from the summary: precision, cost, and intervals that lie."""
     out = []
     nominal = f"{100 * confidence:g}%"
+    exact = is_exact(summary)
     for var, s in summary.groupby("variable", sort=False):
         lab = {
-            i: f"{cell_label(d, m, n)} ({estimator_name(e)})"
-            for i, d, m, n, e in zip(s.index, s["design"], s["method"], s["size"], s["estimator"])
+            i: f"{cell_label(d, m, n, u)} ({estimator_name(e)})"
+            for i, d, m, n, u, e in zip(s.index, s["design"], s["method"], s["size"], s["mean_n"], s["estimator"])
         }
         verdict = {
             i: coverage_verdict(c, m, confidence)
@@ -165,7 +191,16 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
         else:
             out.append(f"No design's intervals for the mean {var} reach the promised {nominal} coverage.")
         low = [i for i in s.index if verdict[i] == "low"]
-        if low:
+        if low and exact:
+            out.append(
+                f"Intervals too narrow for the mean {var} (exact coverage, over every possible sample, below the "
+                f"promised {nominal}): "
+                + "; ".join(
+                    f"{lab[i]} holds the truth in {100 * s.loc[i, 'coverage']:.1f}% of possible samples" for i in low
+                )
+                + f". Their stated {nominal} confidence overstates what they deliver by the gap shown."
+            )
+        elif low:
             out.append(
                 f"Intervals too narrow for the mean {var} (coverage more than {COVERAGE_Z:g} simulation "
                 f"errors below the promised {nominal}): "

@@ -1,7 +1,7 @@
 """Evidence of a cycle along the frame's list order, kept with a run for the report's figure.
 
 When a run has a systematic design and the frame-order detector
-(:func:`samplewright.periodicity.frame_order_report`) finds a cycle along the order that
+(:func:`samplewright.diagnostics.periodicity.frame_order_report`) finds a cycle along the order that
 design walks, the run keeps a small table (``frame_order.csv``: the first few cycles of its
 strongest period, along that order) and the detected periods (run.json ``frame_order``), so the report
 can show the cycle and where every k-th unit falls on it without the frame.
@@ -28,13 +28,13 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
     """(periods per order and target, the table of values) for the run, or (None, None).
 
     Only the orders walked by the run's systematic designs, and only where a detected period
-    makes the interval of at least one of them unsafe (:func:`samplewright.periodicity.interval_risks`,
+    makes the interval of at least one of them unsafe (:func:`samplewright.diagnostics.periodicity.interval_risks`,
     the rule behind the run's warnings): a weak cycle that puts no design at risk is not shown.
     """
     systematic = [d for d in designs if getattr(d, "method", None) == "systematic"]
     if not systematic:
         return None, None
-    from ..periodicity import frame_order_report, interval_risks, unsafe_intervals
+    from samplewright.diagnostics.periodicity import frame_order_report, interval_risks, unsafe_intervals
 
     infos, tables, seen = [], [], set()
     for d in systematic:

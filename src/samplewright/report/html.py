@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import base64
 
-from .templating import render
+from samplewright.report.templating import render
 
 #: the marker by which a report.html written by samplewright is recognised (and may be rebuilt)
 MARKER = 'name="generator" content="samplewright'
@@ -22,4 +22,4 @@ def render_html(context: dict, figures: list[dict]) -> str:
     ``height`` (pixels).
     """
     figs = [{**f, "src": data_uri(f["png"])} for f in figures]
-    return render("report.html", {**context, "figures": figs}, autoescape=True)
+    return render("report.html", {**context, "figures": figs}, markup="html")

@@ -8,12 +8,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
-from .findings import SHORT_ESTIMATOR, findings, money, num, summary_rows, with_mcse
-from .figures import FIGURES, estimator_name, figure_names
+from samplewright import __version__
+from samplewright.report.findings import SHORT_ESTIMATOR, cost_text, findings, is_exact, measure_text, money, num, summary_rows
+from samplewright.report.figures import FIGURES, estimator_name, figure_names
 
 CAUTIONS = [
-    "The simulation treats the frame as the population. Units missing from the frame, duplicates and "
+    "The rehearsal treats the frame as the population. Units missing from the frame, duplicates and "
     "out-of-date "
     "records are not rehearsed unless the scenario models them; a real frame is only as good as its "
     "coverage.",
@@ -29,6 +29,10 @@ CAUTIONS = [
     "follow the applicable professional standards and local regulations, and a qualified statistician's "
     "review.",
 ]
+
+#: replaces the Monte Carlo caution (CAUTIONS[4]) for an exact-mode run
+EXACT_CAUTION = ("Every measure is computed over every possible sample of each design, weighted by its "
+                 "probability: the numbers are exact for this frame, with no error from the rehearsal itself.")
 
 PICKS = (
     ("cheapest_meeting_moe", "Cheapest design meeting the margin-of-error goal"),
@@ -135,15 +139,17 @@ def _untrusted(passed: list[dict]) -> list[dict]:
 def _reproduce(info: dict) -> str:
     seed, R = info.get("seed"), info.get("replicates")
     src = str(info.get("scenario") or "")
-    tail = f" --seed {seed} --replicates {R}" + (
+    exact = bool(info.get("exact"))  # every possible sample: no seed and no replicates
+    tail = " --exact" if exact else f" --seed {seed} --replicates {R}" + (
         f" --jobs {info['jobs']}" if info.get("jobs", 1) != 1 else ""
     )
     if src.replace("\\", "/").endswith("samplewright/data/demo.toml"):
         return f"samplewright demo --out NEW_FOLDER{tail}"
     if src:
         return f"samplewright run {src} --out NEW_FOLDER{tail}"
+    call = "exact=True" if exact else f"replicates={R}, seed={seed}"
     return (
-        f"samplewright.run(scenario, replicates={R}, seed={seed}) with the same scenario "
+        f"samplewright.run(scenario, {call}) with the same scenario "
         f"(built in Python; its hash is recorded below)"
     )
 
@@ -156,21 +162,30 @@ def _utc(ts: float | None) -> str | None:
 
 def metadata(info: dict, finished: float | None) -> list[tuple[str, str]]:
     versions = info.get("versions") or {}
-    rows = [
-        ("Root seed", str(info.get("seed"))),
-        ("Seed entropy", str(info.get("seed_entropy"))),
-        ("Replicates per design and size", num(info.get("replicates"), 9)),
-        ("Block size", str(info.get("block_size"))),
-        ("Parallel jobs (results do not depend on it)", str(info.get("jobs"))),
+    if info.get("exact"):  # every possible sample: no seed, replicates or blocks
+        samples = info.get("samples") or {}
+        rows = [("Possible samples enumerated", ", ".join(f"{k}: {num(v, 9)}" for k, v in samples.items()))]
+        spent = ("enumeration", info.get("enumeration_seconds", float("nan")))
+    else:
+        rows = [
+            ("Root seed", str(info.get("seed"))),
+            ("Seed entropy", str(info.get("seed_entropy"))),
+            ("Replicates per design and size", num(info.get("replicates"), 9)),
+            ("Block size", str(info.get("block_size"))),
+            ("Parallel jobs (results do not depend on it)", str(info.get("jobs"))),
+        ]
+        spent = ("simulation", info.get("simulation_seconds", float("nan")))
+    rows += [
         ("Confidence level", f"{100 * float(info.get('confidence', 0.95)):g}%"),
         ("Scenario file", str(info.get("scenario") or "built in Python")),
         ("Scenario hash (SHA-256)", str(info.get("scenario_hash"))),
         (
             "Elapsed time",
-            f"{float(info.get('elapsed_seconds', float('nan'))):.2f} s "
-            f"(simulation {float(info.get('simulation_seconds', float('nan'))):.2f} s)",
+            f"{float(info.get('elapsed_seconds', float('nan'))):.2f} s ({spent[0]} {float(spent[1]):.2f} s)",
         ),
     ]
+    if info.get("notes"):  # set-up facts (allocation, certainty units, no cost model): not warnings
+        rows.append(("Set-up notes", "; ".join(map(str, info["notes"]))))
     if finished is not None:
         rows.append(("Run finished", _utc(finished)))
     rows.append(("Versions", ", ".join(f"{k} {v}" for k, v in versions.items())))
@@ -237,9 +252,10 @@ def design_rows(res) -> list[dict]:
 
 def brief_rows(res, confidence: float) -> list[dict]:
     """One line per design x size for the brief: each design's first estimator."""
-    from .figures import primary_rows
+    from samplewright.report.figures import primary_rows
 
     rows = []
+    show, cost = measure_text(is_exact(res.summary)), cost_text(res.summary)
     for var in dict.fromkeys(res.summary["variable"]):
         for r in primary_rows(res.summary, var, max_rows=10**9).itertuples(index=False):
             rows.append(
@@ -247,10 +263,10 @@ def brief_rows(res, confidence: float) -> list[dict]:
                     "design": r.design,
                     "size": int(r.size),
                     "variable": var,
-                    "mean_cost": money(r.mean_cost),
+                    "mean_cost": cost(r.mean_cost),
                     "moe": num(r.moe),
-                    "bias": with_mcse(r.bias, r.bias_mcse),
-                    "coverage": with_mcse(r.coverage, r.coverage_mcse, scale=100.0),
+                    "bias": show(r.bias, r.bias_mcse),
+                    "coverage": show(r.coverage, r.coverage_mcse, scale=100.0),
                     "estimator": estimator_name(r.estimator),
                 }
             )
@@ -299,7 +315,7 @@ def build_context(res, folder: Path | None = None) -> dict:
         "notes": notes,
         "metadata": metadata(info, finished),
         "reproduce": _reproduce(info),
-        "cautions": CAUTIONS,
+        "cautions": [EXACT_CAUTION if c is CAUTIONS[4] and info.get("exact") else c for c in CAUTIONS],
         "any_low": any(r["coverage_flag"] == "low" for r in summary_rows(res.summary, confidence)),
         "any_high": any(r["coverage_flag"] == "high" for r in summary_rows(res.summary, confidence)),
         "has_nan": bool(np.any(~np.isfinite(res.summary.select_dtypes("number").to_numpy(float)))),

@@ -1,0 +1,39 @@
+"""samplewright synth SCENARIO --out FRAME.csv|.parquet: write a scenario's synthetic frame."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from samplewright.errors import InputError
+
+NAME = "synth"
+HELP = "write the synthetic frame a scenario describes to a CSV or Parquet file"
+
+
+def add_arguments(p) -> None:
+    p.add_argument("scenario", help="scenario file (TOML) with a [frame.synthetic] table")
+    p.add_argument("--out", required=True, help="frame file to write (.csv or .parquet); required")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file (default: off, refuse)")
+    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a one-line "
+                             "message (default: off)")
+
+
+def main(args) -> int:
+    from samplewright.files import write_csv, write_parquet
+    from samplewright.config.scenario import load_scenario
+
+    sc = load_scenario(args.scenario)
+    if sc.frame.synthetic is None:
+        raise InputError(f"{args.scenario}: [frame] names a file, not a [frame.synthetic] table; nothing to generate")
+    out = Path(args.out)
+    suffix = out.suffix.lower()
+    if suffix not in (".csv", ".parquet"):
+        raise InputError(f"--out {str(out)!r}: use a .csv or .parquet file name")
+    if out.exists() and not args.force:
+        raise InputError(f"--out {str(out)!r} exists; use --force to overwrite it")
+    if not out.parent.exists():
+        raise InputError(f"--out {str(out)!r}: folder {str(out.parent)!r} does not exist")
+    df = sc.frame.dataframe()
+    (write_csv if suffix == ".csv" else write_parquet)(df, out)
+    print(f"wrote {len(df)} units to {out}")
+    return 0

@@ -1,5 +1,0 @@
-"""One module per command; each has NAME, HELP, add_arguments(parser) and main(args) -> int."""
-
-from . import demo, inspect, plan, report, run, synth
-
-COMMANDS = [run, demo, synth, plan, report, inspect]

@@ -1,0 +1,1 @@
+"""Scenario reading and validation: TOML to frozen, validated specs; every `error:` message."""

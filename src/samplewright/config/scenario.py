@@ -1,0 +1,461 @@
+"""Scenario files (TOML) turned into a validated, frozen :class:`Scenario`.
+
+Every check of a scenario's keys, types and values happens here, once; a refusal is an
+:class:`~samplewright.errors.InputError` naming the file and key at fault (and, for a
+misspelt key, the closest valid one).  A scenario can also be built in Python with
+:func:`scenario_from_dict` or by constructing :class:`Scenario` directly.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import tomllib
+import unicodedata
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as COST_SCALARS, CostModel
+from samplewright.designs import METHODS, RENAMED_METHODS, Design
+from samplewright.errors import InputError, show
+from samplewright.estimation.auxiliary import check_estimators
+from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.population.frame import Frame, input_file, read_table
+from samplewright.population.synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
+from samplewright.config.validate import closest
+
+TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
+            "response", "frame_error", "goal")
+FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
+              "auxiliary", "poststratum", "domain", "domains", "cluster_cost")
+COST_KEYS = COST_MODEL_KEYS  # cost.py lists them (scalar rates, per_unit_by_stratum, charge_touched_clusters)
+GOAL_KEYS = ("moe", "budget", "confidence", "variable")
+DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
+DEFAULT_BLOCK = 500
+#: largest sample size and synthetic frame accepted, so an absurd value is refused before any array is
+#: allocated (sanity bounds, no published source; a frame file is limited only by the machine)
+MAX_SIZE = 10_000_000
+MAX_SYNTHETIC_UNITS = 50_000_000
+#: largest scenario file read (a settings file; 1 MiB is some 30,000 lines of settings: a sanity bound)
+MAX_SCENARIO_BYTES = 1 << 20
+
+
+# ------------------------------------------------------------------ type checks
+def _where(ctx: str, key: str) -> str:
+    return f"{ctx}: {key}" if ctx else key
+
+
+def check_keys(table: dict, allowed, ctx: str) -> None:
+    """Refuse keys that are not in ``allowed``, naming the closest valid one."""
+    if not isinstance(table, dict):
+        raise InputError(f"{ctx} must be a table, got {type(table).__name__}")
+    for k in table:
+        if k not in allowed:
+            raise InputError(f"{ctx}: unknown key {show(k)}{closest(k, allowed)}")
+
+
+def as_int(value, key: str, ctx: str = "", minimum: int | None = None, maximum: int | None = None) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise InputError(f"{_where(ctx, key)} must be a whole number, got {show(value)}")
+    if minimum is not None and value < minimum:
+        raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {value}")
+    if maximum is not None and value > maximum:
+        raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {value}")
+    return value
+
+
+def as_float(value, key: str, ctx: str = "", minimum: float | None = None, maximum: float | None = None,
+             open_interval: bool = False) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{_where(ctx, key)} must be a number, got {show(value)}")
+    v = float(value)
+    if v != v or v in (float("inf"), float("-inf")):
+        raise InputError(f"{_where(ctx, key)} must be a finite number, got {show(value)}")
+    if open_interval and not (minimum < v < maximum):
+        raise InputError(f"{_where(ctx, key)} must lie strictly between {minimum} and {maximum}, got {show(value)}")
+    if not open_interval:
+        if minimum is not None and v < minimum:
+            raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {show(value)}")
+        if maximum is not None and v > maximum:
+            raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {show(value)}")
+    return v
+
+
+def as_str(value, key: str, ctx: str = "") -> str:
+    """A non-empty text of one line: control characters (line breaks, tabs, NUL...) are refused,
+    since labels and titles end up in CSV rows, figures, Markdown and terminal lines."""
+    if not isinstance(value, str) or not value.strip():
+        raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
+    bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
+    if bad is not None:
+        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}{' (a NUL byte)' if bad == chr(0) else ''}; "
+                         f"give one line of printable text")
+    return value
+
+
+def as_bool(value, key: str, ctx: str = "") -> bool:
+    if not isinstance(value, bool):
+        raise InputError(f"{_where(ctx, key)} must be true or false, got {show(value)}")
+    return value
+
+
+def as_sizes(value, key: str, ctx: str) -> int | list[int]:
+    """A whole number above 0, or a non-empty list of them (a size sweep)."""
+    if isinstance(value, list):
+        if not value:
+            raise InputError(f"{_where(ctx, key)} is an empty list; give one size or several")
+        out = [as_int(v, key, ctx, minimum=1, maximum=MAX_SIZE) for v in value]
+        if len(set(out)) != len(out):
+            raise InputError(f"{_where(ctx, key)} lists a size twice: {show(out)}")
+        return out
+    return as_int(value, key, ctx, minimum=1, maximum=MAX_SIZE)
+
+
+# ------------------------------------------------------------------ frame spec
+@dataclass(frozen=True)
+class FrameSpec:
+    """Where the frame comes from (a file or a synthetic generator) and its column roles."""
+
+    path: Path | None = None
+    synthetic: SyntheticSpec | None = None
+    roles: dict = field(default_factory=dict)  # target, stratum, cluster, size, order, unit_cost, id
+    missing: str = "refuse"
+
+    def dataframe(self):
+        if self.synthetic is not None:
+            return generate(self.synthetic)
+        return read_table(self.path)
+
+    def load(self) -> Frame:
+        source = "synthetic frame" if self.synthetic is not None else str(self.path)
+        return Frame.from_dataframe(self.dataframe(), missing=self.missing, source=source, **self.roles)
+
+
+def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
+    check_keys(table, SYNTH_KEYS, ctx)
+    if "units" not in table:
+        raise InputError(f"{ctx}: missing required key 'units' (number of units to generate)")
+    kw = {"units": as_int(table["units"], "units", ctx, minimum=2, maximum=MAX_SYNTHETIC_UNITS)}
+    for k in ("seed",):
+        if k in table:
+            kw[k] = as_int(table[k], k, ctx, minimum=0)
+    for k in ("target",):
+        if k in table:
+            kw[k] = as_str(table[k], k, ctx)
+    for k in ("mean", "trend", "amplitude"):
+        if k in table:
+            kw[k] = as_float(table[k], k, ctx)
+    for k in ("sd", "size_mean", "size_cv"):
+        if k in table:
+            kw[k] = as_float(table[k], k, ctx, minimum=0.0)
+    if "skewness" in table:
+        kw["skewness"] = as_float(table["skewness"], "skewness", ctx, minimum=1e-6)
+    if "period" in table:
+        kw["period"] = as_float(table["period"], "period", ctx, minimum=1.0)
+    if "size_correlation" in table:
+        kw["size_correlation"] = as_float(table["size_correlation"], "size_correlation", ctx, -1.0, 1.0)
+    for k, options in (("skew", ("none", "gamma", "lognormal")), ("order", ("random", "grouped"))):
+        if k in table:
+            v = as_str(table[k], k, ctx)
+            if v not in options:
+                raise InputError(f"{ctx}: {k} = {show(v)} is not accepted{closest(v, options)}")
+            kw[k] = v
+    if "strata" in table:
+        strata = table["strata"]
+        if not isinstance(strata, list) or not strata:
+            raise InputError(f"{ctx}: strata must be a non-empty list of tables {{name, share, mean, sd}}")
+        for i, s in enumerate(strata):
+            sctx = f"{ctx}.strata[{i}]"
+            check_keys(s, STRATUM_KEYS, sctx)
+            if "share" in s:
+                as_float(s["share"], "share", sctx, minimum=1e-12)
+            if "sd" in s:
+                as_float(s["sd"], "sd", sctx, minimum=0.0)
+            if "mean" in s:
+                as_float(s["mean"], "mean", sctx)
+        names = [str(s.get("name", i)) for i, s in enumerate(strata)]
+        if len(set(names)) != len(names):
+            raise InputError(f"{ctx}: strata names repeat: {names}")
+        kw["strata"] = tuple(dict(s) for s in strata)
+    if "clusters" in table:
+        c = table["clusters"]
+        cctx = f"{ctx}.clusters"
+        check_keys(c, CLUSTER_KEYS, cctx)
+        if "mean_size" in c:
+            as_float(c["mean_size"], "mean_size", cctx, minimum=1.0)
+        if "icc" in c:
+            as_float(c["icc"], "icc", cctx, minimum=0.0, maximum=1.0)
+        if "size_cv" in c:
+            as_float(c["size_cv"], "size_cv", cctx, minimum=0.0)
+        kw["clusters"] = dict(c)
+    spec = SyntheticSpec(**kw)
+    stratum_units(spec)  # every stratum gets a unit: refused here, before any output folder is made
+    return spec
+
+
+def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
+    check_keys(table, FRAME_KEYS, ctx)
+    has_path, has_synth = "path" in table, "synthetic" in table
+    if has_path == has_synth:
+        raise InputError(f"{ctx}: give either path = \"file.csv\" or a [frame.synthetic] table (exactly one)")
+    synthetic = _synthetic(table["synthetic"], "[frame.synthetic]") if has_synth else None
+    path = None
+    if has_path:
+        name = as_str(table["path"], "path", ctx)
+        if "\0" in name:
+            raise InputError(f"{ctx}: path {show(name)} contains a NUL byte; no file can have that name")
+        path = base / name
+    roles = {}
+    if "target" in table:
+        t = table["target"]
+        if isinstance(t, list):
+            if not t:
+                raise InputError(f"{ctx}: target is an empty list")
+            roles["target"] = [as_str(v, "target", ctx) for v in t]
+        else:
+            roles["target"] = as_str(t, "target", ctx)
+    elif synthetic is not None:
+        roles["target"] = synthetic.target
+    else:
+        raise InputError(f"{ctx}: missing required key 'target' (the study-variable column)")
+    for k in ("stratum", "cluster", "size", "order", "unit_cost", "id", "poststratum", "domain", "cluster_cost"):
+        if k in table:
+            roles[k] = as_str(table[k], k, ctx)
+    if "auxiliary" in table:  # columns whose population totals the frame gives (ratio, greg)
+        a = table["auxiliary"]
+        a = [a] if isinstance(a, str) else a
+        if not isinstance(a, list) or not a:
+            raise InputError(f"{ctx}: auxiliary must be a column name or a non-empty list of them, got {show(a)}")
+        roles["auxiliary"] = [as_str(v, "auxiliary", ctx) for v in a]
+    if "domains" in table:  # which values of the domain column to report
+        d = table["domains"]
+        if not isinstance(d, list) or not d or any(isinstance(v, (bool, dict, list)) for v in d):
+            raise InputError(f"{ctx}: domains must be a non-empty list of domain values, got {show(d)}")
+        if "domain" not in table:
+            raise InputError(f"{ctx}: domains is given but domain (the column defining them) is not")
+        roles["domains"] = list(d)
+    if synthetic is not None:  # the generator's columns are bound unless named otherwise
+        if synthetic.has_strata:
+            roles.setdefault("stratum", "stratum")
+        if synthetic.clusters is not None:
+            roles.setdefault("cluster", "cluster")
+        if synthetic.size_correlation is not None:
+            roles.setdefault("size", "size")
+    missing = table.get("missing", "refuse")
+    if missing not in ("refuse", "drop"):
+        raise InputError(f"{ctx}: missing = {show(missing)} is not accepted (use 'refuse' or 'drop')")
+    return FrameSpec(path=path, synthetic=synthetic, roles=roles, missing=missing)
+
+
+# ------------------------------------------------------------------ designs
+def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
+    """Build one design and its estimator list from a ``[[design]]`` table."""
+    if not isinstance(table, dict):
+        raise InputError(f"{ctx} must be a table")
+    for req in ("label", "method"):
+        if req not in table:
+            raise InputError(f"{ctx}: missing required key {show(req)}")
+    label = as_str(table["label"], "label", ctx)
+    ctx = f"design {show(label)}"
+    method = as_str(table["method"], "method", ctx)
+    if method in RENAMED_METHODS:
+        raise InputError(f"{ctx}: method {method!r} is no longer accepted: use {RENAMED_METHODS[method]}")
+    if method not in METHODS:
+        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, METHODS)}")
+    cls = METHODS[method]
+    check_keys(table, DESIGN_COMMON + cls.keys, ctx)
+    params = {}
+    for k in cls.keys:
+        if k not in table:
+            continue
+        v = table[k]
+        if k == cls.size_key:
+            params[k] = as_sizes(v, k, ctx)
+        elif k in ("replace", "cap_units"):
+            params[k] = as_bool(v, k, ctx)
+        elif k in ("units_per_cluster",):
+            params[k] = as_int(v, k, ctx, minimum=1)
+        elif isinstance(v, str):
+            params[k] = as_str(v, k, ctx)
+        else:
+            params[k] = v
+    if cls.size_key not in params:
+        raise InputError(f"{ctx}: missing required key {show(cls.size_key)} (the sample size)")
+    est = table.get("estimators", ["ht", "hajek"])
+    if isinstance(est, str):
+        est = [est]
+    if not isinstance(est, list) or not est:
+        raise InputError(f"{ctx}: estimators must be a non-empty list, got {show(est)}")
+    for e in est:
+        if not isinstance(e, str) or e not in ESTIMATORS:
+            raise InputError(f"{ctx}: estimator {show(e)} is not known{closest(str(e), ESTIMATORS)}")
+    try:
+        design = cls(label, **params)
+    except TypeError as exc:
+        raise InputError(f"{ctx}: {exc}") from None
+    from samplewright.estimation.weighting import adjustment_from_table
+
+    design.adjustment = adjustment_from_table(table, ctx)
+    return design, tuple(dict.fromkeys(est))
+
+
+# ------------------------------------------------------------------ scenario
+@dataclass(frozen=True)
+class Scenario:
+    """A validated scenario: the frame, the competing designs and the run settings."""
+
+    frame: FrameSpec
+    designs: tuple[Design, ...]
+    estimators: tuple[tuple[str, ...], ...]
+    title: str = "untitled scenario"
+    seed: int = 20261201
+    replicates: int = 1000
+    confidence: float = 0.95
+    block_size: int = DEFAULT_BLOCK
+    cost: CostModel = field(default_factory=CostModel)
+    goal: object | None = None  # recommend.Goal, from [goal]
+    response: object | None = None  # response.ResponseModel, from [response]
+    frame_error: object | None = None  # frame_errors.FrameErrorSpec, from [frame_error]
+    source: Path | None = None
+    raw: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def hash(self) -> str:
+        """SHA-256 of the scenario's content (keys sorted), for run.json."""
+        blob = json.dumps(self.raw, sort_keys=True, default=str).encode()
+        return hashlib.sha256(blob).hexdigest()
+
+    def load_frame(self) -> Frame:
+        return self.frame.load()
+
+
+def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = None) -> Scenario:
+    """Validate a scenario given as a dict (the parsed TOML) and build it.
+
+    Examples
+    --------
+    >>> sc = scenario_from_dict({
+    ...     "frame": {"synthetic": {"units": 500}},
+    ...     "design": [{"label": "simple", "method": "srs", "n": 50}],
+    ... })
+    >>> sc.designs[0].label
+    'simple'
+    """
+    base = Path(base)
+    check_keys(doc, TOP_KEYS, str(source) if source else "scenario")
+    kw = {}
+    if "title" in doc:
+        kw["title"] = as_str(doc["title"], "title")
+    if "seed" in doc:
+        kw["seed"] = as_int(doc["seed"], "seed", minimum=0)
+    if "replicates" in doc:
+        kw["replicates"] = as_int(doc["replicates"], "replicates", minimum=1)
+    if "confidence" in doc:
+        kw["confidence"] = as_float(doc["confidence"], "confidence", minimum=0.0, maximum=1.0, open_interval=True)
+    if "block_size" in doc:
+        kw["block_size"] = as_int(doc["block_size"], "block_size", minimum=1)
+    if "frame" not in doc:
+        raise InputError("missing required table [frame] (a path or a [frame.synthetic] table)")
+    frame = _frame_spec(doc["frame"], base)
+    designs = doc.get("design")
+    if not designs:
+        raise InputError("missing required [[design]] tables: name at least one design to rehearse")
+    if not isinstance(designs, list):
+        raise InputError("design must be written as [[design]] tables (a list)")
+    built = [design_from_dict(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs)]
+    for d, est in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
+        check_estimators(est, frame.roles, f"design {show(d.label)}")
+    sort_keys = [d.sort_by for d, _ in built if isinstance(getattr(d, "sort_by", None), str)]
+    if sort_keys:  # systematic designs' sort_by columns are resolved when the frame is loaded
+        frame = replace(frame, roles={**frame.roles, "sort_keys": list(dict.fromkeys(sort_keys))})
+    labels = [d.label for d, _ in built]
+    dup = {x for x in labels if labels.count(x) > 1}
+    if dup:
+        raise InputError(f"design label {show(sorted(dup)[0])} is used twice; labels must be unique")
+    if "cost" in doc:
+        kw["cost"] = _cost_model(doc["cost"])
+    if "goal" in doc:
+        kw["goal"] = _goal(doc["goal"], frame.roles.get("target"))
+    kw.update(_fieldwork_tables(doc))
+    return Scenario(frame=frame, designs=tuple(d for d, _ in built), estimators=tuple(e for _, e in built),
+                    source=source, raw=doc, **kw)
+
+
+def _cost_model(c: dict) -> CostModel:
+    """[cost]: scalar rates (numbers >= 0), [cost.per_unit_by_stratum] and charge_touched_clusters."""
+    check_keys(c, COST_KEYS, "[cost]")
+    kw = {k: as_float(c[k], k, "[cost]", minimum=0.0) for k in c if k in COST_SCALARS}
+    if "per_unit_by_stratum" in c:
+        t, ctx = c["per_unit_by_stratum"], "[cost.per_unit_by_stratum]"
+        if not isinstance(t, dict) or not t:
+            raise InputError(f"{ctx} must be a table of stratum label = cost per unit, e.g. "
+                             f"[cost.per_unit_by_stratum] with a line north = 18.0")
+        kw["per_unit_by_stratum"] = tuple((str(k), as_float(v, str(k), ctx, minimum=0.0)) for k, v in t.items())
+    if "charge_touched_clusters" in c:
+        kw["charge_touched_clusters"] = as_bool(c["charge_touched_clusters"], "charge_touched_clusters", "[cost]")
+    return CostModel(**kw)
+
+
+def _goal(g: dict, targets):
+    """[goal]: a target margin of error and/or a budget, the confidence level, the variable."""
+    from samplewright.decision.recommend import Goal
+
+    check_keys(g, GOAL_KEYS, "[goal]")
+    if "moe" not in g and "budget" not in g:
+        raise InputError("[goal] needs moe (the margin of error to reach) and/or budget (the money available)")
+    kw = {}
+    for k in ("moe", "budget"):
+        if k in g:
+            kw[k] = as_float(g[k], k, "[goal]", minimum=0.0)
+            if kw[k] <= 0:
+                raise InputError(f"[goal]: {k} must be above 0, got {show(g[k])}")
+    if "confidence" in g:
+        kw["confidence"] = as_float(g["confidence"], "confidence", "[goal]", 0.0, 1.0, open_interval=True)
+    if "variable" in g:
+        v = as_str(g["variable"], "variable", "[goal]")
+        names = [targets] if isinstance(targets, str) else list(targets or [])
+        if names and v not in names:
+            raise InputError(f"[goal]: variable {show(v)} is not a target of [frame]{closest(v, names)}")
+        kw["variable"] = v
+    return Goal(**kw)
+
+
+def _fieldwork_tables(doc: dict) -> dict:
+    """[response] and [frame_error] (validated in response.py and frame_errors.py)."""
+    from samplewright.population.frame_errors import frame_error_from_dict
+    from samplewright.simulation.response import response_from_dict
+
+    out = {}
+    if "response" in doc:
+        out["response"] = response_from_dict(doc["response"])
+    if "frame_error" in doc:
+        out["frame_error"] = frame_error_from_dict(doc["frame_error"])
+    return out
+
+
+def load_scenario(path) -> Scenario:
+    """Read and validate a scenario TOML file.
+
+    Examples
+    --------
+    >>> from importlib.resources import files
+    >>> sc = load_scenario(files("samplewright") / "data" / "demo.toml")
+    >>> len(sc.designs) >= 3
+    True
+    """
+    p = input_file(path, "scenario file")
+    size = p.stat().st_size
+    if size > MAX_SCENARIO_BYTES:
+        raise InputError(f"scenario file {str(p)!r} is {size:,} bytes, more than the {MAX_SCENARIO_BYTES:,} "
+                         f"a scenario may have (it holds settings, not data: put data in the frame file)")
+    try:
+        text = p.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"scenario file {str(p)!r} could not be read: {exc}") from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{p}: malformed TOML: {exc}") from None
+    except RecursionError:  # tomllib parses nested arrays and tables recursively
+        raise InputError(f"{p}: malformed TOML: arrays or tables nested too deeply to read") from None
+    return scenario_from_dict(doc, base=p.parent, source=p)

@@ -1,0 +1,293 @@
+"""The one validation layer for frames: every check of a user's columns happens here.
+
+Each refusal raises :class:`~samplewright.errors.InputError` with a message that names the
+file, column, row or value at fault and, where it helps, what would be accepted.
+"""
+
+from __future__ import annotations
+
+import difflib
+
+import numpy as np
+import pandas as pd
+
+from samplewright.errors import InputError, show
+
+
+def closest(word: str, options) -> str:
+    """A ``" (did you mean 'x'?)"`` hint, or a list of what is accepted."""
+    options = [str(o) for o in options]
+    near = difflib.get_close_matches(str(word), options, n=1, cutoff=0.5)
+    if near:
+        return f" (did you mean {show(near[0])}?)"
+    if len(options) <= 12:
+        return f" (expected one of: {', '.join(_cut(o) for o in options)})"
+    return ""
+
+
+def _cut(name: str, limit: int = 30) -> str:
+    return name if len(name) <= limit else name[:limit - 3] + "..."
+
+
+def _header_hint(col: str, columns) -> str:
+    """A close match, else the frame's first column names: at most 20, each cut to 20 characters,
+    at most 200 characters in all."""
+    names = [str(c) for c in columns]
+    near = difflib.get_close_matches(str(col), names, n=1, cutoff=0.5)
+    if near:
+        return f" (did you mean {show(near[0])}?)"
+    shown = []
+    for n in names[:20]:
+        if sum(len(s) + 2 for s in shown) + len(_cut(n, 20)) > 200:
+            break
+        shown.append(_cut(n, 20))
+    more = f", ... ({len(names)} in all)" if len(shown) < len(names) else ""
+    return f" (its columns: {', '.join(shown)}{more})"
+
+
+def _rows(mask: np.ndarray, limit: int = 5, kept: np.ndarray | None = None) -> str:
+    """First offending rows, numbered as in a spreadsheet with a header row (data starts at row 2).
+
+    ``kept`` maps the current rows to the file's rows after some were dropped.
+    """
+    pos = np.flatnonzero(mask)[:limit]
+    rows = (pos if kept is None else kept[pos]) + 2
+    more = " ..." if mask.sum() > limit else ""
+    return ", ".join(str(r) for r in rows) + more
+
+
+def _labels(series: pd.Series) -> pd.Series:
+    """Stratum or cluster labels that can be sorted: mixed Python types are compared as text."""
+    if series.dtype == object:
+        try:
+            sorted(series.dropna().unique())
+        except TypeError:
+            return series.where(series.isna(), series.astype(str))
+    return series
+
+
+def _require_column(df: pd.DataFrame, col, role: str, source: str) -> str:
+    if not isinstance(col, str) or not col:
+        raise InputError(f"{source}: the {role} column must be given as a column name, got {show(col)}")
+    if col not in df.columns:
+        raise InputError(f"{source}: {role} column {show(col)} is not in the frame{_header_hint(col, df.columns)}")
+    return col
+
+
+def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
+             kept: np.ndarray | None = None) -> tuple[pd.Series, np.ndarray]:
+    """Coerce a column to float; return it and a mask of rows that are not finite numbers."""
+    raw = df[col]
+    if role != "order":  # amounts: a list may be ordered by date, but a date or a yes/no is no amount
+        kind = _not_amount(raw)
+        if kind:
+            raise InputError(f"{source}: {role} column {show(col)} holds {kind} values, not numbers; "
+                             f"give a numeric column (e.g. 0/1 for yes/no)")
+    num = pd.to_numeric(raw, errors="coerce").astype(float)
+    text = num.isna() & raw.notna()
+    bad = ~np.isfinite(num.to_numpy())
+    if text.any() and missing != "drop":
+        first = raw[text].iloc[0]
+        raise InputError(
+            f"{source}: {role} column {show(col)} has {int(text.sum())} non-numeric value(s), "
+            f"first {show(first)} at row(s) {_rows(text.to_numpy(), kept=kept)}"
+        )
+    big = float(np.abs(num.to_numpy()[~bad]).max(initial=0.0))
+    with np.errstate(over="ignore"):
+        overflow = role != "order" and not np.isfinite((len(num) * big) ** 2)
+    if overflow:  # totals reach N max|y|; variances square them
+        raise InputError(f"{source}: {role} column {show(col)} has values as large as {big:.3g}: over "
+                         f"{len(num):,} units their total or its square would overflow to infinity; "
+                         f"rescale the column (e.g. to thousands or millions)")
+    return num, bad
+
+
+def _not_amount(raw: pd.Series) -> str | None:
+    """'true/false' or 'date/time' when the column holds such values (which to_numeric would turn
+    into 1/0 or nanoseconds), else None."""
+    if pd.api.types.is_bool_dtype(raw):
+        return "true/false"
+    if pd.api.types.is_datetime64_any_dtype(raw) or pd.api.types.is_timedelta64_dtype(raw):
+        return "date/time"
+    if raw.dtype == object:  # e.g. True/False with blanks, or dates read from Parquet as objects
+        import datetime as dt
+
+        kinds = {type(v) for v in raw.dropna().to_numpy()}
+        if any(issubclass(k, (bool, np.bool_)) for k in kinds):
+            return "true/false"
+        if any(issubclass(k, (dt.date, dt.time, dt.timedelta, np.datetime64, np.timedelta64)) for k in kinds):
+            return "date/time"
+    return None
+
+
+def sort_key_codes(df: pd.DataFrame, sort_keys, source: str = "frame") -> dict:
+    """Integer codes (in sorted order of the values) of each column a design sorts the list by.
+
+    Every column must exist and have no blank cells; numbers sort as numbers, text as text
+    (mixed types as text).  Used by systematic designs' ``sort_by`` (implicit stratification).
+    """
+    out = {}
+    for col in sort_keys:
+        _require_column(df, col, "sort_by", source)
+        blank = df[col].isna().to_numpy()
+        if blank.any():
+            raise InputError(f"{source}: sort_by column {show(col)} is blank at row(s) {_rows(blank)}")
+        codes, _ = pd.factorize(_labels(df[col]), sort=True)
+        out[col] = codes.astype(np.int64)
+    return out
+
+
+def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=None, order=None,
+                  unit_cost=None, id=None, missing="refuse", source="frame"):
+    """Check the role columns of a frame; return the (possibly row-dropped) frame and the roles.
+
+    Rules: every named column exists; target values are finite numbers (``missing="drop"``
+    drops the rows that are not and records how many); stratum and cluster labels are
+    present; a cluster code belongs to one stratum only; ids are unique; unit costs are
+    finite and not negative; the size measure and the order column are finite numbers.
+    """
+    if missing not in ("refuse", "drop"):
+        raise InputError(f"{source}: missing = {show(missing)} is not accepted (use 'refuse' or 'drop')")
+    if not isinstance(df, pd.DataFrame):
+        raise InputError(f"{source}: expected a table, got {type(df).__name__}")
+    if len(df) == 0:
+        raise InputError(f"{source}: the frame has no rows")
+    targets = [target] if isinstance(target, str) else list(target or [])
+    if not targets:
+        raise InputError(f"{source}: no target column given (set target = \"column\" in [frame])")
+    if len(set(targets)) != len(targets):
+        raise InputError(f"{source}: target lists a column twice: {targets}")
+    for t in targets:
+        _require_column(df, t, "target", source)
+    named = {"stratum": stratum, "cluster": cluster, "size": size, "order": order,
+             "unit_cost": unit_cost, "id": id}
+    for role, col in named.items():
+        if col is not None:
+            _require_column(df, col, role, source)
+
+    df = df.copy()
+    drop = np.zeros(len(df), dtype=bool)
+    for t in targets:
+        num, bad = _numeric(df, t, "target", source, missing)
+        df[t] = num
+        if bad.any() and missing != "drop":
+            raise InputError(
+                f"{source}: target column {show(t)} has {int(bad.sum())} missing or non-finite value(s) "
+                f"at row(s) {_rows(bad)}; fix them or set missing = \"drop\" in [frame]"
+            )
+        drop |= bad
+    dropped = int(drop.sum())
+    kept = None  # file row of each remaining row, once rows were dropped
+    if dropped:
+        kept = np.flatnonzero(~drop)
+        df = df.loc[~drop].reset_index(drop=True)
+        if len(df) == 0:
+            raise InputError(f"{source}: every row has a missing target value; nothing is left to sample")
+
+    for role in ("stratum", "cluster"):
+        col = named[role]
+        if col is None:
+            continue
+        if df[col].isna().any():
+            bad = df[col].isna().to_numpy()
+            raise InputError(f"{source}: {role} column {show(col)} is blank at row(s) {_rows(bad, kept=kept)}")
+        df[col] = _labels(df[col])
+    for role in ("size", "order", "unit_cost"):
+        col = named[role]
+        if col is None:
+            continue
+        num, bad = _numeric(df, col, role, source, "refuse", kept)
+        if bad.any():
+            raise InputError(f"{source}: {role} column {show(col)} has missing or non-finite value(s) "
+                             f"at row(s) {_rows(bad, kept=kept)}")
+        if role == "unit_cost" and (num < 0).any():
+            neg = (num < 0).to_numpy()
+            raise InputError(f"{source}: unit_cost column {show(col)} has negative cost(s) "
+                             f"at row(s) {_rows(neg, kept=kept)}")
+        df[col] = num
+    if id is not None:
+        dup = df[id].duplicated(keep=False).to_numpy()
+        if dup.any():
+            first = df[id][dup].iloc[0]
+            raise InputError(f"{source}: id column {show(id)} has {int(dup.sum())} rows with repeated ids, "
+                             f"first {show(first)} at row(s) {_rows(dup, kept=kept)}")
+    if stratum is not None and cluster is not None:
+        per = df.groupby(cluster, sort=False)[stratum].nunique()
+        spanning = per[per > 1]
+        if len(spanning):
+            c = spanning.index[0]
+            strata = sorted(df.loc[df[cluster] == c, stratum].unique().tolist())[:3]
+            raise InputError(f"{source}: cluster {show(c)} (column {show(cluster)}) appears in more than one stratum "
+                             f"({', '.join(map(str, strata))}); clusters must nest in strata")
+    roles = {"target": tuple(targets), **{k: v for k, v in named.items() if v is not None},
+             "dropped_rows": dropped, "source": source}
+    return df, roles
+
+
+def auxiliary_columns(df: pd.DataFrame, *, auxiliary=None, poststratum=None, domain=None, domains=None,
+                      source="frame"):
+    """Check the auxiliary, post-stratum and domain columns; return the auxiliary names and roles.
+
+    Rules: every named column exists; auxiliary values are finite numbers (their population
+    totals are taken from the frame, so none may be missing); an auxiliary is listed once;
+    post-stratum and domain labels are present; every value listed in ``domains`` occurs in
+    the domain column (compared as text, so ``domains = [1, 2]`` matches a column of 1 and 2).
+    """
+    names = [] if auxiliary is None else ([auxiliary] if isinstance(auxiliary, str) else list(auxiliary))
+    if len(set(names)) != len(names):
+        raise InputError(f"{source}: auxiliary lists a column twice: {names}")
+    for a in names:
+        _require_column(df, a, "auxiliary", source)
+        num, bad = _numeric(df, a, "auxiliary", source, "refuse")
+        if bad.any():
+            raise InputError(f"{source}: auxiliary column {show(a)} has missing or non-finite value(s) at row(s) "
+                             f"{_rows(bad)}; its population total must be known, so every unit needs a value")
+    roles = {}
+    if names:
+        roles["auxiliary"] = tuple(names)
+    for role, col in (("poststratum", poststratum), ("domain", domain)):
+        if col is None:
+            continue
+        _require_column(df, col, role, source)
+        if df[col].isna().any():
+            raise InputError(f"{source}: {role} column {show(col)} is blank at row(s) {_rows(df[col].isna().to_numpy())}")
+        roles[role] = col
+    if domains is not None:
+        if domain is None:
+            raise InputError(f"{source}: domains lists domain values but no domain column is given "
+                             f"(set domain = \"column\" in [frame])")
+        present = {str(v) for v in df[domain].unique()}
+        for v in domains:
+            if str(v) not in present:
+                raise InputError(f"{source}: domain value {show(v)} does not occur in domain column {show(domain)}"
+                                 f"{closest(str(v), sorted(present))}")
+        roles["domains"] = tuple(str(v) for v in domains)
+    return tuple(names), roles
+
+
+def cluster_cost_column(df: pd.DataFrame, column, cluster, source="frame") -> np.ndarray:
+    """Check a per-cluster cost column; return its values per row.
+
+    Rules: a cluster column is bound; the column exists; its values are finite numbers, not
+    negative, and the same for every unit of a cluster (it is the cost of visiting the cluster).
+    """
+    if cluster is None:
+        raise InputError(f"{source}: cluster_cost column {show(column)} needs a cluster column "
+                         f"(set cluster = \"column\" in [frame])")
+    _require_column(df, column, "cluster_cost", source)
+    num, bad = _numeric(df, column, "cluster_cost", source, "refuse")
+    if bad.any():
+        raise InputError(f"{source}: cluster_cost column {show(column)} has missing or non-finite value(s) "
+                         f"at row(s) {_rows(bad)}")
+    if (num < 0).any():
+        raise InputError(f"{source}: cluster_cost column {show(column)} has negative cost(s) "
+                         f"at row(s) {_rows((num < 0).to_numpy())}")
+    spread = num.groupby(df[cluster].to_numpy(), sort=False).agg(["min", "max"])
+    varying = spread[spread["min"] != spread["max"]]
+    if len(varying):
+        c = varying.index[0]
+        rows = (df[cluster] == c).to_numpy()
+        raise InputError(f"{source}: cluster_cost column {show(column)} differs within cluster {show(c)} "
+                         f"(from {varying['min'].iloc[0]:g} to {varying['max'].iloc[0]:g}, rows {_rows(rows)}); "
+                         f"it must be one cost per cluster")
+    return num.to_numpy(dtype=np.float64)

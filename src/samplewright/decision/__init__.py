@@ -1,0 +1,1 @@
+"""Cost-precision frontier, recommendation, sample-size planning."""

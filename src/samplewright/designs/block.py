@@ -1,0 +1,88 @@
+"""The one thing every design hands to the estimators: a block of replicate samples.
+
+Whatever the selection rule, a sample is expressed as primary sampling units (PSUs) within
+strata: for SRS each unit is a PSU in a single stratum; for a stratified design units are
+PSUs within strata; for cluster designs the clusters are the PSUs.  A block holds, for B
+replicates at once, the unweighted sums over each PSU's sampled units of the frame's value
+columns (study variables, a count, the unit cost) and the expansion weight that turns a
+PSU sum into an estimated PSU total.  One variance routine then serves every design.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass
+class SampleBlock:
+    """B replicate samples of one design, as dense arrays.
+
+    Attributes
+    ----------
+    sums : (B, m, K) array
+        Unweighted sums over each PSU's sampled units of ``Frame.values`` columns.
+    weight : (B, m) or (m,) array
+        Expansion weight of each PSU sum (inverse inclusion probability of its units, for
+        designs where all sampled units of a PSU share one weight).
+    psu_stratum : (m,) int array
+        Design stratum of each PSU position (the same for every replicate).
+    fpc : (H,) array
+        First-stage finite population correction ``1 - f_h`` per design stratum
+        (1 for with-replacement selection).
+    clusters : (B,) array
+        Clusters visited per replicate (0 for designs that select units directly).
+    strata : int
+        Strata set up in the field (for the per-stratum cost); 0 for a design that does
+        not stratify.
+    mask : (B, m) bool array or None
+        True where a PSU position holds a real PSU (designs with a random sample size).
+    units : (B, n) int array or None
+        The sampled unit indices, kept only when asked for (tests, exact mode).
+    variance : str
+        Name of the variance estimator the design asks for (see ``estimators.VARIANCE``).
+    design_info : dict or None
+        Design constants a variance routine needs beyond the block (for example the
+        population sum of squared inclusion probabilities, or exact joint probabilities).
+    cluster_cost : (B,) array or None
+        Sum of the frame's ``cluster_cost`` over the clusters each replicate visits (designs
+        that select clusters, on a frame with that column; see ``designs.cluster``).
+    psu : (m,) int array or None
+        Two-stage designs only, whose positions are the sampled second-stage units: the
+        cluster slot (0, 1, ..., in order) of each position; ``psu_stratum`` and ``fpc`` then
+        describe the first stage (see ``two_stage_variance``).
+    within_fpc : (B, S) array or None
+        Two-stage designs only: each cluster slot's factor for its within-cluster variance term.
+    """
+
+    sums: np.ndarray
+    weight: np.ndarray
+    psu_stratum: np.ndarray
+    fpc: np.ndarray
+    clusters: np.ndarray
+    strata: int = 0
+    mask: np.ndarray | None = None
+    units: np.ndarray | None = None
+    variance: str = "psu"
+    design_info: dict | None = None
+    cluster_cost: np.ndarray | None = None
+    psu: np.ndarray | None = None
+    within_fpc: np.ndarray | None = None
+
+    @property
+    def B(self) -> int:
+        return int(self.sums.shape[0])
+
+    @property
+    def H(self) -> int:
+        return int(self.fpc.shape[-1])
+
+    def weighted(self, columns: slice | None = None) -> np.ndarray:
+        """Estimated PSU totals of every value column (or of ``columns`` only), shape (B, m, K)."""
+        sums = self.sums if columns is None else self.sums[..., columns]
+        w = self.weight
+        z = sums * w[..., None]  # (m,) or (B, m) weights broadcast over replicates and columns
+        if self.mask is not None:
+            z = np.where(self.mask[..., None], z, 0.0)
+        return z

@@ -1,0 +1,1 @@
+"""Frame-order periodicity, frame inspection, pre-run warnings."""

@@ -1,0 +1,1 @@
+"""Estimators, the one PSU-within-strata variance routine and its alternatives, weighting, cost."""

@@ -1,0 +1,1 @@
+"""Performance measures and their Monte Carlo errors (one place), exact mode, stopping rules."""

@@ -1,0 +1,1 @@
+"""The frame: arrays per role, exact truths, synthetic frames, frame errors, file reading."""

@@ -1,0 +1,509 @@
+"""The population frame: numpy arrays per role and the exact population truths.
+
+A `Frame` is built once at the boundary (from a file or a DataFrame), checked there, and
+then trusted by every design and estimator.  Nothing in the replicate loop touches pandas.
+
+Value columns
+-------------
+Designs gather rows of ``Frame.values``, an ``(N, V + 2)`` array whose columns are the V
+study variables, a column of ones (so a gathered sum counts units) and the unit cost (zero
+where the frame has none).  One gather then yields estimated totals, sample sizes and the
+variable part of the field cost together.  Auxiliary, post-stratum and domain columns, when
+the frame has them, sit between the study variables and the count column (``layout.py``
+records where), so COUNT and COST are always indexed from the end.
+"""
+
+from __future__ import annotations
+
+import errno
+import hashlib
+import os
+import stat
+from dataclasses import dataclass, field, fields
+from functools import cached_property
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from samplewright.errors import InputError, show
+from samplewright.population.layout import Layout
+from samplewright.population.layout import build as build_layout
+
+#: index of the "ones" column and of the unit-cost column, counted from the end of ``values``
+COUNT = -2
+COST = -1
+
+
+def _codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
+    """Integer codes 0..K-1 in order of first sorted label, and the labels."""
+    codes, labels = pd.factorize(series, sort=True)
+    return codes.astype(np.int64), tuple(labels.tolist())
+
+
+def _constant_columns(values: np.ndarray) -> dict[int, float]:
+    """Columns of ``values`` that hold one value throughout (the ones column; a cost column of zeros)."""
+    if values.shape[0] == 0:
+        return {}
+    first = values[0]
+    return {j: float(first[j]) for j in range(values.shape[1]) if np.all(values[:, j] == first[j])}
+
+
+def _padded_rows(values: np.ndarray) -> np.ndarray:
+    """``values`` with zero columns appended up to 2, 4 or 8 columns (unchanged if wider)."""
+    k = values.shape[1]
+    width = next((w for w in (2, 4, 8) if w >= k), k)
+    if width == k:
+        return values
+    out = np.zeros((values.shape[0], width))
+    out[:, :k] = values
+    return out
+
+
+def _group_index(codes: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Units sorted by group (stable) and the offsets of each group's run (length k + 1)."""
+    idx = np.argsort(codes, kind="stable")
+    counts = np.bincount(codes, minlength=k)
+    offsets = np.concatenate([[0], np.cumsum(counts)])
+    return idx.astype(np.int64), offsets.astype(np.int64)
+
+
+@dataclass(frozen=True, eq=False)
+class Frame:
+    """A population frame held as arrays, with its structure precomputed.
+
+    Build it with :meth:`Frame.from_dataframe` or :meth:`Frame.load`.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> df = pd.DataFrame({"y": [1.0, 2.0, 3.0, 4.0], "band": ["a", "a", "b", "b"]})
+    >>> f = Frame.from_dataframe(df, target="y", stratum="band")
+    >>> f.N, f.H, float(f.mean[0])
+    (4, 2, 2.5)
+    """
+
+    variables: tuple[str, ...]
+    y: np.ndarray  # (N, V) study variables
+    stratum: np.ndarray  # (N,) codes 0..H-1 (all zero when the frame has no strata)
+    stratum_labels: tuple
+    cluster: np.ndarray | None = None  # (N,) codes 0..C-1
+    cluster_labels: tuple = ()
+    size: np.ndarray | None = None  # (N,) size measure
+    order: np.ndarray | None = None  # (N,) unit indices in list order
+    unit_cost: np.ndarray | None = None  # (N,)
+    roles: dict = field(default_factory=dict)  # role -> column name, for reports
+    sort_orders: dict = field(default_factory=dict)  # sort key column -> (N,) unit indices sorted by it
+    # auxiliary data for the ratio, GREG and post-stratified estimators, and domains (see layout.py)
+    aux: np.ndarray | None = None  # (N, A) auxiliary variables, population totals known
+    aux_names: tuple = ()
+    poststratum: np.ndarray | None = None  # (N,) codes 0..P-1
+    poststratum_labels: tuple = ()
+    domain: np.ndarray | None = None  # (N,) codes 0..D-1
+    domain_labels: tuple = ()
+    domain_keep: tuple | None = None  # codes of the domains to report (default: all)
+    cluster_cost: np.ndarray | None = None  # (C,) cost of visiting each cluster (cost.py)
+    # derived, filled in __post_init__
+    values: np.ndarray = field(init=False, repr=False)
+    layout: Layout = field(init=False, repr=False)  # positions of the extra value columns
+    rows: np.ndarray | None = field(init=False, repr=False)  # values padded to a fast row width (see gather)
+    column: np.ndarray | None = field(init=False, repr=False)  # the one varying column, contiguous (see gather)
+    constants: dict = field(init=False, repr=False)  # column -> its single value
+    strata_units: np.ndarray = field(init=False, repr=False)
+    strata_offsets: np.ndarray = field(init=False, repr=False)
+    cluster_units: np.ndarray | None = field(init=False, repr=False, default=None)
+    cluster_offsets: np.ndarray | None = field(init=False, repr=False, default=None)
+    cluster_sums: np.ndarray | None = field(init=False, repr=False, default=None)
+    cluster_stratum: np.ndarray | None = field(init=False, repr=False, default=None)
+
+    def __post_init__(self):
+        y = np.ascontiguousarray(self.y, dtype=np.float64)
+        if y.ndim == 1:
+            y = y[:, None]
+        object.__setattr__(self, "y", y)
+        n = y.shape[0]
+        cost = np.zeros(n) if self.unit_cost is None else np.asarray(self.unit_cost, dtype=np.float64)
+        extra, layout = build_layout(
+            y, self.variables, self.aux, self.aux_names, self.poststratum, self.poststratum_labels,
+            self.domain, self.domain_labels, self.roles.get("domain"), self.domain_keep)
+        object.__setattr__(self, "layout", layout)
+        values = np.column_stack([y, extra, np.ones(n), cost])
+        object.__setattr__(self, "values", values)
+        constants = _constant_columns(values)
+        varying = [j for j in range(values.shape[1]) if j not in constants]
+        object.__setattr__(self, "constants", constants)
+        if len(varying) == 1:  # one study variable, no unit cost: gather one column, fill the rest
+            object.__setattr__(self, "column", np.ascontiguousarray(values[:, varying[0]]))
+            object.__setattr__(self, "rows", None)
+        else:
+            object.__setattr__(self, "column", None)
+            object.__setattr__(self, "rows", _padded_rows(values))
+        if self.order is None:
+            object.__setattr__(self, "order", np.arange(n, dtype=np.int64))
+        su, so = _group_index(self.stratum, self.H)
+        object.__setattr__(self, "strata_units", su)
+        object.__setattr__(self, "strata_offsets", so)
+        if self.cluster is not None:
+            c = len(self.cluster_labels)
+            cu, co = _group_index(self.cluster, c)
+            object.__setattr__(self, "cluster_units", cu)
+            object.__setattr__(self, "cluster_offsets", co)
+            sums = np.zeros((c, values.shape[1]))
+            np.add.at(sums, self.cluster, values)
+            object.__setattr__(self, "cluster_sums", sums)
+            cs = np.zeros(c, dtype=np.int64)
+            cs[self.cluster] = self.stratum
+            object.__setattr__(self, "cluster_stratum", cs)
+
+    def gather(self, units: np.ndarray) -> np.ndarray:
+        """Rows of ``values`` for an integer array of unit indices, shape ``units.shape + (K,)``.
+
+        The same numbers as ``values[units]``, several times faster.  When all columns but
+        one are constant (a single study variable and no unit cost), only that column is
+        gathered and the constant columns are filled in, each as one contiguous run: the
+        result is then a view, column by column in memory, of shape ``units.shape + (K,)``.
+        Otherwise the rows are copied from a table padded to 16, 32 or 64 bytes, a width
+        numpy copies without a per-row memmove (the result may be a strided view of it).
+        """
+        k = self.values.shape[1]
+        if self.column is not None:
+            out = np.empty((k,) + np.shape(units))
+            for j in range(k):
+                if j in self.constants:
+                    out[j].fill(self.constants[j])
+                else:
+                    out[j] = np.take(self.column, units)
+            return np.moveaxis(out, 0, -1)
+        out = np.take(self.rows, units, axis=0)
+        return out if out.shape[-1] == k else out[..., :k]
+
+    def gather_in_strata(self, pos: np.ndarray) -> np.ndarray:
+        """``gather(strata_units[pos])`` for positions in the stratum-grouped unit order."""
+        return self.gather_through(self.strata_units, pos)
+
+    def gather_through(self, index: np.ndarray, pos: np.ndarray) -> np.ndarray:
+        """``gather(index[pos])``, for ``index`` one of the frame's own unit orders.
+
+        The rows are read from a copy of the table permuted by ``index`` (built on first use
+        and kept), so positions that increase along that order (within strata, along the
+        list) read memory in increasing order instead of at random.
+        """
+        cache = self.__dict__.get("_permuted")
+        if cache is None:
+            cache = {}
+            object.__setattr__(self, "_permuted", cache)
+        table = cache.get(id(index))
+        if table is None:
+            source = self.column if self.column is not None else self.rows
+            table = cache[id(index)] = np.take(source, index, axis=0)
+        k = self.values.shape[1]
+        if self.column is not None:
+            out = np.empty((k,) + np.shape(pos))
+            for j in range(k):
+                if j in self.constants:
+                    out[j].fill(self.constants[j])
+                else:
+                    out[j] = np.take(table, pos)
+            return np.moveaxis(out, 0, -1)
+        out = np.take(table, pos, axis=0)
+        return out if out.shape[-1] == k else out[..., :k]
+
+    @cached_property
+    def content_hash(self) -> str:
+        """SHA-256 of what the frame holds: every unit's values and codes, the labels and the
+        column roles (not the file's name), computed once.  A resumed run refuses a frame whose
+        hash differs from the one its blocks were drawn from (see :mod:`samplewright.simulation.checkpoint`)."""
+        h = hashlib.sha256()
+        for f in fields(self):
+            if f.init:
+                value = getattr(self, f.name)
+                if f.name == "roles":
+                    value = {k: v for k, v in value.items() if k != "source"}
+                _digest(h, f.name, value)
+        return h.hexdigest()
+
+    # ----------------------------------------------------------------- sizes
+    @property
+    def N(self) -> int:
+        return int(self.y.shape[0])
+
+    @property
+    def V(self) -> int:
+        return int(self.y.shape[1])
+
+    @property
+    def H(self) -> int:
+        return len(self.stratum_labels)
+
+    @property
+    def C(self) -> int:
+        return len(self.cluster_labels)
+
+    @property
+    def N_h(self) -> np.ndarray:
+        return np.diff(self.strata_offsets)
+
+    @property
+    def cluster_sizes(self) -> np.ndarray:
+        if self.cluster_offsets is None:
+            raise InputError("the frame has no cluster column")
+        return np.diff(self.cluster_offsets)
+
+    # ---------------------------------------------------------------- truths
+    @property
+    def total(self) -> np.ndarray:
+        """Exact population total of each study variable, shape (V,)."""
+        return self.y.sum(axis=0)
+
+    @property
+    def mean(self) -> np.ndarray:
+        """Exact population mean of each study variable, shape (V,)."""
+        return self.y.mean(axis=0)
+
+    @property
+    def S2(self) -> np.ndarray:
+        """Population variance with divisor N - 1 (Cochran's S^2), shape (V,)."""
+        return self.y.var(axis=0, ddof=1) if self.N > 1 else np.zeros(self.V)
+
+    def stratum_means(self) -> np.ndarray:
+        """Exact stratum means, shape (H, V)."""
+        sums = np.zeros((self.H, self.V))
+        np.add.at(sums, self.stratum, self.y)
+        return sums / self.N_h[:, None]
+
+    def stratum_S2(self) -> np.ndarray:
+        """Stratum variances S_h^2 (divisor N_h - 1; zero for a one-unit stratum), shape (H, V)."""
+        dev = self.y - self.stratum_means()[self.stratum]
+        ss = np.zeros((self.H, self.V))
+        np.add.at(ss, self.stratum, dev**2)
+        denom = np.maximum(self.N_h - 1, 1)[:, None]
+        return ss / denom
+
+    def srs_variance_of_mean(self, n: float) -> np.ndarray:
+        """Exact variance of the SRS-without-replacement mean at sample size n (Cochran 1977, eq. 2.8)."""
+        n = float(n)
+        return (1.0 - n / self.N) * self.S2 / n
+
+    # --------------------------------------------------------------- builders
+    @classmethod
+    def from_dataframe(
+        cls,
+        df: pd.DataFrame,
+        target,
+        stratum: str | None = None,
+        cluster: str | None = None,
+        size: str | None = None,
+        order: str | None = None,
+        unit_cost: str | None = None,
+        id: str | None = None,
+        sort_keys=None,
+        missing: str = "refuse",
+        source: str = "frame",
+        auxiliary=None,
+        poststratum: str | None = None,
+        domain: str | None = None,
+        domains=None,
+        cluster_cost: str | None = None,
+    ) -> "Frame":
+        """Bind the columns of ``df`` to roles, check them, and build a Frame.
+
+        ``target`` is a column name or a list of names.  ``missing="drop"`` drops rows whose
+        target values are missing or not finite (and says how many in ``Frame.roles``);
+        the default refuses them.  ``auxiliary`` (a column or a list), ``poststratum``,
+        ``domain`` and ``domains`` (the domain values to report) feed the estimators that use
+        auxiliary data and the domain estimates (see :mod:`samplewright.population.layout`).
+        """
+        from samplewright.config.validate import auxiliary_columns, frame_columns
+
+        df, roles = frame_columns(
+            df, target=target, stratum=stratum, cluster=cluster, size=size, order=order,
+            unit_cost=unit_cost, id=id, missing=missing, source=source,
+        )
+        aux_names, aux_roles = auxiliary_columns(df, auxiliary=auxiliary, poststratum=poststratum,
+                                                 domain=domain, domains=domains, source=source)
+        roles.update(aux_roles)
+        if cluster_cost is not None:  # one cost per cluster, checked constant within each
+            from samplewright.config.validate import cluster_cost_column
+
+            per_unit_cc = cluster_cost_column(df, cluster_cost, cluster, source)
+            roles["cluster_cost"] = cluster_cost
+        targets = roles["target"]
+        y = df[list(targets)].to_numpy(dtype=np.float64)
+        extra = {}
+        if aux_names:
+            extra["aux"] = df[list(aux_names)].apply(pd.to_numeric).to_numpy(dtype=np.float64)
+            extra["aux_names"] = aux_names
+        if poststratum is not None:
+            extra["poststratum"], extra["poststratum_labels"] = _codes(df[poststratum].astype(str))
+        if domain is not None:
+            extra["domain"], extra["domain_labels"] = _codes(df[domain].astype(str))
+            if domains is not None:
+                extra["domain_keep"] = tuple(extra["domain_labels"].index(str(v)) for v in domains)
+        if stratum is not None:
+            s_codes, s_labels = _codes(df[stratum])
+        else:
+            s_codes, s_labels = np.zeros(len(df), dtype=np.int64), ("all",)
+        c_codes, c_labels = (None, ())
+        if cluster is not None:
+            c_codes, c_labels = _codes(df[cluster])
+        if cluster_cost is not None:
+            extra["cluster_cost"] = np.zeros(len(c_labels))
+            extra["cluster_cost"][c_codes] = per_unit_cc
+        order_idx = None
+        if order is not None:
+            order_idx = np.argsort(df[order].to_numpy(), kind="stable").astype(np.int64)
+        sort_orders = {}
+        if sort_keys:  # systematic designs' sort_by columns: stable sort, ties keep the list order
+            from samplewright.config.validate import sort_key_codes
+
+            base = np.arange(len(df), dtype=np.int64) if order_idx is None else order_idx
+            for col, codes in sort_key_codes(df, sort_keys, source).items():
+                sort_orders[col] = base[np.argsort(codes[base], kind="stable")]
+            roles["sort_keys"] = tuple(sort_orders)
+        return cls(
+            variables=tuple(targets),
+            y=y,
+            stratum=s_codes,
+            stratum_labels=s_labels,
+            cluster=c_codes,
+            cluster_labels=c_labels,
+            size=None if size is None else df[size].to_numpy(dtype=np.float64),
+            order=order_idx,
+            sort_orders=sort_orders,
+            unit_cost=None if unit_cost is None else df[unit_cost].to_numpy(dtype=np.float64),
+            roles=roles,
+            **extra,
+        )
+
+    @classmethod
+    def load(cls, path, **roles) -> "Frame":
+        """Read a CSV or Parquet file and bind its columns (see :meth:`from_dataframe`)."""
+        return cls.from_dataframe(read_table(path), source=str(path), **roles)
+
+
+def _digest(h, name: str, value) -> None:
+    """Feed ``value`` (an array, a dict of them, or a plain value) to the hash ``h``, tagged with its name."""
+    if isinstance(value, np.ndarray):
+        a = np.ascontiguousarray(value)
+        h.update(f"{name}:{a.dtype.str}{a.shape}:".encode())
+        h.update(a)
+    elif isinstance(value, dict):
+        for k in sorted(value, key=str):
+            _digest(h, f"{name}.{k}", value[k])
+    else:
+        h.update(f"{name}={value!r};".encode())
+
+
+def input_file(path, what: str) -> Path:
+    """``path`` as a Path, refused (InputError) unless it names an existing regular file.
+
+    A FIFO, a device (``/dev/zero``, ``/dev/stdin``) or a socket could block or never end
+    when read; a symlink loop, a NUL byte in the name and a directory cannot be read at all.
+    """
+    text = str(path)
+    if "\0" in text:
+        raise InputError(f"{what} {show(text)} contains a NUL byte; no file can have that name")
+    p = Path(text)
+    try:
+        mode = os.stat(p).st_mode  # follows symlinks
+    except FileNotFoundError:
+        raise InputError(f"{what} {text!r} does not exist") from None
+    except OSError as exc:
+        why = "is a symlink loop" if exc.errno == errno.ELOOP else f"cannot be opened: {exc.strerror or exc}"
+        raise InputError(f"{what} {text!r} {why}") from None
+    if stat.S_ISDIR(mode):
+        raise InputError(f"{what} {text!r} is a directory, not a file")
+    if not stat.S_ISREG(mode):
+        raise InputError(f"{what} {text!r} is not a regular file (a FIFO, device or socket); "
+                         f"give a file saved on disk")
+    return p
+
+
+#: "looks like a table": the longest column name, and the most of the file read to check it
+MAX_NAME = 64
+_SNIFF_BYTES = 1 << 20
+
+
+def csv_header(path) -> list[str]:
+    """The column names of a CSV file, refused (InputError) unless the file looks like a table.
+
+    A file looks like a table when its start (the first MiB) is UTF-8 text without NUL bytes,
+    its first line is a header of names of 1 to 64 printable characters (an empty first name,
+    a written-out row index, is allowed), and one of its first 100 data lines has as many
+    fields as the header.  A file that fails is described, never echoed: its "names" may be binary
+    data or prose.  A file with a header line only is refused by :func:`read_table` instead.
+    """
+    import csv
+    import gzip
+
+    p = Path(path)
+    opener = gzip.open if p.suffix.lower() == ".gz" else open
+    try:
+        with opener(p, "rb") as fh:
+            head = fh.read(_SNIFF_BYTES)
+    except (OSError, EOFError) as exc:
+        raise InputError(f"frame file {str(p)!r} could not be read: {type(exc).__name__}") from None
+    not_table = f"frame file {str(p)!r} does not look like a table"
+    if b"\0" in head:
+        raise InputError(f"{not_table}: it holds NUL bytes (a binary file?); give a CSV or Parquet file")
+    lines = head.split(b"\n", 2)
+    try:
+        text = [ln.decode("utf-8-sig" if i == 0 else "utf-8").rstrip("\r") for i, ln in enumerate(lines[:2])]
+    except UnicodeDecodeError:
+        raise InputError(f"{not_table}: its first lines are not UTF-8 text; give a CSV file saved as UTF-8") \
+            from None
+    if len(lines) < 2 or not text[1].strip():
+        return [c for c in next(csv.reader([text[0]]), [])]  # a header only: read_table says so
+    names = next(csv.reader([text[0]]), [])
+    # the data lines read in full (the last line of the sample may be cut), up to 100 of them
+    body = head.split(b"\n")[1:]
+    body = (body if len(head) < _SNIFF_BYTES else body[:-1])[:100]
+    try:
+        widths = {len(r) for r in csv.reader(ln.decode("utf-8").rstrip("\r") for ln in body if ln.strip())}
+    except (UnicodeDecodeError, csv.Error):
+        widths = set()
+    good = all(0 < len(c) <= MAX_NAME and c.isprintable() for c in names[1:]) and names and (
+        len(names[0]) <= MAX_NAME and names[0].isprintable())
+    if not good:
+        raise InputError(f"{not_table}: its first line is not a header of column names (each 1 to {MAX_NAME} "
+                         f"printable characters, separated by commas)")
+    if len(names) not in widths:
+        raise InputError(f"{not_table}: its header has {len(names)} field(s) but none of its first data lines "
+                         f"has as many; give a CSV file with one value per column on every row")
+    return names
+
+
+def _unique_names(names, path) -> None:
+    """Refuse a column name given twice (pandas would rename or drop the second silently)."""
+    seen = set()
+    for name in names:
+        if name in seen:
+            raise InputError(f"frame file {str(path)!r}: column {show(name)} appears twice in the header; "
+                             f"column names must be unique")
+        seen.add(name)
+
+
+def read_table(path) -> pd.DataFrame:
+    """Read a CSV or Parquet file into a DataFrame; refuse a missing, unreadable or empty one."""
+    p = input_file(path, "frame file")
+    suffix = p.suffix.lower()
+    try:
+        if suffix in (".parquet", ".pq"):
+            import pyarrow.parquet as pq
+
+            _unique_names(pq.read_schema(p).names, p)
+            df = pd.read_parquet(p)
+        elif suffix in (".csv", ".txt", ".gz"):
+            _unique_names(csv_header(p), p)
+            df = pd.read_csv(p)
+        else:
+            raise InputError(f"frame file {str(p)!r}: unknown format {suffix!r} (use .csv or .parquet)")
+    except InputError:
+        raise
+    except pd.errors.EmptyDataError:
+        raise InputError(f"frame file {str(p)!r} is empty") from None
+    except Exception as exc:  # unreadable: permissions, corrupt parquet, bad encoding
+        raise InputError(f"frame file {str(p)!r} could not be read: {type(exc).__name__}: {exc}") from None
+    if len(df) == 0:
+        raise InputError(f"frame file {str(p)!r} has a header but no rows")
+    return df

@@ -1,0 +1,197 @@
+"""Where the auxiliary, post-stratum and domain columns sit in ``Frame.values``, and their truths.
+
+The frame's value matrix is ``[targets (V) | extra columns | count | unit cost]``; every
+design gathers whole rows of it, so whatever sits between the targets and the count column
+reaches ``SampleBlock.sums`` in the same gather, summed over each PSU's sampled units.  The
+extra columns are built here once, when the frame is built:
+
+- per domain j (when ``[frame] domain`` is set): the indicator d_j and the products
+  y_v d_j.  With the targets these form the *extended targets* e (E = V + D (V + 1)
+  columns), the variables every estimator estimates totals of;
+- the auxiliary variables x_a (``[frame] auxiliary``), their cross-products x_a x_b and the
+  products x_a e for every extended target (what a regression fitted within PSU sums needs);
+- the post-stratum indicators p_q (``[frame] poststratum``) and the products p_q e.
+
+A :class:`Layout` records the positions and the frame's known totals (auxiliary totals,
+post-stratum and domain counts); it is the context the estimators receive.
+
+Domain output variables are named ``"<target>[<domain column>=<value>]"``, for example
+``"overpayment[region=north]"``; their truth is the exact domain mean and the reference
+variance of their design effect is the SRS variance of a domain mean with the expected
+domain sample size, (1 - f) S_d^2 / (n P_d) with P_d = N_d / N (Cochran 1977, sec. 2.13;
+from memory).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass(frozen=True, eq=False)
+class Layout:
+    """Positions of the extra value columns and the frame's known totals.
+
+    Attributes
+    ----------
+    N, V : int
+        Frame units and targets.
+    ext : (E,) int array
+        Columns of the extended targets: the V targets, then for each domain its
+        indicator followed by the V products y d.
+    aux : (A,) int array
+        Auxiliary columns; ``xx`` (A, A) their cross-products, ``xe`` (A, E) their
+        products with every extended target.
+    post : (P,) int array
+        Post-stratum indicator columns; ``pe`` (P, E) their products with the extended targets.
+    X : (A,) array
+        Population totals of the auxiliaries.
+    N_p, N_d : arrays
+        Population counts of the post-strata and of the domains.
+    names : tuple of str
+        Output variables: the targets, then ``target[column=value]`` per domain and target.
+    proportions : tuple of str
+        The output variables whose target takes only the values 0 and 1 (their means are
+        proportions).
+    truth, S2 : arrays
+        Exact mean of every output variable, and its reference S^2 for the SRS design
+        effect (for a domain variable S_d^2 / P_d; see module notes).
+    """
+
+    N: int
+    V: int
+    ext: np.ndarray
+    aux: np.ndarray
+    xx: np.ndarray
+    xe: np.ndarray
+    post: np.ndarray
+    pe: np.ndarray
+    X: np.ndarray
+    N_p: np.ndarray
+    N_d: np.ndarray
+    names: tuple
+    truth: np.ndarray
+    S2: np.ndarray
+    proportions: tuple = ()
+    aux_names: tuple = ()
+    post_labels: tuple = ()
+    domain_labels: tuple = ()
+    domain_column: str | None = None
+
+    @property
+    def A(self) -> int:
+        return int(self.aux.shape[0])
+
+    @property
+    def P(self) -> int:
+        return int(self.post.shape[0])
+
+    @property
+    def D(self) -> int:
+        return int(self.N_d.shape[0])
+
+    @property
+    def E(self) -> int:
+        return int(self.ext.shape[0])
+
+    def domain_columns(self, j: int) -> tuple[int, slice]:
+        """Position, within the extended targets, of domain j's indicator and of its y d products."""
+        c = self.V + j * (self.V + 1)
+        return c, slice(c + 1, c + 1 + self.V)
+
+
+def _indicators(codes: np.ndarray, k: int) -> np.ndarray:
+    out = np.zeros((codes.shape[0], k))
+    out[np.arange(codes.shape[0]), codes] = 1.0
+    return out
+
+
+def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, post_labels=(),
+          domain=None, domain_labels=(), domain_column=None, domain_keep=None):
+    """The extra value columns (N, K_extra) and the :class:`Layout` of ``[y | extra | count | cost]``.
+
+    ``domain_keep`` lists the domain codes to report (default: every domain).
+    """
+    N, V = y.shape
+    blocks = []  # (N, k) arrays in column order, after the V targets
+    pos = V
+
+    def add(a):
+        nonlocal pos
+        a = np.asarray(a, dtype=np.float64).reshape(N, -1)
+        idx = np.arange(pos, pos + a.shape[1])
+        blocks.append(a)
+        pos += a.shape[1]
+        return idx
+
+    # extended targets
+    ext = [np.arange(V)]
+    ext_values = [y]
+    keep = []
+    if domain is not None:
+        keep = list(range(len(domain_labels))) if domain_keep is None else list(domain_keep)
+        d_all = _indicators(domain, len(domain_labels))
+        for j in keep:
+            d = d_all[:, j:j + 1]
+            block = np.column_stack([d, y * d])
+            ext.append(add(block))
+            ext_values.append(block)
+    ext = np.concatenate(ext)
+    e_vals = np.column_stack(ext_values)
+    E = ext.shape[0]
+
+    # auxiliaries and their products
+    if aux is not None and np.size(aux):
+        x = np.asarray(aux, dtype=np.float64).reshape(N, -1)
+    else:
+        x = np.zeros((N, 0))
+    A = x.shape[1]
+    aux_idx = add(x) if A else np.zeros(0, dtype=np.int64)
+    xx = np.zeros((A, A), dtype=np.int64)
+    for a in range(A):
+        for b in range(a, A):
+            xx[a, b] = xx[b, a] = add(x[:, a] * x[:, b])[0]
+    xe = np.zeros((A, E), dtype=np.int64)
+    for a in range(A):
+        xe[a] = add(x[:, a:a + 1] * e_vals)
+
+    # post-strata
+    if poststratum is not None:
+        p = _indicators(poststratum, len(post_labels))
+    else:
+        p = np.zeros((N, 0))
+    P = p.shape[1]
+    post_idx = add(p) if P else np.zeros(0, dtype=np.int64)
+    pe = np.zeros((P, E), dtype=np.int64)
+    for q in range(P):
+        pe[q] = add(p[:, q:q + 1] * e_vals)
+
+    # truths of the output variables
+    names = list(variables)
+    truth = list(y.mean(axis=0))
+    # S^2 is exactly 0 for a variable whose units all have one value (not rounding noise)
+    S2 = list(np.where(np.ptp(y, axis=0) == 0, 0.0, y.var(axis=0, ddof=1)) if N > 1 else np.zeros(V))
+    N_d = []
+    for j in keep:
+        inside = domain == j
+        Nd = int(inside.sum())
+        N_d.append(Nd)
+        yd = y[inside]
+        share = Nd / N
+        for v, name in enumerate(variables):
+            names.append(f"{name}[{domain_column}={domain_labels[j]}]")
+            truth.append(float(yd[:, v].mean()))
+            flat_d = Nd < 2 or yd[:, v].min() == yd[:, v].max()
+            S2.append(0.0 if flat_d else float(yd[:, v].var(ddof=1)) / share)
+    binary = {v for v, name in enumerate(variables) if np.isin(y[:, v], (0.0, 1.0)).all()}
+    proportions = tuple(nm for i, nm in enumerate(names) if (i % V if i >= V else i) in binary) if V else ()
+    extra = np.column_stack(blocks) if blocks else np.zeros((N, 0))
+    layout = Layout(
+        N=N, V=V, ext=ext, aux=aux_idx, xx=xx, xe=xe, post=post_idx, pe=pe,
+        X=x.sum(axis=0), N_p=p.sum(axis=0), N_d=np.asarray(N_d, dtype=np.float64),
+        names=tuple(names), proportions=proportions, truth=np.asarray(truth, dtype=np.float64), S2=np.asarray(S2, dtype=np.float64),
+        aux_names=tuple(aux_names), post_labels=tuple(post_labels),
+        domain_labels=tuple(domain_labels[j] for j in keep), domain_column=domain_column,
+    )
+    return extra, layout

@@ -1,0 +1,1 @@
+"""The run result: tables, reading a run folder back."""

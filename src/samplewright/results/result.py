@@ -1,0 +1,102 @@
+"""The result of a run: tidy tables plus the metadata needed to reproduce it."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from samplewright.files import prepare_dir, write_csv, write_json, write_parquet
+
+ALLOCATION_COLUMNS = ["design", "size", "stratum", "population_units", "sample_units"]
+
+
+@dataclass
+class RunResult:
+    """Everything a run produced.
+
+    Attributes
+    ----------
+    summary : DataFrame
+        One row per design x size x estimator x variable (see ``evaluate.SUMMARY_COLUMNS``).
+    replicates : DataFrame
+        Every replicate's estimate, SE, interval, sample size and cost.
+    allocation : DataFrame
+        Units per stratum for designs with an allocation.
+    info : dict
+        Run metadata written to run.json (seed, replicates, jobs, versions, timing, warnings).
+    """
+
+    summary: pd.DataFrame
+    replicates: pd.DataFrame
+    allocation: pd.DataFrame
+    info: dict
+    frontier: pd.DataFrame | None = None
+    recommendation: dict | None = None
+    warnings: list[str] = field(default_factory=list)
+    #: the target along a systematic design's walk order, when a cycle was found (frame_order.csv)
+    frame_order: pd.DataFrame | None = None
+    #: (what, exception) of each step after the simulation that failed (the tables are still complete)
+    late_failures: list = field(default_factory=list)
+
+    def write(self, out, force: bool = False, report: bool = False, svg: bool = False) -> Path:
+        """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``).
+
+        With ``report=True`` also the figures (``figures/``, PNG, and SVG with ``svg=True``),
+        ``report.html`` and ``brief.md`` (see :func:`samplewright.report.write_report`).
+        """
+        p = prepare_dir(out, force=force)
+        # an older run.json marks older files complete: remove it first, so an interrupted
+        # overwrite never leaves new and old files under one complete-looking run.json; older
+        # derived files go too, so a run without them never shows another run's
+        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv"):
+            (p / name).unlink(missing_ok=True)
+        # the simulated tables first, run.json marking them complete; then what is derived from them,
+        # so that a failure there never loses the simulation
+        write_parquet(self.replicates, p / "replicates.parquet")
+        write_csv(self.summary, p / "summary.csv")
+        write_csv(self.allocation, p / "allocation.csv")
+        if self.frame_order is not None:
+            write_csv(self.frame_order, p / "frame_order.csv")
+        write_json(self.info, p / "run.json")
+        if self.frontier is not None:
+            write_csv(self.frontier, p / "frontier.csv")
+        if self.recommendation is not None:
+            write_json(self.recommendation, p / "recommendation.json")
+        if report:
+            from samplewright.report import write_report
+
+            write_report(self, p, svg=svg, force=True)
+        return p
+
+    def figure(self, name: str, variable: str | None = None):
+        """Draw one of the report's figures as a matplotlib Figure (names: :meth:`figure_names`).
+
+        Examples
+        --------
+        >>> from samplewright import scenario_from_dict, run
+        >>> res = run(scenario_from_dict({"frame": {"synthetic": {"units": 300}},
+        ...                               "design": [{"label": "simple", "method": "srs", "n": 30}]}),
+        ...           replicates=100, seed=1)
+        >>> fig = res.figure("coverage")
+        >>> fig.get_size_inches()[0]
+        6.5
+        """
+        from samplewright.report.figures import make_figure
+
+        return make_figure(self, name, variable)
+
+    def figure_names(self) -> list[str]:
+        """The figures this run has data for, in report order."""
+        from samplewright.report.figures import figure_names
+
+        return figure_names(self)
+
+    @classmethod
+    def read(cls, folder) -> "RunResult":
+        """Read a finished run folder back (summary, replicates, allocation, run.json and, when present,
+        frontier.csv and recommendation.json); see :func:`samplewright.report.read_run`."""
+        from samplewright.results.load import read_run
+
+        return read_run(folder)

@@ -1,0 +1,1 @@
+"""The run plan, the block engine and its backends, fieldwork, checkpoints, progress."""

@@ -1,0 +1,237 @@
+"""Finished blocks kept on disk (DIR/blocks/), so an interrupted run can be resumed.
+
+Each finished block is one ``.npz`` file named for its cell (the design's stream key, i.e.
+the SHA-256 of its label, and the size index) and block index, written under a temporary
+name and renamed into place by the parent process as soon as the block arrives: a crash or
+Ctrl-C keeps every finished block and never leaves a half-written one.  Each file holds the
+SHA-256 of its arrays.  ``manifest.json`` beside them records what the blocks were drawn from
+(scenario hash, frame content hash, seed, block size, replicate count, stopping rule);
+``samplewright run --resume DIR`` reads it back, refuses a mismatch or a manifest value of
+the wrong type, and runs only the blocks that are missing.  A block file that cannot be
+read, belongs elsewhere, has arrays of the wrong shape or fails its checksum is drawn again
+(with a warning).  Since each block's numbers depend only on its seed
+(see :mod:`samplewright.simulation.engine`), the resumed run gives the same numbers as an
+uninterrupted one.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+from dataclasses import fields
+from pathlib import Path
+
+import numpy as np
+
+from samplewright.errors import InputError
+from samplewright.files import atomic_write, write_json
+
+FOLDER = "blocks"
+MANIFEST = "manifest.json"
+_NAME = re.compile(r"^c([0-9a-f]{64})-s(\d+)-b(\d+)\.npz$")
+_TAGS = ("cell", "block", "start")  # BlockResult fields that are not per-replicate arrays
+_PER_ESTIMATOR = ("estimate", "se", "lower", "upper")  # (E, B, V) arrays (also with a full_ prefix)
+#: manifest keys that must agree between the saved run and the resumed one
+CHECKED = ("scenario_hash", "frame_hash", "seed", "block_size", "replicates", "confidence", "until",
+           "max_replicates", "cells")
+
+
+def _count(minimum):
+    return lambda v: isinstance(v, int) and not isinstance(v, bool) and v >= minimum
+
+
+def _text(v) -> bool:
+    return isinstance(v, str)
+
+
+#: manifest key -> (its test, what it must be, may it be null)
+_TYPES = {
+    "scenario": (_text, "a file path", True),
+    "scenario_hash": (_text, "a hash (text)", False),
+    "frame": (_text, "a file name", True),
+    "frame_hash": (_text, "a hash (text)", False),
+    "seed": (_count(0), "a whole number of at least 0", False),
+    "block_size": (_count(1), "a whole number of at least 1", False),
+    "replicates": (_count(1), "a whole number of at least 1", False),
+    "confidence": (lambda v: isinstance(v, (int, float)) and not isinstance(v, bool) and 0 < v < 1,
+                   "a number between 0 and 1", False),
+    "until": (_text, "a stopping rule (text)", True),
+    "max_replicates": (_count(1), "a whole number of at least 1", True),
+    "cells": (lambda v: isinstance(v, list) and all(
+        isinstance(c, list) and len(c) == 2 and _text(c[0]) and _count(1)(c[1]) for c in v),
+        "a list of [label, size] pairs", False),
+}
+
+
+def block_name(cell, block: int) -> str:
+    return f"c{''.join(f'{w:08x}' for w in cell.key)}-s{cell.size_index}-b{block:06d}.npz"
+
+
+def checksum(arrays: dict) -> str:
+    """SHA-256 of a block's named arrays (names, dtypes, shapes and bytes)."""
+    h = hashlib.sha256()
+    for k in sorted(arrays):
+        a = np.ascontiguousarray(arrays[k])
+        h.update(f"{k}:{a.dtype.str}{a.shape}:".encode())
+        h.update(a)
+    return h.hexdigest()
+
+
+class BlockStore:
+    """The blocks folder of one run.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> store = BlockStore.create(tempfile.mkdtemp(), {"seed": 1})
+    >>> store.manifest["seed"], len(store.finished())
+    (1, 0)
+    """
+
+    def __init__(self, folder: Path, manifest: dict):
+        self.folder = Path(folder)
+        self.manifest = manifest
+        self.warn = None  # called with the text of each warning (a damaged block drawn again)
+
+    # ------------------------------------------------------------- opening
+    @classmethod
+    def create(cls, out, manifest: dict) -> BlockStore:
+        """Start an empty blocks folder in ``out`` (removing blocks a previous run left there)."""
+        folder = Path(out) / FOLDER
+        folder.mkdir(parents=True, exist_ok=True)
+        for p in folder.iterdir():  # only our own files: a forced rerun starts from nothing
+            if p.name == MANIFEST or _NAME.match(p.name) or (p.name.startswith(".") and p.suffix == ".tmp"):
+                p.unlink()
+        write_json(manifest, folder / MANIFEST)
+        return cls(folder, manifest)
+
+    @classmethod
+    def open(cls, out) -> BlockStore:
+        """Open the blocks folder a previous run left in ``out`` (refused with InputError if none)."""
+        folder = Path(out) / FOLDER
+        path = folder / MANIFEST
+        if not path.exists():
+            raise InputError(f"--resume {str(out)!r}: no {FOLDER}/{MANIFEST} there, so nothing to resume "
+                             f"(start a run with --out {str(out)!r} first)")
+        if not path.is_file():  # a folder, FIFO or device: never read (a FIFO would hang)
+            raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} is not a regular file")
+        try:
+            manifest = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, ValueError, RecursionError) as exc:
+            raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} cannot be read: {exc}") from None
+        if not isinstance(manifest, dict) or "scenario_hash" not in manifest:
+            raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} is not a samplewright blocks manifest")
+        for key, (ok, what, nullable) in _TYPES.items():
+            v = manifest.get(key)
+            if not (ok(v) or (nullable and v is None)):
+                raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} key {key!r} must be {what}, "
+                                 f"got {'nothing' if key not in manifest else _short(v)}")
+        return cls(folder, manifest)
+
+    def check(self, manifest: dict, out) -> None:
+        """Refuse to resume when the run asked for now differs from the saved one."""
+        for key in CHECKED:
+            saved, now = self.manifest.get(key), manifest.get(key)
+            if saved != now and key == "frame_hash":
+                raise InputError(
+                    f"--resume {str(out)!r}: the frame {manifest.get('frame')!r} changed since the saved run "
+                    f"(its content hash differs), so the finished blocks were drawn from another population; "
+                    f"resume with the original frame, or start a new run with another --out (or --force)")
+            if saved != now:
+                what = {"scenario_hash": "the scenario's content (its hash)", "cells": "the designs and sizes"}
+                raise InputError(
+                    f"--resume {str(out)!r}: {what.get(key, key)} differs from the saved run "
+                    f"(saved {_short(saved)}, now {_short(now)}); resume with the same scenario and "
+                    f"options, or start a new run with another --out (or --force)")
+
+    # ------------------------------------------------------------- blocks
+    def finished(self) -> set[tuple[tuple[int, ...], int, int]]:
+        """(cell key, size index, block) of every block on disk."""
+        out = set()
+        for p in self.folder.iterdir():
+            m = _NAME.match(p.name)
+            if m:
+                h = m.group(1)
+                key = tuple(int(h[i:i + 8], 16) for i in range(0, 64, 8))
+                out.add((key, int(m.group(2)), int(m.group(3))))
+        return out
+
+    def save(self, result, cell) -> None:
+        """Write one finished block (atomically), with the checksum of everything it holds."""
+        path = self.folder / block_name(cell, result.block)
+        content = {"block": result.block, "start": result.start, "label": cell.design.label,
+                   "size_index": cell.size_index, "estimators": np.array(cell.estimators),
+                   **{f"r_{k}": v for k, v in _payload(result).items()}}
+        content = {k: np.asarray(v) for k, v in content.items()}
+
+        def write(tmp):
+            with open(tmp, "wb") as fh:
+                np.savez(fh, checksum=checksum(content), **content)
+
+        atomic_write(path, write)
+
+    def load(self, cell, cell_id: int, block: int, start: int, count: int, width: int):
+        """Read one block back as a BlockResult tagged with ``cell_id``, or None.
+
+        None when the file is absent, and also (with a warning through ``self.warn``) when it
+        cannot be read (truncated, damaged), fails its checksum, or is not the block asked for:
+        another design, block or estimator list, or arrays of another shape than ``count``
+        replicates of ``width`` variables.  The block is then drawn again.
+        """
+        from samplewright.simulation.engine import BlockResult
+
+        path = self.folder / block_name(cell, block)
+        if not path.is_file():  # absent (a FIFO or a loop in its place is not read either)
+            return None
+        try:
+            with open(path, "rb") as fh, np.load(fh, allow_pickle=False) as z:  # fh closed even if np.load fails
+                content = {k: z[k] for k in z.files}
+        except Exception as exc:  # noqa: BLE001 -- whatever a damaged file raises, the block is drawn again
+            why = f"cannot be read ({type(exc).__name__}: it is truncated or damaged)"
+        else:
+            why = _mismatch(content, cell, block, start, count, width)
+        if why is None:
+            arrays = {k[2:]: v for k, v in content.items() if k.startswith("r_")}
+            return BlockResult(cell=cell_id, block=block, start=start, **arrays)
+        if self.warn is not None:
+            self.warn(f"block file {str(path)!r} {why}; its replicates are drawn again")
+        return None
+
+
+def _mismatch(content: dict, cell, block: int, start: int, count: int, width: int) -> str | None:
+    """Why a block file's ``content`` is not the block asked for (None when it is)."""
+    from samplewright.simulation.engine import BlockResult
+
+    saved = content.pop("checksum", None)
+    if saved is None or saved.shape != () or str(saved) != checksum(content):
+        return "fails its checksum (it was altered or damaged)"
+    try:
+        tags = (str(content["label"]), int(content["block"]), int(content["start"]),
+                tuple(content["estimators"].tolist()))
+    except (KeyError, TypeError, ValueError):
+        return "lacks the tags of a block"
+    if tags != (cell.design.label, block, start, tuple(cell.estimators)):
+        return "belongs to another design, block or estimator list"
+    names = {k[2:] for k in content if k.startswith("r_")}
+    allowed = {f.name for f in fields(BlockResult)} - set(_TAGS)
+    if not {"n", "cost", *_PER_ESTIMATOR} <= names <= allowed:
+        return "does not hold the arrays of a block"
+    E = len(cell.estimators)
+    for k in sorted(names):
+        a = content["r_" + k]
+        shape = (E, count, width) if k.removeprefix("full_") in _PER_ESTIMATOR else (count,)
+        if a.shape != shape or a.dtype.kind not in "biuf":
+            return f"holds {k} as {a.dtype} of shape {a.shape}, not numbers of shape {shape}"
+    return None
+
+
+def _payload(result) -> dict:
+    """Every per-replicate field of a BlockResult (None fields are left out)."""
+    return {f.name: getattr(result, f.name) for f in fields(result)
+            if f.name not in _TAGS and getattr(result, f.name) is not None}
+
+
+def _short(v) -> str:
+    s = json.dumps(v, default=str)
+    return s if len(s) <= 60 else s[:57] + "..."

@@ -1,0 +1,481 @@
+"""The replicate engine: blocks of replicates, their seeds, and parallel dispatch.
+
+Seeding
+-------
+One root ``numpy.random.SeedSequence(seed)`` per run.  Block b of size point s of a design
+draws from ``SeedSequence(seed, spawn_key=(*design_key, s, b))`` where ``design_key`` is the
+SHA-256 of the design's label (UTF-8) as eight 32-bit words: the child a ``spawn`` would
+give, rebuilt by key.  Labels are unique within a scenario and a 256-bit hash does not
+collide in practice (a 32-bit checksum did: two labels with the same crc32 drew identical
+replicates); :func:`make_cells` still refuses two designs with one key.  The block size is
+fixed per run (and recorded), so the numbers never depend on ``--jobs``, the backend or the
+order in which blocks finish, and adding or dropping a design leaves the others' numbers
+unchanged.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import itertools
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from samplewright.estimation.cost import CostModel
+from samplewright.designs import Design
+from samplewright.errors import InputError
+from samplewright.estimation.estimators import ESTIMATORS, sample_units
+from samplewright.simulation.fieldwork import replicate_columns
+from samplewright.population.frame import Frame
+
+
+@dataclass(frozen=True)
+class Cell:
+    """One design at one size: the unit of work the engine splits into blocks."""
+
+    design: Design  # at a single size
+    design_index: int  # position in the scenario (for ordering output)
+    size_index: int
+    estimators: tuple[str, ...]
+
+    @property
+    def key(self) -> tuple[int, ...]:
+        return stream_key(self.design.label)
+
+
+def stream_key(label: str) -> tuple[int, ...]:
+    """The random-stream key of a design: the SHA-256 of its label as eight 32-bit words."""
+    digest = hashlib.sha256(label.encode("utf-8")).digest()
+    return tuple(int.from_bytes(digest[i:i + 4], "big") for i in range(0, 32, 4))
+
+
+@dataclass
+class BlockResult:
+    """One block's per-replicate results, tagged with the cell and block it came from."""
+
+    cell: int
+    block: int
+    start: int
+    estimate: np.ndarray  # (E, B, V)
+    se: np.ndarray
+    lower: np.ndarray
+    upper: np.ndarray
+    n: np.ndarray  # (B,)
+    cost: np.ndarray  # (B,)
+    # fieldwork only (see fieldwork.py): counts per replicate and the full-response results
+    attempted: np.ndarray | None = None  # (B,)
+    eligible: np.ndarray | None = None  # (B,)
+    full_estimate: np.ndarray | None = None  # (E, B, V)
+    full_se: np.ndarray | None = None
+    full_lower: np.ndarray | None = None
+    full_upper: np.ndarray | None = None
+    full_cost: np.ndarray | None = None  # (B,)
+    adjustment_failed: np.ndarray | None = None  # (B,)
+
+
+def block_seed(seed: int, cell: Cell, block: int) -> np.random.SeedSequence:
+    """The seed of one block (see module notes)."""
+    return np.random.SeedSequence(seed, spawn_key=(*cell.key, cell.size_index, block))
+
+
+def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
+    """(block index, first replicate, count) for every block of a cell."""
+    return [(b, s, min(block_size, replicates - s)) for b, s in enumerate(range(0, replicates, block_size))]
+
+
+def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, count: int,
+              seedseq: np.random.SeedSequence, confidence: float, cost: CostModel) -> BlockResult:
+    """Draw one block of replicates and estimate with every estimator of the cell."""
+    if getattr(cell.design, "fieldwork", None) is not None:  # non-response, frame errors (fieldwork.py)
+        from samplewright.simulation.fieldwork import run_fieldwork_block
+
+        return run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost)
+    rng = np.random.default_rng(seedseq)
+    sample = cell.design.draw(frame, rng, count, keep_units=cost.needs_units(cell.design))
+    outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence, frame.layout) for e in cell.estimators]
+    return BlockResult(
+        cell=cell_id, block=block, start=start,
+        estimate=np.stack([o.estimate for o in outs]),
+        se=np.stack([o.se for o in outs]),
+        lower=np.stack([o.lower for o in outs]),
+        upper=np.stack([o.upper for o in outs]),
+        n=sample_units(sample),
+        cost=cost.replicate_cost(sample, frame),
+    )
+
+
+def make_cells(designs, estimators) -> list[Cell]:
+    """Expand every design's size sweep into cells (refused: two designs with one stream key)."""
+    cells, owner = [], {}
+    for i, (d, est) in enumerate(zip(designs, estimators)):
+        first = owner.setdefault(stream_key(d.label), i)
+        if first != i:
+            raise InputError(f"designs {designs[first].label!r} and {d.label!r} would draw the same random numbers "
+                             f"(their labels give one stream key); give them different labels")
+        for j, size in enumerate(d.sizes()):
+            cells.append(Cell(design=d.at(size), design_index=i, size_index=j, estimators=tuple(est)))
+    return cells
+
+
+#: where blocks run: in this process / local worker processes (joblib's loky), or a dask cluster
+BACKENDS = ("local", "dask")
+
+
+def simulate(frame: Frame, cells: list[Cell], replicates: int, seed: int, block_size: int,
+             confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
+             scheduler: str | None = None, store=None) -> list[BlockResult]:
+    """Run every block of every cell; results come back tagged, in any order.
+
+    ``progress``, when given, is called with (cell id, replicates done in that block) after
+    each block completes.  ``store`` (a :class:`~samplewright.simulation.checkpoint.BlockStore`) keeps
+    each finished block on disk and supplies the blocks a previous attempt finished.
+    """
+    tasks = [(ci, b, s, count) for ci in range(len(cells)) for b, s, count in block_spans(replicates, block_size)]
+    return list(_complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress))
+
+
+def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, seed: int, block_size: int,
+                   confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
+                   scheduler: str | None = None, store=None,
+                   truth: np.ndarray | None = None) -> tuple[list[BlockResult], list[dict]]:
+    """Add blocks to each cell, in block order, until it meets ``rule`` (see :mod:`samplewright.evaluation.stopping`).
+
+    Coverage is scored against ``truth``, the true population's value of every output variable
+    of ``frame.layout`` (targets, then domain means); by default ``frame.layout.truth``, which
+    is wrong when ``frame`` is a listed frame with frame errors (pass the true population's).
+
+    Every cell runs at least ``min_replicates`` (rounded up to whole blocks) and at most
+    ``rule.max_replicates``.  Blocks are dispatched in waves sized from the replicates the
+    rule still asks for; blocks past a cell's stopping point are dropped, so the replicates
+    kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the
+    per-cell report of :func:`samplewright.evaluation.stopping.report`.
+    """
+    from samplewright.evaluation.stopping import CellProgress, report
+
+    spans = block_spans(rule.max_replicates, block_size)
+    min_blocks = min(len(spans), -(-int(min_replicates) // block_size))
+    states = {ci: CellProgress() for ci in range(len(cells))}
+    have: dict[int, dict[int, BlockResult]] = {ci: {} for ci in range(len(cells))}
+    scheduled = {ci: 0 for ci in range(len(cells))}
+    wave = {ci: min_blocks for ci in range(len(cells))}
+    with backend_session(backend, scheduler, frame, cells):  # one dask client and scatter for every wave
+        _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
+                     block_size, min_blocks, states, have, scheduled, wave,
+                     frame.layout.truth if truth is None else np.asarray(truth, dtype=float))
+    kept = [have[ci][b] for ci, st in states.items() for b in range(st.used)]
+    return kept, report(cells, states, rule)
+
+
+def _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
+                 block_size, min_blocks, states, have, scheduled, wave, truth) -> None:
+    """The waves of :func:`simulate_until`: dispatch, consume in block order, size the next wave."""
+    from samplewright.evaluation.stopping import advance
+
+    max_blocks = len(spans)
+    while True:
+        tasks = []
+        for ci, st in states.items():
+            if st.stopped:
+                continue
+            upto = min(max_blocks, wave[ci])
+            tasks += [(ci, b, spans[b][1], spans[b][2]) for b in range(scheduled[ci], upto)]
+            scheduled[ci] = max(scheduled[ci], upto)
+        if not tasks:
+            break
+        for r in _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
+            have[r.cell][r.block] = r
+        for ci, st in states.items():
+            if st.stopped:
+                continue
+            advance(st, have[ci], rule, truth, min_blocks, max_blocks)
+            if not st.stopped:  # aim at the replicates still asked for, growing at most twofold per wave
+                aim = -(-st.tally.needed(rule.targets) // block_size)
+                wave[ci] = min(max_blocks, max(st.used + max(jobs, 1), min(aim, 2 * st.used)))
+
+
+def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
+    """Yield the result of every task (cell id, block, start, count): from ``store`` when it
+    holds the block already, otherwise drawn now (and saved to ``store`` on arrival)."""
+    done = store.finished() if store is not None else set()
+    width = len(frame.layout.names)
+    todo = []
+    for ci, b, s, count in tasks:
+        cell = cells[ci]
+        r = store.load(cell, ci, b, s, count, width) if (cell.key, cell.size_index, b) in done else None
+        if r is not None:
+            if progress:
+                progress(ci, count)
+            yield r
+        else:
+            todo.append((ci, b, s, count))
+    for r in dispatch(frame, cells, todo, seed, confidence, cost, jobs, backend, scheduler):
+        if store is not None:
+            store.save(r, cells[r.cell])
+        if progress:
+            progress(r.cell, len(r.n))
+        yield r
+
+
+def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: float, cost: CostModel,
+             jobs: int = 1, backend: str = "local", scheduler: str | None = None):
+    """Run ``run_block`` for each task (cell id, block, start, count); yield results as they finish.
+
+    ``backend="local"`` runs in this process when ``jobs`` is 1, else on ``jobs`` worker
+    processes forked from this one (where the platform forks and this process runs no
+    other thread; otherwise joblib's loky workers reading a memory-mapped copy of the
+    frame); ``backend="dask"`` sends the blocks to the dask.distributed scheduler
+    at ``scheduler`` through joblib's dask backend, with the frame scattered to the workers
+    once (not shipped with every block).
+    """
+    calls = [(ci, b, s, count, block_seed(seed, cells[ci], b)) for ci, b, s, count in tasks]
+    if not calls:
+        return
+    if backend == "local" and (jobs == 1 or len(calls) == 1):
+        for ci, b, s, count, ss in calls:
+            yield run_block(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
+        return
+    from joblib import Parallel, delayed
+
+    if backend == "dask":
+        from joblib import parallel_config
+
+        work = (delayed(run_task)(frame, cells, ci, b, s, count, ss, confidence, cost)
+                for ci, b, s, count, ss in calls)
+        if (scheduler, id(frame), id(cells)) in _SESSIONS:  # inside backend_session: already scattered
+            yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
+            return
+        with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame, cells]):
+            yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
+        return
+    import multiprocessing as mp
+    import threading
+
+    # forking a process that runs other threads can deadlock the child: then loky's workers
+    if "fork" in mp.get_all_start_methods() and threading.active_count() == 1:
+        yield from _forked(frame, cells, calls, jobs, confidence, cost)
+        return
+    import shutil
+    import tempfile
+
+    import joblib
+
+    folder = tempfile.mkdtemp(prefix="samplewright-shared-")
+    try:  # the frame and cells go to disk once; workers map them read-only (see run_shared)
+        path = str(Path(folder) / "shared.joblib")
+        joblib.dump((frame, cells), path)
+        work = (delayed(run_shared)(path, ci, b, s, count, ss, confidence, cost) for ci, b, s, count, ss in calls)
+        yield from Parallel(n_jobs=jobs, return_as="generator_unordered")(work)
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+
+
+#: frame and cells a forked worker inherits from its parent, by token
+_INHERITED: dict[str, tuple] = {}
+#: blocks a forked worker runs per task (the numbers do not depend on it: each block has its own seed)
+FORK_CHUNK = 4
+
+
+def _forked(frame, cells, calls, jobs, confidence, cost):
+    """Run the calls on ``jobs`` forked worker processes that inherit the frame and cells.
+
+    Forked workers share the parent's memory pages (copy-on-write) and its imports, so
+    nothing is pickled but each block's seed and its small result; a pool of fresh
+    processes would first spend seconds importing and receiving the frame.
+    """
+    import multiprocessing as mp
+    import os
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+
+    token = f"{os.getpid()}-{id(frame)}-{id(cells)}"
+    _INHERITED[token] = (frame, cells)
+    pool = ProcessPoolExecutor(jobs, mp_context=mp.get_context("fork"), initializer=_quiet_worker)
+    try:  # a few chunks of blocks in flight per worker; a worker that dies raises BrokenProcessPool here
+        todo = iter(calls)
+        pending = set()
+        while True:
+            while len(pending) < 2 * jobs:
+                chunk = [(token, ci, b, s, count, ss, confidence, cost)
+                         for ci, b, s, count, ss in itertools.islice(todo, FORK_CHUNK)]
+                if not chunk:
+                    break
+                pending.add(pool.submit(_run_inherited_chunk, chunk))
+            if not pending:
+                break
+            done, pending = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in done:
+                yield from fut.result()
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+        _INHERITED.pop(token, None)
+
+
+def _quiet_worker() -> None:
+    """Workers leave Ctrl-C to the parent, which stops the pool (finished blocks are already saved)."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _run_inherited(args) -> BlockResult:
+    token, cell_id, *rest = args
+    frame, cells = _INHERITED[token]
+    return run_task(frame, cells, cell_id, *rest)
+
+
+def _run_inherited_chunk(chunk) -> list[BlockResult]:
+    """Several blocks in one task: fewer round trips to the parent for short blocks."""
+    return [_run_inherited(args) for args in chunk]
+
+
+def run_task(frame: Frame, cells: list[Cell], cell_id: int, *args) -> BlockResult:
+    """``run_block`` for cell ``cells[cell_id]`` (so a backend can ship the cell list once)."""
+    return run_block(frame, cells[cell_id], cell_id, *args)
+
+
+#: per worker process: (frame, cells) already read from a dispatch's shared file
+_SHARED: dict[str, tuple] = {}
+
+
+def run_shared(path: str, cell_id: int, *args) -> BlockResult:
+    """``run_task`` on the frame and cells the parent dumped to ``path``, read once per worker.
+
+    The arrays are memory-mapped read-only, so the workers share the parent's pages instead
+    of each receiving a copy with every block; design caches then live as long as the worker.
+    """
+    if path not in _SHARED:
+        import joblib
+
+        _SHARED.clear()
+        frame, cells = joblib.load(path, mmap_mode="r")
+        _plain_arrays(frame)
+        _SHARED[path] = (frame, cells)
+    frame, cells = _SHARED[path]
+    return run_task(frame, cells, cell_id, *args)
+
+
+def _plain_arrays(obj) -> None:
+    """Turn the memmap attributes of a loaded frame into plain ndarray views (no subclass overhead)."""
+    for k, v in list(vars(obj).items()):
+        if isinstance(v, np.memmap):
+            object.__setattr__(obj, k, v.view(np.ndarray))
+
+
+#: dask sessions open in this process: (scheduler, id(frame), id(cells))
+_SESSIONS: set = set()
+
+
+@contextmanager
+def backend_session(backend: str, scheduler: str | None, frame: Frame, cells: list[Cell]):
+    """Keep one dask client and one scatter of the frame and cells for several dispatches."""
+    if backend != "dask":
+        yield
+        return
+    from joblib import parallel_config
+
+    key = (scheduler, id(frame), id(cells))
+    with _dask_client(scheduler), parallel_config(backend="dask", scatter=[frame, cells]):
+        _SESSIONS.add(key)
+        try:
+            yield
+        finally:
+            _SESSIONS.discard(key)
+
+
+def check_backend(backend: str, scheduler: str | None) -> None:
+    """Refuse (InputError) an unknown backend, or dask without a scheduler address or its packages."""
+    from samplewright.config.validate import closest
+
+    if backend not in BACKENDS:
+        raise InputError(f"backend {backend!r} is not known{closest(backend, BACKENDS)}")
+    if backend != "dask":
+        return
+    if not scheduler:
+        raise InputError("--backend dask needs --scheduler ADDRESS, the address of a running dask scheduler "
+                         "(e.g. tcp://scheduler-host:8786)")
+    try:
+        import distributed  # noqa: F401
+    except ImportError:
+        raise InputError("--backend dask needs the optional dask packages: pip install 'samplewright[dask]'") \
+            from None
+
+
+def _dask_client(scheduler: str | None):
+    """A client of the dask scheduler at ``scheduler`` (refused with InputError when unreachable)."""
+    from distributed import Client
+
+    check_backend("dask", scheduler)
+    try:
+        return Client(scheduler, timeout="20s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(f"--scheduler {scheduler!r}: no dask scheduler could be reached there "
+                         f"({type(exc).__name__}: {exc})") from None
+
+
+def replicate_table(results: list[BlockResult], cells: list[Cell], variables, consume: bool = False) -> pd.DataFrame:
+    """Tidy per-replicate table (contract columns), ordered by design, size, estimator, variable, replicate.
+
+    Each column is allocated once at its final length and filled block by block.  With
+    ``consume``, ``results`` is emptied and each cell's blocks are released as soon as they
+    are copied in, so building the table of a long run needs little more memory than the
+    blocks or the table, not both plus intermediate copies.
+    """
+    by_cell: dict[int, list[BlockResult]] = {}
+    for r in sorted(results, key=lambda r: (r.cell, r.block)):
+        by_cell.setdefault(r.cell, []).append(r)
+    if consume:
+        results.clear()
+    V = len(variables)
+    plan, total = [], 0  # (cell id, cell, estimators E, replicates R, first row)
+    for ci, cell in enumerate(cells):
+        if by_cell.get(ci):
+            E, R = by_cell[ci][0].estimate.shape[0], sum(len(r.n) for r in by_cell[ci])
+            plan.append((ci, cell, E, R, total))
+            total += E * V * R
+    num = {"replicate": np.empty(total, dtype=np.int64)}
+    for k in ("estimate", "se", "lower", "upper", "n", "cost"):
+        num[k] = np.empty(total)
+    extras = []
+    for ci, cell, E, R, first in plan:
+        mine = by_cell.pop(ci)
+        rows = slice(first, first + E * V * R)
+        for k in ("estimate", "se", "lower", "upper"):  # rows ordered estimator, variable, replicate
+            dst, at = num[k][rows].reshape(E, V, R), 0
+            for r in mine:
+                b = len(r.n)
+                dst[:, :, at:at + b] = getattr(r, k).transpose(0, 2, 1)
+                at += b
+        num["n"][rows].reshape(E * V, R)[:] = np.concatenate([r.n for r in mine])
+        num["cost"][rows].reshape(E * V, R)[:] = np.concatenate([r.cost for r in mine])
+        num["replicate"][rows].reshape(E * V, R)[:] = np.concatenate(
+            [np.arange(r.start, r.start + len(r.n)) for r in mine])
+        extras.append(replicate_columns(mine, E, V))  # fieldwork columns, when the run has them
+        del mine
+    lengths = [E * V * R for _, _, E, R, _ in plan]
+    text = {
+        "design": np.repeat(np.array([c.design.label for _, c, _, _, _ in plan], dtype=object), lengths),
+        "estimator": np.concatenate([np.repeat(np.array(c.estimators, dtype=object), V * R)
+                                     for _, c, E, R, _ in plan] or [np.array([], dtype=object)]),
+        "variable": np.concatenate([np.tile(np.repeat(np.array(variables, dtype=object), R), E)
+                                    for _, c, E, R, _ in plan] or [np.array([], dtype=object)]),
+    }
+    size = np.repeat(np.array([int(c.design.size) for _, c, _, _, _ in plan], dtype=np.int64), lengths)
+    columns = {"replicate": num.pop("replicate")}
+    columns["design"] = pd.Series(text.pop("design"))  # text: the dtype pandas infers for it
+    columns["size"] = size
+    columns["estimator"] = pd.Series(text.pop("estimator"))
+    columns["variable"] = pd.Series(text.pop("variable"))
+    columns.update(num)
+    table = pd.DataFrame(columns, copy=False)
+    if any(extras):
+        keys = list(extras[0])
+        if all(list(e) == keys for e in extras):
+            for k in keys:
+                table[k] = np.concatenate([e.pop(k) for e in extras])
+        else:  # cells with different extra columns: aligned by pandas, NaN where a cell has none
+            more = pd.concat([pd.DataFrame(e, index=pd.RangeIndex(first, first + n))
+                              for e, (_, _, _, _, first), n in zip(extras, plan, lengths)])
+            table = pd.concat([table, more], axis=1)
+    return table

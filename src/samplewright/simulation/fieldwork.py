@@ -1,0 +1,397 @@
+"""Fieldwork in the rehearsal: selected units are visited, some are ineligible, some never answer.
+
+The glue between the designs and the response, weighting and frame-error modules:
+
+1. :func:`prepare` (once per run) lists the frame from the true population when the
+   scenario has ``[frame_error]``, resolves the ``[response]`` model into propensities and
+   each design's adjustment into class codes and population controls, and attaches a
+   :class:`Fieldwork` to every cell's design.
+2. :func:`run_fieldwork_block` (per block, called from ``engine.run_block``) draws the
+   design's sample exactly as without fieldwork (same Generator), finds the units behind
+   every PSU position (:func:`psu_units`), draws the responses from a second Generator
+   whose SeedSequence is the block's with one spawn-key word appended, and estimates twice
+   from the same replicate draws: with every eligible unit responding (full response) and
+   with the drawn responses, each through the design's adjustment.
+3. :func:`summary_columns` adds the non-response columns to the summary.
+
+Bias split, per summary row (x: the estimate with non-response; x_full: the same
+replicate's full-response estimate; C: the estimator on a census of the listed frame with
+the same adjustment; T: the true population mean):
+
+    bias = mean(x) - T = [mean(x_full) - C] + [C - T] + [mean(x - x_full)]
+         = sampling_bias + frame_bias + nonresponse_bias
+
+``nonresponse_bias_mcse`` is the MCSE of a mean of the paired differences x - x_full
+(Morris, White & Crowther 2019, Table 6 applied to the differences), usually far smaller
+than the MCSE of the bias itself because both share the sample.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from samplewright.simulation import response as _response
+from samplewright.designs.block import SampleBlock
+from samplewright.errors import InputError
+from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.evaluation.measures import holds
+from samplewright.population.frame import Frame
+from samplewright.estimation.two_stage_variance import slot_shares
+from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
+
+#: per-replicate columns fieldwork adds to the replicate table (after the contract columns)
+REPLICATE_COLUMNS = ("attempted", "eligible", "full_estimate", "full_se", "full_lower", "full_upper",
+                     "full_cost", "adjustment_failed")
+#: summary columns fieldwork adds (after the contract columns)
+SUMMARY_EXTRA = [
+    "adjustment", "mean_attempted", "mean_respondents", "response_rate", "cost_per_complete",
+    "full_response_bias", "full_response_empirical_se", "full_response_rmse", "full_response_coverage",
+    "full_response_mean_cost", "full_response_cost_per_complete",
+    "sampling_bias", "sampling_bias_mcse", "frame_bias", "nonresponse_bias", "nonresponse_bias_mcse",
+    "adjustment_failures",
+]
+
+
+@dataclass(frozen=True, eq=False)
+class Fieldwork:
+    """What one design's blocks need at fieldwork: who is eligible, who responds, how to reweight."""
+
+    eligible: np.ndarray  # (N_list,) bool
+    propensity: _response.Propensity | None  # None: every eligible unit responds
+    adjustment: ResolvedAdjustment
+    spec: AdjustmentSpec
+
+
+@dataclass(frozen=True, eq=False)
+class FieldSetup:
+    """A run's fieldwork: the frame the designs draw from, the true one, and per-design details."""
+
+    frame: Frame  # the listed frame (the true one when there are no frame errors)
+    truth: Frame  # the true population (the evaluator's truths)
+    census: dict  # (design label, estimator) -> (V',) estimator on a census of the listed frame
+    adjustments: dict  # design label -> AdjustmentSpec
+    info: dict
+
+
+def active(scenario) -> bool:
+    """Whether the scenario asks for any fieldwork (response, frame errors or an adjustment)."""
+    adj = [getattr(d, "adjustment", None) for d in scenario.designs]
+    return (getattr(scenario, "response", None) is not None or getattr(scenario, "frame_error", None) is not None
+            or any(a is not None and a.method != "none" for a in adj))
+
+
+# ------------------------------------------------------------------ unit layout
+def psu_units(block: SampleBlock, frame: Frame) -> tuple[np.ndarray, np.ndarray]:
+    """The units behind every PSU position of a block drawn with ``keep_units=True``.
+
+    Returns ``units`` (B, m, k) listed-unit indices (0 where there is no unit) and
+    ``valid`` (B, m, k) bool.  Unit designs give one unit per position (k = 1); two-stage
+    cluster designs their second-stage units; one-stage cluster designs every unit of each
+    chosen cluster (k = the largest chosen cluster).
+    """
+    B, m = block.sums.shape[:2]
+    u = block.units
+    if u is None:
+        raise InputError("this design does not report the units it selects, so non-response cannot be "
+                         "rehearsed for it")
+    if isinstance(u, list):  # whole clusters, one concatenated row per replicate
+        lengths = np.array([len(r) for r in u])
+        flat = np.concatenate(u).astype(np.int64)
+        row = np.repeat(np.arange(B), lengths)
+        cl = frame.cluster[flat]
+        start = np.ones(flat.size, dtype=bool)
+        start[1:] = (cl[1:] != cl[:-1]) | (row[1:] != row[:-1])
+        chosen = cl[start]
+        if chosen.size != B * m:
+            raise InputError("the cluster design's unit list does not split into its PSUs")
+        chosen = chosen.reshape(B, m)
+        sizes = frame.cluster_sizes[chosen]
+        pos = np.arange(int(sizes.max()))
+        valid = pos < sizes[..., None]
+        units = frame.cluster_units[frame.cluster_offsets[chosen][..., None] + np.where(valid, pos, 0)]
+    else:
+        u = np.asarray(u)
+        if u.ndim == 3:
+            units = u
+        elif u.shape[1] == m:
+            units = u[..., None]
+        elif u.shape[1] % m == 0:
+            units = u.reshape(B, m, -1)
+        else:
+            raise InputError("this design's unit list does not match its PSU positions, so non-response "
+                             "cannot be rehearsed for it")
+        valid = units >= 0
+    if block.mask is not None:
+        valid = valid & block.mask[..., None]
+    return np.where(valid, units, 0), valid
+
+
+def _rebuilt(sample: SampleBlock, u: np.ndarray, count: np.ndarray) -> SampleBlock:
+    """A block whose weighted PSU sums are the adjusted linearised sums.
+
+    The design's weights are kept (sums = u / weight), so a variance routine that reads the
+    weights as inverse inclusion probabilities (Poisson, size-proportional designs) still
+    finds them.
+    """
+    B, m = u.shape[:2]
+    w = np.broadcast_to(sample.weight, (B, m))
+    inv = np.where(w > 0, 1.0 / np.where(w > 0, w, 1.0), 0.0)[..., None]
+    sums = np.concatenate([u, count[..., None], np.zeros((B, m, 1))], axis=2) * inv
+    return dataclasses.replace(sample, sums=sums, units=None)
+
+
+def _estimate(block, frame, estimators, confidence):
+    outs = [ESTIMATORS[e](block, frame.N, frame.V, confidence, frame.layout) for e in estimators]
+    return [np.stack([getattr(o, k) for o in outs]) for k in ("estimate", "se", "lower", "upper")]
+
+
+def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.SeedSequence):
+    """Responses and adjusted blocks of one drawn block.
+
+    Returns (realistic block, full-response block, attempted, eligible, completed, failed),
+    the counts per replicate (B,).
+    """
+    units, valid = psu_units(sample, frame)
+    all_eligible = bool(fw.eligible.all())
+    e = valid if all_eligible else valid & fw.eligible[units]
+    if fw.propensity is None:
+        r = e
+    else:
+        rng = np.random.default_rng(_response.block_seed(seedseq))
+        r = e & fw.propensity.respond(rng, units)
+    B, m = sample.sums.shape[:2]
+    w = np.broadcast_to(np.broadcast_to(sample.weight, (B, m))[..., None], units.shape)
+    gather = getattr(frame, "gather", None)  # the padded-row gather where the frame has it
+    rows = gather(units) if gather is not None else frame.values[units]
+    y = rows[..., : frame.values.shape[1] - 2]  # every value column but count and cost
+    positions = np.ones((B, m), dtype=bool) if sample.mask is None else sample.mask
+    if sample.psu is not None:  # two stages: the positions are units, counted as shares of their cluster
+        positions = slot_shares(sample)
+    u, cnt, failed = fw.adjustment.apply(units, w, y, e, r, positions)
+    if fw.adjustment.method in ("none", "class") and all_eligible:
+        full = sample  # with every unit eligible and responding these adjustments change nothing
+    else:
+        uf, cntf, _ = fw.adjustment.apply(units, w, y, e, e, positions)
+        full = _rebuilt(sample, uf, cntf)
+    return (_rebuilt(sample, u, cnt), full, valid.sum(axis=(1, 2)).astype(float),
+            e.sum(axis=(1, 2)).astype(float), r.sum(axis=(1, 2)).astype(float), failed)
+
+
+def run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost):
+    """``engine.run_block`` for a design with fieldwork attached (see module notes)."""
+    from samplewright.simulation.engine import BlockResult
+
+    fw = cell.design.fieldwork
+    rng = np.random.default_rng(seedseq)
+    sample = cell.design.draw(frame, rng, count, keep_units=True)
+    real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, seedseq)
+    est, se, lo, hi = _estimate(real, frame, cell.estimators, confidence)
+    fest, fse, flo, fhi = _estimate(full, frame, cell.estimators, confidence)
+    return BlockResult(
+        cell=cell_id, block=block, start=start, estimate=est, se=se, lower=lo, upper=hi,
+        n=completed, cost=cost.replicate_cost(sample, frame, completed=completed),
+        attempted=attempted, eligible=eligible, full_estimate=fest, full_se=fse, full_lower=flo, full_upper=fhi,
+        full_cost=cost.replicate_cost(sample, frame, completed=eligible), adjustment_failed=failed.astype(float),
+    )
+
+
+def replicate_columns(blocks, E: int, V: int) -> dict:
+    """Extra replicate-table columns for one cell's sorted blocks (empty without fieldwork)."""
+    if not blocks or getattr(blocks[0], "full_estimate", None) is None:
+        return {}
+    out = {}
+    for k in REPLICATE_COLUMNS:
+        if k in ("full_estimate", "full_se", "full_lower", "full_upper"):
+            a = np.concatenate([getattr(r, k) for r in blocks], axis=1)  # (E, R, V)
+            out[k] = a.transpose(0, 2, 1).reshape(-1)
+        else:
+            a = np.concatenate([getattr(r, k) for r in blocks])
+            out[k] = np.tile(a, E * V)
+    return out
+
+
+# ------------------------------------------------------------------ set-up
+def _columns_needed(scenario) -> list[str]:
+    names = []
+    if scenario.response is not None:
+        names += list(scenario.response.columns())
+    if scenario.frame_error is not None:
+        names += list(scenario.frame_error.columns())
+    for d in scenario.designs:
+        a = getattr(d, "adjustment", None)
+        if a is not None:
+            names += list(a.columns())
+    return list(dict.fromkeys(names))
+
+
+def _column_arrays(scenario, frame: Frame, names) -> dict:
+    """Arrays over the true frame's units for the columns fieldwork reads."""
+    out, rest = {}, []
+    roles = frame.roles
+    for name in names:
+        if name in frame.variables:
+            out[name] = frame.y[:, frame.variables.index(name)]
+        elif name == roles.get("stratum"):
+            out[name] = np.asarray(frame.stratum_labels, dtype=object)[frame.stratum]
+        elif name == roles.get("cluster"):
+            out[name] = np.asarray(frame.cluster_labels, dtype=object)[frame.cluster]
+        else:
+            rest.append(name)
+    if rest:
+        from samplewright.config.validate import closest, frame_columns
+
+        spec = scenario.frame
+        raw = spec.dataframe()
+        source = "synthetic frame" if spec.synthetic is not None else str(spec.path)
+        base = {k: v for k, v in spec.roles.items() if k in ("target", "stratum", "cluster", "size", "order",
+                                                              "unit_cost", "id")}
+        df, _ = frame_columns(raw, missing=spec.missing, source=source, **base)
+        if len(df) != frame.N:
+            raise InputError(f"{source}: the frame given to run() has {frame.N} units but the scenario's frame "
+                             f"has {len(df)}; fieldwork columns cannot be matched to units")
+        for name in rest:
+            if name not in df.columns:
+                raise InputError(f"{source}: column {name!r} (used by [response], [frame_error] or an "
+                                 f"adjustment) is not in the frame{closest(name, df.columns)}")
+            if df[name].isna().any():
+                raise InputError(f"{source}: column {name!r} has blank values; fieldwork columns must be complete")
+            out[name] = df[name].to_numpy()
+    return out
+
+
+def _numeric(name, values) -> np.ndarray:
+    try:
+        v = np.asarray(values, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"[response] coefficients: column {name!r} is not numeric") from None
+    if not np.isfinite(v).all():
+        raise InputError(f"[response] coefficients: column {name!r} has non-finite values")
+    return v
+
+
+def _codes(values) -> tuple[np.ndarray, int]:
+    codes, labels = pd.factorize(pd.Series(values).astype(str), sort=True)
+    return codes.astype(np.int64), len(labels)
+
+
+def _resolve_adjustment(spec: AdjustmentSpec, listed: Frame, source: np.ndarray, cols: dict) -> ResolvedAdjustment:
+    if spec.method == "none":
+        return ResolvedAdjustment("none")
+    if spec.method in ("class", "poststrat"):
+        if spec.classes is None:  # the frame's strata
+            return ResolvedAdjustment("class", codes=(listed.stratum,), sizes=(listed.H,))
+        codes, G = _codes(cols[spec.classes])
+        controls = (np.bincount(codes, minlength=G).astype(float),)
+        return ResolvedAdjustment(spec.method, codes=(codes[source],), sizes=(G,), controls=controls)
+    codes, sizes, controls = [], [], []
+    for col in spec.margins:
+        c, G = _codes(cols[col])
+        codes.append(c[source])
+        sizes.append(G)
+        controls.append(np.bincount(c, minlength=G).astype(float))
+    return ResolvedAdjustment("raking", codes=tuple(codes), sizes=tuple(sizes), controls=tuple(controls))
+
+
+def _census(fw: Fieldwork, frame: Frame, estimators, confidence) -> dict:
+    """Every estimator applied to a census of the listed frame (all eligible listings respond)."""
+    N = frame.N
+    units = np.arange(N)[None, :, None]
+    ones = np.ones((1, N, 1))
+    e = fw.eligible[units]
+    y = frame.values[units][..., : frame.values.shape[1] - 2]
+    u, cnt, _ = fw.adjustment.apply(units, ones, y, e, e, np.ones((1, N), dtype=bool))
+    census = SampleBlock(sums=np.concatenate([u, cnt[..., None], np.zeros((1, N, 1))], axis=2),
+                         weight=np.ones(N), psu_stratum=np.zeros(N, dtype=np.int64), fpc=np.array([0.0]),
+                         clusters=np.zeros(1))
+    return {est: ESTIMATORS[est](census, N, frame.V, confidence, frame.layout).estimate[0] for est in estimators}
+
+
+def prepare(scenario, frame: Frame, cells, seed: int, confidence: float) -> FieldSetup | None:
+    """Set up fieldwork for a run (None when the scenario asks for none); attaches it to the cells.
+
+    ``frame`` is the true population as loaded; the returned setup's ``frame`` is what the
+    designs must draw from (the listed frame under ``[frame_error]``).
+    """
+    if not active(scenario):
+        return None
+    names = _columns_needed(scenario)
+    cols = _column_arrays(scenario, frame, names)
+    info = {}
+    if scenario.frame_error is not None:
+        from samplewright.population.frame_errors import list_frame
+
+        lf = list_frame(frame, scenario.frame_error, seed, cols)
+        listed, source, eligible = lf.frame, lf.source, lf.eligible
+        info["frame_error"] = {**scenario.frame_error.describe(), **lf.counts}
+    else:
+        listed, source, eligible = frame, np.arange(frame.N), np.ones(frame.N, dtype=bool)
+    propensity = None
+    if scenario.response is not None:
+        model = scenario.response
+        for c in model.columns():
+            cols[c] = _numeric(c, cols[c])
+        p = _response.resolve(model, frame, cols, seed)
+        if p.unit is not None:
+            propensity = _response.Propensity(p.unit[source])
+        else:
+            propensity = _response.Propensity(None, cluster=frame.cluster[source], a=p.a, b=p.b)  # true codes
+        info["response"] = {**model.describe(),
+                            "mean_propensity": None if p.unit is None else float(p.unit.mean())}
+    census, adjustments, per_design = {}, {}, {}
+    for d, ests in zip(scenario.designs, scenario.estimators):
+        spec = getattr(d, "adjustment", None) or AdjustmentSpec()
+        adjustments[d.label] = spec
+        fw = Fieldwork(eligible=eligible, propensity=propensity,
+                       adjustment=_resolve_adjustment(spec, listed, source, cols), spec=spec)
+        per_design[d.label] = fw
+        for est, value in _census(fw, listed, ests, confidence).items():
+            census[(d.label, est)] = value
+    for cell in cells:
+        cell.design.fieldwork = per_design[cell.design.label]
+    info["adjustments"] = {label: s.describe() for label, s in adjustments.items()}
+    info["response_seed"] = ("block SeedSequence with spawn_key extended by "
+                             f"{_response.BLOCK_KEY} (crc32 of 'response-draws')")
+    return FieldSetup(frame=listed, truth=frame, census=census, adjustments=adjustments, info=info)
+
+
+# ------------------------------------------------------------------ summary
+def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup, confidence: float) -> pd.DataFrame:
+    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) appended."""
+    names = list(setup.frame.layout.names)
+    truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
+    extra = []
+    groups = {k: g for k, g in reps.groupby(["design", "size", "estimator", "variable"], sort=False)}
+    for _, row in summary.iterrows():
+        g = groups[(row["design"], row["size"], row["estimator"], row["variable"])]
+        T = float(truth[row["variable"]])
+        x, xf = g["estimate"].to_numpy(), g["full_estimate"].to_numpy()
+        R = len(x)
+        census = float(setup.census[(row["design"], row["estimator"])][names.index(row["variable"])])
+        resp, att, elig = g["n"].mean(), g["attempted"].mean(), g["eligible"].mean()
+        cost, fcost = g["cost"].mean(), g["full_cost"].mean()
+        d = x - xf
+        cover = float(np.mean(holds(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T)))
+        extra.append({
+            "adjustment": setup.adjustments[row["design"]].method,
+            "mean_attempted": float(att),
+            "mean_respondents": float(resp),
+            "response_rate": float(resp / elig) if elig > 0 else float("nan"),
+            "cost_per_complete": float(cost / resp) if resp > 0 else float("nan"),
+            "full_response_bias": float(xf.mean() - T),
+            "full_response_empirical_se": float(xf.std(ddof=1)) if R > 1 else float("nan"),
+            "full_response_rmse": float(np.sqrt(np.mean((xf - T) ** 2))),
+            "full_response_coverage": cover,
+            "full_response_mean_cost": float(fcost),
+            "full_response_cost_per_complete": float(fcost / elig) if elig > 0 else float("nan"),
+            "sampling_bias": float(xf.mean() - census),
+            "sampling_bias_mcse": float(xf.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
+            "frame_bias": census - T,
+            "nonresponse_bias": float(d.mean()),
+            "nonresponse_bias_mcse": float(d.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
+            "adjustment_failures": int(g["adjustment_failed"].sum()),
+        })
+    return pd.concat([summary.reset_index(drop=True), pd.DataFrame(extra, columns=SUMMARY_EXTRA)], axis=1)
