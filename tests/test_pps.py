@@ -18,8 +18,16 @@ from conftest import Z
 from scipy import integrate, stats
 
 from samplewright import Frame, InputError
-from samplewright.designs import METHODS, Bernoulli, Pareto, Poisson, PPSSystematic, PPSWithReplacement, Sampford
-from samplewright.designs.pips import pips, sampford_draw
+from samplewright.designs import (
+    METHODS,
+    Bernoulli,
+    Pareto,
+    Poisson,
+    PPSSystematic,
+    PPSWithReplacement,
+    Sampford,
+)
+from samplewright.designs.pips import SampfordSampler, pips
 from samplewright.estimation.estimators import ESTIMATORS
 
 SIZES = [2.0, 3.0, 1.0, 7.0, 4.0, 5.0, 2.5, 6.0]  # invented size measure
@@ -122,19 +130,51 @@ def test_sampford_pi_equals_n_x_over_X_and_joint_probabilities():
     assert ((np.outer(target, target) - pij)[iu] > 0).all()
 
 
-@pytest.mark.parametrize("route", ["draws", "poisson"])
-def test_sampford_draw_reproduces_the_design(route):
-    # chi-square goodness of fit of the drawn subsets to Sampford's p(s); both exact routes
-    x = np.array(SIZES)
-    target = 3 * x / x.sum()
-    subsets, p = sampford_p(target, 3)
-    R = 40_000
-    s = sampford_draw(np.random.default_rng(11), target, R, route)
-    assert (np.diff(s, axis=1) > 0).all()  # distinct, sorted
+def unequal_pi(N, n, top=None):
+    """Invented pi proportional to k^1.5 (sum n); with ``top``, the largest set to ``top``."""
+    x = np.arange(1, N + 1) ** 1.5
+    pi = n * x / x.sum()
+    if top is not None:
+        rest = n - top
+        pi = np.append(rest * pi[:-1] / pi[:-1].sum(), top)
+    assert 0 < pi.min() and pi.max() < 1
+    return pi
+
+
+@pytest.mark.parametrize("N, n, top, L", [(6, 2, None, 64), (7, 3, 0.97, 2), (8, 4, 0.99, 3),
+                                          (8, 2, 0.95, 1)])
+def test_sampford_draw_reproduces_the_design(N, n, top, L):
+    # every sample's frequency against Sampford's p(s) by enumeration (chi-square goodness of
+    # fit, scipy.stats.chisquare), and each unit's inclusion frequency against pi_i with a
+    # binomial z-bound (Sampford 1967: pi_i is exactly the target); segments of L units and
+    # the block's band of r are exercised by the small L
+    pi = unequal_pi(N, n, top)
+    subsets, p = sampford_p(pi, n)
+    sampler = SampfordSampler(pi)
+    sampler.L = L
+    R = 100_000
+    s = sampler.draw(np.random.default_rng(11), R)
+    assert s.shape == (R, n) and (np.diff(s, axis=1) > 0).all()  # n distinct units, sorted
     index = {t: k for k, t in enumerate(subsets)}
     counts = np.bincount([index[tuple(r)] for r in s.tolist()], minlength=len(subsets))
     res = stats.chisquare(counts, R * p)
     assert res.pvalue > 1e-4  # a z = 4 equivalent two-sided bound (normal tail 6e-5)
+    freq = np.bincount(s.ravel(), minlength=N) / R
+    assert (np.abs(freq - pi) <= Z * np.sqrt(pi * (1 - pi) / R)).all(), (freq, pi)
+
+
+def test_sampford_draw_on_a_large_frame_keeps_pi():
+    # N = 3,000, n = 300 (several segments, a band narrower than n): inclusion frequencies of
+    # the 300 largest units against pi_i, binomial z-bounds (Sampford 1967: pi_i exact)
+    x = np.random.default_rng(2).lognormal(0, 1, 3000)
+    pi, certain, _ = pips(x, 300)
+    pi = pi[~certain]
+    R = 4_000
+    s = SampfordSampler(pi).draw(np.random.default_rng(3), R)
+    assert (np.diff(s, axis=1) > 0).all() and s.shape[1] == round(pi.sum())
+    top = np.argsort(pi)[-300:]
+    freq = np.bincount(s.ravel(), minlength=pi.size)[top] / R
+    assert (np.abs(freq - pi[top]) <= Z * np.sqrt(pi[top] * (1 - pi[top]) / R)).all()
 
 
 # ------------------------------------------------------------------ inclusion frequencies

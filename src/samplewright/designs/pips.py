@@ -15,6 +15,8 @@ sec. 9A.2 on large units).
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from samplewright.errors import InputError
@@ -69,92 +71,141 @@ def pips(x, n: int) -> tuple[np.ndarray, np.ndarray, int]:
         rounds += 1
 
 
-def _categorical(rng, cum: np.ndarray, shape) -> np.ndarray:
-    """Draws from the distribution with cumulative probabilities ``cum`` (last = 1)."""
-    u = rng.random(shape) * cum[-1]
-    return np.minimum(np.searchsorted(cum, u, side="right"), cum.size - 1)
-
-
-def sampford_route(pi: np.ndarray) -> str:
-    """Which exact rejective form of Sampford's method is cheaper for these pi (sum n).
-
-    ``"draws"``: Sampford's own (one draw by p_i = pi_i / n, n - 1 by p_i / (1 - pi_i),
-    accepted when all distinct); cost about n per attempt, acceptance falling like
-    exp(-n^2 sum q_i^2 / 2) (q the draw probabilities; common-practice estimate).
-    ``"poisson"``: a Poisson sample with probabilities pi plus one draw by p_i, accepted
-    when the Poisson sample has n - 1 units and the draw is not among them; cost about N
-    per attempt, acceptance about 1 / sqrt(2 pi sum pi_i (1 - pi_i)).
-    """
-    a_draws, a_pois = sampford_acceptance(pi)
-    n = float(pi.sum())
-    return "draws" if a_draws / max(n, 1.0) >= a_pois / pi.size else "poisson"
-
-
-def sampford_acceptance(pi: np.ndarray) -> tuple[float, float]:
-    """Approximate acceptance rates of the "draws" and "poisson" routes (see `sampford_route`)."""
-    n = float(pi.sum())
-    lam = pi / (1.0 - pi)
-    q = lam / lam.sum()
-    a_draws = float(np.exp(-0.5 * n * n * float((q * q).sum())))
-    a_pois = 1.0 / np.sqrt(2.0 * np.pi * max(float((pi * (1 - pi)).sum()), 1e-12))
-    return a_draws, a_pois
-
-
-def sampford_draw(rng: np.random.Generator, pi: np.ndarray, B: int, route: str | None = None) -> np.ndarray:
-    """``B`` Sampford samples of size n = sum(pi) (all pi < 1), as sorted positions (B, n).
+class SampfordSampler:
+    """Exact, non-rejective draws of Sampford's design for fixed pi (all 0 < pi_i < 1, sum n).
 
     Notes
     -----
-    Sampford (1967), Biometrika 54:499-513: draw the first unit with probability
-    p_i = pi_i / n and the other n - 1 with replacement with probabilities proportional to
-    p_i / (1 - n p_i); accept the sample if all n units differ, otherwise start again.  The
-    sample then has probability p(s) proportional to (n - sum_{i in s} pi_i)
-    prod_{i in s} pi_i / (1 - pi_i), and unit i is included with probability exactly pi_i.
+    Sampford (1967), Biometrika 54:499-513: p(s) is proportional to
+    prod_{i in s} w_i sum_{j in s} (1 - pi_j) with w_i = pi_i / (1 - pi_i), and unit i is
+    included with probability exactly pi_i.  Since w_j (1 - pi_j) = pi_j, p(s) is the margin
+    of a pair (s, j), j in s a "marked" unit, with weight pi_j prod_{i in s, i != j} w_i.
+    The pair is drawn list-sequentially: units k = 0..N-1 are visited in turn with the state
+    (r units still to take, m = 1 once the marked unit is taken), and each step follows the
+    weights of the completions over the tail k..N-1 (a sequential form of the kind Grafstrom
+    2009, J. Statist. Plann. Inference, describes; from memory).  With
+    E_r(k) = e_r(w_k..w_{N-1}) (elementary symmetric polynomials) and F_r(k) the sum over tail
+    subsets t of size r of prod_t w sum_{j in t} (1 - pi_j):
 
-    The "poisson" route gives the same p(s): a Poisson sample S' (unit i in with
-    probability pi_i) and an independent draw J with probability pi_j / n have
-    P(S' = s minus j, J = j) = c prod_{i in s} pi_i/(1 - pi_i) (1 - pi_j) / n, which summed
-    over j in s is p(s) above (the form used by Bondesson, Traat & Lundqvist 2006, Scand. J.
-    Statist. 33:699-720; cited from memory).  Both are exact; the route only changes speed.
+    - m = 1: take k with probability w_k E_{r-1}(k+1) / E_r(k);
+    - m = 0: take k as the marked unit with probability pi_k E_{r-1}(k+1) / F_r(k), as an
+      ordinary one with w_k F_{r-1}(k+1) / F_r(k), else skip it.
+
+    The tables are kept as bounded ratios, never as E or F themselves (which overflow):
+    sigma_k[r] = E_r(k) / E_{r-1}(k), alpha_k[r] = w_k / (sigma_{k+1}[r] + w_k) (the share of
+    E_r(k) that takes k) and tau_k[r] = F_r(k) / E_r(k) (a weighted mean of sum (1 - pi) over
+    tail subsets), from E_r(k) = E_r(k+1) + w_k E_{r-1}(k+1) and
+    F_r(k) = F_r(k+1) + w_k (F_{r-1}(k+1) + (1 - pi_k) E_{r-1}(k+1)).  Full rows of sigma and
+    tau are kept only every ``L`` units (checkpoints, built once); a draw recomputes each
+    segment of ``L`` units from its checkpoint, over the band of r that the block's
+    replicates can reach there, and walks the segment with one vector step per unit across
+    the block.  Memory O((N / L + L) n); time per block O(N (band + B)).
     """
-    pi = np.asarray(pi, dtype=float)
-    N = pi.size
-    n = round(pi.sum())
-    out = np.empty((B, n), dtype=np.int64)
-    if n == 0:
-        return out
-    if n == N:
-        out[:] = np.arange(N)
-        return out
-    route = route or sampford_route(pi)
-    p = pi / n
-    cum_p = np.cumsum(p)
-    cum_l = np.cumsum(pi / (1.0 - pi))
-    todo = np.arange(B)
-    while todo.size:
-        k = todo.size
-        if route == "draws":
-            first = _categorical(rng, cum_p, (k,))
-            rest = _categorical(rng, cum_l, (k, n - 1))
-            s = np.concatenate([first[:, None], rest], axis=1)
-            s.sort(axis=1)
-            ok = (s[:, 1:] != s[:, :-1]).all(axis=1)
+
+    #: checkpoints every 64 units while they fit in this many bytes; past it, the L that
+    #: minimises checkpoints (16 N (n + 1) / L bytes) plus a segment's tables (about 32 L^2)
+    CHECKPOINT_BYTES = 64 * 2**20
+
+    def __init__(self, pi):
+        pi = np.asarray(pi, dtype=float)
+        self.N = pi.size
+        self.n = round(float(pi.sum()))
+        self.w = pi / (1.0 - pi)
+        self.c = 1.0 - pi
+        cells = self.N * (self.n + 1)
+        self.L = 64 if 16 * cells / 64 <= self.CHECKPOINT_BYTES else math.ceil((cells / 4) ** (1 / 3))
+        self._checkpoints = None
+
+    @staticmethod
+    def _step(sig, tau, lo, w, c, tables=None):
+        """Rows over r = lo..hi at k+1 -> rows at k over lo'..hi (lo' = lo + 1, or 0 at lo = 0).
+
+        With ``tables = (ct, cm)`` (views over lo'..hi) also writes the step's thresholds for
+        m = 0: take with probability ct, of which take as the marked unit with cm.
+        """
+        S = sig + w
+        if lo == 0:  # keep r = 0 (nothing left to take): alpha 0, tau 0; sigma_0 is never used
+            alpha = w / S
+            alpha[0] = 0.0
+            sp, tp, tm, s_hi, s_lo = S[1:], tau[1:], tau[:-1], S[2:], S[1:-1]
+            a = alpha[1:]
         else:
-            step = max(1, 2_000_000 // N)
-            k = min(k, step)
-            inc = rng.random((k, N)) < pi
-            j = _categorical(rng, cum_p, (k,))
-            ok = (inc.sum(axis=1) == n - 1) & ~inc[np.arange(k), j]
-            inc[np.arange(k), j] = True
-            s = np.zeros((k, n), dtype=np.int64)
-            if ok.any():
-                s[ok] = np.nonzero(inc[ok])[1].reshape(-1, n)
-        good = np.flatnonzero(ok)
-        out[todo[good]] = s[good]
-        done = np.zeros(todo.size, dtype=bool)
-        done[good] = True
-        todo = todo[~done]
-    return out
+            alpha = w / S[1:]
+            a, sp, tp, tm, s_hi, s_lo = alpha, S[1:], tau[1:], tau[:-1], S[1:], S[:-1]
+        A = a * (tm + c)
+        t_new = A + (1.0 - a) * tp
+        if lo == 0:
+            tau_n = np.concatenate([[0.0], t_new])
+            sig_n = np.concatenate([[1.0], sp[:1], s_hi * sig[1:-1] / s_lo])
+        else:
+            tau_n = t_new
+            sig_n = s_hi * sig[:-1] / s_lo
+        if tables is not None:
+            ct, cm = tables
+            off = 1 if lo == 0 else 0  # r = 0 with m = 0 cannot occur: thresholds stay 0
+            ct[off:] = A / t_new
+            cm[off:] = a * c / t_new
+        return alpha, sig_n, tau_n, (0 if lo == 0 else lo + 1)
+
+    def checkpoints(self) -> dict:
+        """Full rows (sigma, tau) at k = L, 2L, ..., N (built once, by one backward pass)."""
+        if self._checkpoints is None:
+            n, N, L = self.n, self.N, self.L
+            sig = np.zeros(n + 1)
+            sig[0] = 1.0
+            tau = np.zeros(n + 1)
+            rows = {N: (sig, tau)}
+            for k in range(N - 1, L - 1, -1):
+                _, sig, tau, _ = self._step(sig, tau, 0, self.w[k], self.c[k])
+                if k % L == 0:
+                    rows[k] = (sig, tau)
+            self._checkpoints = rows
+        return self._checkpoints
+
+    def draw(self, rng: np.random.Generator, B: int) -> np.ndarray:
+        """``B`` samples as sorted positions (B, n)."""
+        n, N, L = self.n, self.N, self.L
+        if n == 0:
+            return np.empty((B, 0), dtype=np.int64)
+        if n == N:
+            return np.broadcast_to(np.arange(N), (B, N)).copy()
+        rows = self.checkpoints()
+        out = np.empty((B, n), dtype=np.int64)
+        filled = np.zeros(B, dtype=np.int64)  # units taken so far by each replicate
+        take = np.empty((L, B), dtype=bool)
+        r = np.full(B, n, dtype=np.int64)
+        m = np.zeros(B, dtype=np.int64)
+        for k0 in range(0, N, L):
+            k1 = min(k0 + L, N)
+            rmax = int(r.max())
+            blo = max(0, int(r.min()) - (k1 - k0))
+            sig, tau = (a[blo:rmax + 1] for a in rows[k1])
+            lo = blo
+            width = rmax - blo + 1
+            CT = np.zeros((k1 - k0, 2 * width))  # per unit, per state 2 (r - blo) + m: take below this
+            CM = np.zeros((k1 - k0, 2 * width))  # ... and take as the marked unit below this
+            for k in range(k1 - 1, k0 - 1, -1):
+                j = k - k0
+                nlo = 0 if lo == 0 else lo + 1
+                at = 2 * (nlo - blo)
+                alpha, sig, tau, lo = self._step(sig, tau, lo, self.w[k], self.c[k],
+                                                 (CT[j, at::2], CM[j, at::2]))
+                CT[j, at + 1::2] = alpha
+            st = 2 * (r - blo) + m
+            u = rng.random((k1 - k0, B))
+            for j in range(k1 - k0):
+                t = np.less(u[j], CT[j].take(st), out=take[j])
+                mark = u[j] < CM[j].take(st)
+                st -= t
+                st -= t
+                st += mark
+            r, m = st // 2 + blo, st % 2
+            b, kk = np.nonzero(take[:k1 - k0].T)  # by replicate, then unit
+            count = np.bincount(b, minlength=B)
+            rank = np.arange(b.size) - (np.cumsum(count) - count)[b]
+            out[b, filled[b] + rank] = k0 + kk
+            filled += count
+        return out
 
 
 def units_block(frame, units, weight, psu_stratum, fpc, *, mask=None, variance="hansen_hurwitz",

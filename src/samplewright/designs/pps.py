@@ -8,7 +8,7 @@ Methods (scenario ``method =``):
   differ in their joint inclusion probabilities and variance estimators.
 - ``pps_systematic``: systematic selection along cumulated pi_i in list order from one
   random start (Madow 1949; Sarndal, Swensson & Wretman 1992, sec. 3.6).
-- ``sampford``: Sampford's (1967) rejective fixed-size method; pi_i = n x_i / X exactly.
+- ``sampford``: Sampford's (1967) fixed-size method, drawn without rejection; pi_i = n x_i / X exactly.
 - ``pareto``: Rosen's (1997) Pareto order sampling; pi_i approximately n x_i / X.
 
 Without-replacement methods take certainty units out iteratively (see ``pips.pips``): they
@@ -27,11 +27,11 @@ import math
 
 import numpy as np
 
+from samplewright.designs.base import Design
 from samplewright.designs.draws import _KEY_BUDGET
 from samplewright.designs.enumeration import combination_chunks, product_chunks
+from samplewright.designs.pips import SampfordSampler, pips, size_measure, units_block
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
-from samplewright.designs.pips import pips, sampford_draw, sampford_route, size_measure, units_block
 
 #: most subsets enumerated to get exact joint inclusion probabilities (and in exact mode)
 ENUMERATION_LIMIT = 2_000_000
@@ -168,7 +168,7 @@ class PPSSystematic(_SizeDesign):
 
 
 class Sampford(_SizeDesign):
-    """Sampford's (1967) fixed-size pi-ps method, drawn by rejection (see ``pips.sampford_draw``).
+    """Sampford's (1967) fixed-size pi-ps method, drawn list-sequentially (see ``pips.SampfordSampler``).
 
     pi_i = n x_i / X exactly and every pi_ij > 0, so the Sen-Yates-Grundy estimator with
     exact joint probabilities is available (``variance = "sen_yates_grundy"``) when the
@@ -192,9 +192,9 @@ class Sampford(_SizeDesign):
         s = self.setup(frame)
         if s["n_free"] == 0:  # every unit is a certainty unit: nothing left to draw
             return np.zeros((B, 0), dtype=np.int64)
-        if "route" not in s:
-            s["route"] = sampford_route(s["pi_free"])
-        return sampford_draw(rng, s["pi_free"], B, s["route"])
+        if "sampler" not in s:
+            s["sampler"] = SampfordSampler(s["pi_free"])
+        return s["sampler"].draw(rng, B)
 
     def count_samples(self, frame):
         s = self.setup(frame)

@@ -33,14 +33,14 @@ import math
 import numpy as np
 
 from samplewright.designs.allocation import real_allocation, round_allocation
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
+from samplewright.designs.cluster import Cluster, second_stage_block
 from samplewright.designs.draws import distinct_positions
 from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
+from samplewright.designs.pips import SampfordSampler, pips, size_measure
 from samplewright.errors import InputError
 from samplewright.estimation.two_stage_variance import one_unit_note
-from samplewright.designs.base import Design
-from samplewright.designs.cluster import Cluster, second_stage_block
-from samplewright.designs.pips import pips, sampford_draw, size_measure
 
 ALLOCATIONS = ("equal", "proportional", "units")
 SELECTIONS = ("srs", "pps")
@@ -190,7 +190,9 @@ class StratifiedCluster(Design):
             if g["m"] == 0:
                 continue
             if self.selection == "pps":
-                pos = sampford_draw(rng, g["pi"], B)
+                if "sampler" not in g:
+                    g["sampler"] = SampfordSampler(g["pi"])
+                pos = g["sampler"].draw(rng, B)
             else:
                 pos = distinct_positions(rng, g["free"].size, g["m"], (B,))
             chosen.append(g["free"][pos])

@@ -1,0 +1,75 @@
+"""Shared by the benchmarks: scenario files written as TOML, and a command timed as a user runs it.
+
+``run_cli`` starts ``python -m samplewright ARGS`` (what the ``samplewright`` script runs) as a
+child process and reports its wall time from start to exit and its own peak resident memory.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+
+def _value(v) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, (int, float)):
+        return repr(v)
+    if isinstance(v, str):
+        return json.dumps(v)
+    if isinstance(v, (list, tuple)):
+        return "[" + ", ".join(_value(x) for x in v) + "]"
+    raise TypeError(f"no TOML form for {v!r}")
+
+
+def toml_text(doc: dict) -> str:
+    """A scenario dict as TOML: scalars first, then tables, then arrays of tables (``design``)."""
+    lines: list[str] = []
+
+    def table(d: dict, name: str | None):
+        plain = {k: v for k, v in d.items() if not isinstance(v, dict) and not _tables(v)}
+        if name is not None:
+            lines.append(f"\n[{name}]")
+        lines.extend(f"{k} = {_value(v)}" for k, v in plain.items())
+        for k, v in d.items():
+            if isinstance(v, dict):
+                table(v, f"{name}.{k}" if name else k)
+        for k, v in d.items():
+            if _tables(v):
+                for item in v:
+                    lines.append(f"\n[[{name + '.' if name else ''}{k}]]")
+                    lines.extend(f"{a} = {_value(b)}" for a, b in item.items())
+
+    table(doc, None)
+    return "\n".join(lines) + "\n"
+
+
+def _tables(v) -> bool:
+    return isinstance(v, list) and bool(v) and all(isinstance(x, dict) for x in v)
+
+
+def write_scenario(doc: dict, path: Path) -> Path:
+    path.write_text(toml_text(doc))
+    return path
+
+
+def run_cli(args: list[str], log: Path, python: list[str] | None = None) -> dict:
+    """``samplewright ARGS`` (or ``python`` + ARGS) in a child process: seconds start to exit, peak RSS.
+
+    The child runs under ``/usr/bin/time -f %M``, whose own ``wait4`` reads the child's peak
+    resident memory: Linux carries the spawning process's high-water mark into a child
+    spawned from it, so this (large) process's own ``RUSAGE_CHILDREN`` would over-count.
+    The child's output goes to ``log``; a failing run raises with the log's tail.
+    """
+    rss = Path(str(log) + ".rss")
+    cmd = ["/usr/bin/time", "-f", "%M", "-o", str(rss), *(python or [sys.executable, "-m", "samplewright"]), *args]
+    with open(log, "w") as out:
+        t = time.perf_counter()
+        code = subprocess.run(cmd, check=False, stdout=out, stderr=subprocess.STDOUT).returncode
+        seconds = time.perf_counter() - t
+    if code != 0:
+        raise RuntimeError(f"{' '.join(cmd)} exited {code}\n{Path(log).read_text()[-2000:]}")
+    return {"seconds": round(seconds, 3), "peak_rss_mib": round(int(rss.read_text().split()[-1]) / 1024, 1)}
