@@ -76,7 +76,12 @@ def reading_flags(args) -> dict:
 def frame_report(path, target: str, order=None, stratum=None, cluster=None, false_alarm=None,
                  max_interval=None, reading=None) -> dict:
     """The inspect report as a dict (what ``--json`` prints); ``reading`` holds the [frame] reading keys."""
-    from samplewright.diagnostics.inspection import cluster_summary, missing_counts, order_summary, stratum_summary
+    from samplewright.diagnostics.inspection import (
+        cluster_summary,
+        missing_counts,
+        order_summary,
+        stratum_summary,
+    )
     from samplewright.population.frame import Frame
     from samplewright.population.reading import read_table
 

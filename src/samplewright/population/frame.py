@@ -301,7 +301,7 @@ class Frame:
         domain: str | None = None,
         domains=None,
         cluster_cost: str | None = None,
-    ) -> "Frame":
+    ) -> Frame:
         """Bind the columns of ``df`` to roles, check them, and build a Frame.
 
         ``target`` is a column name or a list of names.  ``missing="drop"`` drops rows whose
@@ -373,7 +373,7 @@ class Frame:
         )
 
     @classmethod
-    def load(cls, path, **roles) -> "Frame":
+    def load(cls, path, **roles) -> Frame:
         """Read a frame file (see :func:`~samplewright.population.reading.read_table`) and bind its columns
         (see :meth:`from_dataframe`)."""
         return cls.from_dataframe(read_table(path), source=str(path), **roles)

@@ -126,9 +126,8 @@ def _sample_text(p: Path, head: bytes, encoding: str | None) -> tuple[str, str]:
     utf16 = head.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE))
     if encoding is not None and codecs.lookup(encoding).name == "utf-8":
         encoding = "utf-8-sig"  # reads a file with or without the BOM
-    if encoding is None or not encoding.startswith("utf-16"):
-        if b"\0" in head and not utf16:
-            raise InputError(f"{not_table}: it holds NUL bytes (a binary file?); give a CSV or Parquet file")
+    if (encoding is None or not encoding.startswith("utf-16")) and b"\0" in head and not utf16:
+        raise InputError(f"{not_table}: it holds NUL bytes (a binary file?); give a CSV or Parquet file")
     if encoding is not None:
         tries = [encoding]
     elif utf16:
@@ -369,7 +368,7 @@ def read_table(path, columns=None, separator=None, decimal=None, thousands=None,
         raise
     except pd.errors.EmptyDataError:
         raise InputError(f"frame file {str(p)!r} is empty") from None
-    except Exception as exc:  # unreadable: permissions, corrupt parquet or workbook, bad encoding
+    except Exception as exc:  # noqa: BLE001 -- unreadable: permissions, corrupt parquet or workbook, bad encoding
         raise InputError(f"frame file {str(p)!r} could not be read: {type(exc).__name__}: {exc}") from None
     if len(df) == 0:
         raise InputError(f"frame file {str(p)!r} has a header but no rows")
