@@ -6,6 +6,9 @@ own numbers and labels, so each check compares against the frame the file was ma
 
 from __future__ import annotations
 
+import shlex
+import subprocess
+import sys
 import zipfile
 from pathlib import Path
 
@@ -220,11 +223,17 @@ def test_parquet_reads_only_the_role_columns(tmp_path, monkeypatch):
     assert frame.total[0] == pytest.approx(sum(AMOUNTS), rel=1e-15)
 
 
-def test_csv_over_the_limit_is_refused_with_a_conversion_hint(tmp_path, monkeypatch):
-    p = write_rows(tmp_path / "f.csv", rows_of(frame_df(), repr), ",")
+def test_csv_over_the_limit_is_refused_with_a_conversion_that_works(tmp_path, monkeypatch):
+    p = write_rows(tmp_path / "f.csv", rows_of(frame_df(), european), ";", encoding="cp1252")
     monkeypatch.setattr(reading, "MAX_CSV_BYTES", p.stat().st_size - 1)
-    with pytest.raises(InputError, match="to_parquet"):
+    with pytest.raises(InputError, match="convert it once to Parquet") as refusal:
         read_table(p)
+    command = str(refusal.value).split(": python3 -c ", 1)[1]
+    done = subprocess.run([sys.executable, "-c", shlex.split(command)[0]], capture_output=True, text=True, check=False)
+    assert done.returncode == 0, done.stderr
+    df = read_table(tmp_path / "f.parquet")
+    # pyarrow reads "1.234,50" as text (no thousands option): the frame reader turns it into the number
+    expect_frame(df)
 
 
 # ------------------------------------------------------------------ the same frame in every format
@@ -293,3 +302,16 @@ def test_reading_keys_are_checked(tmp_path, capsys):
                          ('percent = "yes"', "percent must be true or false")):
         sc = scenario(tmp_path, "f.csv", 'target = "amount"\n' + keys)
         refused(["run", sc, "--out", tmp_path / "out"], capsys, "[frame]", needle)
+
+
+def test_xlsx_formula_saved_without_value_is_refused_by_cell(tmp_path):
+    # openpyxl writes a formula without the value a spreadsheet would save beside it
+    p = write_xlsx(tmp_path / "f.xlsx", [["y", "double"], [2.5, 5.0], [4.0, "=A3*2"]], title="Sheet1")
+    with pytest.raises(InputError, match="cell Sheet1!B3 holds a formula saved without its value"):
+        read_table(p)
+
+
+def test_xlsx_filled_column_under_a_blank_header_is_refused(tmp_path):
+    p = write_xlsx(tmp_path / "f.xlsx", [["y", "g"], [1.0, "a", 7.0], [2.0, "b"]], title="Sheet1")
+    with pytest.raises(InputError, match="Sheet1!C1 is blank"):
+        read_table(p)

@@ -48,9 +48,6 @@ SEPARATORS = {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}
 CSV_SUFFIXES = (".csv", ".txt", ".tsv", ".gz")
 PARQUET_SUFFIXES = (".parquet", ".pq")
 EXCEL_SUFFIXES = (".xlsx", ".xlsm")
-#: the conversion a too-large CSV file is refused with (documented in the README)
-PARQUET_HINT = ("convert it once to Parquet, e.g. python3 -c \"import pandas as pd; "
-                "pd.read_csv('big.csv', sep=';', decimal=',').to_parquet('big.parquet')\"")
 
 _COMMA_DECIMAL = re.compile(r"[+-]?(\d{1,3}(\.\d{3})+,\d+|\d+,(\d{1,2}|\d{4,}))%?")
 _POINT_DECIMAL = re.compile(r"[+-]?(\d{1,3}(,\d{3})+\.\d+|\d+\.(\d{1,2}|\d{4,}))%?")
@@ -94,6 +91,11 @@ def role_columns(roles: dict) -> list[str]:
 
 def _is_text(series: pd.Series) -> bool:
     return pd.api.types.is_object_dtype(series) or pd.api.types.is_string_dtype(series)
+
+
+def _is_number(value) -> bool:
+    """A number a spreadsheet stored as one (a yes/no cell is not one)."""
+    return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 
 def _warn(message: str) -> None:
@@ -202,29 +204,32 @@ def _check_header(p: Path, rows: list[list[str]], sep: str) -> list[str]:
     return names
 
 
-def _decimal(rows: list[list[str]], sep: str) -> str:
-    """',' when numeric-looking cells of the sample use a decimal comma (never for a comma-separated file)."""
-    if sep == ",":
-        return "."
-    cells = [c.strip() for r in rows[1:] for c in r]
-    comma = any(_COMMA_DECIMAL.fullmatch(c) for c in cells)
+def _decimal(cells, comma_separated: bool = False) -> str:
+    """',' when numeric-looking ``cells`` use a decimal comma and no cell a decimal point (never guessed for a
+    comma-separated file, whose unquoted commas separate fields)."""
+    cells = [c.strip() for c in cells if isinstance(c, str)]
+    comma = not comma_separated and any(_COMMA_DECIMAL.fullmatch(c) for c in cells)
     point = any(_POINT_DECIMAL.fullmatch(c) for c in cells)
     return "," if comma and not point else "."
 
 
-def _thousands(rows: list[list[str]], decimal: str) -> str | None:
-    """The thousands separator the sample shows beside ``decimal`` ("1.234,56", "1,234.56"), if any."""
-    grouped = _GROUPED[decimal]
-    if any(grouped.fullmatch(c.strip()) for r in rows[1:] for c in r):
+def _thousands(cells, decimal: str) -> str | None:
+    """The thousands separator ``cells`` show beside ``decimal`` ("1.234,56", "1,234.56"), if any."""
+    if any(isinstance(c, str) and _GROUPED[decimal].fullmatch(c.strip()) for c in cells):
         return "." if decimal == "," else ","
     return None
 
 
+def parquet_command(p: Path, sep: str, decimal: str, encoding: str) -> str:
+    """A command that converts the CSV file ``p`` to Parquet in constant memory (pyarrow reads it in blocks)."""
+    out = p.with_suffix(".parquet") if p.suffix.lower() != ".gz" else p.with_name(p.name + ".parquet")
+    return (f"python3 -c \"import pyarrow.csv as c, pyarrow.parquet as q; r = c.open_csv({str(p)!r}, "
+            f"read_options=c.ReadOptions(encoding={encoding!r}), parse_options=c.ParseOptions(delimiter={sep!r}), "
+            f"convert_options=c.ConvertOptions(decimal_point={decimal!r})); w = q.ParquetWriter({str(out)!r}, "
+            f"r.schema); [w.write_batch(b) for b in r]; w.close()\"")
+
+
 def _read_csv(p: Path, separator=None, decimal=None, thousands=None, encoding=None, percent=False):
-    size = p.stat().st_size
-    if size > MAX_CSV_BYTES:
-        raise InputError(f"frame file {str(p)!r} is a CSV file of {size / 2**30:.1f} GiB (over "
-                         f"{MAX_CSV_BYTES // 2**30} GiB): too large to read as text; {PARQUET_HINT}")
     head = _head(p)
     encoding, text = _sample_text(p, head, encoding)
     if not text.strip():
@@ -233,9 +238,12 @@ def _read_csv(p: Path, separator=None, decimal=None, thousands=None, encoding=No
     rows = _rows(text, sep)
     names = _check_header(p, rows, sep)
     _unique_names([n.strip() for n in names], p)
-    decimal = decimal or _decimal(rows, sep)
-    if thousands is None:
-        thousands = _thousands(rows, decimal)
+    decimal = decimal or _decimal([c for r in rows[1:] for c in r], comma_separated=sep == ",")
+    size = p.stat().st_size
+    if size > MAX_CSV_BYTES:
+        raise InputError(f"frame file {str(p)!r} is a CSV file of {size / 2**30:.1f} GiB (over "
+                         f"{MAX_CSV_BYTES // 2**30} GiB), too large to read as text; convert it once to Parquet "
+                         f"and name the .parquet file in [frame]: {parquet_command(p, sep, decimal, encoding)}")
     df = pd.read_csv(p, sep=sep, decimal=decimal, encoding=encoding)
     df = restore_table(_trimmed(df, p))
     return _numbers_in_text(df, decimal, thousands, percent)
@@ -248,33 +256,27 @@ def _cell(ws, row: int, col: int) -> str:
     return f"{ws.title}!{get_column_letter(col)}{row}"
 
 
-def _read_excel(p: Path, sheet=None, header_row: int = 1, decimal=None, thousands=None, percent=False):
-    try:
-        import openpyxl  # optional: the samplewright[excel] extra
-    except ImportError:
-        raise InputError(f"frame file {str(p)!r}: reading .xlsx needs openpyxl; install it with "
-                         f"pip install 'samplewright[excel]', or save the sheet as CSV") from None
-    book = openpyxl.load_workbook(p, data_only=True)  # formula cells: the values saved with them
+def _sheet(book, sheet, p: Path):
+    """The worksheet ``sheet`` names (a name, or a 0-based index; the first sheet when None)."""
     if sheet is None:
-        ws = book.worksheets[0]
-    elif isinstance(sheet, int):
+        return book.worksheets[0]
+    if isinstance(sheet, int):
         if sheet >= len(book.worksheets):
             raise InputError(f"frame file {str(p)!r}: sheet = {sheet} (0-based index) but the workbook has "
                              f"{len(book.worksheets)} sheet(s)")
-        ws = book.worksheets[sheet]
-    elif sheet in book.sheetnames:
-        ws = book[sheet]
-    else:
+        return book.worksheets[sheet]
+    if sheet not in book.sheetnames:
         raise InputError(f"frame file {str(p)!r}: no sheet named {show(sheet)}{closest(sheet, book.sheetnames)}")
+    return book[sheet]
+
+
+def _header_names(ws, header_row: int, header: list, p: Path) -> list[str]:
+    """The column names in the ``header`` cells; merged or blank cells refused by name."""
     for merged in ws.merged_cells.ranges:
         if merged.min_row <= header_row <= merged.max_row:
             raise InputError(f"frame file {str(p)!r}: header cell {_cell(ws, header_row, merged.min_col)} is "
                              f"merged ({merged.coord}); give each column its own header cell")
-    lines = ws.iter_rows(min_row=header_row, values_only=True)
-    header = list(next(lines, ()))
-    while header and header[-1] is None:
-        header.pop()
-    if not header:
+    if not any(v is not None for v in header):
         raise InputError(f"frame file {str(p)!r}: sheet {show(ws.title)} row {header_row} is empty; "
                          f"set header_row in [frame] to the row holding the column names")
     for j, name in enumerate(header):
@@ -283,12 +285,44 @@ def _read_excel(p: Path, sheet=None, header_row: int = 1, decimal=None, thousand
                              f"give every column a name")
     names = [str(n) for n in header]
     _unique_names([n.strip() for n in names], p)
-    data = [list(r[:len(names)]) + [None] * (len(names) - len(r)) for r in lines]
-    while data and all(v is None for v in data[-1]):
-        data.pop()
-    df = pd.DataFrame(data, columns=names)
-    df = df.infer_objects()
-    return _numbers_in_text(_trimmed(df, p), decimal or ".", thousands, percent)
+    return names
+
+
+def _refuse_unsaved_formulas(p: Path, ws, header_row: int, data: list[list]) -> None:
+    """Refuse blank cells that hold a formula saved without its value (a file no spreadsheet has computed)."""
+    import openpyxl
+
+    blanks = [(i, j) for i, row in enumerate(data) for j, v in enumerate(row) if v is None]
+    if not blanks:
+        return
+    formulas = openpyxl.load_workbook(p)[ws.title]
+    for i, j in blanks:
+        if formulas.cell(row=header_row + 1 + i, column=j + 1).data_type == "f":
+            cell = _cell(ws, header_row + 1 + i, j + 1)
+            raise InputError(f"frame file {str(p)!r}: cell {cell} holds a formula saved without its value (the "
+                             f"file was written by a program that does not compute formulas); open and save it "
+                             f"in a spreadsheet program, or write the values instead")
+
+
+def _read_excel(p: Path, sheet=None, header_row: int = 1, decimal=None, thousands=None, percent=False):
+    try:
+        import openpyxl  # optional: the samplewright[excel] extra
+    except ImportError:
+        raise InputError(f"frame file {str(p)!r}: reading .xlsx needs openpyxl; install it with "
+                         f"pip install 'samplewright[excel]', or save the sheet as CSV") from None
+    book = openpyxl.load_workbook(p, data_only=True)  # formula cells: the values saved with them
+    ws = _sheet(book, sheet, p)
+    rows = [list(r) for r in ws.iter_rows(min_row=header_row, values_only=True)] or [[]]
+    while len(rows) > 1 and all(v is None for v in rows[-1]):
+        rows.pop()
+    # every column holding a value, so a filled column under a blank header cell is refused, not dropped
+    width = max((j + 1 for row in rows for j, v in enumerate(row) if v is not None), default=1)
+    rows = [row[:width] + [None] * (width - len(row)) for row in rows]
+    names = _header_names(ws, header_row, rows[0], p)
+    data = rows[1:]
+    _refuse_unsaved_formulas(p, ws, header_row, data)
+    df = pd.DataFrame(data, columns=names).infer_objects()
+    return _numbers_in_text(_trimmed(df, p), decimal, thousands, percent)
 
 
 # ------------------------------------------------------------------ both
@@ -302,10 +336,12 @@ def _trimmed(df: pd.DataFrame, p: Path) -> pd.DataFrame:
     for col in df.columns:
         if not _is_text(df[col]):
             continue
-        text = df[col].map(lambda v: isinstance(v, str) and v != v.strip())
+        stripped = df[col].str.strip() if pd.api.types.is_string_dtype(df[col]) else df[col].map(
+            lambda v: v.strip() if isinstance(v, str) else v)
+        text = stripped.notna() & (stripped != df[col])
         count = int(text.sum())
         if count:
-            df[col] = df[col].where(~text, df[col][text].str.strip())
+            df[col] = df[col].where(~text, stripped)
             labels += count
     if renamed or labels:
         _warn(f"frame file {str(p)!r}: leading or trailing spaces trimmed from {renamed} column name(s) "
@@ -313,16 +349,22 @@ def _trimmed(df: pd.DataFrame, p: Path) -> pd.DataFrame:
     return df
 
 
-def _numbers_in_text(df: pd.DataFrame, decimal: str, thousands: str | None, percent: bool) -> pd.DataFrame:
+def _numbers_in_text(df: pd.DataFrame, decimal: str | None, thousands: str | None, percent: bool) -> pd.DataFrame:
     """Text columns whose every filled cell is a number (exact thousands groups, a percent sign only
-    when ``percent``) turned into numbers."""
+    when ``percent``) turned into numbers.  A decimal mark or thousands separator not stated (None)
+    is read from the first 100 filled cells of each text column."""
+    texts = [c for c in df.columns if _is_text(df[c])]
+    if not texts:
+        return df
+    sample = [v for c in texts for v in df[c].dropna().head(_SAMPLE_ROWS)]
+    decimal = decimal or _decimal(sample)
+    if thousands is None:
+        thousands = _thousands(sample, decimal)
     group = rf"\d{{1,3}}(?:{re.escape(thousands)}\d{{3}})+|\d+" if thousands else r"\d+"
     number = re.compile(rf"[+-]?(?:{group})(?:{re.escape(decimal)}\d+)?(?:[eE][+-]?\d+)?" + ("%?" if percent else ""))
-    for col in df.columns:
-        if not _is_text(df[col]):
-            continue
+    for col in texts:
         filled = df[col].dropna()
-        if not len(filled) or not all(isinstance(v, (int, float)) or (isinstance(v, str) and number.fullmatch(v))
+        if not len(filled) or not all(_is_number(v) or (isinstance(v, str) and number.fullmatch(v))
                                       for v in filled):
             continue
 
@@ -354,6 +396,7 @@ def read_table(path, columns=None, separator=None, decimal=None, thousands=None,
             wanted = columns if columns and set(columns) <= set(schema) else None  # else: the role check names it
             # arrow buffers freed as each column is converted: no second copy of the table
             df = pq.read_table(p, columns=wanted).to_pandas(split_blocks=True, self_destruct=True)
+            df = _numbers_in_text(df, decimal, thousands, percent)
         elif suffix in CSV_SUFFIXES:
             df = _read_csv(p, separator, decimal, thousands, encoding, percent)
         elif suffix in EXCEL_SUFFIXES:
