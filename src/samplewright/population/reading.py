@@ -5,10 +5,13 @@ CSV: the encoding (UTF-8 with or without BOM, UTF-16 with BOM, else cp1252), the
 same number of fields) and the decimal mark (a comma when numeric-looking cells use it and the
 separator is not a comma) are read from the file unless stated (the ``[frame]`` keys
 ``encoding``, ``separator``, ``decimal``; see :data:`samplewright.config.validate.READ_KEYS`).
-Text cells that are numbers written with a thousands separator ("1.234,56", "1,234.56") or, only
-when ``percent`` is true, as a percentage ("12%" -> 0.12) become numbers; the grouping must be
-exact (groups of three digits), so "1,5" never silently becomes 15.  The formula guard samplewright
-puts on CSV text cells it writes (:func:`samplewright.files.protect_cell`) is undone.
+A CSV file over 1 GiB is refused with a command that streams it to Parquet.  The formula guard
+samplewright puts on CSV text cells it writes (:func:`samplewright.files.protect_cell`) is undone.
+
+In every format, text cells that are numbers written with a thousands separator ("1.234,56",
+"1,234.56"; the marks read from the cells unless stated) or, only when ``percent`` is true, as a
+percentage ("12%" -> 0.12) become numbers; the grouping must be exact (groups of three digits), so
+"1,5" never silently becomes 15.
 
 Spreadsheets (.xlsx, .xlsm) are read with openpyxl (the optional extra ``samplewright[excel]``),
 formula cells as the values the spreadsheet saved with them.  Parquet is read with pyarrow, only
@@ -83,7 +86,7 @@ def role_columns(roles: dict) -> list[str]:
     """The frame columns ``roles`` (as in ``FrameSpec.roles``) bind, in a stable order without repeats."""
     names = []
     for key, value in roles.items():
-        if key in ("domains", "source", "dropped_rows"):  # values, not column names
+        if key == "domains":  # values of the domain column, not column names
             continue
         names.extend([value] if isinstance(value, str) else list(value or ()))
     return list(dict.fromkeys(n for n in names if isinstance(n, str)))
