@@ -150,7 +150,7 @@ def _sample_text(p: Path, head: bytes, encoding: str | None) -> tuple[str, str]:
     if encoding is not None:
         raise InputError(f"frame file {str(p)!r} is not text in the stated encoding {encoding!r}")
     raise InputError(f"{not_table}: its start is not text in UTF-8, UTF-16 (with BOM) or cp1252; "
-                     f"give a CSV text file or state encoding = \"...\" in [frame]")
+                     f"give a CSV text file or state encoding = \"...\" in [frame] (inspect: --encoding)")
 
 
 def _rows(text: str, sep: str) -> list[list[str]]:
@@ -175,13 +175,13 @@ def _separator(p: Path, text: str) -> str:
     if len(even) > 1:
         named = " and ".join(f"{sep!r} ({SEPARATORS[sep]})" for sep in even)
         raise InputError(f"frame file {str(p)!r}: its rows split evenly on {named}; state which one separates "
-                         f"the columns with separator = \"...\" in [frame]")
+                         f"the columns with separator = \"...\" in [frame] (inspect: --separator)")
     seen = [sep for sep in SEPARATORS if sep in first]
     if not seen:
         return ","  # one column
     raise InputError(f"frame file {str(p)!r} does not look like a table: its rows do not all split into as many "
                      f"fields as its header on any separator (comma, semicolon, tab, pipe); give a CSV file with "
-                     f"one value per column on every row, or state separator = \"...\" in [frame]")
+                     f"one value per column on every row, or state separator = \"...\" in [frame] (inspect: --separator)")
 
 
 def _check_header(p: Path, rows: list[list[str]], sep: str) -> list[str]:
@@ -194,7 +194,8 @@ def _check_header(p: Path, rows: list[list[str]], sep: str) -> list[str]:
             s = other[0]
             raise InputError(f"frame file {str(p)!r}: the header reads as one column holding {s!r} "
                              f"({SEPARATORS[s]}) characters, read with separator {sep!r}; the file looks "
-                             f"{SEPARATORS[s]}-separated: set separator = {s!r} in [frame] or leave it out")
+                             f"{SEPARATORS[s]}-separated: set separator = {s!r} in [frame] (inspect: --separator) "
+                             f"or leave it out")
     stripped = [n.strip() for n in names]
     good = names and all(0 < len(c) <= MAX_NAME and c.isprintable() for c in stripped[1:]) and (
         len(stripped[0]) <= MAX_NAME and stripped[0].isprintable())
@@ -281,7 +282,7 @@ def _header_names(ws, header_row: int, header: list, p: Path) -> list[str]:
                              f"merged ({merged.coord}); give each column its own header cell")
     if not any(v is not None for v in header):
         raise InputError(f"frame file {str(p)!r}: sheet {show(ws.title)} row {header_row} is empty; "
-                         f"set header_row in [frame] to the row holding the column names")
+                         f"set header_row in [frame] (inspect: --header-row) to the row of column names")
     for j, name in enumerate(header):
         if name is None or not str(name).strip():
             raise InputError(f"frame file {str(p)!r}: header cell {_cell(ws, header_row, j + 1)} is blank; "
