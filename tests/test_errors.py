@@ -285,9 +285,9 @@ def test_frame_file_is_a_folder(tmp_path, capsys):
 
 def test_frame_file_unknown_format(tmp_path, capsys):
     sc = setup(tmp_path)
-    sc.write_text(sc.read_text().replace("claims.csv", "claims.xlsx"))
-    (tmp_path / "claims.xlsx").write_text("x")
-    refuse(["run", sc, "--out", tmp_path / "out"], capsys, "claims.xlsx", "unknown format", ".csv or .parquet")
+    sc.write_text(sc.read_text().replace("claims.csv", "claims.ods"))
+    (tmp_path / "claims.ods").write_text("x")
+    refuse(["run", sc, "--out", tmp_path / "out"], capsys, "claims.ods", "unknown format", ".xlsx or .parquet")
 
 
 @pytest.mark.skipif(AS_ROOT or os.name != "posix", reason="file permissions do not bind root")

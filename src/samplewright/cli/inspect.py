@@ -30,11 +30,12 @@ def _rate(text: str) -> float:
 def add_arguments(p) -> None:
     from samplewright.cli.common import whole_number
 
-    p.add_argument("frame", help="frame file (.csv or .parquet)")
+    p.add_argument("frame", help="frame file (.csv, .tsv, .xlsx or .parquet)")
     p.add_argument("--target", required=True, help="study-variable column (required)")
     p.add_argument("--order", help="column giving the list order (default: the file order)")
     p.add_argument("--stratum", help="stratum column (default: none, one stratum)")
     p.add_argument("--cluster", help="cluster column (default: none, no clusters)")
+    add_reading_arguments(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of the text report (default: off)")
     p.add_argument("--false-alarm", type=_rate, default=None,
                    help="chance of reporting a period on a list with no cycle (default: 0.01)")
@@ -44,13 +45,47 @@ def add_arguments(p) -> None:
                         "one-line message (default: off)")
 
 
-def frame_report(path, target: str, order=None, stratum=None, cluster=None, false_alarm=None,
-                 max_interval=None) -> dict:
-    """The inspect report as a dict (what ``--json`` prints)."""
-    from samplewright.diagnostics.inspection import cluster_summary, missing_counts, order_summary, stratum_summary
-    from samplewright.population.frame import Frame, read_table
+def add_reading_arguments(p) -> None:
+    """The [frame] reading keys as flags of the same names (see the README's frame keys)."""
+    from samplewright.cli.common import whole_number
 
-    df = read_table(path)
+    g = p.add_argument_group("reading the frame file (default: detected from the file)")
+    g.add_argument("--separator", help="column separator: ',' ';' '|' or 'tab'")
+    g.add_argument("--decimal", help="decimal mark: '.' or ','")
+    g.add_argument("--thousands", help="thousands separator: ',' '.' ' ' \"'\" or '' for none")
+    g.add_argument("--encoding", help="text encoding, e.g. utf-8, utf-16, cp1252")
+    g.add_argument("--percent", action="store_true", default=None, help="read '12%%' as 0.12 (default: off)")
+    g.add_argument("--sheet", help="spreadsheet sheet: a name, or a 0-based index given as digits (default: the first)")
+    g.add_argument("--header-row", type=whole_number(1), default=None,
+                   help="spreadsheet row (1-based) holding the column names (default: 1)")
+
+
+def reading_flags(args) -> dict:
+    """The reading flags given on the command line, checked as the [frame] keys are."""
+    from samplewright.config.validate import reading_options
+
+    given = {k: getattr(args, k) for k in ("separator", "decimal", "thousands", "encoding", "percent", "sheet",
+                                           "header_row") if getattr(args, k) is not None}
+    if given.get("separator") == "tab":
+        given["separator"] = "\t"
+    if isinstance(given.get("sheet"), str) and given["sheet"].isdigit():
+        given["sheet"] = int(given["sheet"])
+    return reading_options(given, NAME)
+
+
+def frame_report(path, target: str, order=None, stratum=None, cluster=None, false_alarm=None,
+                 max_interval=None, reading=None) -> dict:
+    """The inspect report as a dict (what ``--json`` prints); ``reading`` holds the [frame] reading keys."""
+    from samplewright.diagnostics.inspection import (
+        cluster_summary,
+        missing_counts,
+        order_summary,
+        stratum_summary,
+    )
+    from samplewright.population.frame import Frame
+    from samplewright.population.reading import read_table
+
+    df = read_table(path, **(reading or {}))
     blanks = missing_counts(df)
     frame = Frame.from_dataframe(df, target=target, stratum=stratum, cluster=cluster, order=order,
                                  missing="drop", source=str(path))
@@ -129,7 +164,7 @@ def format_report(rep: dict) -> str:
 
 def main(args) -> int:
     rep = frame_report(args.frame, args.target, order=args.order, stratum=args.stratum, cluster=args.cluster,
-                       false_alarm=args.false_alarm, max_interval=args.max_interval)
+                       false_alarm=args.false_alarm, max_interval=args.max_interval, reading=reading_flags(args))
     if args.json:
         print(json.dumps(rep, indent=2, default=_jsonable))
     else:

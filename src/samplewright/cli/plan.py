@@ -70,7 +70,7 @@ def _floats(text: str, flag: str) -> list[float]:
 
 
 def _read_strata(path: str):
-    from samplewright.population.frame import read_table
+    from samplewright.population.reading import read_table
     from samplewright.config.validate import closest
 
     df = read_table(path)

@@ -1,4 +1,8 @@
-"""samplewright synth SCENARIO --out FRAME.csv|.parquet: write a scenario's synthetic frame."""
+"""samplewright synth SCENARIO --out FRAME.csv|.parquet: write a scenario's frame to a file.
+
+A [frame.synthetic] table is generated; a frame file (any format and [frame] reading keys
+``run`` accepts) is converted, e.g. a European CSV or a sheet of a workbook to Parquet.
+"""
 
 from __future__ import annotations
 
@@ -7,11 +11,11 @@ from pathlib import Path
 from samplewright.errors import InputError
 
 NAME = "synth"
-HELP = "write the synthetic frame a scenario describes to a CSV or Parquet file"
+HELP = "write the frame a scenario describes (synthetic, or a file in any format read) to a CSV or Parquet file"
 
 
 def add_arguments(p) -> None:
-    p.add_argument("scenario", help="scenario file (TOML) with a [frame.synthetic] table")
+    p.add_argument("scenario", help="scenario file (TOML) with a [frame.synthetic] table or a frame path")
     p.add_argument("--out", required=True, help="frame file to write (.csv or .parquet); required")
     p.add_argument("--force", action="store_true", help="overwrite an existing file (default: off, refuse)")
     p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a one-line "
@@ -19,12 +23,10 @@ def add_arguments(p) -> None:
 
 
 def main(args) -> int:
-    from samplewright.files import write_csv, write_parquet
     from samplewright.config.scenario import load_scenario
+    from samplewright.files import write_csv, write_parquet
 
     sc = load_scenario(args.scenario)
-    if sc.frame.synthetic is None:
-        raise InputError(f"{args.scenario}: [frame] names a file, not a [frame.synthetic] table; nothing to generate")
     out = Path(args.out)
     suffix = out.suffix.lower()
     if suffix not in (".csv", ".parquet"):

@@ -20,14 +20,15 @@ from samplewright.designs import METHODS, RENAMED_METHODS, Design
 from samplewright.errors import InputError, show
 from samplewright.estimation.auxiliary import check_estimators
 from samplewright.estimation.estimators import ESTIMATORS
-from samplewright.population.frame import Frame, input_file, read_table
+from samplewright.population.frame import Frame
+from samplewright.population.reading import input_file, read_table, role_columns
 from samplewright.population.synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
-from samplewright.config.validate import closest
+from samplewright.config.validate import READ_KEYS, closest, reading_options
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
             "response", "frame_error", "goal")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
-              "auxiliary", "poststratum", "domain", "domains", "cluster_cost")
+              "auxiliary", "poststratum", "domain", "domains", "cluster_cost") + READ_KEYS
 COST_KEYS = COST_MODEL_KEYS  # cost.py lists them (scalar rates, per_unit_by_stratum, charge_touched_clusters)
 GOAL_KEYS = ("moe", "budget", "confidence", "variable")
 DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
@@ -120,15 +121,17 @@ class FrameSpec:
     synthetic: SyntheticSpec | None = None
     roles: dict = field(default_factory=dict)  # target, stratum, cluster, size, order, unit_cost, id
     missing: str = "refuse"
+    reading: dict = field(default_factory=dict)  # how to read the file: separator, decimal, sheet...
 
-    def dataframe(self):
+    def dataframe(self, columns=None):
         if self.synthetic is not None:
             return generate(self.synthetic)
-        return read_table(self.path)
+        return read_table(self.path, columns=columns, **self.reading)
 
     def load(self) -> Frame:
         source = "synthetic frame" if self.synthetic is not None else str(self.path)
-        return Frame.from_dataframe(self.dataframe(), missing=self.missing, source=source, **self.roles)
+        df = self.dataframe(columns=role_columns(self.roles))
+        return Frame.from_dataframe(df, missing=self.missing, source=source, **self.roles)
 
 
 def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
@@ -244,7 +247,11 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
     missing = table.get("missing", "refuse")
     if missing not in ("refuse", "drop"):
         raise InputError(f"{ctx}: missing = {show(missing)} is not accepted (use 'refuse' or 'drop')")
-    return FrameSpec(path=path, synthetic=synthetic, roles=roles, missing=missing)
+    reading = reading_options(table, ctx)
+    if reading and synthetic is not None:
+        raise InputError(f"{ctx}: {', '.join(reading)} say(s) how to read a frame file; a [frame.synthetic] "
+                         f"frame has none")
+    return FrameSpec(path=path, synthetic=synthetic, roles=roles, missing=missing, reading=reading)
 
 
 # ------------------------------------------------------------------ designs

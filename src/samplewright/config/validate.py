@@ -6,6 +6,7 @@ file, column, row or value at fault and, where it helps, what would be accepted.
 
 from __future__ import annotations
 
+import codecs
 import difflib
 
 import numpy as np
@@ -291,3 +292,44 @@ def cluster_cost_column(df: pd.DataFrame, column, cluster, source="frame") -> np
                          f"(from {varying['min'].iloc[0]:g} to {varying['max'].iloc[0]:g}, rows {_rows(rows)}); "
                          f"it must be one cost per cluster")
     return num.to_numpy(dtype=np.float64)
+
+
+#: the ``[frame]`` keys that say how to read a frame file (samplewright.population.reading)
+READ_KEYS = ("separator", "decimal", "thousands", "encoding", "percent", "sheet", "header_row")
+_ONE_OF = {"separator": (",", ";", "\t", "|"), "decimal": (".", ","), "thousands": (",", ".", " ", "'", "")}
+
+
+def reading_options(table: dict, ctx: str) -> dict:
+    """The reading keys present in ``table``, checked: the keyword arguments of ``read_table``
+    (``thousands = ""`` states that numbers have no thousands separator)."""
+    out = {}
+    for key in READ_KEYS:
+        if key not in table:
+            continue
+        value = table[key]
+        if key == "percent":
+            if not isinstance(value, bool):
+                raise InputError(f"{ctx}: percent must be true or false, got {show(value)}")
+        elif key == "header_row":
+            if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+                raise InputError(f"{ctx}: header_row must be a whole number from 1 (the spreadsheet's row of "
+                                 f"column names), got {show(value)}")
+        elif key == "sheet":
+            if isinstance(value, bool) or not isinstance(value, (int, str)) or (isinstance(value, int) and value < 0):
+                raise InputError(f"{ctx}: sheet must be a sheet name (text) or a 0-based index (whole number "
+                                 f"from 0), got {show(value)}")
+        elif not isinstance(value, str):
+            raise InputError(f"{ctx}: {key} must be text, got {show(value)}")
+        elif key == "encoding":
+            try:
+                codecs.lookup(value)
+            except LookupError:
+                raise InputError(f"{ctx}: encoding {show(value)} is not known (e.g. 'utf-8', 'utf-16', "
+                                 f"'cp1252', 'latin-1')") from None
+        elif value not in _ONE_OF[key]:
+            raise InputError(f"{ctx}: {key} = {show(value)} is not accepted "
+                             f"(use one of: {', '.join(repr(v) for v in _ONE_OF[key])})")
+        out[key] = value
+    if out.get("decimal") is not None and out.get("decimal") == out.get("thousands"):
+        raise InputError(f"{ctx}: decimal and thousands are both {show(out['decimal'])}; they must differ")
+    return out

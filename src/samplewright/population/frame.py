@@ -15,20 +15,17 @@ records where), so COUNT and COST are always indexed from the end.
 
 from __future__ import annotations
 
-import errno
 import hashlib
-import os
-import stat
 from dataclasses import dataclass, field, fields
 from functools import cached_property
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from samplewright.errors import InputError, show
+from samplewright.errors import InputError
 from samplewright.population.layout import Layout
 from samplewright.population.layout import build as build_layout
+from samplewright.population.reading import read_table
 
 #: index of the "ones" column and of the unit-cost column, counted from the end of ``values``
 COUNT = -2
@@ -304,7 +301,7 @@ class Frame:
         domain: str | None = None,
         domains=None,
         cluster_cost: str | None = None,
-    ) -> "Frame":
+    ) -> Frame:
         """Bind the columns of ``df`` to roles, check them, and build a Frame.
 
         ``target`` is a column name or a list of names.  ``missing="drop"`` drops rows whose
@@ -376,8 +373,9 @@ class Frame:
         )
 
     @classmethod
-    def load(cls, path, **roles) -> "Frame":
-        """Read a CSV or Parquet file and bind its columns (see :meth:`from_dataframe`)."""
+    def load(cls, path, **roles) -> Frame:
+        """Read a frame file (see :func:`~samplewright.population.reading.read_table`) and bind its columns
+        (see :meth:`from_dataframe`)."""
         return cls.from_dataframe(read_table(path), source=str(path), **roles)
 
 
@@ -392,118 +390,3 @@ def _digest(h, name: str, value) -> None:
             _digest(h, f"{name}.{k}", value[k])
     else:
         h.update(f"{name}={value!r};".encode())
-
-
-def input_file(path, what: str) -> Path:
-    """``path`` as a Path, refused (InputError) unless it names an existing regular file.
-
-    A FIFO, a device (``/dev/zero``, ``/dev/stdin``) or a socket could block or never end
-    when read; a symlink loop, a NUL byte in the name and a directory cannot be read at all.
-    """
-    text = str(path)
-    if "\0" in text:
-        raise InputError(f"{what} {show(text)} contains a NUL byte; no file can have that name")
-    p = Path(text)
-    try:
-        mode = os.stat(p).st_mode  # follows symlinks
-    except FileNotFoundError:
-        raise InputError(f"{what} {text!r} does not exist") from None
-    except OSError as exc:
-        why = "is a symlink loop" if exc.errno == errno.ELOOP else f"cannot be opened: {exc.strerror or exc}"
-        raise InputError(f"{what} {text!r} {why}") from None
-    if stat.S_ISDIR(mode):
-        raise InputError(f"{what} {text!r} is a directory, not a file")
-    if not stat.S_ISREG(mode):
-        raise InputError(f"{what} {text!r} is not a regular file (a FIFO, device or socket); "
-                         f"give a file saved on disk")
-    return p
-
-
-#: "looks like a table": the longest column name, and the most of the file read to check it
-MAX_NAME = 64
-_SNIFF_BYTES = 1 << 20
-
-
-def csv_header(path) -> list[str]:
-    """The column names of a CSV file, refused (InputError) unless the file looks like a table.
-
-    A file looks like a table when its start (the first MiB) is UTF-8 text without NUL bytes,
-    its first line is a header of names of 1 to 64 printable characters (an empty first name,
-    a written-out row index, is allowed), and one of its first 100 data lines has as many
-    fields as the header.  A file that fails is described, never echoed: its "names" may be binary
-    data or prose.  A file with a header line only is refused by :func:`read_table` instead.
-    """
-    import csv
-    import gzip
-
-    p = Path(path)
-    opener = gzip.open if p.suffix.lower() == ".gz" else open
-    try:
-        with opener(p, "rb") as fh:
-            head = fh.read(_SNIFF_BYTES)
-    except (OSError, EOFError) as exc:
-        raise InputError(f"frame file {str(p)!r} could not be read: {type(exc).__name__}") from None
-    not_table = f"frame file {str(p)!r} does not look like a table"
-    if b"\0" in head:
-        raise InputError(f"{not_table}: it holds NUL bytes (a binary file?); give a CSV or Parquet file")
-    lines = head.split(b"\n", 2)
-    try:
-        text = [ln.decode("utf-8-sig" if i == 0 else "utf-8").rstrip("\r") for i, ln in enumerate(lines[:2])]
-    except UnicodeDecodeError:
-        raise InputError(f"{not_table}: its first lines are not UTF-8 text; give a CSV file saved as UTF-8") \
-            from None
-    if len(lines) < 2 or not text[1].strip():
-        return [c for c in next(csv.reader([text[0]]), [])]  # a header only: read_table says so
-    names = next(csv.reader([text[0]]), [])
-    # the data lines read in full (the last line of the sample may be cut), up to 100 of them
-    body = head.split(b"\n")[1:]
-    body = (body if len(head) < _SNIFF_BYTES else body[:-1])[:100]
-    try:
-        widths = {len(r) for r in csv.reader(ln.decode("utf-8").rstrip("\r") for ln in body if ln.strip())}
-    except (UnicodeDecodeError, csv.Error):
-        widths = set()
-    good = all(0 < len(c) <= MAX_NAME and c.isprintable() for c in names[1:]) and names and (
-        len(names[0]) <= MAX_NAME and names[0].isprintable())
-    if not good:
-        raise InputError(f"{not_table}: its first line is not a header of column names (each 1 to {MAX_NAME} "
-                         f"printable characters, separated by commas)")
-    if len(names) not in widths:
-        raise InputError(f"{not_table}: its header has {len(names)} field(s) but none of its first data lines "
-                         f"has as many; give a CSV file with one value per column on every row")
-    return names
-
-
-def _unique_names(names, path) -> None:
-    """Refuse a column name given twice (pandas would rename or drop the second silently)."""
-    seen = set()
-    for name in names:
-        if name in seen:
-            raise InputError(f"frame file {str(path)!r}: column {show(name)} appears twice in the header; "
-                             f"column names must be unique")
-        seen.add(name)
-
-
-def read_table(path) -> pd.DataFrame:
-    """Read a CSV or Parquet file into a DataFrame; refuse a missing, unreadable or empty one."""
-    p = input_file(path, "frame file")
-    suffix = p.suffix.lower()
-    try:
-        if suffix in (".parquet", ".pq"):
-            import pyarrow.parquet as pq
-
-            _unique_names(pq.read_schema(p).names, p)
-            df = pd.read_parquet(p)
-        elif suffix in (".csv", ".txt", ".gz"):
-            _unique_names(csv_header(p), p)
-            df = pd.read_csv(p)
-        else:
-            raise InputError(f"frame file {str(p)!r}: unknown format {suffix!r} (use .csv or .parquet)")
-    except InputError:
-        raise
-    except pd.errors.EmptyDataError:
-        raise InputError(f"frame file {str(p)!r} is empty") from None
-    except Exception as exc:  # unreadable: permissions, corrupt parquet, bad encoding
-        raise InputError(f"frame file {str(p)!r} could not be read: {type(exc).__name__}: {exc}") from None
-    if len(df) == 0:
-        raise InputError(f"frame file {str(p)!r} has a header but no rows")
-    return df
