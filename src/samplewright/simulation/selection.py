@@ -40,7 +40,7 @@ import io
 import json
 import os
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
@@ -349,7 +349,7 @@ def draw_sample(scenario: Scenario, label: str, size: int | None = None, seed: i
     record = {
         "tool": "samplewright",
         "version": version,
-        "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "created_utc": datetime.now(UTC).isoformat(timespec="seconds"),
         "command": command,
         "seed": seed,
         "random_stream": {"generator": "numpy.random.PCG64",
