@@ -309,3 +309,14 @@ def test_pareto_frequencies_match_its_exact_pi(scenario_file):
     _assert_binomial(counts, pi, "pareto")
     seen = ~np.isnan(pi_seen)
     assert np.array_equal(pi_seen[seen], design.inclusion_probabilities(frame)[seen])
+
+
+def test_rows_left_out_by_missing_drop_stay_out(tmp_path):
+    """A frame with missing = "drop": the sample's rows are the frame's units, values as in the file."""
+    pd.DataFrame({"id": ["a", "b", "c", "d", "e"], "y": [1, None, 3, 4, 5]}).to_csv(tmp_path / "f.csv", index=False)
+    sc = scenario_from_dict({"frame": {"path": "f.csv", "target": "y", "id": "id", "missing": "drop"},
+                             "design": [{"label": "all", "method": "srs", "n": 4}]}, base=tmp_path)
+    s = draw(sc, "all", seed=1)
+    assert sorted(s["id"]) == ["a", "c", "d", "e"]
+    assert dict(zip(s["id"], s["y"])) == {"a": 1, "c": 3, "d": 4, "e": 5}
+    assert (s["inclusion_probability"] == 1.0).all() and s["certainty"].all()

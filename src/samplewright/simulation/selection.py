@@ -111,14 +111,25 @@ def _bound_design(scenario: Scenario, label: str, size: int | None) -> tuple[Fra
 
 
 def frame_table(scenario: Scenario, frame: Frame) -> pd.DataFrame:
-    """The frame's columns, one row per unit of ``frame`` (rows a ``missing = "drop"`` left out are gone)."""
+    """The frame's columns as read (values unchanged), one row per unit of ``frame``.
+
+    The rows are those the frame load keeps: the same check (``frame_columns``) runs on the
+    table with a row-number column added, and the rows it keeps are taken from the table as read
+    (so a ``missing = "drop"`` leaves out the same rows and no value is converted).
+    """
     spec = scenario.frame
     roles = {k: spec.roles[k] for k in _ROW_ROLES if k in spec.roles}
     source = "synthetic frame" if spec.synthetic is not None else str(spec.path)
-    table, _ = frame_columns(spec.dataframe(), missing=spec.missing, source=source, **roles)
+    raw = spec.dataframe()
+    marker = "row"
+    while marker in raw.columns:
+        marker = f"_{marker}"
+    checked, _ = frame_columns(raw.assign(**{marker: np.arange(len(raw))}), missing=spec.missing, source=source,
+                               **roles)
+    table = raw.iloc[checked[marker].to_numpy()].reset_index(drop=True)
     if len(table) != frame.N:  # pragma: no cover - the same rows a frame load keeps
         raise RuntimeError(f"the frame table has {len(table)} rows but the frame {frame.N} units")
-    return table.reset_index(drop=True)
+    return table
 
 
 # ------------------------------------------------------------------ drawing
