@@ -17,7 +17,7 @@ HELP = ("draw the one sample fieldwork uses from a design of a scenario, with a 
 
 def add_arguments(p) -> None:
     p.add_argument("scenario", nargs="?", help="scenario file (TOML); not given with --check")
-    p.add_argument("--design", help="label of the design to draw (required unless --check)")
+    p.add_argument("--design", help="label of the design to draw (default: none; required unless --check)")
     p.add_argument("--size", type=whole_number(1),
                    help="one size of the design's sweep (required when the design has several; default: its size)")
     p.add_argument("--seed", type=whole_number(0),
@@ -26,12 +26,12 @@ def add_arguments(p) -> None:
                    help="reserve units per stratum (per cluster for two-stage designs), listed after the sample "
                         "in the order they replace non-respondents (default: 0)")
     p.add_argument("--out", help="sample file to write, .csv or .parquet; the record is written beside it with "
-                                 "the suffix .json (required unless --check)")
+                                 "the suffix .json (default: none; required unless --check)")
     p.add_argument("--force", action="store_true", help="overwrite an existing sample file and record "
                                                         "(default: off, refuse)")
     p.add_argument("--check", metavar="SAMPLE.json",
                    help="re-draw the sample a record describes and compare it with the sample file: exit 0 when "
-                        "they match, 2 with the first difference")
+                        "they match, 2 with the first difference (default: none, draw a sample)")
     p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback "
                                                         "instead of a one-line message (default: off)")
 
