@@ -320,3 +320,20 @@ def test_rows_left_out_by_missing_drop_stay_out(tmp_path):
     assert sorted(s["id"]) == ["a", "c", "d", "e"]
     assert dict(zip(s["id"], s["y"])) == {"a": 1, "c": 3, "d": 4, "e": 5}
     assert (s["inclusion_probability"] == 1.0).all() and s["certainty"].all()
+
+
+def test_check_refuses_a_damaged_or_edited_record(scenario_file, tmp_path, capsys):
+    out = tmp_path / "r.csv"
+    assert _run(["draw", str(scenario_file), "--design", "strat equal", "--seed", "4", "--out", str(out)],
+                capsys)[0] == 0
+    rec = tmp_path / "r.json"
+    record = json.loads(rec.read_text())
+    edited = {**record, "sum_of_weights": 17.0}
+    rec.write_text(json.dumps(edited))
+    code, _, err = _run(["draw", "--check", str(rec)], capsys)
+    assert code == 2 and "field 'sum_of_weights'" in err and err.count("\n") == 1
+    for bad in ("not json", json.dumps({**record, "seed": "4"}),
+                json.dumps({**record, "sample": {**record["sample"], "file": "../r.csv"}})):
+        rec.write_text(bad)
+        code, _, err = _run(["draw", "--check", str(rec)], capsys)
+        assert code == 2 and err.startswith("error: selection record") and err.count("\n") == 1, err

@@ -470,34 +470,38 @@ def check_record(path) -> str:
     from samplewright.population.frame import input_file
 
     rec_path = input_file(path, "selection record")
+    folder = rec_path.resolve().parent
     try:
         record = json.loads(rec_path.read_text(encoding="utf-8"))
-        folder = rec_path.resolve().parent
-        scenario_path = folder / record["scenario"]["path"]
         label, size, seed, reserve = (record["design"]["label"], record["size"], record["seed"],
                                       record["reserve"])
-        sample_info = record["sample"]
+        files = {what: None if record[what]["path"] is None else folder / record[what]["path"]
+                 for what in ("scenario", "frame")}
+        sample_name, fmt = record["sample"]["file"], record["sample"]["format"]
+        if not (isinstance(label, str) and all(isinstance(v, int) and not isinstance(v, bool) and v >= 0
+                                               for v in (size, seed, reserve))):
+            raise ValueError("design label, size, seed or reserve of the wrong type")
+        if Path(sample_name).name != sample_name or fmt not in ("csv", "parquet") or files["scenario"] is None:
+            raise ValueError("the sample must be a file beside the record, .csv or .parquet, from a scenario file")
     except (OSError, UnicodeDecodeError, ValueError, KeyError, TypeError) as exc:
         raise InputError(f"selection record {str(rec_path)!r} could not be read as a record "
                          f"({type(exc).__name__}: {exc})") from None
-    for what, info, file in (("scenario", record["scenario"], scenario_path),
-                             ("frame", record["frame"], None if record["frame"]["path"] is None
-                              else folder / record["frame"]["path"])):
+    for what, file in files.items():
         if file is None:
             continue
         if not file.is_file():
             raise InputError(f"{what} file {str(file)!r} named by the record does not exist")
-        if file_sha256(file) != info["sha256"]:
-            raise InputError(f"{what} file {str(file)!r} changed since the draw: its sha256 is not the "
-                             f"record's {info['sha256'][:12]}...; the sample cannot be replayed from it")
+        if file_sha256(file) != record[what]["sha256"]:
+            raise InputError(f"{what} file {str(file)!r} changed since the draw: its sha256 is not the one "
+                             f"recorded; the sample cannot be replayed from it")
+    scenario_path = files["scenario"]
     replay = draw_sample(load_scenario(scenario_path), label, size, seed, reserve)
     redrawn = replay.attrs["selection"]
     for key in REPLAYED_FIELDS:
         if redrawn[key] != record.get(key):
             raise InputError(f"selection record {str(rec_path)!r}: field {key!r} is {show(record.get(key))} but "
                              f"the replay gives {show(redrawn[key])}")
-    sample_path = folder / sample_info["file"]
-    fmt = sample_info["format"]
+    sample_path = folder / sample_name
     if not sample_path.is_file():
         raise InputError(f"sample file {str(sample_path)!r} named by the record does not exist")
     if fmt == "csv":
@@ -510,7 +514,7 @@ def check_record(path) -> str:
     difference = _first_difference(found, expected)
     if difference is not None:
         raise InputError(f"sample file {str(sample_path)!r} does not match the replay: {difference}")
-    if file_sha256(sample_path) != sample_info["sha256"]:
+    if file_sha256(sample_path) != record["sample"].get("sha256"):
         raise InputError(f"sample file {str(sample_path)!r}: every cell matches the replay but its bytes are not "
                          f"the ones recorded (sha256 differs from the record's)")
     return (f"ok: {sample_path.name} matches the replay of design {label!r} at {record['size_key']} = {size} "
