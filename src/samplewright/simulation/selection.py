@@ -58,8 +58,6 @@ from samplewright.population.frame import Frame
 DRAW_DOMAIN = b"samplewright draw\0"
 #: the frame roles :func:`frame_columns` checks (the same call a frame load makes, see :func:`frame_table`)
 _ROW_ROLES = ("target", "stratum", "cluster", "size", "order", "unit_cost", "id")
-SELECTION_COLUMNS = ("selection_order", "stratum", "psu", "stage1_probability", "stage2_probability",
-                     "inclusion_probability", "design_weight", "hits", "certainty", "reserve")
 RESERVE_SUPPORT = ("reserves are available for srs without replacement, stratified, and the second stage of "
                    "two-stage cluster and stratified_cluster designs, where the main sample and its reserves "
                    "together are a sample of the same design at a larger size")
@@ -383,7 +381,8 @@ def draw_sample(scenario: Scenario, label: str, size: int | None = None, seed: i
         "weights": ("design_weight = hits / (n p_i), the Hansen-Hurwitz weight of a unit selected hits times"
                     if repeats else "design_weight = 1 / inclusion_probability (Horvitz-Thompson)"),
         "renamed_frame_columns": renamed,
-        "notes": design.notes(frame),
+        "notes": design.notes(frame) + [f"frame column {old!r} is written as {new!r}: the sample has a "
+                                        f"selection column of that name" for old, new in renamed.items()],
         "columns": [str(c) for c in sample.columns],
     }
     sample.attrs["selection"] = record
