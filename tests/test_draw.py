@@ -3,7 +3,7 @@
 Checks against sources outside the project:
 - inclusion frequencies over many seeded draws against each unit's pi_i, by the normal
   approximation to the binomial: |count - D pi| <= 4.5 sqrt(D pi (1 - pi)) (Bonferroni over the
-  few hundred unit checks here keeps the family-wise error near 0.2%; the seeds are fixed);
+  few hundred unit checks here keeps the family-wise error below 0.3%; the seeds are fixed);
 - sum over the sample of the design weights: Horvitz-Thompson (1952) unbiased for N (Sarndal,
   Swensson & Wretman 1992, result 2.8.1; Hansen-Hurwitz for with-replacement designs, Cochran
   1977, sec. 9A.3), exactly N for SRS and stratified SRS (N_h / n_h summed over n_h units);
