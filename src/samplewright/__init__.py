@@ -9,6 +9,7 @@ The public surface (see ``__all__``)::
     fig = res.figure("coverage")                       # a matplotlib Figure
     res.write("results", report=True)                  # tables, figures/, report.html, brief.md
     back = sw.read_run("results")                      # a finished run folder, read back
+    sample = sw.draw(sc, "design label", seed=11)        # the real sample; its record in sample.attrs
 
 Heavier modules are imported on first use, so ``import samplewright`` stays light.
 """
@@ -19,12 +20,13 @@ __version__ = "0.1.0"
 
 from samplewright.errors import InputError
 
-__all__ = ["__version__", "Frame", "InputError", "RunResult", "Scenario", "load_scenario", "read_run", "run",
+__all__ = ["Frame", "InputError", "RunResult", "Scenario", "__version__", "draw", "load_scenario", "read_run", "run",
            "scenario_from_dict", "write_report"]
 
 _LAZY = {
     "Frame": ("population.frame", "Frame"),
     "run": ("api", "run"),
+    "draw": ("api", "draw"),
     "load_scenario": ("config.scenario", "load_scenario"),
     "scenario_from_dict": ("config.scenario", "scenario_from_dict"),
     "Scenario": ("config.scenario", "Scenario"),

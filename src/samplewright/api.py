@@ -296,3 +296,36 @@ def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
     front = frontier_table(summary, reps, conf)
     rec = None if goal is None else recommend(front, goal, scenario.confidence)
     return front, rec
+
+
+def draw(scenario, design: str, size: int | None = None, seed: int | None = None, reserve: int = 0,
+         command: str | None = None) -> pd.DataFrame:
+    """Draw the one sample fieldwork uses: design ``design`` of ``scenario`` at one size.
+
+    Returns a DataFrame: every frame column of each selected unit, then ``selection_order``,
+    ``stratum`` / ``psu`` (where the design has them), ``stage1_probability`` and
+    ``stage2_probability`` (two-stage designs), ``inclusion_probability``, ``design_weight``,
+    ``hits`` (designs that can select a unit twice), ``certainty`` and ``reserve``; the selection
+    record (seed, file hashes, design, per-stratum counts, sum of weights, variance estimator,
+    certainty units) is in ``DataFrame.attrs["selection"]``.  Without ``seed`` one is taken from
+    the operating system's entropy and recorded.  ``reserve``: reserves per stratum (per cluster
+    for two-stage designs), in substitution order (see :mod:`samplewright.simulation.selection`).
+
+    Examples
+    --------
+    >>> from samplewright import scenario_from_dict, draw
+    >>> sc = scenario_from_dict({"frame": {"synthetic": {"units": 400, "seed": 2}},
+    ...                          "design": [{"label": "simple", "method": "srs", "n": 40}]})
+    >>> sample = draw(sc, "simple", seed=1)
+    >>> len(sample), float(sample["design_weight"].sum())
+    (40, 400.0)
+    """
+    from samplewright.config.scenario import load_scenario
+    from samplewright.simulation.selection import draw_sample
+
+    if not isinstance(scenario, Scenario):
+        scenario = load_scenario(scenario)
+    if command is None:
+        command = (f"samplewright.draw({str(scenario.source) if scenario.source else 'scenario'!r}, {design!r}, "
+                   f"size={size!r}, seed={seed!r}, reserve={reserve!r})")
+    return draw_sample(scenario, design, size, seed, reserve, version=__version__, command=command)

@@ -91,6 +91,39 @@ def atomic_write(path, write) -> Path:
     return path
 
 
+def write_together(items) -> list[Path]:
+    """Write several files as one step: each ``write(tmp)`` of ``items`` (pairs of path and
+    write function, called in order) fills a temporary file beside its path, and only when
+    every one succeeded are they all renamed into place.
+
+    A failure before the renames leaves none of the files (nor any temporary one) behind, so
+    files that belong together (a sample and its selection record) never appear one without the
+    other.  Each file gets the permissions of a new file under the user's umask.
+    """
+    temps = []
+    try:
+        for path, write in items:
+            path = Path(path)
+            try:
+                temps.append((_new_temp(path), path))
+            except OSError as exc:
+                raise InputError(f"{str(path)!r} cannot be written: {exc.strerror or exc}") from None
+            write(temps[-1][0])
+        for tmp, path in temps:
+            os.replace(tmp, path)
+    except BaseException as exc:
+        for tmp, _ in temps:
+            try:
+                os.unlink(tmp)
+            except OSError:
+                pass
+        if isinstance(exc, OSError):
+            raise InputError(f"{str(temps[-1][1]) if temps else '?'!r} cannot be written: "
+                             f"{exc.strerror or exc}") from None
+        raise
+    return [path for _, path in temps]
+
+
 #: first characters that make a spreadsheet read a text cell as a formula ("CSV injection")
 FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
@@ -161,12 +194,17 @@ def write_csv(df: pd.DataFrame, path) -> Path:
     cells (Python's csv writer quotes line breaks of its own line terminator only), so such a
     table is written with every text cell quoted; any other is written with minimal quoting.
     """
+    return atomic_write(path, csv_writer(df))
+
+
+def csv_writer(df: pd.DataFrame):
+    """The function :func:`write_csv` writes ``df`` with, given a (temporary) path: for :func:`write_together`."""
     safe = protect_table(df)
     text = _text_columns(safe)
     has_cr = any(safe[c].map(lambda v: isinstance(v, str) and "\r" in v).any() for c in text) or any(
         isinstance(c, str) and "\r" in c for c in safe.columns)
     quoting = csv.QUOTE_NONNUMERIC if has_cr else csv.QUOTE_MINIMAL
-    return atomic_write(path, lambda t: safe.to_csv(t, index=False, quoting=quoting))
+    return lambda t: safe.to_csv(t, index=False, quoting=quoting)
 
 
 def write_parquet(df: pd.DataFrame, path, rows_per_group: int = 500_000) -> Path:
@@ -176,6 +214,11 @@ def write_parquet(df: pd.DataFrame, path, rows_per_group: int = 500_000) -> Path
     memory; row groups keep that copy to one group.  A table whose later rows do not fit the
     first group's column types (a column blank at first) is written in one piece instead.
     """
+    return atomic_write(path, parquet_writer(df, rows_per_group))
+
+
+def parquet_writer(df: pd.DataFrame, rows_per_group: int = 500_000):
+    """The function :func:`write_parquet` writes ``df`` with, given a (temporary) path."""
     def write(tmp: Path) -> None:
         if len(df) <= rows_per_group:
             df.to_parquet(tmp, index=False)
@@ -193,11 +236,16 @@ def write_parquet(df: pd.DataFrame, path, rows_per_group: int = 500_000) -> Path
         except (pa.ArrowInvalid, pa.ArrowTypeError):
             df.to_parquet(tmp, index=False)
 
-    return atomic_write(path, write)
+    return write
 
 
 def write_json(obj, path) -> Path:
-    return atomic_write(path, lambda t: t.write_text(json.dumps(obj, indent=2, default=_jsonable) + "\n"))
+    return atomic_write(path, json_writer(obj))
+
+
+def json_writer(obj):
+    """The function :func:`write_json` writes ``obj`` with, given a (temporary) path."""
+    return lambda t: t.write_text(json.dumps(obj, indent=2, default=_jsonable) + "\n")
 
 
 def write_text(text: str, path) -> Path:
