@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from samplewright import __version__
+from samplewright._version import __version__
 from samplewright.report.findings import SHORT_ESTIMATOR, cost_text, findings, is_exact, measure_text, money, num, summary_rows
 from samplewright.report.figures import FIGURES, estimator_name, figure_names
 
