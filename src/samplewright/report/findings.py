@@ -21,7 +21,8 @@ import numpy as np
 import pandas as pd
 
 from samplewright.decision.recommend import COVERAGE_Z, coverage_acceptable
-from samplewright.report.figures import cell_label, estimator_name
+from samplewright.report.figures.rows import cell_label
+from samplewright.report.figures.style import estimator_name
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2

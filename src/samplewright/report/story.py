@@ -10,7 +10,7 @@ import numpy as np
 
 from samplewright._version import __version__
 from samplewright.report.findings import SHORT_ESTIMATOR, cost_text, findings, is_exact, measure_text, money, num, summary_rows
-from samplewright.report.figures import FIGURES, estimator_name, figure_names
+from samplewright.report.figures import FIGURES, estimator_name, figure_names, primary_rows
 
 CAUTIONS = [
     "The rehearsal treats the frame as the population. Units missing from the frame, duplicates and "
@@ -252,8 +252,6 @@ def design_rows(res) -> list[dict]:
 
 def brief_rows(res, confidence: float) -> list[dict]:
     """One line per design x size for the brief: each design's first estimator."""
-    from samplewright.report.figures import primary_rows
-
     rows = []
     show, cost = measure_text(is_exact(res.summary)), cost_text(res.summary)
     for var in dict.fromkeys(res.summary["variable"]):
