@@ -157,7 +157,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "middle half of the estimates, thin line: the middle 95%.",
         True,
         _has_reps,
-        lambda res, var, keep: _fig(sampling_distribution(res.replicates, res.summary, var, keep=keep)),
+        lambda res, var, keep: sampling_distribution(res.replicates, res.summary, var, keep=keep),
     ),
     FigureSpec(
         "bias",
@@ -231,7 +231,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "less to reach).",
         False,
         lambda res: res.allocation is not None and len(res.allocation) > 0,
-        lambda res, var, keep: _fig(allocation_plot(res.allocation, res.summary, keep=keep)),
+        lambda res, var, keep: allocation_plot(res.allocation, res.summary),
     ),
     FigureSpec(
         "frame_order",

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from matplotlib.ticker import FuncFormatter
 
 from samplewright.report.figures.rows import (
     all_rows,
@@ -18,6 +17,7 @@ from samplewright.report.figures.style import (
     design_order,
     marker_map,
     plain,
+    readable_log_axis,
     styled,
 )
 
@@ -56,10 +56,9 @@ def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = N
         if hi / lo > 8:
             ax.set_xscale("log")
             ax.set_yscale("log")
-            for axis in (ax.xaxis, ax.yaxis):
-                axis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
-                axis.set_minor_formatter(FuncFormatter(lambda v, _pos: ""))
             lo, hi = lo / 1.3, hi * 1.3
+            for axis in (ax.xaxis, ax.yaxis):
+                readable_log_axis(axis, lo, hi)
         else:
             pad = 0.12 * (hi - lo) if hi > lo else 0.2 * hi
             lo, hi = max(0.0, lo - pad), hi + pad

@@ -13,9 +13,12 @@ from __future__ import annotations
 import functools
 
 import matplotlib
+import numpy as np
 import pandas as pd
+from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 #: Okabe-Ito colours in the order designs receive them (black is kept for "misses" and truth lines)
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#999999")
@@ -28,6 +31,8 @@ DPI = 150
 MC_Z = 1.959964
 ESTIMATOR_NAMES = {"ht": "Horvitz-Thompson", "hajek": "Hajek"}
 MARKERS = ("o", "s", "^", "D", "v", "P", "X")
+#: labelled ticks per decade on a log axis: 1-2-5, or a finer set when the axis spans too little for three
+LOG_SUBS = ((1.0, 2.0, 5.0), (1.0, 1.5, 2.0, 3.0, 5.0, 7.0))
 RC = {
     "font.size": 8.5,
     "axes.titlesize": 10,
@@ -58,7 +63,9 @@ def styled(fn):
 def new_figure(height: float, width: float = FIG_WIDTH) -> Figure:
     """A blank figure of the report's width (constrained layout, Agg canvas)."""
     with matplotlib.rc_context(RC):
-        return Figure(figsize=(width, height), dpi=DPI, layout="constrained")
+        fig = Figure(figsize=(width, height), dpi=DPI, layout="constrained")
+    FigureCanvasAgg(fig)  # attaches itself: text can be measured (label placement) without pyplot
+    return fig
 
 
 def axes_or_new(ax, height: float):
@@ -130,3 +137,21 @@ def design_legend(ax, designs, colours, markers=None, loc="best"):
             for e, m in markers.items()
         ]
     ax.legend(handles=handles, loc=loc, frameon=False)
+
+
+def number_text(value: float) -> str:
+    """A tick label: thousands separators from 1,000 up, else the shortest form (``0.05``, ``250``)."""
+    return f"{value:,.0f}" if abs(value) >= 1000 else f"{value:g}"
+
+
+def readable_log_axis(axis, lo: float, hi: float) -> None:
+    """Put ``axis`` (an x or y axis already on a log scale, showing ``lo`` to ``hi``) on plainly written
+    ticks, at least three of them labelled: 1-2-5 per decade, or a finer set when those are too few."""
+    for subs in LOG_SUBS:
+        ticks = [m * 10.0**e for e in range(int(np.floor(np.log10(lo))), int(np.ceil(np.log10(hi))) + 1)
+                 for m in subs]
+        if sum(lo <= v <= hi for v in ticks) >= 3:
+            break
+    axis.set_major_locator(LogLocator(base=10.0, subs=subs))
+    axis.set_major_formatter(FuncFormatter(lambda v, _pos: number_text(v)))
+    axis.set_minor_formatter(NullFormatter())
