@@ -56,15 +56,17 @@ def figure_variables(res) -> list[str]:
 def figure_plan(res) -> list[dict]:
     """Every figure the report draws: name, file stem, variable, heading and caption."""
     variables = figure_variables(res)
+    exact = bool((res.info or {}).get("exact"))
     plan = []
     for name in figure_names(res):
         spec = FIGURES[name]
+        caption = spec.exact_caption if exact and spec.exact_caption else spec.caption
         targets = variables if spec.per_variable else [None]
         for i, var in enumerate(targets):
             stem = name if (i == 0 or var is None) else f"{name}-{slug(var)}"
             head = spec.heading if (var is None or len(variables) == 1) else f"{spec.heading}: {var}"
             plan.append(
-                {"name": name, "stem": stem, "variable": var, "heading": head, "caption": spec.caption}
+                {"name": name, "stem": stem, "variable": var, "heading": head, "caption": caption}
             )
     return plan
 

@@ -65,6 +65,8 @@ class FigureSpec:
     per_variable: bool
     available: Callable  # (result) -> bool
     draw: Callable  # (result, variable, keep) -> Figure
+    #: the caption of an exact run (every possible sample, no simulation error), when it must differ
+    exact_caption: str = ""
 
 
 def _fig(ax_or_fig):
@@ -150,14 +152,16 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
     FigureSpec(
         "sampling_distribution",
         "Where the estimates fall",
-        "Each shape is the spread of one design's estimates over all simulated samples; the dashed line is "
-        "the "
-        "true population value. A narrow shape centred on the line is a precise, unbiased design; thick "
-        "bar: the "
-        "middle half of the estimates, thin line: the middle 95%.",
+        "One panel per design, each on its own scale: each shape is the spread of the design's estimates at one "
+        "size over all simulated samples; the dashed line is the true population value. A narrow shape centred "
+        "on the line is a precise, unbiased design; thick bar: the middle half of the estimates, thin line: the "
+        "middle 95%.",
         True,
         _has_reps,
         lambda res, var, keep: sampling_distribution(res.replicates, res.summary, var, keep=keep),
+        "One panel per design, each on its own scale: each shape is the spread of the design's estimates at one "
+        "size over every possible sample, weighted by its probability; the dashed line is the true population "
+        "value. Thick bar: the middle half of the estimates, thin line: the middle 95%.",
     ),
     FigureSpec(
         "bias",
@@ -170,6 +174,9 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         True,
         _has_rows,
         lambda res, var, keep: _fig(bias_plot(res.summary, var, keep=keep)),
+        "How far the average estimate over every possible sample sits from the truth: the exact bias of each "
+        "design for this frame, with no simulation error. The top axis gives the bias as a percentage of the "
+        "true value.",
     ),
     FigureSpec(
         "coverage",
@@ -181,6 +188,9 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         True,
         _has_rows,
         lambda res, var, keep: _fig(coverage_plot(res.summary, _confidence(res), var, keep=keep)),
+        "The share of all possible samples, weighted by their probability, whose confidence interval holds the "
+        "true value; the dashed line is the promised level. The shares are exact: a design left of the line "
+        "reports intervals too narrow for this frame.",
     ),
     FigureSpec(
         "se_check",
@@ -191,6 +201,9 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         True,
         _has_rows,
         lambda res, var, keep: _fig(se_plot(res.summary, var, keep=keep)),
+        "Each point compares the standard error the analysis would report (vertical) with the real spread of "
+        "the estimates over every possible sample (horizontal). Points on the dashed diagonal are honest; "
+        "points below it belong to designs whose formula understates the uncertainty.",
     ),
     FigureSpec(
         "intervals",
@@ -226,9 +239,9 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
     FigureSpec(
         "allocation",
         "Stratified allocation",
-        "How each stratified design spreads its sample over the strata, beside each stratum's share of the "
-        "frame (grey). Neyman and cost-optimal allocations give more units to strata that vary more (or cost "
-        "less to reach).",
+        "How each stratified design spreads its sample over the strata at each of its sizes (one panel per "
+        "design, darker bars for larger samples), beside each stratum's share of the frame (grey). Neyman and "
+        "cost-optimal allocations give more units to strata that vary more (or cost less to reach).",
         False,
         lambda res: res.allocation is not None and len(res.allocation) > 0,
         lambda res, var, keep: allocation_plot(res.allocation, res.summary),
