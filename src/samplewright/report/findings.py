@@ -38,7 +38,7 @@ def decimals_for(mcse: float, digits: int = 2) -> int:
     """
     if not np.isfinite(mcse) or mcse <= 0:
         return 1
-    return max(0, digits - 1 - int(math.floor(math.log10(mcse))))
+    return max(0, digits - 1 - math.floor(math.log10(mcse)))
 
 
 def with_mcse(value: float, mcse: float, scale: float = 1.0) -> str:
