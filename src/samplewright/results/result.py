@@ -81,7 +81,7 @@ class RunResult:
         ...                               "design": [{"label": "simple", "method": "srs", "n": 30}]}),
         ...           replicates=100, seed=1)
         >>> fig = res.figure("coverage")
-        >>> fig.get_size_inches()[0]
+        >>> float(fig.get_size_inches()[0])
         6.5
         """
         from samplewright.report.figures import make_figure  # lazy: matplotlib only when a figure is drawn
