@@ -128,7 +128,9 @@ def place_labels(ax, labels: list[PointLabel]) -> list:
     annotations drawn.  The figure is laid out once first, so the boxes measured are the final ones."""
     fig = ax.figure
     fig.draw_without_rendering()
-    renderer = fig.canvas.get_renderer()
+    # the report's figures carry an Agg canvas; a user's figure on another canvas (PDF, SVG) is measured
+    # by matplotlib's own renderer lookup
+    renderer = fig.canvas.get_renderer() if hasattr(fig.canvas, "get_renderer") else fig._get_renderer()
     frame = ax.get_window_extent(renderer)
     segments, markers = _segments(ax), _markers(ax)
     taken = np.empty((0, 4))
