@@ -158,8 +158,11 @@ def test_plot_functions_draw_on_a_given_axes_without_pyplot(run_dir):
     ax = fig.add_subplot()
     assert F.coverage_plot(res.summary, 0.95, ax=ax) is ax
     assert F.bias_plot(res.summary, ax=ax) is ax
-    assert F.sampling_distribution(res.replicates, res.summary, ax=ax) is ax
-    assert F.allocation_plot(res.allocation, res.summary, ax=ax) is ax
+    # the faceted figures (a panel per design) draw into a given Figure
+    panels = F.new_figure(6.0)
+    assert F.sampling_distribution(res.replicates, res.summary, fig=panels) is panels
+    panels = F.new_figure(6.0)
+    assert F.allocation_plot(res.allocation, res.summary, fig=panels) is panels
     assert plt.get_fignums() == before  # no pyplot figure was opened
 
 

@@ -135,3 +135,21 @@ def test_the_console_check_sees_a_blocked_request(browser, report, tmp_path):
     errors = _open(browser, page)
     assert errors, "a blocked external image should have logged a console error"
     assert any("Content Security Policy" in e.get("message", "") for e in errors), errors
+
+
+def test_on_a_phone_width_the_summary_scrolls_and_the_page_does_not(browser, report):
+    # 375 CSS pixels: the width of a common phone screen (from memory)
+    browser.set_window_size(375, 800)
+    try:
+        _open(browser, report)
+        page = browser.execute_script(
+            "return [document.documentElement.scrollWidth, document.documentElement.clientWidth]"
+        )
+        table = browser.execute_script(
+            "const w = document.querySelector('#summary .wide');"
+            "return [w.scrollWidth, w.clientWidth, getComputedStyle(w).overflowX]"
+        )
+    finally:
+        browser.set_window_size(1200, 1600)
+    assert page[0] <= page[1] + 1, page  # nothing cut off at the page's edge
+    assert table[2] == "auto" and table[0] > table[1], table  # the table scrolls inside its wrapper

@@ -240,7 +240,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     if field is not None:  # response, bias split and full-response columns after the contract ones
         summary = summary_columns(summary, reps, field, scenario.confidence)
     alloc = allocation_table(frame, cells)
-    from samplewright.report.frame_order import order_evidence
+    from samplewright.diagnostics.frame_order import order_evidence
 
     order_info, order_table = order_evidence(frame, scenario.designs)  # a cycle along a systematic walk
     info = {

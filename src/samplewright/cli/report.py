@@ -21,7 +21,7 @@ def add_arguments(p) -> None:
 
 
 def main(args) -> int:
-    from samplewright.report import report_folder
+    from samplewright.results.load import report_folder
     from samplewright.cli.common import logger
 
     page = report_folder(args.folder, svg=args.svg, force=args.force, log=logger(args))

@@ -1,5 +1,7 @@
 """The stakeholder report of a run: figures, report.html and brief.md, from the run's tables only.
 
+The report imports nothing from ``results``: it is handed a result (or any object with the same tables).
+
 Examples
 --------
 >>> import tempfile
@@ -19,15 +21,17 @@ from pathlib import Path
 
 from samplewright.errors import InputError
 from samplewright.files import atomic_write, write_text
-from samplewright.results.load import read_run
+from samplewright.report.brief import MARKER as BRIEF_MARKER
+from samplewright.report.brief import render_brief
+from samplewright.report.figures import DPI, make_figure
+from samplewright.report.html import MARKER as HTML_MARKER
+from samplewright.report.html import render_html
+from samplewright.report.story import build_context, figure_plan
 
-__all__ = ["write_report", "read_run", "report_folder"]
+__all__ = ["write_report"]
 
 
 def _check_overwrite(p: Path, force: bool) -> None:
-    from samplewright.report.brief import MARKER as BRIEF_MARKER
-    from samplewright.report.html import MARKER as HTML_MARKER
-
     if force:
         return
     for name, marker in (("report.html", HTML_MARKER), ("brief.md", BRIEF_MARKER)):
@@ -47,7 +51,8 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
     Parameters
     ----------
     res : RunResult
-        A run's result (from :func:`samplewright.run` or :func:`read_run`).
+        A run's result (from :func:`samplewright.run` or :func:`samplewright.read_run`), or any object
+        with its tables (summary, replicates, allocation, info, frontier, recommendation, frame_order).
     out : path
         The run folder (it must exist).
     svg : bool
@@ -61,11 +66,6 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
     -------
     Path of report.html.
     """
-    from samplewright.report.brief import render_brief
-    from samplewright.report.figures import DPI, make_figure
-    from samplewright.report.html import render_html
-    from samplewright.report.story import build_context, figure_plan
-
     say = log or (lambda _msg: None)
     p = Path(out)
     if not p.is_dir():
@@ -83,7 +83,7 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
             fig = make_figure(res, item["name"], item["variable"])
             buf = io.BytesIO()
             fig.savefig(buf, format="png", dpi=DPI)  # text is laid out here: it can fail too
-        except Exception as exc:  # a figure that cannot be drawn must not cost the rest of the report
+        except Exception as exc:  # noqa: BLE001 -- a figure that cannot be drawn must not cost the rest of the report
             failed.append(f"The figure {item['heading']!r} could not be drawn ({type(exc).__name__}: {exc}).")
             say(failed[-1])
             continue
@@ -92,7 +92,7 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
         if svg:
             atomic_write(figdir / f"{item['stem']}.svg", lambda t, f=fig: f.savefig(t, format="svg"))
         w, h = fig.get_size_inches() * DPI
-        drawn.append({**item, "png": png, "width": int(round(w)), "height": int(round(h))})
+        drawn.append({**item, "png": png, "width": round(float(w)), "height": round(float(h))})
     ctx = build_context(res, p)
     ctx["notes"] = ctx["notes"] + failed
     say("writing report.html and brief.md")
@@ -100,7 +100,3 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
     write_text(render_brief(ctx), p / "brief.md")
     return page
 
-
-def report_folder(folder, svg: bool = False, force: bool = False, log=None) -> Path:
-    """Rebuild the report of a finished run folder without re-simulating; returns report.html's path."""
-    return write_report(read_run(folder), folder, svg=svg, force=force, log=log)

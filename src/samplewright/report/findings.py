@@ -21,7 +21,8 @@ import numpy as np
 import pandas as pd
 
 from samplewright.decision.recommend import COVERAGE_Z, coverage_acceptable
-from samplewright.report.figures import cell_label, estimator_name
+from samplewright.report.figures.rows import cell_label
+from samplewright.report.figures.style import estimator_name
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2
@@ -37,7 +38,7 @@ def decimals_for(mcse: float, digits: int = 2) -> int:
     """
     if not np.isfinite(mcse) or mcse <= 0:
         return 1
-    return max(0, digits - 1 - int(math.floor(math.log10(mcse))))
+    return max(0, digits - 1 - math.floor(math.log10(mcse)))
 
 
 def with_mcse(value: float, mcse: float, scale: float = 1.0) -> str:

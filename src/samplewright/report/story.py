@@ -6,28 +6,39 @@ import datetime as _dt
 import re
 from pathlib import Path
 
+import jinja2
+import matplotlib
 import numpy as np
 
-from samplewright import __version__
-from samplewright.report.findings import SHORT_ESTIMATOR, cost_text, findings, is_exact, measure_text, money, num, summary_rows
-from samplewright.report.figures import FIGURES, estimator_name, figure_names
+from samplewright._version import __version__
+from samplewright.report.figures import FIGURES, estimator_name, figure_names, primary_rows
+from samplewright.report.findings import (
+    SHORT_ESTIMATOR,
+    cost_text,
+    findings,
+    is_exact,
+    measure_text,
+    money,
+    num,
+    summary_rows,
+)
 
 CAUTIONS = [
-    "The rehearsal treats the frame as the population. Units missing from the frame, duplicates and "
+    ("The rehearsal treats the frame as the population. Units missing from the frame, duplicates and "
     "out-of-date "
     "records are not rehearsed unless the scenario models them; a real frame is only as good as its "
-    "coverage.",
-    "A synthetic frame is only as good as the structure asked for (strata, clusters, skewness, list order): "
-    "the ranking of designs can change on a population that differs from it.",
-    "Unless the scenario models non-response or measurement error, every sampled unit is assumed to respond "
-    "and to be measured without error.",
-    "Costs come from the scenario's cost model, not from quotes; standard errors and intervals are those of "
-    "the estimators listed, and a different analysis can behave differently.",
-    "Every measure carries Monte Carlo error (shown in brackets). A difference between designs smaller than "
-    "about two of those errors is not evidence of a difference.",
-    "Decisions with legal, financial or health consequences (audit findings, health or safety surveys) must "
+    "coverage."),
+    ("A synthetic frame is only as good as the structure asked for (strata, clusters, skewness, list order): "
+    "the ranking of designs can change on a population that differs from it."),
+    ("Unless the scenario models non-response or measurement error, every sampled unit is assumed to respond "
+    "and to be measured without error."),
+    ("Costs come from the scenario's cost model, not from quotes; standard errors and intervals are those of "
+    "the estimators listed, and a different analysis can behave differently."),
+    ("Every measure carries Monte Carlo error (shown in brackets). A difference between designs smaller than "
+    "about two of those errors is not evidence of a difference."),
+    ("Decisions with legal, financial or health consequences (audit findings, health or safety surveys) must "
     "follow the applicable professional standards and local regulations, and a qualified statistician's "
-    "review.",
+    "review."),
 ]
 
 #: replaces the Monte Carlo caution (CAUTIONS[4]) for an exact-mode run
@@ -56,15 +67,17 @@ def figure_variables(res) -> list[str]:
 def figure_plan(res) -> list[dict]:
     """Every figure the report draws: name, file stem, variable, heading and caption."""
     variables = figure_variables(res)
+    exact = bool((res.info or {}).get("exact"))
     plan = []
     for name in figure_names(res):
         spec = FIGURES[name]
+        caption = spec.exact_caption if exact and spec.exact_caption else spec.caption
         targets = variables if spec.per_variable else [None]
         for i, var in enumerate(targets):
             stem = name if (i == 0 or var is None) else f"{name}-{slug(var)}"
             head = spec.heading if (var is None or len(variables) == 1) else f"{spec.heading}: {var}"
             plan.append(
-                {"name": name, "stem": stem, "variable": var, "heading": head, "caption": spec.caption}
+                {"name": name, "stem": stem, "variable": var, "heading": head, "caption": caption}
             )
     return plan
 
@@ -157,7 +170,7 @@ def _reproduce(info: dict) -> str:
 def _utc(ts: float | None) -> str | None:
     if ts is None:
         return None
-    return _dt.datetime.fromtimestamp(ts, _dt.timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
+    return _dt.datetime.fromtimestamp(ts, _dt.UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
 def metadata(info: dict, finished: float | None) -> list[tuple[str, str]]:
@@ -189,11 +202,8 @@ def metadata(info: dict, finished: float | None) -> list[tuple[str, str]]:
     if finished is not None:
         rows.append(("Run finished", _utc(finished)))
     rows.append(("Versions", ", ".join(f"{k} {v}" for k, v in versions.items())))
-    import jinja2
-    import matplotlib
-
-    rows.append(("Report drawn with", f"samplewright {__version__}, matplotlib {matplotlib.__version__}, "
-                                      f"jinja2 {jinja2.__version__}"))
+    rows.append(("Report drawn with", (f"samplewright {__version__}, matplotlib {matplotlib.__version__}, "
+                                       f"jinja2 {jinja2.__version__}")))
     return rows
 
 
@@ -230,7 +240,7 @@ def frame_context(res) -> dict:
 
 def design_rows(res) -> list[dict]:
     info = res.info or {}
-    sizes = {d: sorted(set(int(x) for x in g["size"])) for d, g in res.summary.groupby("design", sort=False)}
+    sizes = {d: sorted({int(x) for x in g["size"]}) for d, g in res.summary.groupby("design", sort=False)}
     ests = {
         d: ", ".join(estimator_name(e) for e in dict.fromkeys(g["estimator"]))
         for d, g in res.summary.groupby("design", sort=False)
@@ -252,8 +262,6 @@ def design_rows(res) -> list[dict]:
 
 def brief_rows(res, confidence: float) -> list[dict]:
     """One line per design x size for the brief: each design's first estimator."""
-    from samplewright.report.figures import primary_rows
-
     rows = []
     show, cost = measure_text(is_exact(res.summary)), cost_text(res.summary)
     for var in dict.fromkeys(res.summary["variable"]):
@@ -291,7 +299,7 @@ def build_context(res, folder: Path | None = None) -> dict:
     return {
         "title": info.get("title") or "samplewright run",
         "generator": f"samplewright {__version__}",
-        "generated": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+        "generated": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
         "confidence": confidence,
         "nominal": f"{100 * confidence:g}%",
         "replicates": num(info.get("replicates"), 9),

@@ -1,4 +1,5 @@
-"""Read a finished run folder back into a :class:`~samplewright.results.result.RunResult` (no simulation)."""
+"""Read a finished run folder back into a :class:`~samplewright.results.result.RunResult` (no simulation),
+and redraw its report."""
 
 from __future__ import annotations
 
@@ -10,6 +11,7 @@ import pandas as pd
 from samplewright.errors import InputError
 from samplewright.evaluation.measures import SUMMARY_COLUMNS
 from samplewright.files import restore_table
+from samplewright.report import write_report
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
 
 #: columns of each CSV file the report reads: (required, of which numeric)
@@ -135,7 +137,7 @@ def read_run(folder) -> RunResult:
     if reps_path.exists():
         try:
             replicates = pd.read_parquet(reps_path)
-        except Exception as exc:  # pyarrow raises several types for a damaged file
+        except Exception as exc:  # noqa: BLE001 -- pyarrow raises several types for a damaged file
             raise InputError(f"{reps_path}: could not be read as Parquet: {exc}") from None
     else:
         replicates = pd.DataFrame(
@@ -168,3 +170,8 @@ def read_run(folder) -> RunResult:
         warnings=list(info.get("warnings") or []),
         frame_order=order,
     )
+
+
+def report_folder(folder, svg: bool = False, force: bool = False, log=None) -> Path:
+    """Rebuild the report of a finished run folder without re-simulating; returns report.html's path."""
+    return write_report(read_run(folder), folder, svg=svg, force=force, log=log)

@@ -65,6 +65,7 @@ class RunResult:
         if self.recommendation is not None:
             write_json(self.recommendation, p / "recommendation.json")
         if report:
+            # the report loads matplotlib and jinja2: deliberately lazy, so a run without a report starts fast
             from samplewright.report import write_report
 
             write_report(self, p, svg=svg, force=True)
@@ -80,23 +81,17 @@ class RunResult:
         ...                               "design": [{"label": "simple", "method": "srs", "n": 30}]}),
         ...           replicates=100, seed=1)
         >>> fig = res.figure("coverage")
-        >>> fig.get_size_inches()[0]
+        >>> float(fig.get_size_inches()[0])
         6.5
         """
-        from samplewright.report.figures import make_figure
+        from samplewright.report.figures import make_figure  # lazy: matplotlib only when a figure is drawn
 
         return make_figure(self, name, variable)
 
     def figure_names(self) -> list[str]:
         """The figures this run has data for, in report order."""
-        from samplewright.report.figures import figure_names
+        from samplewright.report.figures import (
+            figure_names,  # lazy: matplotlib only when figures are asked for
+        )
 
         return figure_names(self)
-
-    @classmethod
-    def read(cls, folder) -> "RunResult":
-        """Read a finished run folder back (summary, replicates, allocation, run.json and, when present,
-        frontier.csv and recommendation.json); see :func:`samplewright.report.read_run`."""
-        from samplewright.results.load import read_run
-
-        return read_run(folder)

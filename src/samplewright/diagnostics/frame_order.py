@@ -1,4 +1,4 @@
-"""Evidence of a cycle along the frame's list order, kept with a run for the report's figure.
+"""Evidence of a cycle along the frame's list order, kept with a run (frame_order.csv) for the report's figure.
 
 When a run has a systematic design and the frame-order detector
 (:func:`samplewright.diagnostics.periodicity.frame_order_report`) finds a cycle along the order that
@@ -13,6 +13,8 @@ import math
 
 import numpy as np
 import pandas as pd
+
+from samplewright.diagnostics.periodicity import frame_order_report, interval_risks, unsafe_intervals
 
 FRAME_ORDER_COLUMNS = ["order", "variable", "position", "value"]
 #: cycles of the longest detected period shown, and the most list positions kept per order and target
@@ -34,8 +36,6 @@ def order_evidence(frame, designs) -> tuple[list | None, pd.DataFrame | None]:
     systematic = [d for d in designs if getattr(d, "method", None) == "systematic"]
     if not systematic:
         return None, None
-    from samplewright.diagnostics.periodicity import frame_order_report, interval_risks, unsafe_intervals
-
     infos, tables, seen = [], [], set()
     for d in systematic:
         sort_by = getattr(d, "sort_by", None)
