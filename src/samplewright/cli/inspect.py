@@ -50,10 +50,10 @@ def add_reading_arguments(p) -> None:
     from samplewright.cli.common import whole_number
 
     g = p.add_argument_group("reading the frame file (default: detected from the file)")
-    g.add_argument("--separator", help="column separator: ',' ';' '|' or 'tab'")
-    g.add_argument("--decimal", help="decimal mark: '.' or ','")
-    g.add_argument("--thousands", help="thousands separator: ',' '.' ' ' \"'\" or '' for none")
-    g.add_argument("--encoding", help="text encoding, e.g. utf-8, utf-16, cp1252")
+    g.add_argument("--separator", help="column separator: ',' ';' '|' or 'tab' (default: detected from the file)")
+    g.add_argument("--decimal", help="decimal mark: '.' or ',' (default: detected from the file)")
+    g.add_argument("--thousands", help="thousands separator: ',' '.' ' ' \"'\" or '' for none (default: detected from the file)")
+    g.add_argument("--encoding", help="text encoding, e.g. utf-8, utf-16, cp1252 (default: detected: UTF-8, UTF-16 by BOM, else cp1252)")
     g.add_argument("--percent", action="store_true", default=None, help="read '12%%' as 0.12 (default: off)")
     g.add_argument("--sheet", help="spreadsheet sheet: a name, or a 0-based index given as digits (default: the first)")
     g.add_argument("--header-row", type=whole_number(1), default=None,

@@ -466,7 +466,7 @@ def check_record(path) -> str:
     Returns the line to print when everything matches; raises InputError naming the first
     difference (a changed scenario or frame file, a record field, a row and column of the file).
     """
-    from samplewright.population.frame import input_file
+    from samplewright.population.reading import input_file
 
     rec_path = input_file(path, "selection record")
     folder = rec_path.resolve().parent
