@@ -19,7 +19,7 @@ from conftest import Z, assert_coverage_is_nominal
 from samplewright import Frame
 from samplewright.designs import METHODS, SRS, Stratified
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.config.scenario import scenario_from_dict
 
 AUX = ("ratio", "greg", "poststrat")

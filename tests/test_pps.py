@@ -20,7 +20,7 @@ from scipy import integrate, stats
 from samplewright import Frame, InputError
 from samplewright.designs import METHODS, Bernoulli, Pareto, Poisson, PPSSystematic, PPSWithReplacement, Sampford
 from samplewright.designs.pips import pips, sampford_draw
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 
 SIZES = [2.0, 3.0, 1.0, 7.0, 4.0, 5.0, 2.5, 6.0]  # invented size measure
 

@@ -18,7 +18,7 @@ from conftest import Z
 
 from samplewright import Frame, InputError
 from samplewright.designs import METHODS, StratifiedCluster
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 
 
 def zone_frame(big: bool = False):

@@ -23,7 +23,7 @@ from scipy import stats
 
 from samplewright import Frame, InputError
 from samplewright.designs import METHODS, Cluster, StratifiedCluster
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.evaluation.exact import enumerate_design
 
 

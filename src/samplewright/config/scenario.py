@@ -19,7 +19,7 @@ from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as
 from samplewright.designs import METHODS, RENAMED_METHODS, Design
 from samplewright.errors import InputError, show
 from samplewright.estimation.auxiliary import check_estimators
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.population.frame import Frame, input_file, read_table
 from samplewright.population.synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
 from samplewright.config.validate import closest

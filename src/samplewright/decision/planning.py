@@ -55,7 +55,8 @@ import math
 import numpy as np
 from scipy import stats
 
-from samplewright.designs.allocation import RULES, real_allocation, round_allocation, shares
+from samplewright.apportion import largest_remainder
+from samplewright.designs.allocation import RULES, real_allocation, shares
 from samplewright.errors import InputError
 
 
@@ -286,7 +287,7 @@ def allocate_strata(units, sd, cost=None, rule="neyman", n=None, budget=None, mo
         if n_tot > N:
             raise InputError(f"n (--n) = {int(n_tot)} is more than the {int(N)} units in the strata")
         real = real_allocation(n_tot, w, N_h)
-        whole = round_allocation(int(n_tot), real, N_h)
+        whole = largest_remainder(int(n_tot), real, N_h)
         out.update({"mode": "fixed_n", "n0": n_tot,
                     "formula": "n_h = n w_h, w_h = " + _share_text(rule) + " (Cochran 1977, ch. 5)"})
     elif budget is not None:

@@ -4,11 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
 from samplewright.errors import InputError
-from samplewright.estimation.two_stage_variance import one_unit_note, within_factor
-from samplewright.designs.base import Design
 
 
 class Cluster(Design):
@@ -96,6 +95,29 @@ class Cluster(Design):
 
     def expected_n(self, frame):
         return float(self.inclusion_probabilities(frame).sum())
+
+
+def within_factor(variance: str, pi1, take: np.ndarray, sizes: np.ndarray, srs: bool) -> np.ndarray:
+    """Each slot's factor for its within-cluster variance term, shape of ``take``: the take-all rule and the
+    ``two_stage`` / ``ultimate_cluster`` options of :mod:`samplewright.estimation.two_stage_variance`.
+
+    ``pi1`` is the first-stage inclusion probability of each slot (scalar or array), ``take``
+    the units drawn in it, ``sizes`` its cluster size M_i, ``srs`` whether the first stage
+    is SRS with its finite population correction (else the with-replacement approximation).
+    """
+    pi1 = np.broadcast_to(np.asarray(pi1, dtype=float), take.shape)
+    own = pi1 if (variance == "two_stage" and srs) else np.zeros(take.shape)
+    return np.where(pi1 >= 1.0, 1.0, own) * (1.0 - take / sizes)
+
+
+def one_unit_note(design, certain: int, k) -> list[str]:
+    """A note when ``certain`` clusters are taken with certainty and only one unit is drawn in each:
+    their within-cluster variance, all the variance they have, cannot be estimated."""
+    if k != 1 or certain == 0:
+        return []
+    return [(f"design {design.label!r} at clusters = {design.clusters}: {certain} cluster(s) are taken with "
+             f"certainty and one unit is drawn in each, so their within-cluster variance cannot be estimated "
+             f"and is left out of the standard errors (draw 2 or more units per cluster)")]
 
 
 def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs, variance, keep_units,

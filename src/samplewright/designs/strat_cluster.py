@@ -4,7 +4,7 @@ Method ``stratified_cluster``.  ``clusters`` (the size a sweep varies) is the to
 clusters, allocated to the strata by ``cluster_allocation``: ``equal``, ``proportional``
 (to the clusters in each stratum) or ``units`` (to the units in each stratum), at least two
 per stratum where it has them and never more than it has (``allocation.real_allocation``
-and ``round_allocation``).  Within stratum h, m_h clusters are drawn by ``selection``:
+and ``apportion.largest_remainder``).  Within stratum h, m_h clusters are drawn by ``selection``:
 
 - ``srs``: simple random sampling of clusters, pi_c = m_h / C_h;
 - ``pps``: Sampford's method with pi_c = m_h s_c / S_h, where the cluster size s_c is its
@@ -14,7 +14,7 @@ and ``round_allocation``).  Within stratum h, m_h clusters are drawn by ``select
 With ``units_per_cluster`` a second stage draws that many units by SRS in each chosen
 cluster (smaller clusters whole, with ``cap_units = true``).
 
-Variance: the shared between-PSU estimator within strata (``estimators.stratified_psu_variance``)
+Variance: the shared between-PSU estimator within strata (``estimation.variance.stratified_psu_variance``)
 on the estimated cluster totals.  With SRS of clusters the first-stage finite population
 correction 1 - m_h / C_h is applied (exact for one stage; Cochran 1977, ch. 9); with PPS no
 correction is applied (the with-replacement approximation; Sarndal, Swensson & Wretman 1992,
@@ -32,15 +32,15 @@ import math
 
 import numpy as np
 
-from samplewright.designs.allocation import real_allocation, round_allocation
+from samplewright.apportion import largest_remainder
+from samplewright.designs.allocation import real_allocation
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
+from samplewright.designs.cluster import Cluster, one_unit_note, second_stage_block
 from samplewright.designs.draws import distinct_positions
 from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
-from samplewright.errors import InputError
-from samplewright.estimation.two_stage_variance import one_unit_note
-from samplewright.designs.base import Design
-from samplewright.designs.cluster import Cluster, second_stage_block
 from samplewright.designs.pips import pips, sampford_draw, size_measure
+from samplewright.errors import InputError
 
 ALLOCATIONS = ("equal", "proportional", "units")
 SELECTIONS = ("srs", "pps")
@@ -130,7 +130,7 @@ class StratifiedCluster(Design):
                 "units": frame.N_h.astype(float)}[self.cluster_allocation]
         w = np.where(C_h > 0, base, 0.0)
         floor = np.minimum(2, C_h)
-        m_h = round_allocation(m, real_allocation(m, w / w.sum(), C_h, floor), C_h, floor)
+        m_h = largest_remainder(m, real_allocation(m, w / w.sum(), C_h, floor), C_h, floor)
         M = frame.cluster_sizes
         if self.selection == "pps":
             s_c = M.astype(float) if self.cluster_size == "units" else np.bincount(

@@ -38,7 +38,7 @@ class Systematic(Design):
     variance : {"srs", "successive_differences", "between_starts"}
         ``srs`` (default): the SRS formula (1 - f) s^2 / n, the usual practice, biased when the
         list order has structure (Cochran 1977, ch. 8).  ``successive_differences``: Wolter's
-        v3 on the units in list order (see :func:`samplewright.estimation.estimators.successive_difference_variance`).
+        v3 on the units in list order (see :func:`samplewright.estimation.systematic_variance.successive_difference_variance`).
         ``between_starts``: the r start samples are the PSUs (needs starts >= 2).
 
     Notes

@@ -2,13 +2,13 @@
 
 Every estimator here works on any :class:`~samplewright.designs.block.SampleBlock`, whatever design
 drew it: it needs only the PSU sums of the frame's value columns (see
-:mod:`samplewright.population.layout`) and the frame's known totals, passed as the ``ctx`` argument
+:mod:`samplewright.population.layout`) and the frame's known totals, passed as the ``layout`` argument
 (the frame's :class:`~samplewright.population.layout.Layout`).  Each one is a *core* that returns, for
 every extended target e (the targets and, per domain, its indicator and the products y d),
 the estimated total T_e and the linearised PSU totals u_ie whose design variance estimates
 the variance of T_e; one finishing step turns them into means of the targets and of the
-domains, standard errors (through the design's variance routine
-``estimators.VARIANCE[block.variance]``) and t intervals.
+domains, standard errors (through the design's variance formula, handed in as ``variance``
+by :mod:`samplewright.estimation.registry`) and t intervals.
 
 Notes
 -----
@@ -51,9 +51,9 @@ import numpy as np
 
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS, VARIANCE, Estimates, _interval, degrees_of_freedom
-from samplewright.population.frame import COUNT
 from samplewright.estimation.gram import gram_pinv, gram_solve
+from samplewright.estimation.intervals import Estimates, finish
+from samplewright.population.frame import COUNT
 from samplewright.population.layout import Layout
 
 
@@ -130,34 +130,37 @@ NEEDS = {"ratio": "auxiliary", "greg": "auxiliary", "poststrat": "poststratum"}
 
 
 # ------------------------------------------------------------------ finishing step
-def estimate(name: str, block: SampleBlock, N: int, confidence: float, ctx: Layout) -> Estimates:
-    """Means of every output variable of ``ctx`` (targets, then domains) by estimator ``name``.
+def estimate(name: str, block: SampleBlock, N: int, confidence: float, layout: Layout, *, variance) -> Estimates:
+    """Means of every output variable of ``layout`` (targets, then domains) by estimator ``name``.
+
+    ``variance`` (z (B, m, V), block) -> (B, V) is the design's variance formula of a total.
 
     Examples
     --------
     >>> import numpy as np, pandas as pd
     >>> from samplewright import Frame
     >>> from samplewright.designs import SRS
+    >>> from samplewright.estimation.variance import stratified_psu_variance
     >>> df = pd.DataFrame({"y": np.arange(1.0, 41.0), "x": np.arange(1.0, 41.0) + 0.5})
     >>> f = Frame.from_dataframe(df, target="y", auxiliary=["x"])
     >>> blk = SRS("s", n=10).draw(f, np.random.default_rng(3), B=2)
-    >>> out = estimate("greg", blk, f.N, 0.95, f.layout)
+    >>> out = estimate("greg", blk, f.N, 0.95, f.layout, variance=stratified_psu_variance)
     >>> np.allclose(out.estimate, 20.5)   # y is exactly linear in x: GREG has no error
     True
     """
-    if ctx is None:
-        raise InputError(f"estimator {name!r} needs the frame's known totals (its Layout) as ctx")
-    V = ctx.V
+    if layout is None:
+        raise InputError(f"estimator {name!r} needs the frame's known totals (its Layout)")
+    V = layout.V
     z = block.weighted()
     Z = z.sum(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        T, u = CORES[name](z, Z, N, ctx)
+        T, u = CORES[name](z, Z, N, layout)
         means = [T[:, :V] / N]
         lins = [u[..., :V] / N]
-        for j in range(ctx.D):
-            c, yd = ctx.domain_columns(j)
+        for j in range(layout.D):
+            c, yd = layout.domain_columns(j)
             if name == "ht":
-                size = np.full(T.shape[0], ctx.N_d[j])
+                size = np.full(T.shape[0], layout.N_d[j])
                 m = T[:, yd] / size[:, None]
                 lin = u[..., yd]
             else:
@@ -170,33 +173,34 @@ def estimate(name: str, block: SampleBlock, N: int, confidence: float, ctx: Layo
         lin = np.concatenate(lins, axis=2)
         if block.mask is not None:
             lin = np.where(block.mask[..., None], lin, 0.0)
-        var = VARIANCE[block.variance](lin, block)
+        var = variance(lin, block)
         se = np.sqrt(np.maximum(var, 0.0))
         se = np.where(np.isfinite(est), se, np.nan)
-    df = degrees_of_freedom(block)
-    lo, hi = _interval(est, se, df, confidence)
-    return Estimates(est, se, lo, hi, df)
+    return finish(est, se, block, confidence)
 
 
-def ratio(block: SampleBlock, N: int, V: int, confidence: float, ctx: Layout | None = None) -> Estimates:
+def ratio(block: SampleBlock, N: int, V: int, confidence: float, layout: Layout | None = None, *,
+          variance) -> Estimates:
     """Ratio estimator of the mean on the first auxiliary, with its linearised SE (see module notes)."""
-    _need(ctx, "ratio", ctx is not None and ctx.A > 0, "an auxiliary column")
-    return estimate("ratio", block, N, confidence, ctx)
+    _need("ratio", layout is not None and layout.A > 0, "an auxiliary column")
+    return estimate("ratio", block, N, confidence, layout, variance=variance)
 
 
-def greg(block: SampleBlock, N: int, V: int, confidence: float, ctx: Layout | None = None) -> Estimates:
+def greg(block: SampleBlock, N: int, V: int, confidence: float, layout: Layout | None = None, *,
+         variance) -> Estimates:
     """GREG estimator of the mean (intercept and every auxiliary), g-weighted SE (see module notes)."""
-    _need(ctx, "greg", ctx is not None, "the frame's known totals")
-    return estimate("greg", block, N, confidence, ctx)
+    _need("greg", layout is not None, "the frame's known totals")
+    return estimate("greg", block, N, confidence, layout, variance=variance)
 
 
-def poststrat(block: SampleBlock, N: int, V: int, confidence: float, ctx: Layout | None = None) -> Estimates:
+def poststrat(block: SampleBlock, N: int, V: int, confidence: float, layout: Layout | None = None, *,
+              variance) -> Estimates:
     """Post-stratified estimator of the mean with its linearised SE (see module notes)."""
-    _need(ctx, "poststrat", ctx is not None and ctx.P > 0, "a poststratum column")
-    return estimate("poststrat", block, N, confidence, ctx)
+    _need("poststrat", layout is not None and layout.P > 0, "a poststratum column")
+    return estimate("poststrat", block, N, confidence, layout, variance=variance)
 
 
-def _need(ctx, name, ok, what):
+def _need(name, ok, what):
     if not ok:
         raise InputError(f"estimator {name!r} needs {what}: set it in [frame]")
 
@@ -209,5 +213,3 @@ def check_estimators(estimators, roles: dict, where: str) -> None:
             key = "auxiliary = [\"column\", ...]" if need == "auxiliary" else "poststratum = \"column\""
             raise InputError(f"{where}: estimator {e!r} needs {need} data: set {key} in [frame]")
 
-
-ESTIMATORS.update({"ratio": ratio, "greg": greg, "poststrat": poststrat})

@@ -32,7 +32,8 @@ from scipy import stats
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS, sample_units
+from samplewright.estimation.estimators import sample_units
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.evaluation.measures import SUMMARY_COLUMNS, holds, design_effect, se_ratio, srs_variance
 
 #: most samples enumerated for one design at one size

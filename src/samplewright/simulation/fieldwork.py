@@ -37,7 +37,7 @@ import pandas as pd
 from samplewright.simulation import response as _response
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.evaluation.measures import holds
 from samplewright.population.frame import Frame
 from samplewright.estimation.two_stage_variance import slot_shares
