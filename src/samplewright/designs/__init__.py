@@ -33,6 +33,20 @@ def size_words(method: str, size, mean_n=None, units: str = "{} units") -> str:
     return text
 
 
-__all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS", "RENAMED_METHODS",
-           "PPSWithReplacement", "PPSSystematic", "Sampford", "Pareto", "Poisson", "Bernoulli",
-           "StratifiedCluster", "size_words"]
+__all__ = [
+    "METHODS",
+    "RENAMED_METHODS",
+    "SRS",
+    "Bernoulli",
+    "Cluster",
+    "Design",
+    "PPSSystematic",
+    "PPSWithReplacement",
+    "Pareto",
+    "Poisson",
+    "Sampford",
+    "Stratified",
+    "StratifiedCluster",
+    "Systematic",
+    "size_words",
+]

@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
+from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
 from samplewright.errors import InputError
 
 
@@ -85,6 +88,53 @@ class Cluster(Design):
         pos = np.where(valid, pos, 0)
         units = frame.cluster_units[frame.cluster_offsets[chosen][..., None] + pos]
         return units, valid
+
+    # ------------------------------------------------------------ exact mode
+    def count_samples(self, frame):
+        m, C = int(self.clusters), frame.C
+        k = self.take(frame)
+        if k is None:
+            return math.comb(C, m)
+        return elementary_symmetric([math.comb(int(M), min(int(M), k)) for M in frame.cluster_sizes], m)
+
+    def count_formula(self, frame):
+        m, C = int(self.clusters), frame.C
+        k = self.take(frame)
+        if k is None:
+            return f"C(clusters, m) = C({C}, {m})"
+        return f"sum over the C({C}, {m}) cluster sets of prod_c C(M_c, {k})"
+
+    def enumerate(self, frame, chunk=20_000):
+        """Every cluster subset (and, with two stages, every second-stage subset of its clusters)."""
+        m, C = int(self.clusters), frame.C
+        k = self.take(frame)
+        p1 = 1.0 / math.comb(C, m)
+        if k is None:
+            for chosen in combination_chunks(C, m, chunk):
+                yield self.block(frame, chosen), np.full(len(chosen), p1)
+            return
+        sizes_all = frame.cluster_sizes
+        subsets = {}
+        for first in combination_chunks(C, m, 1):
+            chosen = first[0]
+            take = np.minimum(sizes_all[chosen], k)
+            lists = []
+            for M, t in zip(sizes_all[chosen], take):
+                if (int(M), int(t)) not in subsets:
+                    subsets[(int(M), int(t))] = np.concatenate(list(combination_chunks(int(M), int(t), 100_000)))
+                lists.append(subsets[(int(M), int(t))])
+            p = p1 / float(np.prod([len(x) for x in lists], dtype=float))
+            offsets = frame.cluster_offsets[chosen]
+            for digits in product_chunks([len(x) for x in lists], chunk):
+                R = len(digits)
+                pos = np.zeros((R, m, k), dtype=np.int64)
+                valid = np.zeros((R, m, k), dtype=bool)
+                for j in range(m):
+                    t = int(take[j])
+                    pos[:, j, :t] = lists[j][digits[:, j]]
+                    valid[:, j, :t] = True
+                units = frame.cluster_units[offsets[None, :, None] + pos]
+                yield self.block(frame, np.broadcast_to(chosen, (R, m)), units, valid), np.full(R, p)
 
     def inclusion_probabilities(self, frame):
         p1 = int(self.clusters) / frame.C

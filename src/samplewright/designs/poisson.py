@@ -17,8 +17,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from samplewright.designs.draws import _KEY_BUDGET, distinct_positions
 from samplewright.designs.base import Design
+from samplewright.designs.draws import _KEY_BUDGET, distinct_positions
 from samplewright.designs.pips import pips, size_measure, units_block
 
 
@@ -137,6 +137,7 @@ class Poisson(_IndependentDesign):
     """
 
     method = "poisson"
+    count_text = "2^(units with pi < 1)"
 
     def check(self, frame):
         super().check(frame)
@@ -162,6 +163,7 @@ class Bernoulli(_IndependentDesign):
     """
 
     method = "bernoulli"
+    count_text = "2^N"
 
     def inclusion_probabilities(self, frame):
         return np.full(frame.N, int(self.n) / frame.N)

@@ -64,6 +64,7 @@ class StratifiedCluster(Design):
     """
 
     method = "stratified_cluster"
+    count_text = "prod over strata of the cluster subsets (and their second-stage subsets)"
     size_key = "clusters"
     keys = ("clusters", "cluster_allocation", "units_per_cluster", "cap_units", "selection", "cluster_size",
             "variance")

@@ -3,11 +3,13 @@ random starts, optionally after sorting the list by a column (implicit stratific
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
 
 KINDS = ("linear", "circular")
 
@@ -63,6 +65,7 @@ class Systematic(Design):
     method = "systematic"
     keys = ("n", "kind", "starts", "sort_by", "variance")
     variances = ("srs", "successive_differences", "between_starts")
+    count_text = "distinct random starts"
 
     def __init__(self, label: str, n, kind: str = "linear", starts: int = 1, sort_by: str | None = None,
                  variance: str = "srs"):
@@ -145,6 +148,44 @@ class Systematic(Design):
             units=units if keep_units else None,
             variance=variance,
         )
+
+    # ------------------------------------------------------------------ exact mode
+    def _distinct_starts(self, frame):
+        """Midpoints and lengths (as shares of k) of the start intervals in [0, k) that give distinct samples."""
+        n, N = int(self.n), frame.N
+        k = N / n
+        j = np.arange(n)
+        # the sample changes where u + j k crosses an integer: u = c - j k for whole c
+        cuts = [np.arange(math.ceil(jj * k), math.floor(jj * k + k) + 1) - jj * k for jj in j]
+        br = np.unique(np.concatenate([[0.0, k], *cuts]))
+        br = br[(br >= 0) & (br <= k)]
+        lo, hi = br[:-1], br[1:]
+        keep = hi - lo > 1e-12 * k
+        return (lo[keep] + hi[keep]) / 2.0, (hi[keep] - lo[keep]) / k
+
+    def _check_enumerable(self):
+        if self.kind != "linear" or int(self.starts) != 1:
+            raise InputError(f"design {self.label!r}: exact mode covers linear systematic sampling with one start "
+                             f"(kind = \"linear\", starts = 1)")
+
+    def count_samples(self, frame):
+        return len(self._distinct_starts(frame)[0])
+
+    def enumerate(self, frame, chunk=20_000):
+        """Linear systematic sampling with one random start: one sample per distinct start interval."""
+        self._check_enumerable()
+        n, N = int(self.n), frame.N
+        k = N / n
+        order = self.list_order(frame)
+        mid, prob = self._distinct_starts(frame)
+        for a in range(0, mid.size, chunk):
+            u = mid[a:a + chunk]
+            pos = np.minimum(np.floor(u[:, None] + np.arange(n)[None, :] * k).astype(np.int64), N - 1)
+            units = order[pos]
+            yield SampleBlock(sums=frame.gather(units), weight=np.full(n, N / n),
+                              psu_stratum=np.zeros(n, dtype=np.int64), fpc=np.array([1.0 - n / N]),
+                              clusters=np.zeros(len(u)), strata=0, units=units, variance=self.variance_name), \
+                prob[a:a + chunk]
 
     # ------------------------------------------------------------------ probabilities
     def inclusion_probabilities(self, frame):
