@@ -18,7 +18,7 @@ from conftest import Z
 
 from samplewright import Frame
 from samplewright.designs.allocation import RULES
-from samplewright.designs import METHODS
+from samplewright.designs import DESIGN_CLASSES
 
 R = 6000
 
@@ -52,7 +52,7 @@ def _valid(cls, params: dict) -> dict | None:
 
 def variants(method: str) -> list[dict]:
     """Parameter sets for one method: its defaults plus the options it declares."""
-    cls = METHODS[method]
+    cls = DESIGN_CLASSES[method]
     base = {cls.size_key: 3 if cls.size_key == "clusters" else 4}
     out = [base]
     keys = set(cls.keys)
@@ -72,7 +72,7 @@ def variants(method: str) -> list[dict]:
     return list({repr(p): p for p in found if p is not None}.values())
 
 
-CASES = [(m, p) for m in sorted(METHODS) for p in variants(m)]
+CASES = [(m, p) for m in sorted(DESIGN_CLASSES) for p in variants(m)]
 
 
 def _included(block) -> list[np.ndarray]:
@@ -106,9 +106,9 @@ def misfit(design, frame, seed) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
                                                        for m, p in CASES])
 def test_inclusion_frequencies_match_pi(method, params):
     frame = protocol_frame()
-    design = METHODS[method]("protocol", **params)
+    design = DESIGN_CLASSES[method]("protocol", **params)
     design.check(frame)
-    bad, freq, pi = misfit(design, frame, [7, sorted(METHODS).index(method), CASES.index((method, params))])
+    bad, freq, pi = misfit(design, frame, [7, sorted(DESIGN_CLASSES).index(method), CASES.index((method, params))])
     assert bad.size == 0, f"{design!r}: units {bad} freq {freq[bad]} vs pi {pi[bad]}"
 
 

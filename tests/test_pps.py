@@ -18,7 +18,7 @@ from conftest import Z
 from scipy import integrate, stats
 
 from samplewright import Frame, InputError
-from samplewright.designs import METHODS, Bernoulli, Pareto, Poisson, PPSSystematic, PPSWithReplacement, Sampford
+from samplewright.designs import DESIGN_CLASSES, Bernoulli, Pareto, Poisson, PPSSystematic, PPSWithReplacement, Sampford
 from samplewright.designs.pips import pips, sampford_draw
 from samplewright.estimation.registry import ESTIMATORS
 
@@ -324,7 +324,7 @@ def test_poisson_variance_formula():
 def test_same_seed_same_sample_for_every_new_design():
     f = size_frame()
     for method in ("pps", "pps_systematic", "sampford", "pareto", "poisson", "bernoulli"):
-        d = METHODS[method]("d", n=3, **({"replace": True} if method == "pps" else {}))
+        d = DESIGN_CLASSES[method]("d", n=3, **({"replace": True} if method == "pps" else {}))
         d.check(f)
         a = d.draw(f, np.random.default_rng(3), 40, keep_units=True)
         b = d.draw(f, np.random.default_rng(3), 40, keep_units=True)

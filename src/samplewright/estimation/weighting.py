@@ -61,7 +61,7 @@ import numpy as np
 from samplewright.errors import InputError
 from samplewright.estimation.gram import gram_pinv, gram_solve
 
-METHODS = ("none", "class", "poststrat", "raking")
+ADJUSTMENT_METHODS = ("none", "class", "poststrat", "raking")
 DESIGN_KEYS = ("adjustment", "adjustment_classes", "raking_margins")
 #: relative tolerance on every raking margin (a tenth of the 1e-9 promised, so that rounding in
 #: the estimate cannot take a met margin past it), and the cycle cap
@@ -110,8 +110,8 @@ def adjustment_from_table(table: dict, ctx: str) -> AdjustmentSpec:
     from samplewright.config.validate import closest
 
     method = as_str(table.get("adjustment", "none"), "adjustment", ctx)
-    if method not in METHODS:
-        raise InputError(f"{ctx}: adjustment {method!r} is not known{closest(method, METHODS)}")
+    if method not in ADJUSTMENT_METHODS:
+        raise InputError(f"{ctx}: adjustment {method!r} is not known{closest(method, ADJUSTMENT_METHODS)}")
     classes = table.get("adjustment_classes")
     if classes is not None:
         classes = as_str(classes, "adjustment_classes", ctx)
