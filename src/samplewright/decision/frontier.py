@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from samplewright.evaluation.measures import group_rows
+from samplewright.evaluation.measures import group_rows, mean_mcse, moe_mcse
 
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
@@ -71,8 +71,7 @@ def mse_mcse(reps: pd.DataFrame, summary: pd.DataFrame) -> pd.DataFrame:
     for key, idx in group_rows(reps, keys):
         sq = (x[idx] - truth.get(key, np.nan)) ** 2
         sq = sq[np.isfinite(sq)]  # domain rows: replicates without an estimate do not count
-        mcse = float(sq.std(ddof=1) / np.sqrt(len(sq))) if len(sq) > 1 else float("nan")
-        rows.append(dict(zip(keys, key), mse_mcse=mcse))
+        rows.append(dict(zip(keys, key), mse_mcse=mean_mcse(sq)))
     return pd.DataFrame(rows, columns=keys + ["mse_mcse"])
 
 
@@ -106,8 +105,7 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     t = summary.merge(cost_quantile(reps), on=["design", "size"], how="left")
     t = t.merge(mse_mcse(reps, summary), on=["design", "size", "estimator", "variable"], how="left")
     t["moe"] = z * t["rmse"]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t["moe_mcse"] = np.where(t["rmse"] > 0, z * t["mse_mcse"] / (2.0 * t["rmse"]), 0.0)
+    t["moe_mcse"] = moe_mcse(t["mse_mcse"], t["rmse"], z)
     t["on_frontier"] = False
     for idx in t.groupby("variable", sort=False).groups.values():
         t.loc[idx, "on_frontier"] = pareto(t.loc[idx, "mean_cost"].to_numpy(), t.loc[idx, "moe"].to_numpy())
@@ -161,7 +159,7 @@ def fit_curve(size, mse, mcse) -> dict | None:
         beta0, cov = beta0 + Z @ t, Z @ cov_t @ Z.T
     a, b = beta0
     return {"a": float(a), "b": float(b), "cov": cov, "min_size": float(n.min()), "max_size": float(n.max()),
-            "points": int(len(n))}
+            "points": len(n)}
 
 
 def _basis(curve: dict, n: float) -> str:

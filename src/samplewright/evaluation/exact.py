@@ -29,12 +29,10 @@ from scipy import stats
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.evaluation.measures import SUMMARY_COLUMNS, design_effect, holds, se_ratio, srs_variance
+from samplewright.evaluation.measures import SUMMARY_COLUMNS, design_effect, measures, srs_variance
 
 #: most samples enumerated for one design at one size
 LIMIT = 2_000_000
-
-MCSE_COLUMNS = ("bias_mcse", "empirical_se_mcse", "coverage_mcse")
 
 
 def count_samples(design, frame) -> tuple[int, str]:
@@ -70,20 +68,6 @@ def check_counts(frame, cells, limit: int = LIMIT) -> dict:
 
 
 # ------------------------------------------------------------------ evaluation
-def _moments(p, x, se, lo, hi, truth, z):
-    mean = float(p @ x)
-    var = float(p @ (x - mean) ** 2)
-    emp = float(np.sqrt(var))
-    cover = float(p @ holds(lo, hi, truth))
-    rmse = float(np.sqrt(p @ (x - truth) ** 2))
-    mod = float(np.sqrt(p @ se**2))
-    return {"truth": truth, "mean_estimate": mean, "bias": mean - truth, "bias_mcse": 0.0,
-            "relative_bias": (mean - truth) / truth if truth != 0 else float("nan"),
-            "empirical_se": emp, "empirical_se_mcse": 0.0, "rmse": rmse, "mean_se": mod,
-            "se_ratio": se_ratio(mod, emp, max(abs(truth), abs(mean))), "coverage": cover, "coverage_mcse": 0.0,
-            "mean_ci_width": float(p @ (hi - lo)), "moe": z * rmse}
-
-
 def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, limit: int = LIMIT):
     """Exact summary (one row per design x size x estimator x variable) and the per-sample table.
 
@@ -120,7 +104,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
         for e in cell.estimators:
             est, se, lo, hi = (np.concatenate(a, axis=0) for a in parts[e])
             for v, var in enumerate(names):
-                m = _moments(p, est[:, v], se[:, v], lo[:, v], hi[:, v], float(truth[v]), z)
+                m = measures(est[:, v], se[:, v], lo[:, v], hi[:, v], float(truth[v]), z, p)
                 deff = design_effect(m["empirical_se"], srs_variance(mean_n, frame.N, S2[v]),
                                      max(abs(m["truth"]), abs(m["mean_estimate"])))
                 rows.append({"design": d.label, "method": d.method, "size": int(d.size), "estimator": e,

@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from samplewright.population.frame import Frame
+from samplewright.population.frame import Frame, srs_variance_of_mean
 
 SUMMARY_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "truth", "mean_estimate", "bias",
@@ -77,7 +77,7 @@ def srs_variance(mean_n: float, N: int, S2: float) -> float:
     """Variance of the SRS-without-replacement mean at size ``mean_n`` (Cochran 1977, eq. 2.8); 0 for a census."""
     if not mean_n > 0:
         return float("nan")
-    return (1.0 - mean_n / N) * S2 / mean_n if mean_n < N else 0.0
+    return srs_variance_of_mean(mean_n, N, S2) if mean_n < N else 0.0
 
 
 def design_effect(emp_se: float, srs_var: float, scale: float) -> float:
@@ -85,32 +85,110 @@ def design_effect(emp_se: float, srs_var: float, scale: float) -> float:
     return _ratio(emp_se**2, srs_var, _zero(emp_se, scale), srs_var <= 0)
 
 
+# ------------------------------------------------------------------ the measures (Table 6)
+# Each takes replicate arrays along axis 0; ``p``, where given, holds each replicate's probability
+# (exact mode: the design distribution replaces the empirical one).
+def expectation(values, p=None):
+    """Mean over replicates, or the probability-weighted sum in exact mode."""
+    return np.mean(values) if p is None else p @ values
+
+
+def empirical_variance(x, p=None, mean=None):
+    """Variance of the estimates: divisor R - 1 over replicates (NaN below two), or exact under ``p``."""
+    if p is None:
+        return np.var(x, ddof=1) if len(x) > 1 else float("nan")
+    return p @ (x - mean) ** 2
+
+
+def rmse(x, truth, p=None):
+    """Root mean squared error, sqrt(mean((x - T)^2))."""
+    return np.sqrt(expectation((x - truth) ** 2, p))
+
+
+def model_se(se, p=None):
+    """Mean estimated SE as the root mean square of the SEs, sqrt(mean(s^2))."""
+    return np.sqrt(expectation(se**2, p))
+
+
+def coverage(lower, upper, truth, p=None):
+    """Share of intervals that hold the truth (up to rounding, :func:`holds`)."""
+    return expectation(holds(lower, upper, truth), p)
+
+
+def relative_bias(bias: float, truth: float) -> float:
+    """Bias / truth; NaN when the truth is 0."""
+    return bias / truth if truth != 0 else float("nan")
+
+
+def bias_mcse(variance, R):
+    """MCSE of the bias from the variance of the estimates, sqrt(var(x) / R)."""
+    return np.sqrt(variance / R)
+
+
+def empirical_se_mcse(emp_se, R):
+    """MCSE of the empirical SE, empSE / sqrt(2 (R - 1)) (with emp_se = 1: its relative MCSE)."""
+    return emp_se / np.sqrt(2.0 * (R - 1))
+
+
+def coverage_mcse(cover, R):
+    """MCSE of a coverage, sqrt(c (1 - c) / R)."""
+    return np.sqrt(cover * (1.0 - cover) / R)
+
+
+def mean_mcse(values) -> float:
+    """MCSE of a mean of replicate values, sd / sqrt(R) (NaN below two values): used for paired
+    differences and for the squared errors behind an MSE."""
+    R = len(values)
+    return float(values.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan")
+
+
+def moe_mcse(mse_mcse, rmse_value, z):
+    """MCSE of the margin of error z x RMSE by the delta method, z x MCSE(MSE) / (2 RMSE); 0 where RMSE is 0."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(rmse_value > 0, z * mse_mcse / (2.0 * rmse_value), 0.0)
+
+
+# replicates a target MCSE t asks for: the MCSE formulas above solved for R
+def replicates_for_bias_mcse(variance, t):
+    return variance / t**2
+
+
+def replicates_for_coverage_mcse(cover, t):
+    return cover * (1.0 - cover) / t**2
+
+
+def replicates_for_empirical_se_rel_mcse(t):
+    return 1.0 + 1.0 / (2.0 * t**2)
+
+
 def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray, truth: float,
-             z: float) -> dict:
-    """Morris-White-Crowther measures of one method from its replicate arrays."""
+             z: float, p: np.ndarray | None = None) -> dict:
+    """Morris-White-Crowther measures of one method from its replicate arrays (or, with ``p``, from
+    every possible sample and its probability: exact, with MCSE 0)."""
     R = len(x)
-    mean = float(np.mean(x))
-    var = float(np.var(x, ddof=1)) if R > 1 else float("nan")
+    mean = float(expectation(x, p))
+    var = float(empirical_variance(x, p, mean))
     emp_se = float(np.sqrt(var))
-    cover = float(np.mean(holds(lower, upper, truth)))
-    rmse = float(np.sqrt(np.mean((x - truth) ** 2)))
-    mod_se = float(np.sqrt(np.mean(se**2)))
+    cover = float(coverage(lower, upper, truth, p))
+    error = float(rmse(x, truth, p))
+    mod_se = float(model_se(se, p))
+    exact = p is not None
     return {
         "replicates": R,
         "truth": truth,
         "mean_estimate": mean,
         "bias": mean - truth,
-        "bias_mcse": float(np.sqrt(var / R)),
-        "relative_bias": (mean - truth) / truth if truth != 0 else float("nan"),
+        "bias_mcse": 0.0 if exact else float(bias_mcse(var, R)),
+        "relative_bias": relative_bias(mean - truth, truth),
         "empirical_se": emp_se,
-        "empirical_se_mcse": emp_se / np.sqrt(2.0 * (R - 1)) if R > 1 else float("nan"),
-        "rmse": rmse,
+        "empirical_se_mcse": 0.0 if exact else (empirical_se_mcse(emp_se, R) if R > 1 else float("nan")),
+        "rmse": error,
         "mean_se": mod_se,
         "se_ratio": se_ratio(mod_se, emp_se, max(abs(truth), abs(mean))),
         "coverage": cover,
-        "coverage_mcse": float(np.sqrt(cover * (1.0 - cover) / R)),
-        "mean_ci_width": float(np.mean(upper - lower)),
-        "moe": z * rmse,
+        "coverage_mcse": 0.0 if exact else float(coverage_mcse(cover, R)),
+        "mean_ci_width": float(expectation(upper - lower, p)),
+        "moe": z * error,
     }
 
 

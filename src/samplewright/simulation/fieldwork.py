@@ -38,7 +38,7 @@ from samplewright.simulation import response as _response
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.evaluation.measures import holds
+from samplewright.evaluation import measures
 from samplewright.population.frame import Frame
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
@@ -369,29 +369,28 @@ def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup
         g = groups[(row["design"], row["size"], row["estimator"], row["variable"])]
         T = float(truth[row["variable"]])
         x, xf = g["estimate"].to_numpy(), g["full_estimate"].to_numpy()
-        R = len(x)
         census = float(setup.census[(row["design"], row["estimator"])][names.index(row["variable"])])
         resp, att, elig = g["n"].mean(), g["attempted"].mean(), g["eligible"].mean()
         cost, fcost = g["cost"].mean(), g["full_cost"].mean()
         d = x - xf
-        cover = float(np.mean(holds(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T)))
+        cover = float(measures.coverage(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T))
         extra.append({
             "adjustment": setup.adjustments[row["design"]].method,
             "mean_attempted": float(att),
             "mean_respondents": float(resp),
             "response_rate": float(resp / elig) if elig > 0 else float("nan"),
             "cost_per_complete": float(cost / resp) if resp > 0 else float("nan"),
-            "full_response_bias": float(xf.mean() - T),
-            "full_response_empirical_se": float(xf.std(ddof=1)) if R > 1 else float("nan"),
-            "full_response_rmse": float(np.sqrt(np.mean((xf - T) ** 2))),
+            "full_response_bias": float(measures.expectation(xf) - T),
+            "full_response_empirical_se": float(np.sqrt(measures.empirical_variance(xf))),
+            "full_response_rmse": float(measures.rmse(xf, T)),
             "full_response_coverage": cover,
             "full_response_mean_cost": float(fcost),
             "full_response_cost_per_complete": float(fcost / elig) if elig > 0 else float("nan"),
-            "sampling_bias": float(xf.mean() - census),
-            "sampling_bias_mcse": float(xf.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
+            "sampling_bias": float(measures.expectation(xf) - census),
+            "sampling_bias_mcse": measures.mean_mcse(xf),
             "frame_bias": census - T,
-            "nonresponse_bias": float(d.mean()),
-            "nonresponse_bias_mcse": float(d.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
+            "nonresponse_bias": float(measures.expectation(d)),
+            "nonresponse_bias_mcse": measures.mean_mcse(d),
             "adjustment_failures": int(g["adjustment_failed"].sum()),
         })
     return pd.concat([summary.reset_index(drop=True), pd.DataFrame(extra, columns=SUMMARY_EXTRA)], axis=1)
