@@ -51,8 +51,9 @@ import numpy as np
 
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.gram import gram_pinv, gram_solve
+from samplewright.estimation.gram import least_squares
 from samplewright.estimation.intervals import Estimates, finish
+from samplewright.estimation.poststratify import cell_factors, cell_means
 from samplewright.population.frame import COUNT
 from samplewright.population.layout import Layout
 
@@ -90,8 +91,7 @@ def _greg(z, Z, N, L: Layout):
     XX, XE = _model_index(L)
     M = Z[:, XX]  # (B, k, k)
     C = Z[:, XE]  # (B, k, E)
-    Minv, plain = gram_pinv(M)  # a constant or repeated auxiliary gets coefficient 0 (see gram.py)
-    Bhat = gram_solve(M, C, Minv, plain)  # (B, k, E)
+    Bhat, Minv = least_squares(M, C)  # (B, k, E); a constant or repeated auxiliary gets coefficient 0
     total = np.concatenate([[float(N)], L.X])  # (k,)
     diff = total[None, :] - M[:, 0, :]  # known minus estimated totals of x~
     T = Z[:, L.ext] + np.einsum("bk,bke->be", diff, Bhat)
@@ -111,9 +111,8 @@ def _poststrat(z, Z, N, L: Layout):
     empty = nhat_q <= 0
     nhat = Z[:, COUNT]
     ybar = Z[:, L.ext] / nhat[:, None]  # Hajek mean, for empty post-strata
-    with np.errstate(divide="ignore", invalid="ignore"):
-        mean_q = np.where(empty[..., None], ybar[:, None, :], Z[:, L.pe] / nhat_q[..., None])  # (B, P, E)
-        g = np.where(empty, 0.0, L.N_p[None, :] / nhat_q)  # (B, P)
+    mean_q = cell_means(Z[:, L.pe], nhat_q, ybar)  # (B, P, E)
+    g = cell_factors(L.N_p[None, :], nhat_q)  # (B, P)
     T = np.einsum("q,bqe->be", L.N_p, mean_q)
     u = (np.einsum("bq,bmqe->bme", g, z[..., L.pe])
          - np.einsum("bq,bqe,bmq->bme", g, mean_q, z[..., L.post]))
