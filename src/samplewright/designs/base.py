@@ -13,6 +13,7 @@ from typing import ClassVar
 
 import numpy as np
 
+from samplewright.config.validate import closest
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.population.frame import Frame
@@ -117,8 +118,6 @@ class Design:
     def _check_variance(self) -> None:
         v = self._params.get("variance")
         if v is not None and v not in self.variances:
-            from samplewright.config.validate import closest
-
             raise InputError(f"design {self.label!r} ({self.method}): variance = {v!r} is not available "
                              f"for this method{closest(str(v), self.variances)}")
 

@@ -33,6 +33,7 @@ import math
 import numpy as np
 
 from samplewright.apportion import largest_remainder
+from samplewright.config.validate import closest
 from samplewright.designs.allocation import real_allocation
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
@@ -80,8 +81,6 @@ class StratifiedCluster(Design):
 
     # ------------------------------------------------------------------ checks
     def check(self, frame):
-        from samplewright.config.validate import closest
-
         self._need(frame, "cluster")
         if frame.roles.get("stratum") is None:
             raise InputError(f"design {self.label!r} (stratified_cluster) needs a stratum column: "

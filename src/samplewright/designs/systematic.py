@@ -7,6 +7,7 @@ import math
 
 import numpy as np
 
+from samplewright.config.validate import closest
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
@@ -73,8 +74,6 @@ class Systematic(Design):
 
     # ------------------------------------------------------------------ checks
     def check(self, frame):
-        from samplewright.config.validate import closest
-
         n = self._positive_int("n", self.n)
         if n > frame.N:
             raise InputError(f"design {self.label!r}: n = {n} is more than the {frame.N} units in the frame")

@@ -60,49 +60,50 @@ from samplewright.population.layout import Layout
 
 # ------------------------------------------------------------------ cores
 def _ht(z, Z, N, L: Layout):
-    return Z[:, L.ext], z[..., L.ext]
+    return Z[:, L.extended], z[..., L.extended]
 
 
 def _hajek(z, Z, N, L: Layout):
     nhat = Z[:, COUNT]
-    ybar = Z[:, L.ext] / nhat[:, None]
-    lin = (z[..., L.ext] - ybar[:, None, :] * z[..., COUNT][..., None]) * (N / nhat)[:, None, None]
+    ybar = Z[:, L.extended] / nhat[:, None]
+    lin = (z[..., L.extended] - ybar[:, None, :] * z[..., COUNT][..., None]) * (N / nhat)[:, None, None]
     return N * ybar, lin
 
 
 def _ratio(z, Z, N, L: Layout):
     x = L.aux[0]
-    R = Z[:, L.ext] / Z[:, x][:, None]
-    return R * L.X[0], z[..., L.ext] - R[:, None, :] * z[..., x][..., None]
+    R = Z[:, L.extended] / Z[:, x][:, None]
+    return R * L.X[0], z[..., L.extended] - R[:, None, :] * z[..., x][..., None]
 
 
 def _model_index(L: Layout):
-    """Column indices of x~ x~' (k, k) and x~ e (k, E) for x~ = (1, x_1..x_A)."""
+    """Column indices of x~ x~' (k, k), the model's Gram matrix, and of x~ e (k, E), its moments with
+    the extended targets e, for x~ = (1, x_1..x_A)."""
     cnt = np.int64(COUNT)
-    XX = np.empty((L.A + 1, L.A + 1), dtype=np.int64)
-    XX[0, 0] = cnt
-    XX[0, 1:] = XX[1:, 0] = L.aux
-    XX[1:, 1:] = L.xx
-    XE = np.vstack([L.ext[None, :], L.xe])
-    return XX, XE
+    gram_cols = np.empty((L.A + 1, L.A + 1), dtype=np.int64)
+    gram_cols[0, 0] = cnt
+    gram_cols[0, 1:] = gram_cols[1:, 0] = L.aux
+    gram_cols[1:, 1:] = L.aux_products
+    moment_cols = np.vstack([L.extended[None, :], L.aux_target_products])
+    return gram_cols, moment_cols
 
 
 def _greg(z, Z, N, L: Layout):
-    XX, XE = _model_index(L)
-    M = Z[:, XX]  # (B, k, k)
-    C = Z[:, XE]  # (B, k, E)
+    gram_cols, moment_cols = _model_index(L)
+    M = Z[:, gram_cols]  # (B, k, k)
+    C = Z[:, moment_cols]  # (B, k, E)
     Bhat, Minv = least_squares(M, C)  # (B, k, E); a constant or repeated auxiliary gets coefficient 0
     total = np.concatenate([[float(N)], L.X])  # (k,)
     diff = total[None, :] - M[:, 0, :]  # known minus estimated totals of x~
-    T = Z[:, L.ext] + np.einsum("bk,bke->be", diff, Bhat)
+    T = Z[:, L.extended] + np.einsum("bk,bke->be", diff, Bhat)
     lam = np.einsum("bkj,bj->bk", Minv, diff)  # g_k = 1 + lam' x~_k
     # u_i = sum_{k in i} w_k g_k e_k = s_e - s_x' B + lam' (s_xe - s_xx B), with s_. the PSU's
     # weighted sums; a loop over the k (few) model terms keeps every temporary (B, m, E)
-    u = z[..., L.ext].copy()
-    for a in range(XX.shape[0]):
-        s_xB = sum(z[..., XX[a, j]][..., None] * Bhat[:, None, j, :] for j in range(XX.shape[0]))
-        u -= z[..., XX[0, a]][..., None] * Bhat[:, None, a, :]
-        u += lam[:, None, a, None] * (z[..., XE[a]] - s_xB)
+    u = z[..., L.extended].copy()
+    for a in range(gram_cols.shape[0]):
+        s_xB = sum(z[..., gram_cols[a, j]][..., None] * Bhat[:, None, j, :] for j in range(gram_cols.shape[0]))
+        u -= z[..., gram_cols[0, a]][..., None] * Bhat[:, None, a, :]
+        u += lam[:, None, a, None] * (z[..., moment_cols[a]] - s_xB)
     return T, u
 
 
@@ -110,15 +111,15 @@ def _poststrat(z, Z, N, L: Layout):
     nhat_q = Z[:, L.post]  # (B, P)
     empty = nhat_q <= 0
     nhat = Z[:, COUNT]
-    ybar = Z[:, L.ext] / nhat[:, None]  # Hajek mean, for empty post-strata
-    mean_q = cell_means(Z[:, L.pe], nhat_q, ybar)  # (B, P, E)
+    ybar = Z[:, L.extended] / nhat[:, None]  # Hajek mean, for empty post-strata
+    mean_q = cell_means(Z[:, L.post_target_products], nhat_q, ybar)  # (B, P, E)
     g = cell_factors(L.N_p[None, :], nhat_q)  # (B, P)
     T = np.einsum("q,bqe->be", L.N_p, mean_q)
-    u = (np.einsum("bq,bmqe->bme", g, z[..., L.pe])
+    u = (np.einsum("bq,bmqe->bme", g, z[..., L.post_target_products])
          - np.einsum("bq,bqe,bmq->bme", g, mean_q, z[..., L.post]))
     n_empty = (empty * L.N_p[None, :]).sum(axis=1)  # units of the empty post-strata
     if np.any(n_empty):
-        u = u + (n_empty / nhat)[:, None, None] * (z[..., L.ext] - ybar[:, None, :] * z[..., COUNT][..., None])
+        u = u + (n_empty / nhat)[:, None, None] * (z[..., L.extended] - ybar[:, None, :] * z[..., COUNT][..., None])
     return T, u
 
 

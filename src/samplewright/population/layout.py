@@ -37,14 +37,15 @@ class Layout:
     ----------
     N, V : int
         Frame units and targets.
-    ext : (E,) int array
+    extended : (E,) int array
         Columns of the extended targets: the V targets, then for each domain its
         indicator followed by the V products y d.
     aux : (A,) int array
-        Auxiliary columns; ``xx`` (A, A) their cross-products, ``xe`` (A, E) their
-        products with every extended target.
+        Auxiliary columns; ``aux_products`` (A, A) their cross-products, ``aux_target_products``
+        (A, E) their products with every extended target.
     post : (P,) int array
-        Post-stratum indicator columns; ``pe`` (P, E) their products with the extended targets.
+        Post-stratum indicator columns; ``post_target_products`` (P, E) their products with the
+        extended targets.
     X : (A,) array
         Population totals of the auxiliaries.
     N_p, N_d : arrays
@@ -61,12 +62,12 @@ class Layout:
 
     N: int
     V: int
-    ext: np.ndarray
+    extended: np.ndarray
     aux: np.ndarray
-    xx: np.ndarray
-    xe: np.ndarray
+    aux_products: np.ndarray
+    aux_target_products: np.ndarray
     post: np.ndarray
-    pe: np.ndarray
+    post_target_products: np.ndarray
     X: np.ndarray
     N_p: np.ndarray
     N_d: np.ndarray
@@ -93,7 +94,7 @@ class Layout:
 
     @property
     def E(self) -> int:
-        return int(self.ext.shape[0])
+        return int(self.extended.shape[0])
 
     def domain_columns(self, j: int) -> tuple[int, slice]:
         """Position, within the extended targets, of domain j's indicator and of its y d products."""
@@ -126,8 +127,8 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
         return idx
 
     # extended targets
-    ext = [np.arange(V)]
-    ext_values = [y]
+    extended = [np.arange(V)]
+    extended_values = [y]
     keep = []
     if domain is not None:
         keep = list(range(len(domain_labels))) if domain_keep is None else list(domain_keep)
@@ -135,11 +136,11 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
         for j in keep:
             d = d_all[:, j:j + 1]
             block = np.column_stack([d, y * d])
-            ext.append(add(block))
-            ext_values.append(block)
-    ext = np.concatenate(ext)
-    e_vals = np.column_stack(ext_values)
-    E = ext.shape[0]
+            extended.append(add(block))
+            extended_values.append(block)
+    extended = np.concatenate(extended)
+    e_vals = np.column_stack(extended_values)
+    E = extended.shape[0]
 
     # auxiliaries and their products
     if aux is not None and np.size(aux):
@@ -148,13 +149,13 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
         x = np.zeros((N, 0))
     A = x.shape[1]
     aux_idx = add(x) if A else np.zeros(0, dtype=np.int64)
-    xx = np.zeros((A, A), dtype=np.int64)
+    aux_products = np.zeros((A, A), dtype=np.int64)
     for a in range(A):
         for b in range(a, A):
-            xx[a, b] = xx[b, a] = add(x[:, a] * x[:, b])[0]
-    xe = np.zeros((A, E), dtype=np.int64)
+            aux_products[a, b] = aux_products[b, a] = add(x[:, a] * x[:, b])[0]
+    aux_target_products = np.zeros((A, E), dtype=np.int64)
     for a in range(A):
-        xe[a] = add(x[:, a:a + 1] * e_vals)
+        aux_target_products[a] = add(x[:, a:a + 1] * e_vals)
 
     # post-strata
     if poststratum is not None:
@@ -163,9 +164,9 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
         p = np.zeros((N, 0))
     P = p.shape[1]
     post_idx = add(p) if P else np.zeros(0, dtype=np.int64)
-    pe = np.zeros((P, E), dtype=np.int64)
+    post_target_products = np.zeros((P, E), dtype=np.int64)
     for q in range(P):
-        pe[q] = add(p[:, q:q + 1] * e_vals)
+        post_target_products[q] = add(p[:, q:q + 1] * e_vals)
 
     # truths of the output variables
     names = list(variables)
@@ -188,7 +189,8 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
     proportions = tuple(nm for i, nm in enumerate(names) if (i % V if i >= V else i) in binary) if V else ()
     extra = np.column_stack(blocks) if blocks else np.zeros((N, 0))
     layout = Layout(
-        N=N, V=V, ext=ext, aux=aux_idx, xx=xx, xe=xe, post=post_idx, pe=pe,
+        N=N, V=V, extended=extended, aux=aux_idx, aux_products=aux_products,
+        aux_target_products=aux_target_products, post=post_idx, post_target_products=post_target_products,
         X=x.sum(axis=0), N_p=p.sum(axis=0), N_d=np.asarray(N_d, dtype=np.float64),
         names=tuple(names), proportions=proportions, truth=np.asarray(truth, dtype=np.float64), S2=np.asarray(S2, dtype=np.float64),
         aux_names=tuple(aux_names), post_labels=tuple(post_labels),
