@@ -398,7 +398,7 @@ def optimal_cluster_take(cluster_cost, unit_cost, icc, budget=None, fixed_cost=0
     c2 = _num(unit_cost, "cost per unit (--unit-cost)", 0.0)
     rho = _num(icc, "intra-cluster correlation (--icc)", 0.0, 1.0, high_open=True)
     m_opt = math.sqrt((c1 / c2) * (1.0 - rho) / rho)
-    m = max(1, int(math.floor(m_opt + 0.5)))
+    m = max(1, math.floor(m_opt + 0.5))
     out = {"cluster_cost": c1, "unit_cost": c2, "icc": rho, "m_opt": m_opt, "n0": m_opt, "n": m,
            "deff": 1.0 + (m - 1) * rho,
            "formula": "m_opt = sqrt((c1 / c2) (1 - rho) / rho) (Kish 1965, sec. 8.3); n = round(m_opt)"}

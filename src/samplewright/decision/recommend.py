@@ -19,8 +19,8 @@ from dataclasses import asdict, dataclass
 
 import pandas as pd
 
-from samplewright.designs import size_words
 from samplewright.decision.frontier import interpolate_goal, z_of
+from samplewright.designs import size_words
 
 #: how many Monte Carlo SEs of coverage below nominal are tolerated (see module notes)
 COVERAGE_Z = 3.0

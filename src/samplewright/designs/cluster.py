@@ -9,7 +9,12 @@ import numpy as np
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
-from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
+from samplewright.designs.enumeration import (
+    all_combinations,
+    combination_chunks,
+    elementary_symmetric,
+    product_chunks,
+)
 from samplewright.errors import InputError
 
 
@@ -121,7 +126,7 @@ class Cluster(Design):
             lists = []
             for M, t in zip(sizes_all[chosen], take):
                 if (int(M), int(t)) not in subsets:
-                    subsets[(int(M), int(t))] = np.concatenate(list(combination_chunks(int(M), int(t), 100_000)))
+                    subsets[(int(M), int(t))] = all_combinations(int(M), int(t))
                 lists.append(subsets[(int(M), int(t))])
             p = p1 / float(np.prod([len(x) for x in lists], dtype=float))
             offsets = frame.cluster_offsets[chosen]

@@ -39,7 +39,11 @@ from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.cluster import Cluster, one_unit_note, second_stage_block
 from samplewright.designs.draws import distinct_positions
-from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
+from samplewright.designs.enumeration import (
+    all_combinations,
+    elementary_symmetric,
+    product_chunks,
+)
 from samplewright.designs.pips import pips, sampford_draw, size_measure
 from samplewright.errors import InputError
 
@@ -240,7 +244,7 @@ class StratifiedCluster(Design):
         for g in self.setup(frame)["groups"]:
             if g["m"] == 0:
                 continue
-            rows = np.concatenate(list(combination_chunks(g["free"].size, g["m"], 100_000)))
+            rows = all_combinations(g["free"].size, g["m"])
             if self.selection == "pps":  # Sampford (1967): p(s) ∝ (m - sum_s pi) prod_s pi / (1 - pi)
                 pi = g["pi"]
                 logw = (np.log(pi) - np.log1p(-pi))[rows].sum(axis=1) + np.log(g["m"] - pi[rows].sum(axis=1))
@@ -279,7 +283,7 @@ class StratifiedCluster(Design):
 
         def combos(size, take):
             if (size, take) not in subsets:
-                subsets[(size, take)] = np.concatenate(list(combination_chunks(size, take, 100_000)))
+                subsets[(size, take)] = all_combinations(size, take)
             return subsets[(size, take)]
 
         for digits in firsts:

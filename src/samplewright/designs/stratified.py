@@ -10,7 +10,7 @@ from samplewright.designs.allocation import RULES, allocate
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
-from samplewright.designs.enumeration import combination_chunks, product_chunks
+from samplewright.designs.enumeration import all_combinations, product_chunks
 from samplewright.errors import InputError
 
 
@@ -121,7 +121,7 @@ class Stratified(Design):
         """Every combination of one n_h-subset per stratum, each equally likely."""
         n_h, N_h = self.n_h(frame), frame.N_h
         strata = np.flatnonzero(n_h)
-        lists = [np.concatenate(list(combination_chunks(int(N_h[h]), int(n_h[h]), 100_000))) for h in strata]
+        lists = [all_combinations(int(N_h[h]), int(n_h[h])) for h in strata]
         psu_stratum = np.repeat(strata, n_h[strata])
         p = 1.0 / float(np.prod([len(x) for x in lists], dtype=float))
         for digits in product_chunks([len(x) for x in lists], chunk):
