@@ -31,9 +31,8 @@ import math
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
-from samplewright.evaluation.measures import group_rows, mean_mcse, moe_mcse
+from samplewright.evaluation.measures import group_rows, mean_mcse, moe_mcse, normal_quantile
 
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
@@ -43,10 +42,6 @@ FRONTIER_COLUMNS = [
 
 #: MCSE (relative to the sweep's largest MSE) at or below which a point's MSE is exact: rounding error
 EXACT_MCSE = 1e-12
-
-
-def z_of(confidence: float) -> float:
-    return float(stats.norm.ppf(0.5 + confidence / 2.0))
 
 
 def cost_quantile(reps: pd.DataFrame, q: float = 0.9) -> pd.DataFrame:
@@ -101,7 +96,7 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     """
     if len(summary) == 0:
         return pd.DataFrame(columns=FRONTIER_COLUMNS)
-    z = z_of(confidence)
+    z = normal_quantile(confidence)
     t = summary.merge(cost_quantile(reps), on=["design", "size"], how="left")
     t = t.merge(mse_mcse(reps, summary), on=["design", "size", "estimator", "variable"], how="left")
     t["moe"] = z * t["rmse"]

@@ -53,11 +53,11 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
 from samplewright.apportion import largest_remainder
 from samplewright.designs.allocation import RULES, real_allocation, shares
 from samplewright.errors import InputError
+from samplewright.evaluation.measures import normal_quantile
 
 
 # ------------------------------------------------------------------ argument checks
@@ -77,8 +77,7 @@ def _num(value, name: str, low=None, high=None, low_open=True, high_open=False) 
 
 def z_value(confidence: float) -> float:
     """Two-sided normal quantile z_{1 - alpha/2} for a confidence level in (0, 1)."""
-    c = _num(confidence, "confidence (--confidence)", 0.0, 1.0, high_open=True)
-    return float(stats.norm.ppf(0.5 + c / 2.0))
+    return normal_quantile(_num(confidence, "confidence (--confidence)", 0.0, 1.0, high_open=True))
 
 
 def fpc_mean(n0: float, N: float) -> float:

@@ -24,12 +24,17 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.evaluation.measures import SUMMARY_COLUMNS, design_effect, measures, srs_variance
+from samplewright.evaluation.measures import (
+    SUMMARY_COLUMNS,
+    design_effect,
+    measures,
+    normal_quantile,
+    srs_variance,
+)
 
 #: most samples enumerated for one design at one size
 LIMIT = 2_000_000
@@ -77,7 +82,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     maps "label@size" to the number of samples.
     """
     check_counts(frame, cells, limit)
-    z = float(stats.norm.ppf(0.5 + confidence / 2.0))
+    z = normal_quantile(confidence)
     names, truth, S2 = frame.layout.names, frame.layout.truth, frame.layout.S2  # as evaluate.summarise
     rows, tables, by_label = [], [], {}
     for ci, cell in enumerate(cells):

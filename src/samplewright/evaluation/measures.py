@@ -41,6 +41,11 @@ SUMMARY_COLUMNS = [
 ]
 
 
+def normal_quantile(confidence: float) -> float:
+    """z_{1 - alpha/2} of a two-sided interval at ``confidence`` (the margin of error's multiplier)."""
+    return float(stats.norm.ppf(0.5 + confidence / 2.0))
+
+
 #: relative rounding slack of :func:`holds` (a zero-width census interval is its estimate, rounded)
 ROUNDING = 1e-12
 
@@ -204,7 +209,7 @@ def group_rows(reps: pd.DataFrame, keys: list[str]) -> list[tuple[tuple, np.ndar
 
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
     """One summary row per design x size x estimator x variable (contract columns, in order)."""
-    z = float(stats.norm.ppf(0.5 + confidence / 2.0))
+    z = normal_quantile(confidence)
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
     S2 = dict(zip(frame.layout.names, frame.layout.S2))
