@@ -175,15 +175,15 @@ def one_unit_note(design, certain: int, k) -> list[str]:
              f"and is left out of the standard errors (draw 2 or more units per cluster)")]
 
 
-def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs, variance, keep_units,
-                       **fields) -> SampleBlock:
+def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, srs, keep_units, **fields) -> SampleBlock:
     """A two-stage block laid out unit by unit (see :mod:`samplewright.estimation.two_stage_variance`).
 
     ``units`` (B, S, k) are the second-stage units of S cluster slots (``valid`` marks the
     real ones), ``sizes`` (B, S) the cluster sizes, ``w1`` (S,) or (B, S) the first-stage
-    weights (1 for a certainty cluster), ``slot_stratum`` (S,) each slot's design stratum
-    and ``fpc`` the first-stage correction per stratum; ``srs``: SRS of clusters (else the
-    with-replacement approximation for the first stage).
+    weights (1 for a certainty cluster), ``slot_stratum`` (S,) each slot's design stratum;
+    ``srs``: SRS of clusters (else the with-replacement approximation for the first stage).
+    ``fields`` are the block's other fields, among them ``fpc`` (the first-stage correction per
+    stratum) and ``variance``, which also sets each slot's within-cluster factor.
     """
     B, S, k = units.shape
     take = valid.sum(axis=2)
@@ -192,12 +192,10 @@ def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs
         sums=(frame.gather(units) * valid[..., None]).reshape(B, S * k, -1),
         weight=np.repeat(w1 * sizes / take, k, axis=1),
         psu_stratum=np.repeat(slot_stratum, k),
-        fpc=fpc,
         mask=None if valid.all() else valid.reshape(B, S * k),
         units=np.where(valid, units, -1).reshape(B, -1) if keep_units else None,
-        variance=variance,
         psu=np.repeat(np.arange(S), k),
-        within_fpc=within_factor(variance, 1.0 / w1, take, sizes, srs),
+        within_fpc=within_factor(fields["variance"], 1.0 / w1, take, sizes, srs),
         **fields,
     )
 
