@@ -57,15 +57,17 @@ def hajek(block: SampleBlock, N: int, V: int, confidence: float, layout=None, *,
 
 def sample_units(block: SampleBlock) -> np.ndarray:
     """Units measured per replicate, shape (B,)."""
-    c = block.sums[..., COUNT]
-    if block.mask is not None:
-        c = np.where(block.mask, c, 0.0)
-    return c.sum(axis=1)
+    return _sampled_total(block, COUNT)
 
 
 def sampled_unit_cost(block: SampleBlock) -> np.ndarray:
     """Sum of the frame's unit costs over the sampled units, shape (B,)."""
-    c = block.sums[..., COST]
+    return _sampled_total(block, COST)
+
+
+def _sampled_total(block: SampleBlock, column: int) -> np.ndarray:
+    """Unweighted sum of one value column over each replicate's sampled units, shape (B,)."""
+    c = block.sums[..., column]
     if block.mask is not None:
         c = np.where(block.mask, c, 0.0)
     return c.sum(axis=1)
