@@ -3,7 +3,7 @@
 For a small frame, the design moments need no Monte Carlo: each design's possible samples
 are enumerated with their selection probabilities, every estimator is applied to each, and
 the summary holds the exact expectation, variance, coverage and mean SE in the same columns
-as a simulated run (``evaluate.SUMMARY_COLUMNS``), with ``replicates`` = the number of
+as a simulated run (``measures.SUMMARY_COLUMNS``), with ``replicates`` = the number of
 possible samples, every MCSE column 0 and ``exact`` = True.
 
 Each design enumerates its own samples (``Design.enumerate`` and ``Design.count_samples``:
@@ -15,7 +15,7 @@ Notes
 -----
 With samples s of probability p(s) and estimates x(s), SEs se(s) and intervals [l(s), u(s)]:
 E x = sum p x, Var x = sum p (x - E x)^2, RMSE^2 = sum p (x - T)^2, mean SE (root mean
-square, as in ``evaluate``) = sqrt(sum p se^2), coverage = sum p 1{l <= T <= u}: the
+square, as in ``measures``) = sqrt(sum p se^2), coverage = sum p 1{l <= T <= u}: the
 definitions of Morris, White & Crowther (2019, Table 6) with the empirical distribution
 over replicates replaced by the design distribution.
 """
@@ -77,13 +77,13 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     """Exact summary (one row per design x size x estimator x variable) and the per-sample table.
 
     Returns ``(summary, samples, counts)``: ``summary`` has the columns of
-    ``evaluate.SUMMARY_COLUMNS`` plus ``exact``; ``samples`` has the replicate-table
+    ``measures.SUMMARY_COLUMNS`` plus ``exact``; ``samples`` has the replicate-table
     columns (one "replicate" per possible sample) plus its ``probability``; ``counts``
     maps "label@size" to the number of samples.
     """
     check_counts(frame, cells, limit)
     z = normal_quantile(confidence)
-    names, truth, S2 = frame.layout.names, frame.layout.truth, frame.layout.S2  # as evaluate.summarise
+    names, truth, S2 = frame.layout.names, frame.layout.truth, frame.layout.S2
     rows, tables, by_label = [], [], {}
     for ci, cell in enumerate(cells):
         d = cell.design

@@ -8,7 +8,13 @@ estimates x_r, estimated standard errors s_r and true value T:
 - empirical SE = sd(x) (divisor R - 1),    MCSE = empSE / sqrt(2 (R - 1))
 - model (mean estimated) SE = sqrt(mean(s_r^2))
 - coverage = share of intervals holding T, MCSE = sqrt(c (1 - c) / R)
-- RMSE = sqrt(mean((x - T)^2))
+- RMSE = sqrt(mean((x - T)^2));            MSE's MCSE = sd((x - T)^2) / sqrt(R), and the margin of
+  error z RMSE has MCSE z MCSE(MSE) / (2 RMSE) (delta method)
+- the mean of any replicate quantity d (e.g. paired differences), MCSE = sd(d) / sqrt(R)
+
+Every other module (exact mode, the stopping rules, the non-response columns, the frontier)
+computes these through the functions here; exact mode passes each sample's probability, which
+replaces the mean over replicates by the expectation under the design.
 
 The design effect is Kish's: the design's empirical variance over the exact variance of the
 SRS-without-replacement mean at the same mean sample size (Kish 1965, sec. 8.2).  The
