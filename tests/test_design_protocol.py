@@ -123,3 +123,13 @@ def test_checker_catches_wrong_probabilities():
     assert abs(wrong.inclusion_probabilities(frame).sum() - 6) < 1e-12  # same total, wrong shares
     bad, _, _ = misfit(wrong, frame, 11)
     assert bad.size > 0
+
+
+def test_every_variance_a_design_offers_is_a_registered_formula():
+    # the registries' contract (estimation/registry.py): a design names its variance formulas and the
+    # estimators find each by that name, so a name missing from the registry would fail only mid-run
+    from samplewright.estimation.registry import VARIANCE_FORMULAS
+
+    missing = sorted((m, v) for m, cls in DESIGN_CLASSES.items() for v in cls.variances
+                     if v not in VARIANCE_FORMULAS)
+    assert not missing, f"variance formulas named by designs but not registered: {missing}"
