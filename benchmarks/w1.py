@@ -128,7 +128,8 @@ def simple_frame(N: int, seed: int = 4) -> Frame:
 
 def stages(sc, frame, B: int = 500, k: int = 10) -> dict:
     """Milliseconds per block of each step of ``run_block``, per design (best of ``k``)."""
-    from samplewright.estimation.estimators import ESTIMATORS, sample_units
+    from samplewright.estimation.estimators import sample_units
+    from samplewright.estimation.registry import ESTIMATORS
     from samplewright.simulation.engine import make_cells
 
     cells = make_cells(sc.designs, sc.estimators)

@@ -17,9 +17,9 @@ import pytest
 from conftest import Z, assert_coverage_is_nominal
 
 from samplewright import Frame
-from samplewright.designs import METHODS, SRS, Stratified
+from samplewright.designs import DESIGN_CLASSES, SRS, Stratified
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.config.scenario import scenario_from_dict
 
 AUX = ("ratio", "greg", "poststrat")
@@ -50,11 +50,11 @@ def _structured_df(N=600, seed=5):
 def _all_designs():
     """One instance of every registered design, at a modest size."""
     out = []
-    for method, cls in METHODS.items():
+    for method, cls in DESIGN_CLASSES.items():
         key = cls.size_key
         extra = {"replace": True} if method == "pps" else {}  # pps is the with-replacement method
         out.append(cls(method, **{key: 8 if key == "clusters" else 40}, **extra))
-    out.append(METHODS["cluster"]("two-stage", clusters=8, units_per_cluster=4))
+    out.append(DESIGN_CLASSES["cluster"]("two-stage", clusters=8, units_per_cluster=4))
     return out
 
 
@@ -296,7 +296,7 @@ def test_ratio_on_the_size_measure_equals_ht_under_pips(method, structured):
     # estimate of X is exact in every sample, so R_hat X = t_y: the ratio estimator on the size
     # measure is the HT estimator (SSW 1992, sec. 3.6 and 7.3; Cochran 1977, sec. 9A.3)
     f = Frame.from_dataframe(structured, target=["y", "flag"], size="size", auxiliary=["size"])
-    blk = _draw(METHODS[method](method, n=40, **({"replace": True} if method == "pps" else {})), f)
+    blk = _draw(DESIGN_CLASSES[method](method, n=40, **({"replace": True} if method == "pps" else {})), f)
     np.testing.assert_allclose(_run("ratio", blk, f).estimate, _run("ht", blk, f).estimate, rtol=1e-10)
 
 

@@ -18,7 +18,7 @@ from conftest import Z
 
 from samplewright import Frame
 from samplewright.designs.allocation import RULES
-from samplewright.designs import METHODS
+from samplewright.designs import DESIGN_CLASSES
 
 R = 6000
 
@@ -52,7 +52,7 @@ def _valid(cls, params: dict) -> dict | None:
 
 def variants(method: str) -> list[dict]:
     """Parameter sets for one method: its defaults plus the options it declares."""
-    cls = METHODS[method]
+    cls = DESIGN_CLASSES[method]
     base = {cls.size_key: 3 if cls.size_key == "clusters" else 4}
     out = [base]
     keys = set(cls.keys)
@@ -72,7 +72,7 @@ def variants(method: str) -> list[dict]:
     return list({repr(p): p for p in found if p is not None}.values())
 
 
-CASES = [(m, p) for m in sorted(METHODS) for p in variants(m)]
+CASES = [(m, p) for m in sorted(DESIGN_CLASSES) for p in variants(m)]
 
 
 def _included(block) -> list[np.ndarray]:
@@ -106,9 +106,9 @@ def misfit(design, frame, seed) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
                                                        for m, p in CASES])
 def test_inclusion_frequencies_match_pi(method, params):
     frame = protocol_frame()
-    design = METHODS[method]("protocol", **params)
+    design = DESIGN_CLASSES[method]("protocol", **params)
     design.check(frame)
-    bad, freq, pi = misfit(design, frame, [7, sorted(METHODS).index(method), CASES.index((method, params))])
+    bad, freq, pi = misfit(design, frame, [7, sorted(DESIGN_CLASSES).index(method), CASES.index((method, params))])
     assert bad.size == 0, f"{design!r}: units {bad} freq {freq[bad]} vs pi {pi[bad]}"
 
 
@@ -123,3 +123,13 @@ def test_checker_catches_wrong_probabilities():
     assert abs(wrong.inclusion_probabilities(frame).sum() - 6) < 1e-12  # same total, wrong shares
     bad, _, _ = misfit(wrong, frame, 11)
     assert bad.size > 0
+
+
+def test_every_variance_a_design_offers_is_a_registered_formula():
+    # the registries' contract (estimation/registry.py): a design names its variance formulas and the
+    # estimators find each by that name, so a name missing from the registry would fail only mid-run
+    from samplewright.estimation.registry import VARIANCE_FORMULAS
+
+    missing = sorted((m, v) for m, cls in DESIGN_CLASSES.items() for v in cls.variances
+                     if v not in VARIANCE_FORMULAS)
+    assert not missing, f"variance formulas named by designs but not registered: {missing}"

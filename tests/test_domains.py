@@ -27,7 +27,7 @@ from samplewright.estimation.cost import CostModel
 from samplewright.designs import SRS
 from samplewright.simulation.engine import Cell, replicate_table, simulate
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.config.scenario import scenario_from_dict
 
 # ten units, two domains (invented values for exercising code)

@@ -524,11 +524,11 @@ def test_huge_units_per_cluster_capped_runs(tmp_path, capsys):
 
 def _size_based_methods() -> list[str]:
     """Registered methods that refuse a frame without a size column (found by asking each one)."""
-    from samplewright.designs import METHODS
+    from samplewright.designs import DESIGN_CLASSES
 
     f = Frame.from_dataframe(claims_frame(), target="amount")
     out = []
-    for m, cls in METHODS.items():
+    for m, cls in DESIGN_CLASSES.items():
         try:
             cls("probe", **{cls.size_key: 4}, **({"replace": True} if m == "pps" else {})).check(f)
         except InputError as exc:

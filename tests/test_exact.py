@@ -20,7 +20,7 @@ from conftest import Z
 from samplewright import Frame
 from samplewright.cli.main import main
 from samplewright.estimation.cost import CostModel
-from samplewright.designs import METHODS
+from samplewright.designs import DESIGN_CLASSES
 from samplewright.simulation.engine import make_cells, replicate_table, simulate
 from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.exact import count_samples, enumerate_design, evaluate_exact
@@ -39,16 +39,16 @@ def frame():
 
 def designs():
     return [
-        METHODS["srs"]("srs", n=4),
-        METHODS["stratified"]("strat", n=5, allocation="proportional"),
-        METHODS["systematic"]("sys", n=5),
-        METHODS["cluster"]("one stage", clusters=3),
-        METHODS["cluster"]("two stage", clusters=3, units_per_cluster=1),
-        METHODS["pps"]("wr", n=3, replace=True),
-        METHODS["pps_systematic"]("pps sys", n=4),
-        METHODS["sampford"]("sampford", n=4, variance="sen_yates_grundy"),
-        METHODS["poisson"]("poisson", n=4),
-        METHODS["bernoulli"]("bernoulli", n=5),
+        DESIGN_CLASSES["srs"]("srs", n=4),
+        DESIGN_CLASSES["stratified"]("strat", n=5, allocation="proportional"),
+        DESIGN_CLASSES["systematic"]("sys", n=5),
+        DESIGN_CLASSES["cluster"]("one stage", clusters=3),
+        DESIGN_CLASSES["cluster"]("two stage", clusters=3, units_per_cluster=1),
+        DESIGN_CLASSES["pps"]("wr", n=3, replace=True),
+        DESIGN_CLASSES["pps_systematic"]("pps sys", n=4),
+        DESIGN_CLASSES["sampford"]("sampford", n=4, variance="sen_yates_grundy"),
+        DESIGN_CLASSES["poisson"]("poisson", n=4),
+        DESIGN_CLASSES["bernoulli"]("bernoulli", n=5),
     ]
 
 
@@ -116,7 +116,7 @@ def test_systematic_samples_and_probabilities(N, n):
     # multiples of 1/n, so a grid of step 1/(n * 1000) hits every segment) give each
     # distinct sample floor(u + j k) with its share of the interval
     f = Frame.from_dataframe(pd.DataFrame({"y": np.arange(N, dtype=float)}), target="y")
-    d = METHODS["systematic"]("sys", n=n)
+    d = DESIGN_CLASSES["systematic"]("sys", n=n)
     d.check(f)
     k = N / n
     G = n * 1000
@@ -137,7 +137,7 @@ def test_systematic_samples_and_probabilities(N, n):
 
 
 def test_two_stage_cluster_enumeration_matches_brute_force(frame):
-    d = METHODS["cluster"]("two stage", clusters=2, units_per_cluster=1)
+    d = DESIGN_CLASSES["cluster"]("two stage", clusters=2, units_per_cluster=1)
     d.check(frame)
     got = {}
     for blk, p in enumerate_design(d, frame):
@@ -233,12 +233,12 @@ def test_exact_run_writes_contract_files(tmp_path):
 
 def test_every_design_exposes_enumeration(frame):
     # the classic designs reach exact.py through Design.enumerate / count_samples
-    srs = METHODS["srs"]("srs", n=4)
+    srs = DESIGN_CLASSES["srs"]("srs", n=4)
     assert srs.count_samples(frame) == math.comb(12, 4)
     rows = sum(len(p) for _, p in srs.enumerate(frame, chunk=100))
     assert rows == math.comb(12, 4)
     from samplewright import InputError
 
-    pareto = METHODS["pareto"]("p", n=3)
+    pareto = DESIGN_CLASSES["pareto"]("p", n=3)
     with pytest.raises(InputError, match="exact mode is not available for method 'pareto'"):
         pareto.enumerate(frame)

@@ -27,7 +27,7 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from samplewright.cli.main import main
-from samplewright.designs import METHODS
+from samplewright.designs import DESIGN_CLASSES
 from samplewright.config.scenario import COST_KEYS, DESIGN_COMMON, FRAME_KEYS, TOP_KEYS
 from samplewright.population.synth import CLUSTER_KEYS, STRATUM_KEYS
 from samplewright.population.synth import KEYS as SYNTH_KEYS
@@ -36,8 +36,8 @@ FUZZ = settings(max_examples=60, deadline=None, derandomize=True, database=None,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 
 KEYS = sorted(set(TOP_KEYS) | set(FRAME_KEYS) | set(COST_KEYS) | set(DESIGN_COMMON) | set(SYNTH_KEYS)
-              | set(STRATUM_KEYS) | set(CLUSTER_KEYS) | {k for c in METHODS.values() for k in c.keys})
-WORDS = sorted(set(METHODS) | {"y", "amount", "office", "batch", "pages", "handling", "stratum", "cluster", "size",
+              | set(STRATUM_KEYS) | set(CLUSTER_KEYS) | {k for c in DESIGN_CLASSES.values() for k in c.keys})
+WORDS = sorted(set(DESIGN_CLASSES) | {"y", "amount", "office", "batch", "pages", "handling", "stratum", "cluster", "size",
                                 "unit", "ht", "hajek", "neyman", "proportional", "optimal", "equal", "refuse",
                                 "drop", "gamma", "lognormal", "grouped", "random", "frame.csv", "linear"})
 

@@ -171,18 +171,18 @@ def test_memory_bound_is_the_documented_formula():
     # (y, the count column, the cost column), so 500 x 100 x 48 = 2,400,000 bytes exactly;
     # the table needs 160 bytes a row and 2048 a block
     from samplewright import Frame
-    from samplewright.designs import METHODS
+    from samplewright.designs import DESIGN_CLASSES
     from samplewright.simulation.engine import make_cells
     from samplewright.errors import InputError
     from samplewright.simulation.limits import check_run_memory
 
     frame = Frame.from_dataframe(pd.DataFrame({"y": np.arange(1.0, 101.0), "x": np.arange(1.0, 101.0)}),
                                  target="y", size="x")
-    cells = make_cells([METHODS["pps"]("w", n=100, replace=True)], [("ht",)])
+    cells = make_cells([DESIGN_CLASSES["pps"]("w", n=100, replace=True)], [("ht",)])
     check_run_memory(frame, cells, 10, 500, memory=2_400_000)
     with pytest.raises(InputError, match="'w' at size 100"):
         check_run_memory(frame, cells, 10, 500, memory=2_399_999)
-    one = make_cells([METHODS["pps"]("w", n=1, replace=True)], [("ht",)])  # block: 500 x 1 x 48 = 24,000 bytes
+    one = make_cells([DESIGN_CLASSES["pps"]("w", n=1, replace=True)], [("ht",)])  # block: 500 x 1 x 48 = 24,000 bytes
     need = 10**4 * 1 * 1 * 160 + 20 * 2048  # 10^4 replicates x 1 estimator x 1 variable; 20 blocks of 500
     check_run_memory(frame, one, 10**4, 500, memory=need)
     with pytest.raises(InputError, match="replicate table"):

@@ -19,7 +19,7 @@ from scipy import integrate, stats
 
 from samplewright import Frame, InputError
 from samplewright.designs import (
-    METHODS,
+    DESIGN_CLASSES,
     Bernoulli,
     Pareto,
     Poisson,
@@ -28,7 +28,7 @@ from samplewright.designs import (
     Sampford,
 )
 from samplewright.designs.pips import SampfordSampler, pips
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 
 SIZES = [2.0, 3.0, 1.0, 7.0, 4.0, 5.0, 2.5, 6.0]  # invented size measure
 
@@ -364,7 +364,7 @@ def test_poisson_variance_formula():
 def test_same_seed_same_sample_for_every_new_design():
     f = size_frame()
     for method in ("pps", "pps_systematic", "sampford", "pareto", "poisson", "bernoulli"):
-        d = METHODS[method]("d", n=3, **({"replace": True} if method == "pps" else {}))
+        d = DESIGN_CLASSES[method]("d", n=3, **({"replace": True} if method == "pps" else {}))
         d.check(f)
         a = d.draw(f, np.random.default_rng(3), 40, keep_units=True)
         b = d.draw(f, np.random.default_rng(3), 40, keep_units=True)

@@ -1,6 +1,6 @@
 """Property-based tests (hypothesis) over random small frames and every registered design.
 
-For every class in ``samplewright.designs.METHODS`` (the registry, so designs added later are
+For every class in ``samplewright.designs.DESIGN_CLASSES`` (the registry, so designs added later are
 covered without editing this file) and random small frames:
 
 - a design either refuses the frame with ``InputError`` or draws;
@@ -35,7 +35,7 @@ from test_fuzz_scenario import to_toml
 
 from samplewright import Frame
 from samplewright.designs.allocation import RULES
-from samplewright.designs import METHODS
+from samplewright.designs import DESIGN_CLASSES
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
 
@@ -97,7 +97,7 @@ def params_for(draw, cls, frame: Frame) -> dict:
 def design_on_frame(draw, method: str):
     """A frame, a design on it, and whether the design's size is past the frame's limit."""
     frame = draw(frames())
-    cls = METHODS[method]
+    cls = DESIGN_CLASSES[method]
     params = params_for(draw, cls, frame)
     design = cls("d", **params)
     over = params[cls.size_key] > (frame.C if cls.size_key == "clusters" else frame.N)
@@ -142,7 +142,7 @@ def assert_mean_matches(values: np.ndarray, expected: float, redraw, what: str) 
 MIN_DRAWN = 8
 
 
-@pytest.mark.parametrize("method", sorted(METHODS))
+@pytest.mark.parametrize("method", sorted(DESIGN_CLASSES))
 def test_design_properties(method):
     outcomes = Counter()
     check_design_properties(method, outcomes)
@@ -202,7 +202,7 @@ def check_design_properties(method, outcomes, data, seed):
         assert abs(pi.sum() - design.expected_n(frame)) <= 1e-9 * max(1.0, pi.sum()), design
 
 
-@pytest.mark.parametrize("method", sorted(METHODS))
+@pytest.mark.parametrize("method", sorted(DESIGN_CLASSES))
 @settings(PROPS, max_examples=10)
 @given(data=st.data(), seed=st.integers(0, 2**32 - 1))
 def test_same_seed_same_sample(method, data, seed):
@@ -241,8 +241,8 @@ def scenarios(draw) -> dict:
     syn["order"] = draw(st.sampled_from(["random", "grouped"]))
     designs = []
     for i in range(draw(st.integers(1, 3))):
-        method = draw(st.sampled_from(sorted(METHODS)))
-        cls = METHODS[method]
+        method = draw(st.sampled_from(sorted(DESIGN_CLASSES)))
+        cls = DESIGN_CLASSES[method]
         d = {"label": f"d{i}", "method": method}
         top = max(1, units // 3) if cls.size_key == "clusters" else units
         sizes = st.integers(1, top + 2)
@@ -284,8 +284,8 @@ def units_past_the_frame(doc: dict) -> bool:
     (cluster counts are not known before the frame is made, so they are not judged here)."""
     for d in doc["design"]:
         repeats = d.get("replace", False) or d["method"].endswith("_wr")
-        if METHODS[d["method"]].size_key != "clusters" and not repeats:
-            sizes = d[METHODS[d["method"]].size_key]
+        if DESIGN_CLASSES[d["method"]].size_key != "clusters" and not repeats:
+            sizes = d[DESIGN_CLASSES[d["method"]].size_key]
             if max(sizes if isinstance(sizes, list) else [sizes]) > doc["frame"]["synthetic"]["units"]:
                 return True
     return False

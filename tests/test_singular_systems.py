@@ -18,6 +18,7 @@ import pandas as pd
 
 from samplewright import Frame
 from samplewright.estimation.auxiliary import estimate
+from samplewright.estimation.registry import block_variance
 from samplewright.designs import SRS, Stratified
 from samplewright.estimation.gram import gram_pinv, independent_columns
 from samplewright.api import run
@@ -123,7 +124,7 @@ def _aux_frame(N=3000, seed=9):
 def _greg(df, aux, design):
     f = Frame.from_dataframe(df, target="y", stratum="band", auxiliary=aux)
     blk = design.draw(f, np.random.default_rng(21), B=2000)
-    return estimate("greg", blk, f.N, 0.95, f.layout)
+    return estimate("greg", blk, f.N, 0.95, f.layout, variance=block_variance)
 
 
 def test_greg_with_a_duplicated_auxiliary_equals_greg_with_one_copy():
@@ -143,7 +144,8 @@ def test_greg_with_a_constant_auxiliary_equals_greg_without_it():
                                rtol=1e-10)
     f = Frame.from_dataframe(df, target="y", auxiliary=["const"])
     blk = design.draw(f, np.random.default_rng(21), B=2000)
-    g, h = estimate("greg", blk, f.N, 0.95, f.layout), estimate("hajek", blk, f.N, 0.95, f.layout)
+    g = estimate("greg", blk, f.N, 0.95, f.layout, variance=block_variance)
+    h = estimate("hajek", blk, f.N, 0.95, f.layout, variance=block_variance)
     np.testing.assert_allclose(g.estimate, h.estimate, rtol=1e-10)
     np.testing.assert_allclose(g.se, h.se, rtol=1e-8)
 

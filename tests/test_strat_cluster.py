@@ -17,8 +17,8 @@ import pytest
 from conftest import Z
 
 from samplewright import Frame, InputError
-from samplewright.designs import METHODS, StratifiedCluster
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.designs import DESIGN_CLASSES, StratifiedCluster
+from samplewright.estimation.registry import ESTIMATORS
 
 
 def zone_frame(big: bool = False):
@@ -64,7 +64,7 @@ def test_refusals():
 
 def test_one_stage_srs_of_clusters_exact_moments_and_monte_carlo():
     f = zone_frame()
-    d = METHODS["stratified_cluster"]("zones", clusters=5, cluster_allocation="proportional")
+    d = DESIGN_CLASSES["stratified_cluster"]("zones", clusters=5, cluster_allocation="proportional")
     d.check(f)
     m_h = d.cluster_allocation_of(f)
     # exact enumeration: independent SRS of m_h plots in each zone; HT total and its

@@ -22,8 +22,10 @@ from samplewright import Frame
 from samplewright.designs.block import SampleBlock
 from samplewright.designs import Systematic
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import hajek, horvitz_thompson
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.config.scenario import scenario_from_dict
+
+horvitz_thompson, hajek = ESTIMATORS["ht"], ESTIMATORS["hajek"]
 
 CONF = 0.95
 R = 20_000

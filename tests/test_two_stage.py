@@ -22,8 +22,8 @@ import pytest
 from scipy import stats
 
 from samplewright import Frame, InputError
-from samplewright.designs import METHODS, Cluster, StratifiedCluster
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.designs import DESIGN_CLASSES, Cluster, StratifiedCluster
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.evaluation.exact import enumerate_design
 
 
@@ -219,7 +219,7 @@ def test_variance_option_is_checked():
         Cluster("c", clusters=3, units_per_cluster=2, variance="psu").check(frame)
     with pytest.raises(InputError, match="two_stage"):
         StratifiedCluster("z", clusters=4, variance="two-stage").check(frame)
-    assert METHODS["cluster"].variances[0] == "two_stage"
+    assert DESIGN_CLASSES["cluster"].variances[0] == "two_stage"
     assert StratifiedCluster("z", clusters=4).variance_name == "two_stage"
 
 

@@ -13,7 +13,8 @@ from samplewright.diagnostics.checks import cost_notes, design_notes, design_war
 from samplewright.simulation.engine import check_backend, make_cells, replicate_table, simulate, simulate_until
 from samplewright.errors import InputError
 from samplewright.evaluation.measures import summarise
-from samplewright.simulation.fieldwork import prepare as prepare_fieldwork, summary_columns
+from samplewright.evaluation.nonresponse import summary_columns
+from samplewright.simulation.fieldwork import prepare as prepare_fieldwork
 from samplewright.population.frame import Frame
 from samplewright.simulation.progress import Progress
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
@@ -238,7 +239,7 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     methods = {d.label: d.method for d in scenario.designs}
     summary = summarise(reps, truth_frame, methods, scenario.confidence)
     if field is not None:  # response, bias split and full-response columns after the contract ones
-        summary = summary_columns(summary, reps, field, scenario.confidence)
+        summary = summary_columns(summary, reps, field)
     alloc = allocation_table(frame, cells)
     from samplewright.diagnostics.frame_order import order_evidence
 

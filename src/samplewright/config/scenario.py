@@ -16,10 +16,10 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as COST_SCALARS, CostModel
-from samplewright.designs import METHODS, RENAMED_METHODS, Design
+from samplewright.designs import DESIGN_CLASSES, RENAMED_METHODS, Design
 from samplewright.errors import InputError, show
 from samplewright.estimation.auxiliary import check_estimators
-from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.population.frame import Frame
 from samplewright.population.reading import input_file, read_table, role_columns
 from samplewright.population.synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
@@ -267,9 +267,9 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
     method = as_str(table["method"], "method", ctx)
     if method in RENAMED_METHODS:
         raise InputError(f"{ctx}: method {method!r} is no longer accepted: use {RENAMED_METHODS[method]}")
-    if method not in METHODS:
-        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, METHODS)}")
-    cls = METHODS[method]
+    if method not in DESIGN_CLASSES:
+        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, DESIGN_CLASSES)}")
+    cls = DESIGN_CLASSES[method]
     check_keys(table, DESIGN_COMMON + cls.keys, ctx)
     params = {}
     for k in cls.keys:

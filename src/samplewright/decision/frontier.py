@@ -31,9 +31,8 @@ import math
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
-from samplewright.evaluation.measures import group_rows
+from samplewright.evaluation.measures import group_rows, mean_mcse, moe_mcse, normal_quantile
 
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
@@ -43,10 +42,6 @@ FRONTIER_COLUMNS = [
 
 #: MCSE (relative to the sweep's largest MSE) at or below which a point's MSE is exact: rounding error
 EXACT_MCSE = 1e-12
-
-
-def z_of(confidence: float) -> float:
-    return float(stats.norm.ppf(0.5 + confidence / 2.0))
 
 
 def cost_quantile(reps: pd.DataFrame, q: float = 0.9) -> pd.DataFrame:
@@ -71,8 +66,7 @@ def mse_mcse(reps: pd.DataFrame, summary: pd.DataFrame) -> pd.DataFrame:
     for key, idx in group_rows(reps, keys):
         sq = (x[idx] - truth.get(key, np.nan)) ** 2
         sq = sq[np.isfinite(sq)]  # domain rows: replicates without an estimate do not count
-        mcse = float(sq.std(ddof=1) / np.sqrt(len(sq))) if len(sq) > 1 else float("nan")
-        rows.append(dict(zip(keys, key), mse_mcse=mcse))
+        rows.append(dict(zip(keys, key), mse_mcse=mean_mcse(sq)))
     return pd.DataFrame(rows, columns=keys + ["mse_mcse"])
 
 
@@ -102,12 +96,11 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     """
     if len(summary) == 0:
         return pd.DataFrame(columns=FRONTIER_COLUMNS)
-    z = z_of(confidence)
+    z = normal_quantile(confidence)
     t = summary.merge(cost_quantile(reps), on=["design", "size"], how="left")
     t = t.merge(mse_mcse(reps, summary), on=["design", "size", "estimator", "variable"], how="left")
     t["moe"] = z * t["rmse"]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t["moe_mcse"] = np.where(t["rmse"] > 0, z * t["mse_mcse"] / (2.0 * t["rmse"]), 0.0)
+    t["moe_mcse"] = moe_mcse(t["mse_mcse"], t["rmse"], z)
     t["on_frontier"] = False
     for idx in t.groupby("variable", sort=False).groups.values():
         t.loc[idx, "on_frontier"] = pareto(t.loc[idx, "mean_cost"].to_numpy(), t.loc[idx, "moe"].to_numpy())
@@ -161,7 +154,7 @@ def fit_curve(size, mse, mcse) -> dict | None:
         beta0, cov = beta0 + Z @ t, Z @ cov_t @ Z.T
     a, b = beta0
     return {"a": float(a), "b": float(b), "cov": cov, "min_size": float(n.min()), "max_size": float(n.max()),
-            "points": int(len(n))}
+            "points": len(n)}
 
 
 def _basis(curve: dict, n: float) -> str:

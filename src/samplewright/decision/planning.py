@@ -53,10 +53,11 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
-from samplewright.designs.allocation import RULES, real_allocation, round_allocation, shares
+from samplewright.apportion import largest_remainder
+from samplewright.designs.allocation import RULES, real_allocation, shares
 from samplewright.errors import InputError
+from samplewright.evaluation.measures import normal_quantile
 
 
 # ------------------------------------------------------------------ argument checks
@@ -76,8 +77,7 @@ def _num(value, name: str, low=None, high=None, low_open=True, high_open=False) 
 
 def z_value(confidence: float) -> float:
     """Two-sided normal quantile z_{1 - alpha/2} for a confidence level in (0, 1)."""
-    c = _num(confidence, "confidence (--confidence)", 0.0, 1.0, high_open=True)
-    return float(stats.norm.ppf(0.5 + c / 2.0))
+    return normal_quantile(_num(confidence, "confidence (--confidence)", 0.0, 1.0, high_open=True))
 
 
 def fpc_mean(n0: float, N: float) -> float:
@@ -276,39 +276,12 @@ def allocate_strata(units, sd, cost=None, rule="neyman", n=None, budget=None, mo
     z = z_value(confidence)
     c0 = _num(fixed_cost, "fixed cost (--fixed-cost)", 0.0, low_open=False)
     N = float(N_h.sum())
-    W = N_h / N
     w = shares(rule, N_h, S_h, c_h)
     out = {"rule": rule, "confidence": float(confidence), "z": z, "fixed_cost": c0, "population": int(N)}
     if n is not None:
-        n_tot = _num(n, "n (--n)", 0.0)
-        if n_tot != int(n_tot):
-            raise InputError(f"n (--n) must be a whole number, got {n!r}")
-        if n_tot > N:
-            raise InputError(f"n (--n) = {int(n_tot)} is more than the {int(N)} units in the strata")
-        real = real_allocation(n_tot, w, N_h)
-        whole = round_allocation(int(n_tot), real, N_h)
-        out.update({"mode": "fixed_n", "n0": n_tot,
-                    "formula": "n_h = n w_h, w_h = " + _share_text(rule) + " (Cochran 1977, ch. 5)"})
+        real, whole, how = _for_fixed_n(n, w, N_h, rule)
     elif budget is not None:
-        C = _num(budget, "budget (--budget)", 0.0)
-        if C <= c0:
-            raise InputError(f"budget (--budget) = {C:g} leaves nothing for sampling after the fixed cost {c0:g}")
-
-        def total_for(free, wf):
-            left = C - c0 - float((c_h * N_h)[~free].sum())
-            return max(left, 0.0) / float((c_h * wf)[free].sum())
-
-        real, _, _ = _solve_capped(N_h, w, total_for)
-        whole = np.minimum(np.floor(real + 1e-9), N_h).astype(np.int64)
-        while True:  # spend what is left where a unit cuts the variance most per unit of cost
-            spare = C - c0 - float((c_h * whole).sum())
-            fits = (whole < N_h) & (c_h <= spare + 1e-9)
-            if not fits.any():
-                break
-            whole[_best_unit(whole, N_h, S_h, c_h, fits)] += 1
-        out.update({"mode": "budget", "budget": C, "n0": float(real.sum()),
-                    "formula": "n = (C - c0) / sum_h c_h w_h, n_h = n w_h, w_h = " + _share_text(rule)
-                               + " (Cochran 1977, eq. 5.25 for the optimal shares)"})
+        real, whole, how = _for_budget(budget, c0, w, N_h, S_h, c_h, rule)
     else:
         if moe is not None:
             E = _num(moe, "moe (--moe)", 0.0)
@@ -317,31 +290,8 @@ def allocate_strata(units, sd, cost=None, rule="neyman", n=None, budget=None, mo
         else:
             V = _num(variance, "variance", 0.0)
         out["target_variance"] = V
-        if stratum_variance(N_h, N_h, S_h) > V:  # pragma: no cover - a census has variance 0
-            raise InputError("the target variance cannot be met")
-        n0_holder = {}
-
-        def total_for(free, wf):
-            a = float(np.sum(np.where(free & (wf > 0), W**2 * S_h**2 / np.where(wf > 0, wf, 1.0), 0.0)))
-            n0 = a / V
-            n0_holder.setdefault("n0", n0)
-            return n0 / (1.0 + float((W * S_h**2)[free].sum()) / (N * V))
-
-        real, _, _ = _solve_capped(N_h, w, total_for)
-        whole = np.minimum(np.floor(real + 1e-9), N_h).astype(np.int64)
-        if S_h.sum() > 0:
-            whole = np.maximum(whole, np.where(S_h > 0, np.minimum(1, N_h), 0))
-        while stratum_variance(whole, N_h, S_h) > V * (1 + 1e-12):  # add units where they cut V most
-            whole[_best_unit(whole, N_h, S_h, c_h, whole < N_h)] += 1
-        for h in np.argsort(-c_h, kind="stable"):  # then drop units the target does not need, dearest first
-            while whole[h] > 0:
-                whole[h] -= 1
-                if stratum_variance(whole, N_h, S_h) > V * (1 + 1e-12):
-                    whole[h] += 1
-                    break
-        out.update({"mode": "target_variance", "n0": n0_holder.get("n0", 0.0),
-                    "formula": "n0 = sum_h W_h^2 S_h^2 / (w_h V); n = n0 / (1 + sum_h W_h S_h^2 / (N V)); "
-                               "n_h = n w_h, w_h = " + _share_text(rule) + " (Cochran 1977, sec. 5.5, 5.10)"})
+        real, whole, how = _for_target_variance(V, w, N_h, S_h, c_h, rule)
+    out.update(how)
     var = stratum_variance(whole, N_h, S_h)
     out.update({
         "n_real": float(real.sum()),
@@ -355,6 +305,74 @@ def allocate_strata(units, sd, cost=None, rule="neyman", n=None, budget=None, mo
                     "taken_whole": bool(whole[h] == N_h[h])} for h in range(H)],
     })
     return out
+
+
+def _for_fixed_n(n, w, N_h, rule):
+    """Real and whole allocation of a given total n, and how it was found."""
+    N = float(N_h.sum())
+    n_tot = _num(n, "n (--n)", 0.0)
+    if n_tot != int(n_tot):
+        raise InputError(f"n (--n) must be a whole number, got {n!r}")
+    if n_tot > N:
+        raise InputError(f"n (--n) = {int(n_tot)} is more than the {int(N)} units in the strata")
+    real = real_allocation(n_tot, w, N_h)
+    whole = largest_remainder(int(n_tot), real, N_h)
+    return real, whole, {"mode": "fixed_n", "n0": n_tot,
+                         "formula": "n_h = n w_h, w_h = " + _share_text(rule) + " (Cochran 1977, ch. 5)"}
+
+
+def _for_budget(budget, c0, w, N_h, S_h, c_h, rule):
+    """Real and whole allocation that a budget pays for (the cost never exceeds it), and how."""
+    C = _num(budget, "budget (--budget)", 0.0)
+    if C <= c0:
+        raise InputError(f"budget (--budget) = {C:g} leaves nothing for sampling after the fixed cost {c0:g}")
+
+    def total_for(free, wf):
+        left = C - c0 - float((c_h * N_h)[~free].sum())
+        return max(left, 0.0) / float((c_h * wf)[free].sum())
+
+    real, _, _ = _solve_capped(N_h, w, total_for)
+    whole = np.minimum(np.floor(real + 1e-9), N_h).astype(np.int64)
+    while True:  # spend what is left where a unit cuts the variance most per unit of cost
+        spare = C - c0 - float((c_h * whole).sum())
+        fits = (whole < N_h) & (c_h <= spare + 1e-9)
+        if not fits.any():
+            break
+        whole[_best_unit(whole, N_h, S_h, c_h, fits)] += 1
+    return real, whole, {"mode": "budget", "budget": C, "n0": float(real.sum()),
+                         "formula": "n = (C - c0) / sum_h c_h w_h, n_h = n w_h, w_h = " + _share_text(rule)
+                                    + " (Cochran 1977, eq. 5.25 for the optimal shares)"}
+
+
+def _for_target_variance(V, w, N_h, S_h, c_h, rule):
+    """Real and whole allocation that meets a target variance of the mean with the fewest units, and how."""
+    N = float(N_h.sum())
+    W = N_h / N
+    if stratum_variance(N_h, N_h, S_h) > V:  # pragma: no cover - a census has variance 0
+        raise InputError("the target variance cannot be met")
+    n0_holder = {}
+
+    def total_for(free, wf):
+        a = float(np.sum(np.where(free & (wf > 0), W**2 * S_h**2 / np.where(wf > 0, wf, 1.0), 0.0)))
+        n0 = a / V
+        n0_holder.setdefault("n0", n0)
+        return n0 / (1.0 + float((W * S_h**2)[free].sum()) / (N * V))
+
+    real, _, _ = _solve_capped(N_h, w, total_for)
+    whole = np.minimum(np.floor(real + 1e-9), N_h).astype(np.int64)
+    if S_h.sum() > 0:
+        whole = np.maximum(whole, np.where(S_h > 0, np.minimum(1, N_h), 0))
+    while stratum_variance(whole, N_h, S_h) > V * (1 + 1e-12):  # add units where they cut V most
+        whole[_best_unit(whole, N_h, S_h, c_h, whole < N_h)] += 1
+    for h in np.argsort(-c_h, kind="stable"):  # then drop units the target does not need, dearest first
+        while whole[h] > 0:
+            whole[h] -= 1
+            if stratum_variance(whole, N_h, S_h) > V * (1 + 1e-12):
+                whole[h] += 1
+                break
+    return real, whole, {"mode": "target_variance", "n0": n0_holder.get("n0", 0.0),
+                         "formula": "n0 = sum_h W_h^2 S_h^2 / (w_h V); n = n0 / (1 + sum_h W_h S_h^2 / (N V)); "
+                                    "n_h = n w_h, w_h = " + _share_text(rule) + " (Cochran 1977, sec. 5.5, 5.10)"}
 
 
 def _best_unit(whole, N_h, S_h, c_h, allowed) -> int:
@@ -397,7 +415,7 @@ def optimal_cluster_take(cluster_cost, unit_cost, icc, budget=None, fixed_cost=0
     c2 = _num(unit_cost, "cost per unit (--unit-cost)", 0.0)
     rho = _num(icc, "intra-cluster correlation (--icc)", 0.0, 1.0, high_open=True)
     m_opt = math.sqrt((c1 / c2) * (1.0 - rho) / rho)
-    m = max(1, int(math.floor(m_opt + 0.5)))
+    m = max(1, math.floor(m_opt + 0.5))
     out = {"cluster_cost": c1, "unit_cost": c2, "icc": rho, "m_opt": m_opt, "n0": m_opt, "n": m,
            "deff": 1.0 + (m - 1) * rho,
            "formula": "m_opt = sqrt((c1 / c2) (1 - rho) / rho) (Kish 1965, sec. 8.3); n = round(m_opt)"}

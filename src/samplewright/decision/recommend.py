@@ -19,8 +19,9 @@ from dataclasses import asdict, dataclass
 
 import pandas as pd
 
+from samplewright.decision.frontier import interpolate_goal
 from samplewright.designs import size_words
-from samplewright.decision.frontier import interpolate_goal, z_of
+from samplewright.evaluation.measures import normal_quantile
 
 #: how many Monte Carlo SEs of coverage below nominal are tolerated (see module notes)
 COVERAGE_Z = 3.0
@@ -106,7 +107,7 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float
             continue
         passed.append({"design": r["design"], "size": int(r["size"]), "estimator": r["estimator"],
                        "reason": _reason(r, goal, nominal, z_coverage, cheapest, best)})
-    interp = interpolate_goal(pts, goal.moe, goal.budget, z_of(conf))
+    interp = interpolate_goal(pts, goal.moe, goal.budget, normal_quantile(conf))
     good_designs = {(d, e) for (d, e), g in pts.groupby(["design", "estimator"]) if g["_ok"].all()}
     for row in interp:
         row["coverage_acceptable_at_every_size"] = (row["design"], row["estimator"]) in good_designs
@@ -117,7 +118,7 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float
         "interpolated": interp,
         "goal": {**asdict(goal), "variable": variable, "confidence": conf},
         "coverage_rule": f"coverage >= {nominal:g} - {z_coverage:g} x coverage_mcse",
-        "margin_rule": f"moe = {z_of(conf):.4f} x rmse (normal quantile at {conf:g})",
+        "margin_rule": f"moe = {normal_quantile(conf):.4f} x rmse (normal quantile at {conf:g})",
     }
     rec["statement"] = statement(rec, pts, nominal)
     return rec
@@ -205,5 +206,5 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
                          f"MSE = a/n + b, not simulated.")
     R = int(pts["replicates"].max()) if len(pts) else 0
     lines.append(f"Evidence: {R:,} rehearsed samples per design and size drawn from the frame; the margin is "
-                 f"{z_of(conf):.2f} x the root mean square error of the estimates around the frame's true mean.")
+                 f"{normal_quantile(conf):.2f} x the root mean square error of the estimates around the frame's true mean.")
     return " ".join(lines)

@@ -1,38 +1,19 @@
-"""Sampling designs: one small class per family, all following :class:`Design`."""
+"""Sampling designs: one small class per family, all following :class:`Design`; the registry names them."""
 
 from __future__ import annotations
-
-import math
 
 from samplewright.designs.base import Design
 from samplewright.designs.cluster import Cluster
 from samplewright.designs.poisson import Bernoulli, Poisson
 from samplewright.designs.pps import Pareto, PPSSystematic, PPSWithReplacement, Sampford
+from samplewright.designs.registry import DESIGN_CLASSES, RENAMED_METHODS, size_words
 from samplewright.designs.srs import SRS
 from samplewright.designs.strat_cluster import StratifiedCluster
 from samplewright.designs.stratified import Stratified
 from samplewright.designs.systematic import Systematic
 
-#: method name (as written in a scenario) -> design class
-METHODS: dict[str, type[Design]] = {cls.method: cls for cls in (SRS, Stratified, Systematic, Cluster)}
-METHODS.update({cls.method: cls for cls in (PPSWithReplacement, PPSSystematic, Sampford, Pareto, Poisson,
-                                            Bernoulli, StratifiedCluster)})
-#: former method names, refused with what to write instead
-RENAMED_METHODS = {"pps_wr": 'method = "pps" with replace = true'}
-
-
-def size_words(method: str, size, mean_n=None, units: str = "{} units") -> str:
-    """How a design's size is said: "6 clusters" for methods whose size counts clusters, with
-    the expected number of units beside it when ``mean_n`` is known; else ``units`` with the size."""
-    cls = METHODS.get(method)
-    if cls is None or cls.size_key != "clusters":
-        return units.format(int(size))
-    text = f"{int(size)} clusters"
-    if mean_n is not None and not math.isnan(mean_n):
-        text += f" (about {float(mean_n):.4g} units expected)"
-    return text
-
-
-__all__ = ["Design", "SRS", "Stratified", "Systematic", "Cluster", "METHODS", "RENAMED_METHODS",
-           "PPSWithReplacement", "PPSSystematic", "Sampford", "Pareto", "Poisson", "Bernoulli",
-           "StratifiedCluster", "size_words"]
+__all__ = [
+    "DESIGN_CLASSES", "RENAMED_METHODS", "SRS", "Bernoulli", "Cluster", "Design", "PPSSystematic",
+    "PPSWithReplacement", "Pareto", "Poisson", "Sampford", "Stratified", "StratifiedCluster", "Systematic",
+    "size_words",
+]

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from samplewright.apportion import largest_remainder
 from samplewright.errors import InputError
 
 RULES = ("equal", "proportional", "neyman", "optimal")
@@ -69,39 +70,6 @@ def real_allocation(n: float, w, N_h, minimum=None) -> np.ndarray:
     return alloc
 
 
-def round_allocation(n: int, real, N_h, minimum=None) -> np.ndarray:
-    """Whole-unit allocation summing to n, never above N_h nor below ``minimum``.
-
-    Largest-remainder rounding (Hamilton's method) on the capped real allocation.
-    """
-    N_h = np.asarray(N_h, dtype=np.int64)
-    lo = np.zeros_like(N_h) if minimum is None else np.minimum(np.asarray(minimum, dtype=np.int64), N_h)
-    real = np.clip(np.asarray(real, dtype=float), lo, N_h)
-    base = np.clip(np.floor(real).astype(np.int64), lo, N_h)
-    short = int(n - base.sum())
-    frac = real - base
-    while short != 0:
-        if short > 0:
-            room = base < N_h
-            cand = np.where(room, frac, -np.inf)
-            i = int(np.argmax(cand))
-            if not np.isfinite(cand[i]):
-                break
-            base[i] += 1
-            frac[i] -= 1.0
-            short -= 1
-        else:
-            room = base > lo
-            cand = np.where(room, frac, np.inf)
-            i = int(np.argmin(cand))
-            if not np.isfinite(cand[i]):
-                break
-            base[i] -= 1
-            frac[i] += 1.0
-            short += 1
-    return base
-
-
 def allocate(n: int, rule: str, N_h, S_h=None, c_h=None, minimum: int = 2) -> np.ndarray:
     """Whole-number allocation of total ``n`` to strata.
 
@@ -122,4 +90,4 @@ def allocate(n: int, rule: str, N_h, S_h=None, c_h=None, minimum: int = 2) -> np
                          f"(needs n >= {int(floor.sum())})")
     w = shares(rule, N_h, S_h, c_h)
     real = real_allocation(n, w, N_h, floor)
-    return round_allocation(n, real, N_h, floor)
+    return largest_remainder(n, real, N_h, floor)

@@ -13,6 +13,7 @@ from typing import ClassVar
 
 import numpy as np
 
+from samplewright.config.validate import closest
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.population.frame import Frame
@@ -28,6 +29,8 @@ class Design:
     keys: ClassVar[tuple[str, ...]] = ()
     #: variance estimators this design can be asked for (first is the default)
     variances: ClassVar[tuple[str, ...]] = ("psu",)
+    #: how the possible samples are counted, for exact mode's refusal of too many
+    count_text: ClassVar[str] = "possible samples"
 
     def __init__(self, label: str, **params):
         self.label = label
@@ -48,11 +51,11 @@ class Design:
         s = self.size
         return list(s) if isinstance(s, (list, tuple)) else [s]
 
-    def at(self, size: int) -> "Design":
+    def at(self, size: int) -> Design:
         """A copy of this design with a single size (one point of a sweep)."""
         return self.with_params(**{self.size_key: int(size)})
 
-    def with_params(self, **params) -> "Design":
+    def with_params(self, **params) -> Design:
         """A copy of this design with some parameters changed.
 
         Other attributes set after construction (a non-response adjustment, say) are kept; a
@@ -87,7 +90,7 @@ class Design:
 
     def stratum_allocation(self, frame: Frame):
         """Units allocated per stratum as (population_units, sample_units) arrays, or None."""
-        return None
+        return
 
     def notes(self, frame: Frame) -> list[str]:
         """Plain sentences about how the design was set up (e.g. certainty units); run.json notes."""
@@ -96,18 +99,14 @@ class Design:
     # ------------------------------------------------------------ exact mode
     def count_samples(self, frame: Frame) -> int:
         """Number of possible samples (with positive probability); see :mod:`samplewright.evaluation.exact`."""
-        from samplewright.evaluation.exact import CORE_COUNTS
-
-        if self.method in CORE_COUNTS:  # srs, stratified, systematic, cluster: counted in exact.py
-            return CORE_COUNTS[self.method](self, frame)[0]
         raise InputError(f"design {self.label!r}: exact mode is not available for method {self.method!r}")
+
+    def count_formula(self, frame: Frame) -> str:
+        """How :meth:`count_samples` counts, for the message that refuses too many samples."""
+        return self.count_text
 
     def enumerate(self, frame: Frame, chunk: int = 20_000):
         """Yield ``(SampleBlock, probabilities)`` over every possible sample, in chunks."""
-        from samplewright.evaluation.exact import CORE_ENUMERATORS
-
-        if self.method in CORE_ENUMERATORS:  # srs, stratified, systematic, cluster: enumerated in exact.py
-            return CORE_ENUMERATORS[self.method](self, frame, chunk)
         raise InputError(f"design {self.label!r}: exact mode is not available for method {self.method!r}")
 
     @property
@@ -119,8 +118,6 @@ class Design:
     def _check_variance(self) -> None:
         v = self._params.get("variance")
         if v is not None and v not in self.variances:
-            from samplewright.config.validate import closest
-
             raise InputError(f"design {self.label!r} ({self.method}): variance = {v!r} is not available "
                              f"for this method{closest(str(v), self.variances)}")
 

@@ -41,7 +41,7 @@ class SampleBlock:
     units : (B, n) int array or None
         The sampled unit indices, kept only when asked for (tests, exact mode).
     variance : str
-        Name of the variance estimator the design asks for (see ``estimators.VARIANCE``).
+        Name of the variance estimator the design asks for (see ``estimation.registry.VARIANCE_FORMULAS``).
     design_info : dict or None
         Design constants a variance routine needs beyond the block (for example the
         population sum of squared inclusion probabilities, or exact joint probabilities).

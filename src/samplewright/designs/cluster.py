@@ -2,13 +2,20 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
+from samplewright.designs.enumeration import (
+    all_combinations,
+    combination_chunks,
+    elementary_symmetric,
+    product_chunks,
+)
 from samplewright.errors import InputError
-from samplewright.estimation.two_stage_variance import one_unit_note, within_factor
-from samplewright.designs.base import Design
 
 
 class Cluster(Design):
@@ -87,6 +94,53 @@ class Cluster(Design):
         units = frame.cluster_units[frame.cluster_offsets[chosen][..., None] + pos]
         return units, valid
 
+    # ------------------------------------------------------------ exact mode
+    def count_samples(self, frame):
+        m, C = int(self.clusters), frame.C
+        k = self.take(frame)
+        if k is None:
+            return math.comb(C, m)
+        return elementary_symmetric([math.comb(int(M), min(int(M), k)) for M in frame.cluster_sizes], m)
+
+    def count_formula(self, frame):
+        m, C = int(self.clusters), frame.C
+        k = self.take(frame)
+        if k is None:
+            return f"C(clusters, m) = C({C}, {m})"
+        return f"sum over the C({C}, {m}) cluster sets of prod_c C(M_c, {k})"
+
+    def enumerate(self, frame, chunk=20_000):
+        """Every cluster subset (and, with two stages, every second-stage subset of its clusters)."""
+        m, C = int(self.clusters), frame.C
+        k = self.take(frame)
+        p1 = 1.0 / math.comb(C, m)
+        if k is None:
+            for chosen in combination_chunks(C, m, chunk):
+                yield self.block(frame, chosen), np.full(len(chosen), p1)
+            return
+        sizes_all = frame.cluster_sizes
+        subsets = {}
+        for first in combination_chunks(C, m, 1):
+            chosen = first[0]
+            take = np.minimum(sizes_all[chosen], k)
+            lists = []
+            for M, t in zip(sizes_all[chosen], take):
+                if (int(M), int(t)) not in subsets:
+                    subsets[(int(M), int(t))] = all_combinations(int(M), int(t))
+                lists.append(subsets[(int(M), int(t))])
+            p = p1 / float(np.prod([len(x) for x in lists], dtype=float))
+            offsets = frame.cluster_offsets[chosen]
+            for digits in product_chunks([len(x) for x in lists], chunk):
+                R = len(digits)
+                pos = np.zeros((R, m, k), dtype=np.int64)
+                valid = np.zeros((R, m, k), dtype=bool)
+                for j in range(m):
+                    t = int(take[j])
+                    pos[:, j, :t] = lists[j][digits[:, j]]
+                    valid[:, j, :t] = True
+                units = frame.cluster_units[offsets[None, :, None] + pos]
+                yield self.block(frame, np.broadcast_to(chosen, (R, m)), units, valid), np.full(R, p)
+
     def inclusion_probabilities(self, frame):
         p1 = int(self.clusters) / frame.C
         if self.units_per_cluster is None:
@@ -98,15 +152,38 @@ class Cluster(Design):
         return float(self.inclusion_probabilities(frame).sum())
 
 
-def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs, variance, keep_units,
-                       **fields) -> SampleBlock:
+def within_factor(variance: str, pi1, take: np.ndarray, sizes: np.ndarray, srs: bool) -> np.ndarray:
+    """Each slot's factor for its within-cluster variance term, shape of ``take``: the take-all rule and the
+    ``two_stage`` / ``ultimate_cluster`` options of :mod:`samplewright.estimation.two_stage_variance`.
+
+    ``pi1`` is the first-stage inclusion probability of each slot (scalar or array), ``take``
+    the units drawn in it, ``sizes`` its cluster size M_i, ``srs`` whether the first stage
+    is SRS with its finite population correction (else the with-replacement approximation).
+    """
+    pi1 = np.broadcast_to(np.asarray(pi1, dtype=float), take.shape)
+    own = pi1 if (variance == "two_stage" and srs) else np.zeros(take.shape)
+    return np.where(pi1 >= 1.0, 1.0, own) * (1.0 - take / sizes)
+
+
+def one_unit_note(design, certain: int, k) -> list[str]:
+    """A note when ``certain`` clusters are taken with certainty and only one unit is drawn in each:
+    their within-cluster variance, all the variance they have, cannot be estimated."""
+    if k != 1 or certain == 0:
+        return []
+    return [(f"design {design.label!r} at clusters = {design.clusters}: {certain} cluster(s) are taken with "
+             f"certainty and one unit is drawn in each, so their within-cluster variance cannot be estimated "
+             f"and is left out of the standard errors (draw 2 or more units per cluster)")]
+
+
+def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, srs, keep_units, **fields) -> SampleBlock:
     """A two-stage block laid out unit by unit (see :mod:`samplewright.estimation.two_stage_variance`).
 
     ``units`` (B, S, k) are the second-stage units of S cluster slots (``valid`` marks the
     real ones), ``sizes`` (B, S) the cluster sizes, ``w1`` (S,) or (B, S) the first-stage
-    weights (1 for a certainty cluster), ``slot_stratum`` (S,) each slot's design stratum
-    and ``fpc`` the first-stage correction per stratum; ``srs``: SRS of clusters (else the
-    with-replacement approximation for the first stage).
+    weights (1 for a certainty cluster), ``slot_stratum`` (S,) each slot's design stratum;
+    ``srs``: SRS of clusters (else the with-replacement approximation for the first stage).
+    ``fields`` are the block's other fields, among them ``fpc`` (the first-stage correction per
+    stratum) and ``variance``, which also sets each slot's within-cluster factor.
     """
     B, S, k = units.shape
     take = valid.sum(axis=2)
@@ -115,12 +192,10 @@ def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, fpc, srs
         sums=(frame.gather(units) * valid[..., None]).reshape(B, S * k, -1),
         weight=np.repeat(w1 * sizes / take, k, axis=1),
         psu_stratum=np.repeat(slot_stratum, k),
-        fpc=fpc,
         mask=None if valid.all() else valid.reshape(B, S * k),
         units=np.where(valid, units, -1).reshape(B, -1) if keep_units else None,
-        variance=variance,
         psu=np.repeat(np.arange(S), k),
-        within_fpc=within_factor(variance, 1.0 / w1, take, sizes, srs),
+        within_fpc=within_factor(fields["variance"], 1.0 / w1, take, sizes, srs),
         **fields,
     )
 

@@ -17,9 +17,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from samplewright.designs.draws import _KEY_BUDGET, distinct_positions
 from samplewright.designs.base import Design
+from samplewright.designs.block import SampleBlock
+from samplewright.designs.draws import _KEY_BUDGET, distinct_positions
 from samplewright.designs.pips import pips, size_measure, units_block
+from samplewright.errors import InputError
 
 
 def _padded(frame, inc: np.ndarray, pi: np.ndarray, keep_units: bool, variance: str):
@@ -53,8 +55,6 @@ class _IndependentDesign(Design):
     def check(self, frame):
         self._positive_int("n", self.n)
         self._check_variance()
-        from samplewright.errors import InputError
-
         if int(self.n) > frame.N:
             raise InputError(f"design {self.label!r}: expected size n = {self.n} is more than the "
                              f"{frame.N} units in the frame")
@@ -89,8 +89,6 @@ class _IndependentDesign(Design):
 
 def _concat(parts):
     """Join padded blocks of different widths along the replicate axis."""
-    from samplewright.designs.block import SampleBlock
-
     m = max(p.sums.shape[1] for p in parts)
 
     def pad(a, fill):
@@ -137,6 +135,7 @@ class Poisson(_IndependentDesign):
     """
 
     method = "poisson"
+    count_text = "2^(units with pi < 1)"
 
     def check(self, frame):
         super().check(frame)
@@ -162,6 +161,7 @@ class Bernoulli(_IndependentDesign):
     """
 
     method = "bernoulli"
+    count_text = "2^N"
 
     def inclusion_probabilities(self, frame):
         return np.full(frame.N, int(self.n) / frame.N)

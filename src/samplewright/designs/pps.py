@@ -130,6 +130,7 @@ class PPSSystematic(_SizeDesign):
     """
 
     method = "pps_systematic"
+    count_text = "distinct random starts"
 
     def _cum(self, frame):
         s = self.setup(frame)
@@ -176,6 +177,7 @@ class Sampford(_SizeDesign):
     """
 
     method = "sampford"
+    count_text = "C(units without certainty, n without certainty)"
     variances = ("hansen_hurwitz", "hartley_rao", "brewer", "sen_yates_grundy")
 
     def check(self, frame):
@@ -288,6 +290,7 @@ class PPSWithReplacement(Design):
     """
 
     method = "pps"
+    count_text = "N^n"
     keys = ("n", "replace", "variance")
     variances = ("hansen_hurwitz",)
 

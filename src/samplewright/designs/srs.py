@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions, with_replacement
+from samplewright.designs.enumeration import combination_chunks, product_chunks
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
 
 
 class SRS(Design):
@@ -36,17 +39,37 @@ class SRS(Design):
                              f"(set replace = true to sample with replacement)")
 
     def _draw(self, frame, rng, B, keep_units):
+        pos = (with_replacement if self.replace else distinct_positions)(rng, frame.N, int(self.n), (B,))
+        return self._block(frame, pos, keep_units)
+
+    def _block(self, frame, pos, keep_units):
         n, N = int(self.n), frame.N
-        pos = (with_replacement if self.replace else distinct_positions)(rng, N, n, (B,))
         return SampleBlock(
             sums=frame.gather(pos),
             weight=np.full(n, N / n),
             psu_stratum=np.zeros(n, dtype=np.int64),
             fpc=np.array([1.0 if self.replace else 1.0 - n / N]),
-            clusters=np.zeros(B),
+            clusters=np.zeros(len(pos)),
             strata=0,
             units=pos if keep_units else None,
         )
+
+    # ------------------------------------------------------------ exact mode
+    def count_samples(self, frame):
+        n, N = int(self.n), frame.N
+        return N ** n if self.replace else math.comb(N, n)
+
+    def count_formula(self, frame):
+        n, N = int(self.n), frame.N
+        return f"N^n = {N}^{n}" if self.replace else f"C(N, n) = C({N}, {n})"
+
+    def enumerate(self, frame, chunk=20_000):
+        """Every ordered draw (with replacement) or every n-subset, each equally likely."""
+        n, N = int(self.n), frame.N
+        rows = product_chunks([N] * n, chunk) if self.replace else combination_chunks(N, n, chunk)
+        p = (1.0 / N) ** n if self.replace else 1.0 / math.comb(N, n)
+        for pos in rows:
+            yield self._block(frame, pos, True), np.full(len(pos), p)
 
     def inclusion_probabilities(self, frame):
         n, N = int(self.n), frame.N

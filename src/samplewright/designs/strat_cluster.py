@@ -4,7 +4,7 @@ Method ``stratified_cluster``.  ``clusters`` (the size a sweep varies) is the to
 clusters, allocated to the strata by ``cluster_allocation``: ``equal``, ``proportional``
 (to the clusters in each stratum) or ``units`` (to the units in each stratum), at least two
 per stratum where it has them and never more than it has (``allocation.real_allocation``
-and ``round_allocation``).  Within stratum h, m_h clusters are drawn by ``selection``:
+and ``apportion.largest_remainder``).  Within stratum h, m_h clusters are drawn by ``selection``:
 
 - ``srs``: simple random sampling of clusters, pi_c = m_h / C_h;
 - ``pps``: Sampford's method with pi_c = m_h s_c / S_h, where the cluster size s_c is its
@@ -14,7 +14,7 @@ and ``round_allocation``).  Within stratum h, m_h clusters are drawn by ``select
 With ``units_per_cluster`` a second stage draws that many units by SRS in each chosen
 cluster (smaller clusters whole, with ``cap_units = true``).
 
-Variance: the shared between-PSU estimator within strata (``estimators.stratified_psu_variance``)
+Variance: the shared between-PSU estimator within strata (``estimation.variance.stratified_psu_variance``)
 on the estimated cluster totals.  With SRS of clusters the first-stage finite population
 correction 1 - m_h / C_h is applied (exact for one stage; Cochran 1977, ch. 9); with PPS no
 correction is applied (the with-replacement approximation; Sarndal, Swensson & Wretman 1992,
@@ -32,15 +32,16 @@ import math
 
 import numpy as np
 
-from samplewright.designs.allocation import real_allocation, round_allocation
+from samplewright.apportion import largest_remainder
+from samplewright.config.validate import closest
+from samplewright.designs.allocation import real_allocation
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
-from samplewright.designs.cluster import Cluster, second_stage_block
+from samplewright.designs.cluster import Cluster, one_unit_note, second_stage_block
 from samplewright.designs.draws import distinct_positions
-from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
+from samplewright.designs.enumeration import all_combinations, elementary_symmetric, product_chunks
 from samplewright.designs.pips import SampfordSampler, pips, size_measure
 from samplewright.errors import InputError
-from samplewright.estimation.two_stage_variance import one_unit_note
 
 ALLOCATIONS = ("equal", "proportional", "units")
 SELECTIONS = ("srs", "pps")
@@ -64,6 +65,7 @@ class StratifiedCluster(Design):
     """
 
     method = "stratified_cluster"
+    count_text = "prod over strata of the cluster subsets (and their second-stage subsets)"
     size_key = "clusters"
     keys = ("clusters", "cluster_allocation", "units_per_cluster", "cap_units", "selection", "cluster_size",
             "variance")
@@ -79,8 +81,6 @@ class StratifiedCluster(Design):
 
     # ------------------------------------------------------------------ checks
     def check(self, frame):
-        from samplewright.config.validate import closest
-
         self._need(frame, "cluster")
         if frame.roles.get("stratum") is None:
             raise InputError(f"design {self.label!r} (stratified_cluster) needs a stratum column: "
@@ -130,7 +130,7 @@ class StratifiedCluster(Design):
                 "units": frame.N_h.astype(float)}[self.cluster_allocation]
         w = np.where(C_h > 0, base, 0.0)
         floor = np.minimum(2, C_h)
-        m_h = round_allocation(m, real_allocation(m, w / w.sum(), C_h, floor), C_h, floor)
+        m_h = largest_remainder(m, real_allocation(m, w / w.sum(), C_h, floor), C_h, floor)
         M = frame.cluster_sizes
         if self.selection == "pps":
             s_c = M.astype(float) if self.cluster_size == "units" else np.bincount(
@@ -242,7 +242,7 @@ class StratifiedCluster(Design):
         for g in self.setup(frame)["groups"]:
             if g["m"] == 0:
                 continue
-            rows = np.concatenate(list(combination_chunks(g["free"].size, g["m"], 100_000)))
+            rows = all_combinations(g["free"].size, g["m"])
             if self.selection == "pps":  # Sampford (1967): p(s) ∝ (m - sum_s pi) prod_s pi / (1 - pi)
                 pi = g["pi"]
                 logw = (np.log(pi) - np.log1p(-pi))[rows].sum(axis=1) + np.log(g["m"] - pi[rows].sum(axis=1))
@@ -281,7 +281,7 @@ class StratifiedCluster(Design):
 
         def combos(size, take):
             if (size, take) not in subsets:
-                subsets[(size, take)] = np.concatenate(list(combination_chunks(size, take, 100_000)))
+                subsets[(size, take)] = all_combinations(size, take)
             return subsets[(size, take)]
 
         for digits in firsts:

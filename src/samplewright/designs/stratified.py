@@ -2,13 +2,16 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from samplewright.designs.allocation import RULES, allocate
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
+from samplewright.designs.enumeration import all_combinations, product_chunks
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
 
 
 class Stratified(Design):
@@ -101,6 +104,33 @@ class Stratified(Design):
             strata=int((n_h > 0).sum()),
             units=units if keep_units else None,
         )
+
+    # ------------------------------------------------------------ exact mode
+    def count_samples(self, frame):
+        return math.prod(math.comb(N, k) for N, k in self._sampled_strata(frame))
+
+    def count_formula(self, frame):
+        parts = self._sampled_strata(frame)
+        shown = " x ".join(f"C({N}, {k})" for N, k in parts[:4]) + (" x ..." if len(parts) > 4 else "")
+        return f"prod_h C(N_h, n_h) = {shown}"
+
+    def _sampled_strata(self, frame):
+        return [(int(N), int(k)) for N, k in zip(frame.N_h, self.n_h(frame)) if k > 0]
+
+    def enumerate(self, frame, chunk=20_000):
+        """Every combination of one n_h-subset per stratum, each equally likely."""
+        n_h, N_h = self.n_h(frame), frame.N_h
+        strata = np.flatnonzero(n_h)
+        lists = [all_combinations(int(N_h[h]), int(n_h[h])) for h in strata]
+        psu_stratum = np.repeat(strata, n_h[strata])
+        p = 1.0 / float(np.prod([len(x) for x in lists], dtype=float))
+        for digits in product_chunks([len(x) for x in lists], chunk):
+            units = np.concatenate([frame.strata_units[frame.strata_offsets[h] + lists[j][digits[:, j]]]
+                                    for j, h in enumerate(strata)], axis=1)
+            yield SampleBlock(sums=frame.gather(units), weight=(N_h / np.maximum(n_h, 1))[psu_stratum],
+                              psu_stratum=psu_stratum, fpc=1.0 - n_h / N_h, clusters=np.zeros(len(units)),
+                              strata=int(strata.size), units=units, variance=self.variance_name), \
+                np.full(len(units), p)
 
     def inclusion_probabilities(self, frame):
         return (self.n_h(frame) / frame.N_h)[frame.stratum]

@@ -3,11 +3,14 @@ random starts, optionally after sorting the list by a column (implicit stratific
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
+from samplewright.config.validate import closest
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
 
 KINDS = ("linear", "circular")
 
@@ -38,7 +41,7 @@ class Systematic(Design):
     variance : {"srs", "successive_differences", "between_starts"}
         ``srs`` (default): the SRS formula (1 - f) s^2 / n, the usual practice, biased when the
         list order has structure (Cochran 1977, ch. 8).  ``successive_differences``: Wolter's
-        v3 on the units in list order (see :func:`samplewright.estimation.estimators.successive_difference_variance`).
+        v3 on the units in list order (see :func:`samplewright.estimation.systematic_variance.successive_difference_variance`).
         ``between_starts``: the r start samples are the PSUs (needs starts >= 2).
 
     Notes
@@ -63,6 +66,7 @@ class Systematic(Design):
     method = "systematic"
     keys = ("n", "kind", "starts", "sort_by", "variance")
     variances = ("srs", "successive_differences", "between_starts")
+    count_text = "distinct random starts"
 
     def __init__(self, label: str, n, kind: str = "linear", starts: int = 1, sort_by: str | None = None,
                  variance: str = "srs"):
@@ -70,8 +74,6 @@ class Systematic(Design):
 
     # ------------------------------------------------------------------ checks
     def check(self, frame):
-        from samplewright.config.validate import closest
-
         n = self._positive_int("n", self.n)
         if n > frame.N:
             raise InputError(f"design {self.label!r}: n = {n} is more than the {frame.N} units in the frame")
@@ -146,16 +148,50 @@ class Systematic(Design):
             variance=variance,
         )
 
+    # ------------------------------------------------------------------ exact mode
+    def _distinct_starts(self, frame):
+        """Midpoints and lengths (as shares of k) of the start intervals in [0, k) that give distinct samples."""
+        n, N = int(self.n), frame.N
+        k = N / n
+        j = np.arange(n)
+        # the sample changes where u + j k crosses an integer: u = c - j k for whole c
+        cuts = [np.arange(math.ceil(jj * k), math.floor(jj * k + k) + 1) - jj * k for jj in j]
+        br = np.unique(np.concatenate([[0.0, k], *cuts]))
+        br = br[(br >= 0) & (br <= k)]
+        lo, hi = br[:-1], br[1:]
+        keep = hi - lo > 1e-12 * k
+        return (lo[keep] + hi[keep]) / 2.0, (hi[keep] - lo[keep]) / k
+
+    def _check_enumerable(self):
+        if self.kind != "linear" or int(self.starts) != 1:
+            raise InputError(f"design {self.label!r}: exact mode covers linear systematic sampling with one start "
+                             f"(kind = \"linear\", starts = 1)")
+
+    def count_samples(self, frame):
+        return len(self._distinct_starts(frame)[0])
+
+    def enumerate(self, frame, chunk=20_000):
+        """Linear systematic sampling with one random start: one sample per distinct start interval."""
+        self._check_enumerable()
+        n, N = int(self.n), frame.N
+        k = N / n
+        order = self.list_order(frame)
+        mid, prob = self._distinct_starts(frame)
+        for a in range(0, mid.size, chunk):
+            u = mid[a:a + chunk]
+            pos = np.minimum(np.floor(u[:, None] + np.arange(n)[None, :] * k).astype(np.int64), N - 1)
+            units = order[pos]
+            yield SampleBlock(sums=frame.gather(units), weight=np.full(n, N / n),
+                              psu_stratum=np.zeros(n, dtype=np.int64), fpc=np.array([1.0 - n / N]),
+                              clusters=np.zeros(len(u)), strata=0, units=units, variance=self.variance_name), \
+                prob[a:a + chunk]
+
     # ------------------------------------------------------------------ probabilities
     def inclusion_probabilities(self, frame):
         n, N, r = int(self.n), frame.N, int(self.starts)
         if r == 1:
             return np.full(N, n / N)
         return np.full(N, 1.0 - (1.0 - n / (r * N)) ** r)
-
-    def expected_hits(self, frame) -> np.ndarray:
-        """Expected number of times each unit is selected (n / N; equals pi_i for one start)."""
-        return np.full(frame.N, int(self.n) / frame.N)
 
     def expected_n(self, frame):
         """Selections per sample: exactly n (with several starts a unit may be selected twice)."""

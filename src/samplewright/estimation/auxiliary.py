@@ -2,13 +2,13 @@
 
 Every estimator here works on any :class:`~samplewright.designs.block.SampleBlock`, whatever design
 drew it: it needs only the PSU sums of the frame's value columns (see
-:mod:`samplewright.population.layout`) and the frame's known totals, passed as the ``ctx`` argument
+:mod:`samplewright.population.layout`) and the frame's known totals, passed as the ``layout`` argument
 (the frame's :class:`~samplewright.population.layout.Layout`).  Each one is a *core* that returns, for
 every extended target e (the targets and, per domain, its indicator and the products y d),
 the estimated total T_e and the linearised PSU totals u_ie whose design variance estimates
 the variance of T_e; one finishing step turns them into means of the targets and of the
-domains, standard errors (through the design's variance routine
-``estimators.VARIANCE[block.variance]``) and t intervals.
+domains, standard errors (through the design's variance formula, handed in as ``variance``
+by :mod:`samplewright.estimation.registry`) and t intervals.
 
 Notes
 -----
@@ -51,58 +51,59 @@ import numpy as np
 
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS, VARIANCE, Estimates, _interval, degrees_of_freedom
+from samplewright.estimation.gram import least_squares
+from samplewright.estimation.intervals import Estimates, finish
+from samplewright.estimation.poststratify import cell_factors, cell_means
 from samplewright.population.frame import COUNT
-from samplewright.estimation.gram import gram_pinv, gram_solve
 from samplewright.population.layout import Layout
 
 
 # ------------------------------------------------------------------ cores
 def _ht(z, Z, N, L: Layout):
-    return Z[:, L.ext], z[..., L.ext]
+    return Z[:, L.extended], z[..., L.extended]
 
 
 def _hajek(z, Z, N, L: Layout):
     nhat = Z[:, COUNT]
-    ybar = Z[:, L.ext] / nhat[:, None]
-    lin = (z[..., L.ext] - ybar[:, None, :] * z[..., COUNT][..., None]) * (N / nhat)[:, None, None]
+    ybar = Z[:, L.extended] / nhat[:, None]
+    lin = (z[..., L.extended] - ybar[:, None, :] * z[..., COUNT][..., None]) * (N / nhat)[:, None, None]
     return N * ybar, lin
 
 
 def _ratio(z, Z, N, L: Layout):
     x = L.aux[0]
-    R = Z[:, L.ext] / Z[:, x][:, None]
-    return R * L.X[0], z[..., L.ext] - R[:, None, :] * z[..., x][..., None]
+    R = Z[:, L.extended] / Z[:, x][:, None]
+    return R * L.X[0], z[..., L.extended] - R[:, None, :] * z[..., x][..., None]
 
 
 def _model_index(L: Layout):
-    """Column indices of x~ x~' (k, k) and x~ e (k, E) for x~ = (1, x_1..x_A)."""
+    """Column indices of x~ x~' (k, k), the model's Gram matrix, and of x~ e (k, E), its moments with
+    the extended targets e, for x~ = (1, x_1..x_A)."""
     cnt = np.int64(COUNT)
-    XX = np.empty((L.A + 1, L.A + 1), dtype=np.int64)
-    XX[0, 0] = cnt
-    XX[0, 1:] = XX[1:, 0] = L.aux
-    XX[1:, 1:] = L.xx
-    XE = np.vstack([L.ext[None, :], L.xe])
-    return XX, XE
+    gram_cols = np.empty((L.A + 1, L.A + 1), dtype=np.int64)
+    gram_cols[0, 0] = cnt
+    gram_cols[0, 1:] = gram_cols[1:, 0] = L.aux
+    gram_cols[1:, 1:] = L.aux_products
+    moment_cols = np.vstack([L.extended[None, :], L.aux_target_products])
+    return gram_cols, moment_cols
 
 
 def _greg(z, Z, N, L: Layout):
-    XX, XE = _model_index(L)
-    M = Z[:, XX]  # (B, k, k)
-    C = Z[:, XE]  # (B, k, E)
-    Minv, plain = gram_pinv(M)  # a constant or repeated auxiliary gets coefficient 0 (see gram.py)
-    Bhat = gram_solve(M, C, Minv, plain)  # (B, k, E)
+    gram_cols, moment_cols = _model_index(L)
+    M = Z[:, gram_cols]  # (B, k, k)
+    C = Z[:, moment_cols]  # (B, k, E)
+    Bhat, Minv = least_squares(M, C)  # (B, k, E); a constant or repeated auxiliary gets coefficient 0
     total = np.concatenate([[float(N)], L.X])  # (k,)
     diff = total[None, :] - M[:, 0, :]  # known minus estimated totals of x~
-    T = Z[:, L.ext] + np.einsum("bk,bke->be", diff, Bhat)
+    T = Z[:, L.extended] + np.einsum("bk,bke->be", diff, Bhat)
     lam = np.einsum("bkj,bj->bk", Minv, diff)  # g_k = 1 + lam' x~_k
     # u_i = sum_{k in i} w_k g_k e_k = s_e - s_x' B + lam' (s_xe - s_xx B), with s_. the PSU's
     # weighted sums; a loop over the k (few) model terms keeps every temporary (B, m, E)
-    u = z[..., L.ext].copy()
-    for a in range(XX.shape[0]):
-        s_xB = sum(z[..., XX[a, j]][..., None] * Bhat[:, None, j, :] for j in range(XX.shape[0]))
-        u -= z[..., XX[0, a]][..., None] * Bhat[:, None, a, :]
-        u += lam[:, None, a, None] * (z[..., XE[a]] - s_xB)
+    u = z[..., L.extended].copy()
+    for a in range(gram_cols.shape[0]):
+        s_xB = sum(z[..., gram_cols[a, j]][..., None] * Bhat[:, None, j, :] for j in range(gram_cols.shape[0]))
+        u -= z[..., gram_cols[0, a]][..., None] * Bhat[:, None, a, :]
+        u += lam[:, None, a, None] * (z[..., moment_cols[a]] - s_xB)
     return T, u
 
 
@@ -110,16 +111,15 @@ def _poststrat(z, Z, N, L: Layout):
     nhat_q = Z[:, L.post]  # (B, P)
     empty = nhat_q <= 0
     nhat = Z[:, COUNT]
-    ybar = Z[:, L.ext] / nhat[:, None]  # Hajek mean, for empty post-strata
-    with np.errstate(divide="ignore", invalid="ignore"):
-        mean_q = np.where(empty[..., None], ybar[:, None, :], Z[:, L.pe] / nhat_q[..., None])  # (B, P, E)
-        g = np.where(empty, 0.0, L.N_p[None, :] / nhat_q)  # (B, P)
+    ybar = Z[:, L.extended] / nhat[:, None]  # Hajek mean, for empty post-strata
+    mean_q = cell_means(Z[:, L.post_target_products], nhat_q, ybar)  # (B, P, E)
+    g = cell_factors(L.N_p[None, :], nhat_q)  # (B, P)
     T = np.einsum("q,bqe->be", L.N_p, mean_q)
-    u = (np.einsum("bq,bmqe->bme", g, z[..., L.pe])
+    u = (np.einsum("bq,bmqe->bme", g, z[..., L.post_target_products])
          - np.einsum("bq,bqe,bmq->bme", g, mean_q, z[..., L.post]))
     n_empty = (empty * L.N_p[None, :]).sum(axis=1)  # units of the empty post-strata
     if np.any(n_empty):
-        u = u + (n_empty / nhat)[:, None, None] * (z[..., L.ext] - ybar[:, None, :] * z[..., COUNT][..., None])
+        u = u + (n_empty / nhat)[:, None, None] * (z[..., L.extended] - ybar[:, None, :] * z[..., COUNT][..., None])
     return T, u
 
 
@@ -130,34 +130,37 @@ NEEDS = {"ratio": "auxiliary", "greg": "auxiliary", "poststrat": "poststratum"}
 
 
 # ------------------------------------------------------------------ finishing step
-def estimate(name: str, block: SampleBlock, N: int, confidence: float, ctx: Layout) -> Estimates:
-    """Means of every output variable of ``ctx`` (targets, then domains) by estimator ``name``.
+def estimate(name: str, block: SampleBlock, N: int, confidence: float, layout: Layout, *, variance) -> Estimates:
+    """Means of every output variable of ``layout`` (targets, then domains) by estimator ``name``.
+
+    ``variance`` (z (B, m, V), block) -> (B, V) is the design's variance formula of a total.
 
     Examples
     --------
     >>> import numpy as np, pandas as pd
     >>> from samplewright import Frame
     >>> from samplewright.designs import SRS
+    >>> from samplewright.estimation.variance import stratified_psu_variance
     >>> df = pd.DataFrame({"y": np.arange(1.0, 41.0), "x": np.arange(1.0, 41.0) + 0.5})
     >>> f = Frame.from_dataframe(df, target="y", auxiliary=["x"])
     >>> blk = SRS("s", n=10).draw(f, np.random.default_rng(3), B=2)
-    >>> out = estimate("greg", blk, f.N, 0.95, f.layout)
+    >>> out = estimate("greg", blk, f.N, 0.95, f.layout, variance=stratified_psu_variance)
     >>> np.allclose(out.estimate, 20.5)   # y is exactly linear in x: GREG has no error
     True
     """
-    if ctx is None:
-        raise InputError(f"estimator {name!r} needs the frame's known totals (its Layout) as ctx")
-    V = ctx.V
+    if layout is None:
+        raise InputError(f"estimator {name!r} needs the frame's known totals (its Layout)")
+    V = layout.V
     z = block.weighted()
     Z = z.sum(axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        T, u = CORES[name](z, Z, N, ctx)
+        T, u = CORES[name](z, Z, N, layout)
         means = [T[:, :V] / N]
         lins = [u[..., :V] / N]
-        for j in range(ctx.D):
-            c, yd = ctx.domain_columns(j)
+        for j in range(layout.D):
+            c, yd = layout.domain_columns(j)
             if name == "ht":
-                size = np.full(T.shape[0], ctx.N_d[j])
+                size = np.full(T.shape[0], layout.N_d[j])
                 m = T[:, yd] / size[:, None]
                 lin = u[..., yd]
             else:
@@ -170,33 +173,34 @@ def estimate(name: str, block: SampleBlock, N: int, confidence: float, ctx: Layo
         lin = np.concatenate(lins, axis=2)
         if block.mask is not None:
             lin = np.where(block.mask[..., None], lin, 0.0)
-        var = VARIANCE[block.variance](lin, block)
+        var = variance(lin, block)
         se = np.sqrt(np.maximum(var, 0.0))
         se = np.where(np.isfinite(est), se, np.nan)
-    df = degrees_of_freedom(block)
-    lo, hi = _interval(est, se, df, confidence)
-    return Estimates(est, se, lo, hi, df)
+    return finish(est, se, block, confidence)
 
 
-def ratio(block: SampleBlock, N: int, V: int, confidence: float, ctx: Layout | None = None) -> Estimates:
+def ratio(block: SampleBlock, N: int, V: int, confidence: float, layout: Layout | None = None, *,
+          variance) -> Estimates:
     """Ratio estimator of the mean on the first auxiliary, with its linearised SE (see module notes)."""
-    _need(ctx, "ratio", ctx is not None and ctx.A > 0, "an auxiliary column")
-    return estimate("ratio", block, N, confidence, ctx)
+    _need("ratio", layout is not None and layout.A > 0, "an auxiliary column")
+    return estimate("ratio", block, N, confidence, layout, variance=variance)
 
 
-def greg(block: SampleBlock, N: int, V: int, confidence: float, ctx: Layout | None = None) -> Estimates:
+def greg(block: SampleBlock, N: int, V: int, confidence: float, layout: Layout | None = None, *,
+         variance) -> Estimates:
     """GREG estimator of the mean (intercept and every auxiliary), g-weighted SE (see module notes)."""
-    _need(ctx, "greg", ctx is not None, "the frame's known totals")
-    return estimate("greg", block, N, confidence, ctx)
+    _need("greg", layout is not None, "the frame's known totals")
+    return estimate("greg", block, N, confidence, layout, variance=variance)
 
 
-def poststrat(block: SampleBlock, N: int, V: int, confidence: float, ctx: Layout | None = None) -> Estimates:
+def poststrat(block: SampleBlock, N: int, V: int, confidence: float, layout: Layout | None = None, *,
+              variance) -> Estimates:
     """Post-stratified estimator of the mean with its linearised SE (see module notes)."""
-    _need(ctx, "poststrat", ctx is not None and ctx.P > 0, "a poststratum column")
-    return estimate("poststrat", block, N, confidence, ctx)
+    _need("poststrat", layout is not None and layout.P > 0, "a poststratum column")
+    return estimate("poststrat", block, N, confidence, layout, variance=variance)
 
 
-def _need(ctx, name, ok, what):
+def _need(name, ok, what):
     if not ok:
         raise InputError(f"estimator {name!r} needs {what}: set it in [frame]")
 
@@ -209,5 +213,3 @@ def check_estimators(estimators, roles: dict, where: str) -> None:
             key = "auxiliary = [\"column\", ...]" if need == "auxiliary" else "poststratum = \"column\""
             raise InputError(f"{where}: estimator {e!r} needs {need} data: set {key} in [frame]")
 
-
-ESTIMATORS.update({"ratio": ratio, "greg": greg, "poststrat": poststrat})

@@ -18,6 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from samplewright.config.validate import closest
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units, sampled_unit_cost
@@ -75,8 +76,6 @@ class CostModel:
         """Refuse stratum labels of ``per_unit_by_stratum`` the frame does not have."""
         if not self.per_unit_by_stratum:
             return
-        from samplewright.config.validate import closest
-
         if frame.roles.get("stratum") is None:
             raise InputError("[cost.per_unit_by_stratum] gives costs by stratum but the frame has no stratum "
                              "column (set stratum = \"column\" in [frame])")

@@ -103,3 +103,10 @@ def gram_solve(M: np.ndarray, C: np.ndarray, Minv: np.ndarray, plain: np.ndarray
     if bad.any():
         X[bad] += Minv[bad] @ (C[bad] - M[bad] @ X[bad])
     return X
+
+
+def least_squares(M: np.ndarray, C: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The regression fit shared by GREG and raking: coefficients solving M b = C (B, p, E) on M's
+    independent columns (0 for the others), and the inverse of M used (see module notes)."""
+    Minv, plain = gram_pinv(M)
+    return gram_solve(M, C, Minv, plain), Minv

@@ -1,4 +1,4 @@
-"""Variance estimators for size-proportional designs, registered in ``estimators.VARIANCE``.
+"""Variance estimators for size-proportional designs (named in :mod:`samplewright.estimation.registry`).
 
 Each routine takes the PSU values ``z`` (B, m, V) -- already expanded, z_i = y_i / pi_i,
 or their linearised form for the Hajek mean -- and the block, and returns the estimated

@@ -1,4 +1,4 @@
-"""Variance estimators for systematic samples, registered in ``estimators.VARIANCE``.
+"""Variance estimators for systematic samples (named in :mod:`samplewright.estimation.registry`).
 
 Each takes the PSU values ``z`` (B, m, V) -- expanded totals z_i = w_i y_i, or their
 linearised form for the Hajek mean -- and the block, and returns the estimated variance of
@@ -40,6 +40,7 @@ from __future__ import annotations
 import numpy as np
 
 from samplewright.designs.block import SampleBlock
+from samplewright.estimation.variance import stratified_psu_variance
 
 
 def successive_difference_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
@@ -67,6 +68,4 @@ def successive_difference_variance(z: np.ndarray, block: SampleBlock) -> np.ndar
 
 def between_start_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     """Random-group (between-start) variance of the estimated total; see module notes."""
-    from samplewright.estimation.estimators import stratified_psu_variance
-
     return stratified_psu_variance(z, block)

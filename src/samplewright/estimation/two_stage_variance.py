@@ -1,10 +1,11 @@
-"""Variance estimators for two-stage cluster samples, registered in ``estimators.VARIANCE``.
+"""Variance estimators for two-stage cluster samples (named in :mod:`samplewright.estimation.registry`).
 
 A two-stage design (``cluster`` or ``stratified_cluster`` with ``units_per_cluster``) lays
 its block out unit by unit: each position is one second-stage unit, ``SampleBlock.psu``
 names the cluster (first-stage unit, "slot") it belongs to, ``psu_stratum`` and ``fpc``
 describe the first stage (design stratum of the slot, 1 - m_h / C_h) and
-``SampleBlock.within_fpc`` holds each slot's factor for its within-cluster term.  The
+``SampleBlock.within_fpc`` holds each slot's factor for its within-cluster term (set at draw
+time by :func:`samplewright.designs.cluster.within_factor`).  The
 estimators' linearised values are formed unit by unit, so every estimator (HT, Hajek,
 ratio, GREG, post-stratified, domains) gets the same two-stage formula.
 
@@ -55,28 +56,7 @@ import dataclasses
 import numpy as np
 
 from samplewright.designs.block import SampleBlock
-
-
-def within_factor(variance: str, pi1, take: np.ndarray, sizes: np.ndarray, srs: bool) -> np.ndarray:
-    """Each slot's factor for its within-cluster term (see module notes), shape of ``take``.
-
-    ``pi1`` is the first-stage inclusion probability of each slot (scalar or array), ``take``
-    the units drawn in it, ``sizes`` its cluster size M_i, ``srs`` whether the first stage
-    is SRS with its finite population correction (else the with-replacement approximation).
-    """
-    pi1 = np.broadcast_to(np.asarray(pi1, dtype=float), take.shape)
-    own = pi1 if (variance == "two_stage" and srs) else np.zeros(take.shape)
-    return np.where(pi1 >= 1.0, 1.0, own) * (1.0 - take / sizes)
-
-
-def one_unit_note(design, certain: int, k) -> list[str]:
-    """A note when ``certain`` clusters are taken with certainty and only one unit is drawn in each:
-    their within-cluster variance, all the variance they have, cannot be estimated."""
-    if k != 1 or certain == 0:
-        return []
-    return [(f"design {design.label!r} at clusters = {design.clusters}: {certain} cluster(s) are taken with "
-             f"certainty and one unit is drawn in each, so their within-cluster variance cannot be estimated "
-             f"and is left out of the standard errors (draw 2 or more units per cluster)")]
+from samplewright.estimation.variance import psu_counts, stratified_psu_variance
 
 
 def _slot_starts(block: SampleBlock) -> np.ndarray:
@@ -112,8 +92,6 @@ def two_stage_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     """Two-stage variance of the estimated total (``two_stage`` or ``ultimate_cluster``, by the
     block's ``within_fpc``); see module notes.  A one-stage block (no ``psu``) has no second
     stage: the clusters are its PSUs and the between-PSU routine is the whole estimator."""
-    from samplewright.estimation.estimators import stratified_psu_variance
-
     if block.psu is None:
         return stratified_psu_variance(z, block)
     Z, first = _first_stage(z, block)
@@ -122,8 +100,6 @@ def two_stage_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
 
 def degrees_of_freedom(block: SampleBlock) -> np.ndarray:
     """Clusters minus strata, with units minus clusters in take-all strata (see module notes)."""
-    from samplewright.estimation.estimators import psu_counts
-
     starts = _slot_starts(block)
     first = dataclasses.replace(block, sums=block.sums[:, starts, :0], psu_stratum=block.psu_stratum[starts],
                                 mask=None, psu=None, within_fpc=None)

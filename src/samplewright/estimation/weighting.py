@@ -59,9 +59,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from samplewright.errors import InputError
-from samplewright.estimation.gram import gram_pinv, gram_solve
+from samplewright.estimation.gram import least_squares
+from samplewright.estimation.poststratify import cell_factors, cell_means
 
-METHODS = ("none", "class", "poststrat", "raking")
+ADJUSTMENT_METHODS = ("none", "class", "poststrat", "raking")
 DESIGN_KEYS = ("adjustment", "adjustment_classes", "raking_margins")
 #: relative tolerance on every raking margin (a tenth of the 1e-9 promised, so that rounding in
 #: the estimate cannot take a met margin past it), and the cycle cap
@@ -110,8 +111,8 @@ def adjustment_from_table(table: dict, ctx: str) -> AdjustmentSpec:
     from samplewright.config.validate import closest
 
     method = as_str(table.get("adjustment", "none"), "adjustment", ctx)
-    if method not in METHODS:
-        raise InputError(f"{ctx}: adjustment {method!r} is not known{closest(method, METHODS)}")
+    if method not in ADJUSTMENT_METHODS:
+        raise InputError(f"{ctx}: adjustment {method!r} is not known{closest(method, ADJUSTMENT_METHODS)}")
     classes = table.get("adjustment_classes")
     if classes is not None:
         classes = as_str(classes, "adjustment_classes", ctx)
@@ -269,17 +270,17 @@ class ResolvedAdjustment:
         ok = Nrc > 0
         tot_r = wr.sum(axis=(1, 2))
         ybar_r = (wr[..., None] * y).sum(axis=(1, 2)) / np.where(tot_r > 0, tot_r, np.nan)[:, None]
-        ybar_c = np.where(ok[..., None], trc / np.where(ok, Nrc, 1.0)[..., None], ybar_r[:, None, :])
+        ybar_c = cell_means(trc, Nrc, ybar_r)
         yb = _pick(ybar_c, c)
         if self.method == "class":
             failed = ((Nc > 0) & ~ok).any(axis=1)
-            a = np.where(ok, Nc / np.where(ok, Nrc, 1.0), 0.0)
+            a = cell_factors(Nc, Nrc)
             u = we[..., None] * yb + (wr * _pick(a, c))[..., None] * (y - yb)
             return u.sum(axis=2), we.sum(axis=2), failed
         N = self.controls[0]
         failed = ((N[None, :] > 0) & ~ok).any(axis=1)
         t = (N[None, :, None] * ybar_c).sum(axis=1)  # (B, V)
-        a = np.where(ok, N[None, :] / np.where(ok, Nrc, 1.0), 0.0)
+        a = cell_factors(N[None, :], Nrc)
         u = ((wr * _pick(a, c))[..., None] * (y - yb)).sum(axis=2) + t[:, None, :] * share[..., None]
         return u, float(N.sum()) * share, failed
 
@@ -295,5 +296,5 @@ class ResolvedAdjustment:
                 block = group_sums(ci * Gj + cj, g, Gi * Gj).reshape(B, Gi, Gj)
                 xtx[:, offsets[i]:offsets[i + 1], offsets[j]:offsets[j + 1]] = block
         xty = np.concatenate([_by_group(c, g[..., None] * yy, G) for c, G in zip(codes, self.sizes)], axis=1)
-        beta = gram_solve(xtx, xty, *gram_pinv(xtx))  # (B, p, V); later margins repeat the intercept
+        beta, _ = least_squares(xtx, xty)  # (B, p, V); later margins repeat the intercept
         return sum(_pick(beta[:, offsets[i]:offsets[i + 1], :], c) for i, c in enumerate(codes))

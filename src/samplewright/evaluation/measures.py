@@ -8,7 +8,13 @@ estimates x_r, estimated standard errors s_r and true value T:
 - empirical SE = sd(x) (divisor R - 1),    MCSE = empSE / sqrt(2 (R - 1))
 - model (mean estimated) SE = sqrt(mean(s_r^2))
 - coverage = share of intervals holding T, MCSE = sqrt(c (1 - c) / R)
-- RMSE = sqrt(mean((x - T)^2))
+- RMSE = sqrt(mean((x - T)^2));            MSE's MCSE = sd((x - T)^2) / sqrt(R), and the margin of
+  error z RMSE has MCSE z MCSE(MSE) / (2 RMSE) (delta method)
+- the mean of any replicate quantity d (e.g. paired differences), MCSE = sd(d) / sqrt(R)
+
+Every other module (exact mode, the stopping rules, the non-response columns, the frontier)
+computes these through the functions here; exact mode passes each sample's probability, which
+replaces the mean over replicates by the expectation under the design.
 
 The design effect is Kish's: the design's empirical variance over the exact variance of the
 SRS-without-replacement mean at the same mean sample size (Kish 1965, sec. 8.2).  The
@@ -32,13 +38,18 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from samplewright.population.frame import Frame
+from samplewright.population.frame import Frame, srs_variance_of_mean
 
 SUMMARY_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "truth", "mean_estimate", "bias",
     "bias_mcse", "relative_bias", "empirical_se", "empirical_se_mcse", "rmse", "mean_se", "se_ratio", "deff",
     "coverage", "coverage_mcse", "mean_ci_width", "moe", "mean_n", "mean_cost",
 ]
+
+
+def normal_quantile(confidence: float) -> float:
+    """z_{1 - alpha/2} of a two-sided interval at ``confidence`` (the margin of error's multiplier)."""
+    return float(stats.norm.ppf(0.5 + confidence / 2.0))
 
 
 #: relative rounding slack of :func:`holds` (a zero-width census interval is its estimate, rounded)
@@ -77,7 +88,7 @@ def srs_variance(mean_n: float, N: int, S2: float) -> float:
     """Variance of the SRS-without-replacement mean at size ``mean_n`` (Cochran 1977, eq. 2.8); 0 for a census."""
     if not mean_n > 0:
         return float("nan")
-    return (1.0 - mean_n / N) * S2 / mean_n if mean_n < N else 0.0
+    return srs_variance_of_mean(mean_n, N, S2) if mean_n < N else 0.0
 
 
 def design_effect(emp_se: float, srs_var: float, scale: float) -> float:
@@ -85,32 +96,110 @@ def design_effect(emp_se: float, srs_var: float, scale: float) -> float:
     return _ratio(emp_se**2, srs_var, _zero(emp_se, scale), srs_var <= 0)
 
 
+# ------------------------------------------------------------------ the measures (Table 6)
+# Each takes replicate arrays along axis 0; ``p``, where given, holds each replicate's probability
+# (exact mode: the design distribution replaces the empirical one).
+def expectation(values, p=None):
+    """Mean over replicates, or the probability-weighted sum in exact mode."""
+    return np.mean(values) if p is None else p @ values
+
+
+def empirical_variance(x, p=None, mean=None):
+    """Variance of the estimates: divisor R - 1 over replicates (NaN below two), or exact under ``p``."""
+    if p is None:
+        return np.var(x, ddof=1) if len(x) > 1 else float("nan")
+    return p @ (x - mean) ** 2
+
+
+def rmse(x, truth, p=None):
+    """Root mean squared error, sqrt(mean((x - T)^2))."""
+    return np.sqrt(expectation((x - truth) ** 2, p))
+
+
+def model_se(se, p=None):
+    """Mean estimated SE as the root mean square of the SEs, sqrt(mean(s^2))."""
+    return np.sqrt(expectation(se**2, p))
+
+
+def coverage(lower, upper, truth, p=None):
+    """Share of intervals that hold the truth (up to rounding, :func:`holds`)."""
+    return expectation(holds(lower, upper, truth), p)
+
+
+def relative_bias(bias: float, truth: float) -> float:
+    """Bias / truth; NaN when the truth is 0."""
+    return bias / truth if truth != 0 else float("nan")
+
+
+def bias_mcse(variance, R):
+    """MCSE of the bias from the variance of the estimates, sqrt(var(x) / R)."""
+    return np.sqrt(variance / R)
+
+
+def empirical_se_mcse(emp_se, R):
+    """MCSE of the empirical SE, empSE / sqrt(2 (R - 1)) (with emp_se = 1: its relative MCSE)."""
+    return emp_se / np.sqrt(2.0 * (R - 1))
+
+
+def coverage_mcse(cover, R):
+    """MCSE of a coverage, sqrt(c (1 - c) / R)."""
+    return np.sqrt(cover * (1.0 - cover) / R)
+
+
+def mean_mcse(values) -> float:
+    """MCSE of a mean of replicate values, sd / sqrt(R) (NaN below two values): used for paired
+    differences and for the squared errors behind an MSE."""
+    R = len(values)
+    return float(values.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan")
+
+
+def moe_mcse(mse_mcse, rmse_value, z):
+    """MCSE of the margin of error z x RMSE by the delta method, z x MCSE(MSE) / (2 RMSE); 0 where RMSE is 0."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(rmse_value > 0, z * mse_mcse / (2.0 * rmse_value), 0.0)
+
+
+# replicates a target MCSE t asks for: the MCSE formulas above solved for R
+def replicates_for_bias_mcse(variance, t):
+    return variance / t**2
+
+
+def replicates_for_coverage_mcse(cover, t):
+    return cover * (1.0 - cover) / t**2
+
+
+def replicates_for_empirical_se_rel_mcse(t):
+    return 1.0 + 1.0 / (2.0 * t**2)
+
+
 def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray, truth: float,
-             z: float) -> dict:
-    """Morris-White-Crowther measures of one method from its replicate arrays."""
+             z: float, p: np.ndarray | None = None) -> dict:
+    """Morris-White-Crowther measures of one method from its replicate arrays (or, with ``p``, from
+    every possible sample and its probability: exact, with MCSE 0)."""
     R = len(x)
-    mean = float(np.mean(x))
-    var = float(np.var(x, ddof=1)) if R > 1 else float("nan")
+    mean = float(expectation(x, p))
+    var = float(empirical_variance(x, p, mean))
     emp_se = float(np.sqrt(var))
-    cover = float(np.mean(holds(lower, upper, truth)))
-    rmse = float(np.sqrt(np.mean((x - truth) ** 2)))
-    mod_se = float(np.sqrt(np.mean(se**2)))
+    cover = float(coverage(lower, upper, truth, p))
+    error = float(rmse(x, truth, p))
+    mod_se = float(model_se(se, p))
+    exact = p is not None
     return {
         "replicates": R,
         "truth": truth,
         "mean_estimate": mean,
         "bias": mean - truth,
-        "bias_mcse": float(np.sqrt(var / R)),
-        "relative_bias": (mean - truth) / truth if truth != 0 else float("nan"),
+        "bias_mcse": 0.0 if exact else float(bias_mcse(var, R)),
+        "relative_bias": relative_bias(mean - truth, truth),
         "empirical_se": emp_se,
-        "empirical_se_mcse": emp_se / np.sqrt(2.0 * (R - 1)) if R > 1 else float("nan"),
-        "rmse": rmse,
+        "empirical_se_mcse": 0.0 if exact else (empirical_se_mcse(emp_se, R) if R > 1 else float("nan")),
+        "rmse": error,
         "mean_se": mod_se,
         "se_ratio": se_ratio(mod_se, emp_se, max(abs(truth), abs(mean))),
         "coverage": cover,
-        "coverage_mcse": float(np.sqrt(cover * (1.0 - cover) / R)),
-        "mean_ci_width": float(np.mean(upper - lower)),
-        "moe": z * rmse,
+        "coverage_mcse": 0.0 if exact else float(coverage_mcse(cover, R)),
+        "mean_ci_width": float(expectation(upper - lower, p)),
+        "moe": z * error,
     }
 
 
@@ -126,7 +215,7 @@ def group_rows(reps: pd.DataFrame, keys: list[str]) -> list[tuple[tuple, np.ndar
 
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
     """One summary row per design x size x estimator x variable (contract columns, in order)."""
-    z = float(stats.norm.ppf(0.5 + confidence / 2.0))
+    z = normal_quantile(confidence)
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
     S2 = dict(zip(frame.layout.names, frame.layout.S2))

@@ -37,7 +37,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from samplewright.errors import InputError
-from samplewright.evaluation.measures import holds
+from samplewright.evaluation import measures
 from samplewright.config.validate import closest
 
 #: target name -> what it bounds (for messages and the README)
@@ -125,7 +125,7 @@ class Tally:
         with np.errstate(invalid="ignore", divide="ignore"):  # 0 / 0 for a domain absent from the block
             bm = np.where(ok, x, 0.0).sum(axis=1) / nb
             bm2 = np.where(ok, (x - bm[:, None, :]) ** 2, 0.0).sum(axis=1)
-        cov = (holds(result.lower, result.upper, truth) & ok).sum(axis=1)
+        cov = (measures.holds(result.lower, result.upper, truth) & ok).sum(axis=1)
         bm, bm2 = np.where(nb > 0, bm, 0.0), np.where(nb > 0, bm2, 0.0)
         if self.R == 0:
             self.n, self.mean, self.m2, self.covered = nb, bm, bm2, cov.astype(float)
@@ -154,9 +154,9 @@ class Tally:
         n = self.n
         with np.errstate(invalid="ignore", divide="ignore"):
             return {
-                "coverage_mcse": np.where(n > 0, np.sqrt(self.coverage() * (1.0 - self.coverage()) / n), np.inf),
-                "bias_mcse": np.sqrt(self._var() / n),
-                "empirical_se_rel_mcse": np.where(n > 1, 1.0 / np.sqrt(2.0 * (n - 1)), np.inf),
+                "coverage_mcse": np.where(n > 0, measures.coverage_mcse(self.coverage(), n), np.inf),
+                "bias_mcse": measures.bias_mcse(self._var(), n),
+                "empirical_se_rel_mcse": np.where(n > 1, measures.empirical_se_mcse(1.0, n), np.inf),
             }
 
     def needed(self, targets: dict) -> int:
@@ -171,9 +171,9 @@ class Tally:
         var = np.where(self.n > 1, self._var(), 0.0)
         per = self.R / np.maximum(self.n, 1.0)
         need = {
-            "coverage_mcse": lambda t: c * (1.0 - c) / t**2,
-            "bias_mcse": lambda t: var / t**2,
-            "empirical_se_rel_mcse": lambda t: np.full_like(c, 1.0 + 1.0 / (2.0 * t**2)),
+            "coverage_mcse": lambda t: measures.replicates_for_coverage_mcse(c, t),
+            "bias_mcse": lambda t: measures.replicates_for_bias_mcse(var, t),
+            "empirical_se_rel_mcse": lambda t: np.full_like(c, measures.replicates_for_empirical_se_rel_mcse(t)),
         }
         worst = 0.0
         for name, t in targets.items():

@@ -65,6 +65,12 @@ def _group_index(codes: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     return idx.astype(np.int64), offsets.astype(np.int64)
 
 
+def srs_variance_of_mean(n: float, N: int, S2):
+    """Exact variance of the SRS-without-replacement mean at sample size n, (1 - n / N) S^2 / n
+    (Cochran 1977, eq. 2.8): the reference of the design effect."""
+    return (1.0 - n / N) * S2 / n
+
+
 @dataclass(frozen=True, eq=False)
 class Frame:
     """A population frame held as arrays, with its structure precomputed.
@@ -277,9 +283,8 @@ class Frame:
         return ss / denom
 
     def srs_variance_of_mean(self, n: float) -> np.ndarray:
-        """Exact variance of the SRS-without-replacement mean at sample size n (Cochran 1977, eq. 2.8)."""
-        n = float(n)
-        return (1.0 - n / self.N) * self.S2 / n
+        """Exact variance of the SRS-without-replacement mean at sample size n, shape (V,)."""
+        return srs_variance_of_mean(float(n), self.N, self.S2)
 
     # --------------------------------------------------------------- builders
     @classmethod

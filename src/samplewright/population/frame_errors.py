@@ -99,10 +99,6 @@ class ListedFrame:
     eligible: np.ndarray  # (N_list,) bool
     counts: dict  # units missing, duplicated, ineligible entries
 
-    def census_mean(self) -> np.ndarray:
-        """Mean of y over the eligible listings (duplicates counted as listed), shape (V,)."""
-        return self.frame.y[self.eligible].mean(axis=0)
-
 
 def list_frame(true: Frame, spec: FrameErrorSpec, seed: int, columns: dict | None = None) -> ListedFrame:
     """Build the listed frame from the true population ``true`` under ``spec``.
@@ -137,16 +133,16 @@ def list_frame(true: Frame, spec: FrameErrorSpec, seed: int, columns: dict | Non
             raise InputError(f"[frame_error] undercoverage_values {list(spec.undercoverage_values)!r}: no unit "
                              f"has those values in column {spec.undercoverage_column!r}")
     cand = np.flatnonzero(pool)
-    k_miss = int(round(spec.undercoverage * cand.size))
+    k_miss = round(spec.undercoverage * cand.size)
     covered = np.ones(N, dtype=bool)
     if k_miss:
         covered[cand[rng.choice(cand.size, k_miss, replace=False)]] = False
     kept = np.flatnonzero(covered)
     if kept.size == 0:
         raise InputError("[frame_error]: the under-coverage leaves no unit on the list")
-    k_dup = int(round(spec.duplicates * kept.size))
+    k_dup = round(spec.duplicates * kept.size)
     dup = kept[np.sort(rng.choice(kept.size, k_dup, replace=False))] if k_dup else np.zeros(0, np.int64)
-    k_inel = int(round(spec.ineligible * N))
+    k_inel = round(spec.ineligible * N)
     donors = kept[rng.integers(0, kept.size, k_inel)] if k_inel else np.zeros(0, np.int64)
     source = np.concatenate([kept, dup, donors]).astype(np.int64)
     eligible = np.concatenate([np.ones(kept.size + k_dup, bool), np.zeros(k_inel, bool)])

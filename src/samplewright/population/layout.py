@@ -37,14 +37,15 @@ class Layout:
     ----------
     N, V : int
         Frame units and targets.
-    ext : (E,) int array
+    extended : (E,) int array
         Columns of the extended targets: the V targets, then for each domain its
         indicator followed by the V products y d.
     aux : (A,) int array
-        Auxiliary columns; ``xx`` (A, A) their cross-products, ``xe`` (A, E) their
-        products with every extended target.
+        Auxiliary columns; ``aux_products`` (A, A) their cross-products, ``aux_target_products``
+        (A, E) their products with every extended target.
     post : (P,) int array
-        Post-stratum indicator columns; ``pe`` (P, E) their products with the extended targets.
+        Post-stratum indicator columns; ``post_target_products`` (P, E) their products with the
+        extended targets.
     X : (A,) array
         Population totals of the auxiliaries.
     N_p, N_d : arrays
@@ -61,12 +62,12 @@ class Layout:
 
     N: int
     V: int
-    ext: np.ndarray
+    extended: np.ndarray
     aux: np.ndarray
-    xx: np.ndarray
-    xe: np.ndarray
+    aux_products: np.ndarray
+    aux_target_products: np.ndarray
     post: np.ndarray
-    pe: np.ndarray
+    post_target_products: np.ndarray
     X: np.ndarray
     N_p: np.ndarray
     N_d: np.ndarray
@@ -93,7 +94,7 @@ class Layout:
 
     @property
     def E(self) -> int:
-        return int(self.ext.shape[0])
+        return int(self.extended.shape[0])
 
     def domain_columns(self, j: int) -> tuple[int, slice]:
         """Position, within the extended targets, of domain j's indicator and of its y d products."""
@@ -107,27 +108,30 @@ def _indicators(codes: np.ndarray, k: int) -> np.ndarray:
     return out
 
 
-def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, post_labels=(),
-          domain=None, domain_labels=(), domain_column=None, domain_keep=None):
-    """The extra value columns (N, K_extra) and the :class:`Layout` of ``[y | extra | count | cost]``.
+class _Columns:
+    """The extra value columns, laid out after the V targets in the order they are added."""
 
-    ``domain_keep`` lists the domain codes to report (default: every domain).
-    """
-    N, V = y.shape
-    blocks = []  # (N, k) arrays in column order, after the V targets
-    pos = V
+    def __init__(self, N: int, V: int):
+        self.N, self.next, self.blocks = N, V, []
 
-    def add(a):
-        nonlocal pos
-        a = np.asarray(a, dtype=np.float64).reshape(N, -1)
-        idx = np.arange(pos, pos + a.shape[1])
-        blocks.append(a)
-        pos += a.shape[1]
+    def add(self, values) -> np.ndarray:
+        """Append columns (N, k) and return their positions."""
+        values = np.asarray(values, dtype=np.float64).reshape(self.N, -1)
+        idx = np.arange(self.next, self.next + values.shape[1])
+        self.blocks.append(values)
+        self.next += values.shape[1]
         return idx
 
-    # extended targets
-    ext = [np.arange(V)]
-    ext_values = [y]
+    def stacked(self) -> np.ndarray:
+        return np.column_stack(self.blocks) if self.blocks else np.zeros((self.N, 0))
+
+
+def _extended_targets(y, columns: _Columns, domain, domain_labels, domain_keep):
+    """Positions of the extended targets (targets, then per kept domain its indicator and y d), their
+    values (N, E) and the kept domain codes."""
+    V = y.shape[1]
+    extended = [np.arange(V)]
+    extended_values = [y]
     keep = []
     if domain is not None:
         keep = list(range(len(domain_labels))) if domain_keep is None else list(domain_keep)
@@ -135,39 +139,44 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
         for j in keep:
             d = d_all[:, j:j + 1]
             block = np.column_stack([d, y * d])
-            ext.append(add(block))
-            ext_values.append(block)
-    ext = np.concatenate(ext)
-    e_vals = np.column_stack(ext_values)
-    E = ext.shape[0]
+            extended.append(columns.add(block))
+            extended_values.append(block)
+    return np.concatenate(extended), np.column_stack(extended_values), keep
 
-    # auxiliaries and their products
-    if aux is not None and np.size(aux):
-        x = np.asarray(aux, dtype=np.float64).reshape(N, -1)
-    else:
-        x = np.zeros((N, 0))
+
+def _auxiliary_columns(aux, columns: _Columns, e_vals):
+    """The auxiliaries (N, A), their positions, and the positions of their cross-products (A, A) and of
+    their products with the extended targets (A, E)."""
+    N, E = e_vals.shape
+    x = np.asarray(aux, dtype=np.float64).reshape(N, -1) if aux is not None and np.size(aux) else np.zeros((N, 0))
     A = x.shape[1]
-    aux_idx = add(x) if A else np.zeros(0, dtype=np.int64)
-    xx = np.zeros((A, A), dtype=np.int64)
+    aux_idx = columns.add(x) if A else np.zeros(0, dtype=np.int64)
+    aux_products = np.zeros((A, A), dtype=np.int64)
     for a in range(A):
         for b in range(a, A):
-            xx[a, b] = xx[b, a] = add(x[:, a] * x[:, b])[0]
-    xe = np.zeros((A, E), dtype=np.int64)
+            aux_products[a, b] = aux_products[b, a] = columns.add(x[:, a] * x[:, b])[0]
+    aux_target_products = np.zeros((A, E), dtype=np.int64)
     for a in range(A):
-        xe[a] = add(x[:, a:a + 1] * e_vals)
+        aux_target_products[a] = columns.add(x[:, a:a + 1] * e_vals)
+    return x, aux_idx, aux_products, aux_target_products
 
-    # post-strata
-    if poststratum is not None:
-        p = _indicators(poststratum, len(post_labels))
-    else:
-        p = np.zeros((N, 0))
+
+def _poststratum_columns(poststratum, post_labels, columns: _Columns, e_vals):
+    """The post-stratum indicators (N, P), their positions and those of their products with the
+    extended targets (P, E)."""
+    N, E = e_vals.shape
+    p = _indicators(poststratum, len(post_labels)) if poststratum is not None else np.zeros((N, 0))
     P = p.shape[1]
-    post_idx = add(p) if P else np.zeros(0, dtype=np.int64)
-    pe = np.zeros((P, E), dtype=np.int64)
+    post_idx = columns.add(p) if P else np.zeros(0, dtype=np.int64)
+    post_target_products = np.zeros((P, E), dtype=np.int64)
     for q in range(P):
-        pe[q] = add(p[:, q:q + 1] * e_vals)
+        post_target_products[q] = columns.add(p[:, q:q + 1] * e_vals)
+    return p, post_idx, post_target_products
 
-    # truths of the output variables
+
+def _truths(y, variables, domain, keep, domain_labels, domain_column):
+    """Names, exact means and reference S^2 of the output variables, and the kept domains' sizes."""
+    N, V = y.shape
     names = list(variables)
     truth = list(y.mean(axis=0))
     # S^2 is exactly 0 for a variable whose units all have one value (not rounding noise)
@@ -184,14 +193,29 @@ def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, po
             truth.append(float(yd[:, v].mean()))
             flat_d = Nd < 2 or yd[:, v].min() == yd[:, v].max()
             S2.append(0.0 if flat_d else float(yd[:, v].var(ddof=1)) / share)
+    return names, truth, S2, N_d
+
+
+def build(y: np.ndarray, variables, aux=None, aux_names=(), poststratum=None, post_labels=(),
+          domain=None, domain_labels=(), domain_column=None, domain_keep=None):
+    """The extra value columns (N, K_extra) and the :class:`Layout` of ``[y | extra | count | cost]``.
+
+    ``domain_keep`` lists the domain codes to report (default: every domain).
+    """
+    N, V = y.shape
+    columns = _Columns(N, V)
+    extended, e_vals, keep = _extended_targets(y, columns, domain, domain_labels, domain_keep)
+    x, aux_idx, aux_products, aux_target_products = _auxiliary_columns(aux, columns, e_vals)
+    p, post_idx, post_target_products = _poststratum_columns(poststratum, post_labels, columns, e_vals)
+    names, truth, S2, N_d = _truths(y, variables, domain, keep, domain_labels, domain_column)
     binary = {v for v, name in enumerate(variables) if np.isin(y[:, v], (0.0, 1.0)).all()}
     proportions = tuple(nm for i, nm in enumerate(names) if (i % V if i >= V else i) in binary) if V else ()
-    extra = np.column_stack(blocks) if blocks else np.zeros((N, 0))
     layout = Layout(
-        N=N, V=V, ext=ext, aux=aux_idx, xx=xx, xe=xe, post=post_idx, pe=pe,
+        N=N, V=V, extended=extended, aux=aux_idx, aux_products=aux_products,
+        aux_target_products=aux_target_products, post=post_idx, post_target_products=post_target_products,
         X=x.sum(axis=0), N_p=p.sum(axis=0), N_d=np.asarray(N_d, dtype=np.float64),
-        names=tuple(names), proportions=proportions, truth=np.asarray(truth, dtype=np.float64), S2=np.asarray(S2, dtype=np.float64),
-        aux_names=tuple(aux_names), post_labels=tuple(post_labels),
+        names=tuple(names), proportions=proportions, truth=np.asarray(truth, dtype=np.float64),
+        S2=np.asarray(S2, dtype=np.float64), aux_names=tuple(aux_names), post_labels=tuple(post_labels),
         domain_labels=tuple(domain_labels[j] for j in keep), domain_column=domain_column,
     )
-    return extra, layout
+    return columns.stacked(), layout

@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from samplewright.apportion import largest_remainder
 from samplewright.errors import InputError, show
 
 KEYS = {
@@ -106,10 +107,8 @@ def stratum_units(spec: SyntheticSpec) -> np.ndarray:
     Every stratum must get at least one unit: a stratum that rounds to none would silently
     vanish from the frame (and, with clusters, could not be split into clusters).
     """
-    from samplewright.designs.allocation import round_allocation
-
     names, share, _, _ = _stratum_table(spec)
-    counts = round_allocation(spec.units, spec.units * share, np.full(len(share), spec.units), None)
+    counts = largest_remainder(spec.units, spec.units * share, np.full(len(share), spec.units), None)
     for name, s, c in zip(names, share, counts):
         if c < 1:
             raise InputError(f"[frame.synthetic]: stratum {show(name)} gets 0 of the {spec.units} units "
@@ -177,7 +176,7 @@ def _cluster_sizes(rng, units: int, mean_size: float, size_cv: float) -> np.ndar
 
     There are at most ``units`` clusters, so the rounding loop below always ends.
     """
-    k = min(units, max(1, int(round(units / mean_size))))
+    k = min(units, max(1, round(units / mean_size)))
     if size_cv < 1e-6:  # equal sizes (a smaller CV would not change the rounded sizes)
         w = np.ones(k)
     else:

@@ -27,7 +27,8 @@ import pandas as pd
 from samplewright.estimation.cost import CostModel
 from samplewright.designs import Design
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS, sample_units
+from samplewright.estimation.estimators import sample_units
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.simulation.fieldwork import replicate_columns
 from samplewright.population.frame import Frame
 

@@ -12,18 +12,8 @@ The glue between the designs and the response, weighting and frame-error modules
    whose SeedSequence is the block's with one spawn-key word appended, and estimates twice
    from the same replicate draws: with every eligible unit responding (full response) and
    with the drawn responses, each through the design's adjustment.
-3. :func:`summary_columns` adds the non-response columns to the summary.
-
-Bias split, per summary row (x: the estimate with non-response; x_full: the same
-replicate's full-response estimate; C: the estimator on a census of the listed frame with
-the same adjustment; T: the true population mean):
-
-    bias = mean(x) - T = [mean(x_full) - C] + [C - T] + [mean(x - x_full)]
-         = sampling_bias + frame_bias + nonresponse_bias
-
-``nonresponse_bias_mcse`` is the MCSE of a mean of the paired differences x - x_full
-(Morris, White & Crowther 2019, Table 6 applied to the differences), usually far smaller
-than the MCSE of the bias itself because both share the sample.
+3. :func:`samplewright.evaluation.nonresponse.summary_columns` adds the non-response columns to the
+   summary.
 """
 
 from __future__ import annotations
@@ -37,8 +27,7 @@ import pandas as pd
 from samplewright.simulation import response as _response
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.estimators import ESTIMATORS
-from samplewright.evaluation.measures import holds
+from samplewright.estimation.registry import ESTIMATORS
 from samplewright.population.frame import Frame
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
@@ -46,16 +35,6 @@ from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
 #: per-replicate columns fieldwork adds to the replicate table (after the contract columns)
 REPLICATE_COLUMNS = ("attempted", "eligible", "full_estimate", "full_se", "full_lower", "full_upper",
                      "full_cost", "adjustment_failed")
-#: summary columns fieldwork adds (after the contract columns)
-SUMMARY_EXTRA = [
-    "adjustment", "mean_attempted", "mean_respondents", "response_rate", "cost_per_complete",
-    "full_response_bias", "full_response_empirical_se", "full_response_rmse", "full_response_coverage",
-    "full_response_mean_cost", "full_response_cost_per_complete",
-    "sampling_bias", "sampling_bias_mcse", "frame_bias", "nonresponse_bias", "nonresponse_bias_mcse",
-    "adjustment_failures",
-]
-
-
 @dataclass(frozen=True, eq=False)
 class Fieldwork:
     """What one design's blocks need at fieldwork: who is eligible, who responds, how to reweight."""
@@ -356,42 +335,3 @@ def prepare(scenario, frame: Frame, cells, seed: int, confidence: float) -> Fiel
     info["response_seed"] = ("block SeedSequence with spawn_key extended by "
                              f"{_response.BLOCK_KEY} (crc32 of 'response-draws')")
     return FieldSetup(frame=listed, truth=frame, census=census, adjustments=adjustments, info=info)
-
-
-# ------------------------------------------------------------------ summary
-def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup, confidence: float) -> pd.DataFrame:
-    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) appended."""
-    names = list(setup.frame.layout.names)
-    truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
-    extra = []
-    groups = {k: g for k, g in reps.groupby(["design", "size", "estimator", "variable"], sort=False)}
-    for _, row in summary.iterrows():
-        g = groups[(row["design"], row["size"], row["estimator"], row["variable"])]
-        T = float(truth[row["variable"]])
-        x, xf = g["estimate"].to_numpy(), g["full_estimate"].to_numpy()
-        R = len(x)
-        census = float(setup.census[(row["design"], row["estimator"])][names.index(row["variable"])])
-        resp, att, elig = g["n"].mean(), g["attempted"].mean(), g["eligible"].mean()
-        cost, fcost = g["cost"].mean(), g["full_cost"].mean()
-        d = x - xf
-        cover = float(np.mean(holds(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T)))
-        extra.append({
-            "adjustment": setup.adjustments[row["design"]].method,
-            "mean_attempted": float(att),
-            "mean_respondents": float(resp),
-            "response_rate": float(resp / elig) if elig > 0 else float("nan"),
-            "cost_per_complete": float(cost / resp) if resp > 0 else float("nan"),
-            "full_response_bias": float(xf.mean() - T),
-            "full_response_empirical_se": float(xf.std(ddof=1)) if R > 1 else float("nan"),
-            "full_response_rmse": float(np.sqrt(np.mean((xf - T) ** 2))),
-            "full_response_coverage": cover,
-            "full_response_mean_cost": float(fcost),
-            "full_response_cost_per_complete": float(fcost / elig) if elig > 0 else float("nan"),
-            "sampling_bias": float(xf.mean() - census),
-            "sampling_bias_mcse": float(xf.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
-            "frame_bias": census - T,
-            "nonresponse_bias": float(d.mean()),
-            "nonresponse_bias_mcse": float(d.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
-            "adjustment_failures": int(g["adjustment_failed"].sum()),
-        })
-    return pd.concat([summary.reset_index(drop=True), pd.DataFrame(extra, columns=SUMMARY_EXTRA)], axis=1)

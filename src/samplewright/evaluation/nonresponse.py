@@ -1,0 +1,68 @@
+"""The summary's non-response columns: the bias split into sampling, frame and non-response parts.
+
+Per summary row (x: the estimate with non-response; x_full: the same replicate's full-response
+estimate; C: the estimator on a census of the listed frame with the same adjustment; T: the true
+population mean):
+
+    bias = mean(x) - T = [mean(x_full) - C] + [C - T] + [mean(x - x_full)]
+         = sampling_bias + frame_bias + nonresponse_bias
+
+``nonresponse_bias_mcse`` is the MCSE of a mean of the paired differences x - x_full
+(Morris, White & Crowther 2019, Table 6 applied to the differences), usually far smaller
+than the MCSE of the bias itself because both share the sample.  The replicates and the census
+come from :mod:`samplewright.simulation.fieldwork`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from samplewright.evaluation import measures
+from samplewright.simulation.fieldwork import FieldSetup
+
+#: summary columns fieldwork adds (after the contract columns)
+SUMMARY_EXTRA = [
+    "adjustment", "mean_attempted", "mean_respondents", "response_rate", "cost_per_complete",
+    "full_response_bias", "full_response_empirical_se", "full_response_rmse", "full_response_coverage",
+    "full_response_mean_cost", "full_response_cost_per_complete",
+    "sampling_bias", "sampling_bias_mcse", "frame_bias", "nonresponse_bias", "nonresponse_bias_mcse",
+    "adjustment_failures",
+]
+
+
+def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup) -> pd.DataFrame:
+    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) appended."""
+    names = list(setup.frame.layout.names)
+    truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
+    extra = []
+    groups = {k: g for k, g in reps.groupby(["design", "size", "estimator", "variable"], sort=False)}
+    for _, row in summary.iterrows():
+        g = groups[(row["design"], row["size"], row["estimator"], row["variable"])]
+        T = float(truth[row["variable"]])
+        x, xf = g["estimate"].to_numpy(), g["full_estimate"].to_numpy()
+        census = float(setup.census[(row["design"], row["estimator"])][names.index(row["variable"])])
+        resp, att, elig = g["n"].mean(), g["attempted"].mean(), g["eligible"].mean()
+        cost, fcost = g["cost"].mean(), g["full_cost"].mean()
+        d = x - xf
+        cover = float(measures.coverage(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T))
+        extra.append({
+            "adjustment": setup.adjustments[row["design"]].method,
+            "mean_attempted": float(att),
+            "mean_respondents": float(resp),
+            "response_rate": float(resp / elig) if elig > 0 else float("nan"),
+            "cost_per_complete": float(cost / resp) if resp > 0 else float("nan"),
+            "full_response_bias": float(measures.expectation(xf) - T),
+            "full_response_empirical_se": float(np.sqrt(measures.empirical_variance(xf))),
+            "full_response_rmse": float(measures.rmse(xf, T)),
+            "full_response_coverage": cover,
+            "full_response_mean_cost": float(fcost),
+            "full_response_cost_per_complete": float(fcost / elig) if elig > 0 else float("nan"),
+            "sampling_bias": float(measures.expectation(xf) - census),
+            "sampling_bias_mcse": measures.mean_mcse(xf),
+            "frame_bias": census - T,
+            "nonresponse_bias": float(measures.expectation(d)),
+            "nonresponse_bias_mcse": measures.mean_mcse(d),
+            "adjustment_failures": int(g["adjustment_failed"].sum()),
+        })
+    return pd.concat([summary.reset_index(drop=True), pd.DataFrame(extra, columns=SUMMARY_EXTRA)], axis=1)
