@@ -193,6 +193,10 @@ class Systematic(Design):
             return np.full(N, n / N)
         return np.full(N, 1.0 - (1.0 - n / (r * N)) ** r)
 
+    def expected_hits(self, frame) -> np.ndarray:
+        """Expected number of times each unit is selected (n / N; equals pi_i for one start)."""
+        return np.full(frame.N, int(self.n) / frame.N)
+
     def expected_n(self, frame):
         """Selections per sample: exactly n (with several starts a unit may be selected twice)."""
         return float(self.n)
