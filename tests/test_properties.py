@@ -76,7 +76,9 @@ def params_for(draw, cls, frame: Frame) -> dict:
     for k in cls.keys:
         if k == cls.size_key:
             continue
-        if k in ("replace", "cap_units"):
+        if k == "replace" and cls.method == "pps":
+            p[k] = True  # the size-proportional method with replacement must say so (pps alone is refused)
+        elif k in ("replace", "cap_units"):
             p[k] = draw(st.booleans())
         elif k == "units_per_cluster":
             p[k] = draw(st.none() | st.integers(1, 6))
@@ -248,9 +250,12 @@ def scenarios(draw) -> dict:
         sizes = st.integers(1, top + 2)
         d[cls.size_key] = draw(sizes | st.lists(sizes, min_size=1, max_size=3, unique=True))
         for k in cls.keys:
-            if k == cls.size_key or not draw(st.booleans()):
+            required = k == "replace" and method == "pps"
+            if k == cls.size_key or not (required or draw(st.booleans())):
                 continue
-            if k in ("replace", "cap_units"):
+            if k == "replace" and method == "pps":
+                d[k] = True
+            elif k in ("replace", "cap_units"):
                 d[k] = draw(st.booleans())
             elif k == "units_per_cluster":
                 d[k] = draw(st.integers(1, 8))
@@ -283,7 +288,7 @@ def units_past_the_frame(doc: dict) -> bool:
     """Whether a design that cannot repeat a unit asks for more units than the synthetic frame holds
     (cluster counts are not known before the frame is made, so they are not judged here)."""
     for d in doc["design"]:
-        repeats = d.get("replace", False) or d["method"].endswith("_wr")
+        repeats = d.get("replace", False)
         if DESIGN_CLASSES[d["method"]].size_key != "clusters" and not repeats:
             sizes = d[DESIGN_CLASSES[d["method"]].size_key]
             if max(sizes if isinstance(sizes, list) else [sizes]) > doc["frame"]["synthetic"]["units"]:
