@@ -15,12 +15,21 @@ Heavier modules are imported on first use, so ``import samplewright`` stays ligh
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
-
+from samplewright._version import __version__
 from samplewright.errors import InputError
 
-__all__ = ["__version__", "Frame", "InputError", "RunResult", "Scenario", "load_scenario", "read_run", "run",
-           "scenario_from_dict", "write_report"]
+__all__ = [
+    "Frame",
+    "InputError",
+    "RunResult",
+    "Scenario",
+    "__version__",
+    "load_scenario",
+    "read_run",
+    "run",
+    "scenario_from_dict",
+    "write_report",
+]
 
 _LAZY = {
     "Frame": ("population.frame", "Frame"),

@@ -2,26 +2,11 @@
 
 from __future__ import annotations
 
-import argparse
 import sys
 
+from samplewright.cli.arguments import whole_number
+from samplewright.cli.longrun import add_scale_options, interrupted_note, run_kwargs
 from samplewright.errors import InputError
-
-
-def whole_number(minimum: int):
-    """An argparse ``type`` accepting whole numbers of at least ``minimum`` (refusals exit 2)."""
-
-    def parse(text: str) -> int:
-        try:
-            value = int(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"must be a whole number, got {text!r}") from None
-        if value < minimum:
-            raise argparse.ArgumentTypeError(f"must be at least {minimum}, got {text!r}")
-        return value
-
-    parse.__name__ = "whole number"
-    return parse
 
 
 def add_run_options(p) -> None:
@@ -38,8 +23,6 @@ def add_run_options(p) -> None:
     p.add_argument("--no-report", action="store_true",
                    help="write only the result tables, not figures/, report.html and brief.md "
                         "(build them later with `samplewright report DIR`; default: off, the report is written)")
-    from samplewright.cli.longrun import add_scale_options
-
     add_scale_options(p)
 
 
@@ -59,12 +42,10 @@ def logger(args):
 
 def simulate_and_write(scenario, args) -> int:
     """Run ``scenario`` with the command's options and write its results to ``args.out``."""
-    from samplewright.files import prepare_dir
     from samplewright.api import run
+    from samplewright.files import prepare_dir
 
     inputs = (scenario.source, scenario.frame.path)
-    from samplewright.cli.longrun import interrupted_note, run_kwargs
-
     extra = run_kwargs(args)
 
     def ready():  # once every check passed, before simulating: a refused run leaves no folder behind

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import json
 
+from samplewright.cli.arguments import whole_number
+
 NAME = "inspect"
 HELP = "report a frame's strata, clusters and list-order cycles, and the systematic intervals to avoid"
 #: intervals listed in the text report (the JSON lists them all)
@@ -28,8 +30,6 @@ def _rate(text: str) -> float:
 
 
 def add_arguments(p) -> None:
-    from samplewright.cli.common import whole_number
-
     p.add_argument("frame", help="frame file (.csv or .parquet)")
     p.add_argument("--target", required=True, help="study-variable column (required)")
     p.add_argument("--order", help="column giving the list order (default: the file order)")
@@ -47,7 +47,12 @@ def add_arguments(p) -> None:
 def frame_report(path, target: str, order=None, stratum=None, cluster=None, false_alarm=None,
                  max_interval=None) -> dict:
     """The inspect report as a dict (what ``--json`` prints)."""
-    from samplewright.diagnostics.inspection import cluster_summary, missing_counts, order_summary, stratum_summary
+    from samplewright.diagnostics.inspection import (
+        cluster_summary,
+        missing_counts,
+        order_summary,
+        stratum_summary,
+    )
     from samplewright.population.frame import Frame, read_table
 
     df = read_table(path)

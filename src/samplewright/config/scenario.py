@@ -11,18 +11,22 @@ from __future__ import annotations
 import hashlib
 import json
 import tomllib
-import unicodedata
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
-from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as COST_SCALARS, CostModel
+from samplewright.config.goal import Goal
+from samplewright.config.validate import as_bool, as_float, as_int, as_sizes, as_str, check_keys, closest
 from samplewright.designs import METHODS, RENAMED_METHODS, Design
 from samplewright.errors import InputError, show
 from samplewright.estimation.auxiliary import check_estimators
+from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS
+from samplewright.estimation.cost import SCALAR_KEYS as COST_SCALARS
+from samplewright.estimation.cost import CostModel
 from samplewright.estimation.estimators import ESTIMATORS
+from samplewright.estimation.weighting import AdjustmentSpec, adjustment_from_table
 from samplewright.population.frame import Frame, input_file, read_table
-from samplewright.population.synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
-from samplewright.config.validate import closest
+from samplewright.population.synth import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
+from samplewright.population.synth import KEYS as SYNTH_KEYS
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
             "response", "frame_error", "goal")
@@ -32,83 +36,11 @@ COST_KEYS = COST_MODEL_KEYS  # cost.py lists them (scalar rates, per_unit_by_str
 GOAL_KEYS = ("moe", "budget", "confidence", "variable")
 DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
 DEFAULT_BLOCK = 500
-#: largest sample size and synthetic frame accepted, so an absurd value is refused before any array is
-#: allocated (sanity bounds, no published source; a frame file is limited only by the machine)
-MAX_SIZE = 10_000_000
+#: largest synthetic frame accepted, so an absurd value is refused before any array is allocated
+#: (a sanity bound, no published source; a frame file is limited only by the machine)
 MAX_SYNTHETIC_UNITS = 50_000_000
 #: largest scenario file read (a settings file; 1 MiB is some 30,000 lines of settings: a sanity bound)
 MAX_SCENARIO_BYTES = 1 << 20
-
-
-# ------------------------------------------------------------------ type checks
-def _where(ctx: str, key: str) -> str:
-    return f"{ctx}: {key}" if ctx else key
-
-
-def check_keys(table: dict, allowed, ctx: str) -> None:
-    """Refuse keys that are not in ``allowed``, naming the closest valid one."""
-    if not isinstance(table, dict):
-        raise InputError(f"{ctx} must be a table, got {type(table).__name__}")
-    for k in table:
-        if k not in allowed:
-            raise InputError(f"{ctx}: unknown key {show(k)}{closest(k, allowed)}")
-
-
-def as_int(value, key: str, ctx: str = "", minimum: int | None = None, maximum: int | None = None) -> int:
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise InputError(f"{_where(ctx, key)} must be a whole number, got {show(value)}")
-    if minimum is not None and value < minimum:
-        raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {value}")
-    if maximum is not None and value > maximum:
-        raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {value}")
-    return value
-
-
-def as_float(value, key: str, ctx: str = "", minimum: float | None = None, maximum: float | None = None,
-             open_interval: bool = False) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{_where(ctx, key)} must be a number, got {show(value)}")
-    v = float(value)
-    if v != v or v in (float("inf"), float("-inf")):
-        raise InputError(f"{_where(ctx, key)} must be a finite number, got {show(value)}")
-    if open_interval and not (minimum < v < maximum):
-        raise InputError(f"{_where(ctx, key)} must lie strictly between {minimum} and {maximum}, got {show(value)}")
-    if not open_interval:
-        if minimum is not None and v < minimum:
-            raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {show(value)}")
-        if maximum is not None and v > maximum:
-            raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {show(value)}")
-    return v
-
-
-def as_str(value, key: str, ctx: str = "") -> str:
-    """A non-empty text of one line: control characters (line breaks, tabs, NUL...) are refused,
-    since labels and titles end up in CSV rows, figures, Markdown and terminal lines."""
-    if not isinstance(value, str) or not value.strip():
-        raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
-    bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
-    if bad is not None:
-        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}{' (a NUL byte)' if bad == chr(0) else ''}; "
-                         f"give one line of printable text")
-    return value
-
-
-def as_bool(value, key: str, ctx: str = "") -> bool:
-    if not isinstance(value, bool):
-        raise InputError(f"{_where(ctx, key)} must be true or false, got {show(value)}")
-    return value
-
-
-def as_sizes(value, key: str, ctx: str) -> int | list[int]:
-    """A whole number above 0, or a non-empty list of them (a size sweep)."""
-    if isinstance(value, list):
-        if not value:
-            raise InputError(f"{_where(ctx, key)} is an empty list; give one size or several")
-        out = [as_int(v, key, ctx, minimum=1, maximum=MAX_SIZE) for v in value]
-        if len(set(out)) != len(out):
-            raise InputError(f"{_where(ctx, key)} lists a size twice: {show(out)}")
-        return out
-    return as_int(value, key, ctx, minimum=1, maximum=MAX_SIZE)
 
 
 # ------------------------------------------------------------------ frame spec
@@ -248,8 +180,8 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
 
 
 # ------------------------------------------------------------------ designs
-def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
-    """Build one design and its estimator list from a ``[[design]]`` table."""
+def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...], AdjustmentSpec]:
+    """Build one design, its estimator list and its weighting adjustment from a ``[[design]]`` table."""
     if not isinstance(table, dict):
         raise InputError(f"{ctx} must be a table")
     for req in ("label", "method"):
@@ -293,10 +225,7 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
         design = cls(label, **params)
     except TypeError as exc:
         raise InputError(f"{ctx}: {exc}") from None
-    from samplewright.estimation.weighting import adjustment_from_table
-
-    design.adjustment = adjustment_from_table(table, ctx)
-    return design, tuple(dict.fromkeys(est))
+    return design, tuple(dict.fromkeys(est)), adjustment_from_table(table, ctx)
 
 
 # ------------------------------------------------------------------ scenario
@@ -307,13 +236,14 @@ class Scenario:
     frame: FrameSpec
     designs: tuple[Design, ...]
     estimators: tuple[tuple[str, ...], ...]
+    adjustments: tuple[AdjustmentSpec, ...] = ()  # one per design (none: no adjustment)
     title: str = "untitled scenario"
     seed: int = 20261201
     replicates: int = 1000
     confidence: float = 0.95
     block_size: int = DEFAULT_BLOCK
     cost: CostModel = field(default_factory=CostModel)
-    goal: object | None = None  # recommend.Goal, from [goal]
+    goal: Goal | None = None  # from [goal]
     response: object | None = None  # response.ResponseModel, from [response]
     frame_error: object | None = None  # frame_errors.FrameErrorSpec, from [frame_error]
     source: Path | None = None
@@ -363,22 +293,22 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
     if not isinstance(designs, list):
         raise InputError("design must be written as [[design]] tables (a list)")
     built = [design_from_dict(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs)]
-    for d, est in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
+    for d, est, _ in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
         check_estimators(est, frame.roles, f"design {show(d.label)}")
-    sort_keys = [d.sort_by for d, _ in built if isinstance(getattr(d, "sort_by", None), str)]
+    sort_keys = [d.sort_by for d, _, _ in built if isinstance(getattr(d, "sort_by", None), str)]
     if sort_keys:  # systematic designs' sort_by columns are resolved when the frame is loaded
         frame = replace(frame, roles={**frame.roles, "sort_keys": list(dict.fromkeys(sort_keys))})
-    labels = [d.label for d, _ in built]
+    labels = [d.label for d, _, _ in built]
     dup = {x for x in labels if labels.count(x) > 1}
     if dup:
-        raise InputError(f"design label {show(sorted(dup)[0])} is used twice; labels must be unique")
+        raise InputError(f"design label {show(min(dup))} is used twice; labels must be unique")
     if "cost" in doc:
         kw["cost"] = _cost_model(doc["cost"])
     if "goal" in doc:
         kw["goal"] = _goal(doc["goal"], frame.roles.get("target"))
     kw.update(_fieldwork_tables(doc))
-    return Scenario(frame=frame, designs=tuple(d for d, _ in built), estimators=tuple(e for _, e in built),
-                    source=source, raw=doc, **kw)
+    return Scenario(frame=frame, designs=tuple(d for d, _, _ in built), estimators=tuple(e for _, e, _ in built),
+                    adjustments=tuple(a for _, _, a in built), source=source, raw=doc, **kw)
 
 
 def _cost_model(c: dict) -> CostModel:
@@ -398,8 +328,6 @@ def _cost_model(c: dict) -> CostModel:
 
 def _goal(g: dict, targets):
     """[goal]: a target margin of error and/or a budget, the confidence level, the variable."""
-    from samplewright.decision.recommend import Goal
-
     check_keys(g, GOAL_KEYS, "[goal]")
     if "moe" not in g and "budget" not in g:
         raise InputError("[goal] needs moe (the margin of error to reach) and/or budget (the money available)")

@@ -18,18 +18,19 @@ from __future__ import annotations
 import hashlib
 import itertools
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from samplewright.estimation.cost import CostModel
 from samplewright.designs import Design
 from samplewright.errors import InputError
+from samplewright.estimation.cost import CostModel
 from samplewright.estimation.estimators import ESTIMATORS, sample_units
-from samplewright.simulation.fieldwork import replicate_columns
 from samplewright.population.frame import Frame
+from samplewright.simulation.blocks import BlockResult, replicate_columns
+from samplewright.simulation.fieldwork import Fieldwork, run_fieldwork_block
 
 
 @dataclass(frozen=True)
@@ -40,6 +41,8 @@ class Cell:
     design_index: int  # position in the scenario (for ordering output)
     size_index: int
     estimators: tuple[str, ...]
+    #: non-response, frame errors, weighting adjustment (fieldwork.py); None: the plain block runner
+    fieldwork: Fieldwork | None = None
 
     @property
     def key(self) -> tuple[int, ...]:
@@ -50,30 +53,6 @@ def stream_key(label: str) -> tuple[int, ...]:
     """The random-stream key of a design: the SHA-256 of its label as eight 32-bit words."""
     digest = hashlib.sha256(label.encode("utf-8")).digest()
     return tuple(int.from_bytes(digest[i:i + 4], "big") for i in range(0, 32, 4))
-
-
-@dataclass
-class BlockResult:
-    """One block's per-replicate results, tagged with the cell and block it came from."""
-
-    cell: int
-    block: int
-    start: int
-    estimate: np.ndarray  # (E, B, V)
-    se: np.ndarray
-    lower: np.ndarray
-    upper: np.ndarray
-    n: np.ndarray  # (B,)
-    cost: np.ndarray  # (B,)
-    # fieldwork only (see fieldwork.py): counts per replicate and the full-response results
-    attempted: np.ndarray | None = None  # (B,)
-    eligible: np.ndarray | None = None  # (B,)
-    full_estimate: np.ndarray | None = None  # (E, B, V)
-    full_se: np.ndarray | None = None
-    full_lower: np.ndarray | None = None
-    full_upper: np.ndarray | None = None
-    full_cost: np.ndarray | None = None  # (B,)
-    adjustment_failed: np.ndarray | None = None  # (B,)
 
 
 def block_seed(seed: int, cell: Cell, block: int) -> np.random.SeedSequence:
@@ -89,9 +68,7 @@ def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
 def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, count: int,
               seedseq: np.random.SeedSequence, confidence: float, cost: CostModel) -> BlockResult:
     """Draw one block of replicates and estimate with every estimator of the cell."""
-    if getattr(cell.design, "fieldwork", None) is not None:  # non-response, frame errors (fieldwork.py)
-        from samplewright.simulation.fieldwork import run_fieldwork_block
-
+    if cell.fieldwork is not None:
         return run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost)
     rng = np.random.default_rng(seedseq)
     sample = cell.design.draw(frame, rng, count, keep_units=cost.needs_units(cell.design))
@@ -124,86 +101,91 @@ def make_cells(designs, estimators) -> list[Cell]:
 BACKENDS = ("local", "dask")
 
 
-def simulate(frame: Frame, cells: list[Cell], replicates: int, seed: int, block_size: int,
-             confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
-             scheduler: str | None = None, store=None) -> list[BlockResult]:
-    """Run every block of every cell; results come back tagged, in any order.
+def simulate(plan, progress=None) -> list[BlockResult]:
+    """Run every block of every cell of ``plan`` (a :class:`~samplewright.simulation.plan.RunPlan`);
+    results come back tagged, in any order.
 
     ``progress``, when given, is called with (cell id, replicates done in that block) after
-    each block completes.  ``store`` (a :class:`~samplewright.simulation.checkpoint.BlockStore`) keeps
-    each finished block on disk and supplies the blocks a previous attempt finished.
+    each block completes.  The plan's ``store`` (a :class:`~samplewright.simulation.checkpoint.BlockStore`)
+    keeps each finished block on disk and supplies the blocks a previous attempt finished.
     """
-    tasks = [(ci, b, s, count) for ci in range(len(cells)) for b, s, count in block_spans(replicates, block_size)]
-    return list(_complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress))
+    spans = block_spans(plan.replicates, plan.block_size)
+    tasks = [(ci, b, s, count) for ci in range(len(plan.cells)) for b, s, count in spans]
+    return list(_complete(plan, tasks, progress))
 
 
-def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, seed: int, block_size: int,
-                   confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
-                   scheduler: str | None = None, store=None,
-                   truth: np.ndarray | None = None) -> tuple[list[BlockResult], list[dict]]:
-    """Add blocks to each cell, in block order, until it meets ``rule`` (see :mod:`samplewright.evaluation.stopping`).
+@dataclass
+class _Waves:
+    """Where a sequential run stands: per cell, its progress, finished blocks, blocks scheduled, next aim."""
 
-    Coverage is scored against ``truth``, the true population's value of every output variable
-    of ``frame.layout`` (targets, then domain means); by default ``frame.layout.truth``, which
-    is wrong when ``frame`` is a listed frame with frame errors (pass the true population's).
+    spans: list
+    min_blocks: int
+    states: dict
+    have: dict = field(default_factory=dict)
+    scheduled: dict = field(default_factory=dict)
+    aim: dict = field(default_factory=dict)
 
-    Every cell runs at least ``min_replicates`` (rounded up to whole blocks) and at most
-    ``rule.max_replicates``.  Blocks are dispatched in waves sized from the replicates the
+
+def simulate_until(plan, progress=None) -> tuple[list[BlockResult], list[dict]]:
+    """Add blocks to each cell, in block order, until it meets ``plan.stopping``.
+
+    Coverage is scored against the true population's value of every output variable of the
+    layout (targets, then domain means): ``plan.truth``, not the listed frame.
+
+    Every cell runs at least ``plan.replicates`` (rounded up to whole blocks) and at most
+    the rule's ``max_replicates``.  Blocks are dispatched in waves sized from the replicates the
     rule still asks for; blocks past a cell's stopping point are dropped, so the replicates
-    kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the
-    per-cell report of :func:`samplewright.evaluation.stopping.report`.
+    kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the rule's
+    per-cell report.
     """
-    from samplewright.evaluation.stopping import CellProgress, report
+    rule = plan.stopping
+    spans = block_spans(rule.max_replicates, plan.block_size)
+    min_blocks = min(len(spans), -(-int(plan.replicates) // plan.block_size))
+    cell_ids = range(len(plan.cells))
+    waves = _Waves(spans=spans, min_blocks=min_blocks, states={ci: rule.start_cell() for ci in cell_ids},
+                   have={ci: {} for ci in cell_ids}, scheduled=dict.fromkeys(cell_ids, 0),
+                   aim=dict.fromkeys(cell_ids, min_blocks))
+    truths = dict(zip(plan.truth.layout.names, plan.truth.layout.truth))  # as the summary scores them
+    truth = np.array([truths[v] for v in plan.frame.layout.names], dtype=float)
+    with backend_session(plan.backend, plan.scheduler, plan.frame, plan.cells):  # one dask client for all waves
+        _until_waves(plan, waves, truth, progress)
+    kept = [waves.have[ci][b] for ci, st in waves.states.items() for b in range(st.used)]
+    return kept, rule.report(plan.cells, waves.states)
 
-    spans = block_spans(rule.max_replicates, block_size)
-    min_blocks = min(len(spans), -(-int(min_replicates) // block_size))
-    states = {ci: CellProgress() for ci in range(len(cells))}
-    have: dict[int, dict[int, BlockResult]] = {ci: {} for ci in range(len(cells))}
-    scheduled = {ci: 0 for ci in range(len(cells))}
-    wave = {ci: min_blocks for ci in range(len(cells))}
-    with backend_session(backend, scheduler, frame, cells):  # one dask client and scatter for every wave
-        _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
-                     block_size, min_blocks, states, have, scheduled, wave,
-                     frame.layout.truth if truth is None else np.asarray(truth, dtype=float))
-    kept = [have[ci][b] for ci, st in states.items() for b in range(st.used)]
-    return kept, report(cells, states, rule)
 
-
-def _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
-                 block_size, min_blocks, states, have, scheduled, wave, truth) -> None:
+def _until_waves(plan, waves: _Waves, truth: np.ndarray, progress) -> None:
     """The waves of :func:`simulate_until`: dispatch, consume in block order, size the next wave."""
-    from samplewright.evaluation.stopping import advance
-
-    max_blocks = len(spans)
+    rule, max_blocks = plan.stopping, len(waves.spans)
     while True:
         tasks = []
-        for ci, st in states.items():
+        for ci, st in waves.states.items():
             if st.stopped:
                 continue
-            upto = min(max_blocks, wave[ci])
-            tasks += [(ci, b, spans[b][1], spans[b][2]) for b in range(scheduled[ci], upto)]
-            scheduled[ci] = max(scheduled[ci], upto)
+            upto = min(max_blocks, waves.aim[ci])
+            tasks += [(ci, b, waves.spans[b][1], waves.spans[b][2]) for b in range(waves.scheduled[ci], upto)]
+            waves.scheduled[ci] = max(waves.scheduled[ci], upto)
         if not tasks:
             break
-        for r in _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
-            have[r.cell][r.block] = r
-        for ci, st in states.items():
+        for r in _complete(plan, tasks, progress):
+            waves.have[r.cell][r.block] = r
+        for ci, st in waves.states.items():
             if st.stopped:
                 continue
-            advance(st, have[ci], rule, truth, min_blocks, max_blocks)
+            rule.advance(st, waves.have[ci], truth, waves.min_blocks, max_blocks)
             if not st.stopped:  # aim at the replicates still asked for, growing at most twofold per wave
-                aim = -(-st.tally.needed(rule.targets) // block_size)
-                wave[ci] = min(max_blocks, max(st.used + max(jobs, 1), min(aim, 2 * st.used)))
+                aim = -(-st.tally.needed(rule.targets) // plan.block_size)
+                waves.aim[ci] = min(max_blocks, max(st.used + max(plan.jobs, 1), min(aim, 2 * st.used)))
 
 
-def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
-    """Yield the result of every task (cell id, block, start, count): from ``store`` when it
-    holds the block already, otherwise drawn now (and saved to ``store`` on arrival)."""
+def _complete(plan, tasks, progress):
+    """Yield the result of every task (cell id, block, start, count): from the plan's store when it
+    holds the block already, otherwise drawn now (and saved to the store on arrival)."""
+    store = plan.store
     done = store.finished() if store is not None else set()
-    width = len(frame.layout.names)
+    width = len(plan.frame.layout.names)
     todo = []
     for ci, b, s, count in tasks:
-        cell = cells[ci]
+        cell = plan.cells[ci]
         r = store.load(cell, ci, b, s, count, width) if (cell.key, cell.size_index, b) in done else None
         if r is not None:
             if progress:
@@ -211,17 +193,16 @@ def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, schedu
             yield r
         else:
             todo.append((ci, b, s, count))
-    for r in dispatch(frame, cells, todo, seed, confidence, cost, jobs, backend, scheduler):
+    for r in dispatch(plan, todo):
         if store is not None:
-            store.save(r, cells[r.cell])
+            store.save(r, plan.cells[r.cell])
         if progress:
             progress(r.cell, len(r.n))
         yield r
 
 
-def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: float, cost: CostModel,
-             jobs: int = 1, backend: str = "local", scheduler: str | None = None):
-    """Run ``run_block`` for each task (cell id, block, start, count); yield results as they finish.
+def dispatch(plan, tasks):
+    """Run ``run_block`` for each task (cell id, block, start, count) of ``plan``; yield results as they finish.
 
     ``backend="local"`` runs in this process when ``jobs`` is 1, else on ``jobs`` worker
     processes forked from this one (where the platform forks and this process runs no
@@ -230,6 +211,8 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
     at ``scheduler`` through joblib's dask backend, with the frame scattered to the workers
     once (not shipped with every block).
     """
+    frame, cells, seed, confidence, cost = plan.frame, plan.cells, plan.seed, plan.confidence, plan.cost
+    jobs, backend, scheduler = plan.jobs, plan.backend, plan.scheduler
     calls = [(ci, b, s, count, block_seed(seed, cells[ci], b)) for ci, b, s, count in tasks]
     if not calls:
         return

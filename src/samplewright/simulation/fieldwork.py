@@ -12,7 +12,8 @@ The glue between the designs and the response, weighting and frame-error modules
    whose SeedSequence is the block's with one spawn-key word appended, and estimates twice
    from the same replicate draws: with every eligible unit responding (full response) and
    with the drawn responses, each through the design's adjustment.
-3. :func:`summary_columns` adds the non-response columns to the summary.
+3. :func:`samplewright.evaluation.nonresponse.summary_columns` adds the non-response columns to the
+   summary.
 
 Bias split, per summary row (x: the estimate with non-response; x_full: the same
 replicate's full-response estimate; C: the estimator on a census of the listed frame with
@@ -34,26 +35,14 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from samplewright.simulation import response as _response
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import ESTIMATORS
-from samplewright.evaluation.measures import holds
-from samplewright.population.frame import Frame
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
-
-#: per-replicate columns fieldwork adds to the replicate table (after the contract columns)
-REPLICATE_COLUMNS = ("attempted", "eligible", "full_estimate", "full_se", "full_lower", "full_upper",
-                     "full_cost", "adjustment_failed")
-#: summary columns fieldwork adds (after the contract columns)
-SUMMARY_EXTRA = [
-    "adjustment", "mean_attempted", "mean_respondents", "response_rate", "cost_per_complete",
-    "full_response_bias", "full_response_empirical_se", "full_response_rmse", "full_response_coverage",
-    "full_response_mean_cost", "full_response_cost_per_complete",
-    "sampling_bias", "sampling_bias_mcse", "frame_bias", "nonresponse_bias", "nonresponse_bias_mcse",
-    "adjustment_failures",
-]
+from samplewright.population.frame import Frame
+from samplewright.simulation import response as _response
+from samplewright.simulation.blocks import BlockResult
 
 
 @dataclass(frozen=True, eq=False)
@@ -74,14 +63,19 @@ class FieldSetup:
     truth: Frame  # the true population (the evaluator's truths)
     census: dict  # (design label, estimator) -> (V',) estimator on a census of the listed frame
     adjustments: dict  # design label -> AdjustmentSpec
+    per_design: dict  # design label -> Fieldwork, what its cells' block runner needs
     info: dict
+
+
+def adjustment_specs(scenario) -> tuple[AdjustmentSpec, ...]:
+    """Each design's weighting adjustment (none for a scenario built without them)."""
+    return scenario.adjustments or tuple(AdjustmentSpec() for _ in scenario.designs)
 
 
 def active(scenario) -> bool:
     """Whether the scenario asks for any fieldwork (response, frame errors or an adjustment)."""
-    adj = [getattr(d, "adjustment", None) for d in scenario.designs]
-    return (getattr(scenario, "response", None) is not None or getattr(scenario, "frame_error", None) is not None
-            or any(a is not None and a.method != "none" for a in adj))
+    return (scenario.response is not None or scenario.frame_error is not None
+            or any(a.method != "none" for a in adjustment_specs(scenario)))
 
 
 # ------------------------------------------------------------------ unit layout
@@ -182,10 +176,8 @@ def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.S
 
 
 def run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost):
-    """``engine.run_block`` for a design with fieldwork attached (see module notes)."""
-    from samplewright.simulation.engine import BlockResult
-
-    fw = cell.design.fieldwork
+    """``engine.run_block`` for a cell with fieldwork (see module notes)."""
+    fw = cell.fieldwork
     rng = np.random.default_rng(seedseq)
     sample = cell.design.draw(frame, rng, count, keep_units=True)
     real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, seedseq)
@@ -199,21 +191,6 @@ def run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, conf
     )
 
 
-def replicate_columns(blocks, E: int, V: int) -> dict:
-    """Extra replicate-table columns for one cell's sorted blocks (empty without fieldwork)."""
-    if not blocks or getattr(blocks[0], "full_estimate", None) is None:
-        return {}
-    out = {}
-    for k in REPLICATE_COLUMNS:
-        if k in ("full_estimate", "full_se", "full_lower", "full_upper"):
-            a = np.concatenate([getattr(r, k) for r in blocks], axis=1)  # (E, R, V)
-            out[k] = a.transpose(0, 2, 1).reshape(-1)
-        else:
-            a = np.concatenate([getattr(r, k) for r in blocks])
-            out[k] = np.tile(a, E * V)
-    return out
-
-
 # ------------------------------------------------------------------ set-up
 def _columns_needed(scenario) -> list[str]:
     names = []
@@ -221,10 +198,8 @@ def _columns_needed(scenario) -> list[str]:
         names += list(scenario.response.columns())
     if scenario.frame_error is not None:
         names += list(scenario.frame_error.columns())
-    for d in scenario.designs:
-        a = getattr(d, "adjustment", None)
-        if a is not None:
-            names += list(a.columns())
+    for spec in adjustment_specs(scenario):
+        names += list(spec.columns())
     return list(dict.fromkeys(names))
 
 
@@ -310,8 +285,8 @@ def _census(fw: Fieldwork, frame: Frame, estimators, confidence) -> dict:
     return {est: ESTIMATORS[est](census, N, frame.V, confidence, frame.layout).estimate[0] for est in estimators}
 
 
-def prepare(scenario, frame: Frame, cells, seed: int, confidence: float) -> FieldSetup | None:
-    """Set up fieldwork for a run (None when the scenario asks for none); attaches it to the cells.
+def prepare(scenario, frame: Frame, seed: int, confidence: float) -> FieldSetup | None:
+    """Set up fieldwork for a run (None when the scenario asks for none).
 
     ``frame`` is the true population as loaded; the returned setup's ``frame`` is what the
     designs must draw from (the listed frame under ``[frame_error]``).
@@ -342,56 +317,15 @@ def prepare(scenario, frame: Frame, cells, seed: int, confidence: float) -> Fiel
         info["response"] = {**model.describe(),
                             "mean_propensity": None if p.unit is None else float(p.unit.mean())}
     census, adjustments, per_design = {}, {}, {}
-    for d, ests in zip(scenario.designs, scenario.estimators):
-        spec = getattr(d, "adjustment", None) or AdjustmentSpec()
+    for d, ests, spec in zip(scenario.designs, scenario.estimators, adjustment_specs(scenario)):
         adjustments[d.label] = spec
         fw = Fieldwork(eligible=eligible, propensity=propensity,
                        adjustment=_resolve_adjustment(spec, listed, source, cols), spec=spec)
         per_design[d.label] = fw
         for est, value in _census(fw, listed, ests, confidence).items():
             census[(d.label, est)] = value
-    for cell in cells:
-        cell.design.fieldwork = per_design[cell.design.label]
     info["adjustments"] = {label: s.describe() for label, s in adjustments.items()}
     info["response_seed"] = ("block SeedSequence with spawn_key extended by "
                              f"{_response.BLOCK_KEY} (crc32 of 'response-draws')")
-    return FieldSetup(frame=listed, truth=frame, census=census, adjustments=adjustments, info=info)
-
-
-# ------------------------------------------------------------------ summary
-def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup, confidence: float) -> pd.DataFrame:
-    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) appended."""
-    names = list(setup.frame.layout.names)
-    truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
-    extra = []
-    groups = {k: g for k, g in reps.groupby(["design", "size", "estimator", "variable"], sort=False)}
-    for _, row in summary.iterrows():
-        g = groups[(row["design"], row["size"], row["estimator"], row["variable"])]
-        T = float(truth[row["variable"]])
-        x, xf = g["estimate"].to_numpy(), g["full_estimate"].to_numpy()
-        R = len(x)
-        census = float(setup.census[(row["design"], row["estimator"])][names.index(row["variable"])])
-        resp, att, elig = g["n"].mean(), g["attempted"].mean(), g["eligible"].mean()
-        cost, fcost = g["cost"].mean(), g["full_cost"].mean()
-        d = x - xf
-        cover = float(np.mean(holds(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T)))
-        extra.append({
-            "adjustment": setup.adjustments[row["design"]].method,
-            "mean_attempted": float(att),
-            "mean_respondents": float(resp),
-            "response_rate": float(resp / elig) if elig > 0 else float("nan"),
-            "cost_per_complete": float(cost / resp) if resp > 0 else float("nan"),
-            "full_response_bias": float(xf.mean() - T),
-            "full_response_empirical_se": float(xf.std(ddof=1)) if R > 1 else float("nan"),
-            "full_response_rmse": float(np.sqrt(np.mean((xf - T) ** 2))),
-            "full_response_coverage": cover,
-            "full_response_mean_cost": float(fcost),
-            "full_response_cost_per_complete": float(fcost / elig) if elig > 0 else float("nan"),
-            "sampling_bias": float(xf.mean() - census),
-            "sampling_bias_mcse": float(xf.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
-            "frame_bias": census - T,
-            "nonresponse_bias": float(d.mean()),
-            "nonresponse_bias_mcse": float(d.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan"),
-            "adjustment_failures": int(g["adjustment_failed"].sum()),
-        })
-    return pd.concat([summary.reset_index(drop=True), pd.DataFrame(extra, columns=SUMMARY_EXTRA)], axis=1)
+    return FieldSetup(frame=listed, truth=frame, census=census, adjustments=adjustments, per_design=per_design,
+                      info=info)
