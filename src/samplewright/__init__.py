@@ -15,8 +15,14 @@ Heavier modules are imported on first use, so ``import samplewright`` stays ligh
 
 from __future__ import annotations
 
+import logging
+
 from samplewright._version import __version__
 from samplewright.errors import InputError
+
+# the package logs its steps, notes and warnings on the "samplewright" logger; silent unless a
+# handler is installed (the command line installs one)
+logging.getLogger("samplewright").addHandler(logging.NullHandler())
 
 __all__ = [
     "Frame",

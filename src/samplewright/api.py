@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 import dataclasses
+import logging
 import platform
 import time
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass
+from contextlib import contextmanager
 
 import numpy as np
 import pandas as pd
@@ -37,6 +38,16 @@ from samplewright.simulation.engine import replicate_table, simulate, simulate_u
 from samplewright.simulation.limits import check_run_memory
 from samplewright.simulation.plan import RunOptions, RunPlan, build_plan, run_settings, with_store
 from samplewright.simulation.progress import Progress
+
+logger = logging.getLogger("samplewright")
+#: the log level of notes: facts of the set-up that need no action (between INFO and WARNING)
+NOTE = 25
+logging.addLevelName(NOTE, "NOTE")
+
+
+def _listened() -> bool:
+    """Whether some handler besides the package's NullHandler reads the ``samplewright`` log."""
+    return any(not isinstance(h, logging.NullHandler) for h in logger.handlers)
 
 
 def _versions() -> dict:
@@ -133,27 +144,46 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     options = RunOptions(replicates=replicates, seed=seed, jobs=jobs, block_size=block_size, exact=exact,
                          until=until, max_replicates=max_replicates, out=out, resume=resume, backend=backend,
                          scheduler=scheduler)
-    return run_with(scenario, options, frame=frame, progress=progress,
-                    hooks=Hooks(log=log, warn=warn, note=note, ready=ready))
+    with _callbacks(log, warn, note):
+        return run_with(scenario, options, frame=frame, progress=progress, ready=ready)
 
 
-@dataclass(frozen=True)
-class Hooks:
-    """What the caller is told while a run goes: step lines, warnings, notes, and 'every check passed'."""
+class _Callbacks(logging.Handler):
+    """Hands the run's log records to the callables given to :func:`run`, by level."""
 
-    log: Callable[[str], None] | None = None
-    warn: Callable[[str], None] | None = None
-    note: Callable[[str], None] | None = None
-    ready: Callable[[], None] | None = None
+    def __init__(self, log, warn, note):
+        super().__init__(logging.DEBUG)
+        self.by_level = ((logging.WARNING, warn), (NOTE, note), (logging.DEBUG, log))
 
-    def say(self, message: str) -> None:
-        if self.log is not None:
-            self.log(message)
+    def emit(self, record: logging.LogRecord) -> None:
+        target = next(call for level, call in self.by_level if record.levelno >= level)
+        if target is not None:
+            target(record.getMessage())
+
+
+@contextmanager
+def _callbacks(log, warn, note):
+    """While a run goes, the ``log``/``warn``/``note`` callables of :func:`run` receive its records."""
+    if log is None and warn is None and note is None:
+        yield
+        return
+    handler, level = _Callbacks(log, warn, note), logger.level
+    logger.addHandler(handler)
+    logger.setLevel(logging.INFO if log is not None else NOTE if note is not None else logging.WARNING)
+    try:
+        yield
+    finally:
+        logger.removeHandler(handler)
+        logger.setLevel(level)
 
 
 def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None, progress: bool | None = False,
-             hooks: Hooks = Hooks()) -> RunResult:
-    """:func:`run` with its options gathered: options -> plan -> simulate -> evaluate -> decide -> result."""
+             ready: Callable[[], None] | None = None) -> RunResult:
+    """:func:`run` with its options gathered: options -> plan -> simulate -> evaluate -> decide -> result.
+
+    Steps are logged at INFO, notes at :data:`NOTE` and warnings at WARNING on the ``"samplewright"``
+    logger; ``ready`` is called once every check has passed, before anything is simulated or written.
+    """
     started = time.monotonic()
     saved = None
     if options.resume:  # the saved run's settings, unless given again (then they must agree)
@@ -161,33 +191,33 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
     replicates, _, _ = run_settings(scenario, options)
     rule = _stopping_rule(options, replicates)
     if frame is None:
-        hooks.say("loading the frame")
+        logger.info("loading the frame")
     plan = build_plan(scenario, options, frame=frame, stopping=rule)
     frame = plan.frame
-    hooks.say(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
+    logger.info(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
     manifest = None if options.out is None else _manifest(plan, scenario)
     if saved is not None:  # refused before any warning about the run asked for now
         saved.check(manifest, options.out)
     _check_size(plan, options)
-    if hooks.ready is not None:  # every check passed
-        hooks.ready()
-    warned, notes = _checks(plan, options.exact, hooks)
+    if ready is not None:  # every check passed
+        ready()
+    warned, notes = _checks(plan, options.exact)
     if options.exact:
         return _exact_result(plan, scenario, warned, notes, started)
-    hooks.say(f"{len(plan.cells)} design x size cells, {plan.replicates} replicates each, blocks of {plan.block_size}")
+    logger.info(f"{len(plan.cells)} design x size cells, {plan.replicates} replicates each, blocks of {plan.block_size}")
     bar = Progress({label: 0 for label in plan.labels}, enabled=progress)
     for label in plan.labels:
         bar.totals[label] += plan.replicates
     if options.out is not None:
-        plan = with_store(plan, _block_store(saved, options.out, manifest, bar, warned, hooks))
+        plan = with_store(plan, _block_store(saved, options.out, manifest, bar, warned))
     results, stopping, seconds = _simulate(plan, bar)
-    hooks.say(f"simulated in {seconds:.2f} s")
+    logger.info(f"simulated in {seconds:.2f} s")
     res = _evaluate(plan, scenario, results)
     res.info = _run_info(plan, scenario, stopping, warned, notes) | {
         "elapsed_seconds": round(time.monotonic() - started, 3), "simulation_seconds": round(seconds, 3),
         "frame_order": res.info["frame_order"]}
     res.warnings = warned
-    _decide(res, scenario, hooks)
+    _decide(res, scenario)
     return res
 
 
@@ -242,32 +272,32 @@ def _check_size(plan: RunPlan, options: RunOptions) -> None:
                      plan.stopping.max_replicates if plan.stopping else None)
 
 
-def _checks(plan: RunPlan, exact: bool, hooks: Hooks) -> tuple[list[str], list[str]]:
+def _checks(plan: RunPlan, exact: bool) -> tuple[list[str], list[str]]:
     """The run's warnings and notes, each once, told to the caller before any time is spent simulating."""
     frame, cells = plan.frame, plan.cells
     warned = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(plan.truth)
                                 + design_warnings(frame, cells, None if exact else plan.replicates)))
     notes = list(dict.fromkeys(design_notes(frame, cells) + cost_notes(plan.cost, frame)))
-    for message in warned if hooks.warn is not None else ():
-        hooks.warn(message)
-    for message in notes if hooks.note is not None else ():
-        hooks.note(message)
+    for message in warned:
+        logger.warning(message)
+    for message in notes:
+        logger.log(NOTE, message)
     return warned, notes
 
 
-def _block_store(saved, out, manifest: dict, bar: Progress, warned: list, hooks: Hooks):
+def _block_store(saved, out, manifest: dict, bar: Progress, warned: list):
     """The store keeping finished blocks in ``out/blocks/``: the resumed run's, or a new one."""
     if saved is not None:
         store = saved
-        hooks.say(f"resuming: {len(store.finished())} finished blocks in {store.folder}")
+        logger.info(f"resuming: {len(store.finished())} finished blocks in {store.folder}")
     else:
         store = BlockStore.create(out, manifest)
 
     def damaged(message: str) -> None:  # a block file drawn again: said now and kept in run.json
         warned.append(message)
-        if hooks.warn is not None:
+        if logger.isEnabledFor(logging.WARNING) and _listened():
             bar.break_line()
-            hooks.warn(message)
+        logger.warning(message)
 
     store.warn = damaged
     return store
@@ -380,13 +410,16 @@ def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, 
                      info=info, warnings=warned)
 
 
-def _decide(res: RunResult, scenario: Scenario, hooks: Hooks) -> None:
+def _decide(res: RunResult, scenario: Scenario) -> None:
     """The frontier and recommendation; a failure here never costs the simulated tables."""
     try:
         res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         res.late_failures.append(("the cost-precision frontier and recommendation", exc))
-        if hooks.warn is None:
+        if _listened():
+            logger.warning(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
+                           f"tables are complete")
+        else:  # nobody reads the log: a Python warning, so the failure is not silent
             warnings.warn(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
                           f"tables are complete", SamplewrightWarning, stacklevel=3)
 
