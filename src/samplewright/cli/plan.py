@@ -70,8 +70,8 @@ def _floats(text: str, flag: str) -> list[float]:
 
 
 def _read_strata(path: str):
-    from samplewright.population.frame import read_table
     from samplewright.config.validate import closest
+    from samplewright.population.frame import read_table
 
     df = read_table(path)
     for col in df.columns:

@@ -21,8 +21,8 @@ def add_arguments(p) -> None:
 
 
 def main(args) -> int:
-    from samplewright.report import report_folder
     from samplewright.cli.common import logger
+    from samplewright.report import report_folder
 
     page = report_folder(args.folder, svg=args.svg, force=args.force, log=logger(args))
     if not args.quiet:

@@ -15,8 +15,9 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from samplewright.config.goal import Goal
+from samplewright.config.methods import RENAMED_METHODS
 from samplewright.config.validate import as_bool, as_float, as_int, as_sizes, as_str, check_keys, closest
-from samplewright.designs import METHODS, RENAMED_METHODS, Design
+from samplewright.designs import METHODS, Design
 from samplewright.errors import InputError, show
 from samplewright.estimation.auxiliary import check_estimators
 from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS

@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS, size_key
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
 from samplewright.errors import InputError
 from samplewright.estimation.two_stage_variance import one_unit_note, within_factor
-from samplewright.designs.base import Design
 
 
 class Cluster(Design):
@@ -23,8 +24,8 @@ class Cluster(Design):
     """
 
     method = "cluster"
-    size_key = "clusters"
-    keys = ("clusters", "units_per_cluster", "cap_units", "variance")
+    size_key = size_key("cluster")
+    keys = METHOD_KEYS["cluster"]
     variances = ("two_stage", "ultimate_cluster")
 
     def __init__(self, label: str, clusters, units_per_cluster: int | None = None, cap_units: bool = False,

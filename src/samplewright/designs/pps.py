@@ -27,11 +27,12 @@ import math
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
+from samplewright.designs.base import Design
 from samplewright.designs.draws import _KEY_BUDGET
 from samplewright.designs.enumeration import combination_chunks, product_chunks
-from samplewright.errors import InputError
-from samplewright.designs.base import Design
 from samplewright.designs.pips import pips, sampford_draw, sampford_route, size_measure, units_block
+from samplewright.errors import InputError
 
 #: most subsets enumerated to get exact joint inclusion probabilities (and in exact mode)
 ENUMERATION_LIMIT = 2_000_000
@@ -40,7 +41,6 @@ ENUMERATION_LIMIT = 2_000_000
 class _SizeDesign(Design):
     """Shared set-up of the fixed-size pi-ps designs: pi_i, certainty units, block layout."""
 
-    keys = ("n", "variance")
     variances = ("hansen_hurwitz", "hartley_rao", "brewer")
 
     def __init__(self, label: str, n, variance: str | None = None):
@@ -130,6 +130,7 @@ class PPSSystematic(_SizeDesign):
     """
 
     method = "pps_systematic"
+    keys = METHOD_KEYS[method]
 
     def _cum(self, frame):
         s = self.setup(frame)
@@ -176,6 +177,7 @@ class Sampford(_SizeDesign):
     """
 
     method = "sampford"
+    keys = METHOD_KEYS[method]
     variances = ("hansen_hurwitz", "hartley_rao", "brewer", "sen_yates_grundy")
 
     def check(self, frame):
@@ -258,6 +260,7 @@ class Pareto(_SizeDesign):
     """
 
     method = "pareto"
+    keys = METHOD_KEYS[method]
 
     def _select(self, frame, rng, B):
         s = self.setup(frame)
@@ -288,7 +291,7 @@ class PPSWithReplacement(Design):
     """
 
     method = "pps"
-    keys = ("n", "replace", "variance")
+    keys = METHOD_KEYS[method]
     variances = ("hansen_hurwitz",)
 
     def __init__(self, label: str, n, replace: bool | None = None, variance: str | None = None):

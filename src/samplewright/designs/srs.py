@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions, with_replacement
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
 
 
 class SRS(Design):
@@ -24,7 +25,7 @@ class SRS(Design):
     """
 
     method = "srs"
-    keys = ("n", "replace")
+    keys = METHOD_KEYS["srs"]
 
     def __init__(self, label: str, n, replace: bool = False):
         super().__init__(label, n=n, replace=replace)

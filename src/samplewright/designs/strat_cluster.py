@@ -32,15 +32,16 @@ import math
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS, size_key
 from samplewright.designs.allocation import real_allocation, round_allocation
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
+from samplewright.designs.cluster import Cluster, second_stage_block
 from samplewright.designs.draws import distinct_positions
 from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
+from samplewright.designs.pips import pips, sampford_draw, size_measure
 from samplewright.errors import InputError
 from samplewright.estimation.two_stage_variance import one_unit_note
-from samplewright.designs.base import Design
-from samplewright.designs.cluster import Cluster, second_stage_block
-from samplewright.designs.pips import pips, sampford_draw, size_measure
 
 ALLOCATIONS = ("equal", "proportional", "units")
 SELECTIONS = ("srs", "pps")
@@ -64,9 +65,8 @@ class StratifiedCluster(Design):
     """
 
     method = "stratified_cluster"
-    size_key = "clusters"
-    keys = ("clusters", "cluster_allocation", "units_per_cluster", "cap_units", "selection", "cluster_size",
-            "variance")
+    size_key = size_key("stratified_cluster")
+    keys = METHOD_KEYS["stratified_cluster"]
     variances = ("two_stage", "ultimate_cluster")
 
     def __init__(self, label: str, clusters, cluster_allocation: str = "proportional",

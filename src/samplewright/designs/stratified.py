@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
 from samplewright.designs.allocation import RULES, allocate
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
 
 
 class Stratified(Design):
@@ -20,7 +21,7 @@ class Stratified(Design):
     """
 
     method = "stratified"
-    keys = ("n", "allocation", "allocation_variable")
+    keys = METHOD_KEYS["stratified"]
 
     def __init__(self, label: str, n, allocation: str = "proportional", allocation_variable: str | None = None,
                  stratum_costs=None):

@@ -5,9 +5,10 @@ from __future__ import annotations
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
+from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.designs.base import Design
 
 KINDS = ("linear", "circular")
 
@@ -61,7 +62,7 @@ class Systematic(Design):
     """
 
     method = "systematic"
-    keys = ("n", "kind", "starts", "sort_by", "variance")
+    keys = METHOD_KEYS["systematic"]
     variances = ("srs", "successive_differences", "between_starts")
 
     def __init__(self, label: str, n, kind: str = "linear", starts: int = 1, sort_by: str | None = None,

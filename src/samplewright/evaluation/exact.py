@@ -33,7 +33,7 @@ from samplewright.designs.block import SampleBlock
 from samplewright.designs.enumeration import combination_chunks, elementary_symmetric, product_chunks
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import ESTIMATORS, sample_units
-from samplewright.evaluation.measures import SUMMARY_COLUMNS, holds, design_effect, se_ratio, srs_variance
+from samplewright.evaluation.measures import SUMMARY_COLUMNS, design_effect, holds, se_ratio, srs_variance
 
 #: most samples enumerated for one design at one size
 LIMIT = 2_000_000

@@ -20,6 +20,7 @@ from samplewright.population.frame import Frame
 from samplewright.simulation.engine import Cell, check_backend, make_cells
 from samplewright.simulation.fieldwork import FieldSetup, prepare
 
+
 @dataclass(frozen=True)
 class RunOptions:
     """What the caller asks of a run, on top of the scenario (``None``: the scenario's value)."""
