@@ -39,7 +39,7 @@ from w1_scenario import w1_doc  # noqa: E402
 
 from samplewright import Frame
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 
 def timed(fn, repeat: int = 1):
@@ -157,8 +157,8 @@ def simple_frame(N: int, seed: int = 4) -> Frame:
 
 def stages(sc, frame, B: int = 500, k: int = 10) -> dict:
     """Milliseconds per block of each step of ``run_block``, per design (best of ``k``)."""
-    from samplewright.simulation.engine import make_cells
     from samplewright.estimation.estimators import ESTIMATORS, sample_units
+    from samplewright.simulation.engine import make_cells
 
     cells = make_cells(sc.designs, sc.estimators)
     rng = np.random.default_rng(5)
@@ -194,7 +194,7 @@ def peak_memory(replicates: int) -> dict:
         "    except OSError: pass\n"
         "    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
         "from w1_scenario import w1_doc\n"
-        "from samplewright.config.scenario import scenario_from_dict\n"
+        "from samplewright.simulation.scenario import scenario_from_dict\n"
         "from samplewright.api import run\n"
         "sc = scenario_from_dict(w1_doc(%d)); f = sc.load_frame()\n"
         "base = hwm()\n"

@@ -22,13 +22,13 @@ from conftest import Z, assert_coverage_is_nominal
 from scipy import stats
 
 from samplewright import Frame
-from samplewright.designs.block import SampleBlock
 from samplewright.designs import SRS
-from samplewright.simulation.engine import Cell, replicate_table, simulate
-from samplewright.simulation.plan import RunPlan
+from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import ESTIMATORS
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.engine import Cell, replicate_table, simulate
+from samplewright.simulation.plan import RunPlan
+from samplewright.simulation.scenario import scenario_from_dict
 
 # ten units, two domains (invented values for exercising code)
 TINY = pd.DataFrame({

@@ -34,8 +34,8 @@ from hypothesis import strategies as st
 from test_fuzz_scenario import to_toml
 
 from samplewright import Frame
-from samplewright.designs.allocation import RULES
 from samplewright.designs import METHODS
+from samplewright.designs.allocation import RULES
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
 
@@ -295,7 +295,7 @@ def units_past_the_frame(doc: dict) -> bool:
 @given(doc=scenarios())
 def check_scenario_runs_or_is_refused(outcomes, doc):
     from samplewright.api import run
-    from samplewright.config.scenario import scenario_from_dict
+    from samplewright.simulation.scenario import scenario_from_dict
 
     try:
         sc = scenario_from_dict(doc)

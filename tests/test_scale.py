@@ -16,14 +16,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright.simulation import engine
-from samplewright.simulation.plan import RunPlan
-from samplewright.simulation.checkpoint import BlockStore
+from samplewright.api import run
 from samplewright.cli.main import main
 from samplewright.errors import InputError
-from samplewright.api import run
-from samplewright.config.scenario import load_scenario, scenario_from_dict
 from samplewright.evaluation.stopping import parse_until
+from samplewright.simulation import engine
+from samplewright.simulation.checkpoint import BlockStore
+from samplewright.simulation.plan import RunPlan
+from samplewright.simulation.scenario import load_scenario, scenario_from_dict
 
 SCENARIO = """
 title = "Toll gate hourly counts (invented, for exercising code)"

@@ -40,9 +40,9 @@ __all__ = [
 _LAZY = {
     "Frame": ("population.frame", "Frame"),
     "run": ("api", "run"),
-    "load_scenario": ("config.scenario", "load_scenario"),
-    "scenario_from_dict": ("config.scenario", "scenario_from_dict"),
-    "Scenario": ("config.scenario", "Scenario"),
+    "load_scenario": ("simulation.scenario", "load_scenario"),
+    "scenario_from_dict": ("simulation.scenario", "scenario_from_dict"),
+    "Scenario": ("simulation.scenario", "Scenario"),
     "RunResult": ("results.result", "RunResult"),
     "read_run": ("results.load", "read_run"),
     "write_report": ("report", "write_report"),

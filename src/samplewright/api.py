@@ -14,9 +14,7 @@ import numpy as np
 import pandas as pd
 
 from samplewright._version import __version__
-from samplewright.config.scenario import Scenario
-from samplewright.decision.frontier import frontier_table
-from samplewright.decision.recommend import recommend
+from samplewright.decision import frontier, recommend
 from samplewright.diagnostics.checks import (
     cost_notes,
     design_notes,
@@ -38,6 +36,7 @@ from samplewright.simulation.engine import replicate_table, simulate, simulate_u
 from samplewright.simulation.limits import check_run_memory
 from samplewright.simulation.plan import RunOptions, RunPlan, build_plan, run_settings, with_store
 from samplewright.simulation.progress import Progress
+from samplewright.simulation.scenario import Scenario
 
 logger = logging.getLogger("samplewright")
 #: the log level of notes: facts of the set-up that need no action (between INFO and WARNING)
@@ -428,6 +427,6 @@ def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
     """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal])."""
     goal = scenario.goal
     conf = scenario.confidence if goal is None or goal.confidence is None else goal.confidence
-    front = frontier_table(summary, reps, conf)
-    rec = None if goal is None else recommend(front, goal, scenario.confidence)
+    front = frontier.frontier_table(summary, reps, conf)  # looked up on call, so a test may replace it
+    rec = None if goal is None else recommend.recommend(front, goal, scenario.confidence)
     return front, rec

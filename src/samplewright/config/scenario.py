@@ -1,39 +1,31 @@
-"""Scenario files (TOML) turned into a validated, frozen :class:`Scenario`.
+"""Scenario files (TOML) turned into checked, frozen spec dataclasses (:class:`ScenarioSpec`).
 
-Every check of a scenario's keys, types and values happens here, once; a refusal is an
+The checks of a scenario's keys, value types and ranges happen here; a refusal is an
 :class:`~samplewright.errors.InputError` naming the file and key at fault (and, for a
-misspelt key, the closest valid one).  A scenario can also be built in Python with
-:func:`scenario_from_dict` or by constructing :class:`Scenario` directly.
+misspelt key, the closest valid one).  The objects the specs describe (designs, cost model,
+response and frame-error models, adjustments) are built, with the checks that need them, by
+:mod:`samplewright.simulation.scenario`.
 """
 
 from __future__ import annotations
 
-import hashlib
-import json
 import tomllib
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 
+from samplewright.config.costs import KEYS as COST_KEYS
+from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
 from samplewright.config.goal import Goal
-from samplewright.config.methods import RENAMED_METHODS
+from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
+from samplewright.config.synthetic import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec
+from samplewright.config.synthetic import KEYS as SYNTH_KEYS
 from samplewright.config.validate import as_bool, as_float, as_int, as_sizes, as_str, check_keys, closest
-from samplewright.designs import METHODS, Design
 from samplewright.errors import InputError, show
-from samplewright.estimation.auxiliary import check_estimators
-from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS
-from samplewright.estimation.cost import SCALAR_KEYS as COST_SCALARS
-from samplewright.estimation.cost import CostModel
-from samplewright.estimation.estimators import ESTIMATORS
-from samplewright.estimation.weighting import AdjustmentSpec, adjustment_from_table
-from samplewright.population.frame import Frame, input_file, read_table
-from samplewright.population.synth import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
-from samplewright.population.synth import KEYS as SYNTH_KEYS
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
             "response", "frame_error", "goal")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
               "auxiliary", "poststratum", "domain", "domains", "cluster_cost")
-COST_KEYS = COST_MODEL_KEYS  # cost.py lists them (scalar rates, per_unit_by_stratum, charge_touched_clusters)
 GOAL_KEYS = ("moe", "budget", "confidence", "variable")
 DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
 DEFAULT_BLOCK = 500
@@ -53,15 +45,6 @@ class FrameSpec:
     synthetic: SyntheticSpec | None = None
     roles: dict = field(default_factory=dict)  # target, stratum, cluster, size, order, unit_cost, id
     missing: str = "refuse"
-
-    def dataframe(self):
-        if self.synthetic is not None:
-            return generate(self.synthetic)
-        return read_table(self.path)
-
-    def load(self) -> Frame:
-        source = "synthetic frame" if self.synthetic is not None else str(self.path)
-        return Frame.from_dataframe(self.dataframe(), missing=self.missing, source=source, **self.roles)
 
 
 def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
@@ -121,9 +104,7 @@ def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
         if "size_cv" in c:
             as_float(c["size_cv"], "size_cv", cctx, minimum=0.0)
         kw["clusters"] = dict(c)
-    spec = SyntheticSpec(**kw)
-    stratum_units(spec)  # every stratum gets a unit: refused here, before any output folder is made
-    return spec
+    return SyntheticSpec(**kw)
 
 
 def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
@@ -181,8 +162,24 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
 
 
 # ------------------------------------------------------------------ designs
-def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...], AdjustmentSpec]:
-    """Build one design, its estimator list and its weighting adjustment from a ``[[design]]`` table."""
+@dataclass(frozen=True)
+class DesignSpec:
+    """One ``[[design]]`` table, checked: its method's keys and their types (the design is built later)."""
+
+    label: str
+    method: str
+    params: dict  # the method's keys (config/methods.py), sizes checked
+    estimators: tuple[str, ...]  # names, checked against the registry when built
+    adjustment: dict  # the adjustment keys as written (estimation/weighting.py reads them)
+
+    @property
+    def context(self) -> str:
+        """How error messages name the design."""
+        return f"design {show(self.label)}"
+
+
+def design_spec(table: dict, ctx: str) -> DesignSpec:
+    """Check one ``[[design]]`` table's keys and value types."""
     if not isinstance(table, dict):
         raise InputError(f"{ctx} must be a table")
     for req in ("label", "method"):
@@ -193,16 +190,16 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...], Ad
     method = as_str(table["method"], "method", ctx)
     if method in RENAMED_METHODS:
         raise InputError(f"{ctx}: method {method!r} is no longer accepted: use {RENAMED_METHODS[method]}")
-    if method not in METHODS:
-        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, METHODS)}")
-    cls = METHODS[method]
-    check_keys(table, DESIGN_COMMON + cls.keys, ctx)
+    if method not in METHOD_KEYS:
+        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, METHOD_KEYS)}")
+    keys, sized_by = METHOD_KEYS[method], size_key(method)
+    check_keys(table, DESIGN_COMMON + keys, ctx)
     params = {}
-    for k in cls.keys:
+    for k in keys:
         if k not in table:
             continue
         v = table[k]
-        if k == cls.size_key:
+        if k == sized_by:
             params[k] = as_sizes(v, k, ctx)
         elif k in ("replace", "cap_units"):
             params[k] = as_bool(v, k, ctx)
@@ -212,66 +209,39 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...], Ad
             params[k] = as_str(v, k, ctx)
         else:
             params[k] = v
-    if cls.size_key not in params:
-        raise InputError(f"{ctx}: missing required key {show(cls.size_key)} (the sample size)")
+    if sized_by not in params:
+        raise InputError(f"{ctx}: missing required key {show(sized_by)} (the sample size)")
     est = table.get("estimators", ["ht", "hajek"])
     if isinstance(est, str):
         est = [est]
     if not isinstance(est, list) or not est:
         raise InputError(f"{ctx}: estimators must be a non-empty list, got {show(est)}")
-    for e in est:
-        if not isinstance(e, str) or e not in ESTIMATORS:
-            raise InputError(f"{ctx}: estimator {show(e)} is not known{closest(str(e), ESTIMATORS)}")
-    try:
-        design = cls(label, **params)
-    except TypeError as exc:
-        raise InputError(f"{ctx}: {exc}") from None
-    return design, tuple(dict.fromkeys(est)), adjustment_from_table(table, ctx)
+    adjustment = {k: table[k] for k in ("adjustment", "adjustment_classes", "raking_margins") if k in table}
+    return DesignSpec(label=label, method=method, params=params, estimators=tuple(est), adjustment=adjustment)
 
 
 # ------------------------------------------------------------------ scenario
 @dataclass(frozen=True)
-class Scenario:
-    """A validated scenario: the frame, the competing designs and the run settings."""
+class ScenarioSpec:
+    """A scenario's settings, checked key by key; simulation/scenario.py builds the objects they describe."""
 
     frame: FrameSpec
-    designs: tuple[Design, ...]
-    estimators: tuple[tuple[str, ...], ...]
-    adjustments: tuple[AdjustmentSpec, ...] = ()  # one per design (none: no adjustment)
+    designs: tuple[DesignSpec, ...]
     title: str = "untitled scenario"
     seed: int = 20261201
     replicates: int = 1000
     confidence: float = 0.95
     block_size: int = DEFAULT_BLOCK
-    cost: CostModel = field(default_factory=CostModel)
-    goal: Goal | None = None  # from [goal]
-    response: object | None = None  # response.ResponseModel, from [response]
-    frame_error: object | None = None  # frame_errors.FrameErrorSpec, from [frame_error]
+    cost: dict = field(default_factory=dict)  # the cost model's rates, checked
+    goal: Goal | None = None
+    response: dict | None = None  # the [response] table (simulation/response.py checks it)
+    frame_error: dict | None = None  # the [frame_error] table (population/frame_errors.py checks it)
     source: Path | None = None
     raw: dict = field(default_factory=dict, repr=False)
 
-    @property
-    def hash(self) -> str:
-        """SHA-256 of the scenario's content (keys sorted), for run.json."""
-        blob = json.dumps(self.raw, sort_keys=True, default=str).encode()
-        return hashlib.sha256(blob).hexdigest()
 
-    def load_frame(self) -> Frame:
-        return self.frame.load()
-
-
-def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = None) -> Scenario:
-    """Validate a scenario given as a dict (the parsed TOML) and build it.
-
-    Examples
-    --------
-    >>> sc = scenario_from_dict({
-    ...     "frame": {"synthetic": {"units": 500}},
-    ...     "design": [{"label": "simple", "method": "srs", "n": 50}],
-    ... })
-    >>> sc.designs[0].label
-    'simple'
-    """
+def parse_scenario(doc: dict, base: Path | str = ".", source: Path | None = None) -> ScenarioSpec:
+    """Check a scenario given as a dict (the parsed TOML): its keys, value types and ranges."""
     base = Path(base)
     check_keys(doc, TOP_KEYS, str(source) if source else "scenario")
     kw = {}
@@ -293,26 +263,18 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
         raise InputError("missing required [[design]] tables: name at least one design to rehearse")
     if not isinstance(designs, list):
         raise InputError("design must be written as [[design]] tables (a list)")
-    built = [design_from_dict(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs)]
-    for d, est, _ in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
-        check_estimators(est, frame.roles, f"design {show(d.label)}")
-    sort_keys = [d.sort_by for d, _, _ in built if isinstance(getattr(d, "sort_by", None), str)]
-    if sort_keys:  # systematic designs' sort_by columns are resolved when the frame is loaded
-        frame = replace(frame, roles={**frame.roles, "sort_keys": list(dict.fromkeys(sort_keys))})
-    labels = [d.label for d, _, _ in built]
-    dup = {x for x in labels if labels.count(x) > 1}
-    if dup:
-        raise InputError(f"design label {show(min(dup))} is used twice; labels must be unique")
+    specs = tuple(design_spec(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs))
     if "cost" in doc:
-        kw["cost"] = _cost_model(doc["cost"])
+        kw["cost"] = _cost_rates(doc["cost"])
     if "goal" in doc:
         kw["goal"] = _goal(doc["goal"], frame.roles.get("target"))
-    kw.update(_fieldwork_tables(doc))
-    return Scenario(frame=frame, designs=tuple(d for d, _, _ in built), estimators=tuple(e for _, e, _ in built),
-                    adjustments=tuple(a for _, _, a in built), source=source, raw=doc, **kw)
+    for table in ("response", "frame_error"):
+        if table in doc:
+            kw[table] = doc[table]
+    return ScenarioSpec(frame=frame, designs=specs, source=source, raw=doc, **kw)
 
 
-def _cost_model(c: dict) -> CostModel:
+def _cost_rates(c: dict) -> dict:
     """[cost]: scalar rates (numbers >= 0), [cost.per_unit_by_stratum] and charge_touched_clusters."""
     check_keys(c, COST_KEYS, "[cost]")
     kw = {k: as_float(c[k], k, "[cost]", minimum=0.0) for k in c if k in COST_SCALARS}
@@ -324,7 +286,7 @@ def _cost_model(c: dict) -> CostModel:
         kw["per_unit_by_stratum"] = tuple((str(k), as_float(v, str(k), ctx, minimum=0.0)) for k, v in t.items())
     if "charge_touched_clusters" in c:
         kw["charge_touched_clusters"] = as_bool(c["charge_touched_clusters"], "charge_touched_clusters", "[cost]")
-    return CostModel(**kw)
+    return kw
 
 
 def _goal(g: dict, targets):
@@ -349,30 +311,8 @@ def _goal(g: dict, targets):
     return Goal(**kw)
 
 
-def _fieldwork_tables(doc: dict) -> dict:
-    """[response] and [frame_error] (validated in response.py and frame_errors.py)."""
-    from samplewright.population.frame_errors import frame_error_from_dict
-    from samplewright.simulation.response import response_from_dict
-
-    out = {}
-    if "response" in doc:
-        out["response"] = response_from_dict(doc["response"])
-    if "frame_error" in doc:
-        out["frame_error"] = frame_error_from_dict(doc["frame_error"])
-    return out
-
-
-def load_scenario(path) -> Scenario:
-    """Read and validate a scenario TOML file.
-
-    Examples
-    --------
-    >>> from importlib.resources import files
-    >>> sc = load_scenario(files("samplewright") / "data" / "demo.toml")
-    >>> len(sc.designs) >= 3
-    True
-    """
-    p = input_file(path, "scenario file")
+def read_scenario_text(p: Path) -> dict:
+    """The TOML document of the scenario file ``p`` (an existing regular file), refused when too big or malformed."""
     size = p.stat().st_size
     if size > MAX_SCENARIO_BYTES:
         raise InputError(f"scenario file {str(p)!r} is {size:,} bytes, more than the {MAX_SCENARIO_BYTES:,} "
@@ -382,9 +322,8 @@ def load_scenario(path) -> Scenario:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"scenario file {str(p)!r} could not be read: {exc}") from None
     try:
-        doc = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{p}: malformed TOML: {exc}") from None
     except RecursionError:  # tomllib parses nested arrays and tables recursively
         raise InputError(f"{p}: malformed TOML: arrays or tables nested too deeply to read") from None
-    return scenario_from_dict(doc, base=p.parent, source=p)

@@ -13,12 +13,12 @@ import dataclasses
 from dataclasses import dataclass
 from pathlib import Path
 
-from samplewright.config.scenario import Scenario
 from samplewright.errors import InputError
 from samplewright.estimation.cost import CostModel
 from samplewright.population.frame import Frame
 from samplewright.simulation.engine import Cell, check_backend, make_cells
 from samplewright.simulation.fieldwork import FieldSetup, prepare
+from samplewright.simulation.scenario import Scenario
 
 
 @dataclass(frozen=True)
