@@ -10,6 +10,17 @@ import numpy as np
 REPLICATE_COLUMNS = ("attempted", "eligible", "full_estimate", "full_se", "full_lower", "full_upper",
                      "full_cost", "adjustment_failed")
 
+@dataclass(frozen=True)
+class BlockTask:
+    """One block to draw: its cell (by position in the plan), block index, first replicate, count and seed."""
+
+    cell: int
+    block: int
+    start: int
+    count: int
+    seed: np.random.SeedSequence
+
+
 @dataclass
 class BlockResult:
     """One block's per-replicate results, tagged with the cell and block it came from."""

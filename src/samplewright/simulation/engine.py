@@ -29,7 +29,7 @@ from samplewright.errors import InputError
 from samplewright.estimation.cost import CostModel
 from samplewright.estimation.estimators import ESTIMATORS, sample_units
 from samplewright.population.frame import Frame
-from samplewright.simulation.blocks import BlockResult, replicate_columns
+from samplewright.simulation.blocks import BlockResult, BlockTask, replicate_columns
 from samplewright.simulation.fieldwork import Fieldwork, run_fieldwork_block
 
 
@@ -65,16 +65,15 @@ def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
     return [(b, s, min(block_size, replicates - s)) for b, s in enumerate(range(0, replicates, block_size))]
 
 
-def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, count: int,
-              seedseq: np.random.SeedSequence, confidence: float, cost: CostModel) -> BlockResult:
+def run_block(frame: Frame, cell: Cell, task: BlockTask, confidence: float, cost: CostModel) -> BlockResult:
     """Draw one block of replicates and estimate with every estimator of the cell."""
-    if cell.fieldwork is not None:
-        return run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost)
-    rng = np.random.default_rng(seedseq)
-    sample = cell.design.draw(frame, rng, count, keep_units=cost.needs_units(cell.design))
+    if cell.fieldwork is not None:  # the cell's block runner: with fieldwork, or plain
+        return run_fieldwork_block(frame, cell, task, confidence, cost)
+    rng = np.random.default_rng(task.seed)
+    sample = cell.design.draw(frame, rng, task.count, keep_units=cost.needs_units(cell.design))
     outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence, frame.layout) for e in cell.estimators]
     return BlockResult(
-        cell=cell_id, block=block, start=start,
+        cell=task.cell, block=task.block, start=task.start,
         estimate=np.stack([o.estimate for o in outs]),
         se=np.stack([o.se for o in outs]),
         lower=np.stack([o.lower for o in outs]),
@@ -213,20 +212,19 @@ def dispatch(plan, tasks):
     """
     frame, cells, seed, confidence, cost = plan.frame, plan.cells, plan.seed, plan.confidence, plan.cost
     jobs, backend, scheduler = plan.jobs, plan.backend, plan.scheduler
-    calls = [(ci, b, s, count, block_seed(seed, cells[ci], b)) for ci, b, s, count in tasks]
+    calls = [BlockTask(ci, b, s, count, block_seed(seed, cells[ci], b)) for ci, b, s, count in tasks]
     if not calls:
         return
     if backend == "local" and (jobs == 1 or len(calls) == 1):
-        for ci, b, s, count, ss in calls:
-            yield run_block(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
+        for task in calls:
+            yield run_block(frame, cells[task.cell], task, confidence, cost)
         return
     from joblib import Parallel, delayed
 
     if backend == "dask":
         from joblib import parallel_config
 
-        work = (delayed(run_task)(frame, cells, ci, b, s, count, ss, confidence, cost)
-                for ci, b, s, count, ss in calls)
+        work = (delayed(run_task)(frame, cells, task, confidence, cost) for task in calls)
         if (scheduler, id(frame), id(cells)) in _SESSIONS:  # inside backend_session: already scattered
             yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
             return
@@ -249,7 +247,7 @@ def dispatch(plan, tasks):
     try:  # the frame and cells go to disk once; workers map them read-only (see run_shared)
         path = str(Path(folder) / "shared.joblib")
         joblib.dump((frame, cells), path)
-        work = (delayed(run_shared)(path, ci, b, s, count, ss, confidence, cost) for ci, b, s, count, ss in calls)
+        work = (delayed(run_shared)(path, task, confidence, cost) for task in calls)
         yield from Parallel(n_jobs=jobs, return_as="generator_unordered")(work)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
@@ -280,8 +278,7 @@ def _forked(frame, cells, calls, jobs, confidence, cost):
         pending = set()
         while True:
             while len(pending) < 2 * jobs:
-                chunk = [(token, ci, b, s, count, ss, confidence, cost)
-                         for ci, b, s, count, ss in itertools.islice(todo, FORK_CHUNK)]
+                chunk = [(token, task, confidence, cost) for task in itertools.islice(todo, FORK_CHUNK)]
                 if not chunk:
                     break
                 pending.add(pool.submit(_run_inherited_chunk, chunk))
@@ -303,9 +300,9 @@ def _quiet_worker() -> None:
 
 
 def _run_inherited(args) -> BlockResult:
-    token, cell_id, *rest = args
+    token, task, confidence, cost = args
     frame, cells = _INHERITED[token]
-    return run_task(frame, cells, cell_id, *rest)
+    return run_task(frame, cells, task, confidence, cost)
 
 
 def _run_inherited_chunk(chunk) -> list[BlockResult]:
@@ -313,16 +310,16 @@ def _run_inherited_chunk(chunk) -> list[BlockResult]:
     return [_run_inherited(args) for args in chunk]
 
 
-def run_task(frame: Frame, cells: list[Cell], cell_id: int, *args) -> BlockResult:
-    """``run_block`` for cell ``cells[cell_id]`` (so a backend can ship the cell list once)."""
-    return run_block(frame, cells[cell_id], cell_id, *args)
+def run_task(frame: Frame, cells, task: BlockTask, confidence: float, cost: CostModel) -> BlockResult:
+    """``run_block`` for cell ``cells[task.cell]`` (so a backend can ship the cell list once)."""
+    return run_block(frame, cells[task.cell], task, confidence, cost)
 
 
 #: per worker process: (frame, cells) already read from a dispatch's shared file
 _SHARED: dict[str, tuple] = {}
 
 
-def run_shared(path: str, cell_id: int, *args) -> BlockResult:
+def run_shared(path: str, task: BlockTask, confidence: float, cost: CostModel) -> BlockResult:
     """``run_task`` on the frame and cells the parent dumped to ``path``, read once per worker.
 
     The arrays are memory-mapped read-only, so the workers share the parent's pages instead
@@ -336,7 +333,7 @@ def run_shared(path: str, cell_id: int, *args) -> BlockResult:
         _plain_arrays(frame)
         _SHARED[path] = (frame, cells)
     frame, cells = _SHARED[path]
-    return run_task(frame, cells, cell_id, *args)
+    return run_task(frame, cells, task, confidence, cost)
 
 
 def _plain_arrays(obj) -> None:

@@ -42,7 +42,7 @@ from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
 from samplewright.population.frame import Frame
 from samplewright.simulation import response as _response
-from samplewright.simulation.blocks import BlockResult
+from samplewright.simulation.blocks import BlockResult, BlockTask
 
 
 @dataclass(frozen=True, eq=False)
@@ -175,16 +175,16 @@ def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.S
             e.sum(axis=(1, 2)).astype(float), r.sum(axis=(1, 2)).astype(float), failed)
 
 
-def run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost):
+def run_fieldwork_block(frame: Frame, cell, task: BlockTask, confidence: float, cost) -> BlockResult:
     """``engine.run_block`` for a cell with fieldwork (see module notes)."""
     fw = cell.fieldwork
-    rng = np.random.default_rng(seedseq)
-    sample = cell.design.draw(frame, rng, count, keep_units=True)
-    real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, seedseq)
+    rng = np.random.default_rng(task.seed)
+    sample = cell.design.draw(frame, rng, task.count, keep_units=True)
+    real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, task.seed)
     est, se, lo, hi = _estimate(real, frame, cell.estimators, confidence)
     fest, fse, flo, fhi = _estimate(full, frame, cell.estimators, confidence)
     return BlockResult(
-        cell=cell_id, block=block, start=start, estimate=est, se=se, lower=lo, upper=hi,
+        cell=task.cell, block=task.block, start=task.start, estimate=est, se=se, lower=lo, upper=hi,
         n=completed, cost=cost.replicate_cost(sample, frame, completed=completed),
         attempted=attempted, eligible=eligible, full_estimate=fest, full_se=fse, full_lower=flo, full_upper=fhi,
         full_cost=cost.replicate_cost(sample, frame, completed=eligible), adjustment_failed=failed.astype(float),
