@@ -236,7 +236,7 @@ def dispatch(plan, tasks):
 
     # forking a process that runs other threads can deadlock the child: then loky's workers
     if "fork" in mp.get_all_start_methods() and threading.active_count() == 1:
-        yield from _forked(frame, cells, calls, jobs, confidence, cost)
+        yield from _forked(plan, calls)
         return
     import shutil
     import tempfile
@@ -259,8 +259,8 @@ _INHERITED: dict[str, tuple] = {}
 FORK_CHUNK = 4
 
 
-def _forked(frame, cells, calls, jobs, confidence, cost):
-    """Run the calls on ``jobs`` forked worker processes that inherit the frame and cells.
+def _forked(plan, calls):
+    """Run the calls (block tasks) on ``plan.jobs`` forked worker processes that inherit the frame and cells.
 
     Forked workers share the parent's memory pages (copy-on-write) and its imports, so
     nothing is pickled but each block's seed and its small result; a pool of fresh
@@ -270,6 +270,7 @@ def _forked(frame, cells, calls, jobs, confidence, cost):
     import os
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
+    frame, cells, jobs, confidence, cost = plan.frame, plan.cells, plan.jobs, plan.confidence, plan.cost
     token = f"{os.getpid()}-{id(frame)}-{id(cells)}"
     _INHERITED[token] = (frame, cells)
     pool = ProcessPoolExecutor(jobs, mp_context=mp.get_context("fork"), initializer=_quiet_worker)
