@@ -19,7 +19,7 @@ import pandas as pd
 
 from samplewright import Frame
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 DESIGNS = [{"label": "srs", "method": "srs", "n": 1000},
            {"label": "strat", "method": "stratified", "n": 1000},

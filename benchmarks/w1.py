@@ -48,7 +48,7 @@ from w1_scenario import w1_doc
 
 from samplewright import Frame
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 
 def timed(fn, repeat: int = 1):

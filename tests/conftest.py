@@ -72,11 +72,12 @@ def assert_coverage_is_nominal(hits: int, replicates: int, nominal: float, what:
 
 def simulate_design(frame, design, estimator="ht", replicates=20_000, seed=7, confidence=0.95):
     """Replicate table of one design at one size (blocks of 1000), for checks against exact values."""
-    from samplewright.estimation.cost import CostModel
     from samplewright.simulation.engine import Cell, replicate_table, simulate
+    from samplewright.simulation.plan import RunPlan
 
     cells = [Cell(design=design, design_index=0, size_index=0, estimators=(estimator,))]
-    res = simulate(frame, cells, replicates, seed, 1000, confidence, CostModel())
+    res = simulate(RunPlan(frame=frame, cells=tuple(cells), replicates=replicates, seed=seed, block_size=1000,
+                           confidence=confidence))
     return replicate_table(res, cells, frame.variables)
 
 

@@ -20,7 +20,7 @@ from samplewright import Frame
 from samplewright.designs import DESIGN_CLASSES, SRS, Stratified
 from samplewright.errors import InputError
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 AUX = ("ratio", "greg", "poststrat")
 
@@ -304,7 +304,7 @@ def test_expense_audit_scenario_runs():
     from pathlib import Path
 
     from samplewright.api import run
-    from samplewright.config.scenario import load_scenario
+    from samplewright.simulation.scenario import load_scenario
 
     sc = load_scenario(Path(__file__).parents[1] / "scenarios" / "expense_audit_pps.toml")
     res = run(sc, replicates=40, seed=3)

@@ -24,9 +24,9 @@ import pytest
 
 from samplewright import Frame
 from samplewright.designs.allocation import allocate
-from samplewright.estimation.cost import CostModel
 from samplewright.designs import SRS, Cluster, Stratified
 from samplewright.simulation.engine import Cell, replicate_table, simulate
+from samplewright.simulation.plan import RunPlan
 from samplewright.population.synth import SyntheticSpec, generate
 from conftest import Z
 
@@ -35,7 +35,7 @@ R = 8000
 
 def run_design(frame, design, estimator="ht", seed=3):
     cells = [Cell(design=design, design_index=0, size_index=0, estimators=(estimator,))]
-    return replicate_table(simulate(frame, cells, R, seed, 1000, 0.95, CostModel()), cells, frame.variables)
+    return replicate_table(simulate(RunPlan(frame=frame, cells=tuple(cells), replicates=R, seed=seed, block_size=1000)), cells, frame.variables)
 
 
 def variance_tolerance(x):

@@ -12,16 +12,16 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z, mc_tolerance
 from scipy import stats
 
-from conftest import Z, mc_tolerance
 from samplewright import Frame
-from samplewright.designs.allocation import allocate
-from samplewright.estimation.cost import CostModel
-from samplewright.designs import SRS, Cluster, Stratified
-from samplewright.errors import InputError
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.designs import SRS, Cluster, Stratified
+from samplewright.designs.allocation import allocate
+from samplewright.errors import InputError
+from samplewright.estimation.cost import CostModel
+from samplewright.simulation.scenario import scenario_from_dict
 
 
 def _frame(cluster_cost=True, unit_cost=False):

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pandas as pd
 
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 DOC = {
     "seed": 99,

@@ -22,13 +22,13 @@ from conftest import Z, assert_coverage_is_nominal
 from scipy import stats
 
 from samplewright import Frame
-from samplewright.designs.block import SampleBlock
-from samplewright.estimation.cost import CostModel
 from samplewright.designs import SRS
-from samplewright.simulation.engine import Cell, replicate_table, simulate
+from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.engine import Cell, replicate_table, simulate
+from samplewright.simulation.plan import RunPlan
+from samplewright.simulation.scenario import scenario_from_dict
 
 # ten units, two domains (invented values for exercising code)
 TINY = pd.DataFrame({
@@ -150,7 +150,7 @@ def test_domain_proportion_coverage_is_nested_hypergeometric():
 
     cells = [Cell(design=SRS("s", n=n), design_index=0, size_index=0, estimators=("ht", "hajek"))]
     R = 20_000
-    reps = replicate_table(simulate(f, cells, R, 23, 1000, 0.95, CostModel()), cells, f.layout.names)
+    reps = replicate_table(simulate(RunPlan(frame=f, cells=tuple(cells), replicates=R, seed=23, block_size=1000)), cells, f.layout.names)
     for name, exact in (("hajek", exact_hajek), ("ht", exact_ht)):
         g = reps[(reps["estimator"] == name) & (reps["variable"] == "flag[zone=in]")]
         assert len(g) == R

@@ -21,7 +21,7 @@ import pytest
 
 from samplewright import draw
 from samplewright.cli.main import main
-from samplewright.config.scenario import load_scenario, scenario_from_dict
+from samplewright.simulation.scenario import load_scenario, scenario_from_dict
 from samplewright.simulation.selection import _bound_design, select
 
 DRAWS = 2000

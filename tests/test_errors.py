@@ -835,8 +835,8 @@ def test_cochran_skewness_rule():
     # Cochran (1977), Sampling Techniques, sec. 2.15: the normal approximation for the mean
     # needs n > 25 G1^2, G1 the population skewness (Fisher's coefficient; scipy.stats.skew
     # with bias=False is the reference computation).
-    from samplewright.diagnostics.checks import design_warnings
     from samplewright.designs import SRS as SRSDesign
+    from samplewright.diagnostics.checks import design_warnings
     from samplewright.simulation.engine import make_cells
 
     y = np.concatenate([np.ones(180), np.full(20, 30.0)])
@@ -874,7 +874,7 @@ def test_warnings_go_to_stderr_not_errors(tmp_path, capsys):
 
 def test_error_messages_one_line_for_api_users():
     # the Python API raises the same InputError the CLI prints
-    from samplewright.config.scenario import scenario_from_dict
+    from samplewright.simulation.scenario import scenario_from_dict
 
     with pytest.raises(InputError, match="unknown key 'replicats'"):
         scenario_from_dict({"replicats": 3, "frame": {"synthetic": {"units": 30}},

@@ -22,6 +22,7 @@ from samplewright.cli.main import main
 from samplewright.estimation.cost import CostModel
 from samplewright.designs import DESIGN_CLASSES
 from samplewright.simulation.engine import make_cells, replicate_table, simulate
+from samplewright.simulation.plan import RunPlan
 from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.exact import count_samples, enumerate_design, evaluate_exact
 
@@ -166,7 +167,7 @@ def test_exact_agrees_with_monte_carlo(frame):
     cells = make_cells(ds, [("ht",) if d.method == "poisson" else ("ht", "hajek") for d in ds])
     ex, _, _ = evaluate_exact(frame, cells, 0.95, CostModel())
     R = 20_000
-    res = simulate(frame, cells, R, 77, 2_000, 0.95, CostModel())
+    res = simulate(RunPlan(frame=frame, cells=tuple(cells), replicates=R, seed=77, block_size=2_000))
     reps = replicate_table(res, cells, frame.layout.names)
     mc = summarise(reps, frame, {d.label: d.method for d in ds}, 0.95)
     key = ["design", "estimator", "variable"]

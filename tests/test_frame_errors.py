@@ -21,13 +21,13 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 
 from samplewright import Frame
+from samplewright.api import run
 from samplewright.errors import InputError
 from samplewright.population.frame_errors import FrameErrorSpec, frame_error_from_dict, list_frame
-from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
-from conftest import Z
+from samplewright.simulation.scenario import scenario_from_dict
 
 
 @pytest.fixture(scope="module")

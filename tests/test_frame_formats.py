@@ -214,7 +214,7 @@ def test_parquet_reads_only_the_role_columns(tmp_path, monkeypatch):
     asked = []
     real = pq.read_table
     monkeypatch.setattr(pq, "read_table", lambda p, columns=None, **k: asked.append(columns) or real(p, columns=columns))
-    from samplewright.config.scenario import scenario_from_dict
+    from samplewright.simulation.scenario import scenario_from_dict
 
     doc = {"frame": {"path": "f.parquet", "target": "amount", "stratum": "region"},
            "design": [{"label": "s", "method": "srs", "n": 4}]}

@@ -18,11 +18,11 @@ from conftest import Z
 from scipy import stats
 from scipy.optimize import brentq
 
+from samplewright.api import run
 from samplewright.decision import planning
 from samplewright.decision.frontier import FRONTIER_COLUMNS, fit_curve, pareto, size_for_moe
 from samplewright.decision.recommend import COVERAGE_Z, Goal, coverage_acceptable, recommend
-from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 Z95 = float(stats.norm.ppf(0.975))
 

@@ -20,7 +20,7 @@ from conftest import Z
 from samplewright.cli.main import main
 from samplewright.decision.frontier import fit_curve
 from samplewright.files import protect_cell, restore_cell, write_csv, write_json, write_parquet, write_text
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 SRC = str(Path(__file__).resolve().parents[1] / "src")
 

@@ -300,7 +300,7 @@ def units_past_the_frame(doc: dict) -> bool:
 @given(doc=scenarios())
 def check_scenario_runs_or_is_refused(outcomes, doc):
     from samplewright.api import run
-    from samplewright.config.scenario import scenario_from_dict
+    from samplewright.simulation.scenario import scenario_from_dict
 
     try:
         sc = scenario_from_dict(doc)

@@ -28,12 +28,12 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 from scipy import stats
 
-from samplewright.errors import InputError
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
-from conftest import Z
+from samplewright.errors import InputError
+from samplewright.simulation.scenario import scenario_from_dict
 
 
 def variance_tolerance(x):

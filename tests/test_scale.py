@@ -16,13 +16,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright.simulation import engine
-from samplewright.simulation.checkpoint import BlockStore
+from samplewright.api import run
 from samplewright.cli.main import main
 from samplewright.errors import InputError
-from samplewright.api import run
-from samplewright.config.scenario import load_scenario, scenario_from_dict
 from samplewright.evaluation.stopping import parse_until
+from samplewright.simulation import engine
+from samplewright.simulation.checkpoint import BlockStore
+from samplewright.simulation.plan import RunPlan
+from samplewright.simulation.scenario import load_scenario, scenario_from_dict
 
 SCENARIO = """
 title = "Toll gate hourly counts (invented, for exercising code)"
@@ -191,7 +192,8 @@ def test_block_store_round_trip(scenario_file, tmp_path):
     frame = sc.load_frame()
     cells = engine.make_cells(sc.designs, sc.estimators)
     store = BlockStore.create(tmp_path, {"seed": 1})
-    results = engine.simulate(frame, cells[:1], 250, 1, 100, 0.95, sc.cost, store=store)
+    results = engine.simulate(RunPlan(frame=frame, cells=tuple(cells[:1]), replicates=250, seed=1, block_size=100,
+                                       cost=sc.cost, store=store))
     assert store.finished() == {(cells[0].key, 0, b) for b in range(3)}
     width = len(frame.layout.names)
     back = [store.load(cells[0], 0, b, s, count, width) for b, s, count in engine.block_spans(250, 100)]

@@ -159,8 +159,8 @@ def test_exact_mode_unbiased_and_counts(kw, big):
 
 
 def test_exact_mode_agrees_with_monte_carlo_two_stage_pps():
-    from samplewright.estimation.cost import CostModel
     from samplewright.simulation.engine import make_cells, replicate_table, simulate
+    from samplewright.simulation.plan import RunPlan
     from samplewright.evaluation.measures import summarise
 
     f = zone_frame()
@@ -168,7 +168,7 @@ def test_exact_mode_agrees_with_monte_carlo_two_stage_pps():
     ex, _, _ = exact_summary(f, d, ("ht", "hajek"))
     cells = make_cells([d], [("ht", "hajek")])
     R = 20_000
-    reps = replicate_table(simulate(f, cells, R, 99, 2_000, 0.95, CostModel()), cells, f.layout.names)
+    reps = replicate_table(simulate(RunPlan(frame=f, cells=tuple(cells), replicates=R, seed=99, block_size=2_000)), cells, f.layout.names)
     mc = summarise(reps, f, {"zones": d.method}, 0.95)
     both = ex.merge(mc, on=["design", "estimator", "variable"], suffixes=("_x", "_mc"))
     assert len(both) == 2

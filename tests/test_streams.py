@@ -15,10 +15,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from samplewright.simulation import engine
-from samplewright.errors import InputError
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.errors import InputError
+from samplewright.simulation import engine
+from samplewright.simulation.scenario import scenario_from_dict
 
 # found by a birthday search over "srs " + 8 hex digits
 TWINS = ("srs 1fdc0ee9", "srs 5fb19e8e")

@@ -19,11 +19,11 @@ import pytest
 from conftest import Z, assert_matches_exact, simulate_design
 
 from samplewright import Frame
-from samplewright.designs.block import SampleBlock
 from samplewright.designs import Systematic
+from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.simulation.scenario import scenario_from_dict
 
 horvitz_thompson, hajek = ESTIMATORS["ht"], ESTIMATORS["hajek"]
 

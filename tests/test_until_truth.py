@@ -16,9 +16,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright.cli.main import main
 from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
+from samplewright.cli.main import main
+from samplewright.simulation.scenario import scenario_from_dict
 
 
 def _population(N=1500, seed=23):

@@ -18,12 +18,12 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
-
-from samplewright.errors import InputError
-from samplewright.api import run
-from samplewright.config.scenario import scenario_from_dict
-from samplewright.estimation.weighting import rake
 from conftest import Z
+
+from samplewright.api import run
+from samplewright.errors import InputError
+from samplewright.estimation.weighting import rake
+from samplewright.simulation.scenario import scenario_from_dict
 
 
 def test_raking_two_by_two_matches_deming_stephan_solution():

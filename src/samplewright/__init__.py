@@ -16,20 +16,36 @@ Heavier modules are imported on first use, so ``import samplewright`` stays ligh
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+import logging
 
+from samplewright._version import __version__
 from samplewright.errors import InputError
 
-__all__ = ["Frame", "InputError", "RunResult", "Scenario", "__version__", "draw", "load_scenario", "read_run", "run",
-           "scenario_from_dict", "write_report"]
+# the package logs its steps, notes and warnings on the "samplewright" logger; silent unless a
+# handler is installed (the command line installs one)
+logging.getLogger("samplewright").addHandler(logging.NullHandler())
+
+__all__ = [
+    "Frame",
+    "InputError",
+    "RunResult",
+    "Scenario",
+    "__version__",
+    "draw",
+    "load_scenario",
+    "read_run",
+    "run",
+    "scenario_from_dict",
+    "write_report",
+]
 
 _LAZY = {
     "Frame": ("population.frame", "Frame"),
     "run": ("api", "run"),
     "draw": ("api", "draw"),
-    "load_scenario": ("config.scenario", "load_scenario"),
-    "scenario_from_dict": ("config.scenario", "scenario_from_dict"),
-    "Scenario": ("config.scenario", "Scenario"),
+    "load_scenario": ("simulation.scenario", "load_scenario"),
+    "scenario_from_dict": ("simulation.scenario", "scenario_from_dict"),
+    "Scenario": ("simulation.scenario", "Scenario"),
     "RunResult": ("results.result", "RunResult"),
     "read_run": ("results.load", "read_run"),
     "write_report": ("report", "write_report"),

@@ -1,3 +1,3 @@
-"""The package version, in one place every layer may import."""
+"""The version of samplewright, in one place (pyproject.toml reads it)."""
 
 __version__ = "0.1.0"

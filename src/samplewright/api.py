@@ -2,23 +2,51 @@
 
 from __future__ import annotations
 
+import dataclasses
+import logging
 import platform
 import time
+import warnings
+from collections.abc import Callable
+from contextlib import contextmanager
 
 import numpy as np
 import pandas as pd
 
-from samplewright import __version__
-from samplewright.diagnostics.checks import cost_notes, design_notes, design_warnings, frame_warnings, variance_warnings
-from samplewright.simulation.engine import check_backend, make_cells, replicate_table, simulate, simulate_until
-from samplewright.errors import InputError
+from samplewright._version import __version__
+from samplewright.decision import frontier, recommend
+from samplewright.diagnostics.checks import (
+    cost_notes,
+    design_notes,
+    design_warnings,
+    frame_warnings,
+    variance_warnings,
+)
+from samplewright.errors import InputError, SamplewrightWarning
+from samplewright.evaluation.exact import LIMIT as SAMPLE_LIMIT
+from samplewright.evaluation.exact import check_counts, evaluate_exact
 from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.nonresponse import summary_columns
-from samplewright.simulation.fieldwork import prepare as prepare_fieldwork
+from samplewright.evaluation.stopping import Rule, parse_until
 from samplewright.population.frame import Frame
-from samplewright.simulation.progress import Progress
+from samplewright.diagnostics.frame_order import order_evidence
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
-from samplewright.config.scenario import Scenario
+from samplewright.simulation.checkpoint import BlockStore
+from samplewright.simulation.engine import replicate_table, simulate, simulate_until
+from samplewright.simulation.limits import check_run_memory
+from samplewright.simulation.plan import RunOptions, RunPlan, build_plan, run_settings, with_store
+from samplewright.simulation.progress import Progress
+from samplewright.simulation.scenario import Scenario
+
+logger = logging.getLogger("samplewright")
+#: the log level of notes: facts of the set-up that need no action (between INFO and WARNING)
+NOTE = 25
+logging.addLevelName(NOTE, "NOTE")
+
+
+def _listened() -> bool:
+    """Whether some handler besides the package's NullHandler reads the ``samplewright`` log."""
+    return any(not isinstance(h, logging.NullHandler) for h in logger.handlers)
 
 
 def _versions() -> dict:
@@ -59,8 +87,9 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
 
 def run(scenario: Scenario, replicates: int | None = None, seed: int | None = None, jobs: int = 1,
         block_size: int | None = None, frame: Frame | None = None, progress: bool | None = False,
-        exact: bool = False, log=None, until: str | None = None, max_replicates: int | None = None, out=None, resume: bool = False,
-        backend: str = "local", scheduler: str | None = None, warn=None, note=None, ready=None) -> RunResult:
+        exact: bool = False, log=None, until: str | None = None, max_replicates: int | None = None, out=None,
+        resume: bool = False, backend: str = "local", scheduler: str | None = None, warn=None, note=None,
+        ready=None) -> RunResult:
     """Rehearse every design of ``scenario`` and score it.
 
     Parameters
@@ -111,191 +140,295 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     >>> res.summary[["design", "estimator", "replicates"]].iloc[0].tolist()
     ['simple', 'ht', 200]
     """
-    say = log or (lambda _msg: None)
-    t0 = time.monotonic()
+    options = RunOptions(replicates=replicates, seed=seed, jobs=jobs, block_size=block_size, exact=exact,
+                         until=until, max_replicates=max_replicates, out=out, resume=resume, backend=backend,
+                         scheduler=scheduler)
+    with _callbacks(log, warn, note):
+        return run_with(scenario, options, frame=frame, progress=progress, ready=ready)
+
+
+class _Callbacks(logging.Handler):
+    """Hands the run's log records to the callables given to :func:`run`, by level."""
+
+    def __init__(self, log, warn, note):
+        super().__init__(logging.DEBUG)
+        self.by_level = ((logging.WARNING, warn), (NOTE, note), (logging.DEBUG, log))
+
+    def emit(self, record: logging.LogRecord) -> None:
+        target = next(call for level, call in self.by_level if record.levelno >= level)
+        if target is not None:
+            target(record.getMessage())
+
+
+@contextmanager
+def _callbacks(log, warn, note):
+    """While a run goes, the ``log``/``warn``/``note`` callables of :func:`run` receive its records."""
+    if log is None and warn is None and note is None:
+        yield
+        return
+    handler, level = _Callbacks(log, warn, note), logger.level
+    logger.addHandler(handler)
+    logger.setLevel(logging.INFO if log is not None else NOTE if note is not None else logging.WARNING)
+    try:
+        yield
+    finally:
+        logger.removeHandler(handler)
+        logger.setLevel(level)
+
+
+def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None, progress: bool | None = False,
+             ready: Callable[[], None] | None = None) -> RunResult:
+    """:func:`run` with its options gathered: options -> plan -> simulate -> evaluate -> decide -> result.
+
+    Steps are logged at INFO, notes at :data:`NOTE` and warnings at WARNING on the ``"samplewright"``
+    logger; ``ready`` is called once every check has passed, before anything is simulated or written.
+    """
+    started = time.monotonic()
     saved = None
-    if resume:  # the saved run's settings, unless given again (then they must agree)
-        from samplewright.simulation.checkpoint import BlockStore
-
-        if out is None:
-            raise InputError("resume needs the results folder of the run to continue")
-        saved = BlockStore.open(out)
-        m = saved.manifest
-        replicates = m.get("replicates") if replicates is None else replicates
-        seed = m.get("seed") if seed is None else seed
-        block_size = m.get("block_size") if block_size is None else block_size
-        until = m.get("until") if until is None else until
-        max_replicates = m.get("max_replicates") if max_replicates is None else max_replicates
-    R = scenario.replicates if replicates is None else int(replicates)
-    if R <= 0:
-        raise InputError(f"replicates must be at least 1, got {R}")
-    seed = scenario.seed if seed is None else int(seed)
-    if seed < 0:
-        raise InputError(f"seed must be a whole number of at least 0, got {seed}")
-    bs = scenario.block_size if block_size is None else int(block_size)
-    if jobs < 1:
-        raise InputError(f"jobs must be at least 1, got {jobs}")
-    check_backend(backend, scheduler)
-    rule = None
-    if until is not None:
-        from samplewright.evaluation.stopping import parse_until
-
-        cap = max(100 * R, 100_000) if max_replicates is None else max_replicates
-        rule = parse_until(until, cap)
-        if rule.max_replicates < R:
-            raise InputError(f"--max-replicates {rule.max_replicates} is below the {R} replicates every design "
-                             f"runs first; raise it or lower --replicates")
-    elif max_replicates is not None:
-        raise InputError("--max-replicates caps a stopping rule: give --until as well (e.g. "
-                         "--until coverage_mcse=0.002)")
+    if options.resume:  # the saved run's settings, unless given again (then they must agree)
+        options, saved = _resumed(options)
+    replicates, _, _ = run_settings(scenario, options)
+    rule = _stopping_rule(options, replicates)
     if frame is None:
-        say("loading the frame")
-        frame = scenario.load_frame()
-    say(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
-    designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)  # cost-optimal c_h (cost.py)
-    cells = make_cells(designs, scenario.estimators)
-    truth_frame = frame  # the true population: the evaluator's truths
-    field = prepare_fieldwork(scenario, frame, cells, seed, scenario.confidence)  # fieldwork.py
-    if field is not None:
-        frame = field.frame  # designs draw from the listed frame (frame errors)
-    frame = scenario.cost.bind(frame)  # per-stratum unit rates into the cost column (cost.py)
-    for cell in cells:
-        cell.design.check(frame)
-    manifest = None if out is None else {  # what the blocks kept in out/blocks/ are drawn from
-        "scenario": str(scenario.source.resolve()) if scenario.source else None,
-        "scenario_hash": scenario.hash, "seed": seed, "block_size": bs, "replicates": R,
-        "confidence": scenario.confidence, "until": rule.text if rule else None,
-        "max_replicates": rule.max_replicates if rule else None,
-        "cells": [[c.design.label, int(c.design.size)] for c in cells], "frame_units": frame.N,
-        "frame": truth_frame.roles.get("source"), "frame_hash": truth_frame.content_hash}
+        logger.info("loading the frame")
+    plan = build_plan(scenario, options, frame=frame, stopping=rule)
+    frame = plan.frame
+    logger.info(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
+    manifest = None if options.out is None else _manifest(plan, scenario)
     if saved is not None:  # refused before any warning about the run asked for now
-        saved.check(manifest, out)
-    if exact:  # every possible sample instead of Monte Carlo (exact.py)
-        if until is not None or resume or field is not None:
-            raise InputError("--exact enumerates every possible sample without simulating: it cannot be combined "
-                             "with --until, --resume or fieldwork settings (non-response, frame errors)")
-        from samplewright.evaluation.exact import check_counts
-
-        check_counts(frame, cells)
-    else:  # before anything is allocated or written (limits.py)
-        from samplewright.simulation.limits import check_run_memory
-
-        check_run_memory(frame, cells, R, bs, jobs if backend == "local" else 1,
-                         rule.max_replicates if rule else None)
+        saved.check(manifest, options.out)
+    _check_size(plan, options)
     if ready is not None:  # every check passed
         ready()
-    warned = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(truth_frame)
-                                + design_warnings(frame, cells, None if exact else R)))  # each once
-    notes = list(dict.fromkeys(design_notes(frame, cells) + cost_notes(scenario.cost, frame)))
-    for w in warned if warn is not None else ():  # said before any time is spent simulating
-        warn(w)
-    for m in notes if note is not None else ():
-        note(m)
-    if exact:
-        from samplewright.evaluation.exact import exact_result
+    warned, notes = _checks(plan, options.exact)
+    if options.exact:
+        return _exact_result(plan, scenario, warned, notes, started)
+    logger.info(f"{len(plan.cells)} design x size cells, {plan.replicates} replicates each, blocks of {plan.block_size}")
+    bar = Progress({label: 0 for label in plan.labels}, enabled=progress)
+    for label in plan.labels:
+        bar.totals[label] += plan.replicates
+    if options.out is not None:
+        plan = with_store(plan, _block_store(saved, options.out, manifest, bar, warned))
+    results, stopping, seconds = _simulate(plan, bar)
+    logger.info(f"simulated in {seconds:.2f} s")
+    res = _evaluate(plan, scenario, results)
+    res.info = _run_info(plan, scenario, stopping, warned, notes) | {
+        "elapsed_seconds": round(time.monotonic() - started, 3), "simulation_seconds": round(seconds, 3),
+        "frame_order": res.info["frame_order"]}
+    res.warnings = warned
+    _decide(res, scenario)
+    return res
 
-        return exact_result(scenario, frame, cells, warned, notes, t0, _versions(),
-                            allocation_table(frame, cells))
-    say(f"{len(cells)} design x size cells, {R} replicates each, blocks of {bs}")
-    bar = Progress({c.design.label: 0 for c in cells}, enabled=progress)
-    for c in cells:
-        bar.totals[c.design.label] += R
-    store = None
-    if out is not None:
-        from samplewright.simulation.checkpoint import BlockStore
 
-        if saved is not None:
-            store = saved
-            say(f"resuming: {len(store.finished())} finished blocks in {store.folder}")
-        else:
-            store = BlockStore.create(out, manifest)
+def _resumed(options: RunOptions):
+    """The options of a resumed run: the saved run's settings where none is given; and its block store."""
+    if options.out is None:
+        raise InputError("resume needs the results folder of the run to continue")
+    saved = BlockStore.open(options.out)
+    m = saved.manifest
+    kept = {k: m.get(k) for k in ("replicates", "seed", "block_size", "until", "max_replicates")
+            if getattr(options, k) is None}
+    return dataclasses.replace(options, **kept), saved
 
-        def damaged(message: str) -> None:  # a block file drawn again: said now and kept in run.json
-            warned.append(message)
-            if warn is not None:
-                bar.break_line()
-                warn(message)
 
-        store.warn = damaged
-    t1 = time.monotonic()
-    common = dict(jobs=jobs, progress=lambda ci, k: bar.update(cells[ci].design.label, k), backend=backend,
-                  scheduler=scheduler, store=store)
+def _stopping_rule(options: RunOptions, replicates: int) -> Rule | None:
+    """The sequential stopping rule of ``--until`` (None without one); ``--max-replicates`` needs it."""
+    if options.until is None:
+        if options.max_replicates is not None:
+            raise InputError("--max-replicates caps a stopping rule: give --until as well (e.g. "
+                             "--until coverage_mcse=0.002)")
+        return None
+    cap = max(100 * replicates, 100_000) if options.max_replicates is None else options.max_replicates
+    rule = parse_until(options.until, cap)
+    if rule.max_replicates < replicates:
+        raise InputError(f"--max-replicates {rule.max_replicates} is below the {replicates} replicates every "
+                         f"design runs first; raise it or lower --replicates")
+    return rule
+
+
+def _manifest(plan: RunPlan, scenario: Scenario) -> dict:
+    """What the blocks kept in out/blocks/ are drawn from (a resumed run must match it)."""
+    rule = plan.stopping
+    return {
+        "scenario": str(scenario.source.resolve()) if scenario.source else None,
+        "scenario_hash": scenario.hash, "seed": plan.seed, "block_size": plan.block_size,
+        "replicates": plan.replicates, "confidence": plan.confidence, "until": rule.text if rule else None,
+        "max_replicates": rule.max_replicates if rule else None,
+        "cells": [[c.design.label, int(c.design.size)] for c in plan.cells], "frame_units": plan.frame.N,
+        "frame": plan.truth.roles.get("source"), "frame_hash": plan.truth.content_hash}
+
+
+def _check_size(plan: RunPlan, options: RunOptions) -> None:
+    """Refuse, before anything is allocated or written, an enumeration or a simulation too large to run."""
+    if options.exact:  # every possible sample instead of Monte Carlo (exact.py)
+        if options.until is not None or options.resume or plan.fieldwork is not None:
+            raise InputError("--exact enumerates every possible sample without simulating: it cannot be combined "
+                             "with --until, --resume or fieldwork settings (non-response, frame errors)")
+        check_counts(plan.frame, plan.cells)
+        return
+    jobs = plan.jobs if plan.backend == "local" else 1
+    check_run_memory(plan.frame, plan.cells, plan.replicates, plan.block_size, jobs,
+                     plan.stopping.max_replicates if plan.stopping else None)
+
+
+def _checks(plan: RunPlan, exact: bool) -> tuple[list[str], list[str]]:
+    """The run's warnings and notes, each once, told to the caller before any time is spent simulating."""
+    frame, cells = plan.frame, plan.cells
+    warned = list(dict.fromkeys(frame_warnings(frame) + variance_warnings(plan.truth)
+                                + design_warnings(frame, cells, None if exact else plan.replicates)))
+    notes = list(dict.fromkeys(design_notes(frame, cells) + cost_notes(plan.cost, frame)))
+    for message in warned:
+        logger.warning(message)
+    for message in notes:
+        logger.log(NOTE, message)
+    return warned, notes
+
+
+def _block_store(saved, out, manifest: dict, bar: Progress, warned: list):
+    """The store keeping finished blocks in ``out/blocks/``: the resumed run's, or a new one."""
+    if saved is not None:
+        store = saved
+        logger.info(f"resuming: {len(store.finished())} finished blocks in {store.folder}")
+    else:
+        store = BlockStore.create(out, manifest)
+
+    def damaged(message: str) -> None:  # a block file drawn again: said now and kept in run.json
+        warned.append(message)
+        if logger.isEnabledFor(logging.WARNING) and _listened():
+            bar.break_line()
+        logger.warning(message)
+
+    store.warn = damaged
+    return store
+
+
+def _simulate(plan: RunPlan, bar: Progress):
+    """Every block of the plan: (block results, the stopping report or None, seconds spent)."""
+    started = time.monotonic()
+    cells = plan.cells
+
+    def advance(cell_id: int, count: int) -> None:
+        bar.update(cells[cell_id].design.label, count)
+
     stopping = None
     try:
-        if rule is None:
-            results = simulate(frame, cells, R, seed, bs, scenario.confidence, scenario.cost, **common)
+        if plan.stopping is None:
+            results = simulate(plan, progress=advance)
         else:
-            truths = dict(zip(truth_frame.layout.names, truth_frame.layout.truth))  # as summarise scores them
-            results, stopping = simulate_until(frame, cells, rule, R, seed, bs, scenario.confidence,
-                                               scenario.cost, truth=np.array([truths[v] for v in frame.layout.names]),
-                                               **common)
+            results, stopping = simulate_until(plan, progress=advance)
     except BaseException:  # Ctrl-C or a failure: its message starts on a line of its own
         bar.break_line()
         raise
     bar.close()
-    t2 = time.monotonic()
-    reps = replicate_table(results, cells, frame.layout.names, consume=True)  # targets, then domain variables
+    return results, stopping, time.monotonic() - started
+
+
+def _evaluate(plan: RunPlan, scenario: Scenario, results: list) -> RunResult:
+    """The result tables of the simulated blocks (``results`` is emptied as they are copied)."""
+    frame = plan.frame
+    reps = replicate_table(results, plan.cells, frame.layout.names, consume=True)  # targets, then domain variables
     release_freed_memory()  # the many small block arrays just freed: hand their pages back
     methods = {d.label: d.method for d in scenario.designs}
-    summary = summarise(reps, truth_frame, methods, scenario.confidence)
-    if field is not None:  # response, bias split and full-response columns after the contract ones
-        summary = summary_columns(summary, reps, field)
-    alloc = allocation_table(frame, cells)
-    from samplewright.diagnostics.frame_order import order_evidence
-
+    summary = summarise(reps, plan.truth, methods, plan.confidence)
+    if plan.fieldwork is not None:  # response, bias split and full-response columns after the contract ones
+        summary = summary_columns(summary, reps, plan.fieldwork)
     order_info, order_table = order_evidence(frame, scenario.designs)  # a cycle along a systematic walk
+    res = RunResult(summary=summary, replicates=reps, allocation=allocation_table(frame, plan.cells), info={},
+                    frame_order=order_table)
+    res.info["frame_order"] = order_info
+    return res
+
+
+def _frame_info(frame: Frame) -> dict:
+    return {"units": frame.N, "strata": frame.H, "clusters": frame.C,
+            "roles": {k: v for k, v in frame.roles.items() if k != "source"}, "source": frame.roles.get("source")}
+
+
+def _designs_info(scenario: Scenario) -> list[dict]:
+    return [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name}
+            for d in scenario.designs]
+
+
+def _run_info(plan: RunPlan, scenario: Scenario, stopping, warned: list, notes: list) -> dict:
+    """run.json's content (the timings are added by the caller)."""
+    frame, rule = plan.frame, plan.stopping
+    frame_info = _frame_info(frame)
+    frame_info = {**{k: frame_info[k] for k in ("units", "strata", "clusters")},
+                  "variables": list(frame.variables), "proportions": list(frame.layout.proportions),
+                  "domain_variables": list(frame.layout.names[frame.V:]),
+                  "roles": frame_info["roles"], "source": frame_info["source"]}
+    return {
+        "title": scenario.title,
+        "scenario": str(scenario.source) if scenario.source else None,
+        "scenario_hash": scenario.hash,
+        "seed": plan.seed,
+        "seed_entropy": int(np.random.SeedSequence(plan.seed).entropy),
+        "replicates": plan.replicates,
+        "block_size": plan.block_size,
+        "jobs": plan.jobs,
+        "backend": plan.backend,
+        "stopping": None if rule is None else {**rule.as_dict(), "cells": stopping},
+        "confidence": plan.confidence,
+        "frame": frame_info,
+        "designs": _designs_info(scenario),
+        "versions": _versions(),
+        "elapsed_seconds": None,
+        "simulation_seconds": None,
+        "warnings": warned,
+        "notes": notes,
+        "fieldwork": None if plan.fieldwork is None else plan.fieldwork.info,
+    }
+
+
+def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, started: float) -> RunResult:
+    """The result of an exact-mode run (``run --exact``): every possible sample, no Monte Carlo error."""
+    frame = plan.frame
+    enumeration_started = time.monotonic()
+    summary, samples, counts = evaluate_exact(frame, plan.cells, plan.confidence, plan.cost)
+    enumerated = time.monotonic()
+    frame_info = _frame_info(frame)
     info = {
         "title": scenario.title,
         "scenario": str(scenario.source) if scenario.source else None,
         "scenario_hash": scenario.hash,
-        "seed": seed,
-        "seed_entropy": int(np.random.SeedSequence(seed).entropy),
-        "replicates": R,
-        "block_size": bs,
-        "jobs": jobs,
-        "backend": backend,
-        "stopping": None if rule is None else {**rule.as_dict(), "cells": stopping},
-        "confidence": scenario.confidence,
-        "frame": {"units": frame.N, "strata": frame.H, "clusters": frame.C, "variables": list(frame.variables),
-                  "proportions": list(frame.layout.proportions), "domain_variables": list(frame.layout.names[frame.V:]),
-                  "roles": {k: v for k, v in frame.roles.items() if k != "source"},
-                  "source": frame.roles.get("source")},
-        "designs": [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name}
-                    for d in scenario.designs],
+        "exact": True,
+        "samples": counts,
+        "sample_limit": SAMPLE_LIMIT,
+        "replicates": None,
+        "confidence": plan.confidence,
+        "frame": {**{k: frame_info[k] for k in ("units", "strata", "clusters")},
+                  "variables": list(frame.layout.names), "roles": frame_info["roles"], "source": frame_info["source"]},
+        "designs": _designs_info(scenario),
         "versions": _versions(),
-        "elapsed_seconds": round(time.monotonic() - t0, 3),
-        "simulation_seconds": round(t2 - t1, 3),
+        "elapsed_seconds": round(time.monotonic() - started, 3),
+        "enumeration_seconds": round(enumerated - enumeration_started, 3),
         "warnings": warned,
         "notes": notes,
-        "fieldwork": None if field is None else field.info,
-        "frame_order": order_info,
     }
-    say(f"simulated in {t2 - t1:.2f} s")
-    res = RunResult(summary=summary, replicates=reps, allocation=alloc, info=info, warnings=warned,
-                    frame_order=order_table)
+    return RunResult(summary=summary, replicates=samples, allocation=allocation_table(frame, plan.cells),
+                     info=info, warnings=warned)
+
+
+def _decide(res: RunResult, scenario: Scenario) -> None:
+    """The frontier and recommendation; a failure here never costs the simulated tables."""
     try:
-        res.frontier, res.recommendation = goal_tables(summary, reps, scenario)
+        res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         res.late_failures.append(("the cost-precision frontier and recommendation", exc))
-        if warn is None:
-            import warnings
-
-            from samplewright.errors import SamplewrightWarning
-
+        if _listened():
+            logger.warning(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
+                           f"tables are complete")
+        else:  # nobody reads the log: a Python warning, so the failure is not silent
             warnings.warn(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
-                          f"tables are complete", SamplewrightWarning, stacklevel=2)
-    return res
+                          f"tables are complete", SamplewrightWarning, stacklevel=3)
 
 
 def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
     """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal])."""
-    from samplewright.decision.frontier import frontier_table
-    from samplewright.decision.recommend import recommend
-
     goal = scenario.goal
     conf = scenario.confidence if goal is None or goal.confidence is None else goal.confidence
-    front = frontier_table(summary, reps, conf)
-    rec = None if goal is None else recommend(front, goal, scenario.confidence)
+    front = frontier.frontier_table(summary, reps, conf)  # looked up on call, so a test may replace it
+    rec = None if goal is None else recommend.recommend(front, goal, scenario.confidence)
     return front, rec
 
 
@@ -321,7 +454,7 @@ def draw(scenario, design: str, size: int | None = None, seed: int | None = None
     >>> len(sample), float(sample["design_weight"].sum())
     (40, 400.0)
     """
-    from samplewright.config.scenario import load_scenario
+    from samplewright.simulation.scenario import load_scenario
     from samplewright.simulation.selection import draw_sample
 
     if not isinstance(scenario, Scenario):

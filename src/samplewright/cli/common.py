@@ -2,26 +2,13 @@
 
 from __future__ import annotations
 
-import argparse
+import logging
 import sys
+from contextlib import contextmanager
 
+from samplewright.cli.arguments import whole_number
+from samplewright.cli.longrun import add_scale_options, interrupted_note, run_kwargs
 from samplewright.errors import InputError
-
-
-def whole_number(minimum: int):
-    """An argparse ``type`` accepting whole numbers of at least ``minimum`` (refusals exit 2)."""
-
-    def parse(text: str) -> int:
-        try:
-            value = int(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"must be a whole number, got {text!r}") from None
-        if value < minimum:
-            raise argparse.ArgumentTypeError(f"must be at least {minimum}, got {text!r}")
-        return value
-
-    parse.__name__ = "whole number"
-    return parse
 
 
 def add_run_options(p) -> None:
@@ -38,17 +25,32 @@ def add_run_options(p) -> None:
     p.add_argument("--no-report", action="store_true",
                    help="write only the result tables, not figures/, report.html and brief.md "
                         "(build them later with `samplewright report DIR`; default: off, the report is written)")
-    from samplewright.cli.longrun import add_scale_options
-
     add_scale_options(p)
 
 
-def _warn(message: str) -> None:
-    print(f"warning: {message}", file=sys.stderr)
+class StderrLines(logging.Handler):
+    """The run's log on stderr: ``warning: ...``, ``note: ...`` and, with --verbose, ``samplewright: ...`` steps."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        # notes sit between INFO and WARNING (api.NOTE); the level is compared, not imported, so that
+        # this module stays light for the commands that never run a simulation
+        prefix = "warning" if record.levelno >= logging.WARNING else "note" if record.levelno > logging.INFO \
+            else "samplewright"
+        print(f"{prefix}: {record.getMessage()}", file=sys.stderr)
 
 
-def _note(message: str) -> None:
-    print(f"note: {message}", file=sys.stderr)
+@contextmanager
+def stderr_log(args):
+    """While a command runs, the ``samplewright`` log is printed on stderr (steps only with --verbose)."""
+    log, handler = logging.getLogger("samplewright"), StderrLines()
+    level = log.level
+    log.addHandler(handler)
+    log.setLevel(logging.INFO if getattr(args, "verbose", False) else logging.INFO + 1)
+    try:
+        yield
+    finally:
+        log.removeHandler(handler)
+        log.setLevel(level)
 
 
 def logger(args):
@@ -59,12 +61,10 @@ def logger(args):
 
 def simulate_and_write(scenario, args) -> int:
     """Run ``scenario`` with the command's options and write its results to ``args.out``."""
-    from samplewright.files import prepare_dir
     from samplewright.api import run
+    from samplewright.files import prepare_dir
 
     inputs = (scenario.source, scenario.frame.path)
-    from samplewright.cli.longrun import interrupted_note, run_kwargs
-
     extra = run_kwargs(args)
 
     def ready():  # once every check passed, before simulating: a refused run leaves no folder behind
@@ -72,9 +72,10 @@ def simulate_and_write(scenario, args) -> int:
         prepare_dir(args.out, force=args.force or extra["resume"], inputs=inputs)
 
     try:
-        res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
-                  progress=None if not args.quiet else False, log=logger(args), warn=_warn, note=_note,
-                  exact=getattr(args, "exact", False), ready=ready, **extra)
+        with stderr_log(args):
+            res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
+                      progress=None if not args.quiet else False, exact=getattr(args, "exact", False),
+                      ready=ready, **extra)
     except BaseException as exc:
         if not isinstance(exc, (InputError, SystemExit)):
             interrupted_note(args.out)

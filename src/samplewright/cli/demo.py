@@ -17,7 +17,7 @@ def add_arguments(p) -> None:
 
 
 def main(args) -> int:
-    from samplewright.config.scenario import load_scenario
+    from samplewright.simulation.scenario import load_scenario
 
     with as_file(files("samplewright") / "data" / "demo.toml") as path:
         scenario = load_scenario(path)

@@ -62,7 +62,7 @@ def main(args) -> int:
         raise InputError(f"draw needs {', '.join(missing)} (or --check SAMPLE.json to replay a record)")
     # imported here, not at the top: `samplewright --help` need not load numpy and pandas
     from samplewright.api import draw
-    from samplewright.config.scenario import load_scenario
+    from samplewright.simulation.scenario import load_scenario
     from samplewright.simulation.selection import new_seed, record_path, write_sample
 
     for path in (Path(args.out), record_path(args.out)):  # refused before the frame is read

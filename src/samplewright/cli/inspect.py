@@ -28,7 +28,7 @@ def _rate(text: str) -> float:
 
 
 def add_arguments(p) -> None:
-    from samplewright.cli.common import whole_number
+    from samplewright.cli.arguments import whole_number
 
     p.add_argument("frame", help="frame file (.csv, .tsv, .xlsx or .parquet)")
     p.add_argument("--target", required=True, help="study-variable column (required)")
@@ -47,7 +47,7 @@ def add_arguments(p) -> None:
 
 def add_reading_arguments(p) -> None:
     """The [frame] reading keys as flags of the same names (see the README's frame keys)."""
-    from samplewright.cli.common import whole_number
+    from samplewright.cli.arguments import whole_number
 
     g = p.add_argument_group("reading the frame file (default: detected from the file)")
     g.add_argument("--separator", help="column separator: ',' ';' '|' or 'tab' (default: detected from the file)")

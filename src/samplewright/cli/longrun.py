@@ -5,13 +5,12 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+from samplewright.cli.arguments import whole_number
 from samplewright.errors import InputError
 
 
 def add_scale_options(p) -> None:
     """--until, --max-replicates, --backend, --scheduler."""
-    from samplewright.cli.common import whole_number
-
     p.add_argument("--until", metavar="NAME=VALUE[,...]",
                    help="add blocks of replicates until every design meets these Monte Carlo errors: "
                         "coverage_mcse, bias_mcse, empirical_se_rel_mcse (e.g. coverage_mcse=0.002); "

@@ -159,8 +159,8 @@ def _g(v) -> str:
 
 def _size_text(r: dict) -> str:
     what = f"sd {_g(r['sd'])}" if r["quantity"] == "mean" else f"proportion {_g(r['proportion'])}"
-    lines = [f"sample size for a {r['quantity']} ({what}) to +-{_g(r['moe'])} at {r['confidence']:.0%} "
-             f"confidence (z = {r['z']:.4f})",
+    lines = [(f"sample size for a {r['quantity']} ({what}) to +-{_g(r['moe'])} at {r['confidence']:.0%} "
+              f"confidence (z = {r['z']:.4f})"),
              f"  n0 = {r['formula'].split(';')[0][5:]} = {r['n0']:.2f}"]
     if r["deff"] != 1.0:
         lines.append(f"  x design effect {_g(r['deff'])}: {r['n_after_deff']:.2f}")
@@ -195,8 +195,8 @@ def _strata_text(r: dict) -> str:
 
 
 def _cluster_text(r: dict) -> str:
-    lines = [f"units per cluster: m_opt = sqrt((c1 / c2) (1 - rho) / rho) = sqrt(({_g(r['cluster_cost'])} / "
-             f"{_g(r['unit_cost'])}) x (1 - {_g(r['icc'])}) / {_g(r['icc'])}) = {r['m_opt']:.3f} (Kish 1965)",
+    lines = [(f"units per cluster: m_opt = sqrt((c1 / c2) (1 - rho) / rho) = sqrt(({_g(r['cluster_cost'])} / "
+              f"{_g(r['unit_cost'])}) x (1 - {_g(r['icc'])}) / {_g(r['icc'])}) = {r['m_opt']:.3f} (Kish 1965)"),
              f"n = {r['n']} units per cluster; design effect 1 + (m - 1) rho = {r['deff']:.3f}"]
     if "budget" in r:
         fixed = f" less the fixed cost {_g(r['fixed_cost'])}" if r["fixed_cost"] else ""

@@ -22,9 +22,8 @@ def add_arguments(p) -> None:
 
 
 def main(args) -> int:
-    from samplewright.config.scenario import load_scenario
-
     from samplewright.cli.longrun import resume_target
+    from samplewright.simulation.scenario import load_scenario
 
     scenario, args.out = resume_target(args)
     return simulate_and_write(load_scenario(scenario), args)

@@ -23,8 +23,8 @@ def add_arguments(p) -> None:
 
 
 def main(args) -> int:
-    from samplewright.config.scenario import load_scenario
     from samplewright.files import write_csv, write_parquet
+    from samplewright.simulation.scenario import load_scenario
 
     sc = load_scenario(args.scenario)
     out = Path(args.out)

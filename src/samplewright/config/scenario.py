@@ -1,115 +1,49 @@
-"""Scenario files (TOML) turned into a validated, frozen :class:`Scenario`.
+"""Scenario files (TOML) turned into checked, frozen spec dataclasses (:class:`ScenarioSpec`).
 
-Every check of a scenario's keys, types and values happens here, once; a refusal is an
+The checks of a scenario's keys, value types and ranges happen here; a refusal is an
 :class:`~samplewright.errors.InputError` naming the file and key at fault (and, for a
-misspelt key, the closest valid one).  A scenario can also be built in Python with
-:func:`scenario_from_dict` or by constructing :class:`Scenario` directly.
+misspelt key, the closest valid one).  The objects the specs describe (designs, cost model,
+response and frame-error models, adjustments) are built, with the checks that need them, by
+:mod:`samplewright.simulation.scenario`.
 """
 
 from __future__ import annotations
 
-import hashlib
-import json
 import tomllib
-import unicodedata
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from pathlib import Path
 
-from samplewright.estimation.cost import KEYS as COST_MODEL_KEYS, SCALAR_KEYS as COST_SCALARS, CostModel
-from samplewright.designs import DESIGN_CLASSES, RENAMED_METHODS, Design
+from samplewright.config.costs import KEYS as COST_KEYS
+from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
+from samplewright.config.goal import Goal
+from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
+from samplewright.config.synthetic import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec
+from samplewright.config.synthetic import KEYS as SYNTH_KEYS
+from samplewright.config.validate import (
+    READ_KEYS,
+    as_bool,
+    as_float,
+    as_int,
+    as_sizes,
+    as_str,
+    check_keys,
+    closest,
+    reading_options,
+)
 from samplewright.errors import InputError, show
-from samplewright.estimation.auxiliary import check_estimators
-from samplewright.estimation.registry import ESTIMATORS
-from samplewright.population.frame import Frame
-from samplewright.population.reading import input_file, read_table, role_columns
-from samplewright.population.synth import CLUSTER_KEYS, KEYS as SYNTH_KEYS, STRATUM_KEYS, SyntheticSpec, generate, stratum_units
-from samplewright.config.validate import READ_KEYS, closest, reading_options
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
             "response", "frame_error", "goal")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
               "auxiliary", "poststratum", "domain", "domains", "cluster_cost") + READ_KEYS
-COST_KEYS = COST_MODEL_KEYS  # cost.py lists them (scalar rates, per_unit_by_stratum, charge_touched_clusters)
 GOAL_KEYS = ("moe", "budget", "confidence", "variable")
 DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
 DEFAULT_BLOCK = 500
-#: largest sample size and synthetic frame accepted, so an absurd value is refused before any array is
-#: allocated (sanity bounds, no published source; a frame file is limited only by the machine)
-MAX_SIZE = 10_000_000
+#: largest synthetic frame accepted, so an absurd value is refused before any array is allocated
+#: (a sanity bound, no published source; a frame file is limited only by the machine)
 MAX_SYNTHETIC_UNITS = 50_000_000
 #: largest scenario file read (a settings file; 1 MiB is some 30,000 lines of settings: a sanity bound)
 MAX_SCENARIO_BYTES = 1 << 20
-
-
-# ------------------------------------------------------------------ type checks
-def _where(ctx: str, key: str) -> str:
-    return f"{ctx}: {key}" if ctx else key
-
-
-def check_keys(table: dict, allowed, ctx: str) -> None:
-    """Refuse keys that are not in ``allowed``, naming the closest valid one."""
-    if not isinstance(table, dict):
-        raise InputError(f"{ctx} must be a table, got {type(table).__name__}")
-    for k in table:
-        if k not in allowed:
-            raise InputError(f"{ctx}: unknown key {show(k)}{closest(k, allowed)}")
-
-
-def as_int(value, key: str, ctx: str = "", minimum: int | None = None, maximum: int | None = None) -> int:
-    if isinstance(value, bool) or not isinstance(value, int):
-        raise InputError(f"{_where(ctx, key)} must be a whole number, got {show(value)}")
-    if minimum is not None and value < minimum:
-        raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {value}")
-    if maximum is not None and value > maximum:
-        raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {value}")
-    return value
-
-
-def as_float(value, key: str, ctx: str = "", minimum: float | None = None, maximum: float | None = None,
-             open_interval: bool = False) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{_where(ctx, key)} must be a number, got {show(value)}")
-    v = float(value)
-    if v != v or v in (float("inf"), float("-inf")):
-        raise InputError(f"{_where(ctx, key)} must be a finite number, got {show(value)}")
-    if open_interval and not (minimum < v < maximum):
-        raise InputError(f"{_where(ctx, key)} must lie strictly between {minimum} and {maximum}, got {show(value)}")
-    if not open_interval:
-        if minimum is not None and v < minimum:
-            raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {show(value)}")
-        if maximum is not None and v > maximum:
-            raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {show(value)}")
-    return v
-
-
-def as_str(value, key: str, ctx: str = "") -> str:
-    """A non-empty text of one line: control characters (line breaks, tabs, NUL...) are refused,
-    since labels and titles end up in CSV rows, figures, Markdown and terminal lines."""
-    if not isinstance(value, str) or not value.strip():
-        raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
-    bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
-    if bad is not None:
-        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}{' (a NUL byte)' if bad == chr(0) else ''}; "
-                         f"give one line of printable text")
-    return value
-
-
-def as_bool(value, key: str, ctx: str = "") -> bool:
-    if not isinstance(value, bool):
-        raise InputError(f"{_where(ctx, key)} must be true or false, got {show(value)}")
-    return value
-
-
-def as_sizes(value, key: str, ctx: str) -> int | list[int]:
-    """A whole number above 0, or a non-empty list of them (a size sweep)."""
-    if isinstance(value, list):
-        if not value:
-            raise InputError(f"{_where(ctx, key)} is an empty list; give one size or several")
-        out = [as_int(v, key, ctx, minimum=1, maximum=MAX_SIZE) for v in value]
-        if len(set(out)) != len(out):
-            raise InputError(f"{_where(ctx, key)} lists a size twice: {show(out)}")
-        return out
-    return as_int(value, key, ctx, minimum=1, maximum=MAX_SIZE)
 
 
 # ------------------------------------------------------------------ frame spec
@@ -122,16 +56,6 @@ class FrameSpec:
     roles: dict = field(default_factory=dict)  # target, stratum, cluster, size, order, unit_cost, id
     missing: str = "refuse"
     reading: dict = field(default_factory=dict)  # how to read the file: separator, decimal, sheet...
-
-    def dataframe(self, columns=None):
-        if self.synthetic is not None:
-            return generate(self.synthetic)
-        return read_table(self.path, columns=columns, **self.reading)
-
-    def load(self) -> Frame:
-        source = "synthetic frame" if self.synthetic is not None else str(self.path)
-        df = self.dataframe(columns=role_columns(self.roles))
-        return Frame.from_dataframe(df, missing=self.missing, source=source, **self.roles)
 
 
 def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
@@ -191,9 +115,7 @@ def _synthetic(table: dict, ctx: str) -> SyntheticSpec:
         if "size_cv" in c:
             as_float(c["size_cv"], "size_cv", cctx, minimum=0.0)
         kw["clusters"] = dict(c)
-    spec = SyntheticSpec(**kw)
-    stratum_units(spec)  # every stratum gets a unit: refused here, before any output folder is made
-    return spec
+    return SyntheticSpec(**kw)
 
 
 def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
@@ -255,8 +177,24 @@ def _frame_spec(table: dict, base: Path, ctx: str = "[frame]") -> FrameSpec:
 
 
 # ------------------------------------------------------------------ designs
-def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
-    """Build one design and its estimator list from a ``[[design]]`` table."""
+@dataclass(frozen=True)
+class DesignSpec:
+    """One ``[[design]]`` table, checked: its method's keys and their types (the design is built later)."""
+
+    label: str
+    method: str
+    params: dict  # the method's keys (config/methods.py), sizes checked
+    estimators: tuple[str, ...]  # names, checked against the registry when built
+    adjustment: dict  # the adjustment keys as written (estimation/weighting.py reads them)
+
+    @property
+    def context(self) -> str:
+        """How error messages name the design."""
+        return f"design {show(self.label)}"
+
+
+def design_spec(table: dict, ctx: str) -> DesignSpec:
+    """Check one ``[[design]]`` table's keys and value types."""
     if not isinstance(table, dict):
         raise InputError(f"{ctx} must be a table")
     for req in ("label", "method"):
@@ -267,16 +205,16 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
     method = as_str(table["method"], "method", ctx)
     if method in RENAMED_METHODS:
         raise InputError(f"{ctx}: method {method!r} is no longer accepted: use {RENAMED_METHODS[method]}")
-    if method not in DESIGN_CLASSES:
-        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, DESIGN_CLASSES)}")
-    cls = DESIGN_CLASSES[method]
-    check_keys(table, DESIGN_COMMON + cls.keys, ctx)
+    if method not in METHOD_KEYS:
+        raise InputError(f"{ctx}: method {show(method)} is not known{closest(method, METHOD_KEYS)}")
+    keys, sized_by = METHOD_KEYS[method], size_key(method)
+    check_keys(table, DESIGN_COMMON + keys, ctx)
     params = {}
-    for k in cls.keys:
+    for k in keys:
         if k not in table:
             continue
         v = table[k]
-        if k == cls.size_key:
+        if k == sized_by:
             params[k] = as_sizes(v, k, ctx)
         elif k in ("replace", "cap_units"):
             params[k] = as_bool(v, k, ctx)
@@ -286,68 +224,39 @@ def design_from_dict(table: dict, ctx: str) -> tuple[Design, tuple[str, ...]]:
             params[k] = as_str(v, k, ctx)
         else:
             params[k] = v
-    if cls.size_key not in params:
-        raise InputError(f"{ctx}: missing required key {show(cls.size_key)} (the sample size)")
+    if sized_by not in params:
+        raise InputError(f"{ctx}: missing required key {show(sized_by)} (the sample size)")
     est = table.get("estimators", ["ht", "hajek"])
     if isinstance(est, str):
         est = [est]
     if not isinstance(est, list) or not est:
         raise InputError(f"{ctx}: estimators must be a non-empty list, got {show(est)}")
-    for e in est:
-        if not isinstance(e, str) or e not in ESTIMATORS:
-            raise InputError(f"{ctx}: estimator {show(e)} is not known{closest(str(e), ESTIMATORS)}")
-    try:
-        design = cls(label, **params)
-    except TypeError as exc:
-        raise InputError(f"{ctx}: {exc}") from None
-    from samplewright.estimation.weighting import adjustment_from_table
-
-    design.adjustment = adjustment_from_table(table, ctx)
-    return design, tuple(dict.fromkeys(est))
+    adjustment = {k: table[k] for k in ("adjustment", "adjustment_classes", "raking_margins") if k in table}
+    return DesignSpec(label=label, method=method, params=params, estimators=tuple(est), adjustment=adjustment)
 
 
 # ------------------------------------------------------------------ scenario
 @dataclass(frozen=True)
-class Scenario:
-    """A validated scenario: the frame, the competing designs and the run settings."""
+class ScenarioSpec:
+    """A scenario's settings, checked key by key; simulation/scenario.py builds the objects they describe."""
 
     frame: FrameSpec
-    designs: tuple[Design, ...]
-    estimators: tuple[tuple[str, ...], ...]
+    designs: tuple[DesignSpec, ...]
     title: str = "untitled scenario"
     seed: int = 20261201
     replicates: int = 1000
     confidence: float = 0.95
     block_size: int = DEFAULT_BLOCK
-    cost: CostModel = field(default_factory=CostModel)
-    goal: object | None = None  # recommend.Goal, from [goal]
-    response: object | None = None  # response.ResponseModel, from [response]
-    frame_error: object | None = None  # frame_errors.FrameErrorSpec, from [frame_error]
+    cost: dict = field(default_factory=dict)  # the cost model's rates, checked
+    goal: Goal | None = None
+    response: dict | None = None  # the [response] table (simulation/response.py checks it)
+    frame_error: dict | None = None  # the [frame_error] table (population/frame_errors.py checks it)
     source: Path | None = None
     raw: dict = field(default_factory=dict, repr=False)
 
-    @property
-    def hash(self) -> str:
-        """SHA-256 of the scenario's content (keys sorted), for run.json."""
-        blob = json.dumps(self.raw, sort_keys=True, default=str).encode()
-        return hashlib.sha256(blob).hexdigest()
 
-    def load_frame(self) -> Frame:
-        return self.frame.load()
-
-
-def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = None) -> Scenario:
-    """Validate a scenario given as a dict (the parsed TOML) and build it.
-
-    Examples
-    --------
-    >>> sc = scenario_from_dict({
-    ...     "frame": {"synthetic": {"units": 500}},
-    ...     "design": [{"label": "simple", "method": "srs", "n": 50}],
-    ... })
-    >>> sc.designs[0].label
-    'simple'
-    """
+def parse_scenario(doc: dict, base: Path | str = ".", source: Path | None = None) -> ScenarioSpec:
+    """Check a scenario given as a dict (the parsed TOML): its keys, value types and ranges."""
     base = Path(base)
     check_keys(doc, TOP_KEYS, str(source) if source else "scenario")
     kw = {}
@@ -369,26 +278,18 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
         raise InputError("missing required [[design]] tables: name at least one design to rehearse")
     if not isinstance(designs, list):
         raise InputError("design must be written as [[design]] tables (a list)")
-    built = [design_from_dict(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs)]
-    for d, est in built:  # ratio/greg need auxiliary columns, poststrat a poststratum column
-        check_estimators(est, frame.roles, f"design {show(d.label)}")
-    sort_keys = [d.sort_by for d, _ in built if isinstance(getattr(d, "sort_by", None), str)]
-    if sort_keys:  # systematic designs' sort_by columns are resolved when the frame is loaded
-        frame = replace(frame, roles={**frame.roles, "sort_keys": list(dict.fromkeys(sort_keys))})
-    labels = [d.label for d, _ in built]
-    dup = {x for x in labels if labels.count(x) > 1}
-    if dup:
-        raise InputError(f"design label {show(sorted(dup)[0])} is used twice; labels must be unique")
+    specs = tuple(design_spec(t, f"[[design]] #{i + 1}") for i, t in enumerate(designs))
     if "cost" in doc:
-        kw["cost"] = _cost_model(doc["cost"])
+        kw["cost"] = _cost_rates(doc["cost"])
     if "goal" in doc:
         kw["goal"] = _goal(doc["goal"], frame.roles.get("target"))
-    kw.update(_fieldwork_tables(doc))
-    return Scenario(frame=frame, designs=tuple(d for d, _ in built), estimators=tuple(e for _, e in built),
-                    source=source, raw=doc, **kw)
+    for table in ("response", "frame_error"):
+        if table in doc:
+            kw[table] = doc[table]
+    return ScenarioSpec(frame=frame, designs=specs, source=source, raw=doc, **kw)
 
 
-def _cost_model(c: dict) -> CostModel:
+def _cost_rates(c: dict) -> dict:
     """[cost]: scalar rates (numbers >= 0), [cost.per_unit_by_stratum] and charge_touched_clusters."""
     check_keys(c, COST_KEYS, "[cost]")
     kw = {k: as_float(c[k], k, "[cost]", minimum=0.0) for k in c if k in COST_SCALARS}
@@ -400,13 +301,11 @@ def _cost_model(c: dict) -> CostModel:
         kw["per_unit_by_stratum"] = tuple((str(k), as_float(v, str(k), ctx, minimum=0.0)) for k, v in t.items())
     if "charge_touched_clusters" in c:
         kw["charge_touched_clusters"] = as_bool(c["charge_touched_clusters"], "charge_touched_clusters", "[cost]")
-    return CostModel(**kw)
+    return kw
 
 
 def _goal(g: dict, targets):
     """[goal]: a target margin of error and/or a budget, the confidence level, the variable."""
-    from samplewright.decision.recommend import Goal
-
     check_keys(g, GOAL_KEYS, "[goal]")
     if "moe" not in g and "budget" not in g:
         raise InputError("[goal] needs moe (the margin of error to reach) and/or budget (the money available)")
@@ -427,30 +326,8 @@ def _goal(g: dict, targets):
     return Goal(**kw)
 
 
-def _fieldwork_tables(doc: dict) -> dict:
-    """[response] and [frame_error] (validated in response.py and frame_errors.py)."""
-    from samplewright.population.frame_errors import frame_error_from_dict
-    from samplewright.simulation.response import response_from_dict
-
-    out = {}
-    if "response" in doc:
-        out["response"] = response_from_dict(doc["response"])
-    if "frame_error" in doc:
-        out["frame_error"] = frame_error_from_dict(doc["frame_error"])
-    return out
-
-
-def load_scenario(path) -> Scenario:
-    """Read and validate a scenario TOML file.
-
-    Examples
-    --------
-    >>> from importlib.resources import files
-    >>> sc = load_scenario(files("samplewright") / "data" / "demo.toml")
-    >>> len(sc.designs) >= 3
-    True
-    """
-    p = input_file(path, "scenario file")
+def read_scenario_text(p: Path) -> dict:
+    """The TOML document of the scenario file ``p`` (an existing regular file), refused when too big or malformed."""
     size = p.stat().st_size
     if size > MAX_SCENARIO_BYTES:
         raise InputError(f"scenario file {str(p)!r} is {size:,} bytes, more than the {MAX_SCENARIO_BYTES:,} "
@@ -460,9 +337,8 @@ def load_scenario(path) -> Scenario:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"scenario file {str(p)!r} could not be read: {exc}") from None
     try:
-        doc = tomllib.loads(text)
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"{p}: malformed TOML: {exc}") from None
     except RecursionError:  # tomllib parses nested arrays and tables recursively
         raise InputError(f"{p}: malformed TOML: arrays or tables nested too deeply to read") from None
-    return scenario_from_dict(doc, base=p.parent, source=p)

@@ -8,11 +8,17 @@ from __future__ import annotations
 
 import codecs
 import difflib
+import math
+import unicodedata
 
 import numpy as np
 import pandas as pd
 
 from samplewright.errors import InputError, show
+
+#: largest sample size accepted, so an absurd value is refused before any array is allocated
+#: (a sanity bound, no published source)
+MAX_SIZE = 10_000_000
 
 
 def closest(word: str, options) -> str:
@@ -239,7 +245,7 @@ def auxiliary_columns(df: pd.DataFrame, *, auxiliary=None, poststratum=None, dom
         raise InputError(f"{source}: auxiliary lists a column twice: {names}")
     for a in names:
         _require_column(df, a, "auxiliary", source)
-        num, bad = _numeric(df, a, "auxiliary", source, "refuse")
+        _, bad = _numeric(df, a, "auxiliary", source, "refuse")
         if bad.any():
             raise InputError(f"{source}: auxiliary column {show(a)} has missing or non-finite value(s) at row(s) "
                              f"{_rows(bad)}; its population total must be known, so every unit needs a value")
@@ -333,3 +339,74 @@ def reading_options(table: dict, ctx: str) -> dict:
     if out.get("decimal") is not None and out.get("decimal") == out.get("thousands"):
         raise InputError(f"{ctx}: decimal and thousands are both {show(out['decimal'])}; they must differ")
     return out
+
+
+# ------------------------------------------------------------------ scenario value checks
+def _where(ctx: str, key: str) -> str:
+    return f"{ctx}: {key}" if ctx else key
+
+
+def check_keys(table: dict, allowed, ctx: str) -> None:
+    """Refuse keys that are not in ``allowed``, naming the closest valid one."""
+    if not isinstance(table, dict):
+        raise InputError(f"{ctx} must be a table, got {type(table).__name__}")
+    for k in table:
+        if k not in allowed:
+            raise InputError(f"{ctx}: unknown key {show(k)}{closest(k, allowed)}")
+
+
+def as_int(value, key: str, ctx: str = "", minimum: int | None = None, maximum: int | None = None) -> int:
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise InputError(f"{_where(ctx, key)} must be a whole number, got {show(value)}")
+    if minimum is not None and value < minimum:
+        raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {value}")
+    if maximum is not None and value > maximum:
+        raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {value}")
+    return value
+
+
+def as_float(value, key: str, ctx: str = "", minimum: float | None = None, maximum: float | None = None,
+             open_interval: bool = False) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{_where(ctx, key)} must be a number, got {show(value)}")
+    v = float(value)
+    if not math.isfinite(v):
+        raise InputError(f"{_where(ctx, key)} must be a finite number, got {show(value)}")
+    if open_interval and not (minimum < v < maximum):
+        raise InputError(f"{_where(ctx, key)} must lie strictly between {minimum} and {maximum}, got {show(value)}")
+    if not open_interval:
+        if minimum is not None and v < minimum:
+            raise InputError(f"{_where(ctx, key)} must be at least {minimum}, got {show(value)}")
+        if maximum is not None and v > maximum:
+            raise InputError(f"{_where(ctx, key)} must be at most {maximum}, got {show(value)}")
+    return v
+
+
+def as_str(value, key: str, ctx: str = "") -> str:
+    """A non-empty text of one line: control characters (line breaks, tabs, NUL...) are refused,
+    since labels and titles end up in CSV rows, figures, Markdown and terminal lines."""
+    if not isinstance(value, str) or not value.strip():
+        raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
+    bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
+    if bad is not None:
+        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}{' (a NUL byte)' if bad == chr(0) else ''}; "
+                         f"give one line of printable text")
+    return value
+
+
+def as_bool(value, key: str, ctx: str = "") -> bool:
+    if not isinstance(value, bool):
+        raise InputError(f"{_where(ctx, key)} must be true or false, got {show(value)}")
+    return value
+
+
+def as_sizes(value, key: str, ctx: str) -> int | list[int]:
+    """A whole number above 0, or a non-empty list of them (a size sweep)."""
+    if isinstance(value, list):
+        if not value:
+            raise InputError(f"{_where(ctx, key)} is an empty list; give one size or several")
+        out = [as_int(v, key, ctx, minimum=1, maximum=MAX_SIZE) for v in value]
+        if len(set(out)) != len(out):
+            raise InputError(f"{_where(ctx, key)} lists a size twice: {show(out)}")
+        return out
+    return as_int(value, key, ctx, minimum=1, maximum=MAX_SIZE)

@@ -15,10 +15,11 @@ is caught at the replicate counts of a typical run.  Every point not picked is l
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict
 
 import pandas as pd
 
+from samplewright.config.goal import Goal
 from samplewright.decision.frontier import interpolate_goal
 from samplewright.designs import size_words
 from samplewright.evaluation.measures import normal_quantile
@@ -28,20 +29,6 @@ COVERAGE_Z = 3.0
 
 PICK_KEYS = ("design", "method", "size", "estimator", "variable", "mean_n", "mean_cost", "p90_cost", "moe",
              "moe_mcse", "empirical_se", "rmse", "coverage", "coverage_mcse", "replicates")
-
-
-@dataclass(frozen=True)
-class Goal:
-    """What the survey must achieve: a margin of error and/or a budget (scenario ``[goal]``).
-
-    ``confidence`` is the level of the margin (default: the run's); ``variable`` the target
-    the goal is about (default: the first).
-    """
-
-    moe: float | None = None
-    budget: float | None = None
-    confidence: float | None = None
-    variable: str | None = None
 
 
 def coverage_acceptable(coverage: float, coverage_mcse: float, nominal: float, z: float = COVERAGE_Z) -> bool:

@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS, size_key
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions
@@ -30,8 +31,8 @@ class Cluster(Design):
     """
 
     method = "cluster"
-    size_key = "clusters"
-    keys = ("clusters", "units_per_cluster", "cap_units", "variance")
+    size_key = size_key("cluster")
+    keys = METHOD_KEYS["cluster"]
     variances = ("two_stage", "ultimate_cluster")
 
     def __init__(self, label: str, clusters, units_per_cluster: int | None = None, cap_units: bool = False,

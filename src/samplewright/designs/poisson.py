@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import _KEY_BUDGET, distinct_positions
@@ -46,7 +47,6 @@ def _block(frame, units, mask, pi, keep_units, variance):
 class _IndependentDesign(Design):
     """Shared draw and enumeration of designs where units enter independently with pi_i."""
 
-    keys = ("n", "variance")
     variances = ("poisson",)
 
     def __init__(self, label: str, n, variance: str | None = None):
@@ -136,6 +136,7 @@ class Poisson(_IndependentDesign):
 
     method = "poisson"
     count_text = "2^(units with pi < 1)"
+    keys = METHOD_KEYS[method]
 
     def check(self, frame):
         super().check(frame)
@@ -162,6 +163,7 @@ class Bernoulli(_IndependentDesign):
 
     method = "bernoulli"
     count_text = "2^N"
+    keys = METHOD_KEYS[method]
 
     def inclusion_probabilities(self, frame):
         return np.full(frame.N, int(self.n) / frame.N)

@@ -27,6 +27,7 @@ import math
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
 from samplewright.designs.base import Design
 from samplewright.designs.draws import _KEY_BUDGET
 from samplewright.designs.enumeration import combination_chunks, product_chunks
@@ -40,7 +41,6 @@ ENUMERATION_LIMIT = 2_000_000
 class _SizeDesign(Design):
     """Shared set-up of the fixed-size pi-ps designs: pi_i, certainty units, block layout."""
 
-    keys = ("n", "variance")
     variances = ("hansen_hurwitz", "hartley_rao", "brewer")
 
     def __init__(self, label: str, n, variance: str | None = None):
@@ -131,6 +131,7 @@ class PPSSystematic(_SizeDesign):
 
     method = "pps_systematic"
     count_text = "distinct random starts"
+    keys = METHOD_KEYS[method]
 
     def _cum(self, frame):
         s = self.setup(frame)
@@ -178,6 +179,7 @@ class Sampford(_SizeDesign):
 
     method = "sampford"
     count_text = "C(units without certainty, n without certainty)"
+    keys = METHOD_KEYS[method]
     variances = ("hansen_hurwitz", "hartley_rao", "brewer", "sen_yates_grundy")
 
     def check(self, frame):
@@ -260,6 +262,7 @@ class Pareto(_SizeDesign):
     """
 
     method = "pareto"
+    keys = METHOD_KEYS[method]
 
     def _select(self, frame, rng, B):
         s = self.setup(frame)
@@ -291,7 +294,7 @@ class PPSWithReplacement(Design):
 
     method = "pps"
     count_text = "N^n"
-    keys = ("n", "replace", "variance")
+    keys = METHOD_KEYS[method]
     variances = ("hansen_hurwitz",)
 
     def __init__(self, label: str, n, replace: bool | None = None, variance: str | None = None):

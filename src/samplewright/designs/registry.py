@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 
+from samplewright.config.methods import METHOD_KEYS
 from samplewright.designs.base import Design
 from samplewright.designs.cluster import Cluster
 from samplewright.designs.poisson import Bernoulli, Poisson
@@ -21,8 +22,8 @@ from samplewright.designs.systematic import Systematic
 DESIGN_CLASSES: dict[str, type[Design]] = {cls.method: cls for cls in (
     SRS, Stratified, Systematic, Cluster, PPSWithReplacement, PPSSystematic, Sampford, Pareto, Poisson, Bernoulli,
     StratifiedCluster)}
-#: former method names, refused with what to write instead
-RENAMED_METHODS = {"pps_wr": 'method = "pps" with replace = true'}
+if set(DESIGN_CLASSES) != set(METHOD_KEYS):  # every method here has its scenario keys in config/methods.py
+    raise RuntimeError(f"design methods {sorted(set(DESIGN_CLASSES) ^ set(METHOD_KEYS))} lack a class or key table")
 
 
 def size_words(method: str, size, mean_n=None, units: str = "{} units") -> str:

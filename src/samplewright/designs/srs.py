@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.draws import distinct_positions, with_replacement
@@ -27,7 +28,7 @@ class SRS(Design):
     """
 
     method = "srs"
-    keys = ("n", "replace")
+    keys = METHOD_KEYS["srs"]
 
     def __init__(self, label: str, n, replace: bool = False):
         super().__init__(label, n=n, replace=replace)

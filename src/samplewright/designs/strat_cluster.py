@@ -33,6 +33,7 @@ import math
 import numpy as np
 
 from samplewright.apportion import largest_remainder
+from samplewright.config.methods import METHOD_KEYS, size_key
 from samplewright.config.validate import closest
 from samplewright.designs.allocation import real_allocation
 from samplewright.designs.base import Design
@@ -66,9 +67,8 @@ class StratifiedCluster(Design):
 
     method = "stratified_cluster"
     count_text = "prod over strata of the cluster subsets (and their second-stage subsets)"
-    size_key = "clusters"
-    keys = ("clusters", "cluster_allocation", "units_per_cluster", "cap_units", "selection", "cluster_size",
-            "variance")
+    size_key = size_key("stratified_cluster")
+    keys = METHOD_KEYS["stratified_cluster"]
     variances = ("two_stage", "ultimate_cluster")
 
     def __init__(self, label: str, clusters, cluster_allocation: str = "proportional",

@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
 from samplewright.designs.allocation import RULES, allocate
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
@@ -23,7 +24,7 @@ class Stratified(Design):
     """
 
     method = "stratified"
-    keys = ("n", "allocation", "allocation_variable")
+    keys = METHOD_KEYS["stratified"]
 
     def __init__(self, label: str, n, allocation: str = "proportional", allocation_variable: str | None = None,
                  stratum_costs=None):

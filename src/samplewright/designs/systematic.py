@@ -7,6 +7,7 @@ import math
 
 import numpy as np
 
+from samplewright.config.methods import METHOD_KEYS
 from samplewright.config.validate import closest
 from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
@@ -64,7 +65,7 @@ class Systematic(Design):
     """
 
     method = "systematic"
-    keys = ("n", "kind", "starts", "sort_by", "variance")
+    keys = METHOD_KEYS["systematic"]
     variances = ("srs", "successive_differences", "between_starts")
     count_text = "distinct random starts"
 

@@ -54,19 +54,6 @@ def variance_warnings(frame: Frame) -> list[str]:
     return out
 
 
-def skewness(frame: Frame) -> np.ndarray:
-    """Fisher-Pearson skewness G1 (bias-adjusted) of each target; 0 for a target without variance."""
-    if frame.N <= 2:
-        return np.zeros(frame.V)
-    varies = np.ptp(frame.y, axis=0) > 0
-    if varies.all():
-        return stats.skew(frame.y, axis=0, bias=False)
-    g1 = np.zeros(frame.V)
-    if varies.any():
-        g1[varies] = stats.skew(frame.y[:, varies], axis=0, bias=False)
-    return g1
-
-
 def interval_warnings(frame: Frame, design) -> list[str]:
     """Sentences for a systematic design whose interval is unsafe for a cycle along its list order.
 

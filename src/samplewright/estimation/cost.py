@@ -7,7 +7,7 @@ visits.  Every replicate's cost is computed from its own sample, so designs whos
 cluster set varies from sample to sample get a cost distribution, not a single number.
 
 To add a new rate (say a cost per attempted unit), add a float field here, its name to
-:data:`SCALAR_KEYS` (the scenario then accepts and checks it), and its term to
+``SCALAR_KEYS`` in config/costs.py (the scenario then accepts and checks it), and its term to
 :meth:`CostModel.replicate_cost`.
 """
 
@@ -23,10 +23,6 @@ from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units, sampled_unit_cost
 
-#: the scalar rates of ``[cost]`` (each a number >= 0)
-SCALAR_KEYS = ("fixed", "per_unit", "per_cluster", "per_stratum", "per_attempt", "per_complete")
-#: every key ``[cost]`` accepts
-KEYS = SCALAR_KEYS + ("per_unit_by_stratum", "charge_touched_clusters")
 #: marker in ``Frame.roles`` of a frame whose unit-cost column holds the stratum rates
 BOUND = "stratum_unit_rates"
 

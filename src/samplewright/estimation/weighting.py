@@ -58,6 +58,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from samplewright.config.validate import as_str, closest
 from samplewright.errors import InputError
 from samplewright.estimation.gram import least_squares
 from samplewright.estimation.poststratify import cell_factors, cell_means
@@ -107,9 +108,6 @@ class AdjustmentSpec:
 
 def adjustment_from_table(table: dict, ctx: str) -> AdjustmentSpec:
     """Read the adjustment keys of a ``[[design]]`` table (already key-checked)."""
-    from samplewright.config.scenario import as_str
-    from samplewright.config.validate import closest
-
     method = as_str(table.get("adjustment", "none"), "adjustment", ctx)
     if method not in ADJUSTMENT_METHODS:
         raise InputError(f"{ctx}: adjustment {method!r} is not known{closest(method, ADJUSTMENT_METHODS)}")

@@ -122,38 +122,3 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["exact"])
     samples = pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
     return summary, samples, by_label
-
-
-def exact_result(scenario, frame, cells, warnings, notes, started: float, versions: dict, allocation):
-    """The :class:`~samplewright.results.result.RunResult` of an exact-mode run (``run --exact``).
-
-    ``warnings`` and ``notes`` are the run's checks (``checks.py``), made without any about replicates.
-    """
-    import time
-
-    from samplewright.results.result import RunResult
-
-    t1 = time.monotonic()
-    summary, samples, counts = evaluate_exact(frame, cells, scenario.confidence, scenario.cost)
-    t2 = time.monotonic()
-    info = {
-        "title": scenario.title,
-        "scenario": str(scenario.source) if scenario.source else None,
-        "scenario_hash": scenario.hash,
-        "exact": True,
-        "samples": counts,
-        "sample_limit": LIMIT,
-        "replicates": None,
-        "confidence": scenario.confidence,
-        "frame": {"units": frame.N, "strata": frame.H, "clusters": frame.C, "variables": list(frame.layout.names),
-                  "roles": {k: v for k, v in frame.roles.items() if k != "source"},
-                  "source": frame.roles.get("source")},
-        "designs": [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name}
-                    for d in scenario.designs],
-        "versions": versions,
-        "elapsed_seconds": round(time.monotonic() - started, 3),
-        "enumeration_seconds": round(t2 - t1, 3),
-        "warnings": warnings,
-        "notes": notes,
-    }
-    return RunResult(summary=summary, replicates=samples, allocation=allocation, info=info, warnings=warnings)

@@ -36,9 +36,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from samplewright.config.validate import closest
 from samplewright.errors import InputError
 from samplewright.evaluation import measures
-from samplewright.config.validate import closest
 
 #: target name -> what it bounds (for messages and the README)
 TARGETS = {
@@ -67,6 +67,42 @@ class Rule:
 
     def as_dict(self) -> dict:
         return {"until": self.text, "targets": dict(self.targets), "max_replicates": self.max_replicates}
+
+    @staticmethod
+    def start_cell() -> CellProgress:
+        """A cell's progress before its first block."""
+        return CellProgress()
+
+    def advance(self, state: CellProgress, results_by_block: dict, truth: np.ndarray,
+                min_blocks: int, max_blocks: int) -> None:
+        """Consume the cell's finished blocks in block order, stopping at the first count that meets the rule.
+
+        ``truth`` (V,) is the true population's value of every output variable (targets, then domain
+        means), the values summary.csv's ``truth`` column reports.
+        """
+        while not state.stopped and state.used in results_by_block:
+            state.tally.add(results_by_block[state.used], truth)
+            state.used += 1
+            if state.used >= min_blocks and state.tally.meets(self.targets):
+                state.stopped, state.met = True, True
+            elif state.used >= max_blocks:
+                state.stopped = True
+
+    def report(self, cells, states: dict) -> list[dict]:
+        """One entry per cell: replicates used, whether the targets were met, MCSE reached, replicates needed."""
+        out = []
+        for ci, cell in enumerate(cells):
+            st = states[ci]
+            vals = st.tally.values() if st.tally.R > 0 else {}
+            out.append({
+                "design": cell.design.label,
+                "size": int(cell.design.size),
+                "replicates": st.tally.R,
+                "met": st.met,
+                "reached": {name: float(np.max(vals[name])) for name in self.targets if name in vals},
+                "replicates_needed": st.tally.needed(self.targets),
+            })
+        return out
 
 
 def parse_until(text: str, max_replicates: int) -> Rule:
@@ -195,39 +231,6 @@ class CellProgress:
     used: int = 0  # blocks consumed in order
     stopped: bool = False
     met: bool = False
-
-
-def advance(state: CellProgress, results_by_block: dict, rule: Rule, truth: np.ndarray,
-            min_blocks: int, max_blocks: int) -> None:
-    """Consume the cell's finished blocks in block order, stopping at the first count that meets the rule.
-
-    ``truth`` (V,) is the true population's value of every output variable (targets, then domain
-    means), the values summary.csv's ``truth`` column reports.
-    """
-    while not state.stopped and state.used in results_by_block:
-        state.tally.add(results_by_block[state.used], truth)
-        state.used += 1
-        if state.used >= min_blocks and state.tally.meets(rule.targets):
-            state.stopped, state.met = True, True
-        elif state.used >= max_blocks:
-            state.stopped = True
-
-
-def report(cells, states: dict, rule: Rule) -> list[dict]:
-    """One entry per cell: replicates used, whether the targets were met, MCSE reached, replicates needed."""
-    out = []
-    for ci, cell in enumerate(cells):
-        st = states[ci]
-        vals = st.tally.values() if st.tally.R > 0 else {}
-        out.append({
-            "design": cell.design.label,
-            "size": int(cell.design.size),
-            "replicates": st.tally.R,
-            "met": st.met,
-            "reached": {name: float(np.max(vals[name])) for name in rule.targets if name in vals},
-            "replicates_needed": st.tally.needed(rule.targets),
-        })
-    return out
 
 
 def format_report(rows: list[dict], rule: Rule) -> str:

@@ -31,6 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from samplewright.config.validate import as_float, as_str, check_keys, closest
 from samplewright.errors import InputError
 from samplewright.population.frame import Frame
 
@@ -59,8 +60,6 @@ class FrameErrorSpec:
 
 def frame_error_from_dict(table: dict, ctx: str = "[frame_error]") -> FrameErrorSpec:
     """Check a ``[frame_error]`` table; refusals name the key at fault."""
-    from samplewright.config.scenario import as_float, as_str, check_keys
-
     check_keys(table, KEYS, ctx)
     kw = {}
     for k in ("undercoverage", "duplicates"):
@@ -120,8 +119,6 @@ def list_frame(true: Frame, spec: FrameErrorSpec, seed: int, columns: dict | Non
     if spec.undercoverage_stratum is not None:
         labels = [str(x) for x in true.stratum_labels]
         if spec.undercoverage_stratum not in labels:
-            from samplewright.config.validate import closest
-
             raise InputError(f"[frame_error] undercoverage_stratum {spec.undercoverage_stratum!r} is not a "
                              f"stratum of the frame{closest(spec.undercoverage_stratum, labels)}")
         pool = true.stratum == labels.index(spec.undercoverage_stratum)

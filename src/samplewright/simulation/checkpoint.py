@@ -26,6 +26,7 @@ import numpy as np
 
 from samplewright.errors import InputError
 from samplewright.files import atomic_write, write_json
+from samplewright.simulation.blocks import BlockResult
 
 FOLDER = "blocks"
 MANIFEST = "manifest.json"
@@ -179,8 +180,6 @@ class BlockStore:
         another design, block or estimator list, or arrays of another shape than ``count``
         replicates of ``width`` variables.  The block is then drawn again.
         """
-        from samplewright.simulation.engine import BlockResult
-
         path = self.folder / block_name(cell, block)
         if not path.is_file():  # absent (a FIFO or a loop in its place is not read either)
             return None
@@ -201,8 +200,6 @@ class BlockStore:
 
 def _mismatch(content: dict, cell, block: int, start: int, count: int, width: int) -> str | None:
     """Why a block file's ``content`` is not the block asked for (None when it is)."""
-    from samplewright.simulation.engine import BlockResult
-
     saved = content.pop("checksum", None)
     if saved is None or saved.shape != () or str(saved) != checksum(content):
         return "fails its checksum (it was altered or damaged)"

@@ -18,19 +18,20 @@ from __future__ import annotations
 import hashlib
 import itertools
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from samplewright.estimation.cost import CostModel
 from samplewright.designs import Design
 from samplewright.errors import InputError
+from samplewright.estimation.cost import CostModel
 from samplewright.estimation.estimators import sample_units
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.simulation.fieldwork import replicate_columns
 from samplewright.population.frame import Frame
+from samplewright.simulation.blocks import BlockResult, BlockTask, replicate_columns
+from samplewright.simulation.fieldwork import Fieldwork, run_fieldwork_block
 
 
 @dataclass(frozen=True)
@@ -41,6 +42,8 @@ class Cell:
     design_index: int  # position in the scenario (for ordering output)
     size_index: int
     estimators: tuple[str, ...]
+    #: non-response, frame errors, weighting adjustment (fieldwork.py); None: the plain block runner
+    fieldwork: Fieldwork | None = None
 
     @property
     def key(self) -> tuple[int, ...]:
@@ -53,30 +56,6 @@ def stream_key(label: str) -> tuple[int, ...]:
     return tuple(int.from_bytes(digest[i:i + 4], "big") for i in range(0, 32, 4))
 
 
-@dataclass
-class BlockResult:
-    """One block's per-replicate results, tagged with the cell and block it came from."""
-
-    cell: int
-    block: int
-    start: int
-    estimate: np.ndarray  # (E, B, V)
-    se: np.ndarray
-    lower: np.ndarray
-    upper: np.ndarray
-    n: np.ndarray  # (B,)
-    cost: np.ndarray  # (B,)
-    # fieldwork only (see fieldwork.py): counts per replicate and the full-response results
-    attempted: np.ndarray | None = None  # (B,)
-    eligible: np.ndarray | None = None  # (B,)
-    full_estimate: np.ndarray | None = None  # (E, B, V)
-    full_se: np.ndarray | None = None
-    full_lower: np.ndarray | None = None
-    full_upper: np.ndarray | None = None
-    full_cost: np.ndarray | None = None  # (B,)
-    adjustment_failed: np.ndarray | None = None  # (B,)
-
-
 def block_seed(seed: int, cell: Cell, block: int) -> np.random.SeedSequence:
     """The seed of one block (see module notes)."""
     return np.random.SeedSequence(seed, spawn_key=(*cell.key, cell.size_index, block))
@@ -87,18 +66,15 @@ def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
     return [(b, s, min(block_size, replicates - s)) for b, s in enumerate(range(0, replicates, block_size))]
 
 
-def run_block(frame: Frame, cell: Cell, cell_id: int, block: int, start: int, count: int,
-              seedseq: np.random.SeedSequence, confidence: float, cost: CostModel) -> BlockResult:
+def run_block(frame: Frame, cell: Cell, task: BlockTask, confidence: float, cost: CostModel) -> BlockResult:
     """Draw one block of replicates and estimate with every estimator of the cell."""
-    if getattr(cell.design, "fieldwork", None) is not None:  # non-response, frame errors (fieldwork.py)
-        from samplewright.simulation.fieldwork import run_fieldwork_block
-
-        return run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost)
-    rng = np.random.default_rng(seedseq)
-    sample = cell.design.draw(frame, rng, count, keep_units=cost.needs_units(cell.design))
+    if cell.fieldwork is not None:  # the cell's block runner: with fieldwork, or plain
+        return run_fieldwork_block(frame, cell, task, confidence, cost)
+    rng = np.random.default_rng(task.seed)
+    sample = cell.design.draw(frame, rng, task.count, keep_units=cost.needs_units(cell.design))
     outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence, frame.layout) for e in cell.estimators]
     return BlockResult(
-        cell=cell_id, block=block, start=start,
+        cell=task.cell, block=task.block, start=task.start,
         estimate=np.stack([o.estimate for o in outs]),
         se=np.stack([o.se for o in outs]),
         lower=np.stack([o.lower for o in outs]),
@@ -125,86 +101,91 @@ def make_cells(designs, estimators) -> list[Cell]:
 BACKENDS = ("local", "dask")
 
 
-def simulate(frame: Frame, cells: list[Cell], replicates: int, seed: int, block_size: int,
-             confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
-             scheduler: str | None = None, store=None) -> list[BlockResult]:
-    """Run every block of every cell; results come back tagged, in any order.
+def simulate(plan, progress=None) -> list[BlockResult]:
+    """Run every block of every cell of ``plan`` (a :class:`~samplewright.simulation.plan.RunPlan`);
+    results come back tagged, in any order.
 
     ``progress``, when given, is called with (cell id, replicates done in that block) after
-    each block completes.  ``store`` (a :class:`~samplewright.simulation.checkpoint.BlockStore`) keeps
-    each finished block on disk and supplies the blocks a previous attempt finished.
+    each block completes.  The plan's ``store`` (a :class:`~samplewright.simulation.checkpoint.BlockStore`)
+    keeps each finished block on disk and supplies the blocks a previous attempt finished.
     """
-    tasks = [(ci, b, s, count) for ci in range(len(cells)) for b, s, count in block_spans(replicates, block_size)]
-    return list(_complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress))
+    spans = block_spans(plan.replicates, plan.block_size)
+    tasks = [(ci, b, s, count) for ci in range(len(plan.cells)) for b, s, count in spans]
+    return list(_complete(plan, tasks, progress))
 
 
-def simulate_until(frame: Frame, cells: list[Cell], rule, min_replicates: int, seed: int, block_size: int,
-                   confidence: float, cost: CostModel, jobs: int = 1, progress=None, backend: str = "local",
-                   scheduler: str | None = None, store=None,
-                   truth: np.ndarray | None = None) -> tuple[list[BlockResult], list[dict]]:
-    """Add blocks to each cell, in block order, until it meets ``rule`` (see :mod:`samplewright.evaluation.stopping`).
+@dataclass
+class _Waves:
+    """Where a sequential run stands: per cell, its progress, finished blocks, blocks scheduled, next aim."""
 
-    Coverage is scored against ``truth``, the true population's value of every output variable
-    of ``frame.layout`` (targets, then domain means); by default ``frame.layout.truth``, which
-    is wrong when ``frame`` is a listed frame with frame errors (pass the true population's).
+    spans: list
+    min_blocks: int
+    states: dict
+    have: dict = field(default_factory=dict)
+    scheduled: dict = field(default_factory=dict)
+    aim: dict = field(default_factory=dict)
 
-    Every cell runs at least ``min_replicates`` (rounded up to whole blocks) and at most
-    ``rule.max_replicates``.  Blocks are dispatched in waves sized from the replicates the
+
+def simulate_until(plan, progress=None) -> tuple[list[BlockResult], list[dict]]:
+    """Add blocks to each cell, in block order, until it meets ``plan.stopping``.
+
+    Coverage is scored against the true population's value of every output variable of the
+    layout (targets, then domain means): ``plan.truth``, not the listed frame.
+
+    Every cell runs at least ``plan.replicates`` (rounded up to whole blocks) and at most
+    the rule's ``max_replicates``.  Blocks are dispatched in waves sized from the replicates the
     rule still asks for; blocks past a cell's stopping point are dropped, so the replicates
-    kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the
-    per-cell report of :func:`samplewright.evaluation.stopping.report`.
+    kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the rule's
+    per-cell report.
     """
-    from samplewright.evaluation.stopping import CellProgress, report
+    rule = plan.stopping
+    spans = block_spans(rule.max_replicates, plan.block_size)
+    min_blocks = min(len(spans), -(-int(plan.replicates) // plan.block_size))
+    cell_ids = range(len(plan.cells))
+    waves = _Waves(spans=spans, min_blocks=min_blocks, states={ci: rule.start_cell() for ci in cell_ids},
+                   have={ci: {} for ci in cell_ids}, scheduled=dict.fromkeys(cell_ids, 0),
+                   aim=dict.fromkeys(cell_ids, min_blocks))
+    truths = dict(zip(plan.truth.layout.names, plan.truth.layout.truth))  # as the summary scores them
+    truth = np.array([truths[v] for v in plan.frame.layout.names], dtype=float)
+    with backend_session(plan.backend, plan.scheduler, plan.frame, plan.cells):  # one dask client for all waves
+        _until_waves(plan, waves, truth, progress)
+    kept = [waves.have[ci][b] for ci, st in waves.states.items() for b in range(st.used)]
+    return kept, rule.report(plan.cells, waves.states)
 
-    spans = block_spans(rule.max_replicates, block_size)
-    min_blocks = min(len(spans), -(-int(min_replicates) // block_size))
-    states = {ci: CellProgress() for ci in range(len(cells))}
-    have: dict[int, dict[int, BlockResult]] = {ci: {} for ci in range(len(cells))}
-    scheduled = {ci: 0 for ci in range(len(cells))}
-    wave = {ci: min_blocks for ci in range(len(cells))}
-    with backend_session(backend, scheduler, frame, cells):  # one dask client and scatter for every wave
-        _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
-                     block_size, min_blocks, states, have, scheduled, wave,
-                     frame.layout.truth if truth is None else np.asarray(truth, dtype=float))
-    kept = [have[ci][b] for ci, st in states.items() for b in range(st.used)]
-    return kept, report(cells, states, rule)
 
-
-def _until_waves(frame, cells, rule, seed, confidence, cost, jobs, backend, scheduler, store, progress, spans,
-                 block_size, min_blocks, states, have, scheduled, wave, truth) -> None:
+def _until_waves(plan, waves: _Waves, truth: np.ndarray, progress) -> None:
     """The waves of :func:`simulate_until`: dispatch, consume in block order, size the next wave."""
-    from samplewright.evaluation.stopping import advance
-
-    max_blocks = len(spans)
+    rule, max_blocks = plan.stopping, len(waves.spans)
     while True:
         tasks = []
-        for ci, st in states.items():
+        for ci, st in waves.states.items():
             if st.stopped:
                 continue
-            upto = min(max_blocks, wave[ci])
-            tasks += [(ci, b, spans[b][1], spans[b][2]) for b in range(scheduled[ci], upto)]
-            scheduled[ci] = max(scheduled[ci], upto)
+            upto = min(max_blocks, waves.aim[ci])
+            tasks += [(ci, b, waves.spans[b][1], waves.spans[b][2]) for b in range(waves.scheduled[ci], upto)]
+            waves.scheduled[ci] = max(waves.scheduled[ci], upto)
         if not tasks:
             break
-        for r in _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
-            have[r.cell][r.block] = r
-        for ci, st in states.items():
+        for r in _complete(plan, tasks, progress):
+            waves.have[r.cell][r.block] = r
+        for ci, st in waves.states.items():
             if st.stopped:
                 continue
-            advance(st, have[ci], rule, truth, min_blocks, max_blocks)
+            rule.advance(st, waves.have[ci], truth, waves.min_blocks, max_blocks)
             if not st.stopped:  # aim at the replicates still asked for, growing at most twofold per wave
-                aim = -(-st.tally.needed(rule.targets) // block_size)
-                wave[ci] = min(max_blocks, max(st.used + max(jobs, 1), min(aim, 2 * st.used)))
+                aim = -(-st.tally.needed(rule.targets) // plan.block_size)
+                waves.aim[ci] = min(max_blocks, max(st.used + max(plan.jobs, 1), min(aim, 2 * st.used)))
 
 
-def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, scheduler, store, progress):
-    """Yield the result of every task (cell id, block, start, count): from ``store`` when it
-    holds the block already, otherwise drawn now (and saved to ``store`` on arrival)."""
+def _complete(plan, tasks, progress):
+    """Yield the result of every task (cell id, block, start, count): from the plan's store when it
+    holds the block already, otherwise drawn now (and saved to the store on arrival)."""
+    store = plan.store
     done = store.finished() if store is not None else set()
-    width = len(frame.layout.names)
+    width = len(plan.frame.layout.names)
     todo = []
     for ci, b, s, count in tasks:
-        cell = cells[ci]
+        cell = plan.cells[ci]
         r = store.load(cell, ci, b, s, count, width) if (cell.key, cell.size_index, b) in done else None
         if r is not None:
             if progress:
@@ -212,17 +193,16 @@ def _complete(frame, cells, tasks, seed, confidence, cost, jobs, backend, schedu
             yield r
         else:
             todo.append((ci, b, s, count))
-    for r in dispatch(frame, cells, todo, seed, confidence, cost, jobs, backend, scheduler):
+    for r in dispatch(plan, todo):
         if store is not None:
-            store.save(r, cells[r.cell])
+            store.save(r, plan.cells[r.cell])
         if progress:
             progress(r.cell, len(r.n))
         yield r
 
 
-def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: float, cost: CostModel,
-             jobs: int = 1, backend: str = "local", scheduler: str | None = None):
-    """Run ``run_block`` for each task (cell id, block, start, count); yield results as they finish.
+def dispatch(plan, tasks):
+    """Run ``run_block`` for each task (cell id, block, start, count) of ``plan``; yield results as they finish.
 
     ``backend="local"`` runs in this process when ``jobs`` is 1, else on ``jobs`` worker
     processes forked from this one (where the platform forks and this process runs no
@@ -231,20 +211,21 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
     at ``scheduler`` through joblib's dask backend, with the frame scattered to the workers
     once (not shipped with every block).
     """
-    calls = [(ci, b, s, count, block_seed(seed, cells[ci], b)) for ci, b, s, count in tasks]
+    frame, cells, seed, confidence, cost = plan.frame, plan.cells, plan.seed, plan.confidence, plan.cost
+    jobs, backend, scheduler = plan.jobs, plan.backend, plan.scheduler
+    calls = [BlockTask(ci, b, s, count, block_seed(seed, cells[ci], b)) for ci, b, s, count in tasks]
     if not calls:
         return
     if backend == "local" and (jobs == 1 or len(calls) == 1):
-        for ci, b, s, count, ss in calls:
-            yield run_block(frame, cells[ci], ci, b, s, count, ss, confidence, cost)
+        for task in calls:
+            yield run_block(frame, cells[task.cell], task, confidence, cost)
         return
     from joblib import Parallel, delayed
 
     if backend == "dask":
         from joblib import parallel_config
 
-        work = (delayed(run_task)(frame, cells, ci, b, s, count, ss, confidence, cost)
-                for ci, b, s, count, ss in calls)
+        work = (delayed(run_task)(frame, cells, task, confidence, cost) for task in calls)
         if (scheduler, id(frame), id(cells)) in _SESSIONS:  # inside backend_session: already scattered
             yield from Parallel(n_jobs=-1, return_as="generator_unordered")(work)
             return
@@ -256,7 +237,7 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
 
     # forking a process that runs other threads can deadlock the child: then loky's workers
     if "fork" in mp.get_all_start_methods() and threading.active_count() == 1:
-        yield from _forked(frame, cells, calls, jobs, confidence, cost)
+        yield from _forked(plan, calls)
         return
     import shutil
     import tempfile
@@ -267,7 +248,7 @@ def dispatch(frame: Frame, cells: list[Cell], tasks, seed: int, confidence: floa
     try:  # the frame and cells go to disk once; workers map them read-only (see run_shared)
         path = str(Path(folder) / "shared.joblib")
         joblib.dump((frame, cells), path)
-        work = (delayed(run_shared)(path, ci, b, s, count, ss, confidence, cost) for ci, b, s, count, ss in calls)
+        work = (delayed(run_shared)(path, task, confidence, cost) for task in calls)
         yield from Parallel(n_jobs=jobs, return_as="generator_unordered")(work)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
@@ -279,8 +260,8 @@ _INHERITED: dict[str, tuple] = {}
 FORK_CHUNK = 4
 
 
-def _forked(frame, cells, calls, jobs, confidence, cost):
-    """Run the calls on ``jobs`` forked worker processes that inherit the frame and cells.
+def _forked(plan, calls):
+    """Run the calls (block tasks) on ``plan.jobs`` forked worker processes that inherit the frame and cells.
 
     Forked workers share the parent's memory pages (copy-on-write) and its imports, so
     nothing is pickled but each block's seed and its small result; a pool of fresh
@@ -290,6 +271,7 @@ def _forked(frame, cells, calls, jobs, confidence, cost):
     import os
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
+    frame, cells, jobs, confidence, cost = plan.frame, plan.cells, plan.jobs, plan.confidence, plan.cost
     token = f"{os.getpid()}-{id(frame)}-{id(cells)}"
     _INHERITED[token] = (frame, cells)
     pool = ProcessPoolExecutor(jobs, mp_context=mp.get_context("fork"), initializer=_quiet_worker)
@@ -298,8 +280,7 @@ def _forked(frame, cells, calls, jobs, confidence, cost):
         pending = set()
         while True:
             while len(pending) < 2 * jobs:
-                chunk = [(token, ci, b, s, count, ss, confidence, cost)
-                         for ci, b, s, count, ss in itertools.islice(todo, FORK_CHUNK)]
+                chunk = [(token, task, confidence, cost) for task in itertools.islice(todo, FORK_CHUNK)]
                 if not chunk:
                     break
                 pending.add(pool.submit(_run_inherited_chunk, chunk))
@@ -321,9 +302,9 @@ def _quiet_worker() -> None:
 
 
 def _run_inherited(args) -> BlockResult:
-    token, cell_id, *rest = args
+    token, task, confidence, cost = args
     frame, cells = _INHERITED[token]
-    return run_task(frame, cells, cell_id, *rest)
+    return run_task(frame, cells, task, confidence, cost)
 
 
 def _run_inherited_chunk(chunk) -> list[BlockResult]:
@@ -331,16 +312,16 @@ def _run_inherited_chunk(chunk) -> list[BlockResult]:
     return [_run_inherited(args) for args in chunk]
 
 
-def run_task(frame: Frame, cells: list[Cell], cell_id: int, *args) -> BlockResult:
-    """``run_block`` for cell ``cells[cell_id]`` (so a backend can ship the cell list once)."""
-    return run_block(frame, cells[cell_id], cell_id, *args)
+def run_task(frame: Frame, cells, task: BlockTask, confidence: float, cost: CostModel) -> BlockResult:
+    """``run_block`` for cell ``cells[task.cell]`` (so a backend can ship the cell list once)."""
+    return run_block(frame, cells[task.cell], task, confidence, cost)
 
 
 #: per worker process: (frame, cells) already read from a dispatch's shared file
 _SHARED: dict[str, tuple] = {}
 
 
-def run_shared(path: str, cell_id: int, *args) -> BlockResult:
+def run_shared(path: str, task: BlockTask, confidence: float, cost: CostModel) -> BlockResult:
     """``run_task`` on the frame and cells the parent dumped to ``path``, read once per worker.
 
     The arrays are memory-mapped read-only, so the workers share the parent's pages instead
@@ -354,7 +335,7 @@ def run_shared(path: str, cell_id: int, *args) -> BlockResult:
         _plain_arrays(frame)
         _SHARED[path] = (frame, cells)
     frame, cells = _SHARED[path]
-    return run_task(frame, cells, cell_id, *args)
+    return run_task(frame, cells, task, confidence, cost)
 
 
 def _plain_arrays(obj) -> None:

@@ -24,17 +24,15 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from samplewright.simulation import response as _response
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.registry import ESTIMATORS
-from samplewright.population.frame import Frame
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
+from samplewright.population.frame import Frame
+from samplewright.simulation import response as _response
+from samplewright.simulation.blocks import BlockResult, BlockTask
 
-#: per-replicate columns fieldwork adds to the replicate table (after the contract columns)
-REPLICATE_COLUMNS = ("attempted", "eligible", "full_estimate", "full_se", "full_lower", "full_upper",
-                     "full_cost", "adjustment_failed")
 @dataclass(frozen=True, eq=False)
 class Fieldwork:
     """What one design's blocks need at fieldwork: who is eligible, who responds, how to reweight."""
@@ -53,14 +51,19 @@ class FieldSetup:
     truth: Frame  # the true population (the evaluator's truths)
     census: dict  # (design label, estimator) -> (V',) estimator on a census of the listed frame
     adjustments: dict  # design label -> AdjustmentSpec
+    per_design: dict  # design label -> Fieldwork, what its cells' block runner needs
     info: dict
+
+
+def adjustment_specs(scenario) -> tuple[AdjustmentSpec, ...]:
+    """Each design's weighting adjustment (none for a scenario built without them)."""
+    return scenario.adjustments or tuple(AdjustmentSpec() for _ in scenario.designs)
 
 
 def active(scenario) -> bool:
     """Whether the scenario asks for any fieldwork (response, frame errors or an adjustment)."""
-    adj = [getattr(d, "adjustment", None) for d in scenario.designs]
-    return (getattr(scenario, "response", None) is not None or getattr(scenario, "frame_error", None) is not None
-            or any(a is not None and a.method != "none" for a in adj))
+    return (scenario.response is not None or scenario.frame_error is not None
+            or any(a.method != "none" for a in adjustment_specs(scenario)))
 
 
 # ------------------------------------------------------------------ unit layout
@@ -160,37 +163,20 @@ def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.S
             e.sum(axis=(1, 2)).astype(float), r.sum(axis=(1, 2)).astype(float), failed)
 
 
-def run_fieldwork_block(frame, cell, cell_id, block, start, count, seedseq, confidence, cost):
-    """``engine.run_block`` for a design with fieldwork attached (see module notes)."""
-    from samplewright.simulation.engine import BlockResult
-
-    fw = cell.design.fieldwork
-    rng = np.random.default_rng(seedseq)
-    sample = cell.design.draw(frame, rng, count, keep_units=True)
-    real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, seedseq)
+def run_fieldwork_block(frame: Frame, cell, task: BlockTask, confidence: float, cost) -> BlockResult:
+    """``engine.run_block`` for a cell with fieldwork (see module notes)."""
+    fw = cell.fieldwork
+    rng = np.random.default_rng(task.seed)
+    sample = cell.design.draw(frame, rng, task.count, keep_units=True)
+    real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, task.seed)
     est, se, lo, hi = _estimate(real, frame, cell.estimators, confidence)
     fest, fse, flo, fhi = _estimate(full, frame, cell.estimators, confidence)
     return BlockResult(
-        cell=cell_id, block=block, start=start, estimate=est, se=se, lower=lo, upper=hi,
+        cell=task.cell, block=task.block, start=task.start, estimate=est, se=se, lower=lo, upper=hi,
         n=completed, cost=cost.replicate_cost(sample, frame, completed=completed),
         attempted=attempted, eligible=eligible, full_estimate=fest, full_se=fse, full_lower=flo, full_upper=fhi,
         full_cost=cost.replicate_cost(sample, frame, completed=eligible), adjustment_failed=failed.astype(float),
     )
-
-
-def replicate_columns(blocks, E: int, V: int) -> dict:
-    """Extra replicate-table columns for one cell's sorted blocks (empty without fieldwork)."""
-    if not blocks or getattr(blocks[0], "full_estimate", None) is None:
-        return {}
-    out = {}
-    for k in REPLICATE_COLUMNS:
-        if k in ("full_estimate", "full_se", "full_lower", "full_upper"):
-            a = np.concatenate([getattr(r, k) for r in blocks], axis=1)  # (E, R, V)
-            out[k] = a.transpose(0, 2, 1).reshape(-1)
-        else:
-            a = np.concatenate([getattr(r, k) for r in blocks])
-            out[k] = np.tile(a, E * V)
-    return out
 
 
 # ------------------------------------------------------------------ set-up
@@ -200,10 +186,8 @@ def _columns_needed(scenario) -> list[str]:
         names += list(scenario.response.columns())
     if scenario.frame_error is not None:
         names += list(scenario.frame_error.columns())
-    for d in scenario.designs:
-        a = getattr(d, "adjustment", None)
-        if a is not None:
-            names += list(a.columns())
+    for spec in adjustment_specs(scenario):
+        names += list(spec.columns())
     return list(dict.fromkeys(names))
 
 
@@ -289,8 +273,8 @@ def _census(fw: Fieldwork, frame: Frame, estimators, confidence) -> dict:
     return {est: ESTIMATORS[est](census, N, frame.V, confidence, frame.layout).estimate[0] for est in estimators}
 
 
-def prepare(scenario, frame: Frame, cells, seed: int, confidence: float) -> FieldSetup | None:
-    """Set up fieldwork for a run (None when the scenario asks for none); attaches it to the cells.
+def prepare(scenario, frame: Frame, seed: int, confidence: float) -> FieldSetup | None:
+    """Set up fieldwork for a run (None when the scenario asks for none).
 
     ``frame`` is the true population as loaded; the returned setup's ``frame`` is what the
     designs must draw from (the listed frame under ``[frame_error]``).
@@ -321,17 +305,15 @@ def prepare(scenario, frame: Frame, cells, seed: int, confidence: float) -> Fiel
         info["response"] = {**model.describe(),
                             "mean_propensity": None if p.unit is None else float(p.unit.mean())}
     census, adjustments, per_design = {}, {}, {}
-    for d, ests in zip(scenario.designs, scenario.estimators):
-        spec = getattr(d, "adjustment", None) or AdjustmentSpec()
+    for d, ests, spec in zip(scenario.designs, scenario.estimators, adjustment_specs(scenario)):
         adjustments[d.label] = spec
         fw = Fieldwork(eligible=eligible, propensity=propensity,
                        adjustment=_resolve_adjustment(spec, listed, source, cols), spec=spec)
         per_design[d.label] = fw
         for est, value in _census(fw, listed, ests, confidence).items():
             census[(d.label, est)] = value
-    for cell in cells:
-        cell.design.fieldwork = per_design[cell.design.label]
     info["adjustments"] = {label: s.describe() for label, s in adjustments.items()}
     info["response_seed"] = ("block SeedSequence with spawn_key extended by "
                              f"{_response.BLOCK_KEY} (crc32 of 'response-draws')")
-    return FieldSetup(frame=listed, truth=frame, census=census, adjustments=adjustments, info=info)
+    return FieldSetup(frame=listed, truth=frame, census=census, adjustments=adjustments, per_design=per_design,
+                      info=info)

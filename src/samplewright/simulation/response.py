@@ -36,6 +36,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from samplewright.config.validate import as_float, as_str, check_keys, closest
 from samplewright.errors import InputError
 
 MODELS = ("constant", "stratum", "cluster", "logistic")
@@ -84,9 +85,6 @@ class ResponseModel:
 
 def response_from_dict(table: dict, ctx: str = "[response]") -> ResponseModel:
     """Check a ``[response]`` table and build the model; refusals name the key at fault."""
-    from samplewright.config.scenario import as_float, as_str, check_keys
-    from samplewright.config.validate import closest
-
     check_keys(table, KEYS, ctx)
     model = as_str(table.get("model", "constant"), "model", ctx)
     if model not in MODELS:
@@ -157,8 +155,6 @@ def response_from_dict(table: dict, ctx: str = "[response]") -> ResponseModel:
 
 
 def _rate(value, key, ctx) -> float:
-    from samplewright.config.scenario import as_float
-
     v = as_float(value, key, ctx, minimum=0.0, maximum=1.0)
     if v <= 0.0:
         raise InputError(f"{ctx}: {key} must be above 0 (a unit that never responds cannot be weighted), "
@@ -245,8 +241,6 @@ def _stratum_values(table: dict, frame, key: str) -> np.ndarray:
 
 
 def _near(word, options) -> str:
-    from samplewright.config.validate import closest
-
     return closest(word, options)
 
 

@@ -46,7 +46,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from samplewright.config.scenario import Scenario, load_scenario
+from samplewright.simulation.scenario import Scenario, load_scenario
 from samplewright.config.validate import closest, frame_columns
 from samplewright.designs import Design
 from samplewright.designs.pips import size_measure
