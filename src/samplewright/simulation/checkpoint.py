@@ -9,10 +9,10 @@ SHA-256 of its arrays.  ``manifest.json`` beside them records what the blocks we
 ``samplewright run --resume DIR`` reads it back, refuses a mismatch or a manifest value of
 the wrong type, and runs only the blocks that are missing.  A block file that cannot be
 read, belongs elsewhere, has arrays of the wrong shape or fails its checksum is drawn again
-(with a warning).  Once a run's tables are written the command removes the folder
-(:func:`remove`) unless asked to keep it, and run.json records which (``blocks_kept``).  Since each block's numbers depend only on its seed
+(with a warning).  Since each block's numbers depend only on its seed
 (see :mod:`samplewright.simulation.engine`), the resumed run gives the same numbers as an
-uninterrupted one.
+uninterrupted one.  Once a run's tables are written the command removes the folder
+(:func:`remove`) unless asked to keep it, and run.json records which (``blocks_kept``).
 """
 
 from __future__ import annotations
