@@ -160,7 +160,7 @@ def test_crash_in_a_parallel_worker_then_resume_equals_uninterrupted(scenario_fi
 @pytest.mark.slow
 def test_resume_refuses_a_changed_scenario_or_seed(scenario_file, tmp_path, capsys):
     out = tmp_path / "res"
-    assert main(["run", str(scenario_file), "--out", str(out), "--quiet"]) == 0
+    assert main(["run", str(scenario_file), "--out", str(out), "--quiet", "--keep-blocks"]) == 0
     capsys.readouterr()
     assert main(["run", "--resume", str(out), "--seed", "9", "--quiet"]) == 2
     err = capsys.readouterr().err
@@ -181,7 +181,7 @@ def test_resume_without_saved_blocks_is_refused(tmp_path, capsys):
 def test_forced_rerun_starts_from_no_blocks(scenario_file, tmp_path):
     """--force over an earlier run's folder must not reuse its blocks (another seed here)."""
     out, ref = tmp_path / "again", tmp_path / "ref"
-    assert main(["run", str(scenario_file), "--out", str(out), "--quiet"]) == 0
+    assert main(["run", str(scenario_file), "--out", str(out), "--quiet", "--keep-blocks"]) == 0
     assert main(["run", str(scenario_file), "--out", str(out), "--quiet", "--force", "--seed", "2"]) == 0
     assert main(["run", str(scenario_file), "--out", str(ref), "--quiet", "--seed", "2"]) == 0
     _assert_same_run(out, ref)

@@ -121,7 +121,8 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     max_replicates : int, optional
         Replicate cap of a stopping rule (default 100 times ``replicates``, at least 100,000).
     out : path, optional
-        Results folder: finished blocks are kept in ``out/blocks/`` as they complete.
+        Results folder: finished blocks are kept in ``out/blocks/`` as they complete (the
+        ``run`` and ``demo`` commands remove them once the tables are written, unless ``--keep-blocks``).
     resume : bool
         Continue the run whose blocks are in ``out/blocks/`` (seed, replicates, block size and
         stopping rule default to the saved ones; a mismatch is refused).

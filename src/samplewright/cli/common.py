@@ -25,6 +25,10 @@ def add_run_options(p) -> None:
     p.add_argument("--no-report", action="store_true",
                    help="write only the result tables, not figures/, report.html and brief.md "
                         "(build them later with `samplewright report DIR`; default: off, the report is written)")
+    p.add_argument("--keep-blocks", action="store_true",
+                   help="keep DIR/blocks/ (the per-block checkpoint files) after the run finishes, so that "
+                        "--resume DIR can rebuild its tables (default: off, removed once every table is written; "
+                        "an interrupted or failed run always keeps them)")
     add_scale_options(p)
 
 
@@ -63,6 +67,7 @@ def simulate_and_write(scenario, args) -> int:
     """Run ``scenario`` with the command's options and write its results to ``args.out``."""
     from samplewright.api import run
     from samplewright.files import prepare_dir
+    from samplewright.simulation import checkpoint
 
     inputs = (scenario.source, scenario.frame.path)
     extra = run_kwargs(args)
@@ -71,16 +76,20 @@ def simulate_and_write(scenario, args) -> int:
         # (a resumed run continues in its own folder)
         prepare_dir(args.out, force=args.force or extra["resume"], inputs=inputs)
 
+    exact = getattr(args, "exact", False)  # an enumeration keeps no blocks
     try:
         with stderr_log(args):
             res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
-                      progress=None if not args.quiet else False, exact=getattr(args, "exact", False),
-                      ready=ready, **extra)
-    except BaseException as exc:
+                      progress=None if not args.quiet else False, exact=exact, ready=ready, **extra)
+        if not exact:
+            res.info[checkpoint.KEPT] = args.keep_blocks
+        out = res.write(args.out, force=True)  # the simulated tables and run.json first
+    except BaseException as exc:  # the tables are not all written: the blocks stay for --resume
         if not isinstance(exc, (InputError, SystemExit)):
             interrupted_note(args.out)
         raise
-    out = res.write(args.out, force=True)  # the simulated tables and run.json first
+    if not exact and not args.keep_blocks:  # every table is written: nothing is left to resume
+        checkpoint.remove(out)
     failures = list(res.late_failures)
     page = None
     if not getattr(args, "no_report", False):

@@ -29,8 +29,9 @@ def add_scale_options(p) -> None:
 def add_resume_option(p) -> None:
     """--resume DIR (``run`` only)."""
     p.add_argument("--resume", metavar="DIR",
-                   help="continue the interrupted run whose results folder is DIR (its blocks/ are kept; "
-                        "only missing blocks are drawn; default: none, a new run)")
+                   help="continue the interrupted run whose results folder is DIR (or a finished run that "
+                        "kept its blocks/ with --keep-blocks); only missing blocks are drawn "
+                        "(default: none, a new run)")
 
 
 def run_kwargs(args) -> dict:

@@ -11,7 +11,8 @@ the wrong type, and runs only the blocks that are missing.  A block file that ca
 read, belongs elsewhere, has arrays of the wrong shape or fails its checksum is drawn again
 (with a warning).  Since each block's numbers depend only on its seed
 (see :mod:`samplewright.simulation.engine`), the resumed run gives the same numbers as an
-uninterrupted one.
+uninterrupted one.  Once a run's tables are written the command removes the folder
+(:func:`remove`) unless asked to keep it, and run.json records which (``blocks_kept``).
 """
 
 from __future__ import annotations
@@ -30,6 +31,8 @@ from samplewright.simulation.blocks import BlockResult
 
 FOLDER = "blocks"
 MANIFEST = "manifest.json"
+#: run.json key: whether a finished run kept its blocks folder (``--keep-blocks``)
+KEPT = "blocks_kept"
 _NAME = re.compile(r"^c([0-9a-f]{64})-s(\d+)-b(\d+)\.npz$")
 _TAGS = ("cell", "block", "start")  # BlockResult fields that are not per-replicate arrays
 _PER_ESTIMATOR = ("estimate", "se", "lower", "upper")  # (E, B, V) arrays (also with a full_ prefix)
@@ -101,9 +104,7 @@ class BlockStore:
         """Start an empty blocks folder in ``out`` (removing blocks a previous run left there)."""
         folder = Path(out) / FOLDER
         folder.mkdir(parents=True, exist_ok=True)
-        for p in folder.iterdir():  # only our own files: a forced rerun starts from nothing
-            if p.name == MANIFEST or _NAME.match(p.name) or (p.name.startswith(".") and p.suffix == ".tmp"):
-                p.unlink()
+        _clear(folder)  # a forced rerun starts from nothing
         write_json(manifest, folder / MANIFEST)
         return cls(folder, manifest)
 
@@ -113,6 +114,9 @@ class BlockStore:
         folder = Path(out) / FOLDER
         path = folder / MANIFEST
         if not path.exists():
+            if _removed(out):
+                raise InputError(f"--resume {str(out)!r}: that run finished and its {FOLDER}/ folder was removed, "
+                                 f"so there is nothing to resume (a run started with --keep-blocks keeps it)")
             raise InputError(f"--resume {str(out)!r}: no {FOLDER}/{MANIFEST} there, so nothing to resume "
                              f"(start a run with --out {str(out)!r} first)")
         if not path.is_file():  # a folder, FIFO or device: never read (a FIFO would hang)
@@ -196,6 +200,42 @@ class BlockStore:
         if self.warn is not None:
             self.warn(f"block file {str(path)!r} {why}; its replicates are drawn again")
         return None
+
+
+def remove(out) -> None:
+    """Delete the blocks folder in ``out`` once the run's tables are written (nothing is left to resume).
+
+    Only the files a run writes there go, the manifest last, so an interruption midway leaves a
+    folder that still resumes; a folder holding anything else is left in place.
+    """
+    folder = Path(out) / FOLDER
+    if not folder.is_dir():
+        return
+    _clear(folder)
+    try:
+        folder.rmdir()
+    except OSError:  # it holds a file that is not ours: never deleted
+        pass
+
+
+def _clear(folder: Path) -> None:
+    """Delete the block files, temporary files and manifest of a run from ``folder`` (the manifest last)."""
+    ours = [p for p in folder.iterdir() if _NAME.match(p.name) or (p.name.startswith(".") and p.suffix == ".tmp")]
+    for p in ours:
+        p.unlink()
+    (folder / MANIFEST).unlink(missing_ok=True)
+
+
+def _removed(out) -> bool:
+    """Whether ``out`` holds a finished run whose run.json says its blocks folder was removed."""
+    path = Path(out) / "run.json"
+    if not path.is_file():  # absent, or a FIFO that would hang: the usual refusal applies
+        return False
+    try:
+        info = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError, RecursionError):
+        return False
+    return isinstance(info, dict) and info.get(KEPT) is False
 
 
 def _mismatch(content: dict, cell, block: int, start: int, count: int, width: int) -> str | None:
