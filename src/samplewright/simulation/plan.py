@@ -103,12 +103,19 @@ def build_plan(scenario: Scenario, options: RunOptions, frame: Frame | None = No
     listed = frame if field is None else field.frame  # designs draw from the listed frame (frame errors)
     if field is not None:  # the fieldwork block runner for every cell
         cells = [dataclasses.replace(c, fieldwork=field.per_design[c.design.label]) for c in cells]
-    listed = scenario.cost.bind(listed)  # per-stratum unit rates into the cost column (cost.py)
-    for cell in cells:
-        cell.design.check(listed)
+    listed = bind_and_check(scenario.cost, listed, [c.design for c in cells])
     return RunPlan(frame=listed, cells=tuple(cells), replicates=replicates, seed=seed, block_size=block_size,
                    confidence=scenario.confidence, cost=scenario.cost, truth_frame=frame, jobs=options.jobs,
                    backend=options.backend, scheduler=options.scheduler, stopping=stopping, fieldwork=field)
+
+
+def bind_and_check(cost: CostModel, listed: Frame, designs) -> Frame:
+    """The frame the designs draw from with the cost model's per-stratum unit rates bound into its
+    cost column, each design (at one size) checked against it; refused designs raise InputError."""
+    listed = cost.bind(listed)
+    for design in designs:
+        design.check(listed)
+    return listed
 
 
 def with_store(plan: RunPlan, store) -> RunPlan:
