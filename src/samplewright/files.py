@@ -19,9 +19,6 @@ import pandas as pd
 
 from samplewright.errors import InputError
 
-#: files whose presence marks a folder as holding samplewright results
-RESULT_FILES = ("run.json", "summary.csv", "replicates.parquet")
-
 
 def prepare_dir(out, force: bool = False, inputs=()) -> Path:
     """Create ``out`` (and parents) or check it may be written; refuse existing results unless ``force``.
