@@ -134,7 +134,7 @@ def _reason(r, goal, nominal, z, cheapest, best) -> str:
     return "; ".join(parts) if parts else "not needed for the goal"
 
 
-def _describe(p: dict, conf: float) -> str:
+def _describe(p: dict) -> str:
     cost = f"mean cost {_money(p['mean_cost'])}"
     if p["p90_cost"] > p["mean_cost"] * (1 + 1e-9):
         cost += f" (90% of rehearsals at most {_money(p['p90_cost'])})"
@@ -158,7 +158,7 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
     c, b = rec["cheapest_meeting_moe"], rec["best_within_budget"]
     if g["moe"] is not None:
         if c is not None:
-            lines.append(f"Cheapest design meeting the margin: {_describe(c, conf)}.")
+            lines.append(f"Cheapest design meeting the margin: {_describe(c)}.")
         else:
             lines.append("No rehearsed design and size with trustworthy intervals met the margin.")
     if g["budget"] is not None:
@@ -166,7 +166,7 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
             tail = ""
             if b["p90_cost"] > g["budget"]:
                 tail = " Its cost varies from sample to sample and exceeds the budget in over 10% of rehearsals."
-            lines.append(f"Most precise within the budget: {_describe(b, conf)}.{tail}")
+            lines.append(f"Most precise within the budget: {_describe(b)}.{tail}")
         else:
             lines.append("No rehearsed design and size with trustworthy intervals fits the budget.")
     bad = [p for p in rec["passed_over"] if p["reason"].startswith("intervals under-cover")]
