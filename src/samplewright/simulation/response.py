@@ -117,7 +117,8 @@ def response_from_dict(table: dict, ctx: str = "[response]") -> ResponseModel:
         conc = as_float(table["cluster_concentration"], "cluster_concentration", ctx, minimum=1e-9)
         means = {str(k): as_float(v, f"cluster_means.{k}", ctx, 0.0, 1.0, open_interval=True)
                  for k, v in means.items()}
-        return ResponseModel(model, cluster_means=means, concentration=conc, cluster_draw=_cluster_draw(table, ctx))
+        return ResponseModel(model, cluster_means=means, concentration=conc,
+                             cluster_draw=_cluster_draw(table, ctx))
     if model == "cluster":
         by_mean = "cluster_mean" in table or "cluster_concentration" in table
         by_ab = "a" in table or "b" in table
@@ -150,7 +151,8 @@ def _cluster_draw(table: dict, ctx: str) -> str:
     """``cluster_draw``: the cluster rates drawn once for the population or anew in each replicate."""
     draw = as_str(table.get("cluster_draw", "frame"), "cluster_draw", ctx)
     if draw not in ("frame", "replicate"):
-        raise InputError(f"{ctx}: cluster_draw = {draw!r} is not accepted{closest(draw, ('frame', 'replicate'))}")
+        raise InputError(f"{ctx}: cluster_draw = {draw!r} is not accepted"
+                         f"{closest(draw, ('frame', 'replicate'))}")
     return draw
 
 
