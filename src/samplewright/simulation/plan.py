@@ -97,9 +97,10 @@ def build_plan(scenario: Scenario, options: RunOptions, frame: Frame | None = No
     replicates, seed, block_size = run_settings(scenario, options)
     if frame is None:
         frame = scenario.load_frame()
-    designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)  # cost-optimal c_h (cost.py)
+    # an optimal allocation by cost takes its c_h from the true population's stratum costs
+    designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)
     cells = make_cells(designs, scenario.estimators)
-    field = prepare(scenario, frame, seed, scenario.confidence)  # fieldwork.py
+    field = prepare(scenario, frame, seed, scenario.confidence)
     listed = frame if field is None else field.frame  # designs draw from the listed frame (frame errors)
     if field is not None:  # the fieldwork block runner for every cell
         cells = [dataclasses.replace(c, fieldwork=field.per_design[c.design.label]) for c in cells]
