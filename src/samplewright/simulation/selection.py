@@ -52,6 +52,7 @@ from samplewright.designs.pips import size_measure
 from samplewright.errors import InputError, show
 from samplewright.files import csv_writer, json_writer, parquet_writer, write_together
 from samplewright.population.frame import Frame
+from samplewright.simulation.engine import sha256_words
 from samplewright.simulation.plan import bind_and_check
 from samplewright.simulation.scenario import Scenario, load_scenario
 
@@ -68,8 +69,7 @@ REPLAYED_FIELDS = ("design", "rows", "strata", "sum_of_weights", "variance_estim
 
 def draw_key(label: str) -> tuple[int, ...]:
     """The spawn key of a design's draw: the SHA-256 of a draw prefix and its label, as eight 32-bit words."""
-    digest = hashlib.sha256(DRAW_DOMAIN + label.encode("utf-8")).digest()
-    return tuple(int.from_bytes(digest[i:i + 4], "little") for i in range(0, 32, 4))
+    return sha256_words(DRAW_DOMAIN + label.encode("utf-8"), "little")
 
 
 def draw_seed(seed: int, label: str, size: int) -> np.random.SeedSequence:
