@@ -3,7 +3,8 @@
 :func:`build_plan` binds the frame (the true population and, under ``[frame_error]``, the listed
 frame the designs draw from), sets up fieldwork, expands the designs into cells and checks
 each design against the frame.  The engine (:func:`~samplewright.simulation.engine.simulate`,
-:func:`~samplewright.simulation.engine.simulate_until`) and exact mode read only the plan;
+:func:`~samplewright.simulation.engine.simulate_until`) reads only the plan, and exact mode
+(:func:`~samplewright.evaluation.exact.evaluate_exact`) only its frame, cells, confidence and cost;
 nothing in it is changed once built.
 """
 
