@@ -854,10 +854,10 @@ def test_cochran_skewness_rule():
 
 @pytest.mark.slow
 def test_duplicate_warnings_printed_once(tmp_path, capsys, monkeypatch):
-    from samplewright import api as runner
+    from samplewright import api
 
-    monkeypatch.setattr(runner, "frame_warnings", lambda frame: ["the same thing"])
-    monkeypatch.setattr(runner, "design_warnings", lambda frame, cells, R: ["the same thing", "another"])
+    monkeypatch.setattr(api, "frame_warnings", lambda frame: ["the same thing"])
+    monkeypatch.setattr(api, "design_warnings", lambda frame, cells, R: ["the same thing", "another"])
     info, err = run_ok(tmp_path, capsys)
     assert info["warnings"] == ["the same thing", "another"]
     assert _stderr_warnings(err) == ["warning: the same thing", "warning: another"]
