@@ -48,6 +48,7 @@ from w1_scenario import w1_doc
 
 from samplewright import Frame
 from samplewright.api import run
+from samplewright.files import write_json
 from samplewright.simulation.scenario import scenario_from_dict
 
 
@@ -264,9 +265,7 @@ def main(argv=None) -> int:
     print("targets met:", res["targets"])
     out_path = Path(args.out)
     out_path.parent.mkdir(parents=True, exist_ok=True)
-    part = out_path.with_suffix(".json.tmp")
-    part.write_text(json.dumps(res, indent=2) + "\n")
-    part.replace(out_path)
+    write_json(res, out_path)
     print(f"written to {out_path}")
     return 0
 

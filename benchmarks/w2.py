@@ -19,7 +19,6 @@ same frame, is run the same way, and the design's cost is printed as a ratio to 
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import platform
 import sys
@@ -33,6 +32,8 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
 from cli_timing import run_cli, write_scenario
+
+from samplewright.files import write_json
 
 N, STRATA, CLUSTER_SIZE, n = 20_000, 20, 20, 2000
 TARGET_RATIO = 5.0
@@ -123,9 +124,7 @@ def main(argv=None) -> int:
     print(res["target"] + ":", "met" if res["all_within_target"] else "NOT met")
     out = Path(args.out)
     out.parent.mkdir(parents=True, exist_ok=True)
-    tmp_out = out.with_suffix(".json.tmp")
-    tmp_out.write_text(json.dumps(res, indent=2) + "\n")
-    tmp_out.replace(out)
+    write_json(res, out)
     print(f"written to {out}")
     return 0
 

@@ -84,7 +84,7 @@ def test_unit_designs_pay_no_cluster_cost_unless_asked():
 
 def test_expected_clusters_touched_by_srs_against_the_hypergeometric():
     # E[clusters touched] = sum_c (1 - P(no unit of cluster c)) with P = hypergeom(N, M_c, n).pmf(0)
-    df, f = _frame(cluster_cost=False)
+    _df, f = _frame(cluster_cost=False)
     n, R = 12, 20000
     sc = scenario_from_dict({"frame": {"path": "unused.csv", "target": "y", "cluster": "block"},
                              "design": [{"label": "s", "method": "srs", "n": n, "estimators": ["ht"]}],
@@ -112,7 +112,7 @@ def test_optimal_allocation_uses_the_model_costs():
 
 
 def test_stratified_design_cost_with_rates():
-    df, f = _frame()
+    _df, f = _frame()
     cm = CostModel(fixed=10.0, per_unit=2.0, per_stratum=7.0, per_unit_by_stratum=(("west", 9.0),))
     bound = cm.bind(f)
     d = Stratified("st", n=12, allocation="proportional")
@@ -169,7 +169,7 @@ def test_scenario_cost_and_goal_checks(extra, word):
 
 
 def test_cost_optimal_copy_keeps_other_design_attributes():
-    # the runner hands the model's c_h to an optimal stratified design through with_params;
+    # the run plan (build_plan) hands the model's c_h to an optimal stratified design through with_params;
     # attributes set after construction (e.g. a non-response adjustment) must survive
     _, f = _frame()
     d = Stratified("opt", n=12, allocation="optimal")

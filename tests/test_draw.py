@@ -1,4 +1,4 @@
-"""samplewright draw: the real sample, its selection record and the replay (issue 15).
+"""samplewright draw: the real sample, its selection record and the replay.
 
 Checks against sources outside the project:
 - inclusion frequencies over many seeded draws against each unit's pi_i, by the normal

@@ -698,7 +698,7 @@ def test_synth_refuses_existing_file(tmp_path, capsys):
 
 
 def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
-    from samplewright import files as outputs
+    from samplewright import files
 
     p = tmp_path / "s.toml"
     p.write_text("[frame.synthetic]\nunits = 50\n" + SRS)
@@ -706,13 +706,13 @@ def test_synth_into_unwritable_folder(tmp_path, capsys, monkeypatch):
     def denied(*a, **k):
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr(outputs, "_new_temp", denied)  # creating the temporary file is refused
+    monkeypatch.setattr(files, "_new_temp", denied)  # creating the temporary file is refused
     refuse(["synth", p, "--out", tmp_path / "frame.csv"], capsys, "frame.csv", "cannot be written")
 
 
 # ------------------------------------------------------------------ nothing lost
 def test_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
-    from samplewright import files as outputs
+    from samplewright import files
 
     df = pd.DataFrame({"a": np.arange(1000)})
 
@@ -722,12 +722,12 @@ def test_interrupted_write_leaves_no_partial_file(tmp_path, monkeypatch):
 
     monkeypatch.setattr(pd.DataFrame, "to_csv", half_then_fail)
     with pytest.raises(InputError, match="summary.csv.*cannot be written: No space left"):
-        outputs.write_csv(df, tmp_path / "summary.csv")
+        files.write_csv(df, tmp_path / "summary.csv")
     assert list(tmp_path.iterdir()) == []
 
 
 def test_interrupted_write_keeps_previous_file(tmp_path, monkeypatch):
-    from samplewright import files as outputs
+    from samplewright import files
 
     (tmp_path / "summary.csv").write_text("old complete file\n")
 
@@ -737,7 +737,7 @@ def test_interrupted_write_keeps_previous_file(tmp_path, monkeypatch):
 
     monkeypatch.setattr(pd.DataFrame, "to_csv", interrupted)
     with pytest.raises(KeyboardInterrupt):
-        outputs.write_csv(pd.DataFrame({"a": [1]}), tmp_path / "summary.csv")
+        files.write_csv(pd.DataFrame({"a": [1]}), tmp_path / "summary.csv")
     assert [p.name for p in tmp_path.iterdir()] == ["summary.csv"]
     assert (tmp_path / "summary.csv").read_text() == "old complete file\n"
 
@@ -854,10 +854,10 @@ def test_cochran_skewness_rule():
 
 @pytest.mark.slow
 def test_duplicate_warnings_printed_once(tmp_path, capsys, monkeypatch):
-    from samplewright import api as runner
+    from samplewright import api
 
-    monkeypatch.setattr(runner, "frame_warnings", lambda frame: ["the same thing"])
-    monkeypatch.setattr(runner, "design_warnings", lambda frame, cells, R: ["the same thing", "another"])
+    monkeypatch.setattr(api, "frame_warnings", lambda frame: ["the same thing"])
+    monkeypatch.setattr(api, "design_warnings", lambda frame, cells, R: ["the same thing", "another"])
     info, err = run_ok(tmp_path, capsys)
     assert info["warnings"] == ["the same thing", "another"]
     assert _stderr_warnings(err) == ["warning: the same thing", "warning: another"]

@@ -1,4 +1,4 @@
-"""Frame files as offices send them: CSV dialects and encodings, spreadsheets, Parquet (issue 18).
+"""Frame files as offices send them: CSV dialects and encodings, spreadsheets, Parquet.
 
 Every file is written by the test from an exact small frame; the expected values are that frame's
 own numbers and labels, so each check compares against the frame the file was made from.

@@ -59,7 +59,7 @@ def write(path: Path, text: str) -> Path:
     return path
 
 
-# ------------------------------------------------------------------ item 8: synthetic frames
+# ------------------------------------------------------------------ synthetic frames
 @pytest.mark.parametrize("clusters", ["", "clusters = {mean_size = 10}\n"])
 def test_synthetic_stratum_rounding_to_no_unit_is_refused(tmp_path, clusters):
     # 100 units with shares 1 : 0.001: largest-remainder rounding gives the second stratum 0 units
@@ -83,7 +83,7 @@ def test_cluster_sizes_end_for_any_mean_size(tmp_path):
     assert proc.stdout.split() == ["7", "1"], proc.stderr[-2000:]
 
 
-# ------------------------------------------------------------------ item 10: paths, TOML, sizes, memory
+# ------------------------------------------------------------------ paths, TOML, sizes, memory
 def small_frame(tmp_path: Path, **extra) -> Path:
     df = pd.DataFrame({"y": np.arange(1.0, 101.0), "x": np.arange(1.0, 101.0), **extra})
     df.to_csv(tmp_path / "f.csv", index=False)
@@ -189,7 +189,7 @@ def test_memory_bound_is_the_documented_formula():
         check_run_memory(frame, one, 10**4, 500, memory=need - 1)
 
 
-# ------------------------------------------------------------------ item 14: files that are not tables
+# ------------------------------------------------------------------ files that are not tables
 def test_binary_file_is_not_echoed(tmp_path):
     (tmp_path / "f.csv").write_bytes(b"y,\x00\x01secret\xff\xfe\n" + bytes(range(256)) * 20)
     line = refused(run_in(tmp_path), "does not look like a table")
@@ -210,7 +210,7 @@ def test_missing_column_lists_at_most_20_cut_header_names(tmp_path):
     assert "c00_" in line and "c20_" not in line and "z" * 20 not in line
 
 
-# ------------------------------------------------------------------ item 15: column names and types
+# ------------------------------------------------------------------ column names and types
 def test_duplicate_csv_column_is_refused(tmp_path):
     write(tmp_path / "f.csv", "y,g,y\n1,a,5\n2,b,6\n3,c,7\n")
     refused(run_in(tmp_path), "'y'", "twice")

@@ -55,7 +55,7 @@ moe = 1e-6
 SWEEP = CENSUS.replace("n = [20, 60, 240]", "n = [20, 60]").replace("replicates = 1500", "replicates = 40")
 
 
-# ------------------------------------------------------------------ census points (item 9)
+# ------------------------------------------------------------------ census points
 def test_fit_holds_an_exact_point_as_a_constraint():
     # SRS without replacement: MSE(n) = S^2/n - S^2/N exactly (Cochran 1977, eq. 2.8); at n = N it is 0
     # with no Monte Carlo error.  Noisy points elsewhere must not pull the curve off that exact point.
@@ -95,7 +95,7 @@ def test_census_point_in_a_sweep_with_a_goal_runs_and_is_recommended(tmp_path, c
     assert row["a"] == pytest.approx(c["a"], rel=1e-12)
 
 
-# ------------------------------------------------------------------ late failures keep the tables (item 9)
+# ------------------------------------------------------------------ late failures keep the tables
 def test_a_failing_frontier_keeps_the_tables_and_the_report_can_be_rebuilt(tmp_path, capsys, monkeypatch):
     from samplewright.decision import frontier
 
@@ -232,7 +232,7 @@ def test_brief_escapes_markdown_and_html_in_title_and_labels(tmp_path, capsys):
     assert table and all(ln.startswith("| a\\|b\\_c | ") for ln in table)  # one cell, not two
 
 
-# ------------------------------------------------------------------ damaged run folders (item 11)
+# ------------------------------------------------------------------ damaged run folders
 def _damage(folder: Path, how: str) -> str:
     if how == "truncated summary":
         text = (folder / "summary.csv").read_text()
@@ -272,7 +272,7 @@ def test_report_on_a_damaged_folder_is_one_error_line_naming_the_file(tmp_path, 
     assert len(lines) == 1 and lines[0].startswith("error:") and name in lines[0], err
 
 
-# ------------------------------------------------------------------ Ctrl-C at start-up (item 11)
+# ------------------------------------------------------------------ Ctrl-C at start-up
 def test_ctrl_c_while_parsing_is_one_line_and_130(capsys, monkeypatch):
     import samplewright.cli.main as cli_module
 
@@ -304,7 +304,7 @@ def test_ctrl_c_during_the_imports_of_start_up_is_one_line_and_130():
     assert "Traceback" not in done.stderr
 
 
-# ------------------------------------------------------------------ permissions follow the umask (item 12)
+# ------------------------------------------------------------------ permissions follow the umask
 @pytest.mark.parametrize("mask, mode", [(0o022, 0o644), (0o077, 0o600)])
 def test_output_files_follow_the_umask(tmp_path, capsys, mask, mode):
     old = os.umask(mask)

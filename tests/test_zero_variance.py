@@ -2,7 +2,7 @@
 
 Kish's design effect (Kish 1965, sec. 8.2) divides the design's variance by the variance of
 the SRS-without-replacement mean, (1 - f) S^2 / n (Cochran 1977, eq. 2.8), which is 0 when
-every unit has the same value.  The documented values (evaluate.py): deff and se_ratio are
+every unit has the same value.  The documented values (evaluation/measures.py): deff and se_ratio are
 empty only where they are 0 / 0, infinite where only the denominator is 0.  The HT mean
 under Poisson sampling does vary for a constant target (its sample size is random), with
 exact variance sum_k (1 - pi_k) y_k^2 / pi_k / N^2 (the HT variance with pi_kl = pi_k pi_l;

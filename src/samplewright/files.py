@@ -19,9 +19,6 @@ import pandas as pd
 
 from samplewright.errors import InputError
 
-#: files whose presence marks a folder as holding samplewright results
-RESULT_FILES = ("run.json", "summary.csv", "replicates.parquet")
-
 
 def prepare_dir(out, force: bool = False, inputs=()) -> Path:
     """Create ``out`` (and parents) or check it may be written; refuse existing results unless ``force``.
@@ -72,23 +69,7 @@ def atomic_write(path, write) -> Path:
 
     The file ends with the permissions of any new file under the user's umask.
     """
-    path = Path(path)
-    try:
-        tmp = _new_temp(path)
-    except OSError as exc:
-        raise InputError(f"{str(path)!r} cannot be written: {exc.strerror or exc}") from None
-    try:
-        write(Path(tmp))
-        os.replace(tmp, path)
-    except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        if isinstance(exc, OSError):  # disk full, permissions changed, a folder in the way
-            raise InputError(f"{str(path)!r} cannot be written: {exc.strerror or exc}") from None
-        raise
-    return path
+    return write_together([(path, write)])[0]
 
 
 def write_together(items) -> list[Path]:
@@ -117,7 +98,7 @@ def write_together(items) -> list[Path]:
                 os.unlink(tmp)
             except OSError:
                 pass
-        if isinstance(exc, OSError):
+        if isinstance(exc, OSError):  # disk full, permissions changed, a folder in the way
             raise InputError(f"{str(temps[-1][1]) if temps else '?'!r} cannot be written: "
                              f"{exc.strerror or exc}") from None
         raise

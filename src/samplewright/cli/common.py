@@ -115,7 +115,7 @@ def simulate_and_write(scenario, args) -> int:
 
 
 def late_failure_status(failures, out, args) -> int:
-    """Report the steps that failed after the tables were written; the exit status (module notes of cli.py).
+    """Report the steps that failed after the tables were written; the exit status (module notes of cli/main.py).
 
     Each failure is one ``error:`` line; the status is 0 with none, 2 when every cause is refused
     input (an unwritable file...), else 1.  With ``--debug`` the first failure's traceback is shown.

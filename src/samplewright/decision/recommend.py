@@ -54,7 +54,7 @@ def _num(x: float) -> str:
     return f"{x:.4g}"
 
 
-def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float = COVERAGE_Z) -> dict:
+def recommend(front: pd.DataFrame, goal: Goal, nominal: float) -> dict:
     """Pick among the frontier's points of the goal's variable; say why the others were passed over.
 
     Parameters
@@ -75,7 +75,7 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float
     variable = goal.variable if goal.variable is not None else (front["variable"].iloc[0] if len(front) else None)
     conf = nominal if goal.confidence is None else goal.confidence
     pts = front[front["variable"] == variable].reset_index(drop=True)
-    ok = [coverage_acceptable(c, m, nominal, z_coverage) for c, m in zip(pts["coverage"], pts["coverage_mcse"])]
+    ok = [coverage_acceptable(c, m, nominal) for c, m in zip(pts["coverage"], pts["coverage_mcse"])]
     pts = pts.assign(_ok=ok)
     cheapest = best = None
     if goal.moe is not None:
@@ -93,7 +93,7 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float
         if key in chosen:
             continue
         passed.append({"design": r["design"], "size": int(r["size"]), "estimator": r["estimator"],
-                       "reason": _reason(r, goal, nominal, z_coverage, cheapest, best)})
+                       "reason": _reason(r, goal, nominal, cheapest, best)})
     interp = interpolate_goal(pts, goal.moe, goal.budget, normal_quantile(conf))
     good_designs = {(d, e) for (d, e), g in pts.groupby(["design", "estimator"]) if g["_ok"].all()}
     for row in interp:
@@ -104,20 +104,20 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float, z_coverage: float
         "passed_over": passed,
         "interpolated": interp,
         "goal": {**asdict(goal), "variable": variable, "confidence": conf},
-        "coverage_rule": f"coverage >= {nominal:g} - {z_coverage:g} x coverage_mcse",
+        "coverage_rule": f"coverage >= {nominal:g} - {COVERAGE_Z:g} x coverage_mcse",
         "margin_rule": f"moe = {normal_quantile(conf):.4f} x rmse (normal quantile at {conf:g})",
     }
     rec["statement"] = statement(rec, pts, nominal)
     return rec
 
 
-def _reason(r, goal, nominal, z, cheapest, best) -> str:
+def _reason(r, goal, nominal, cheapest, best) -> str:
     if math.isnan(r["coverage"]):
         return "no coverage to judge (no intervals were formed), so it cannot be recommended"
-    if not coverage_acceptable(r["coverage"], r["coverage_mcse"], nominal, z):
+    if not coverage_acceptable(r["coverage"], r["coverage_mcse"], nominal):
         return (f"intervals under-cover: {r['coverage']:.1%} of {nominal:.0%} intervals held the true value "
-                f"(Monte Carlo SE {r['coverage_mcse']:.1%}), more than {z:g} SEs below nominal; its reported "
-                f"margins could not be trusted")
+                f"(Monte Carlo SE {r['coverage_mcse']:.1%}), more than {COVERAGE_Z:g} SEs below nominal; "
+                f"its reported margins could not be trusted")
     parts = []
     if goal.moe is not None:
         if r["moe"] > goal.moe:
@@ -134,7 +134,7 @@ def _reason(r, goal, nominal, z, cheapest, best) -> str:
     return "; ".join(parts) if parts else "not needed for the goal"
 
 
-def _describe(p: dict, conf: float) -> str:
+def _describe(p: dict) -> str:
     cost = f"mean cost {_money(p['mean_cost'])}"
     if p["p90_cost"] > p["mean_cost"] * (1 + 1e-9):
         cost += f" (90% of rehearsals at most {_money(p['p90_cost'])})"
@@ -158,7 +158,7 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
     c, b = rec["cheapest_meeting_moe"], rec["best_within_budget"]
     if g["moe"] is not None:
         if c is not None:
-            lines.append(f"Cheapest design meeting the margin: {_describe(c, conf)}.")
+            lines.append(f"Cheapest design meeting the margin: {_describe(c)}.")
         else:
             lines.append("No rehearsed design and size with trustworthy intervals met the margin.")
     if g["budget"] is not None:
@@ -166,7 +166,7 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
             tail = ""
             if b["p90_cost"] > g["budget"]:
                 tail = " Its cost varies from sample to sample and exceeds the budget in over 10% of rehearsals."
-            lines.append(f"Most precise within the budget: {_describe(b, conf)}.{tail}")
+            lines.append(f"Most precise within the budget: {_describe(b)}.{tail}")
         else:
             lines.append("No rehearsed design and size with trustworthy intervals fits the budget.")
     bad = [p for p in rec["passed_over"] if p["reason"].startswith("intervals under-cover")]

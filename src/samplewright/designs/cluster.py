@@ -15,6 +15,7 @@ from samplewright.designs.enumeration import (
     combination_chunks,
     elementary_symmetric,
     product_chunks,
+    subset_positions,
 )
 from samplewright.errors import InputError
 
@@ -133,12 +134,7 @@ class Cluster(Design):
             offsets = frame.cluster_offsets[chosen]
             for digits in product_chunks([len(x) for x in lists], chunk):
                 R = len(digits)
-                pos = np.zeros((R, m, k), dtype=np.int64)
-                valid = np.zeros((R, m, k), dtype=bool)
-                for j in range(m):
-                    t = int(take[j])
-                    pos[:, j, :t] = lists[j][digits[:, j]]
-                    valid[:, j, :t] = True
+                pos, valid = subset_positions(lists, take, digits, k)
                 units = frame.cluster_units[offsets[None, :, None] + pos]
                 yield self.block(frame, np.broadcast_to(chosen, (R, m)), units, valid), np.full(R, p)
 

@@ -58,6 +58,23 @@ def product_chunks(sizes, chunk: int = 20_000):
         yield digits
 
 
+def subset_positions(subsets, takes, digits: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """Positions within m clusters of one second-stage subset each, padded to ``k``.
+
+    ``subsets[j]`` holds every ``takes[j]``-subset of cluster j (from :func:`all_combinations`) and
+    ``digits`` (R, m) picks one per cluster (from :func:`product_chunks`); returns the positions
+    (R, m, k) and the mask of the real ones.
+    """
+    R, m = len(digits), len(subsets)
+    pos = np.zeros((R, m, k), dtype=np.int64)
+    valid = np.zeros((R, m, k), dtype=bool)
+    for j in range(m):
+        t = int(takes[j])
+        pos[:, j, :t] = subsets[j][digits[:, j]]
+        valid[:, j, :t] = True
+    return pos, valid
+
+
 def elementary_symmetric(a, m: int) -> int:
     """Elementary symmetric polynomial e_m(a) of whole numbers, exactly (Python integers).
 

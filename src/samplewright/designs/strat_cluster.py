@@ -40,7 +40,12 @@ from samplewright.designs.base import Design
 from samplewright.designs.block import SampleBlock
 from samplewright.designs.cluster import Cluster, one_unit_note, second_stage_block
 from samplewright.designs.draws import distinct_positions
-from samplewright.designs.enumeration import all_combinations, elementary_symmetric, product_chunks
+from samplewright.designs.enumeration import (
+    all_combinations,
+    elementary_symmetric,
+    product_chunks,
+    subset_positions,
+)
 from samplewright.designs.pips import SampfordSampler, pips, size_measure
 from samplewright.errors import InputError
 
@@ -299,11 +304,7 @@ class StratifiedCluster(Design):
             m = len(row)
             for d2 in product_chunks([len(x) for x in second], chunk):
                 R = len(d2)
-                pos = np.zeros((R, m, k), dtype=np.int64)
-                valid = np.zeros((R, m, k), dtype=bool)
-                for j in range(m):
-                    pos[:, j, :takes[j]] = second[j][d2[:, j]]
-                    valid[:, j, :takes[j]] = True
+                pos, valid = subset_positions(second[:m], takes, d2, k)
                 ch = np.broadcast_to(row, (R, m))
                 units = frame.cluster_units[frame.cluster_offsets[ch][..., None] + pos]
                 cert = [frame.cluster_units[frame.cluster_offsets[c] + second[m + j][d2[:, m + j]]]

@@ -1,8 +1,8 @@
 """Warnings that are not errors: conditions a planner should know about before trusting a run.
 
-Each check returns plain sentences; the runner prints them once and records them in run.json:
-warnings (``warning:`` lines, run.json ``warnings``) where a result may mislead, and notes
-(``note:`` lines, run.json ``notes``) for facts of the set-up, such as how an allocation was
+Each check returns plain sentences; :func:`samplewright.api.run` hands them on once (the command
+line prints them) and records them in run.json: warnings (``warning:`` lines, run.json
+``warnings``) where a result may mislead, and notes (``note:`` lines, run.json ``notes``) for facts of the set-up, such as how an allocation was
 rounded or that costs are not modelled.
 """
 

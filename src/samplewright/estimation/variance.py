@@ -17,12 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from samplewright.designs.block import SampleBlock
-
-
-def _onehot(codes: np.ndarray, H: int) -> np.ndarray:
-    oh = np.zeros((codes.shape[0], H))
-    oh[np.arange(codes.shape[0]), codes] = 1.0
-    return oh
+from samplewright.population.layout import indicators
 
 
 def psu_counts(block: SampleBlock) -> np.ndarray:
@@ -30,7 +25,7 @@ def psu_counts(block: SampleBlock) -> np.ndarray:
     if block.mask is None:
         counts = np.bincount(block.psu_stratum, minlength=block.H).astype(float)
         return np.broadcast_to(counts, (block.B, block.H))
-    return block.mask.astype(float) @ _onehot(block.psu_stratum, block.H)
+    return block.mask.astype(float) @ indicators(block.psu_stratum, block.H)
 
 
 def _by_stratum(x: np.ndarray, psu_stratum: np.ndarray, H: int) -> np.ndarray:
@@ -47,7 +42,7 @@ def _by_stratum(x: np.ndarray, psu_stratum: np.ndarray, H: int) -> np.ndarray:
         out = np.zeros((x.shape[0], H, x.shape[2]))
         out[:, present, :] = np.add.reduceat(x, starts, axis=1)
         return out
-    return np.einsum("bmv,mh->bhv", x, _onehot(psu_stratum, H))
+    return np.einsum("bmv,mh->bhv", x, indicators(psu_stratum, H))
 
 
 def stratified_psu_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:

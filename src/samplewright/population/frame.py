@@ -168,17 +168,7 @@ class Frame:
         Otherwise the rows are copied from a table padded to 16, 32 or 64 bytes, a width
         numpy copies without a per-row memmove (the result may be a strided view of it).
         """
-        k = self.values.shape[1]
-        if self.column is not None:
-            out = np.empty((k,) + np.shape(units))
-            for j in range(k):
-                if j in self.constants:
-                    out[j].fill(self.constants[j])
-                else:
-                    out[j] = np.take(self.column, units)
-            return np.moveaxis(out, 0, -1)
-        out = np.take(self.rows, units, axis=0)
-        return out if out.shape[-1] == k else out[..., :k]
+        return self._take(self.column if self.column is not None else self.rows, units)
 
     def gather_in_strata(self, pos: np.ndarray) -> np.ndarray:
         """``gather(strata_units[pos])`` for positions in the stratum-grouped unit order."""
@@ -199,16 +189,21 @@ class Frame:
         if table is None:
             source = self.column if self.column is not None else self.rows
             table = cache[id(index)] = np.take(source, index, axis=0)
+        return self._take(table, pos)
+
+    def _take(self, source: np.ndarray, positions: np.ndarray) -> np.ndarray:
+        """Rows ``positions`` of ``source`` (the one varying column, or the padded rows, in some
+        unit order) as rows of ``values``: the constant columns filled in, the padding cut off."""
         k = self.values.shape[1]
         if self.column is not None:
-            out = np.empty((k,) + np.shape(pos))
+            out = np.empty((k,) + np.shape(positions))
             for j in range(k):
                 if j in self.constants:
                     out[j].fill(self.constants[j])
                 else:
-                    out[j] = np.take(table, pos)
+                    out[j] = np.take(source, positions)
             return np.moveaxis(out, 0, -1)
-        out = np.take(table, pos, axis=0)
+        out = np.take(source, positions, axis=0)
         return out if out.shape[-1] == k else out[..., :k]
 
     @cached_property

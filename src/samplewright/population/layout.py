@@ -102,7 +102,8 @@ class Layout:
         return c, slice(c + 1, c + 1 + self.V)
 
 
-def _indicators(codes: np.ndarray, k: int) -> np.ndarray:
+def indicators(codes: np.ndarray, k: int) -> np.ndarray:
+    """The (n, k) 0/1 matrix with a 1 at column ``codes[i]`` of row i (codes 0..k-1)."""
     out = np.zeros((codes.shape[0], k))
     out[np.arange(codes.shape[0]), codes] = 1.0
     return out
@@ -135,7 +136,7 @@ def _extended_targets(y, columns: _Columns, domain, domain_labels, domain_keep):
     keep = []
     if domain is not None:
         keep = list(range(len(domain_labels))) if domain_keep is None else list(domain_keep)
-        d_all = _indicators(domain, len(domain_labels))
+        d_all = indicators(domain, len(domain_labels))
         for j in keep:
             d = d_all[:, j:j + 1]
             block = np.column_stack([d, y * d])
@@ -165,7 +166,7 @@ def _poststratum_columns(poststratum, post_labels, columns: _Columns, e_vals):
     """The post-stratum indicators (N, P), their positions and those of their products with the
     extended targets (P, E)."""
     N, E = e_vals.shape
-    p = _indicators(poststratum, len(post_labels)) if poststratum is not None else np.zeros((N, 0))
+    p = indicators(poststratum, len(post_labels)) if poststratum is not None else np.zeros((N, 0))
     P = p.shape[1]
     post_idx = columns.add(p) if P else np.zeros(0, dtype=np.int64)
     post_target_products = np.zeros((P, E), dtype=np.int64)

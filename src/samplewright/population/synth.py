@@ -14,7 +14,6 @@ All keys are optional except ``units``; see :data:`KEYS`.
 
 from __future__ import annotations
 
-
 import numpy as np
 import pandas as pd
 

@@ -52,8 +52,13 @@ class Cell:
 
 def stream_key(label: str) -> tuple[int, ...]:
     """The random-stream key of a design: the SHA-256 of its label as eight 32-bit words."""
-    digest = hashlib.sha256(label.encode("utf-8")).digest()
-    return tuple(int.from_bytes(digest[i:i + 4], "big") for i in range(0, 32, 4))
+    return sha256_words(label.encode("utf-8"), "big")
+
+
+def sha256_words(data: bytes, byteorder: str) -> tuple[int, ...]:
+    """The SHA-256 of ``data`` as eight 32-bit words in ``byteorder``, a spawn key for a SeedSequence."""
+    digest = hashlib.sha256(data).digest()
+    return tuple(int.from_bytes(digest[i:i + 4], byteorder) for i in range(0, 32, 4))
 
 
 def block_seed(seed: int, cell: Cell, block: int) -> np.random.SeedSequence:

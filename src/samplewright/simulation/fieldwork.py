@@ -33,6 +33,7 @@ from samplewright.population.frame import Frame
 from samplewright.simulation import response as _response
 from samplewright.simulation.blocks import BlockResult, BlockTask
 
+
 @dataclass(frozen=True, eq=False)
 class Fieldwork:
     """What one design's blocks need at fieldwork: who is eligible, who responds, how to reweight."""

@@ -3,7 +3,8 @@
 :func:`build_plan` binds the frame (the true population and, under ``[frame_error]``, the listed
 frame the designs draw from), sets up fieldwork, expands the designs into cells and checks
 each design against the frame.  The engine (:func:`~samplewright.simulation.engine.simulate`,
-:func:`~samplewright.simulation.engine.simulate_until`) and exact mode read only the plan;
+:func:`~samplewright.simulation.engine.simulate_until`) reads only the plan, and exact mode
+(:func:`~samplewright.evaluation.exact.evaluate_exact`) only its frame, cells, confidence and cost;
 nothing in it is changed once built.
 """
 
@@ -97,18 +98,26 @@ def build_plan(scenario: Scenario, options: RunOptions, frame: Frame | None = No
     replicates, seed, block_size = run_settings(scenario, options)
     if frame is None:
         frame = scenario.load_frame()
-    designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)  # cost-optimal c_h (cost.py)
+    # an optimal allocation by cost takes its c_h from the true population's stratum costs
+    designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)
     cells = make_cells(designs, scenario.estimators)
-    field = prepare(scenario, frame, seed, scenario.confidence)  # fieldwork.py
+    field = prepare(scenario, frame, seed, scenario.confidence)
     listed = frame if field is None else field.frame  # designs draw from the listed frame (frame errors)
     if field is not None:  # the fieldwork block runner for every cell
         cells = [dataclasses.replace(c, fieldwork=field.per_design[c.design.label]) for c in cells]
-    listed = scenario.cost.bind(listed)  # per-stratum unit rates into the cost column (cost.py)
-    for cell in cells:
-        cell.design.check(listed)
+    listed = bind_and_check(scenario.cost, listed, [c.design for c in cells])
     return RunPlan(frame=listed, cells=tuple(cells), replicates=replicates, seed=seed, block_size=block_size,
                    confidence=scenario.confidence, cost=scenario.cost, truth_frame=frame, jobs=options.jobs,
                    backend=options.backend, scheduler=options.scheduler, stopping=stopping, fieldwork=field)
+
+
+def bind_and_check(cost: CostModel, listed: Frame, designs) -> Frame:
+    """The frame the designs draw from with the cost model's per-stratum unit rates bound into its
+    cost column, each design (at one size) checked against it; refused designs raise InputError."""
+    listed = cost.bind(listed)
+    for design in designs:
+        design.check(listed)
+    return listed
 
 
 def with_store(plan: RunPlan, store) -> RunPlan:

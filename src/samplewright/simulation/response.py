@@ -117,11 +117,8 @@ def response_from_dict(table: dict, ctx: str = "[response]") -> ResponseModel:
         conc = as_float(table["cluster_concentration"], "cluster_concentration", ctx, minimum=1e-9)
         means = {str(k): as_float(v, f"cluster_means.{k}", ctx, 0.0, 1.0, open_interval=True)
                  for k, v in means.items()}
-        draw = as_str(table.get("cluster_draw", "frame"), "cluster_draw", ctx)
-        if draw not in ("frame", "replicate"):
-            raise InputError(f"{ctx}: cluster_draw = {draw!r} is not accepted"
-                             f"{closest(draw, ('frame', 'replicate'))}")
-        return ResponseModel(model, cluster_means=means, concentration=conc, cluster_draw=draw)
+        return ResponseModel(model, cluster_means=means, concentration=conc,
+                             cluster_draw=_cluster_draw(table, ctx))
     if model == "cluster":
         by_mean = "cluster_mean" in table or "cluster_concentration" in table
         by_ab = "a" in table or "b" in table
@@ -142,16 +139,21 @@ def response_from_dict(table: dict, ctx: str = "[response]") -> ResponseModel:
                 if k not in table:
                     raise InputError(f"{ctx}: missing {k!r} (give both a and b of the Beta distribution)")
             a, b = (as_float(table[k], k, ctx, minimum=1e-9) for k in ("a", "b"))
-        draw = as_str(table.get("cluster_draw", "frame"), "cluster_draw", ctx)
-        if draw not in ("frame", "replicate"):
-            raise InputError(f"{ctx}: cluster_draw = {draw!r} is not accepted"
-                             f"{closest(draw, ('frame', 'replicate'))}")
-        return ResponseModel(model, a=a, b=b, cluster_draw=draw)
+        return ResponseModel(model, a=a, b=b, cluster_draw=_cluster_draw(table, ctx))
     coefs = table.get("coefficients", {})
     if not isinstance(coefs, dict):
         raise InputError(f"{ctx}: coefficients must be a table of column = coefficient")
     return ResponseModel(model, intercept=as_float(table.get("intercept", 0.0), "intercept", ctx),
                          coefficients={str(k): as_float(v, f"coefficients.{k}", ctx) for k, v in coefs.items()})
+
+
+def _cluster_draw(table: dict, ctx: str) -> str:
+    """``cluster_draw``: the cluster rates drawn once for the population or anew in each replicate."""
+    draw = as_str(table.get("cluster_draw", "frame"), "cluster_draw", ctx)
+    if draw not in ("frame", "replicate"):
+        raise InputError(f"{ctx}: cluster_draw = {draw!r} is not accepted"
+                         f"{closest(draw, ('frame', 'replicate'))}")
+    return draw
 
 
 def _rate(value, key, ctx) -> float:

@@ -33,8 +33,8 @@ from samplewright.estimation.cost import CostModel
 from samplewright.estimation.registry import ESTIMATORS
 from samplewright.estimation.weighting import AdjustmentSpec, adjustment_from_table
 from samplewright.population.frame import Frame
-from samplewright.population.reading import input_file, read_table, role_columns
 from samplewright.population.frame_errors import FrameErrorSpec, frame_error_from_dict
+from samplewright.population.reading import input_file, read_table, role_columns
 from samplewright.population.synth import generate, stratum_units
 from samplewright.simulation.response import ResponseModel, response_from_dict
 
@@ -109,6 +109,9 @@ def _frame_source(spec: FrameSpec, designs) -> FrameSource:
 
 def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = None) -> Scenario:
     """Validate a scenario given as a dict (the parsed TOML) and build it.
+
+    ``base`` is the folder a relative frame path is read from; ``source`` the scenario file the
+    dict came from (named in error lines about unknown keys, recorded in run.json), or None.
 
     Examples
     --------

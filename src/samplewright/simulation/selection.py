@@ -46,13 +46,15 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from samplewright.simulation.scenario import Scenario, load_scenario
 from samplewright.config.validate import closest, frame_columns
 from samplewright.designs import Design
 from samplewright.designs.pips import size_measure
 from samplewright.errors import InputError, show
 from samplewright.files import csv_writer, json_writer, parquet_writer, write_together
 from samplewright.population.frame import Frame
+from samplewright.simulation.engine import sha256_words
+from samplewright.simulation.plan import bind_and_check
+from samplewright.simulation.scenario import Scenario, load_scenario
 
 #: prefix of the hashed label in a draw's spawn key (keeps it apart from the rehearsal's block streams)
 DRAW_DOMAIN = b"samplewright draw\0"
@@ -67,8 +69,7 @@ REPLAYED_FIELDS = ("design", "rows", "strata", "sum_of_weights", "variance_estim
 
 def draw_key(label: str) -> tuple[int, ...]:
     """The spawn key of a design's draw: the SHA-256 of a draw prefix and its label, as eight 32-bit words."""
-    digest = hashlib.sha256(DRAW_DOMAIN + label.encode("utf-8")).digest()
-    return tuple(int.from_bytes(digest[i:i + 4], "little") for i in range(0, 32, 4))
+    return sha256_words(DRAW_DOMAIN + label.encode("utf-8"), "little")
 
 
 def draw_seed(seed: int, label: str, size: int) -> np.random.SeedSequence:
@@ -84,9 +85,8 @@ def new_seed() -> int:
 def _bound_design(scenario: Scenario, label: str, size: int | None) -> tuple[Frame, Design]:
     """The bound frame and the design ``label`` at one size, checked: what a run does before simulating.
 
-    This is the one place the draw binds a scenario (load the frame, give the design the cost
-    model's stratum costs, bind the per-stratum costs into the frame, ``design.check``); point it
-    at the run plan's binding when that exists.  The frame errors and response model of a
+    The draw binds a scenario as a run plan does (load the frame, give the design the cost model's
+    stratum costs, then :func:`~samplewright.simulation.plan.bind_and_check`).  The frame errors and response model of a
     scenario are rehearsal settings and are not applied: the real sample is drawn from the frame.
     """
     labels = [d.label for d in scenario.designs]
@@ -103,9 +103,7 @@ def _bound_design(scenario: Scenario, label: str, size: int | None) -> tuple[Fra
         raise InputError(f"design {label!r}: size {size} is not one of its sizes {sizes}")
     frame = scenario.load_frame()
     design = scenario.cost.for_design(design.at(int(size)), frame)
-    frame = scenario.cost.bind(frame)
-    design.check(frame)
-    return frame, design
+    return bind_and_check(scenario.cost, frame, [design]), design
 
 
 def frame_table(scenario: Scenario, frame: Frame) -> pd.DataFrame:
