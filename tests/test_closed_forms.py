@@ -21,21 +21,22 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 
 from samplewright import Frame
-from samplewright.designs.allocation import allocate
 from samplewright.designs import SRS, Cluster, Stratified
+from samplewright.designs.allocation import allocate
+from samplewright.population.synth import SyntheticSpec, generate
 from samplewright.simulation.engine import Cell, replicate_table, simulate
 from samplewright.simulation.plan import RunPlan
-from samplewright.population.synth import SyntheticSpec, generate
-from conftest import Z
 
 R = 8000
 
 
 def run_design(frame, design, estimator="ht", seed=3):
     cells = [Cell(design=design, design_index=0, size_index=0, estimators=(estimator,))]
-    return replicate_table(simulate(RunPlan(frame=frame, cells=tuple(cells), replicates=R, seed=seed, block_size=1000)), cells, frame.variables)
+    plan = RunPlan(frame=frame, cells=tuple(cells), replicates=R, seed=seed, block_size=1000)
+    return replicate_table(simulate(plan), cells, frame.variables)
 
 
 def variance_tolerance(x):

@@ -17,8 +17,8 @@ import pytest
 from conftest import Z
 
 from samplewright import Frame
-from samplewright.designs.allocation import RULES
 from samplewright.designs import DESIGN_CLASSES
+from samplewright.designs.allocation import RULES
 
 R = 6000
 

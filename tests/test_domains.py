@@ -150,7 +150,8 @@ def test_domain_proportion_coverage_is_nested_hypergeometric():
 
     cells = [Cell(design=SRS("s", n=n), design_index=0, size_index=0, estimators=("ht", "hajek"))]
     R = 20_000
-    reps = replicate_table(simulate(RunPlan(frame=f, cells=tuple(cells), replicates=R, seed=23, block_size=1000)), cells, f.layout.names)
+    plan = RunPlan(frame=f, cells=tuple(cells), replicates=R, seed=23, block_size=1000)
+    reps = replicate_table(simulate(plan), cells, f.layout.names)
     for name, exact in (("hajek", exact_hajek), ("ht", exact_ht)):
         g = reps[(reps["estimator"] == name) & (reps["variable"] == "flag[zone=in]")]
         assert len(g) == R

@@ -16,9 +16,9 @@ import math
 
 import numpy as np
 import pytest
+from conftest import Z, assert_matches_exact, simulate_design
 
 from samplewright.designs import SRS, Cluster, Systematic
-from conftest import Z, assert_matches_exact, simulate_design
 
 CONF = 0.95
 R = 20_000

@@ -33,7 +33,7 @@ def claims_frame() -> pd.DataFrame:
     rng = np.random.default_rng(7)
     rows = []
     k = 0
-    for o, office in enumerate(["north", "south", "west"]):
+    for office in ["north", "south", "west"]:
         for b in range(2):
             for _ in range(4):
                 k += 1

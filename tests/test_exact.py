@@ -19,12 +19,12 @@ from conftest import Z
 
 from samplewright import Frame
 from samplewright.cli.main import main
-from samplewright.estimation.cost import CostModel
 from samplewright.designs import DESIGN_CLASSES
+from samplewright.estimation.cost import CostModel
+from samplewright.evaluation.exact import count_samples, enumerate_design, evaluate_exact
+from samplewright.evaluation.measures import summarise
 from samplewright.simulation.engine import make_cells, replicate_table, simulate
 from samplewright.simulation.plan import RunPlan
-from samplewright.evaluation.measures import summarise
-from samplewright.evaluation.exact import count_samples, enumerate_design, evaluate_exact
 
 
 @pytest.fixture

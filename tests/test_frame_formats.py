@@ -213,7 +213,8 @@ def test_parquet_reads_only_the_role_columns(tmp_path, monkeypatch):
     df.to_parquet(tmp_path / "f.parquet", index=False)
     asked = []
     real = pq.read_table
-    monkeypatch.setattr(pq, "read_table", lambda p, columns=None, **k: asked.append(columns) or real(p, columns=columns))
+    monkeypatch.setattr(pq, "read_table",
+                        lambda p, columns=None, **k: asked.append(columns) or real(p, columns=columns))
     from samplewright.simulation.scenario import scenario_from_dict
 
     doc = {"frame": {"path": "f.parquet", "target": "amount", "stratum": "region"},

@@ -27,8 +27,8 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from samplewright.cli.main import main
-from samplewright.designs import DESIGN_CLASSES
 from samplewright.config.scenario import COST_KEYS, DESIGN_COMMON, FRAME_KEYS, TOP_KEYS
+from samplewright.designs import DESIGN_CLASSES
 from samplewright.population.synth import CLUSTER_KEYS, STRATUM_KEYS
 from samplewright.population.synth import KEYS as SYNTH_KEYS
 
@@ -37,8 +37,8 @@ FUZZ = settings(max_examples=60, deadline=None, derandomize=True, database=None,
 
 KEYS = sorted(set(TOP_KEYS) | set(FRAME_KEYS) | set(COST_KEYS) | set(DESIGN_COMMON) | set(SYNTH_KEYS)
               | set(STRATUM_KEYS) | set(CLUSTER_KEYS) | {k for c in DESIGN_CLASSES.values() for k in c.keys})
-WORDS = sorted(set(DESIGN_CLASSES) | {"y", "amount", "office", "batch", "pages", "handling", "stratum", "cluster", "size",
-                                "unit", "ht", "hajek", "neyman", "proportional", "optimal", "equal", "refuse",
+WORDS = sorted(set(DESIGN_CLASSES) | {"y", "amount", "office", "batch", "pages", "handling", "stratum", "cluster",
+                                "size", "unit", "ht", "hajek", "neyman", "proportional", "optimal", "equal", "refuse",
                                 "drop", "gamma", "lognormal", "grouped", "random", "frame.csv", "linear"})
 
 
@@ -173,7 +173,8 @@ def broken_texts(draw):
         if kind == "cut":
             text = text[:i] + text[i + draw(st.integers(1, 8)):]
         elif kind == "insert":
-            text = text[:i] + draw(st.text(alphabet="[]{}=\",.#'\n 0123456789abcxyz", min_size=1, max_size=5)) + text[i:]
+            piece = draw(st.text(alphabet="[]{}=\",.#'\n 0123456789abcxyz", min_size=1, max_size=5))
+            text = text[:i] + piece + text[i:]
         else:
             ls = text.splitlines(keepends=True)
             j = draw(st.integers(0, len(ls) - 1))

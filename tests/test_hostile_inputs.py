@@ -172,8 +172,8 @@ def test_memory_bound_is_the_documented_formula():
     # the table needs 160 bytes a row and 2048 a block
     from samplewright import Frame
     from samplewright.designs import DESIGN_CLASSES
-    from samplewright.simulation.engine import make_cells
     from samplewright.errors import InputError
+    from samplewright.simulation.engine import make_cells
     from samplewright.simulation.limits import check_run_memory
 
     frame = Frame.from_dataframe(pd.DataFrame({"y": np.arange(1.0, 101.0), "x": np.arange(1.0, 101.0)}),

@@ -19,7 +19,15 @@ from scipy.stats import binomtest
 from samplewright import Frame
 from samplewright.cli.main import main
 from samplewright.diagnostics.inspection import anova_icc
-from samplewright.diagnostics.periodicity import FALSE_ALARM, MATERIAL, detect_periods, frame_order_report, periodogram, unsafe_intervals, variance_ratio
+from samplewright.diagnostics.periodicity import (
+    FALSE_ALARM,
+    MATERIAL,
+    detect_periods,
+    frame_order_report,
+    periodogram,
+    unsafe_intervals,
+    variance_ratio,
+)
 
 #: the rule predicts a ratio; where the exact ratio lies in this band it may go either way
 BAND = (1.2, 1.9)
@@ -95,12 +103,12 @@ def test_harmonic_makes_a_fraction_of_the_period_unsafe_by_its_own_strength():
 def test_periodogram_gives_the_exact_variance_over_starts_when_k_divides_n():
     """Parseval: the variance of the systematic mean over the k starts is (1 / N) sum_{m=1}^{k-1} I_{mN/k}."""
     y = FRAMES["peak every 50"][0] + np.random.default_rng(4).normal(0, 1, N)
-    I = np.abs(np.fft.fft(y)) ** 2 / N
-    assert np.allclose(periodogram(y), I[: N // 2 + 1])
+    ordinate = np.abs(np.fft.fft(y)) ** 2 / N  # the periodogram I_j
+    assert np.allclose(periodogram(y), ordinate[: N // 2 + 1])
     for k in (2, 3, 5, 10, 25, 50, 60):
         n = N // k
         means = y.reshape(n, k).mean(axis=0)
-        assert np.mean((means - y.mean()) ** 2) == pytest.approx(I[n * np.arange(1, k)].sum() / N, rel=1e-9)
+        assert np.mean((means - y.mean()) ** 2) == pytest.approx(ordinate[n * np.arange(1, k)].sum() / N, rel=1e-9)
 
 
 @pytest.mark.parametrize("name", ["sinusoid 24", "sawtooth 30"])
@@ -118,7 +126,8 @@ def test_decision_is_stable_at_two_sizes_of_evidence(name):
         verdicts.append((set(unsafe_intervals(detect_periods(y), k_max=100)),
                          {k: exact_ratio(sig, sd, k) for k in range(2, 101)}))
     (small, ex_small), (large, ex_large) = verdicts
-    same = [k for k in range(2, 101) if min(ex_small[k], ex_large[k]) >= BAND[1] or max(ex_small[k], ex_large[k]) <= BAND[0]]
+    same = [k for k in range(2, 101)
+            if min(ex_small[k], ex_large[k]) >= BAND[1] or max(ex_small[k], ex_large[k]) <= BAND[0]]
     assert len(same) >= 50
     assert [k for k in same if (k in small) != (k in large)] == []
     assert {P, 2 * P} <= small & large
@@ -240,8 +249,8 @@ def test_rule_agrees_with_exact_enumeration_on_the_bundled_hourly_series():
 
 # ------------------------------------------------------------------ the run's warning
 def _warnings_for(y, n):
-    from samplewright.diagnostics.checks import interval_warnings
     from samplewright.designs.systematic import Systematic
+    from samplewright.diagnostics.checks import interval_warnings
 
     frame = Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")
     return interval_warnings(frame, Systematic(f"n {n}", n=n).at(n))

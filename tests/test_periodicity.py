@@ -16,8 +16,20 @@ from conftest import Z
 from scipy.stats import binomtest
 
 from samplewright import scenario_from_dict
-from samplewright.diagnostics.periodicity import FALSE_ALARM, Component, OrderReport, _fast_length, autocorrelation, detect_periods, fisher_g_pvalue, frame_order_report, interval_risks, unsafe_intervals, variance_ratio
 from samplewright.api import run
+from samplewright.diagnostics.periodicity import (
+    FALSE_ALARM,
+    Component,
+    OrderReport,
+    _fast_length,
+    autocorrelation,
+    detect_periods,
+    fisher_g_pvalue,
+    frame_order_report,
+    interval_risks,
+    unsafe_intervals,
+    variance_ratio,
+)
 
 
 # ------------------------------------------------------------------ Fisher's g

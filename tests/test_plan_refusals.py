@@ -16,8 +16,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from samplewright.decision import planning
 from samplewright.cli.main import main
+from samplewright.decision import planning
 from samplewright.errors import InputError
 
 Z95 = float(stats.norm.ppf(0.975))

@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from samplewright.decision import planning
 from samplewright.cli.main import main
+from samplewright.decision import planning
 from samplewright.errors import InputError
 
 Z95 = float(stats.norm.ppf(0.975))

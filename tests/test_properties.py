@@ -34,8 +34,8 @@ from hypothesis import strategies as st
 from test_fuzz_scenario import to_toml
 
 from samplewright import Frame
-from samplewright.designs.allocation import RULES
 from samplewright.designs import DESIGN_CLASSES
+from samplewright.designs.allocation import RULES
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
 

@@ -14,13 +14,13 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import Z
 from scipy import stats
 
 from samplewright import Frame
 from samplewright.designs import SRS
 from samplewright.simulation.engine import Cell, replicate_table, simulate
 from samplewright.simulation.plan import RunPlan
-from conftest import Z
 
 
 @pytest.mark.parametrize("N,K,n", [(200, 60, 30), (500, 25, 80)])
@@ -38,7 +38,8 @@ def test_binary_target_coverage_is_hypergeometric(N, K, n):
     exact = float(np.sum(stats.hypergeom.pmf(x, N, K, n)[covers]))
     cells = [Cell(design=SRS("s", n=n), design_index=0, size_index=0, estimators=("ht",))]
     R = 20_000
-    reps = replicate_table(simulate(RunPlan(frame=frame, cells=tuple(cells), replicates=R, seed=11, block_size=1000)), cells, frame.variables)
+    plan = RunPlan(frame=frame, cells=tuple(cells), replicates=R, seed=11, block_size=1000)
+    reps = replicate_table(simulate(plan), cells, frame.variables)
     sim = float(((reps["lower"] <= P) & (P <= reps["upper"])).mean())
     assert abs(sim - exact) < Z * math.sqrt(exact * (1 - exact) / R)
     # the count itself: simulated mean and variance of n * phat against the hypergeometric law

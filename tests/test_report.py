@@ -226,8 +226,8 @@ def test_report_command_rebuilds_without_simulating(run_dir, tmp_path, monkeypat
     def no_simulation(*_a, **_k):
         raise AssertionError("report must not simulate")
 
-    import samplewright.simulation.engine
     import samplewright.api
+    import samplewright.simulation.engine
 
     monkeypatch.setattr(samplewright.api, "run", no_simulation)
     monkeypatch.setattr(samplewright.simulation.engine, "simulate", no_simulation)

@@ -14,9 +14,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from samplewright.cli.main import main
 from samplewright.simulation import engine
 from samplewright.simulation.checkpoint import checksum
-from samplewright.cli.main import main
 
 SCENARIO = """
 seed = 21

@@ -225,7 +225,7 @@ def test_until_coverage_stops_at_the_first_block_meeting_the_target(scenario_fil
         def cov(h):  # (covered + 1) / (R + 2): the stopping rule's guard against c = 0 or 1
             return (h.sum() + 1) / (len(h) + 2)
 
-        def mcse(k):  # the worst estimator's sqrt(c (1 - c) / k) on the first k replicates (MWC 2019)
+        def mcse(k, hits=hits):  # the worst estimator's sqrt(c (1 - c) / k) on the first k replicates (MWC 2019)
             return max(math.sqrt(cov(h[:k]) * (1 - cov(h[:k])) / k) for h in hits)
 
         assert row["met"] and mcse(R) <= t

@@ -18,10 +18,10 @@ import pandas as pd
 
 from samplewright import Frame
 from samplewright.api import run
-from samplewright.estimation.registry import block_variance
 from samplewright.designs import SRS, Stratified
 from samplewright.estimation.auxiliary import estimate
 from samplewright.estimation.gram import gram_pinv, independent_columns
+from samplewright.estimation.registry import block_variance
 from samplewright.estimation.weighting import ResolvedAdjustment, group_sums
 from samplewright.simulation.scenario import scenario_from_dict
 

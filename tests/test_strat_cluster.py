@@ -127,8 +127,8 @@ def test_inclusion_frequencies_and_unbiasedness(kw, big):
 # ------------------------------------------------------------------ exact mode
 def exact_summary(frame, design, estimators=("ht",)):
     from samplewright.estimation.cost import CostModel
-    from samplewright.simulation.engine import make_cells
     from samplewright.evaluation.exact import evaluate_exact
+    from samplewright.simulation.engine import make_cells
 
     design.check(frame)
     cells = make_cells([design], [estimators])
@@ -159,16 +159,17 @@ def test_exact_mode_unbiased_and_counts(kw, big):
 
 
 def test_exact_mode_agrees_with_monte_carlo_two_stage_pps():
+    from samplewright.evaluation.measures import summarise
     from samplewright.simulation.engine import make_cells, replicate_table, simulate
     from samplewright.simulation.plan import RunPlan
-    from samplewright.evaluation.measures import summarise
 
     f = zone_frame()
     d = StratifiedCluster("zones", clusters=5, selection="pps", units_per_cluster=1)
     ex, _, _ = exact_summary(f, d, ("ht", "hajek"))
     cells = make_cells([d], [("ht", "hajek")])
     R = 20_000
-    reps = replicate_table(simulate(RunPlan(frame=f, cells=tuple(cells), replicates=R, seed=99, block_size=2_000)), cells, f.layout.names)
+    plan = RunPlan(frame=f, cells=tuple(cells), replicates=R, seed=99, block_size=2_000)
+    reps = replicate_table(simulate(plan), cells, f.layout.names)
     mc = summarise(reps, f, {"zones": d.method}, 0.95)
     both = ex.merge(mc, on=["design", "estimator", "variable"], suffixes=("_x", "_mc"))
     assert len(both) == 2

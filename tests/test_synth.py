@@ -15,11 +15,11 @@ import math
 
 import numpy as np
 import pytest
+from conftest import Z
 from scipy import stats
 
 from samplewright.diagnostics.inspection import anova_icc
 from samplewright.population.synth import SyntheticSpec, generate
-from conftest import Z
 
 
 @pytest.mark.parametrize("icc", [0.05, 0.2, 0.5])

@@ -154,8 +154,8 @@ def test_take_all_clusters_keep_their_second_stage_variance():
 def test_stratified_take_all_stratum_exact_mode():
     """Zone a fully taken (3 of 3 plots), zone b 2 of 3, 2 units per plot; summary from run --exact's engine."""
     from samplewright.estimation.cost import CostModel
-    from samplewright.simulation.engine import make_cells
     from samplewright.evaluation.exact import evaluate_exact
+    from samplewright.simulation.engine import make_cells
 
     frame, df = unequal_frame()
     d = StratifiedCluster("zones", clusters=5, cluster_allocation="equal", units_per_cluster=2)

@@ -22,6 +22,7 @@ from samplewright.diagnostics.checks import (
     frame_warnings,
     variance_warnings,
 )
+from samplewright.diagnostics.frame_order import order_evidence
 from samplewright.errors import InputError, SamplewrightWarning
 from samplewright.evaluation.exact import LIMIT as SAMPLE_LIMIT
 from samplewright.evaluation.exact import check_counts, evaluate_exact
@@ -29,7 +30,6 @@ from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.nonresponse import summary_columns
 from samplewright.evaluation.stopping import Rule, parse_until
 from samplewright.population.frame import Frame
-from samplewright.diagnostics.frame_order import order_evidence
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
 from samplewright.simulation.checkpoint import BlockStore
 from samplewright.simulation.engine import replicate_table, simulate, simulate_until
@@ -204,7 +204,8 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
     warned, notes = _checks(plan, options.exact)
     if options.exact:
         return _exact_result(plan, scenario, warned, notes, started)
-    logger.info(f"{len(plan.cells)} design x size cells, {plan.replicates} replicates each, blocks of {plan.block_size}")
+    logger.info(f"{len(plan.cells)} design x size cells, {plan.replicates} replicates each, "
+                f"blocks of {plan.block_size}")
     bar = Progress({label: 0 for label in plan.labels}, enabled=progress)
     for label in plan.labels:
         bar.totals[label] += plan.replicates

@@ -16,11 +16,13 @@ def add_run_options(p) -> None:
     p.add_argument("--replicates", type=whole_number(1),
                    help="replicates per design and size (default: the scenario's replicates)")
     p.add_argument("--seed", type=whole_number(0), help="root seed of the run (default: the scenario's seed)")
-    p.add_argument("--jobs", type=whole_number(1), default=1, help="parallel workers; results do not depend on it (default: 1)")
+    p.add_argument("--jobs", type=whole_number(1), default=1,
+                   help="parallel workers; results do not depend on it (default: 1)")
     p.add_argument("--force", action="store_true", help="overwrite results already in --out (default: off, refuse)")
     p.add_argument("--quiet", action="store_true", help="no progress bar and no summary on stdout (default: off)")
     p.add_argument("--verbose", action="store_true", help="log each step on stderr (default: off)")
-    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a "
+    p.add_argument("--debug", action="store_true",
+                   help="on an unexpected failure, show the full Python traceback instead of a "
                         "one-line message (default: off)")
     p.add_argument("--no-report", action="store_true",
                    help="write only the result tables, not figures/, report.html and brief.md "

@@ -36,12 +36,14 @@ def add_arguments(p) -> None:
     p.add_argument("--stratum", help="stratum column (default: none, one stratum)")
     p.add_argument("--cluster", help="cluster column (default: none, no clusters)")
     add_reading_arguments(p)
-    p.add_argument("--json", action="store_true", help="print one JSON object instead of the text report (default: off)")
+    p.add_argument("--json", action="store_true",
+                   help="print one JSON object instead of the text report (default: off)")
     p.add_argument("--false-alarm", type=_rate, default=None,
                    help="chance of reporting a period on a list with no cycle (default: 0.01)")
     p.add_argument("--max-interval", type=whole_number(2), default=None,
                    help="largest interval k checked for safety (default: N / 2, at most 5000)")
-    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a "
+    p.add_argument("--debug", action="store_true",
+                   help="on an unexpected failure, show the full Python traceback instead of a "
                         "one-line message (default: off)")
 
 
@@ -52,8 +54,10 @@ def add_reading_arguments(p) -> None:
     g = p.add_argument_group("reading the frame file (default: detected from the file)")
     g.add_argument("--separator", help="column separator: ',' ';' '|' or 'tab' (default: detected from the file)")
     g.add_argument("--decimal", help="decimal mark: '.' or ',' (default: detected from the file)")
-    g.add_argument("--thousands", help="thousands separator: ',' '.' ' ' \"'\" or '' for none (default: detected from the file)")
-    g.add_argument("--encoding", help="text encoding, e.g. utf-8, utf-16, cp1252 (default: detected: UTF-8, UTF-16 by BOM, else cp1252)")
+    g.add_argument("--thousands",
+                   help="thousands separator: ',' '.' ' ' \"'\" or '' for none (default: detected from the file)")
+    g.add_argument("--encoding", help="text encoding, e.g. utf-8, utf-16, cp1252 "
+                                      "(default: detected: UTF-8, UTF-16 by BOM, else cp1252)")
     g.add_argument("--percent", action="store_true", default=None, help="read '12%%' as 0.12 (default: off)")
     g.add_argument("--sheet", help="spreadsheet sheet: a name, or a 0-based index given as digits (default: the first)")
     g.add_argument("--header-row", type=whole_number(1), default=None,

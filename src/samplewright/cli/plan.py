@@ -28,7 +28,8 @@ STRATA_COLUMNS = ("stratum", "units", "sd", "cost")
 def add_arguments(p) -> None:
     g = p.add_argument_group("a mean or a proportion")
     g.add_argument("--sd", type=float, help="population standard deviation S of the variable (a mean; default: none)")
-    g.add_argument("--proportion", type=float, help="expected proportion P, in (0, 1) (0.5 is the safe guess; default: none)")
+    g.add_argument("--proportion", type=float,
+                   help="expected proportion P, in (0, 1) (0.5 is the safe guess; default: none)")
     g.add_argument("--moe", type=float, help="margin of error E (half-width of the interval); with strata, "
                                              "the target for the stratified mean (default: none)")
     g.add_argument("--population", type=int, help="population size N (applies the finite population correction; "
@@ -55,7 +56,8 @@ def add_arguments(p) -> None:
     c.add_argument("--cluster-cost", type=float, help="cost of taking one more cluster (c1) (default: none)")
     c.add_argument("--unit-cost", type=float, help="cost of one more unit inside a cluster (c2) (default: none)")
     p.add_argument("--json", action="store_true", help="print one JSON object with every intermediate (default: off)")
-    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a one-line "
+    p.add_argument("--debug", action="store_true",
+                   help="on an unexpected failure, show the full Python traceback instead of a one-line "
                         "message (default: off)")
 
 
@@ -70,8 +72,8 @@ def _floats(text: str, flag: str) -> list[float]:
 
 
 def _read_strata(path: str):
-    from samplewright.population.reading import read_table
     from samplewright.config.validate import closest
+    from samplewright.population.reading import read_table
 
     df = read_table(path)
     for col in df.columns:

@@ -8,7 +8,8 @@ HELP = "rebuild the figures, report.html and brief.md of a finished run folder, 
 
 def add_arguments(p) -> None:
     p.add_argument("folder", metavar="DIR", help="a finished run folder (holds run.json and summary.csv)")
-    p.add_argument("--svg", action="store_true", help="also write every figure as SVG in DIR/figures/ (default: off, PNG only)")
+    p.add_argument("--svg", action="store_true",
+                   help="also write every figure as SVG in DIR/figures/ (default: off, PNG only)")
     p.add_argument(
         "--force",
         action="store_true",
@@ -16,13 +17,14 @@ def add_arguments(p) -> None:
     )
     p.add_argument("--quiet", action="store_true", help="print nothing on success (default: off)")
     p.add_argument("--verbose", action="store_true", help="log each step on stderr (default: off)")
-    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback instead of a one-line "
-                             "message (default: off)")
+    p.add_argument("--debug", action="store_true",
+                   help="on an unexpected failure, show the full Python traceback instead of a one-line "
+                        "message (default: off)")
 
 
 def main(args) -> int:
-    from samplewright.results.load import report_folder
     from samplewright.cli.common import logger
+    from samplewright.results.load import report_folder
 
     page = report_folder(args.folder, svg=args.svg, force=args.force, log=logger(args))
     if not args.quiet:

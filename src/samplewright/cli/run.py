@@ -9,7 +9,8 @@ HELP = "rehearse the designs of a scenario file and write summary, replicates, a
 
 
 def add_arguments(p) -> None:
-    p.add_argument("scenario", nargs="?", help="scenario file (TOML); required unless --resume, which defaults to the saved one")
+    p.add_argument("scenario", nargs="?",
+                   help="scenario file (TOML); required unless --resume, which defaults to the saved one")
     p.add_argument("--out", help="results folder, required (refused if it holds files, unless --force; default with "
                         "--resume: its DIR)")
     add_run_options(p)

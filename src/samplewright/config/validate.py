@@ -257,7 +257,8 @@ def auxiliary_columns(df: pd.DataFrame, *, auxiliary=None, poststratum=None, dom
             continue
         _require_column(df, col, role, source)
         if df[col].isna().any():
-            raise InputError(f"{source}: {role} column {show(col)} is blank at row(s) {_rows(df[col].isna().to_numpy())}")
+            raise InputError(f"{source}: {role} column {show(col)} is blank at row(s) "
+                             f"{_rows(df[col].isna().to_numpy())}")
         roles[role] = col
     if domains is not None:
         if domain is None:
@@ -389,8 +390,8 @@ def as_str(value, key: str, ctx: str = "") -> str:
         raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
     bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
     if bad is not None:
-        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}{' (a NUL byte)' if bad == chr(0) else ''}; "
-                         f"give one line of printable text")
+        raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}"
+                         f"{' (a NUL byte)' if bad == chr(0) else ''}; give one line of printable text")
     return value
 
 

@@ -19,10 +19,10 @@ simulated range is labelled "interpolated", one outside it "extrapolated".
 A point whose MSE has no Monte Carlo error (a census, where every replicate takes the whole
 frame, or any size at which every replicate gives the same estimate) is known exactly, so it
 cannot take a weight 1 / 0.  Its MCSE is 0 or rounding error: a point counts as exact when its
-MCSE is at most :data:`EXACT_MCSE` times the sweep's largest MSE.  Such points are constraints: the curve passes through them and
-the other points are fitted by weighted least squares in the directions the constraints leave
-free.  With exact points at two or more sizes the curve is fixed by them alone (a least-squares
-solve among them).
+MCSE is at most :data:`EXACT_MCSE` times the sweep's largest MSE.  Such points are constraints:
+the curve passes through them and the other points are fitted by weighted least squares in the
+directions the constraints leave free.  With exact points at two or more sizes the curve is fixed
+by them alone (a least-squares solve among them).
 """
 
 from __future__ import annotations

@@ -193,5 +193,6 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
                          f"MSE = a/n + b, not simulated.")
     R = int(pts["replicates"].max()) if len(pts) else 0
     lines.append(f"Evidence: {R:,} rehearsed samples per design and size drawn from the frame; the margin is "
-                 f"{normal_quantile(conf):.2f} x the root mean square error of the estimates around the frame's true mean.")
+                 f"{normal_quantile(conf):.2f} x the root mean square error of the estimates around the "
+                 f"frame's true mean.")
     return " ".join(lines)

@@ -42,7 +42,8 @@ class Systematic(Design):
     variance : {"srs", "successive_differences", "between_starts"}
         ``srs`` (default): the SRS formula (1 - f) s^2 / n, the usual practice, biased when the
         list order has structure (Cochran 1977, ch. 8).  ``successive_differences``: Wolter's
-        v3 on the units in list order (see :func:`samplewright.estimation.systematic_variance.successive_difference_variance`).
+        v3 on the units in list order (see
+        :func:`samplewright.estimation.systematic_variance.successive_difference_variance`).
         ``between_starts``: the r start samples are the PSUs (needs starts >= 2).
 
     Notes
@@ -79,7 +80,8 @@ class Systematic(Design):
         if n > frame.N:
             raise InputError(f"design {self.label!r}: n = {n} is more than the {frame.N} units in the frame")
         if self.kind not in KINDS:
-            raise InputError(f"design {self.label!r}: kind = {self.kind!r} is not known{closest(str(self.kind), KINDS)}")
+            raise InputError(f"design {self.label!r}: kind = {self.kind!r} is not known"
+                             f"{closest(str(self.kind), KINDS)}")
         r = self._positive_int("starts", self.starts)
         if n % r:
             raise InputError(f"design {self.label!r}: n = {n} is not a multiple of starts = {r} "

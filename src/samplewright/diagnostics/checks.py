@@ -2,8 +2,8 @@
 
 Each check returns plain sentences; :func:`samplewright.api.run` hands them on once (the command
 line prints them) and records them in run.json: warnings (``warning:`` lines, run.json
-``warnings``) where a result may mislead, and notes (``note:`` lines, run.json ``notes``) for facts of the set-up, such as how an allocation was
-rounded or that costs are not modelled.
+``warnings``) where a result may mislead, and notes (``note:`` lines, run.json ``notes``) for
+facts of the set-up, such as how an allocation was rounded or that costs are not modelled.
 """
 
 from __future__ import annotations

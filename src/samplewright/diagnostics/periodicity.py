@@ -399,15 +399,15 @@ def _components(periods, X: np.ndarray, N: int, ss: float, ss_total: float, alph
     """The detected periods with their shares of the variance, and the significant harmonics of
     each fundamental measured from the DFT ``X`` of the detrended list (module notes, 6)."""
     var_total = ss_total / N
-    I = np.abs(X) ** 2 / N
+    ordinate = np.abs(X) ** 2 / N  # the periodogram I_j at each frequency j / N
     out = []
     for p in periods:
         h = 1 if p.harmonic_of is None else round(p.harmonic_of / p.period)
         out.append(Component(period=p.period, share=p.strength * (ss / N) / var_total,
                              fundamental=p.period if h == 1 else p.harmonic_of, harmonic=h))
-    nyq = I.shape[0] - 1  # the last bin: the Nyquist frequency 1/2 itself when N is even
-    floor = float(np.median(I[1:nyq])) / np.log(2.0) if nyq > 2 else 0.0
-    weight = np.full(I.shape[0], 2.0 / N)  # power of a sinusoid from its ordinates: 2 I / N,
+    nyq = ordinate.shape[0] - 1  # the last bin: the Nyquist frequency 1/2 itself when N is even
+    floor = float(np.median(ordinate[1:nyq])) / np.log(2.0) if nyq > 2 else 0.0
+    weight = np.full(ordinate.shape[0], 2.0 / N)  # power of a sinusoid from its ordinates: 2 I / N,
     if N % 2 == 0:
         weight[nyq] = 1.0 / N  # but I / N at the Nyquist frequency, where it is cos(pi t) alone
     taken = [N / p.period for p in periods]  # bins already weighed: a window never counts twice
@@ -416,7 +416,7 @@ def _components(periods, X: np.ndarray, N: int, ss: float, ss_total: float, alph
     if not wanted or floor <= 0:
         return tuple(out)
     q = alpha / (3.0 * len(wanted))  # per ordinate: P(any of the 3 near a harmonic passes) <= alpha / tests
-    cut = np.full(I.shape[0], floor * np.log(1.0 / q))  # noise ordinates are exponential with mean floor,
+    cut = np.full(ordinate.shape[0], floor * np.log(1.0 / q))  # noise ordinates are exponential with mean floor,
     if N % 2 == 0:
         cut[nyq] = floor * chdtri(1, q)  # but chi-square with 1 degree of freedom at the Nyquist frequency
     for P, h in wanted:
@@ -424,13 +424,13 @@ def _components(periods, X: np.ndarray, N: int, ss: float, ss_total: float, alph
         if min(abs(b - c) for b in taken) < 2 * HARMONIC_BINS + 1:
             continue  # detected as a period of its own, or measured as another fundamental's harmonic
         j = min(round(c), nyq)
-        if not np.any(I[j - 1: j + 2] >= cut[j - 1: j + 2]):
+        if not np.any(ordinate[j - 1: j + 2] >= cut[j - 1: j + 2]):
             continue
         lo, hi = max(1, j - HARMONIC_BINS), min(nyq, j + HARMONIC_BINS) + 1
-        power = max(0.0, float(np.sum(weight[lo:hi] * (I[lo:hi] - floor))))
+        power = max(0.0, float(np.sum(weight[lo:hi] * (ordinate[lo:hi] - floor))))
         taken.append(c)
         # the harmonic's own frequency, refined at its peak: h / P drifts by h times the error in 1 / P
-        peak = j - 1 + int(np.argmax(I[j - 1: j + 2])) if j + 1 <= nyq else j
+        peak = j - 1 + int(np.argmax(ordinate[j - 1: j + 2])) if j + 1 <= nyq else j
         own = _refine(X, peak, N) if abs(_refine(X, peak, N) - c) <= 1.0 else c
         out.append(Component(period=N / own, share=power / var_total, fundamental=P, harmonic=h))
     return tuple(out)

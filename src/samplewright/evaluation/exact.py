@@ -85,7 +85,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     z = normal_quantile(confidence)
     names, truth, S2 = frame.layout.names, frame.layout.truth, frame.layout.S2
     rows, tables, by_label = [], [], {}
-    for ci, cell in enumerate(cells):
+    for cell in cells:
         d = cell.design
         parts = {e: ([], [], [], []) for e in cell.estimators}
         probs, ns, costs = [], [], []

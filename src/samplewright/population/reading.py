@@ -181,7 +181,8 @@ def _separator(p: Path, text: str) -> str:
         return ","  # one column
     raise InputError(f"frame file {str(p)!r} does not look like a table: its rows do not all split into as many "
                      f"fields as its header on any separator (comma, semicolon, tab, pipe); give a CSV file with "
-                     f"one value per column on every row, or state separator = \"...\" in [frame] (inspect: --separator)")
+                     f"one value per column on every row, or state separator = \"...\" in [frame] "
+                     f"(inspect: --separator)")
 
 
 def _check_header(p: Path, rows: list[list[str]], sep: str) -> list[str]:

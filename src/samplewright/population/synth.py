@@ -92,7 +92,7 @@ def generate(spec: SyntheticSpec) -> pd.DataFrame:
         size_cv = float(spec.clusters.get("size_cv", 0.0))
         cluster = np.empty(spec.units, dtype=np.int64)
         next_id, start = 0, 0
-        for h, nh in enumerate(N_h):
+        for nh in N_h:
             sizes = _cluster_sizes(rng, int(nh), mean_size, size_cv)
             cluster[start:start + nh] = next_id + np.repeat(np.arange(len(sizes)), sizes)
             next_id += len(sizes)

@@ -425,7 +425,7 @@ def replicate_table(results: list[BlockResult], cells: list[Cell], variables, co
     for k in ("estimate", "se", "lower", "upper", "n", "cost"):
         num[k] = np.empty(total)
     extras = []
-    for ci, cell, E, R, first in plan:
+    for ci, _cell, E, R, first in plan:
         mine = by_cell.pop(ci)
         rows = slice(first, first + E * V * R)
         for k in ("estimate", "se", "lower", "upper"):  # rows ordered estimator, variable, replicate
