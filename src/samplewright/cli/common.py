@@ -21,9 +21,6 @@ def add_run_options(p) -> None:
     p.add_argument("--force", action="store_true", help="overwrite results already in --out (default: off, refuse)")
     p.add_argument("--quiet", action="store_true", help="no progress bar and no summary on stdout (default: off)")
     p.add_argument("--verbose", action="store_true", help="log each step on stderr (default: off)")
-    p.add_argument("--debug", action="store_true",
-                   help="on an unexpected failure, show the full Python traceback instead of a "
-                        "one-line message (default: off)")
     p.add_argument("--no-report", action="store_true",
                    help="write only the result tables, not figures/, report.html and brief.md "
                         "(build them later with `samplewright report DIR`; default: off, the report is written)")

@@ -32,8 +32,6 @@ def add_arguments(p) -> None:
     p.add_argument("--check", metavar="SAMPLE.json",
                    help="re-draw the sample a record describes and compare it with the sample file: exit 0 when "
                         "they match, 2 with the first difference (default: none, draw a sample)")
-    p.add_argument("--debug", action="store_true", help="on an unexpected failure, show the full Python traceback "
-                                                        "instead of a one-line message (default: off)")
 
 
 def _command(args, seed: int) -> str:

@@ -42,9 +42,6 @@ def add_arguments(p) -> None:
                    help="chance of reporting a period on a list with no cycle (default: 0.01)")
     p.add_argument("--max-interval", type=whole_number(2), default=None,
                    help="largest interval k checked for safety (default: N / 2, at most 5000)")
-    p.add_argument("--debug", action="store_true",
-                   help="on an unexpected failure, show the full Python traceback instead of a "
-                        "one-line message (default: off)")
 
 
 def add_reading_arguments(p) -> None:

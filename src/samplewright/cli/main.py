@@ -39,6 +39,9 @@ def build_parser() -> argparse.ArgumentParser:
     for mod in COMMANDS:
         p = sub.add_parser(mod.NAME, help=mod.HELP, description=mod.HELP)
         mod.add_arguments(p)
+        p.add_argument("--debug", action="store_true",
+                       help="on an unexpected failure, show the full Python traceback instead of a one-line "
+                            "message (default: off)")
         p.set_defaults(_main=mod.main)
     return parser
 

@@ -56,9 +56,6 @@ def add_arguments(p) -> None:
     c.add_argument("--cluster-cost", type=float, help="cost of taking one more cluster (c1) (default: none)")
     c.add_argument("--unit-cost", type=float, help="cost of one more unit inside a cluster (c2) (default: none)")
     p.add_argument("--json", action="store_true", help="print one JSON object with every intermediate (default: off)")
-    p.add_argument("--debug", action="store_true",
-                   help="on an unexpected failure, show the full Python traceback instead of a one-line "
-                        "message (default: off)")
 
 
 def _floats(text: str, flag: str) -> list[float]:

@@ -17,9 +17,6 @@ def add_arguments(p) -> None:
     )
     p.add_argument("--quiet", action="store_true", help="print nothing on success (default: off)")
     p.add_argument("--verbose", action="store_true", help="log each step on stderr (default: off)")
-    p.add_argument("--debug", action="store_true",
-                   help="on an unexpected failure, show the full Python traceback instead of a one-line "
-                        "message (default: off)")
 
 
 def main(args) -> int:

@@ -18,9 +18,6 @@ def add_arguments(p) -> None:
     p.add_argument("scenario", help="scenario file (TOML) with a [frame.synthetic] table or a frame path")
     p.add_argument("--out", required=True, help="frame file to write (.csv or .parquet); required")
     p.add_argument("--force", action="store_true", help="overwrite an existing file (default: off, refuse)")
-    p.add_argument("--debug", action="store_true",
-                   help="on an unexpected failure, show the full Python traceback instead of a one-line "
-                        "message (default: off)")
 
 
 def main(args) -> int:
