@@ -10,6 +10,10 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import subprocess
+import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -18,6 +22,7 @@ from scipy import optimize, stats
 from samplewright.cli.main import main
 from samplewright.decision import planning
 from samplewright.errors import InputError
+from samplewright.evaluation.normal import normal_quantile
 
 Z95 = float(stats.norm.ppf(0.975))
 
@@ -304,3 +309,24 @@ def test_plan_bad_strata_file(capsys, tmp_path):
     assert code == 2 and "sdev" in err and "did you mean 'sd'" in err
     code, _, err = _run(capsys, "--strata", str(tmp_path / "none.csv"), "--n", "4")
     assert code == 2 and "does not exist" in err
+
+
+@pytest.mark.parametrize("confidence", [0.5, 0.8, 0.9, 0.95, 0.975, 0.99, 0.999, 0.999999])
+def test_normal_quantile_matches_scipy(confidence):
+    # the standard library's inverse normal against scipy.stats.norm.ppf: equal to a few units in the last place
+    expected = stats.norm.ppf(0.5 + confidence / 2.0)
+    assert normal_quantile(confidence) == pytest.approx(expected, rel=8 * np.finfo(float).eps, abs=0.0)
+
+
+@pytest.mark.parametrize("command", [["plan", "--sd", "10", "--moe", "1"], ["--help"]])
+def test_plan_and_help_import_no_heavy_library(command):
+    # start-up cost: `plan` and `--help` must not import pandas, scipy or matplotlib (read from -X importtime)
+    src = str(Path(planning.__file__).resolve().parents[2])
+    env = {**os.environ, "PYTHONPATH": src + os.pathsep + os.environ.get("PYTHONPATH", "")}
+    done = subprocess.run([sys.executable, "-X", "importtime", "-m", "samplewright", *command],
+                          capture_output=True, text=True, env=env, timeout=60, check=False)
+    assert done.returncode == 0, done.stderr[-500:]
+    imported = {line.split("|")[-1].strip().split(".")[0] for line in done.stderr.splitlines()
+                if line.startswith("import time:")}
+    assert "samplewright" in imported
+    assert not imported & {"pandas", "scipy", "matplotlib"}

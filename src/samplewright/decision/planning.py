@@ -57,7 +57,7 @@ import numpy as np
 from samplewright.apportion import largest_remainder
 from samplewright.designs.allocation import RULES, real_allocation, shares
 from samplewright.errors import InputError
-from samplewright.evaluation.measures import normal_quantile
+from samplewright.evaluation.normal import normal_quantile
 
 
 # ------------------------------------------------------------------ argument checks
