@@ -32,7 +32,8 @@ import math
 import numpy as np
 import pandas as pd
 
-from samplewright.evaluation.measures import group_rows, mean_mcse, moe_mcse, normal_quantile
+from samplewright.evaluation.measures import group_rows, mean_mcse, moe_mcse
+from samplewright.evaluation.normal import normal_quantile
 
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",

@@ -22,7 +22,7 @@ import pandas as pd
 from samplewright.config.goal import Goal
 from samplewright.decision.frontier import interpolate_goal
 from samplewright.designs import size_words
-from samplewright.evaluation.measures import normal_quantile
+from samplewright.evaluation.normal import normal_quantile
 
 #: how many Monte Carlo SEs of coverage below nominal are tolerated (see module notes)
 COVERAGE_Z = 3.0

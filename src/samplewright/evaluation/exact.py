@@ -32,9 +32,9 @@ from samplewright.evaluation.measures import (
     SUMMARY_COLUMNS,
     design_effect,
     measures,
-    normal_quantile,
     srs_variance,
 )
+from samplewright.evaluation.normal import normal_quantile
 
 #: most samples enumerated for one design at one size
 LIMIT = 2_000_000

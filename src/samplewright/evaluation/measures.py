@@ -36,8 +36,8 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from samplewright.evaluation.normal import normal_quantile
 from samplewright.population.frame import Frame, srs_variance_of_mean
 
 SUMMARY_COLUMNS = [
@@ -45,11 +45,6 @@ SUMMARY_COLUMNS = [
     "bias_mcse", "relative_bias", "empirical_se", "empirical_se_mcse", "rmse", "mean_se", "se_ratio", "deff",
     "coverage", "coverage_mcse", "mean_ci_width", "moe", "mean_n", "mean_cost",
 ]
-
-
-def normal_quantile(confidence: float) -> float:
-    """z_{1 - alpha/2} of a two-sided interval at ``confidence`` (the margin of error's multiplier)."""
-    return float(stats.norm.ppf(0.5 + confidence / 2.0))
 
 
 #: relative rounding slack of :func:`holds` (a zero-width census interval is its estimate, rounded)

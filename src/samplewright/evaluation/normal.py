@@ -1,9 +1,8 @@
-"""The normal quantile for sample-size planning, from the standard library so that `plan` starts fast.
+"""The normal quantile of every margin of error, from the standard library (one place for it).
 
 ``statistics.NormalDist().inv_cdf`` (Wichura's AS241 algorithm, accurate to double precision) spares
 ``samplewright plan`` the import of scipy.stats (about half a second). It agrees with scipy.stats.norm.ppf
-to a few units in the last place but not bit for bit, so the runs keep :func:`measures.normal_quantile`
-(scipy's): their saved numbers stay identical to those of earlier versions.
+to a few units in the last place (tests/test_planning.py checks it), not bit for bit.
 """
 
 from __future__ import annotations
