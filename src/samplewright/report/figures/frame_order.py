@@ -66,7 +66,7 @@ def frame_order_plot(order: pd.DataFrame, entry: dict, summary: pd.DataFrame | N
     ax.set_xlim(0.5, x.max() + 0.5)
     ax.set_xlabel(f"Position in the {plain(entry['order'])} (first {int(x.max()):,} of {int(entry['units']):,} units)")
     ax.set_ylabel(plain(entry["variable"]))
-    ax.set_title(f"A cycle of {P:.4g} units along the {plain(entry['order'])}; ticks: where one systematic sample falls",
-                 fontsize=9.5)
+    ax.set_title(f"A cycle of {P:.4g} units along the {plain(entry['order'])}; "
+                 "ticks: where one systematic sample falls", fontsize=9.5)
     ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), frameon=False, ncol=1)
     return ax
