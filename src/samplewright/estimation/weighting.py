@@ -283,7 +283,7 @@ class ResolvedAdjustment:
         B = wr.shape[0]
         strides = np.cumprod((1,) + tuple(self.sizes[:-1])).astype(np.int64)
         n_cells = int(np.prod(self.sizes))
-        cell = sum(c[units] * s for c, s in zip(self.codes, strides))  # (B, m, k)
+        cell = sum(c * s for c, s in zip(self.codes, strides))[units]  # (B, m, k): one gather
         cell_codes = [np.broadcast_to((np.arange(n_cells) // s) % G, (B, n_cells))
                       for s, G in zip(strides, self.sizes)]
         wy = wr[..., None] * y
@@ -300,8 +300,9 @@ class ResolvedAdjustment:
         gy_cell = factor[..., None] * wy_cell
         t = gy_cell.sum(axis=1)  # (B, V)
         fit = self._fitted(g_cell, gy_cell, cell_codes)  # (B, cells, V)
-        f_unit = _pick(factor, cell)
-        residual = (wr * f_unit)[..., None] * (y - _pick(fit, cell))
+        flat = (np.arange(B) * n_cells).reshape(B, 1, 1) + cell  # each unit's row of the (B * cells) tables
+        g_unit = wr * np.take(factor.ravel(), flat)
+        residual = g_unit[..., None] * (y - np.take(fit.reshape(B * n_cells, -1), flat, axis=0))
         return residual.sum(axis=2) + t[:, None, :] * share[..., None], ok
 
     def _fitted(self, g, gy, codes):
