@@ -286,9 +286,12 @@ class ResolvedAdjustment:
         cell = sum(c * s for c, s in zip(self.codes, strides))[units]  # (B, m, k): one gather
         cell_codes = [np.broadcast_to((np.arange(n_cells) // s) % G, (B, n_cells))
                       for s, G in zip(strides, self.sizes)]
-        wy = wr[..., None] * y
-        w_cell = group_sums(cell, wr, n_cells)  # (B, cells)
-        wy_cell = _by_group(cell, wy, n_cells)  # (B, cells, V)
+        flat = (np.arange(B) * n_cells).reshape(B, 1, 1) + cell  # each unit's row of the (B * cells) tables
+        V = y.shape[-1]
+        w_cell = np.bincount(flat.ravel(), weights=wr.ravel(), minlength=B * n_cells).reshape(B, n_cells)
+        # every variable in one pass over the contiguous (B, m, k, V) products
+        wy_cell = np.bincount((flat[..., None] * V + np.arange(V)).ravel(), weights=(wr[..., None] * y).ravel(),
+                              minlength=B * n_cells * V).reshape(B, n_cells, V)
         g_cell, _, ok = rake(w_cell, cell_codes, self.controls)
         total = float(self.controls[0].sum())
         empty = np.zeros(B, dtype=bool)
@@ -300,9 +303,10 @@ class ResolvedAdjustment:
         gy_cell = factor[..., None] * wy_cell
         t = gy_cell.sum(axis=1)  # (B, V)
         fit = self._fitted(g_cell, gy_cell, cell_codes)  # (B, cells, V)
-        flat = (np.arange(B) * n_cells).reshape(B, 1, 1) + cell  # each unit's row of the (B * cells) tables
         g_unit = wr * np.take(factor.ravel(), flat)
-        residual = g_unit[..., None] * (y - np.take(fit.reshape(B * n_cells, -1), flat, axis=0))
+        residual = np.take(fit.reshape(B * n_cells, V), flat, axis=0)
+        np.subtract(y, residual, out=residual)
+        residual *= g_unit[..., None]
         return residual.sum(axis=2) + t[:, None, :] * share[..., None], ok
 
     def _fitted(self, g, gy, codes):
