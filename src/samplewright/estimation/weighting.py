@@ -246,20 +246,8 @@ class ResolvedAdjustment:
         n_pos = np.maximum(positions.sum(axis=1), 1)[:, None]
         share = positions / n_pos  # spreads a replicate constant evenly over its positions
         if self.method == "raking":
-            L = w.shape[1] * w.shape[2]
-            codes = [c[units].reshape(B, L) for c in self.codes]
-            g, _, ok = rake(wr.reshape(B, L), codes, self.controls)
-            total = float(self.controls[0].sum())
-            empty = np.zeros(B, dtype=bool)
-            for c, N in zip(codes, self.controls):
-                empty |= ((group_sums(c, wr.reshape(B, L), len(N)) <= 0) & (N > 0)).any(axis=1)
-            if empty.any():  # a category without respondents: its count is spread over all of them
-                g[empty] *= total / np.maximum(g[empty].sum(axis=1, keepdims=True), 1e-300)
-            yy = y.reshape(B, L, -1)
-            t = (g[..., None] * yy).sum(axis=1)  # (B, V)
-            fit = self._fitted(g, codes, yy)
-            u = (g[..., None] * (yy - fit)).reshape(y.shape).sum(axis=2) + t[:, None, :] * share[..., None]
-            return u, total * share, ~ok
+            u, ok = self._raked(units, wr, y, share)
+            return u, float(self.controls[0].sum()) * share, ~ok
         G = self.sizes[0]
         c = self.codes[0][units]
         Nc = group_sums(c, we, G)
@@ -282,8 +270,48 @@ class ResolvedAdjustment:
         u = ((wr * _pick(a, c))[..., None] * (y - yb)).sum(axis=2) + t[:, None, :] * share[..., None]
         return u, float(N.sum()) * share, failed
 
-    def _fitted(self, g, codes, yy):
-        """Fitted values of y from the g-weighted regression on every margin's indicators."""
+    def _raked(self, units, wr, y, share):
+        """Raking on the cells of the margins' cross-classification: (u (B, m, V), converged (B,)).
+
+        Every raking step multiplies a unit's weight by factors that depend on its cell only, so
+        the raked weight is wr_k f_c(k): the respondents are collapsed once to cell sums of wr and
+        wr y, the small (B, cells) table is raked and regressed on, and the cell factors and
+        fitted values are gathered back to the units for the per-PSU sums.
+        """
+        B = wr.shape[0]
+        strides = np.cumprod((1,) + tuple(self.sizes[:-1])).astype(np.int64)
+        n_cells = int(np.prod(self.sizes))
+        cell = sum(c * s for c, s in zip(self.codes, strides))[units]  # (B, m, k): one gather
+        cell_codes = [np.broadcast_to((np.arange(n_cells) // s) % G, (B, n_cells))
+                      for s, G in zip(strides, self.sizes)]
+        flat = (np.arange(B) * n_cells).reshape(B, 1, 1) + cell  # each unit's row of the (B * cells) tables
+        V = y.shape[-1]
+        w_cell = np.bincount(flat.ravel(), weights=wr.ravel(), minlength=B * n_cells).reshape(B, n_cells)
+        # every variable in one pass over the contiguous (B, m, k, V) products
+        wy_cell = np.bincount((flat[..., None] * V + np.arange(V)).ravel(), weights=(wr[..., None] * y).ravel(),
+                              minlength=B * n_cells * V).reshape(B, n_cells, V)
+        g_cell, _, ok = rake(w_cell, cell_codes, self.controls)
+        total = float(self.controls[0].sum())
+        empty = np.zeros(B, dtype=bool)
+        for c, N in zip(cell_codes, self.controls):
+            empty |= ((group_sums(c, w_cell, len(N)) <= 0) & (N > 0)).any(axis=1)
+        if empty.any():  # a category without respondents: its count is spread over all of them
+            g_cell[empty] *= total / np.maximum(g_cell[empty].sum(axis=1, keepdims=True), 1e-300)
+        factor = np.where(w_cell > 0, g_cell / np.where(w_cell > 0, w_cell, 1.0), 0.0)
+        gy_cell = factor[..., None] * wy_cell
+        t = gy_cell.sum(axis=1)  # (B, V)
+        fit = self._fitted(g_cell, gy_cell, cell_codes)  # (B, cells, V)
+        g_unit = wr * np.take(factor.ravel(), flat)
+        residual = np.take(fit.reshape(B * n_cells, V), flat, axis=0)
+        np.subtract(y, residual, out=residual)
+        residual *= g_unit[..., None]
+        return residual.sum(axis=2) + t[:, None, :] * share[..., None], ok
+
+    def _fitted(self, g, gy, codes):
+        """Fitted values of y from the g-weighted regression on every margin's indicators.
+
+        ``g`` (B, L) weights, ``gy`` (B, L, V) weights times y, ``codes`` each margin's category per column.
+        """
         offsets = np.concatenate([[0], np.cumsum(self.sizes)]).astype(np.int64)
         p = int(offsets[-1])
         B = g.shape[0]
@@ -293,6 +321,6 @@ class ResolvedAdjustment:
                 Gi, Gj = self.sizes[i], self.sizes[j]
                 block = group_sums(ci * Gj + cj, g, Gi * Gj).reshape(B, Gi, Gj)
                 xtx[:, offsets[i]:offsets[i + 1], offsets[j]:offsets[j + 1]] = block
-        xty = np.concatenate([_by_group(c, g[..., None] * yy, G) for c, G in zip(codes, self.sizes)], axis=1)
+        xty = np.concatenate([_by_group(c, gy, G) for c, G in zip(codes, self.sizes)], axis=1)
         beta, _ = least_squares(xtx, xty)  # (B, p, V); later margins repeat the intercept
         return sum(_pick(beta[:, offsets[i]:offsets[i + 1], :], c) for i, c in enumerate(codes))
