@@ -115,3 +115,39 @@ def assert_matches_exact(reps, samples, truth, confidence=0.95, unbiased=False):
     v_sd = math.sqrt(float(p @ (se**2 - v_exact) ** 2))
     assert abs((reps["se"].to_numpy() ** 2).mean() - v_exact) < Z * v_sd / math.sqrt(n) + 1e-12
     return mean, var, cover_exact
+
+
+#: a small scenario on a CSV frame with two bands, cut into several blocks (resume and block-file tests)
+RESUMABLE_SCENARIO = """
+seed = 21
+replicates = 300
+block_size = 100
+
+[frame]
+path = "frame.csv"
+target = "y"
+stratum = "band"
+
+[[design]]
+label = "simple"
+method = "srs"
+n = 20
+
+[[design]]
+label = "by band"
+method = "stratified"
+n = 20
+"""
+
+
+@pytest.fixture
+def scenario_file(tmp_path):
+    """RESUMABLE_SCENARIO and its frame written to tmp_path/inputs; the scenario's path."""
+    rng = np.random.default_rng(5)
+    band = np.repeat(["a", "b"], [150, 90])
+    y = np.where(band == "a", 10.0, 30.0) + rng.normal(0, 3, band.size).round(3)
+    folder = tmp_path / "inputs"
+    folder.mkdir()
+    pd.DataFrame({"y": y, "band": band}).to_csv(folder / "frame.csv", index=False)
+    (folder / "scenario.toml").write_text(RESUMABLE_SCENARIO)
+    return folder / "scenario.toml"

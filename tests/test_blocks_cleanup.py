@@ -13,49 +13,16 @@ import subprocess
 import sys
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
-import pytest
 
 from samplewright import report
 from samplewright.cli.main import main
 from samplewright.results import result
 from samplewright.simulation import engine
 
-CHECK_CONTRACT = Path("/work/shared/tools/check-contract")
+#: the shared contract checker, in the shared/ folder beside the repository where there is one
+CHECK_CONTRACT = Path(__file__).resolve().parents[2] / "shared" / "tools" / "check-contract"
 
-SCENARIO = """
-seed = 8
-replicates = 300
-block_size = 100
-
-[frame]
-path = "frame.csv"
-target = "y"
-stratum = "band"
-
-[[design]]
-label = "simple"
-method = "srs"
-n = 20
-
-[[design]]
-label = "by band"
-method = "stratified"
-n = 20
-"""
-
-
-@pytest.fixture
-def scenario_file(tmp_path):
-    rng = np.random.default_rng(3)
-    band = np.repeat(["a", "b"], [140, 100])
-    y = np.where(band == "a", 12.0, 25.0) + rng.normal(0, 2, band.size).round(3)
-    folder = tmp_path / "inputs"
-    folder.mkdir()
-    pd.DataFrame({"y": y, "band": band}).to_csv(folder / "frame.csv", index=False)
-    (folder / "scenario.toml").write_text(SCENARIO)
-    return folder / "scenario.toml"
 
 
 def _run(scenario_file, out, *extra) -> int:

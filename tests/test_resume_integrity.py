@@ -18,39 +18,6 @@ from samplewright.cli.main import main
 from samplewright.simulation import engine
 from samplewright.simulation.checkpoint import checksum
 
-SCENARIO = """
-seed = 21
-replicates = 300
-block_size = 100
-
-[frame]
-path = "frame.csv"
-target = "y"
-stratum = "band"
-
-[[design]]
-label = "simple"
-method = "srs"
-n = 20
-
-[[design]]
-label = "by band"
-method = "stratified"
-n = 20
-"""
-
-
-@pytest.fixture
-def scenario_file(tmp_path):
-    rng = np.random.default_rng(5)
-    band = np.repeat(["a", "b"], [150, 90])
-    y = np.where(band == "a", 10.0, 30.0) + rng.normal(0, 3, band.size).round(3)
-    folder = tmp_path / "inputs"
-    folder.mkdir()
-    pd.DataFrame({"y": y, "band": band}).to_csv(folder / "frame.csv", index=False)
-    (folder / "scenario.toml").write_text(SCENARIO)
-    return folder / "scenario.toml"
-
 
 def _same_run(a, b):
     pd.testing.assert_frame_equal(pd.read_parquet(a / "replicates.parquet"), pd.read_parquet(b / "replicates.parquet"))
