@@ -233,3 +233,15 @@ def test_district_scenario_pick_checks_by_hand_from_summary(tmp_path, capsys):
     if checker.exists():
         r = subprocess.run([sys.executable, str(checker), str(out)], capture_output=True, text=True, check=False)
         assert r.returncode == 0, r.stdout
+
+
+def test_without_a_cost_model_the_cheapest_pick_is_the_smallest_sample_meeting_the_margin():
+    # every cost is 0 when nothing is costed: the pick must not be the census point of a sweep (the most
+    # precise) but the fewest units that meet the margin; SRS margins shrink with n (Cochran 1977, eq. 2.8)
+    import samplewright as sw
+
+    sc = sw.scenario_from_dict({"frame": {"synthetic": {"units": 600, "seed": 5}},
+                                "design": [{"label": "simple", "method": "srs", "n": [100, 300, 600]}],
+                                "goal": {"moe": 1e9}})
+    rec = sw.run(sc, replicates=200, seed=3).recommendation
+    assert rec["cheapest_meeting_moe"]["size"] == 100

@@ -81,7 +81,8 @@ def recommend(front: pd.DataFrame, goal: Goal, nominal: float) -> dict:
     if goal.moe is not None:
         cand = pts[pts["_ok"] & (pts["moe"] <= goal.moe)]
         if len(cand):
-            cheapest = _pick(cand.sort_values(["mean_cost", "moe"], kind="stable").iloc[0])
+            # equal costs (no cost model: every cost is 0) fall back to the fewest units to field, then the margin
+            cheapest = _pick(cand.sort_values(["mean_cost", "mean_n", "moe"], kind="stable").iloc[0])
     if goal.budget is not None:
         cand = pts[pts["_ok"] & (pts["mean_cost"] <= goal.budget)]
         if len(cand):
