@@ -73,3 +73,17 @@ def run_cli(args: list[str], log: Path, python: list[str] | None = None) -> dict
     if code != 0:
         raise RuntimeError(f"{' '.join(cmd)} exited {code}\n{Path(log).read_text()[-2000:]}")
     return {"seconds": round(seconds, 3), "peak_rss_mib": round(int(rss.read_text().split()[-1]) / 1024, 1)}
+
+
+def save_results(res: dict, out) -> Path:
+    """Note the load average at the end, write ``res`` as JSON to ``out`` (atomically) and say where."""
+    import os
+
+    from samplewright.files import write_json
+
+    res["machine"]["load_average_at_end"] = os.getloadavg()[0]
+    path = Path(out)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    write_json(res, path)
+    print(f"written to {path}")
+    return path

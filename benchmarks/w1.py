@@ -43,12 +43,11 @@ from scipy import stats
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from cli_timing import run_cli, write_scenario
+from cli_timing import run_cli, save_results, write_scenario
 from w1_scenario import w1_doc
 
 from samplewright import Frame
 from samplewright.api import run
-from samplewright.files import write_json
 from samplewright.simulation.scenario import scenario_from_dict
 
 
@@ -261,12 +260,8 @@ def main(argv=None) -> int:
         "jobs2_at_least_1.7x": res["ratios"][f"jobs1_over_jobs2_{R2}"] >= 1.7,
         "dask_within_20pct_of_jobs2": "not measured by this script",
     }
-    res["machine"]["load_average_at_end"] = os.getloadavg()[0]
     print("targets met:", res["targets"])
-    out_path = Path(args.out)
-    out_path.parent.mkdir(parents=True, exist_ok=True)
-    write_json(res, out_path)
-    print(f"written to {out_path}")
+    save_results(res, args.out)
     return 0
 
 

@@ -31,9 +31,7 @@ import pandas as pd
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from cli_timing import run_cli, write_scenario
-
-from samplewright.files import write_json
+from cli_timing import run_cli, save_results, write_scenario
 
 N, STRATA, CLUSTER_SIZE, n = 20_000, 20, 20, 2000
 TARGET_RATIO = 5.0
@@ -120,12 +118,8 @@ def main(argv=None) -> int:
                   f"{got['peak_rss_mib']:>10.0f}", flush=True)
     res["target"] = f"every design within {TARGET_RATIO:g} x SRS+HT (start-up included)"
     res["all_within_target"] = all(d["within_target"] for d in res["designs"])
-    res["machine"]["load_average_at_end"] = os.getloadavg()[0]
     print(res["target"] + ":", "met" if res["all_within_target"] else "NOT met")
-    out = Path(args.out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    write_json(res, out)
-    print(f"written to {out}")
+    save_results(res, args.out)
     return 0
 
 
