@@ -141,7 +141,7 @@ n = 20
 
 
 @pytest.fixture
-def scenario_file(tmp_path):
+def resumable_scenario_file(tmp_path):
     """RESUMABLE_SCENARIO and its frame written to tmp_path/inputs; the scenario's path."""
     rng = np.random.default_rng(5)
     band = np.repeat(["a", "b"], [150, 90])

@@ -25,8 +25,8 @@ CHECK_CONTRACT = Path(__file__).resolve().parents[2] / "shared" / "tools" / "che
 
 
 
-def _run(scenario_file, out, *extra) -> int:
-    return main(["run", str(scenario_file), "--out", str(out), "--quiet", "--no-report", *extra])
+def _run(resumable_scenario_file, out, *extra) -> int:
+    return main(["run", str(resumable_scenario_file), "--out", str(out), "--quiet", "--no-report", *extra])
 
 
 def _same_tables(a, b):
@@ -38,9 +38,9 @@ def _blocks_kept(out):
     return json.loads((out / "run.json").read_text())["blocks_kept"]
 
 
-def test_a_finished_run_leaves_no_blocks_and_every_contract_file(scenario_file, tmp_path):
+def test_a_finished_run_leaves_no_blocks_and_every_contract_file(resumable_scenario_file, tmp_path):
     out = tmp_path / "done"
-    assert _run(scenario_file, out) == 0
+    assert _run(resumable_scenario_file, out) == 0
     assert not (out / "blocks").exists()
     assert _blocks_kept(out) is False
     for name in ("summary.csv", "replicates.parquet", "allocation.csv", "run.json", "frontier.csv"):
@@ -51,9 +51,9 @@ def test_a_finished_run_leaves_no_blocks_and_every_contract_file(scenario_file, 
         assert done.returncode == 0, done.stdout
 
 
-def test_resume_of_a_finished_run_without_blocks_is_refused(scenario_file, tmp_path, capsys):
+def test_resume_of_a_finished_run_without_blocks_is_refused(resumable_scenario_file, tmp_path, capsys):
     out = tmp_path / "done"
-    assert _run(scenario_file, out) == 0
+    assert _run(resumable_scenario_file, out) == 0
     capsys.readouterr()
     assert main(["run", "--resume", str(out), "--quiet", "--no-report"]) == 2
     err = capsys.readouterr().err
@@ -61,13 +61,13 @@ def test_resume_of_a_finished_run_without_blocks_is_refused(scenario_file, tmp_p
     assert "finished" in err and "removed" in err and "--keep-blocks" in err
 
 
-def test_kept_blocks_stay_and_resume_to_identical_tables(scenario_file, tmp_path, monkeypatch):
+def test_kept_blocks_stay_and_resume_to_identical_tables(resumable_scenario_file, tmp_path, monkeypatch):
     kept, ref = tmp_path / "kept", tmp_path / "ref"
-    assert _run(scenario_file, kept, "--keep-blocks") == 0
+    assert _run(resumable_scenario_file, kept, "--keep-blocks") == 0
     assert _blocks_kept(kept) is True
     assert len(list((kept / "blocks").glob("*.npz"))) == 2 * 3  # 2 designs x 3 blocks of 100
     assert (kept / "blocks" / "manifest.json").is_file()
-    assert _run(scenario_file, ref) == 0
+    assert _run(resumable_scenario_file, ref) == 0
     real, calls = engine.run_block, {"n": 0}
 
     def counted(*a, **k):
@@ -80,7 +80,7 @@ def test_kept_blocks_stay_and_resume_to_identical_tables(scenario_file, tmp_path
     _same_tables(kept, ref)
 
 
-def test_an_interrupted_run_keeps_its_blocks_and_resumes_to_identical_tables(scenario_file, tmp_path,
+def test_an_interrupted_run_keeps_its_blocks_and_resumes_to_identical_tables(resumable_scenario_file, tmp_path,
                                                                                 monkeypatch):
     cut, ref = tmp_path / "cut", tmp_path / "ref"
     real, calls = engine.run_block, {"n": 0}
@@ -92,34 +92,34 @@ def test_an_interrupted_run_keeps_its_blocks_and_resumes_to_identical_tables(sce
         return real(*a, **k)
 
     monkeypatch.setattr(engine, "run_block", flaky)
-    assert _run(scenario_file, cut) == 130
+    assert _run(resumable_scenario_file, cut) == 130
     assert len(list((cut / "blocks").glob("*.npz"))) == 3
     assert not (cut / "run.json").exists()
     monkeypatch.setattr(engine, "run_block", real)
     assert main(["run", "--resume", str(cut), "--quiet", "--no-report"]) == 0
     assert not (cut / "blocks").exists()  # the resumed run finished: its blocks go
-    assert _run(scenario_file, ref) == 0
+    assert _run(resumable_scenario_file, ref) == 0
     _same_tables(cut, ref)
 
 
-def test_a_failure_writing_the_tables_keeps_the_blocks(scenario_file, tmp_path, monkeypatch):
+def test_a_failure_writing_the_tables_keeps_the_blocks(resumable_scenario_file, tmp_path, monkeypatch):
     def full_disk(*a, **k):
         raise OSError(28, "No space left on device")
 
     out = tmp_path / "full"
     monkeypatch.setattr(result, "write_csv", full_disk)
-    assert _run(scenario_file, out) == 1
+    assert _run(resumable_scenario_file, out) == 1
     assert len(list((out / "blocks").glob("*.npz"))) == 2 * 3
     assert not (out / "run.json").exists()
 
 
-def test_a_failed_report_after_the_tables_removes_the_blocks(scenario_file, tmp_path, monkeypatch, capsys):
+def test_a_failed_report_after_the_tables_removes_the_blocks(resumable_scenario_file, tmp_path, monkeypatch, capsys):
     def broken(*a, **k):
         raise RuntimeError("figure failed")
 
     out = tmp_path / "late"
     monkeypatch.setattr(report, "write_report", broken)
-    assert main(["run", str(scenario_file), "--out", str(out), "--quiet"]) == 1
+    assert main(["run", str(resumable_scenario_file), "--out", str(out), "--quiet"]) == 1
     assert "the result tables in" in capsys.readouterr().err
     assert (out / "summary.csv").is_file() and (out / "run.json").is_file()
     assert not (out / "blocks").exists()

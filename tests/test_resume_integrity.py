@@ -24,7 +24,7 @@ def _same_run(a, b):
     pd.testing.assert_frame_equal(pd.read_csv(a / "summary.csv"), pd.read_csv(b / "summary.csv"))
 
 
-def _interrupted(scenario_file, out, monkeypatch, after=3):
+def _interrupted(resumable_scenario_file, out, monkeypatch, after=3):
     """Run until the block after ``after`` finished blocks, interrupted as by Ctrl-C."""
     real, calls = engine.run_block, {"n": 0}
 
@@ -35,19 +35,19 @@ def _interrupted(scenario_file, out, monkeypatch, after=3):
         return real(*a, **k)
 
     monkeypatch.setattr(engine, "run_block", flaky)
-    assert main(["run", str(scenario_file), "--out", str(out), "--quiet", "--no-report"]) == 130
+    assert main(["run", str(resumable_scenario_file), "--out", str(out), "--quiet", "--no-report"]) == 130
     monkeypatch.setattr(engine, "run_block", real)
 
 
-def _full(scenario_file, out):
-    assert main(["run", str(scenario_file), "--out", str(out), "--quiet", "--no-report"]) == 0
+def _full(resumable_scenario_file, out):
+    assert main(["run", str(resumable_scenario_file), "--out", str(out), "--quiet", "--no-report"]) == 0
 
 
-def test_resume_refuses_a_frame_changed_since_the_interruption(scenario_file, tmp_path, monkeypatch, capsys):
+def test_resume_refuses_a_frame_changed_since_the_interruption(resumable_scenario_file, tmp_path, monkeypatch, capsys):
     out = tmp_path / "cut"
-    _interrupted(scenario_file, out, monkeypatch)
+    _interrupted(resumable_scenario_file, out, monkeypatch)
     capsys.readouterr()
-    csv = scenario_file.parent / "frame.csv"
+    csv = resumable_scenario_file.parent / "frame.csv"
     df = pd.read_csv(csv)
     df.loc[0, "y"] += 1.0  # one unit's value changed: another population
     df.to_csv(csv, index=False)
@@ -64,10 +64,10 @@ def _blocks(out):
 
 @pytest.mark.parametrize("damage", ["truncated", "flipped value", "another block's file", "not a zip",
                                     "mis-shaped with a matching checksum"])
-def test_a_damaged_block_is_drawn_again_with_a_warning(scenario_file, tmp_path, monkeypatch, capsys, damage):
+def test_a_damaged_block_is_drawn_again_with_a_warning(resumable_scenario_file, tmp_path, monkeypatch, capsys, damage):
     full, cut = tmp_path / "full", tmp_path / "cut"
-    _full(scenario_file, full)
-    _interrupted(scenario_file, cut, monkeypatch)
+    _full(resumable_scenario_file, full)
+    _interrupted(resumable_scenario_file, cut, monkeypatch)
     first, second = _blocks(cut)[:2]
     if damage == "truncated":
         data = first.read_bytes()
@@ -103,10 +103,10 @@ def test_a_damaged_block_is_drawn_again_with_a_warning(scenario_file, tmp_path, 
 
 @pytest.mark.parametrize("key, value", [("replicates", "x"), ("seed", [1]), ("block_size", 0), ("cells", 3),
                                         ("frame_hash", None), ("confidence", True)])
-def test_a_manifest_with_a_wrong_type_is_refused_naming_the_key(scenario_file, tmp_path, monkeypatch, capsys,
+def test_a_manifest_with_a_wrong_type_is_refused_naming_the_key(resumable_scenario_file, tmp_path, monkeypatch, capsys,
                                                                 key, value):
     out = tmp_path / "cut"
-    _interrupted(scenario_file, out, monkeypatch)
+    _interrupted(resumable_scenario_file, out, monkeypatch)
     path = out / "blocks" / "manifest.json"
     manifest = json.loads(path.read_text())
     manifest[key] = value
@@ -117,9 +117,9 @@ def test_a_manifest_with_a_wrong_type_is_refused_naming_the_key(scenario_file, t
     assert err.startswith("error:") and err.count("\n") == 1 and repr(key) in err and "manifest.json" in err
 
 
-def test_a_manifest_that_is_not_a_regular_file_is_refused(scenario_file, tmp_path, monkeypatch, capsys):
+def test_a_manifest_that_is_not_a_regular_file_is_refused(resumable_scenario_file, tmp_path, monkeypatch, capsys):
     out = tmp_path / "cut"
-    _interrupted(scenario_file, out, monkeypatch)
+    _interrupted(resumable_scenario_file, out, monkeypatch)
     path = out / "blocks" / "manifest.json"
     path.unlink()
     os.mkfifo(path)  # reading it would block for ever
