@@ -64,7 +64,6 @@ from samplewright.estimation.gram import least_squares
 from samplewright.estimation.poststratify import cell_factors, cell_means
 
 ADJUSTMENT_METHODS = ("none", "class", "poststrat", "raking")
-DESIGN_KEYS = ("adjustment", "adjustment_classes", "raking_margins")
 #: relative tolerance on every raking margin (a tenth of the 1e-9 promised, so that rounding in
 #: the estimate cannot take a met margin past it), and the cycle cap
 TOLERANCE = 1e-10

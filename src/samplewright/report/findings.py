@@ -66,7 +66,7 @@ def num(value, digits: int = 4) -> str:
         v = float(value)
     except (TypeError, ValueError):
         return str(value)
-    if np.isinf(v):  # e.g. a design effect against an SRS variance of 0 (evaluate.py)
+    if np.isinf(v):  # e.g. a design effect against an SRS variance of 0 (evaluation/measures.py)
         return "infinite" if v > 0 else "minus infinite"
     if not np.isfinite(v):
         return "n/a"

@@ -260,7 +260,7 @@ def design_rows(res) -> list[dict]:
     return out
 
 
-def brief_rows(res, confidence: float) -> list[dict]:
+def brief_rows(res) -> list[dict]:
     """One line per design x size for the brief: each design's first estimator."""
     rows = []
     show, cost = measure_text(is_exact(res.summary)), cost_text(res.summary)
@@ -317,7 +317,7 @@ def build_context(res, folder: Path | None = None) -> dict:
             for e in dict.fromkeys(res.summary["estimator"])
             if SHORT_ESTIMATOR.get(e, estimator_name(e)) != estimator_name(e)
         ),
-        "brief_rows": brief_rows(res, confidence) if len(res.summary) else [],
+        "brief_rows": brief_rows(res) if len(res.summary) else [],
         "warnings": warnings,
         "untrusted": rec["untrusted"] if rec else [],
         "notes": notes,
