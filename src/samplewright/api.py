@@ -390,7 +390,7 @@ def _python_call(plan: RunPlan, scenario: Scenario, exact: bool = False) -> dict
         call = "exact=True"
     else:
         rule = plan.stopping
-        call = f"seed={plan.seed}, replicates={plan.replicates}" + (
+        call = f"replicates={plan.replicates}, seed={plan.seed}" + (
             f", until={rule.text!r}, max_replicates={rule.max_replicates}" if rule else "") + (
             f", block_size={plan.block_size}" if plan.block_size != scenario.block_size else "")
     what = f"load_scenario({str(scenario.source)!r})" if scenario.source else "scenario"
