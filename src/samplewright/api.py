@@ -379,7 +379,24 @@ def _run_info(plan: RunPlan, scenario: Scenario, stopping, warned: list, notes: 
         "warnings": warned,
         "notes": notes,
         "fieldwork": None if plan.fieldwork is None else plan.fieldwork.info,
+        **_python_call(plan, scenario),
     }
+
+
+def _python_call(plan: RunPlan, scenario: Scenario, exact: bool = False) -> dict:
+    """run.json's ``reproduce`` of a run made through this API: none (the command line sets its own,
+    ``cli/common.py``), and a ``reproduce_note`` naming the call that gives the same numbers."""
+    if exact:
+        call = "exact=True"
+    else:
+        rule = plan.stopping
+        call = f"replicates={plan.replicates}, seed={plan.seed}" + (
+            f", until={rule.text!r}, max_replicates={rule.max_replicates}" if rule else "") + (
+            f", block_size={plan.block_size}" if plan.block_size != scenario.block_size else "")
+    what = f"load_scenario({str(scenario.source)!r})" if scenario.source else "scenario"
+    return {"reproduce": None,
+            "reproduce_note": f"made through the Python API, not the command line: samplewright.run({what}, {call}) "
+                              f"gives the same numbers with the same scenario (scenario_hash) and frame"}
 
 
 def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, started: float) -> RunResult:
@@ -406,6 +423,7 @@ def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, 
         "enumeration_seconds": round(enumerated - enumeration_started, 3),
         "warnings": warned,
         "notes": notes,
+        **_python_call(plan, scenario, exact=True),
     }
     return RunResult(summary=summary, replicates=samples, allocation=allocation_table(frame, plan.cells),
                      info=info, warnings=warned)

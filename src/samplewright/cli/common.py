@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import logging
+import shlex
 import sys
 from contextlib import contextmanager
+from pathlib import Path
 
 from samplewright.cli.arguments import whole_number
 from samplewright.cli.longrun import add_scale_options, interrupted_note, run_kwargs
@@ -62,8 +64,33 @@ def logger(args):
     return None
 
 
-def simulate_and_write(scenario, args) -> int:
-    """Run ``scenario`` with the command's options and write its results to ``args.out``."""
+def reproduce_command(program: str, info: dict, out) -> str:
+    """run.json ``reproduce``: the shell command (every argument quoted) repeating the run into ``OUT-again``.
+
+    It names every setting that changes a number as the run used it: the seed and replicates (the
+    first count under a stopping rule), ``--until`` and its cap, or ``--exact``; a resumed run is
+    repeated whole.  ``--jobs``, ``--backend`` and the output options change no number and are left out.
+
+    Examples
+    --------
+    >>> reproduce_command("run", {"scenario": "a b.toml", "seed": 7, "replicates": 50,
+    ...                           "stopping": {"until": "coverage_mcse=0.01", "max_replicates": 900}}, "o/")
+    "samplewright run 'a b.toml' --out o-again --seed 7 --replicates 50 --until coverage_mcse=0.01 --max-replicates 900"
+    >>> reproduce_command("run", {"scenario": "s.toml", "exact": True, "replicates": None}, "res")
+    'samplewright run s.toml --out res-again --exact'
+    """
+    argv = ["samplewright", program, *([info["scenario"]] if program == "run" else []), "--out", f"{Path(out)}-again"]
+    if info.get("exact"):
+        argv.append("--exact")
+    else:
+        argv += ["--seed", str(info["seed"]), "--replicates", str(info["replicates"])]
+        if info.get("stopping"):
+            argv += ["--until", info["stopping"]["until"], "--max-replicates", str(info["stopping"]["max_replicates"])]
+    return shlex.join(argv)
+
+
+def simulate_and_write(scenario, args, program: str) -> int:
+    """Run ``scenario`` with the options of command ``program`` and write its results to ``args.out``."""
     from samplewright.api import run
     from samplewright.files import prepare_dir
     from samplewright.simulation import checkpoint
@@ -82,6 +109,8 @@ def simulate_and_write(scenario, args) -> int:
                       progress=None if not args.quiet else False, exact=exact, ready=ready, **extra)
         if not exact:
             res.info[checkpoint.KEPT] = args.keep_blocks
+        res.info.pop("reproduce_note", None)  # the command line, not the Python call (api.py), repeats it
+        res.info["reproduce"] = reproduce_command(program, res.info, args.out)
         out = res.write(args.out, force=True)  # the simulated tables and run.json first
     except BaseException as exc:  # the tables are not all written: the blocks stay for --resume
         if not isinstance(exc, (InputError, SystemExit)):

@@ -21,4 +21,4 @@ def main(args) -> int:
 
     with as_file(files("samplewright") / "data" / "demo.toml") as path:
         scenario = load_scenario(path)
-    return simulate_and_write(scenario, args)
+    return simulate_and_write(scenario, args, NAME)

@@ -27,4 +27,4 @@ def main(args) -> int:
     from samplewright.simulation.scenario import load_scenario
 
     scenario, args.out = resume_target(args)
-    return simulate_and_write(load_scenario(scenario), args)
+    return simulate_and_write(load_scenario(scenario), args, NAME)

@@ -23,6 +23,7 @@ from samplewright.config.goal import Goal
 from samplewright.decision.frontier import interpolate_goal
 from samplewright.designs import size_words
 from samplewright.evaluation.normal import normal_quantile
+from samplewright.evaluation.stopping import replicate_counts
 
 #: how many Monte Carlo SEs of coverage below nominal are tolerated (see module notes)
 COVERAGE_Z = 3.0
@@ -192,8 +193,7 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
             lines.append(f"Between the rehearsed sizes, the budget would buy about {buy} with '{row['design']}' "
                          f"(margin about +-{_num(row['moe_for_budget'])}); this is interpolated from a fit of "
                          f"MSE = a/n + b, not simulated.")
-    R = int(pts["replicates"].max()) if len(pts) else 0
-    lines.append(f"Evidence: {R:,} rehearsed samples per design and size drawn from the frame; the margin is "
-                 f"{normal_quantile(conf):.2f} x the root mean square error of the estimates around the "
+    lines.append(f"Evidence: {replicate_counts(pts)} rehearsed samples per design and size drawn from the frame; "
+                 f"the margin is {normal_quantile(conf):.2f} x the root mean square error of the estimates around the "
                  f"frame's true mean.")
     return " ".join(lines)

@@ -242,3 +242,34 @@ def format_report(rows: list[dict], rule: Rule) -> str:
         lines.append(f"  {r['design']} (size {r['size']}): {r['replicates']} replicates, {state}; "
                      f"{reached}; replicates needed ~{r['replicates_needed']}")
     return "\n".join(lines)
+
+
+def replicate_counts(table) -> str:
+    """How many replicates the rows of ``table`` (columns ``design``, ``replicates``) rest on, for a sentence.
+
+    ``"2,000"`` when every row used the same count; otherwise (``--until`` stops each design x size
+    at its own count) the range and each design's own counts, e.g.
+    ``"2,000 to 6,000 (by design and size: 'simple' 2,000; 'strata' 2,000 to 6,000)"``.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> replicate_counts(pd.DataFrame({"design": ["a", "a"], "replicates": [2000, 2000]}))
+    '2,000'
+    >>> replicate_counts(pd.DataFrame({"design": ["a", "b", "b"], "replicates": [2000, 2000, 6000]}))
+    "2,000 to 6,000 (by design and size: 'a' 2,000; 'b' 2,000 to 6,000)"
+    """
+    if len(table) == 0:
+        return "0"
+
+    def span(counts) -> str:
+        lo, hi = int(min(counts)), int(max(counts))
+        return f"{lo:,}" if lo == hi else f"{lo:,} to {hi:,}"
+
+    whole = span(table["replicates"])
+    if " to " not in whole:
+        return whole
+    if table["design"].nunique() == 1:
+        return f"{whole} (by size)"
+    each = "; ".join(f"'{d}' {span(g)}" for d, g in table.groupby("design", sort=False)["replicates"])
+    return f"{whole} (by design and size: {each})"

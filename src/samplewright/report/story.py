@@ -11,6 +11,7 @@ import matplotlib
 import numpy as np
 
 from samplewright._version import __version__
+from samplewright.evaluation.stopping import replicate_counts
 from samplewright.report.figures import FIGURES, estimator_name, figure_names, primary_rows
 from samplewright.report.findings import (
     SHORT_ESTIMATOR,
@@ -150,21 +151,8 @@ def _untrusted(passed: list[dict]) -> list[dict]:
 
 
 def _reproduce(info: dict) -> str:
-    seed, R = info.get("seed"), info.get("replicates")
-    src = str(info.get("scenario") or "")
-    exact = bool(info.get("exact"))  # every possible sample: no seed and no replicates
-    tail = " --exact" if exact else f" --seed {seed} --replicates {R}" + (
-        f" --jobs {info['jobs']}" if info.get("jobs", 1) != 1 else ""
-    )
-    if src.replace("\\", "/").endswith("samplewright/data/demo.toml"):
-        return f"samplewright demo --out NEW_FOLDER{tail}"
-    if src:
-        return f"samplewright run {src} --out NEW_FOLDER{tail}"
-    call = "exact=True" if exact else f"replicates={R}, seed={seed}"
-    return (
-        f"samplewright.run(scenario, {call}) with the same scenario "
-        f"(built in Python; its hash is recorded below)"
-    )
+    """The command line that reproduces the run (run.json ``reproduce``), or why there is none."""
+    return info.get("reproduce") or info.get("reproduce_note") or "not recorded (run.json from an older version)"
 
 
 def _utc(ts: float | None) -> str | None:
@@ -173,7 +161,8 @@ def _utc(ts: float | None) -> str | None:
     return _dt.datetime.fromtimestamp(ts, _dt.UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
-def metadata(info: dict, finished: float | None) -> list[tuple[str, str]]:
+def metadata(info: dict, finished: float | None, counts: str) -> list[tuple[str, str]]:
+    """The run details: ``counts`` the replicates each design used (``stopping.replicate_counts``)."""
     versions = info.get("versions") or {}
     if info.get("exact"):  # every possible sample: no seed, replicates or blocks
         samples = info.get("samples") or {}
@@ -183,7 +172,7 @@ def metadata(info: dict, finished: float | None) -> list[tuple[str, str]]:
         rows = [
             ("Root seed", str(info.get("seed"))),
             ("Seed entropy", str(info.get("seed_entropy"))),
-            ("Replicates per design and size", num(info.get("replicates"), 9)),
+            ("Replicates per design and size", counts),
             ("Block size", str(info.get("block_size"))),
             ("Parallel jobs (results do not depend on it)", str(info.get("jobs"))),
         ]
@@ -290,6 +279,7 @@ def build_context(res, folder: Path | None = None) -> dict:
         finished = (Path(folder) / "run.json").stat().st_mtime
     warnings = list(dict.fromkeys(list(info.get("warnings") or []) + list(res.warnings or [])))
     rec = recommendation_context(res)
+    counts = replicate_counts(res.summary)  # each design's own count: --until stops each at its own
     notes = []
     if res.replicates is None or len(res.replicates) == 0:
         notes.append(
@@ -302,7 +292,7 @@ def build_context(res, folder: Path | None = None) -> dict:
         "generated": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
         "confidence": confidence,
         "nominal": f"{100 * confidence:g}%",
-        "replicates": num(info.get("replicates"), 9),
+        "replicates": counts,
         "exact": bool(info.get("exact")),
         "frame": frame_context(res),
         "designs": design_rows(res),
@@ -321,7 +311,7 @@ def build_context(res, folder: Path | None = None) -> dict:
         "warnings": warnings,
         "untrusted": rec["untrusted"] if rec else [],
         "notes": notes,
-        "metadata": metadata(info, finished),
+        "metadata": metadata(info, finished, counts),
         "reproduce": _reproduce(info),
         "cautions": [EXACT_CAUTION if c is CAUTIONS[4] and info.get("exact") else c for c in CAUTIONS],
         "any_low": any(r["coverage_flag"] == "low" for r in summary_rows(res.summary, confidence)),
