@@ -26,7 +26,7 @@ import pandas as pd
 
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.registry import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS, estimate_points
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
 from samplewright.population.frame import Frame
@@ -128,7 +128,7 @@ def _rebuilt(sample: SampleBlock, u: np.ndarray, count: np.ndarray) -> SampleBlo
 
 
 def _estimate(block, frame, estimators, confidence):
-    outs = [ESTIMATORS[e](block, frame.N, frame.V, confidence, frame.layout) for e in estimators]
+    outs = estimate_points(block, estimators, frame.N, frame.V, confidence, frame.layout)
     return [np.stack([getattr(o, k) for o in outs]) for k in ("estimate", "se", "lower", "upper")]
 
 
