@@ -11,8 +11,9 @@ back, refuses a mismatch, a manifest value of the wrong type or a folder of anot
 format, and runs only the blocks that are missing.  A block file that cannot be read, belongs
 elsewhere, has arrays of the wrong shape or fails its checksum is drawn again (with a warning).
 Since each block's numbers depend only on its seed (see :mod:`samplewright.simulation.engine`),
-the resumed run gives the same numbers as an uninterrupted one.  Once a run's tables are written the command removes the folder
-(:func:`remove`) unless asked to keep it, and run.json records which (``blocks_kept``).
+the resumed run gives the same numbers as an uninterrupted one.  Once a run's tables are
+written the command removes the folder (:func:`remove`) unless asked to keep it, and run.json
+records which (``blocks_kept``).
 """
 
 from __future__ import annotations
