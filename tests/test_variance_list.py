@@ -225,3 +225,19 @@ def test_a_run_folder_without_the_variance_column_reads_back_with_it(tmp_path):
     summary.drop(columns="variance").to_csv(out / "summary.csv", index=False)
     back = read_run(out)
     assert list(back.summary["variance"]) == list(summary["variance"])
+
+
+def test_the_memory_check_counts_a_row_per_formula():
+    """limits.py: ROW_BYTES per replicate-table row, one row per estimator x formula x variable x replicate."""
+    from samplewright.designs.systematic import Systematic
+    from samplewright.errors import InputError
+    from samplewright.population.frame import Frame
+    from samplewright.simulation.engine import make_cells
+    from samplewright.simulation.limits import BLOCK_BYTES, ROW_BYTES, check_run_memory
+
+    frame = Frame.from_dataframe(pd.DataFrame({"y": np.arange(1.0, 101.0)}), target="y")
+    cells = make_cells([Systematic("w", n=2, variance=["srs", "successive_differences"])], [("ht",)])
+    need = 10**4 * 2 * ROW_BYTES + 20 * BLOCK_BYTES  # 10^4 replicates x (1 estimator x 2 formulas); 20 blocks
+    check_run_memory(frame, cells, 10**4, 500, memory=need)
+    with pytest.raises(InputError, match="replicate table"):
+        check_run_memory(frame, cells, 10**4, 500, memory=need - 1)
