@@ -61,9 +61,10 @@ ESTIMATORS = {name: partial(function, variance=block_variance) for name, functio
 )}
 
 
-def estimate_points(block: SampleBlock, estimators, N: int, V: int, confidence: float, layout=None) -> list:
-    """Every estimator under every variance formula the block lists, from its one draw: Estimates in
-    the order estimator, then formula (``block.variances``).  The estimates are the same numbers
-    under every formula; the SEs and intervals are each formula's."""
-    views = [block.with_variance(name) for name in block.variances]
+def estimate_points(block: SampleBlock, estimators, variances, N: int, V: int, confidence: float,
+                    layout=None) -> list:
+    """Every estimator under every variance formula in ``variances`` (formulas the design listed), from
+    the block's one draw: Estimates in the order estimator, then formula.  The estimates are the same
+    numbers under every formula; the SEs and intervals are each formula's."""
+    views = [block.with_variance(name) for name in variances]
     return [ESTIMATORS[e](view, N, V, confidence, layout) for e in estimators for view in views]

@@ -95,7 +95,8 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
         probs, ns, costs = [], [], []
         for block, p in enumerate_design(d, frame, chunk):
             with np.errstate(invalid="ignore", divide="ignore"):  # Hajek of an empty sample is NaN
-                outs = estimate_points(block, cell.estimators, frame.N, frame.V, confidence, frame.layout)
+                outs = estimate_points(block, cell.estimators, cell.variances, frame.N, frame.V, confidence,
+                                       frame.layout)
             for point, o in zip(points, outs):
                 for acc, arr in zip(parts[point], (o.estimate, o.se, o.lower, o.upper)):
                     acc.append(arr)

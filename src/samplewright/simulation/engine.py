@@ -88,7 +88,7 @@ def run_block(frame: Frame, cell: Cell, task: BlockTask, confidence: float, cost
         return run_fieldwork_block(frame, cell, task, confidence, cost)
     rng = np.random.default_rng(task.seed)
     sample = cell.design.draw(frame, rng, task.count, keep_units=cost.needs_units(cell.design))
-    outs = estimate_points(sample, cell.estimators, frame.N, frame.V, confidence, frame.layout)
+    outs = estimate_points(sample, cell.estimators, cell.variances, frame.N, frame.V, confidence, frame.layout)
     return BlockResult(
         cell=task.cell, block=task.block, start=task.start,
         estimate=np.stack([o.estimate for o in outs]),
