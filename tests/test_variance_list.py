@@ -241,3 +241,42 @@ def test_the_memory_check_counts_a_row_per_formula():
     check_run_memory(frame, cells, 10**4, 500, memory=need)
     with pytest.raises(InputError, match="replicate table"):
         check_run_memory(frame, cells, 10**4, 500, memory=need - 1)
+
+
+def _formula_cases():
+    from test_design_protocol import CASES
+
+    from samplewright.designs import DESIGN_CLASSES
+
+    return [(m, p) for m, p in CASES if len(DESIGN_CLASSES[m].variances) > 1]
+
+
+@pytest.mark.parametrize("method, params", _formula_cases())
+def test_every_view_of_a_listed_draw_is_the_one_formula_draw(method, params):
+    """For every design offering several formulas: listing all it accepts, the block viewed with each
+    gives bit for bit the estimates, SEs, intervals and df of a design asking for that formula alone."""
+    from test_design_protocol import protocol_frame
+
+    from samplewright.designs import DESIGN_CLASSES
+    from samplewright.errors import InputError
+    from samplewright.estimation.registry import ESTIMATORS
+
+    frame, cls = protocol_frame(), DESIGN_CLASSES[method]
+    usable = []
+    for name in cls.variances:
+        try:
+            cls("one", variance=name, **params).check(frame)
+            usable.append(name)
+        except InputError:
+            continue
+    listed = cls("all", variance=usable, **params)
+    listed.check(frame)
+    block = listed.draw(frame, np.random.default_rng(12), 64)
+    for name in usable:
+        alone = cls("one", variance=name, **params).draw(frame, np.random.default_rng(12), 64)
+        for est in ("ht", "hajek"):
+            a = ESTIMATORS[est](block.with_variance(name), frame.N, frame.V, 0.95)
+            b = ESTIMATORS[est](alone, frame.N, frame.V, 0.95)
+            for k in ("estimate", "se", "lower", "upper", "df"):
+                assert np.array_equal(getattr(a, k), getattr(b, k), equal_nan=True), (name, est, k)
+    assert len(usable) > 1  # the test compares at least two formulas
