@@ -56,11 +56,12 @@ class SampleBlock:
         Sum of the frame's ``cluster_cost`` over the clusters each replicate visits (designs
         that select clusters, on a frame with that column; see ``designs.cluster``).
     psu : (m,) int array or None
-        Two-stage designs only, whose positions are the sampled second-stage units: the
-        cluster slot (0, 1, ..., in order) of each position; ``psu_stratum`` and ``fpc`` then
-        describe the first stage (see ``two_stage_variance``).
+        Two-stage designs, whose positions are the sampled second-stage units: the cluster slot
+        (0, 1, ..., in order) of each position; ``psu_stratum`` and ``fpc`` then describe the
+        first stage (see ``two_stage_variance``).  Also a systematic block seen by the
+        between-start formula: the random start of each unit.
     within_fpc : (B, S) array or None
-        Two-stage designs only: each cluster slot's factor for its within-cluster variance term.
+        With ``psu``: each slot's factor for its within-cluster variance term.
     list_order : (B, m) int array or None
         Where the positions are not in list order and a listed formula needs neighbours along the
         list (successive differences): each replicate's positions in list order.
