@@ -107,7 +107,7 @@ def test_frontier_table_columns_and_p90():
 
 # ------------------------------------------------------------------ recommendation
 def _front(rows):
-    base = {"method": "srs", "estimator": "ht", "variable": "y", "replicates": 1000, "mean_n": 0.0,
+    base = {"method": "srs", "estimator": "ht", "variance": "psu", "variable": "y", "replicates": 1000, "mean_n": 0.0,
             "empirical_se": 1.0, "rmse": 1.0, "mse_mcse": 0.01, "moe_mcse": 0.1, "on_frontier": False}
     out = []
     for r in rows:

@@ -1,6 +1,6 @@
 """The cost-precision frontier of a run, and each design's fitted precision curve.
 
-Every design x size x estimator x variable of the summary is a point (mean cost, margin of
+Every design x size x estimator x variance formula x variable of the summary is a point (mean cost, margin of
 error).  A point is on the frontier when no other point of the same variable is at most as
 dear and at most as imprecise, and strictly better in one of the two (Pareto).
 
@@ -32,12 +32,12 @@ import math
 import numpy as np
 import pandas as pd
 
-from samplewright.evaluation.measures import group_rows, mean_mcse, moe_mcse
+from samplewright.evaluation.measures import POINT_KEYS, group_rows, mean_mcse, moe_mcse
 from samplewright.evaluation.normal import normal_quantile
 
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
-    "empirical_se", "rmse", "mse_mcse", "moe", "moe_mcse", "coverage", "coverage_mcse", "on_frontier",
+    "empirical_se", "rmse", "mse_mcse", "moe", "moe_mcse", "coverage", "coverage_mcse", "on_frontier", "variance",
 ]
 
 
@@ -60,7 +60,7 @@ def cost_quantile(reps: pd.DataFrame, q: float = 0.9) -> pd.DataFrame:
 
 def mse_mcse(reps: pd.DataFrame, summary: pd.DataFrame) -> pd.DataFrame:
     """Monte Carlo SE of each point's MSE, sd((x - T)^2) / sqrt(R) (Morris, White & Crowther 2019, Table 6)."""
-    keys = ["design", "size", "estimator", "variable"]
+    keys = [*POINT_KEYS, "variable"]
     truth = {tuple(k): t for k, t in zip(summary[keys].itertuples(index=False), summary["truth"])}
     x = reps["estimate"].to_numpy()
     rows = []
@@ -90,7 +90,8 @@ def pareto(cost: np.ndarray, loss: np.ndarray) -> np.ndarray:
 
 
 def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float) -> pd.DataFrame:
-    """One row per design x size x estimator x variable with cost, precision and the frontier flag.
+    """One row per design x size x estimator x variance formula x variable with cost, precision and the
+    frontier flag (the formulas of a design share its draws, so their cost and margin are the same).
 
     ``moe`` is z x RMSE at ``confidence`` (the goal's level; the summary uses the run's) and
     ``moe_mcse`` its Monte Carlo SE by the delta method, z x MCSE(MSE) / (2 RMSE).
@@ -99,7 +100,7 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
         return pd.DataFrame(columns=FRONTIER_COLUMNS)
     z = normal_quantile(confidence)
     t = summary.merge(cost_quantile(reps), on=["design", "size"], how="left")
-    t = t.merge(mse_mcse(reps, summary), on=["design", "size", "estimator", "variable"], how="left")
+    t = t.merge(mse_mcse(reps, summary), on=[*POINT_KEYS, "variable"], how="left")
     t["moe"] = z * t["rmse"]
     t["moe_mcse"] = moe_mcse(t["mse_mcse"], t["rmse"], z)
     t["on_frontier"] = False
@@ -184,20 +185,20 @@ def _cost_line(size, cost):
 
 
 def interpolate_goal(front: pd.DataFrame, moe: float | None, budget: float | None, z: float) -> list[dict]:
-    """For every design x estimator with a sweep: the size and cost that would meet ``moe`` exactly,
+    """For every design x estimator x variance formula with a sweep: the size and cost that would meet ``moe`` exactly,
     and the size and margin ``budget`` would buy, from the fitted curves.
 
     Each answer says whether it is "interpolated" (inside the simulated sizes) or "extrapolated".
     Cost between sizes comes from a straight line fitted to mean cost against size.
     """
     out = []
-    for (design, est), g in front.groupby(["design", "estimator"], sort=False):
+    for (design, est, formula), g in front.groupby(["design", "estimator", "variance"], sort=False):
         g = g.sort_values("size")
         curve = fit_curve(g["size"], g["rmse"] ** 2, g["mse_mcse"])
         if curve is None:
             continue
         slope, icept = _cost_line(g["size"], g["mean_cost"])
-        row = {"design": design, "estimator": est, "a": curve["a"], "b": curve["b"],
+        row = {"design": design, "estimator": est, "variance": formula, "a": curve["a"], "b": curve["b"],
                "sizes_fitted": [int(x) for x in g["size"]]}
         if moe is not None:
             n = size_for_moe(curve, moe, z)

@@ -9,13 +9,14 @@ size are part of the protocol, so shared tests can hold every design to them.
 from __future__ import annotations
 
 import copy
+import dataclasses
 from typing import ClassVar
 
 import numpy as np
 
 from samplewright.config.validate import closest
 from samplewright.designs.block import SampleBlock
-from samplewright.errors import InputError
+from samplewright.errors import InputError, show
 from samplewright.population.frame import Frame
 
 
@@ -74,8 +75,17 @@ class Design:
         """Refuse (InputError) parameters this frame cannot support; called once per size."""
 
     def draw(self, frame: Frame, rng: np.random.Generator, B: int, keep_units: bool = False) -> SampleBlock:
-        """Draw ``B`` replicate samples as one :class:`SampleBlock`."""
-        return self._draw(frame, rng, int(B), keep_units)
+        """Draw ``B`` replicate samples as one :class:`SampleBlock` (viewed with the first listed variance
+        formula, and able to be viewed with every other: :meth:`SampleBlock.with_variance`)."""
+        return self.listed(self._draw(frame, rng, int(B), keep_units))
+
+    def listed(self, block: SampleBlock) -> SampleBlock:
+        """``block`` (drawn or enumerated) able to be viewed with every variance formula listed; a design
+        whose formulas need fields of their own sets ``block.variants`` when it builds the block."""
+        names = self.variance_names
+        if block.variants is None and len(names) > 1:
+            return dataclasses.replace(block, variants={name: {} for name in names})
+        return block
 
     def _draw(self, frame, rng, B, keep_units) -> SampleBlock:  # pragma: no cover - abstract
         raise NotImplementedError
@@ -110,16 +120,36 @@ class Design:
         raise InputError(f"design {self.label!r}: exact mode is not available for method {self.method!r}")
 
     @property
+    def variance_names(self) -> tuple[str, ...]:
+        """Every variance formula the design is scored with: its ``variance`` key (a name or a list of
+        names, checked by :meth:`_check_variance`), else the method's default."""
+        v = self._params.get("variance")
+        if v is None:
+            return self.variances[:1]
+        return (v,) if isinstance(v, str) else tuple(v)
+
+    @property
     def variance_name(self) -> str:
-        """The variance estimator this design uses (its ``variance`` key, else the default)."""
-        return self._params.get("variance") or self.variances[0]
+        """The default variance formula: the first listed (``draw`` and anything needing one formula use it)."""
+        return self.variance_names[0]
 
     # ---------------------------------------------------------------- helpers
     def _check_variance(self) -> None:
+        """Refuse a ``variance`` that is not a name, or a non-empty list of distinct names, of this method."""
         v = self._params.get("variance")
-        if v is not None and v not in self.variances:
-            raise InputError(f"design {self.label!r} ({self.method}): variance = {v!r} is not available "
-                             f"for this method{closest(str(v), self.variances)}")
+        if v is None:
+            return
+        names = [v] if isinstance(v, str) else v
+        where = f"design {self.label!r} ({self.method}): variance = {show(v)}"
+        if not isinstance(names, (list, tuple)) or not names or not all(isinstance(x, str) for x in names):
+            raise InputError(f"{where}: write one formula name or a non-empty list of names, "
+                             f"e.g. {show(list(self.variances[:2]))}")
+        if len(set(names)) < len(names):
+            raise InputError(f"{where}: names a formula twice; list each once")
+        for x in names:
+            if x not in self.variances:
+                what = where if isinstance(v, str) else f"{where}: {show(x)}"
+                raise InputError(f"{what} is not available for this method{closest(x, self.variances)}")
 
     def _need(self, frame: Frame, role: str) -> None:
         present = {"cluster": frame.cluster is not None, "size": frame.size is not None}[role]

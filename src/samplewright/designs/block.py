@@ -10,6 +10,7 @@ PSU sum into an estimated PSU total.  One variance routine then serves every des
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -41,7 +42,13 @@ class SampleBlock:
     units : (B, n) int array or None
         The sampled unit indices, kept only when asked for (tests, exact mode).
     variance : str
-        Name of the variance estimator the design asks for (see ``estimation.registry.VARIANCE_FORMULAS``).
+        Name of the variance estimator this view of the block is scored with (see
+        ``estimation.registry.VARIANCE_FORMULAS``); a design draws its block viewed with the first
+        formula it lists.
+    variants : dict or None
+        Every formula the design lists (in its order), each with the fields its view sets
+        (``{name: {field: value}}``; every name sets the same fields): see :meth:`with_variance`.
+        None: the block has the one formula ``variance`` and no per-formula fields.
     design_info : dict or None
         Design constants a variance routine needs beyond the block (for example the
         population sum of squared inclusion probabilities, or exact joint probabilities).
@@ -49,11 +56,15 @@ class SampleBlock:
         Sum of the frame's ``cluster_cost`` over the clusters each replicate visits (designs
         that select clusters, on a frame with that column; see ``designs.cluster``).
     psu : (m,) int array or None
-        Two-stage designs only, whose positions are the sampled second-stage units: the
-        cluster slot (0, 1, ..., in order) of each position; ``psu_stratum`` and ``fpc`` then
-        describe the first stage (see ``two_stage_variance``).
+        Two-stage designs, whose positions are the sampled second-stage units: the cluster slot
+        (0, 1, ..., in order) of each position; ``psu_stratum`` and ``fpc`` then describe the
+        first stage (see ``two_stage_variance``).  Also a systematic block seen by the
+        between-start formula: the random start of each unit.
     within_fpc : (B, S) array or None
-        Two-stage designs only: each cluster slot's factor for its within-cluster variance term.
+        With ``psu``: each slot's factor for its within-cluster variance term.
+    list_order : (B, m) int array or None
+        Where the positions are not in list order and a listed formula needs neighbours along the
+        list (successive differences): each replicate's positions in list order.
     """
 
     sums: np.ndarray
@@ -69,6 +80,8 @@ class SampleBlock:
     cluster_cost: np.ndarray | None = None
     psu: np.ndarray | None = None
     within_fpc: np.ndarray | None = None
+    variants: dict | None = None
+    list_order: np.ndarray | None = None
 
     @property
     def B(self) -> int:
@@ -77,6 +90,24 @@ class SampleBlock:
     @property
     def H(self) -> int:
         return int(self.fpc.shape[-1])
+
+    @property
+    def variances(self) -> tuple[str, ...]:
+        """The variance formulas this block can be scored with, the design's default first."""
+        return (self.variance,) if self.variants is None else tuple(self.variants)
+
+    def with_variance(self, name: str) -> SampleBlock:
+        """The same draw viewed with variance formula ``name`` (one the design listed).
+
+        Only the fields a formula reads beyond the draw change (``variants[name]``: the
+        first-stage correction, within-cluster factors, the PSU grouping); the sums, weights and
+        mask are shared, so every formula's point estimates are the same numbers.
+        """
+        if name == self.variance:
+            return self
+        if name not in self.variances:
+            raise ValueError(f"variance formula {name!r} is not one of this block's {self.variances}")
+        return dataclasses.replace(self, variance=name, **self.variants[name])
 
     def weighted(self, columns: slice | None = None) -> np.ndarray:
         """Estimated PSU totals of every value column (or of ``columns`` only), shape (B, m, K)."""

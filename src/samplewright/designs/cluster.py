@@ -71,7 +71,7 @@ class Cluster(Design):
         m, C = int(self.clusters), frame.C
         B = chosen.shape[0]
         fpc = np.array([1.0 - m / C])
-        common = {"fpc": fpc, "clusters": np.full(B, m, dtype=float), "strata": 0, "variance": self.variance_name,
+        common = {"fpc": fpc, "clusters": np.full(B, m, dtype=float), "strata": 0,
                   "cluster_cost": _cluster_costs(frame, chosen)}
         if units is None:
             kept = None
@@ -79,9 +79,11 @@ class Cluster(Design):
                 kept = [np.concatenate([frame.cluster_units[frame.cluster_offsets[c]:frame.cluster_offsets[c + 1]]
                                         for c in row]) for row in chosen]
             return SampleBlock(sums=frame.cluster_sums[chosen], weight=np.full(m, C / m),
-                               psu_stratum=np.zeros(m, dtype=np.int64), units=kept, **common)
+                               psu_stratum=np.zeros(m, dtype=np.int64), units=kept, variance=self.variance_name,
+                               **common)
         return second_stage_block(frame, units, valid, frame.cluster_sizes[chosen], np.full(m, C / m),
-                                  np.zeros(m, dtype=np.int64), srs=True, keep_units=keep_units, **common)
+                                  np.zeros(m, dtype=np.int64), srs=True, keep_units=keep_units,
+                                  variances=self.variance_names, **common)
 
     @staticmethod
     def _second_stage(frame, rng, chosen, sizes, k):
@@ -172,19 +174,22 @@ def one_unit_note(design, certain: int, k) -> list[str]:
              f"and is left out of the standard errors (draw 2 or more units per cluster)")]
 
 
-def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, srs, keep_units, **fields) -> SampleBlock:
+def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, srs, keep_units, variances,
+                       **fields) -> SampleBlock:
     """A two-stage block laid out unit by unit (see :mod:`samplewright.estimation.two_stage_variance`).
 
     ``units`` (B, S, k) are the second-stage units of S cluster slots (``valid`` marks the
     real ones), ``sizes`` (B, S) the cluster sizes, ``w1`` (S,) or (B, S) the first-stage
     weights (1 for a certainty cluster), ``slot_stratum`` (S,) each slot's design stratum;
     ``srs``: SRS of clusters (else the with-replacement approximation for the first stage).
-    ``fields`` are the block's other fields, among them ``fpc`` (the first-stage correction per
-    stratum) and ``variance``, which also sets each slot's within-cluster factor.
+    ``variances`` are the design's listed formulas, each with its within-cluster factors (the
+    block is viewed with the first; see ``SampleBlock.with_variance``); ``fields`` are the
+    block's other fields, among them ``fpc`` (the first-stage correction per stratum).
     """
     B, S, k = units.shape
     take = valid.sum(axis=2)
     w1 = np.broadcast_to(w1, (B, S))
+    views = {name: {"within_fpc": within_factor(name, 1.0 / w1, take, sizes, srs)} for name in variances}
     return SampleBlock(
         sums=(frame.gather(units) * valid[..., None]).reshape(B, S * k, -1),
         weight=np.repeat(w1 * sizes / take, k, axis=1),
@@ -192,7 +197,9 @@ def second_stage_block(frame, units, valid, sizes, w1, slot_stratum, *, srs, kee
         mask=None if valid.all() else valid.reshape(B, S * k),
         units=np.where(valid, units, -1).reshape(B, -1) if keep_units else None,
         psu=np.repeat(np.arange(S), k),
-        within_fpc=within_factor(fields["variance"], 1.0 / w1, take, sizes, srs),
+        variance=variances[0],
+        variants=views if len(variances) > 1 else None,
+        **views[variances[0]],
         **fields,
     )
 

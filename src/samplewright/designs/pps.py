@@ -94,7 +94,7 @@ class _SizeDesign(Design):
         w = np.concatenate([1.0 / s["pi_free"][chosen], np.ones((B, cert.size))], axis=1)
         stratum = np.concatenate([np.zeros(chosen.shape[1], dtype=np.int64), 1 + np.arange(cert.size)])
         fpc = np.concatenate([[1.0], np.zeros(cert.size)])
-        keep = keep_units or self.variance_name == "sen_yates_grundy"
+        keep = keep_units or "sen_yates_grundy" in self.variance_names
         return units_block(frame, units, w, stratum, fpc, variance=self.variance_name,
                            design_info=self._info(frame), keep_units=keep)
 
@@ -184,7 +184,7 @@ class Sampford(_SizeDesign):
 
     def check(self, frame):
         super().check(frame)
-        if self.variance_name == "sen_yates_grundy":
+        if "sen_yates_grundy" in self.variance_names:
             count = self.count_samples(frame)
             if count > ENUMERATION_LIMIT:
                 s = self.setup(frame)
@@ -245,7 +245,7 @@ class Sampford(_SizeDesign):
 
     def _info(self, frame):
         s = self.setup(frame)
-        if self.variance_name == "sen_yates_grundy" and "pij" not in s["info"]:
+        if "sen_yates_grundy" in self.variance_names and "pij" not in s["info"]:
             index = np.full(frame.N, -1, dtype=np.int64)
             index[s["free"]] = np.arange(s["free"].size)
             s["info"] = {**s["info"], "pij": self.joint_probabilities(frame), "free_index": index}

@@ -218,7 +218,7 @@ class StratifiedCluster(Design):
         B = chosen.shape[0]
         certain = np.array([c for c, _ in s["certain"]], dtype=np.int64)
         common = {"fpc": s["fpc"], "clusters": np.full(B, chosen.shape[1] + certain.size, dtype=float),
-                  "strata": int((s["m_h"] > 0).sum()), "variance": self.variance_name}
+                  "strata": int((s["m_h"] > 0).sum())}
         w1 = 1.0 / s["pi_c"][chosen]
         if k is None:
             every = np.concatenate([chosen, np.broadcast_to(certain, (B, certain.size))], axis=1)
@@ -227,6 +227,7 @@ class StratifiedCluster(Design):
                 weight=np.concatenate([w1, np.ones((B, certain.size))], axis=1),
                 psu_stratum=s["psu_stratum"],
                 units=_whole_clusters(frame, every) if keep_units else None,
+                variance=self.variance_name,
                 **common,
             )
         # certainty clusters' units padded to k positions, after the drawn clusters' slots
@@ -238,7 +239,8 @@ class StratifiedCluster(Design):
         every = np.concatenate([chosen, np.broadcast_to(certain, (B, certain.size))], axis=1)
         return second_stage_block(frame, np.concatenate([units, cu], axis=1), np.concatenate([valid, cv], axis=1),
                                   M[every], np.concatenate([w1, np.ones((B, certain.size))], axis=1),
-                                  s["psu_stratum"], srs=self.selection == "srs", keep_units=keep_units, **common)
+                                  s["psu_stratum"], srs=self.selection == "srs", keep_units=keep_units,
+                                  variances=self.variance_names, **common)
 
     # ------------------------------------------------------------------ exact mode
     def _first_stage(self, frame):

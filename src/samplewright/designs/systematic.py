@@ -39,9 +39,10 @@ class Systematic(Design):
         a stratifying column gives implicit stratification: each group receives its
         proportional share of the sample, within one unit.  The frame must be loaded with the
         column as a sort key (a scenario does this from the designs' ``sort_by``).
-    variance : {"srs", "successive_differences", "between_starts"}
-        ``srs`` (default): the SRS formula (1 - f) s^2 / n, the usual practice, biased when the
-        list order has structure (Cochran 1977, ch. 8).  ``successive_differences``: Wolter's
+    variance : {"srs", "successive_differences", "between_starts"} or a list of them
+        A list scores every formula on the same draws (the first is the default).  ``srs``
+        (default): the SRS formula (1 - f) s^2 / n, the usual practice, biased when the list
+        order has structure (Cochran 1977, ch. 8).  ``successive_differences``: Wolter's
         v3 on the units in list order (see
         :func:`samplewright.estimation.systematic_variance.successive_difference_variance`).
         ``between_starts``: the r start samples are the PSUs (needs starts >= 2).
@@ -87,10 +88,10 @@ class Systematic(Design):
             raise InputError(f"design {self.label!r}: n = {n} is not a multiple of starts = {r} "
                              f"(each of the {r} starts takes n / starts units)")
         self._check_variance()
-        if self.variance_name == "between_starts" and r < 2:
+        if "between_starts" in self.variance_names and r < 2:
             raise InputError(f"design {self.label!r}: variance = 'between_starts' needs starts = 2 or more "
                              f"(got starts = {r})")
-        if self.variance_name == "successive_differences" and n < 2:
+        if "successive_differences" in self.variance_names and n < 2:
             raise InputError(f"design {self.label!r}: variance = 'successive_differences' needs n >= 2")
         if self.sort_by is not None:
             if not isinstance(self.sort_by, str) or not self.sort_by:
@@ -124,31 +125,38 @@ class Systematic(Design):
 
     # ------------------------------------------------------------------ drawing
     def _draw(self, frame, rng, B, keep_units):
-        n, N, r = int(self.n), frame.N, int(self.starts)
         pos = self.positions(frame, rng, B)  # (B, r, m)
+        in_order = self.kind == "linear" and int(self.starts) == 1  # positions already ascend along the list
+        return self._block(frame, pos.reshape(B, -1), keep_units, in_order)
+
+    def _block(self, frame, flat, keep_units, in_order):
+        """The block of list positions ``flat`` (B, n), start after start: each unit a PSU, viewed with
+        every listed variance formula (the draw is the same for all; see ``variants``).
+
+        ``srs`` and ``successive_differences`` take the units as PSUs with the correction 1 - n / N
+        (successive differences put them in list order through ``list_order``); ``between_starts``
+        groups them by start (``psu``, as the clusters of a two-stage block) without a correction.
+        """
+        n, N, r = int(self.n), frame.N, int(self.starts)
+        B = flat.shape[0]
         order = self.list_order(frame)
-        variance = self.variance_name
-        if variance == "between_starts":
-            units = order[pos]  # (B, r, m): each start is one PSU
-            sums = frame.gather(units).sum(axis=2)
-            weight, psu, fpc = np.full(r, N / n), np.zeros(r, dtype=np.int64), np.array([1.0])
-            units = units.reshape(B, n)
-        else:
-            flat = pos.reshape(B, n)
-            if variance == "successive_differences":
-                flat = np.sort(flat, axis=1)  # neighbours in list order
-            units = order[flat] if keep_units else None
-            sums = frame.gather_through(order, flat)  # rows read along the list order
-            weight, psu, fpc = np.full(n, N / n), np.zeros(n, dtype=np.int64), np.array([1.0 - n / N])
+        names = self.variance_names
+        views = {name: {"psu": None, "fpc": np.array([1.0 - n / N]), "within_fpc": None} for name in names}
+        if "between_starts" in views:
+            views["between_starts"] = {"psu": np.repeat(np.arange(r), n // r), "fpc": np.array([1.0]),
+                                       "within_fpc": np.zeros((B, r))}
+        neighbours = "successive_differences" in views and not in_order
         return SampleBlock(
-            sums=sums,
-            weight=weight,
-            psu_stratum=psu,
-            fpc=fpc,
+            sums=frame.gather_through(order, flat),  # rows read along the list order
+            weight=np.full(n, N / n),
+            psu_stratum=np.zeros(n, dtype=np.int64),
             clusters=np.zeros(B),
             strata=0,
-            units=units if keep_units else None,
-            variance=variance,
+            units=order[flat] if keep_units else None,
+            variance=names[0],
+            variants=views if len(names) > 1 else None,
+            list_order=np.argsort(flat, axis=1, kind="stable") if neighbours else None,
+            **views[names[0]],
         )
 
     # ------------------------------------------------------------------ exact mode
@@ -178,16 +186,11 @@ class Systematic(Design):
         self._check_enumerable()
         n, N = int(self.n), frame.N
         k = N / n
-        order = self.list_order(frame)
         mid, prob = self._distinct_starts(frame)
         for a in range(0, mid.size, chunk):
             u = mid[a:a + chunk]
             pos = np.minimum(np.floor(u[:, None] + np.arange(n)[None, :] * k).astype(np.int64), N - 1)
-            units = order[pos]
-            yield SampleBlock(sums=frame.gather(units), weight=np.full(n, N / n),
-                              psu_stratum=np.zeros(n, dtype=np.int64), fpc=np.array([1.0 - n / N]),
-                              clusters=np.zeros(len(u)), strata=0, units=units, variance=self.variance_name), \
-                prob[a:a + chunk]
+            yield self._block(frame, pos, True, in_order=True), prob[a:a + chunk]
 
     # ------------------------------------------------------------------ probabilities
     def inclusion_probabilities(self, frame):

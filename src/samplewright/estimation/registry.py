@@ -5,6 +5,8 @@ variance)`` returning :class:`~samplewright.estimation.intervals.Estimates` and 
 :data:`ESTIMATORS`.  To add a variance formula: a function ``(z (B, m, V), block) -> (B, V)``,
 the estimated variance of a total from the block's PSU values, named in
 :data:`VARIANCE_FORMULAS`; a design asks for it by that name (``SampleBlock.variance``).
+A design may list several formulas: :func:`estimate_points` scores one draw with every
+estimator under every one of them.
 """
 
 from __future__ import annotations
@@ -57,3 +59,12 @@ ESTIMATORS = {name: partial(function, variance=block_variance) for name, functio
     ("greg", auxiliary.greg),
     ("poststrat", auxiliary.poststrat),
 )}
+
+
+def estimate_points(block: SampleBlock, estimators, variances, N: int, V: int, confidence: float,
+                    layout=None) -> list:
+    """Every estimator under every variance formula in ``variances`` (formulas the design listed), from
+    the block's one draw: Estimates in the order estimator, then formula.  The estimates are the same
+    numbers under every formula; the SEs and intervals are each formula's."""
+    views = [block.with_variance(name) for name in variances]
+    return [ESTIMATORS[e](view, N, V, confidence, layout) for e in estimators for view in views]

@@ -15,13 +15,16 @@ Notes
   squared difference estimates twice the local variance, so a smooth trend or a slow
   cycle along the list (which inflates the SRS formula) largely cancels.  With design
   strata the differences are taken within each stratum (consecutive positions of the same
-  stratum) with that stratum's n_h and 1 - f_h.
+  stratum) with that stratum's n_h and 1 - f_h.  Where the block's positions are not in list
+  order (circular or several starts) it carries ``list_order``, and the values are taken in
+  that order first (one-stratum blocks).
 - ``between_starts``: with r independent random starts, each start's sample gives its own
   estimate t_s = r z_s of the total, and ``v = sum_s (t_s - tbar)^2 / (r (r - 1))
   = r / (r - 1) sum_s (z_s - zbar)^2``: the random-group estimator, unbiased when the groups
   are independent replicates of the same design (Wolter 2007, ch. 2, sec. 2.2; from
   memory).  It is the shared between-PSU routine with the starts as PSUs and no finite
-  population correction (the starts are drawn independently).
+  population correction (the starts are drawn independently): the block groups its units by
+  start as a two-stage block groups them by cluster (``psu``), and only that first stage counts.
 
 Examples
 --------
@@ -40,7 +43,7 @@ from __future__ import annotations
 import numpy as np
 
 from samplewright.designs.block import SampleBlock
-from samplewright.estimation.variance import stratified_psu_variance
+from samplewright.estimation.two_stage_variance import first_stage_variance
 
 
 def successive_difference_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
@@ -51,6 +54,10 @@ def successive_difference_variance(z: np.ndarray, block: SampleBlock) -> np.ndar
     H = block.H
     if m < 2:
         return np.zeros((B, V))
+    if block.list_order is not None:
+        if H > 1:
+            raise ValueError("successive differences take a list order only in a one-stratum block")
+        z = np.take_along_axis(z, block.list_order[..., None], axis=1)
     strat = block.psu_stratum
     d = np.diff(z, axis=1)  # (B, m - 1, V)
     d2 = d * d
@@ -68,4 +75,4 @@ def successive_difference_variance(z: np.ndarray, block: SampleBlock) -> np.ndar
 
 def between_start_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     """Random-group (between-start) variance of the estimated total; see module notes."""
-    return stratified_psu_variance(z, block)
+    return first_stage_variance(z, block)

@@ -88,14 +88,22 @@ def _within(block: SampleBlock) -> SampleBlock:
     return dataclasses.replace(block, psu_stratum=block.psu, fpc=block.within_fpc, psu=None, within_fpc=None)
 
 
+def first_stage_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
+    """The between-PSU variance of the estimated total from the PSUs' totals (the first stage alone).
+    A block without ``psu`` has its positions as PSUs."""
+    if block.psu is None:
+        return stratified_psu_variance(z, block)
+    Z, first = _first_stage(z, block)
+    return stratified_psu_variance(Z, first)
+
+
 def two_stage_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     """Two-stage variance of the estimated total (``two_stage`` or ``ultimate_cluster``, by the
     block's ``within_fpc``); see module notes.  A one-stage block (no ``psu``) has no second
     stage: the clusters are its PSUs and the between-PSU routine is the whole estimator."""
     if block.psu is None:
         return stratified_psu_variance(z, block)
-    Z, first = _first_stage(z, block)
-    return stratified_psu_variance(Z, first) + stratified_psu_variance(z, _within(block))
+    return first_stage_variance(z, block) + stratified_psu_variance(z, _within(block))
 
 
 def degrees_of_freedom(block: SampleBlock) -> np.ndarray:

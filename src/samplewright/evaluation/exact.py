@@ -27,7 +27,7 @@ import pandas as pd
 
 from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
-from samplewright.estimation.registry import ESTIMATORS
+from samplewright.estimation.registry import estimate_points
 from samplewright.evaluation.measures import (
     SUMMARY_COLUMNS,
     design_effect,
@@ -46,8 +46,10 @@ def count_samples(design, frame) -> tuple[int, str]:
 
 
 def enumerate_design(design, frame, chunk: int = 20_000):
-    """Yield ``(SampleBlock, probabilities)`` over every possible sample of ``design``."""
-    return design.enumerate(frame, chunk)
+    """Yield ``(SampleBlock, probabilities)`` over every possible sample of ``design`` (each block able to be
+    viewed with every variance formula the design lists, as a drawn block is)."""
+    for block, p in design.enumerate(frame, chunk):
+        yield design.listed(block), p
 
 
 def _big(count: int) -> str:
@@ -74,10 +76,11 @@ def check_counts(frame, cells, limit: int = LIMIT) -> dict:
 
 # ------------------------------------------------------------------ evaluation
 def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, limit: int = LIMIT):
-    """Exact summary (one row per design x size x estimator x variable) and the per-sample table.
+    """Exact summary (one row per design x size x estimator x variance formula x variable) and the
+    per-sample table.
 
     Returns ``(summary, samples, counts)``: ``summary`` has the columns of
-    ``measures.SUMMARY_COLUMNS`` plus ``exact``; ``samples`` has the replicate-table
+    ``measures.SUMMARY_COLUMNS`` plus ``exact`` and ``variance``; ``samples`` has the replicate-table
     columns (one "replicate" per possible sample) plus its ``probability``; ``counts``
     maps "label@size" to the number of samples.
     """
@@ -87,13 +90,15 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     rows, tables, by_label = [], [], {}
     for cell in cells:
         d = cell.design
-        parts = {e: ([], [], [], []) for e in cell.estimators}
+        points = cell.points  # (estimator, variance formula), as engine.run_block scores them
+        parts = {point: ([], [], [], []) for point in points}
         probs, ns, costs = [], [], []
         for block, p in enumerate_design(d, frame, chunk):
-            for e in cell.estimators:
-                with np.errstate(invalid="ignore", divide="ignore"):  # Hajek of an empty sample is NaN
-                    o = ESTIMATORS[e](block, frame.N, frame.V, confidence, frame.layout)  # as engine.run_block
-                for acc, arr in zip(parts[e], (o.estimate, o.se, o.lower, o.upper)):
+            with np.errstate(invalid="ignore", divide="ignore"):  # Hajek of an empty sample is NaN
+                outs = estimate_points(block, cell.estimators, cell.variances, frame.N, frame.V, confidence,
+                                       frame.layout)
+            for point, o in zip(points, outs):
+                for acc, arr in zip(parts[point], (o.estimate, o.se, o.lower, o.upper)):
                     acc.append(arr)
             probs.append(np.asarray(p, dtype=float))
             ns.append(sample_units(block))
@@ -106,19 +111,19 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
             raise RuntimeError(f"design {d.label!r}: sample probabilities sum to {total_p!r}, not 1")
         by_label[f"{d.label}@{d.size}"] = len(p)
         mean_n = float(p @ n)
-        for e in cell.estimators:
-            est, se, lo, hi = (np.concatenate(a, axis=0) for a in parts[e])
+        for (e, formula), arrays in parts.items():
+            est, se, lo, hi = (np.concatenate(a, axis=0) for a in arrays)
             for v, var in enumerate(names):
                 m = measures(est[:, v], se[:, v], lo[:, v], hi[:, v], float(truth[v]), z, p)
                 deff = design_effect(m["empirical_se"], srs_variance(mean_n, frame.N, S2[v]),
                                      max(abs(m["truth"]), abs(m["mean_estimate"])))
                 rows.append({"design": d.label, "method": d.method, "size": int(d.size), "estimator": e,
                              "variable": var, "replicates": len(p), **m, "deff": deff,
-                             "mean_n": mean_n, "mean_cost": float(p @ c), "exact": True})
+                             "mean_n": mean_n, "mean_cost": float(p @ c), "exact": True, "variance": formula})
                 tables.append(pd.DataFrame({
                     "replicate": np.arange(len(p)), "design": d.label, "size": int(d.size), "estimator": e,
                     "variable": var, "estimate": est[:, v], "se": se[:, v], "lower": lo[:, v], "upper": hi[:, v],
-                    "n": n, "cost": c, "probability": p}))
-    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["exact"])
+                    "n": n, "cost": c, "variance": formula, "probability": p}))
+    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["exact", "variance"])
     samples = pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
     return summary, samples, by_label

@@ -45,6 +45,9 @@ SUMMARY_COLUMNS = [
     "bias_mcse", "relative_bias", "empirical_se", "empirical_se_mcse", "rmse", "mean_se", "se_ratio", "deff",
     "coverage", "coverage_mcse", "mean_ci_width", "moe", "mean_n", "mean_cost",
 ]
+#: the columns naming a point of the rehearsal: a design at a size, with an estimator, analysed with a
+#: variance formula (each formula of a design is scored on the same draws)
+POINT_KEYS = ["design", "size", "estimator", "variance"]
 
 
 #: relative rounding slack of :func:`holds` (a zero-width census interval is its estimate, rounded)
@@ -209,7 +212,8 @@ def group_rows(reps: pd.DataFrame, keys: list[str]) -> list[tuple[tuple, np.ndar
 
 
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
-    """One summary row per design x size x estimator x variable (contract columns, in order)."""
+    """One summary row per design x size x estimator x variance formula x variable (contract columns, in
+    order, then ``variance``; fieldwork columns go before it)."""
     z = normal_quantile(confidence)
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
@@ -219,7 +223,7 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
     # group by row positions and slice the numeric columns once: no per-group DataFrame copies,
     # so evaluating a long run needs little memory beyond the replicate table itself
     col = {k: reps[k].to_numpy() for k in ("estimate", "se", "lower", "upper", "n", "cost")}
-    for (design, size, est, var), idx in group_rows(reps, ["design", "size", "estimator", "variable"]):
+    for (design, size, est, formula, var), idx in group_rows(reps, [*POINT_KEYS, "variable"]):
         if var in domain_vars:  # a replicate that met no unit of the domain has no estimate: not counted
             idx = idx[np.isfinite(col["estimate"][idx])]
             if len(idx) == 0:
@@ -231,5 +235,5 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
                              max(abs(m["truth"]), abs(m["mean_estimate"])))
         rows.append({"design": design, "method": methods.get(design, ""), "size": int(size), "estimator": est,
                      "variable": var, **m, "deff": deff, "mean_n": mean_n,
-                     "mean_cost": float(col["cost"][idx].mean())})
-    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
+                     "mean_cost": float(col["cost"][idx].mean()), "variance": formula})
+    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["variance"])

@@ -32,13 +32,15 @@ SUMMARY_EXTRA = [
 
 
 def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup) -> pd.DataFrame:
-    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) appended."""
+    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) after the contract columns, before
+    ``variance`` (which stays last)."""
     names = list(setup.frame.layout.names)
     truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
     extra = []
-    groups = {k: g for k, g in reps.groupby(["design", "size", "estimator", "variable"], sort=False)}
+    keys = [*measures.POINT_KEYS, "variable"]
+    groups = {k: g for k, g in reps.groupby(keys, sort=False)}
     for _, row in summary.iterrows():
-        g = groups[(row["design"], row["size"], row["estimator"], row["variable"])]
+        g = groups[tuple(row[k] for k in keys)]
         T = float(truth[row["variable"]])
         x, xf = g["estimate"].to_numpy(), g["full_estimate"].to_numpy()
         census = float(setup.census[(row["design"], row["estimator"])][names.index(row["variable"])])
@@ -65,4 +67,6 @@ def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup
             "nonresponse_bias_mcse": measures.mean_mcse(d),
             "adjustment_failures": int(g["adjustment_failed"].sum()),
         })
-    return pd.concat([summary.reset_index(drop=True), pd.DataFrame(extra, columns=SUMMARY_EXTRA)], axis=1)
+    summary = summary.reset_index(drop=True)
+    return pd.concat([summary.drop(columns="variance"), pd.DataFrame(extra, columns=SUMMARY_EXTRA),
+                      summary["variance"]], axis=1)

@@ -15,7 +15,7 @@ from samplewright.report import write_report
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
 
 #: columns of each CSV file the report reads: (required, of which numeric)
-TEXT_KEYS = ("design", "method", "estimator", "variable")
+TEXT_KEYS = ("design", "method", "estimator", "variable", "variance")
 CSV_COLUMNS = {
     "summary.csv": (SUMMARY_COLUMNS, [c for c in SUMMARY_COLUMNS if c not in TEXT_KEYS]),
     "allocation.csv": (ALLOCATION_COLUMNS, ["size", "population_units", "sample_units"]),
@@ -97,9 +97,19 @@ def _read_csv(path: Path) -> pd.DataFrame:
         if not (pd.api.types.is_numeric_dtype(df[c]) or df[c].isna().all()):
             raise InputError(f"{path}: column {c!r} holds text where numbers belong; the file is damaged")
     keys = [c for c in ("design", "size", "estimator", "variable") if c in need]
+    keys += ["variance"] if keys and "variance" in df.columns else []
     if keys and df[keys].isna().any(axis=None):
         raise InputError(f"{path}: a row has a blank {', '.join(keys)}; the file is truncated or damaged")
     return df
+
+
+def _with_variance(table: pd.DataFrame, info: dict) -> pd.DataFrame:
+    """A table of a run written before designs listed variance formulas gains its ``variance`` column:
+    each design had one formula then, the one run.json names for it."""
+    if "variance" in table.columns or not len(table):
+        return table
+    named = {d.get("label"): d.get("variance") for d in info.get("designs") or []}
+    return table.assign(variance=table["design"].map(named))
 
 
 def read_run(folder) -> RunResult:
@@ -153,6 +163,7 @@ def read_run(folder) -> RunResult:
                 "upper",
                 "n",
                 "cost",
+                "variance",
             ]
         )
     alloc_path = p / "allocation.csv"
@@ -161,11 +172,11 @@ def read_run(folder) -> RunResult:
     rec = _read_json(p / "recommendation.json") if (p / "recommendation.json").exists() else None
     order = _read_csv(p / "frame_order.csv") if (p / "frame_order.csv").exists() else None
     return RunResult(
-        summary=summary,
-        replicates=replicates,
+        summary=_with_variance(summary, info),
+        replicates=_with_variance(replicates, info),
         allocation=allocation,
         info=info,
-        frontier=frontier,
+        frontier=None if frontier is None else _with_variance(frontier, info),
         recommendation=rec,
         warnings=list(info.get("warnings") or []),
         frame_order=order,

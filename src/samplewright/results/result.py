@@ -19,9 +19,10 @@ class RunResult:
     Attributes
     ----------
     summary : DataFrame
-        One row per design x size x estimator x variable (see ``evaluate.SUMMARY_COLUMNS``).
+        One row per design x size x estimator x variance formula x variable (see
+        ``evaluation.measures.SUMMARY_COLUMNS``; the formula is the last column, ``variance``).
     replicates : DataFrame
-        Every replicate's estimate, SE, interval, sample size and cost.
+        Every replicate's estimate, SE, interval, sample size and cost, under each variance formula.
     allocation : DataFrame
         Units per stratum for designs with an allocation.
     info : dict

@@ -5,14 +5,15 @@ the SHA-256 of its label, and the size index) and block index, written under a t
 name and renamed into place by the parent process as soon as the block arrives: a crash or
 Ctrl-C keeps every finished block and never leaves a half-written one.  Each file holds the
 SHA-256 of its arrays.  ``manifest.json`` beside them records what the blocks were drawn from
-(scenario hash, frame content hash, seed, block size, replicate count, stopping rule);
-``samplewright run --resume DIR`` reads it back, refuses a mismatch or a manifest value of
-the wrong type, and runs only the blocks that are missing.  A block file that cannot be
-read, belongs elsewhere, has arrays of the wrong shape or fails its checksum is drawn again
-(with a warning).  Since each block's numbers depend only on its seed
-(see :mod:`samplewright.simulation.engine`), the resumed run gives the same numbers as an
-uninterrupted one.  Once a run's tables are written the command removes the folder
-(:func:`remove`) unless asked to keep it, and run.json records which (``blocks_kept``).
+(scenario hash, frame content hash, seed, block size, replicate count, stopping rule) and the
+format of the block files (:data:`BLOCK_FORMAT`); ``samplewright run --resume DIR`` reads it
+back, refuses a mismatch, a manifest value of the wrong type or a folder of another block
+format, and runs only the blocks that are missing.  A block file that cannot be read, belongs
+elsewhere, has arrays of the wrong shape or fails its checksum is drawn again (with a warning).
+Since each block's numbers depend only on its seed (see :mod:`samplewright.simulation.engine`),
+the resumed run gives the same numbers as an uninterrupted one.  Once a run's tables are
+written the command removes the folder (:func:`remove`) unless asked to keep it, and run.json
+records which (``blocks_kept``).
 """
 
 from __future__ import annotations
@@ -31,11 +32,14 @@ from samplewright.simulation.blocks import BlockResult
 
 FOLDER = "blocks"
 MANIFEST = "manifest.json"
+#: the format of the block files: 2 since each block holds every variance formula of its design (a
+#: ``variances`` tag and one row per estimator x formula); a folder of another format is not resumed
+BLOCK_FORMAT = 2
 #: run.json key: whether a finished run kept its blocks folder (``--keep-blocks``)
 KEPT = "blocks_kept"
 _NAME = re.compile(r"^c([0-9a-f]{64})-s(\d+)-b(\d+)\.npz$")
 _TAGS = ("cell", "block", "start")  # BlockResult fields that are not per-replicate arrays
-_PER_ESTIMATOR = ("estimate", "se", "lower", "upper")  # (E, B, V) arrays (also with a full_ prefix)
+_PER_ESTIMATOR = ("estimate", "se", "lower", "upper")  # (points, B, V) arrays (also with a full_ prefix)
 #: manifest keys that must agree between the saved run and the resumed one
 CHECKED = ("scenario_hash", "frame_hash", "seed", "block_size", "replicates", "confidence", "until",
            "max_replicates", "cells")
@@ -105,6 +109,7 @@ class BlockStore:
         folder = Path(out) / FOLDER
         folder.mkdir(parents=True, exist_ok=True)
         _clear(folder)  # a forced rerun starts from nothing
+        manifest = {**manifest, "block_format": BLOCK_FORMAT}
         write_json(manifest, folder / MANIFEST)
         return cls(folder, manifest)
 
@@ -132,6 +137,11 @@ class BlockStore:
             if not (ok(v) or (nullable and v is None)):
                 raise InputError(f"--resume {str(out)!r}: {FOLDER}/{MANIFEST} key {key!r} must be {what}, "
                                  f"got {'nothing' if key not in manifest else _short(v)}")
+        if manifest.get("block_format", 1) != BLOCK_FORMAT:
+            raise InputError(f"--resume {str(out)!r}: its blocks were saved in block format "
+                             f"{_short(manifest.get('block_format', 1))} (this samplewright keeps format "
+                             f"{BLOCK_FORMAT}, with each block's variance formulas), so they cannot be resumed; "
+                             f"start a new run with another --out (or --force)")
         return cls(folder, manifest)
 
     def check(self, manifest: dict, out) -> None:
@@ -167,6 +177,7 @@ class BlockStore:
         path = self.folder / block_name(cell, result.block)
         content = {"block": result.block, "start": result.start, "label": cell.design.label,
                    "size_index": cell.size_index, "estimators": np.array(cell.estimators),
+                   "variances": np.array(cell.variances),
                    **{f"r_{k}": v for k, v in _payload(result).items()}}
         content = {k: np.asarray(v) for k, v in content.items()}
 
@@ -181,8 +192,8 @@ class BlockStore:
 
         None when the file is absent, and also (with a warning through ``self.warn``) when it
         cannot be read (truncated, damaged), fails its checksum, or is not the block asked for:
-        another design, block or estimator list, or arrays of another shape than ``count``
-        replicates of ``width`` variables.  The block is then drawn again.
+        another design, block, estimator list or variance list, or arrays of another shape than
+        ``count`` replicates of ``width`` variables for each estimator x formula.  The block is then drawn again.
         """
         path = self.folder / block_name(cell, block)
         if not path.is_file():  # absent (a FIFO or a loop in its place is not read either)
@@ -245,16 +256,16 @@ def _mismatch(content: dict, cell, block: int, start: int, count: int, width: in
         return "fails its checksum (it was altered or damaged)"
     try:
         tags = (str(content["label"]), int(content["block"]), int(content["start"]),
-                tuple(content["estimators"].tolist()))
+                tuple(content["estimators"].tolist()), tuple(content["variances"].tolist()))
     except (KeyError, TypeError, ValueError):
         return "lacks the tags of a block"
-    if tags != (cell.design.label, block, start, tuple(cell.estimators)):
-        return "belongs to another design, block or estimator list"
+    if tags != (cell.design.label, block, start, tuple(cell.estimators), tuple(cell.variances)):
+        return "belongs to another design, block, estimator list or variance list"
     names = {k[2:] for k in content if k.startswith("r_")}
     allowed = {f.name for f in fields(BlockResult)} - set(_TAGS)
     if not {"n", "cost", *_PER_ESTIMATOR} <= names <= allowed:
         return "does not hold the arrays of a block"
-    E = len(cell.estimators)
+    E = len(cell.points)
     for k in sorted(names):
         a = content["r_" + k]
         shape = (E, count, width) if k.removeprefix("full_") in _PER_ESTIMATOR else (count,)

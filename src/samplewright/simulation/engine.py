@@ -28,7 +28,7 @@ from samplewright.designs import Design
 from samplewright.errors import InputError
 from samplewright.estimation.cost import CostModel
 from samplewright.estimation.estimators import sample_units
-from samplewright.estimation.registry import ESTIMATORS
+from samplewright.estimation.registry import estimate_points
 from samplewright.population.frame import Frame
 from samplewright.simulation.blocks import BlockResult, BlockTask, replicate_columns
 from samplewright.simulation.fieldwork import Fieldwork, run_fieldwork_block
@@ -48,6 +48,16 @@ class Cell:
     @property
     def key(self) -> tuple[int, ...]:
         return stream_key(self.design.label)
+
+    @property
+    def variances(self) -> tuple[str, ...]:
+        """The variance formulas the design lists: each estimator is scored under each, on the same draws."""
+        return self.design.variance_names
+
+    @property
+    def points(self) -> list[tuple[str, str]]:
+        """(estimator, variance formula) of each row of a block's per-estimator arrays, in their order."""
+        return [(e, v) for e in self.estimators for v in self.variances]
 
 
 def stream_key(label: str) -> tuple[int, ...]:
@@ -72,12 +82,13 @@ def block_spans(replicates: int, block_size: int) -> list[tuple[int, int, int]]:
 
 
 def run_block(frame: Frame, cell: Cell, task: BlockTask, confidence: float, cost: CostModel) -> BlockResult:
-    """Draw one block of replicates and estimate with every estimator of the cell."""
+    """Draw one block of replicates and estimate with every estimator of the cell under every variance
+    formula of its design (``cell.points``), all from the one draw."""
     if cell.fieldwork is not None:  # the cell's block runner: with fieldwork, or plain
         return run_fieldwork_block(frame, cell, task, confidence, cost)
     rng = np.random.default_rng(task.seed)
     sample = cell.design.draw(frame, rng, task.count, keep_units=cost.needs_units(cell.design))
-    outs = [ESTIMATORS[e](sample, frame.N, frame.V, confidence, frame.layout) for e in cell.estimators]
+    outs = estimate_points(sample, cell.estimators, cell.variances, frame.N, frame.V, confidence, frame.layout)
     return BlockResult(
         cell=task.cell, block=task.block, start=task.start,
         estimate=np.stack([o.estimate for o in outs]),
@@ -402,7 +413,8 @@ def _dask_client(scheduler: str | None):
 
 
 def replicate_table(results: list[BlockResult], cells: list[Cell], variables, consume: bool = False) -> pd.DataFrame:
-    """Tidy per-replicate table (contract columns), ordered by design, size, estimator, variable, replicate.
+    """Tidy per-replicate table (contract columns, then ``variance``), ordered by design, size, estimator,
+    variance formula, variable, replicate.
 
     Each column is allocated once at its final length and filled block by block.  With
     ``consume``, ``results`` is emptied and each cell's blocks are released as soon as they
@@ -441,12 +453,15 @@ def replicate_table(results: list[BlockResult], cells: list[Cell], variables, co
         extras.append(replicate_columns(mine, E, V))  # fieldwork columns, when the run has them
         del mine
     lengths = [E * V * R for _, _, E, R, _ in plan]
+    none = [np.array([], dtype=object)]
     text = {
         "design": np.repeat(np.array([c.design.label for _, c, _, _, _ in plan], dtype=object), lengths),
-        "estimator": np.concatenate([np.repeat(np.array(c.estimators, dtype=object), V * R)
-                                     for _, c, E, R, _ in plan] or [np.array([], dtype=object)]),
+        "estimator": np.concatenate([np.repeat(np.array([e for e, _ in c.points], dtype=object), V * R)
+                                     for _, c, E, R, _ in plan] or none),
+        "variance": np.concatenate([np.repeat(np.array([v for _, v in c.points], dtype=object), V * R)
+                                    for _, c, E, R, _ in plan] or none),
         "variable": np.concatenate([np.tile(np.repeat(np.array(variables, dtype=object), R), E)
-                                    for _, c, E, R, _ in plan] or [np.array([], dtype=object)]),
+                                    for _, c, E, R, _ in plan] or none),
     }
     size = np.repeat(np.array([int(c.design.size) for _, c, _, _, _ in plan], dtype=np.int64), lengths)
     columns = {"replicate": num.pop("replicate")}
@@ -455,6 +470,7 @@ def replicate_table(results: list[BlockResult], cells: list[Cell], variables, co
     columns["estimator"] = pd.Series(text.pop("estimator"))
     columns["variable"] = pd.Series(text.pop("variable"))
     columns.update(num)
+    columns["variance"] = pd.Series(text.pop("variance"))
     table = pd.DataFrame(columns, copy=False)
     if any(extras):
         keys = list(extras[0])

@@ -26,7 +26,7 @@ import pandas as pd
 
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.registry import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS, estimate_points
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
 from samplewright.population.frame import Frame
@@ -127,8 +127,8 @@ def _rebuilt(sample: SampleBlock, u: np.ndarray, count: np.ndarray) -> SampleBlo
     return dataclasses.replace(sample, sums=sums, units=None)
 
 
-def _estimate(block, frame, estimators, confidence):
-    outs = [ESTIMATORS[e](block, frame.N, frame.V, confidence, frame.layout) for e in estimators]
+def _estimate(block, frame, cell, confidence):
+    outs = estimate_points(block, cell.estimators, cell.variances, frame.N, frame.V, confidence, frame.layout)
     return [np.stack([getattr(o, k) for o in outs]) for k in ("estimate", "se", "lower", "upper")]
 
 
@@ -170,8 +170,8 @@ def run_fieldwork_block(frame: Frame, cell, task: BlockTask, confidence: float, 
     rng = np.random.default_rng(task.seed)
     sample = cell.design.draw(frame, rng, task.count, keep_units=True)
     real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, task.seed)
-    est, se, lo, hi = _estimate(real, frame, cell.estimators, confidence)
-    fest, fse, flo, fhi = _estimate(full, frame, cell.estimators, confidence)
+    est, se, lo, hi = _estimate(real, frame, cell, confidence)
+    fest, fse, flo, fhi = _estimate(full, frame, cell, confidence)
     return BlockResult(
         cell=task.cell, block=task.block, start=task.start, estimate=est, se=se, lower=lo, upper=hi,
         n=completed, cost=cost.replicate_cost(sample, frame, completed=completed),

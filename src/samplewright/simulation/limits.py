@@ -3,9 +3,9 @@
 Two amounts are compared with the machine's physical memory (``os.sysconf``; where the
 platform does not say, a documented cap of 64 GiB):
 
-- the replicate table: one row per design x size x estimator x variable x replicate, about
-  :data:`ROW_BYTES` each at the run's peak (the table's 11 columns, the block results it is
-  built from, the summaries), plus :data:`BLOCK_BYTES` of bookkeeping per block;
+- the replicate table: one row per design x size x estimator x variance formula x variable x
+  replicate, about :data:`ROW_BYTES` each at the run's peak (the table's 12 columns, the block
+  results it is built from, the summaries), plus :data:`BLOCK_BYTES` of bookkeeping per block;
 - the blocks being drawn: block_size x selections per sample x 8 (K + 3) bytes for a block,
   K the frame's value columns (the selected unit indices, the gathered rows, weights and
   random numbers, 8 bytes each), for each worker drawing a block at the same time.
@@ -49,7 +49,7 @@ def check_run_memory(frame, cells, replicates: int, block_size: int, jobs: int =
     """
     memory = physical_memory() if memory is None else memory
     V = len(frame.layout.names)
-    per_rep = sum(len(c.estimators) for c in cells) * V
+    per_rep = sum(len(c.points) for c in cells) * V
     rows = per_rep * replicates
     blocks = len(cells) * -(-max(replicates, max_replicates or 0) // block_size)
     need = rows * ROW_BYTES + blocks * BLOCK_BYTES
@@ -57,8 +57,8 @@ def check_run_memory(frame, cells, replicates: int, block_size: int, jobs: int =
         cap = f" (blocks up to --max-replicates {max_replicates:,})" if max_replicates else ""
         raise InputError(
             f"replicates = {replicates:,}{cap}: the replicate table ({rows:,} rows, one per design x size x "
-            f"estimator x variable x replicate, and {blocks:,} blocks) would need about {gib(need)}, "
-            f"more than this machine's {gib(memory)} of memory; lower replicates or --max-replicates")
+            f"estimator x variance formula x variable x replicate, and {blocks:,} blocks) would need about "
+            f"{gib(need)}, more than this machine's {gib(memory)} of memory; lower replicates or --max-replicates")
     per_sel = 8 * (frame.values.shape[1] + 3)
     for c in cells:
         sel = c.design.expected_n(frame)

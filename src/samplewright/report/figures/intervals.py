@@ -101,11 +101,11 @@ def interval_plot(
     axes = fig.subplots(nrow, ncol, sharey=True, squeeze=False)
     colours = design_colours(design_order(summary))
     sel = replicates[replicates["variable"] == var]
-    groups = {key: g for key, g in sel.groupby(["design", "size", "estimator"], sort=False)}
+    groups = {key: g for key, g in sel.groupby(["design", "size", "estimator", "variance"], sort=False)}
     truth = float(rows["truth"].iloc[0])
     for i, r in enumerate(rows.itertuples(index=False)):
         ax = axes[i // ncol][i % ncol]
-        g = groups.get((r.design, r.size, r.estimator))
+        g = groups.get((r.design, r.size, r.estimator, r.variance))
         label = plain(cell_label(r.design, r.method, r.size, getattr(r, "mean_n", None)))
         title = f"{label}\nhold the truth: {100 * r.coverage:.1f}%"
         if g is not None and len(g):

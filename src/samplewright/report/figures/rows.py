@@ -38,15 +38,17 @@ def cell_label(design: str, method: str, size, mean_n=None) -> str:
 def primary_rows(
     summary: pd.DataFrame, variable=None, max_rows: int = MAX_ROWS, keep: dict | None = None
 ) -> pd.DataFrame:
-    """The summary rows a one-estimator figure shows: each design's first estimator, one variable.
+    """The summary rows a one-estimator figure shows: each design's first estimator under its first
+    variance formula (the same draws as the others), one variable.
 
     With more than ``max_rows`` design x size cells, only one size per design is kept: the
     size named in ``keep`` (e.g. the recommended one) or else the design's largest.
     """
     var = variable_of(summary, variable)
     s = summary[summary["variable"] == var]
-    first = s.groupby("design", sort=False)["estimator"].first()
-    s = s[s["estimator"].to_numpy() == s["design"].map(first).to_numpy()]
+    for key in ("estimator", "variance"):
+        first = s.groupby("design", sort=False)[key].first()
+        s = s[s[key].to_numpy() == s["design"].map(first).to_numpy()]
     return limit_sizes(s, max_rows, keep)
 
 
@@ -86,15 +88,21 @@ def row_labels(rows: pd.DataFrame, with_estimator: bool) -> list[str]:
 def cell_positions(rows: pd.DataFrame):
     """Design x size cells (one axis row each) and, per summary row, its y position.
 
-    Several estimators of one cell share its row, side by side vertically.
+    Several estimators (and variance formulas) of one cell share its row, side by side vertically.
     """
     cells = rows.drop_duplicates(["design", "size"]).reset_index(drop=True)
     k = len(cells)
     where = {(d, s): k - 1 - i for i, (d, s) in enumerate(zip(cells["design"], cells["size"]))}
-    ests = list(dict.fromkeys(rows["estimator"]))
-    step = 0.22 if len(ests) > 1 else 0.0
-    off = {e: ((len(ests) - 1) / 2.0 - j) * step for j, e in enumerate(ests)}
-    y = [where[(d, s)] + off[e] for d, s, e in zip(rows["design"], rows["size"], rows["estimator"])]
+    points = list(zip(zip(rows["design"], rows["size"]), zip(rows["estimator"], rows["variance"])))
+    series: dict[tuple, list] = {}  # per cell, its (estimator, variance formula) pairs in order
+    for c, p in points:
+        if p not in series.setdefault(c, []):
+            series[c].append(p)
+    y = []
+    for c, p in points:
+        k = len(series[c])
+        step = min(0.22, 0.66 / max(k - 1, 1))  # 0.22 apart, within two thirds of the row
+        y.append(where[c] + ((k - 1) / 2.0 - series[c].index(p)) * step)
     return cells, np.asarray(y, float)
 
 

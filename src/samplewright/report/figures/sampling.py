@@ -66,7 +66,7 @@ def _design_panel(ax, design: str, rows: pd.DataFrame, groups: dict, truth: floa
     ax.set_ylim(-0.6, len(rows) - 0.4)
     ax.grid(axis="y", visible=False)
     for yi, r in zip(y, rows.itertuples(index=False)):
-        g = groups.get((r.design, r.size, r.estimator))
+        g = groups.get((r.design, r.size, r.estimator, r.variance))
         if g is None:
             continue
         x, w = g["estimate"].to_numpy(float), sample_weights(g)
@@ -109,7 +109,7 @@ def sampling_distribution(
     axes = fig.subplots(len(designs), 1, squeeze=False, height_ratios=[PANEL_EXTRA + ROW_HEIGHT * k for k in sizes])
     colours = design_colours(design_order(summary))
     sel = replicates[replicates["variable"] == var]
-    groups = {k: g for k, g in sel.groupby(["design", "size", "estimator"], sort=False)}
+    groups = {k: g for k, g in sel.groupby(["design", "size", "estimator", "variance"], sort=False)}
     truth = float(rows["truth"].iloc[0])
     for ax, d in zip(axes[:, 0], designs):
         _design_panel(ax, d, rows[rows["design"] == d], groups, truth, colours[d])

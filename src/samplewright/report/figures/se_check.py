@@ -35,7 +35,7 @@ def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = N
     ax = axes_or_new(ax, 4.2)
     designs = [d for d in design_order(summary) if d in set(rows["design"])]
     colours, markers = design_colours(design_order(summary)), marker_map(rows)
-    for (d, e), g in rows.groupby(["design", "estimator"], sort=False):
+    for (d, e, _), g in rows.groupby(["design", "estimator", "variance"], sort=False):
         g = g.sort_values("size")
         if len(g) > 1:
             ax.plot(g["empirical_se"], g["mean_se"], color=colours[d], linewidth=0.8, alpha=0.6)
