@@ -347,7 +347,8 @@ def _frame_info(frame: Frame) -> dict:
 
 
 def _designs_info(scenario: Scenario) -> list[dict]:
-    return [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name}
+    return [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name,
+             "variances": list(d.variance_names)}
             for d in scenario.designs]
 
 
