@@ -89,6 +89,10 @@ def simulate_and_write(scenario, args) -> int:
         raise
     if not exact and not args.keep_blocks:  # every table is written: nothing is left to resume
         checkpoint.remove(out)
+        if res.stress is not None:  # each assumption point's blocks too
+            from samplewright.simulation.stress import remove_point_blocks
+
+            remove_point_blocks(out)
     failures = list(res.late_failures)
     page = None
     if not getattr(args, "no_report", False):
