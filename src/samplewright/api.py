@@ -300,12 +300,12 @@ class _Heard(logging.Handler):
 @contextmanager
 def _held(into: list):
     """While a point runs, its warnings are kept in ``into`` and nothing else of its log is shown."""
-    saved = logger.handlers[:]
-    logger.handlers[:] = [_Heard(into)]
+    saved, propagate = logger.handlers[:], logger.propagate
+    logger.handlers[:], logger.propagate = [_Heard(into)], False
     try:
         yield
     finally:
-        logger.handlers[:] = saved
+        logger.handlers[:], logger.propagate = saved, propagate
 
 
 def _resumed(options: RunOptions):

@@ -73,9 +73,14 @@ def stress_points(scenario: Scenario) -> list[StressPoint]:
             _single(scenario, a, v)
     points = []
     for i, values in enumerate(spec.points(), start=1):
-        what = "assumption point " + ", ".join(f"{show(k)} = {show(v)}" for k, v in values.items())
-        points.append(StressPoint(i, values, _build(scenario, point_document(scenario.raw, spec, values), what)))
+        doc = point_document(scenario.raw, spec, values)
+        points.append(StressPoint(i, values, _build(scenario, doc, _naming(values))))
     return points
+
+
+def _naming(values: dict) -> str:
+    """How a refusal names a point: ``assumption point 'icc' = 0.2, 'rate' = 0.7``."""
+    return "assumption point " + ", ".join(f"{show(k)} = {show(v)}" for k, v in values.items())
 
 
 def point_folder(out, point: StressPoint) -> Path:
@@ -142,4 +147,4 @@ def check_plans(points: list[StressPoint], options, frame) -> None:
         try:
             build_plan(p.scenario, options, frame=frame)
         except InputError as exc:
-            raise InputError(f"assumption point {p.describe()} is refused: {exc}") from None
+            raise InputError(f"{_naming(p.values)} is refused: {exc}") from None

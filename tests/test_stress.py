@@ -1,0 +1,176 @@
+"""Stress runs: [[assumption]] points, common random numbers, break-even values, refusals, determinism."""
+
+from __future__ import annotations
+
+import copy
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from samplewright import run, scenario_from_dict
+from samplewright.cli.main import main
+from samplewright.config.synthetic import SyntheticSpec
+from samplewright.evaluation.measures import mean_mcse
+from samplewright.population.synth import generate
+from samplewright.results.load import read_run
+
+# one-stage cluster sampling against SRS at equal cost on a synthetic clustered frame: 20,000 units in
+# 2,000 clusters of exactly m = 10; the cluster design takes k = 20 whole clusters (200 units), SRS n = 50
+# units; at 10 per unit and 50 per cluster visited (an SRS unit visits its own cluster) both cost about 3,000
+N, M, m, k, n = 20_000, 2_000, 10, 20, 50
+ICC = [0.2, 0.29, 0.38, 0.47]
+
+
+def cluster_doc(values=ICC, replicates=4000, seed=11) -> dict:
+    return {
+        "seed": seed, "replicates": replicates,
+        "frame": {"synthetic": {"units": N, "seed": 4, "clusters": {"mean_size": m, "icc": 0.3, "size_cv": 0.0}}},
+        "design": [{"label": "srs", "method": "srs", "n": n, "estimators": ["ht"]},
+                   {"label": "clusters", "method": "cluster", "clusters": k, "estimators": ["ht"]}],
+        "cost": {"per_unit": 10, "per_cluster": 50, "charge_touched_clusters": True},
+        "goal": {"budget": 4000},
+        "assumption": [{"name": "icc", "set": "frame.synthetic.clusters.icc", "values": list(values)}],
+    }
+
+
+def _roh(icc: float) -> float:
+    """The frame's own intra-cluster correlation in Kish's sense: m S_b^2 / S^2 = 1 + (m - 1) roh, with S_b^2 the
+    variance of the cluster means and S^2 the unit variance (both divisor count - 1; Kish 1965, sec. 5.4)."""
+    df = generate(SyntheticSpec(units=N, seed=4, clusters={"mean_size": m, "icc": icc, "size_cv": 0.0}))
+    S2 = df["y"].var(ddof=1)
+    Sb2 = df.groupby("cluster")["y"].mean().var(ddof=1)
+    return (m * Sb2 / S2 - 1) / (m - 1)
+
+
+def test_break_even_matches_kish_closed_form():
+    # Closed form.  SRS of n units without replacement: V_srs = (1 - n/N) S^2 / n (Cochran 1977, eq. 2.8).
+    # SRS of k of the M equal clusters, every unit taken: V_clu = (1 - k/M) S_b^2 / k (Cochran 1977, sec. 9.2),
+    # which with Kish's design effect is (1 - k/M) S^2 / (k m) [1 + (m - 1) roh] (Kish 1965, sec. 5.4).
+    # Both designs are unbiased, so each margin is z sqrt(V) and within the budget the smaller margin is
+    # picked: the cluster design wins while V_clu < V_srs, i.e. up to
+    #     roh* = [ (1 - n/N) k m / ((1 - k/M) n) - 1 ] / (m - 1)   (S^2 cancels).
+    # The assumption varies the generator's icc; the frame's own roh at each icc is computed exactly from the
+    # frame, and the icc where roh = roh* read off linearly between the two bracketing values.
+    roh_star = ((1 - n / N) * k * m / ((1 - k / M) * n) - 1) / (m - 1)
+    rohs = [_roh(x) for x in ICC]
+    icc_star = float(np.interp(roh_star, rohs, ICC))
+    res = run(scenario_from_dict(cluster_doc()))
+    be = res.break_even
+    assert len(be) == 1, be
+    row = be.iloc[0]
+    assert (row["from_value"], row["to_value"]) == (0.29, 0.38)
+    assert row["pick_before"].startswith("clusters") and row["pick_after"].startswith("srs")
+    assert row["method"].startswith("linear interpolation")
+    assert row["break_even_se"] > 0
+    # within 4 of its stated standard errors of the closed form (a z-bound on the Monte Carlo error)
+    assert abs(row["break_even"] - icc_star) <= 4 * row["break_even_se"], (row["break_even"], icc_star)
+    assert math.isclose(row["low"], row["break_even"] - 2 * row["break_even_se"])
+    # the verdict at each point agrees with the closed form away from the break-even
+    picks = res.stress_verdict.set_index("icc")["design"]
+    assert picks[0.2] == "clusters" and picks[0.47] == "srs"
+
+
+def test_common_random_numbers_shrink_the_mcse_of_a_difference():
+    # every point runs with the run's seed: its numbers are those of a plain run of the point's scenario
+    res = run(scenario_from_dict(cluster_doc(values=[0.29, 0.38], replicates=2000)))
+    reps = {}
+    for x, seed in ((0.29, 11), (0.38, 11), (0.38, 12)):
+        doc = cluster_doc(values=[x], replicates=2000, seed=seed)
+        doc["frame"]["synthetic"]["clusters"]["icc"] = x
+        del doc["assumption"]
+        point = run(scenario_from_dict(doc))
+        r = point.replicates
+        reps[(x, seed)] = r[r["design"] == "srs"].sort_values("replicate")
+        if seed == 11:
+            got = res.stress[(res.stress["icc"] == x)].set_index("design")["rmse"]
+            want = point.summary.set_index("design")["rmse"]
+            assert got.equals(want.loc[got.index])
+    # the MCSE of the mean difference in squared error between the points (Morris, White and Crowther 2019,
+    # Table 6: sd of the paired differences / sqrt(R)): paired by common random numbers, against the same
+    # difference with the second point drawn from another seed (independent streams)
+    truth = {x: generate(SyntheticSpec(units=N, seed=4, clusters={"mean_size": m, "icc": x, "size_cv": 0.0}))["y"]
+             .mean() for x in (0.29, 0.38)}
+    sq = {key: ((t["estimate"].to_numpy() - truth[key[0]]) ** 2) for key, t in reps.items()}
+    paired = mean_mcse(sq[(0.38, 11)] - sq[(0.29, 11)])
+    independent = mean_mcse(sq[(0.38, 12)] - sq[(0.29, 11)])
+    assert paired < 0.5 * independent, (paired, independent)
+
+
+def test_jobs_do_not_change_a_stress_run():
+    doc = cluster_doc(values=[0.1, 0.5], replicates=300)
+    doc["block_size"] = 100
+    one = run(scenario_from_dict(doc), jobs=1)
+    two = run(scenario_from_dict(doc), jobs=2)
+    for name in ("stress", "stress_verdict", "break_even"):
+        pd.testing.assert_frame_equal(getattr(one, name), getattr(two, name))
+
+
+def test_one_at_a_time_and_grid_points():
+    doc = cluster_doc(values=[0.1, 0.5], replicates=100)
+    doc["assumption"].append({"name": "budget", "set": "goal.budget", "values": [2000, 3500]})
+    res = run(scenario_from_dict(doc))
+    v = res.stress_verdict
+    # one at a time: each assumption over its values, the other at the scenario's own value
+    assert v[["icc", "budget"]].values.tolist() == [[0.1, 4000], [0.5, 4000], [0.3, 2000], [0.3, 3500]]
+    assert v["design"].isna().tolist() == [False, False, True, False]  # nothing fits a budget of 2000
+    doc["stress"] = {"mode": "grid"}
+    grid = run(scenario_from_dict(doc)).stress_verdict
+    assert grid[["icc", "budget"]].values.tolist() == [[0.1, 2000], [0.1, 3500], [0.5, 2000], [0.5, 3500]]
+
+
+def test_stress_files_are_read_back(tmp_path):
+    res = run(scenario_from_dict(cluster_doc(values=[0.1, 0.6], replicates=200)))
+    back = read_run(res.write(tmp_path / "out"))
+    for name in ("stress", "stress_verdict", "break_even"):
+        # a column of None (no three-state evidence yet) reads back as blanks
+        pd.testing.assert_frame_equal(getattr(back, name), getattr(res, name).fillna(np.nan), check_dtype=False)
+    assert len(back.break_even) == 1
+
+
+def _inline(v) -> str:
+    """A value as inline TOML (strings in JSON quotes, valid TOML basic strings)."""
+    if isinstance(v, dict):
+        return "{" + ", ".join(f"{k} = {_inline(x)}" for k, x in v.items()) + "}"
+    if isinstance(v, list):
+        return "[" + ", ".join(_inline(x) for x in v) + "]"
+    return json.dumps(v)
+
+
+def _refused(tmp_path, capsys, doc: dict) -> str:
+    path = tmp_path / "s.toml"
+    path.write_text("".join(f"{k} = {_inline(v)}\n" for k, v in doc.items()))
+    out = tmp_path / "out"
+    code = main(["run", str(path), "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1 and err[0].startswith("error:"), err
+    assert not out.exists()  # refused before anything ran or was written
+    return err[0]
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda d: d["assumption"][0].update(set="frame.synthetic.clusters.rho"), ["'icc'", "'rho'", "not a key"]),
+    (lambda d: d["assumption"][0].update(values=[0.1, 1.5]), ["'icc'", "1.5", "icc"]),
+    (lambda d: d["assumption"][0].update(set="replicates"), ["'icc'", "run setting"]),
+    (lambda d: d["assumption"][0].update(values=[0.1, "high"]), ["'icc'", "'high'"]),
+    (lambda d: d.update(stress={"max_points": 3}), ["4 points", "max_points = 3"]),
+    (lambda d: d["assumption"].append({"name": "k", "set": "design.1.clusters", "values": [20, 3000]}),
+     ["'k'", "3000", "clusters"]),  # refused once the frame is bound: 3000 of its 2000 clusters
+])
+def test_refusals(tmp_path, capsys, change, words):
+    doc = copy.deepcopy(cluster_doc(replicates=50))
+    change(doc)
+    line = _refused(tmp_path, capsys, doc)
+    for w in words:
+        assert w in line, line
+
+
+def test_user_frame_refuses_frame_keys(tmp_path, capsys):
+    pd.DataFrame({"y": np.arange(50.0)}).to_csv(tmp_path / "f.csv", index=False)
+    doc = {"frame": {"path": str(tmp_path / "f.csv"), "target": "y"},
+           "design": [{"label": "s", "method": "srs", "n": 5}],
+           "assumption": [{"name": "target", "set": "frame.target", "values": [1]}]}
+    line = _refused(tmp_path, capsys, doc)
+    assert "'target'" in line and "frame's values" in line
