@@ -59,7 +59,9 @@ def headline(rec: dict | None) -> str | None:
         return None
     if "pick" in rec:
         return rec["pick"]
-    return "cheapest_meeting_moe" if rec["goal"].get("moe") is not None else "best_within_budget"
+    g = rec["goal"]
+    margin = g.get("moe") is not None or g.get("relative_moe") is not None
+    return "cheapest_meeting_moe" if margin else "best_within_budget"
 
 
 @dataclass
@@ -180,7 +182,13 @@ def _cost(o: PointOutcome, key: tuple) -> _Term:
 
 
 def _goal(o: PointOutcome, what: str) -> _Term:
-    return _Term(float(o.recommendation["goal"][what]), None)
+    """The goal's margin or budget at a point (a relative margin is a fraction of the variable's true mean)."""
+    g = o.recommendation["goal"]
+    if what == "moe" and g.get("moe") is None and g.get("relative_moe") is not None:
+        s = o.summary
+        truth = s.loc[s["variable"] == g["variable"], "truth"].iloc[0]
+        return _Term(float(g["relative_moe"]) * abs(float(truth)), None)
+    return _Term(float(g[what]), None)
 
 
 def _difference(a: _Term, b: _Term) -> _Term:
@@ -199,7 +207,7 @@ def _criterion(rule: str, o1: PointOutcome, o2: PointOutcome, p1: dict, p2: dict
     rank = _cost if margin_rule else _margin
 
     def qualifies(o, p):
-        return quality(o, _key(p, o)).value <= o.recommendation["goal"][limit]
+        return quality(o, _key(p, o)).value <= _goal(o, limit).value
 
     if qualifies(o2, p1) and qualifies(o1, p2):
         name = "cost" if margin_rule else "margin"
