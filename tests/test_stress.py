@@ -140,8 +140,7 @@ def _inline(v) -> str:
 
 
 def _refused(tmp_path, capsys, doc: dict) -> str:
-    path = tmp_path / "s.toml"
-    path.write_text("".join(f"{k} = {_inline(v)}\n" for k, v in doc.items()))
+    path = _scenario_file(tmp_path, doc)
     out = tmp_path / "out"
     code = main(["run", str(path), "--out", str(out), "--quiet"])
     err = capsys.readouterr().err.strip().splitlines()
@@ -174,3 +173,43 @@ def test_user_frame_refuses_frame_keys(tmp_path, capsys):
            "assumption": [{"name": "target", "set": "frame.target", "values": [1]}]}
     line = _refused(tmp_path, capsys, doc)
     assert "'target'" in line and "frame's values" in line
+
+
+def _scenario_file(tmp_path, doc: dict):
+    path = tmp_path / "s.toml"
+    path.write_text("".join(f"{k} = {_inline(v)}\n" for k, v in doc.items()))
+    return path
+
+
+def test_cli_keeps_resumes_and_removes_point_blocks(tmp_path, capsys):
+    doc = cluster_doc(values=[0.1, 0.6], replicates=300)
+    doc["block_size"] = 100
+    path, out = _scenario_file(tmp_path, doc), tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out), "--quiet", "--no-report", "--keep-blocks"]) == 0
+    first = pd.read_csv(out / "stress.csv")
+    assert not (out / "report.html").exists()
+    blocks = out / "stress" / "point_002" / "blocks"
+    assert (blocks / "manifest.json").is_file()
+    # a point's lost blocks are drawn again on --resume, the others read back: the same numbers
+    for f in sorted(blocks.glob("*.npz"))[:2]:
+        f.unlink()
+    assert main(["run", "--resume", str(out), "--quiet", "--no-report"]) == 0, capsys.readouterr().err
+    pd.testing.assert_frame_equal(pd.read_csv(out / "stress.csv"), first)
+    assert not (out / "stress").exists()  # every table written: the points' blocks are removed
+    assert main(["run", str(path), "--out", str(tmp_path / "o2"), "--force"]) == 0
+    printed = capsys.readouterr().out
+    assert "what would change the pick: clusters, size 20, ht stays the pick while icc is below" in printed
+    assert "What would change the pick" in (tmp_path / "o2" / "report.html").read_text()
+    assert (tmp_path / "o2" / "figures" / "stress_lines.png").is_file()
+
+
+@pytest.mark.slow
+def test_dask_gives_the_local_stress_numbers():
+    distributed = pytest.importorskip("distributed")
+    sc = scenario_from_dict({**cluster_doc(values=[0.1, 0.6], replicates=300), "block_size": 100})
+    local = run(sc)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        remote = run(sc, backend="dask", scheduler=cluster.scheduler_address)
+    for name in ("stress", "stress_verdict", "break_even"):
+        pd.testing.assert_frame_equal(getattr(local, name), getattr(remote, name))

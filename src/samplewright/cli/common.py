@@ -111,6 +111,10 @@ def simulate_and_write(scenario, args) -> int:
             print(format_report(st["cells"], Rule(st["targets"], st["max_replicates"], st["until"])))
         if res.recommendation is not None:  # the plain-language pick (recommend.py)
             print("\nrecommendation: " + res.recommendation["statement"] + "\n")
+        if res.stress is not None:  # what would change the pick (report/stress.py)
+            from samplewright.report.stress import stress_context
+
+            print("what would change the pick: " + " ".join(stress_context(res)["lead"]) + "\n")
         print(f"results written to {out}")
         if page is not None:
             print(f"report: {page.resolve()}")
