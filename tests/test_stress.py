@@ -45,7 +45,8 @@ def _roh(icc: float) -> float:
     return (m * Sb2 / S2 - 1) / (m - 1)
 
 
-def test_break_even_matches_kish_closed_form():
+@pytest.mark.parametrize("replicates", [2500, 8000])  # the same answer as evidence grows
+def test_break_even_matches_kish_closed_form(replicates):
     # Closed form.  SRS of n units without replacement: V_srs = (1 - n/N) S^2 / n (Cochran 1977, eq. 2.8).
     # SRS of k of the M equal clusters, every unit taken: V_clu = (1 - k/M) S_b^2 / k (Cochran 1977, sec. 9.2),
     # which with Kish's design effect is (1 - k/M) S^2 / (k m) [1 + (m - 1) roh] (Kish 1965, sec. 5.4).
@@ -57,7 +58,7 @@ def test_break_even_matches_kish_closed_form():
     roh_star = ((1 - n / N) * k * m / ((1 - k / M) * n) - 1) / (m - 1)
     rohs = [_roh(x) for x in ICC]
     icc_star = float(np.interp(roh_star, rohs, ICC))
-    res = run(scenario_from_dict(cluster_doc()))
+    res = run(scenario_from_dict(cluster_doc(replicates=replicates)))
     be = res.break_even
     assert len(be) == 1, be
     row = be.iloc[0]
@@ -116,9 +117,15 @@ def test_one_at_a_time_and_grid_points():
     # one at a time: each assumption over its values, the other at the scenario's own value
     assert v[["icc", "budget"]].values.tolist() == [[0.1, 4000], [0.5, 4000], [0.3, 2000], [0.3, 3500]]
     assert v["design"].isna().tolist() == [False, False, True, False]  # nothing fits a budget of 2000
+    assert "stress_lines" in res.figure_names() and "stress_tiles" not in res.figure_names()
     doc["stress"] = {"mode": "grid"}
-    grid = run(scenario_from_dict(doc)).stress_verdict
+    res = run(scenario_from_dict(doc))
+    grid = res.stress_verdict
     assert grid[["icc", "budget"]].values.tolist() == [[0.1, 2000], [0.1, 3500], [0.5, 2000], [0.5, 3500]]
+    # two assumptions on a grid: a tile map of the winner, one tile per point
+    assert "stress_tiles" in res.figure_names() and "stress_lines" not in res.figure_names()
+    ax = res.figure("stress_tiles").axes[0]
+    assert ax.images[0].get_array().shape == (2, 2)
 
 
 def test_stress_files_are_read_back(tmp_path):

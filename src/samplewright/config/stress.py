@@ -36,9 +36,9 @@ RUN_SETTINGS = ("seed", "replicates", "block_size", "frame.synthetic.seed")
 STRESS_COLUMNS = ["point", "design", "method", "size", "estimator", "variable", "replicates", "truth",
                   "mean_estimate", "bias", "bias_mcse", "empirical_se", "empirical_se_mcse", "rmse", "moe",
                   "moe_mcse", "coverage", "coverage_mcse", "mean_n", "mean_cost"]
-VERDICT_COLUMNS = ["point", "pick", "design", "method", "size", "estimator", "variable", "mean_n", "mean_cost",
-                   "moe", "moe_mcse", "coverage", "coverage_mcse", "evidence_coverage", "evidence_margin",
-                   "evidence_cost", "pick_stability"]
+VERDICT_COLUMNS = ["point", "pick", "goal_moe", "goal_budget", "design", "method", "size", "estimator", "variable",
+                   "mean_n", "mean_cost", "moe", "moe_mcse", "coverage", "coverage_mcse", "evidence_coverage",
+                   "evidence_margin", "evidence_cost", "pick_stability"]
 BREAK_EVEN_COLUMNS = ["assumption", "from_value", "to_value", "pick_before", "pick_after", "criterion",
                       "break_even", "break_even_se", "low", "high", "method"]
 #: names an assumption may not take: they would collide with a column of those tables

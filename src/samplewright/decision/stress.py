@@ -59,9 +59,11 @@ def headline(rec: dict | None) -> str | None:
         return None
     if "pick" in rec:
         return rec["pick"]
-    g = rec["goal"]
-    margin = g.get("moe") is not None or g.get("relative_moe") is not None
-    return "cheapest_meeting_moe" if margin else "best_within_budget"
+    return "cheapest_meeting_moe" if _has_margin(rec["goal"]) else "best_within_budget"
+
+
+def _has_margin(goal: dict) -> bool:
+    return goal.get("moe") is not None or goal.get("relative_moe") is not None
 
 
 @dataclass
@@ -131,7 +133,10 @@ def verdict_table(outcomes: list[PointOutcome], names: list[str]) -> pd.DataFram
         p, rec = o.pick or {}, o.recommendation or {}
         evidence = p.get("evidence") or {}
         row = {"point": o.index, **{n: o.values[n] for n in names}, "pick": headline(o.recommendation)}
-        row.update({k: p.get(k) for k in VERDICT_COLUMNS[2:-4]})
+        if rec:  # the goal at this point (a relative margin as its value for the variable's true mean)
+            row["goal_moe"] = _goal(o, "moe").value if _has_margin(rec["goal"]) else None
+            row["goal_budget"] = rec["goal"].get("budget")
+        row.update({k: p.get(k) for k in VERDICT_COLUMNS[4:-4]})
         if "variance" in p:
             row["variance"] = p["variance"]
         row.update({f"evidence_{k}": evidence.get(k) for k in ("coverage", "margin", "cost")})

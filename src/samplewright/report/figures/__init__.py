@@ -284,15 +284,15 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "stress_lines",
         "What would change the pick: one assumption at a time",
         "Each design's margin of error (left) and mean cost (right) as one assumption moves, the others at the "
-        "scenario's own values; a ring marks the design picked at each value, dashed lines the goal. Where the "
+        "scenario's own values, at the size the goal asks of it (the number above a point; a gap where no size "
+        "qualifies); a ring marks the design picked at each value, dashed lines the goal. Where the "
         "pick changes, the dotted line is the interpolated break-even value and the grey band its interval "
         "(+-2 standard errors; the bracketing values when the change cannot be interpolated). Every value "
         "reuses the same random samples, so the lines' differences are the assumption's effect, not noise.",
         False,
         _stress_lines,
         lambda res, var, keep: stress_lines_plot(res.stress, res.stress_verdict, res.break_even,
-                                                 stress_of(res)["assumptions"], _goal_variable(res),
-                                                 goals_of(res)),
+                                                 stress_of(res)["assumptions"], _goal_variable(res)),
     ),
     FigureSpec(
         "stress_tiles",

@@ -37,53 +37,59 @@ def line_rows(table: pd.DataFrame, name: str, assumptions: list[dict]) -> pd.Dat
                              for t in rows[keys].itertuples(index=False)])
 
 
-def _series(rows: pd.DataFrame, picks: pd.DataFrame) -> list[tuple]:
-    every = list(dict.fromkeys(rows["_key"]))
-    picked = set(picks["_key"].dropna())
-    return ([k for k in every if k in picked] + [k for k in every if k not in picked])[:MAX_SERIES]
-
-
-def _label(key: tuple, many: bool) -> str:
-    return plain(key[0] if not many else f"{key[0]} ({key[1]}, {', '.join(map(str, key[2:]))})")
+def design_best(rows: pd.DataFrame, picks: pd.DataFrame, name: str) -> pd.DataFrame:
+    """Per design and value of ``name``: the size (and estimator) the pick's rule would take from that design
+    alone -- the cheapest meeting the goal's margin, or the most precise within the budget (coverage aside);
+    without a goal, the most precise.  A design with nothing qualifying at a value has no row there."""
+    rules = picks.drop_duplicates(subset=[name]).set_index(name)
+    out = []
+    for (_, x), g in rows.groupby(["design", name], sort=False):
+        rule = rules.loc[x] if x in rules.index else None
+        if rule is not None and rule["pick"] == "cheapest_meeting_moe":
+            g = g[g["moe"] <= rule["goal_moe"]].sort_values(["mean_cost", "mean_n", "moe"], kind="stable")
+        elif rule is not None and rule["pick"] == "best_within_budget":
+            g = g[g["mean_cost"] <= rule["goal_budget"]].sort_values(["moe", "mean_cost"], kind="stable")
+        else:
+            g = g.sort_values(["moe", "mean_cost"], kind="stable")
+        if len(g):
+            out.append(g.iloc[0])
+    return pd.DataFrame(out, columns=rows.columns)
 
 
 @styled
 def stress_lines_plot(stress: pd.DataFrame, verdict: pd.DataFrame, break_even: pd.DataFrame | None,
-                      assumptions: list[dict], variable=None, goal: dict | None = None, fig=None):
+                      assumptions: list[dict], variable=None, fig=None):
     """One row per assumption: each design's margin of error (left) and mean cost (right) against the assumption,
-    the other assumptions at the scenario's own values; a ring marks the pick at each value, a dotted line and
-    band the break-even value and its interval (x -+ 2 SE) where the pick changes.
+    the other assumptions at the scenario's own values, at the size the pick's rule would take from the design
+    (:func:`design_best`; the number above a point); a ring marks the pick at each value, dashed lines the goal,
+    a dotted line and grey band the break-even value and its interval (x -+ 2 SE) where the pick changes.
 
-    ``assumptions``: run.json's ``stress.assumptions`` ({"name", "base", ...}); ``goal``: its ``moe`` and
-    ``budget`` are drawn as dashed lines.
+    ``assumptions``: run.json's ``stress.assumptions`` ({"name", "base", ...}).
     """
     var = variable if variable is not None else stress["variable"].iloc[0]
-    fig = fig if fig is not None else new_figure(0.6 + 2.6 * len(assumptions))
+    fig = fig if fig is not None else new_figure(0.8 + 2.6 * len(assumptions))
     axes = fig.subplots(len(assumptions), 2, squeeze=False)
-    colours = design_colours(list(dict.fromkeys(stress["design"])))
-    goal = goal or {}
+    designs = list(dict.fromkeys(stress["design"]))
+    colours = design_colours(designs)
     for (ax_m, ax_c), a in zip(axes, assumptions):
         name = a["name"]
         rows = line_rows(stress[stress["variable"] == var], name, assumptions)
         picks = line_rows(verdict, name, assumptions)
-        series = _series(rows, picks)
-        many = len(series) > len({k[0] for k in series})
-        styles: dict[str, int] = {}
-        picked = set(zip(picks[name], picks["_key"]))
-        for key in series:
-            r = rows[rows["_key"] == key]
-            chosen = r[[(x, key) in picked for x in r[name]]]
-            style = LINESTYLES[styles.get(key[0], 0) % len(LINESTYLES)]
-            styles[key[0]] = styles.get(key[0], 0) + 1
+        best = design_best(rows, picks, name)
+        for design in designs:
+            r = best[best["design"] == design].set_index(name).reindex(picks[name])  # a gap where none qualifies
+            sizes = rows.loc[rows["design"] == design, "size"].nunique() > 1
             for ax, col in ((ax_m, "moe"), (ax_c, "mean_cost")):
-                ax.plot(r[name], r[col], style, marker="o", markersize=3.5, color=colours[key[0]],
-                        label=_label(key, many))
-                ax.plot(chosen[name], chosen[col], "o", markersize=10, markerfacecolor="none",
-                        markeredgecolor="black", markeredgewidth=1.2)
-        if goal.get("moe") is not None:
-            ax_m.axhline(goal["moe"], color="black", linestyle="--", linewidth=0.9)
-        if goal.get("budget") is not None:
-            ax_c.axhline(goal["budget"], color="black", linestyle="--", linewidth=0.9)
+                ax.plot(r.index, r[col], "-", marker="o", markersize=3.5, color=colours[design], label=plain(design))
+                for x, y, size in zip(r.index, r[col], r["size"]) if sizes else ():
+                    if np.isfinite(y):  # the size each value asks of the design
+                        ax.annotate(f"{size:g}", (x, y), textcoords="offset points", xytext=(0, 5), fontsize=6.5,
+                                    ha="center", color=colours[design])
+        for ax, col, limit in ((ax_m, "moe", "goal_moe"), (ax_c, "mean_cost", "goal_budget")):
+            ax.plot(picks[name], picks[col], "o", markersize=10, markerfacecolor="none", markeredgecolor="black",
+                    markeredgewidth=1.2)
+            if picks[limit].notna().any():
+                ax.plot(picks[name], picks[limit], "--", color="black", linewidth=0.9)
         changes = [] if break_even is None else at_base(break_even[break_even["assumption"] == name], name,
                                                          assumptions)
         for b in changes.itertuples(index=False) if len(changes) else ():
@@ -98,6 +104,6 @@ def stress_lines_plot(stress: pd.DataFrame, verdict: pd.DataFrame, break_even: p
         ax_m.set_title(f"If {plain(name)} were different", loc="left")
     handles, labels = axes[0][0].get_legend_handles_labels()
     ring = axes[0][0].plot([], [], "o", markersize=10, markerfacecolor="none", markeredgecolor="black")[0]
-    fig.legend(handles + [ring], labels + ["the pick"], loc="outside lower center", ncols=min(4, len(labels) + 1),
+    fig.legend(handles + [ring], labels + ["the pick"], loc="outside lower center", ncols=min(3, len(labels) + 1),
                frameon=False)
     return fig
