@@ -220,3 +220,18 @@ def test_dask_gives_the_local_stress_numbers():
         remote = run(sc, backend="dask", scheduler=cluster.scheduler_address)
     for name in ("stress", "stress_verdict", "break_even"):
         pd.testing.assert_frame_equal(getattr(local, name), getattr(remote, name))
+
+
+def test_progress_counts_assumption_points():
+    import io
+
+    from samplewright.simulation.stress import PointProgress, stress_points
+
+    points = stress_points(scenario_from_dict(cluster_doc(values=[0.1, 0.6], replicates=10)))
+    stream = io.StringIO()
+    bar = PointProgress(points, enabled=True, stream=stream)
+    bar.point_done(points[0])
+    assert "assumption points 1/2" in stream.getvalue() and "icc = 0.1" in stream.getvalue()
+    bar.point_done(points[1])
+    bar.close()
+    assert stream.getvalue().rstrip().endswith("2 assumption point(s) done in 0s")

@@ -54,10 +54,11 @@ def point_keys(table: pd.DataFrame) -> list[str]:
 
 
 def headline(rec: dict | None) -> str | None:
-    """The recommendation's headline pick key (its ``pick`` when given, else by the goal: margin first)."""
+    """The recommendation's headline pick key (its ``pick`` when given, else by the goal: margin first; so also
+    when nothing qualifies)."""
     if rec is None:
         return None
-    if "pick" in rec:
+    if rec.get("pick"):
         return rec["pick"]
     return "cheapest_meeting_moe" if _has_margin(rec["goal"]) else "best_within_budget"
 

@@ -152,7 +152,10 @@ def _draw_order(res, var, keep):
 def stress_of(res) -> dict:
     """run.json's account of a stress run ({} without one): mode, points and the assumptions with their own values."""
     info = (res.info or {}).get("stress")
-    ok = isinstance(info, dict) and getattr(res, "stress", None) is not None and len(res.stress) > 0
+    ok = (isinstance(info, dict) and getattr(res, "stress", None) is not None and len(res.stress) > 0
+          and getattr(res, "stress_verdict", None) is not None and isinstance(info.get("points"), int)
+          and isinstance(info.get("mode"), str) and isinstance(info.get("assumptions"), list)
+          and all(isinstance(a, dict) and {"name", "set", "values", "base"} <= set(a) for a in info["assumptions"]))
     return info if ok else {}
 
 
