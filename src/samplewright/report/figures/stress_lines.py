@@ -7,15 +7,6 @@ import pandas as pd
 
 from samplewright.report.figures.style import design_colours, new_figure, plain, styled
 
-#: most series drawn per panel (the picked points first): more lines cannot be told apart
-MAX_SERIES = 8
-LINESTYLES = ("-", "--", ":", "-.")
-
-
-def key_columns(table: pd.DataFrame) -> list[str]:
-    """design, size, estimator and, when the run has it, variance."""
-    return ["design", "size", "estimator"] + (["variance"] if "variance" in table.columns else [])
-
 
 def at_base(table: pd.DataFrame, name: str, assumptions: list[dict]) -> pd.DataFrame:
     """The rows of ``table`` whose assumptions other than ``name`` are at the scenario's own values."""
@@ -28,13 +19,10 @@ def at_base(table: pd.DataFrame, name: str, assumptions: list[dict]) -> pd.DataF
 
 def line_rows(table: pd.DataFrame, name: str, assumptions: list[dict]) -> pd.DataFrame:
     """The rows of the points along assumption ``name`` (the others at the scenario's own values), in increasing
-    value of ``name``, each key column normalised into ``_key``; a point repeated by another line appears once."""
+    value of ``name``; a point repeated by another assumption's line appears once."""
     rows = at_base(table, name, assumptions)
     first = rows.drop_duplicates(subset=[name])["point"]
-    rows = rows[rows["point"].isin(first)].sort_values([name, "point"], kind="stable")
-    keys = key_columns(rows)
-    return rows.assign(_key=[None if pd.isna(t[0]) else (t[0], int(t[1]), *t[2:])
-                             for t in rows[keys].itertuples(index=False)])
+    return rows[rows["point"].isin(first)].sort_values([name, "point"], kind="stable")
 
 
 def design_best(rows: pd.DataFrame, picks: pd.DataFrame, name: str) -> pd.DataFrame:
