@@ -235,3 +235,17 @@ def test_progress_counts_assumption_points():
     bar.point_done(points[1])
     bar.close()
     assert stream.getvalue().rstrip().endswith("2 assumption point(s) done in 0s")
+
+
+def test_a_failure_in_the_stress_tables_keeps_the_run(monkeypatch):
+    import samplewright.api as api
+
+    def broken(*args):
+        raise RuntimeError("broken on purpose")
+
+    monkeypatch.setattr(api, "break_even_table", broken)
+    with pytest.warns(api.SamplewrightWarning, match="the stress tables .* failed"):
+        res = run(scenario_from_dict(cluster_doc(values=[0.1, 0.6], replicates=50)))
+    assert len(res.summary) == 2 and res.recommendation is not None
+    assert [what for what, _ in res.late_failures] == [
+        "the stress tables (stress.csv, stress_verdict.csv, break_even.csv)"]

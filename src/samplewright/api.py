@@ -276,13 +276,17 @@ def _stress(res: RunResult, scenario: Scenario, points: list, options: RunOption
                 bar.break_line()
                 res.warnings.append(f"assumption point {point.index} ({point.describe()}): {message}")
                 logger.warning(res.warnings[-1])
+        res.late_failures += [(f"assumption point {point.index}: {what}", exc) for what, exc in r.late_failures]
         outcomes.append(outcome(point.index, point.values, r.summary, r.replicates, r.frontier, r.recommendation))
         bar.point_done(point)
     bar.close()
     spec = scenario.stress
-    res.stress = stress_table(outcomes, spec.names)
-    res.stress_verdict = verdict_table(outcomes, spec.names)
-    res.break_even = break_even_table(outcomes, spec.names, lines(spec))
+    try:
+        res.stress = stress_table(outcomes, spec.names)
+        res.stress_verdict = verdict_table(outcomes, spec.names)
+        res.break_even = break_even_table(outcomes, spec.names, lines(spec))
+    except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
+        _late_failure(res, "the stress tables (stress.csv, stress_verdict.csv, break_even.csv)", exc)
     res.info["stress"] = {"mode": spec.mode, "points": len(points), "max_points": spec.max_points,
                           "assumptions": [{"name": a.name, "set": a.key, "values": list(a.values), "base": a.base}
                                           for a in spec.assumptions]}
@@ -502,13 +506,17 @@ def _decide(res: RunResult, scenario: Scenario) -> None:
     try:
         res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
-        res.late_failures.append(("the cost-precision frontier and recommendation", exc))
-        if _listened():
-            logger.warning(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
-                           f"tables are complete")
-        else:  # nobody reads the log: a Python warning, so the failure is not silent
-            warnings.warn(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
-                          f"tables are complete", SamplewrightWarning, stacklevel=3)
+        _late_failure(res, "the cost-precision frontier and recommendation", exc)
+
+
+def _late_failure(res: RunResult, what: str, exc: Exception) -> None:
+    """Keep and tell a step after the simulation that failed (the result tables are complete)."""
+    res.late_failures.append((what, exc))
+    if _listened():
+        logger.warning(f"{what} failed ({type(exc).__name__}: {exc}); the result tables are complete")
+    else:  # nobody reads the log: a Python warning, so the failure is not silent
+        warnings.warn(f"{what} failed ({type(exc).__name__}: {exc}); the result tables are complete",
+                      SamplewrightWarning, stacklevel=4)
 
 
 def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
