@@ -9,8 +9,6 @@ from __future__ import annotations
 
 import math
 
-import pandas as pd
-
 from samplewright.decision.stress import BREAK_EVEN_Z, pick_label
 from samplewright.report.figures import stress_of
 from samplewright.report.findings import money, num
@@ -47,10 +45,13 @@ def stress_context(res) -> dict | None:
     if not info:
         return None
     names = [a["name"] for a in info["assumptions"]]
-    verdict = res.stress_verdict if res.stress_verdict is not None else pd.DataFrame(columns=["point", "design"])
-    changes = res.break_even if res.break_even is not None else pd.DataFrame()
+    verdict = res.stress_verdict  # present with the stress account (stress_of)
+    changes = res.break_even if res.break_even is not None else []  # break_even.csv may be missing
     picks = verdict["design"].dropna().unique()
-    if len(changes):
+    if verdict["pick"].isna().all():
+        lead = ["The scenario sets no [goal], so no design is picked at any point; stress.csv holds every point's "
+                "measures, and the figure shows how each design's margin and cost move with the assumptions."]
+    elif len(changes):
         lead = [change_sentence(r, names) for _, r in changes.iterrows()]
     elif len(picks) == 1 and verdict["design"].notna().all():
         lead = [f"The pick is the same at every point rehearsed: {pick_label(verdict.iloc[0].to_dict())}."]
