@@ -249,3 +249,21 @@ def test_a_failure_in_the_stress_tables_keeps_the_run(monkeypatch):
     assert len(res.summary) == 2 and res.recommendation is not None
     assert [what for what, _ in res.late_failures] == [
         "the stress tables (stress.csv, stress_verdict.csv, break_even.csv)"]
+
+
+def test_any_numeric_key_and_no_goal():
+    from samplewright.report.stress import stress_context
+
+    doc = cluster_doc(values=[0.1], replicates=100)
+    del doc["goal"]
+    doc["assumption"] = [{"name": "visit", "set": "cost.per_cluster", "values": [0, 100]},
+                         {"name": "n", "set": "design.0.n", "values": [40, 80]}]
+    res = run(scenario_from_dict(doc))
+    s = res.stress.set_index(["point", "design"])
+    # the cost model's rate and the design's size are set at their points, the other at the scenario's own value
+    assert s.loc[(1, "clusters"), "mean_cost"] == 200 * 10  # 200 units at 10, visits free
+    assert s.loc[(2, "clusters"), "mean_cost"] == 20 * 100 + 200 * 10
+    assert s.loc[(3, "srs"), "size"] == 40 and s.loc[(4, "srs"), "size"] == 80
+    assert s.loc[(3, "clusters"), "mean_cost"] == 20 * 50 + 200 * 10
+    assert res.stress_verdict["pick"].isna().all() and len(res.break_even) == 0
+    assert "no [goal]" in stress_context(res)["lead"][0]
