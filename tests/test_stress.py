@@ -205,7 +205,8 @@ def test_cli_keeps_resumes_and_removes_point_blocks(tmp_path, capsys):
     assert not (out / "stress").exists()  # every table written: the points' blocks are removed
     assert main(["run", str(path), "--out", str(tmp_path / "o2"), "--force"]) == 0
     printed = capsys.readouterr().out
-    assert "what would change the pick: clusters, size 20, ht stays the pick while icc is below" in printed
+    assert "what would change the pick: 'clusters' is picked while icc is below about" in printed
+    assert "above it 'srs' is picked, because the two picks' margins cross" in printed
     assert "What would change the pick" in (tmp_path / "o2" / "report.html").read_text()
     assert (tmp_path / "o2" / "figures" / "stress_lines.png").is_file()
 

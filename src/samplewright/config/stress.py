@@ -39,7 +39,8 @@ STRESS_COLUMNS = ["point", "design", "method", "size", "estimator", "variable", 
 VERDICT_COLUMNS = ["point", "pick", "goal_moe", "goal_budget", "design", "method", "size", "estimator", "variable",
                    "mean_n", "mean_cost", "moe", "moe_mcse", "coverage", "coverage_mcse", "evidence_coverage",
                    "evidence_margin", "evidence_cost", "pick_stability"]
-BREAK_EVEN_COLUMNS = ["assumption", "from_value", "to_value", "pick_before", "pick_after", "criterion",
+BREAK_EVEN_COLUMNS = ["assumption", "from_value", "to_value", "pick_before", "pick_after", "design_before",
+                      "design_after", "criterion",
                       "break_even", "break_even_se", "low", "high", "method"]
 #: names an assumption may not take: they would collide with a column of those tables
 RESERVED = frozenset(STRESS_COLUMNS + VERDICT_COLUMNS + BREAK_EVEN_COLUMNS

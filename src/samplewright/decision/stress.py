@@ -15,6 +15,9 @@ changes sign.  Which d depends on why the pick changed (the margin is the achiev
 - the first pick stops qualifying: d = moe(P1) - goal margin (or cost(P1) - budget);
 - else the second pick starts qualifying: d = moe(P2) - goal margin (or cost(P2) - budget).
 
+``criterion`` says which, in words ("the two picks' costs cross", "'X' at size 45 no longer meets
+the margin"...).
+
 The break-even is the zero of d interpolated linearly between the two points,
 x* = x1 + (x2 - x1) d1 / (d1 - d2).  Its standard error is by the delta method: with
 g1 = -(x2 - x1) d2 / (d1 - d2)^2 and g2 = (x2 - x1) d1 / (d1 - d2)^2 the derivatives of x* in d1
@@ -209,26 +212,28 @@ def _difference(a: _Term, b: _Term) -> _Term:
 def _criterion(rule: str, o1: PointOutcome, o2: PointOutcome, p1: dict, p2: dict):
     """(criterion text, function of an outcome giving the deciding difference d) between picks p1 and p2."""
     margin_rule = rule == "cheapest_meeting_moe"
-    quality, limit, word = (_margin, "moe", "margin") if margin_rule else (_cost, "budget", "cost")
+    quality, limit = (_margin, "moe") if margin_rule else (_cost, "budget")
     rank = _cost if margin_rule else _margin
 
     def qualifies(o, p):
         return quality(o, _key(p, o)).value <= _goal(o, limit).value
 
     if qualifies(o2, p1) and qualifies(o1, p2):
-        name = "cost" if margin_rule else "margin"
-        return f"{name} of the first pick minus the second's", lambda o: _difference(rank(o, _key(p1, o)),
-                                                                                    rank(o, _key(p2, o)))
-    p = p1 if not qualifies(o2, p1) else p2
-    goal = "the goal's margin" if margin_rule else "the budget"
-    return f"{word} of '{p['design']}' minus {goal}", lambda o: _difference(quality(o, _key(p, o)), _goal(o, limit))
+        what = "costs" if margin_rule else "margins"
+        return f"the two picks' {what} cross", lambda o: _difference(rank(o, _key(p1, o)), rank(o, _key(p2, o)))
+    stops = not qualifies(o2, p1)
+    p = p1 if stops else p2
+    goal = "meets the margin" if margin_rule else "fits the budget"
+    text = f"'{p['design']}' at size {p['size']} {'no longer' if stops else 'now'} {goal}"
+    return text, lambda o: _difference(quality(o, _key(p, o)), _goal(o, limit))
 
 
 def _break_even(name: str, x1: float, x2: float, o1: PointOutcome, o2: PointOutcome) -> dict:
     p1, p2 = o1.pick, o2.pick
     row = {"assumption": name, "from_value": x1, "to_value": x2, "pick_before": pick_label(p1),
-           "pick_after": pick_label(p2), "criterion": None, "break_even": math.nan, "break_even_se": math.nan,
-           "low": x1, "high": x2, "method": BRACKET}
+           "pick_after": pick_label(p2), "design_before": (p1 or {}).get("design"),
+           "design_after": (p2 or {}).get("design"), "criterion": None, "break_even": math.nan,
+           "break_even_se": math.nan, "low": x1, "high": x2, "method": BRACKET}
     rule = headline(o1.recommendation)
     both = p1 is not None and p2 is not None
     if not both or any(_key(p, o) is None for p in (p1, p2) for o in (o1, o2)):

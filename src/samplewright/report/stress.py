@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import math
 
+import pandas as pd
+
 from samplewright.decision.stress import BREAK_EVEN_Z, pick_label
 from samplewright.report.figures import stress_of
 from samplewright.report.findings import money, num
@@ -22,21 +24,43 @@ def _is_blank(v) -> bool:
     return v is None or (isinstance(v, float) and math.isnan(v))
 
 
-def change_sentence(row, names: list[str]) -> str:
-    """One break-even row in words (the assumption, the picks either side, the value and its interval)."""
-    name = row["assumption"]
-    fixed = [f"{n} = {_value(row[n])}" for n in names if n != name and not _is_blank(row.get(n))]
-    where = f" (with {', '.join(fixed)})" if fixed else ""
-    before, after = row["pick_before"], row["pick_after"]
-    if _is_blank(row["break_even"]) or not math.isfinite(float(row["break_even"])):
-        return (f"The pick changes from {before} to {after} between {name} = {_value(row['from_value'])} and "
-                f"{_value(row['to_value'])}{where}; the change is not interpolated (the margin, cost or goal "
-                f"behind the pick does not cross between the two values: the change comes from coverage or "
-                f"from a design that qualifies at only one of them).")
-    return (f"{before} stays the pick while {name} is below about {_value(round(float(row['break_even']), 4))}"
-            f"{where}; above it {after} is picked. Interval: {_value(round(float(row['low']), 4))} to "
-            f"{_value(round(float(row['high']), 4))} (+-{BREAK_EVEN_Z:g} standard errors; deciding quantity: "
-            f"{row['criterion']}).")
+def _where(row, names: list[str]) -> str:
+    fixed = [f"{n} = {_value(row[n])}" for n in names if n != row["assumption"] and not _is_blank(row.get(n))]
+    return f" (with {', '.join(fixed)})" if fixed else ""
+
+
+def _at(row) -> str:
+    """The break-even value and its interval, or the bracketing values when it is not interpolated."""
+    x = row["break_even"]
+    if _is_blank(x) or not math.isfinite(float(x)):
+        return (f"somewhere between {_value(row['from_value'])} and {_value(row['to_value'])} (not interpolated: "
+                f"no margin, cost or goal behind the pick crosses there; coverage or another design decides)")
+    return (f"about {_value(round(float(x), 4))} (interval {_value(round(float(row['low']), 4))} to "
+            f"{_value(round(float(row['high']), 4))})")
+
+
+def _design(v) -> str:
+    return "nothing" if _is_blank(v) else f"'{v}'"
+
+
+def change_sentences(changes: pd.DataFrame, names: list[str]) -> list[str]:
+    """The break-even rows in words: first where the design picked changes, then where only its size or
+    estimator does (one sentence per design and line)."""
+    out = []
+    for _, r in changes.iterrows():
+        if r["design_before"] == r["design_after"]:
+            continue
+        why = "" if _is_blank(r["criterion"]) else f", because {r['criterion']}"
+        out.append(f"{_design(r['design_before'])} is picked while {r['assumption']} is below {_at(r)}"
+                   f"{_where(r, names)}; above it {_design(r['design_after'])} is picked{why}.")
+    same = changes[changes["design_before"] == changes["design_after"]]
+    for (design, name), g in same.groupby(["design_before", "assumption"], sort=False):
+        cut = len(design) + 2  # pick_label starts "design, "
+        steps = "; ".join(f"from {r['pick_before'][cut:]} to {r['pick_after'][cut:]} at {_at(r)}"
+                          for _, r in g.iterrows())
+        out.append(f"The size or estimator picked for '{design}' changes with {name}{_where(g.iloc[0], names)}: "
+                   f"{steps}.")
+    return out
 
 
 def stress_context(res) -> dict | None:
@@ -52,7 +76,7 @@ def stress_context(res) -> dict | None:
         lead = ["The scenario sets no [goal], so no design is picked at any point; stress.csv holds every point's "
                 "measures, and the figure shows how each design's margin and cost move with the assumptions."]
     elif len(changes):
-        lead = [change_sentence(r, names) for _, r in changes.iterrows()]
+        lead = change_sentences(changes, names)
     elif len(picks) == 1 and verdict["design"].notna().all():
         lead = [f"The pick is the same at every point rehearsed: {pick_label(verdict.iloc[0].to_dict())}."]
     else:
