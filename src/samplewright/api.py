@@ -14,7 +14,9 @@ import numpy as np
 import pandas as pd
 
 from samplewright._version import __version__
+from samplewright.config.stress import lines
 from samplewright.decision import frontier, recommend
+from samplewright.decision.stress import break_even_table, outcome, stress_table, verdict_table
 from samplewright.diagnostics.checks import (
     cost_notes,
     design_notes,
@@ -37,6 +39,7 @@ from samplewright.simulation.limits import check_run_memory
 from samplewright.simulation.plan import RunOptions, RunPlan, build_plan, run_settings, with_store
 from samplewright.simulation.progress import Progress
 from samplewright.simulation.scenario import Scenario
+from samplewright.simulation.stress import PointProgress, check_plans, has_blocks, point_folder, stress_points
 
 logger = logging.getLogger("samplewright")
 #: the log level of notes: facts of the set-up that need no action (between INFO and WARNING)
@@ -183,7 +186,30 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
 
     Steps are logged at INFO, notes at :data:`NOTE` and warnings at WARNING on the ``"samplewright"``
     logger; ``ready`` is called once every check has passed, before anything is simulated or written.
+    With ``[[assumption]]`` tables every assumption point is checked before anything runs, then run
+    after the scenario's own values (see :func:`_stress`).
     """
+    points = stress_points(scenario)
+    if not points:
+        return _run_one(scenario, options, frame, progress, ready)
+    if frame is None and scenario.frame.synthetic is None:  # a frame file is read once for every point
+        logger.info("loading the frame")
+        frame = scenario.load_frame()
+    shared = None if scenario.frame.synthetic is not None else frame
+
+    def checked():  # every point's plan too, before anything is simulated or written
+        check_plans(points, options, shared)
+        if ready is not None:
+            ready()
+
+    res = _run_one(scenario, options, frame, progress, checked)
+    _stress(res, scenario, points, options, shared, progress)
+    return res
+
+
+def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progress: bool | None,
+             ready: Callable[[], None] | None) -> RunResult:
+    """One run of the scenario as written (see :func:`run_with`)."""
     started = time.monotonic()
     saved = None
     if options.resume:  # the saved run's settings, unless given again (then they must agree)
@@ -220,6 +246,70 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
     res.warnings = warned
     _decide(res, scenario)
     return res
+
+
+def _stress(res: RunResult, scenario: Scenario, points: list, options: RunOptions, frame: Frame | None,
+            progress: bool | None) -> None:
+    """Run every assumption point (common random numbers: the run's seed, see simulation/stress.py) and set
+    ``res.stress``, ``res.stress_verdict`` and ``res.break_even``.
+
+    Each point keeps its blocks in ``OUT/stress/point_NNN/`` and resumes from them; its warnings not
+    already given by the run are given once, naming the point.
+    """
+    info = res.info
+    if not options.exact:  # the run's settings, resumed or given, for every point
+        stop = info.get("stopping") or {}
+        options = dataclasses.replace(options, seed=info["seed"], replicates=info["replicates"],
+                                      block_size=info["block_size"], until=stop.get("until", options.until),
+                                      max_replicates=stop.get("max_replicates", options.max_replicates))
+    bar = PointProgress(points, enabled=progress)
+    outcomes = []
+    for point in points:
+        folder = None if options.out is None else point_folder(options.out, point)
+        opts = dataclasses.replace(options, out=folder,
+                                   resume=options.resume and folder is not None and has_blocks(folder))
+        heard: list[str] = []
+        with _held(heard):
+            r = _run_one(point.scenario, opts, frame, False, None)
+        for message in dict.fromkeys(heard):
+            if message not in res.warnings:
+                bar.break_line()
+                res.warnings.append(f"assumption point {point.index} ({point.describe()}): {message}")
+                logger.warning(res.warnings[-1])
+        res.late_failures += [(f"assumption point {point.index}: {what}", exc) for what, exc in r.late_failures]
+        outcomes.append(outcome(point.index, point.values, r.summary, r.replicates, r.frontier, r.recommendation))
+        bar.point_done(point)
+    bar.close()
+    spec = scenario.stress
+    try:
+        res.stress = stress_table(outcomes, spec.names)
+        res.stress_verdict = verdict_table(outcomes, spec.names)
+        res.break_even = break_even_table(outcomes, spec.names, lines(spec))
+    except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
+        _late_failure(res, "the stress tables (stress.csv, stress_verdict.csv, break_even.csv)", exc)
+    res.info["stress"] = {"mode": spec.mode, "points": len(points), "max_points": spec.max_points,
+                          "assumptions": [{"name": a.name, "set": a.key, "values": list(a.values), "base": a.base}
+                                          for a in spec.assumptions]}
+
+
+class _Heard(logging.Handler):
+    def __init__(self, into: list):
+        super().__init__(logging.WARNING)
+        self.into = into
+
+    def emit(self, record: logging.LogRecord) -> None:
+        self.into.append(record.getMessage())
+
+
+@contextmanager
+def _held(into: list):
+    """While a point runs, its warnings are kept in ``into`` and nothing else of its log is shown."""
+    saved, propagate = logger.handlers[:], logger.propagate
+    logger.handlers[:], logger.propagate = [_Heard(into)], False
+    try:
+        yield
+    finally:
+        logger.handlers[:], logger.propagate = saved, propagate
 
 
 def _resumed(options: RunOptions):
@@ -435,13 +525,17 @@ def _decide(res: RunResult, scenario: Scenario) -> None:
     try:
         res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
-        res.late_failures.append(("the cost-precision frontier and recommendation", exc))
-        if _listened():
-            logger.warning(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
-                           f"tables are complete")
-        else:  # nobody reads the log: a Python warning, so the failure is not silent
-            warnings.warn(f"{res.late_failures[-1][0]} failed ({type(exc).__name__}: {exc}); the result "
-                          f"tables are complete", SamplewrightWarning, stacklevel=3)
+        _late_failure(res, "the cost-precision frontier and recommendation", exc)
+
+
+def _late_failure(res: RunResult, what: str, exc: Exception) -> None:
+    """Keep and tell a step after the simulation that failed (the result tables are complete)."""
+    res.late_failures.append((what, exc))
+    if _listened():
+        logger.warning(f"{what} failed ({type(exc).__name__}: {exc}); the result tables are complete")
+    else:  # nobody reads the log: a Python warning, so the failure is not silent
+        warnings.warn(f"{what} failed ({type(exc).__name__}: {exc}); the result tables are complete",
+                      SamplewrightWarning, stacklevel=4)
 
 
 def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):

@@ -118,6 +118,10 @@ def simulate_and_write(scenario, args, program: str) -> int:
         raise
     if not exact and not args.keep_blocks:  # every table is written: nothing is left to resume
         checkpoint.remove(out)
+        if res.stress is not None:  # each assumption point's blocks too
+            from samplewright.simulation.stress import remove_point_blocks
+
+            remove_point_blocks(out)
     failures = list(res.late_failures)
     page = None
     if not getattr(args, "no_report", False):
@@ -136,6 +140,10 @@ def simulate_and_write(scenario, args, program: str) -> int:
             print(format_report(st["cells"], Rule(st["targets"], st["max_replicates"], st["until"])))
         if res.recommendation is not None:  # the plain-language pick (recommend.py)
             print("\nrecommendation: " + res.recommendation["statement"] + "\n")
+        if res.stress is not None:  # what would change the pick (report/stress.py)
+            from samplewright.report.stress import stress_context
+
+            print("what would change the pick: " + " ".join(stress_context(res)["lead"]) + "\n")
         print(f"results written to {out}")
         if page is not None:
             print(f"report: {page.resolve()}")

@@ -17,6 +17,7 @@ from samplewright.config.costs import KEYS as COST_KEYS
 from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
 from samplewright.config.goal import Goal
 from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
+from samplewright.config.stress import StressSpec, stress_spec
 from samplewright.config.synthetic import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec
 from samplewright.config.synthetic import KEYS as SYNTH_KEYS
 from samplewright.config.validate import (
@@ -33,7 +34,7 @@ from samplewright.config.validate import (
 from samplewright.errors import InputError, show
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
-            "response", "frame_error", "goal")
+            "response", "frame_error", "goal", "assumption", "stress")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
               "auxiliary", "poststratum", "domain", "domains", "cluster_cost") + READ_KEYS
 GOAL_KEYS = ("moe", "budget", "confidence", "variable")
@@ -251,6 +252,7 @@ class ScenarioSpec:
     goal: Goal | None = None
     response: dict | None = None  # the [response] table (simulation/response.py checks it)
     frame_error: dict | None = None  # the [frame_error] table (population/frame_errors.py checks it)
+    stress: StressSpec | None = None  # the [[assumption]] and [stress] tables (config/stress.py)
     source: Path | None = None
     raw: dict = field(default_factory=dict, repr=False)
 
@@ -286,6 +288,7 @@ def parse_scenario(doc: dict, base: Path | str = ".", source: Path | None = None
     for table in ("response", "frame_error"):
         if table in doc:
             kw[table] = doc[table]
+    kw["stress"] = stress_spec(doc, synthetic=frame.synthetic is not None)
     return ScenarioSpec(frame=frame, designs=specs, source=source, raw=doc, **kw)
 
 

@@ -12,7 +12,7 @@ from samplewright.errors import InputError
 from samplewright.evaluation.measures import SUMMARY_COLUMNS
 from samplewright.files import restore_table
 from samplewright.report import write_report
-from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
+from samplewright.results.result import ALLOCATION_COLUMNS, STRESS_FILES, RunResult
 
 #: columns of each CSV file the report reads: (required, of which numeric)
 TEXT_KEYS = ("design", "method", "estimator", "variable", "variance")
@@ -21,6 +21,11 @@ CSV_COLUMNS = {
     "allocation.csv": (ALLOCATION_COLUMNS, ["size", "population_units", "sample_units"]),
     "frontier.csv": (["design", "size", "estimator", "variable", "mean_cost", "moe"], ["size", "mean_cost", "moe"]),
     "frame_order.csv": (["order", "variable", "position", "value"], ["position", "value"]),
+    "stress.csv": (["point", "design", "size", "estimator", "variable", "moe", "mean_cost"],
+                   ["point", "size", "moe", "mean_cost"]),
+    "stress_verdict.csv": (["point", "pick"], ["point"]),
+    "break_even.csv": (["assumption", "from_value", "to_value", "break_even", "low", "high"],
+                       ["from_value", "to_value", "break_even", "low", "high"]),
 }
 _NUMBER = (int, float)
 #: top-level keys of run.json and recommendation.json the report reads, with their JSON types (or null)
@@ -117,7 +122,8 @@ def read_run(folder) -> RunResult:
 
     ``run.json`` and ``summary.csv`` are required; ``replicates.parquet`` may be missing (the
     figures that need it are then left out); ``allocation.csv``, ``frontier.csv``,
-    ``recommendation.json`` and ``frame_order.csv`` are read when present.
+    ``recommendation.json``, ``frame_order.csv`` and a stress run's ``stress.csv``, ``stress_verdict.csv`` and
+    ``break_even.csv`` are read when present.
 
     Examples
     --------
@@ -171,6 +177,7 @@ def read_run(folder) -> RunResult:
     frontier = _read_csv(p / "frontier.csv") if (p / "frontier.csv").exists() else None
     rec = _read_json(p / "recommendation.json") if (p / "recommendation.json").exists() else None
     order = _read_csv(p / "frame_order.csv") if (p / "frame_order.csv").exists() else None
+    stress = [_read_csv(p / name) if (p / name).exists() else None for name in STRESS_FILES]
     return RunResult(
         summary=_with_variance(summary, info),
         replicates=_with_variance(replicates, info),
@@ -180,6 +187,9 @@ def read_run(folder) -> RunResult:
         recommendation=rec,
         warnings=list(info.get("warnings") or []),
         frame_order=order,
+        stress=stress[0],
+        stress_verdict=stress[1],
+        break_even=stress[2],
     )
 
 

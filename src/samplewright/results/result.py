@@ -10,6 +10,8 @@ import pandas as pd
 from samplewright.files import prepare_dir, write_csv, write_json, write_parquet
 
 ALLOCATION_COLUMNS = ["design", "size", "stratum", "population_units", "sample_units"]
+#: the files of a stress run, in the order of RunResult.stress, .stress_verdict, .break_even
+STRESS_FILES = ("stress.csv", "stress_verdict.csv", "break_even.csv")
 
 
 @dataclass
@@ -40,6 +42,11 @@ class RunResult:
     frame_order: pd.DataFrame | None = None
     #: (what, exception) of each step after the simulation that failed (the tables are still complete)
     late_failures: list = field(default_factory=list)
+    #: with [[assumption]] tables: every point's measures (stress.csv), its pick (stress_verdict.csv) and
+    #: the assumption values where the pick changes (break_even.csv); see decision/stress.py
+    stress: pd.DataFrame | None = None
+    stress_verdict: pd.DataFrame | None = None
+    break_even: pd.DataFrame | None = None
 
     def write(self, out, force: bool = False, report: bool = False, svg: bool = False) -> Path:
         """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``).
@@ -51,7 +58,7 @@ class RunResult:
         # an older run.json marks older files complete: remove it first, so an interrupted
         # overwrite never leaves new and old files under one complete-looking run.json; older
         # derived files go too, so a run without them never shows another run's
-        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv"):
+        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv") + STRESS_FILES:
             (p / name).unlink(missing_ok=True)
         # the simulated tables first, run.json marking them complete; then what is derived from them,
         # so that a failure there never loses the simulation
@@ -65,6 +72,9 @@ class RunResult:
             write_csv(self.frontier, p / "frontier.csv")
         if self.recommendation is not None:
             write_json(self.recommendation, p / "recommendation.json")
+        for name, table in zip(STRESS_FILES, (self.stress, self.stress_verdict, self.break_even)):
+            if table is not None:
+                write_csv(table, p / name)
         if report:
             # the report loads matplotlib and jinja2: deliberately lazy, so a run without a report starts fast
             from samplewright.report import write_report

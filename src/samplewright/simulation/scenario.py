@@ -25,6 +25,7 @@ from samplewright.config.scenario import (
     parse_scenario,
     read_scenario_text,
 )
+from samplewright.config.stress import StressSpec
 from samplewright.config.validate import closest
 from samplewright.designs import DESIGN_CLASSES, Design
 from samplewright.errors import InputError, show
@@ -71,6 +72,7 @@ class Scenario:
     goal: Goal | None = None  # from [goal]
     response: ResponseModel | None = None  # from [response]
     frame_error: FrameErrorSpec | None = None  # from [frame_error]
+    stress: StressSpec | None = None  # from [[assumption]] and [stress] (simulation/stress.py runs the points)
     source: Path | None = None
     raw: dict = field(default_factory=dict, repr=False)
 
@@ -139,7 +141,7 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
         confidence=spec.confidence, block_size=spec.block_size, cost=CostModel(**spec.cost), goal=spec.goal,
         response=None if spec.response is None else response_from_dict(spec.response),
         frame_error=None if spec.frame_error is None else frame_error_from_dict(spec.frame_error),
-        source=spec.source, raw=spec.raw)
+        stress=spec.stress, source=spec.source, raw=spec.raw)
 
 
 def load_scenario(path) -> Scenario:

@@ -37,6 +37,8 @@ from samplewright.report.figures.intervals import interval_panel, interval_plot,
 from samplewright.report.figures.rows import all_rows, cell_label, primary_rows
 from samplewright.report.figures.sampling import sampling_distribution
 from samplewright.report.figures.se_check import se_plot
+from samplewright.report.figures.stress_lines import stress_lines_plot
+from samplewright.report.figures.stress_tiles import stress_tiles_plot
 from samplewright.report.figures.style import (
     DPI,
     FIG_WIDTH,
@@ -52,7 +54,7 @@ __all__ = ["DPI", "FIGURES", "FIG_WIDTH", "PALETTE", "FigureSpec", "all_rows", "
            "cell_label", "cost_precision_plot", "coverage_plot", "design_colours", "design_order",
            "estimator_name", "figure_names", "frame_order_plot", "goals_of", "interval_panel", "interval_plot",
            "keep_sizes", "make_figure", "picks_of", "plain", "primary_rows", "sampling_distribution", "se_plot",
-           "zip_order"]
+           "stress_lines_plot", "stress_tiles_plot", "zip_order"]
 
 
 @dataclass(frozen=True)
@@ -145,6 +147,30 @@ def _draw_order(res, var, keep):
     for ax, e in zip(axes, entries):
         frame_order_plot(res.frame_order, e, res.summary, ax=ax)
     return fig
+
+
+def stress_of(res) -> dict:
+    """run.json's account of a stress run ({} without one): mode, points and the assumptions with their own values."""
+    info = (res.info or {}).get("stress")
+    ok = (isinstance(info, dict) and getattr(res, "stress", None) is not None and len(res.stress) > 0
+          and getattr(res, "stress_verdict", None) is not None and isinstance(info.get("points"), int)
+          and isinstance(info.get("mode"), str) and isinstance(info.get("assumptions"), list)
+          and all(isinstance(a, dict) and {"name", "set", "values", "base"} <= set(a) for a in info["assumptions"]))
+    return info if ok else {}
+
+
+def _stress_lines(res) -> bool:
+    s = stress_of(res)
+    return bool(s) and (s.get("mode") == "one_at_a_time" or len(s.get("assumptions", [])) == 1)
+
+
+def _stress_tiles(res) -> bool:
+    s = stress_of(res)
+    return bool(s) and s.get("mode") == "grid" and len(s.get("assumptions", [])) == 2
+
+
+def _goal_variable(res):
+    return ((res.recommendation or {}).get("goal") or {}).get("variable")
 
 
 #: the report's figures, in report order
@@ -256,6 +282,31 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         False,
         lambda res: len(_order_entries(res)) > 0,
         _draw_order,
+    ),
+    FigureSpec(
+        "stress_lines",
+        "What would change the pick: one assumption at a time",
+        "Each design's margin of error (left) and mean cost (right) as one assumption moves, the others at the "
+        "scenario's own values, at the size the goal asks of it (the number above a point; a gap where no size "
+        "qualifies); a ring marks the design picked at each value, dashed lines the goal. Where the "
+        "pick changes, the dotted line is the interpolated break-even value and the grey band its interval "
+        "(+-2 standard errors; the bracketing values when the change cannot be interpolated). Every value "
+        "reuses the same random samples, so the lines' differences are the assumption's effect, not noise.",
+        False,
+        _stress_lines,
+        lambda res, var, keep: stress_lines_plot(res.stress, res.stress_verdict, res.break_even,
+                                                 stress_of(res)["assumptions"], _goal_variable(res)),
+    ),
+    FigureSpec(
+        "stress_tiles",
+        "What would change the pick: two assumptions together",
+        "The design picked at every combination of the two assumptions' values (colour) and its size "
+        "(number); grey where no rehearsed design meets the goal.",
+        False,
+        _stress_tiles,
+        lambda res, var, keep: _fig(stress_tiles_plot(res.stress_verdict,
+                                                      [a["name"] for a in stress_of(res)["assumptions"]],
+                                                      design_order(res.stress))),
     ),
 )}
 
