@@ -165,7 +165,7 @@ def _identity(p: dict | None) -> tuple | None:
 def _key(p: dict, o: PointOutcome) -> tuple | None:
     """The point key of pick ``p`` among ``o``'s kept errors (None when that point was not rehearsed there)."""
     for key in o.errors:
-        if key[:3] == (p["design"], int(p["size"]), p["estimator"]) and (len(key) < 4 or key[3] == p.get("variance")):
+        if key[:3] == (p["design"], int(p["size"]), p["estimator"]) and (len(key) < 4 or p.get("variance") in (None, key[3])):
             return key
     return None
 
