@@ -29,6 +29,7 @@ from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
 from samplewright.estimation.registry import ESTIMATORS
 from samplewright.evaluation.measures import (
+    PUBLISHED_COLUMNS,
     SUMMARY_COLUMNS,
     design_effect,
     measures,
@@ -77,7 +78,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     """Exact summary (one row per design x size x estimator x variable) and the per-sample table.
 
     Returns ``(summary, samples, counts)``: ``summary`` has the columns of
-    ``measures.SUMMARY_COLUMNS`` plus ``exact``; ``samples`` has the replicate-table
+    ``measures.SUMMARY_COLUMNS`` plus ``exact`` and ``measures.PUBLISHED_COLUMNS``; ``samples`` has the replicate-table
     columns (one "replicate" per possible sample) plus its ``probability``; ``counts``
     maps "label@size" to the number of samples.
     """
@@ -119,6 +120,6 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
                     "replicate": np.arange(len(p)), "design": d.label, "size": int(d.size), "estimator": e,
                     "variable": var, "estimate": est[:, v], "se": se[:, v], "lower": lo[:, v], "upper": hi[:, v],
                     "n": n, "cost": c, "probability": p}))
-    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["exact"])
+    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["exact"] + PUBLISHED_COLUMNS)
     samples = pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
     return summary, samples, by_label

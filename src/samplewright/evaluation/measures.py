@@ -11,6 +11,9 @@ estimates x_r, estimated standard errors s_r and true value T:
 - RMSE = sqrt(mean((x - T)^2));            MSE's MCSE = sd((x - T)^2) / sqrt(R), and the margin of
   error z RMSE has MCSE z MCSE(MSE) / (2 RMSE) (delta method)
 - the mean of any replicate quantity d (e.g. paired differences), MCSE = sd(d) / sqrt(R)
+- the published margin: the mean half-width h_r = (upper_r - lower_r) / 2 of the intervals the
+  survey would publish, MCSE = sd(h) / sqrt(R) (a mean of replicate values), and the 90th
+  percentile of h over replicates (how wide the margin printed by one survey in ten would be)
 
 Every other module (exact mode, the stopping rules, the non-response columns, the frontier)
 computes these through the functions here; exact mode passes each sample's probability, which
@@ -45,6 +48,8 @@ SUMMARY_COLUMNS = [
     "bias_mcse", "relative_bias", "empirical_se", "empirical_se_mcse", "rmse", "mean_se", "se_ratio", "deff",
     "coverage", "coverage_mcse", "mean_ci_width", "moe", "mean_n", "mean_cost",
 ]
+#: the margin a survey would publish, after the contract columns (and after any fieldwork columns)
+PUBLISHED_COLUMNS = ["published_moe", "published_moe_mcse", "published_moe_p90"]
 
 
 #: relative rounding slack of :func:`holds` (a zero-width census interval is its estimate, rounded)
@@ -148,6 +153,17 @@ def mean_mcse(values) -> float:
     return float(values.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan")
 
 
+def quantile(values, q: float, p=None) -> float:
+    """The q-quantile over replicates (numpy's default, linear interpolation), or under ``p`` the
+    smallest value whose probability-weighted cumulative share reaches q (the inverse distribution
+    function of the design distribution)."""
+    if p is None:
+        return float(np.quantile(values, q))
+    order = np.argsort(values, kind="stable")
+    share = np.cumsum(p[order])
+    return float(values[order][min(int(np.searchsorted(share, q * share[-1])), len(values) - 1)])
+
+
 def moe_mcse(mse_mcse, rmse_value, z):
     """MCSE of the margin of error z x RMSE by the delta method, z x MCSE(MSE) / (2 RMSE); 0 where RMSE is 0."""
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -179,6 +195,8 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
     error = float(rmse(x, truth, p))
     mod_se = float(model_se(se, p))
     exact = p is not None
+    half = (upper - lower) / 2.0  # the margin each replicate's survey would publish
+    width = float(expectation(upper - lower, p))
     return {
         "replicates": R,
         "truth": truth,
@@ -193,8 +211,11 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
         "se_ratio": se_ratio(mod_se, emp_se, max(abs(truth), abs(mean))),
         "coverage": cover,
         "coverage_mcse": 0.0 if exact else float(coverage_mcse(cover, R)),
-        "mean_ci_width": float(expectation(upper - lower, p)),
+        "mean_ci_width": width,
         "moe": z * error,
+        "published_moe": width / 2.0,
+        "published_moe_mcse": 0.0 if exact else mean_mcse(half),
+        "published_moe_p90": quantile(half, 0.9, p) if len(half) else float("nan"),
     }
 
 
@@ -209,7 +230,8 @@ def group_rows(reps: pd.DataFrame, keys: list[str]) -> list[tuple[tuple, np.ndar
 
 
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
-    """One summary row per design x size x estimator x variable (contract columns, in order)."""
+    """One summary row per design x size x estimator x variable (contract columns in order, then
+    :data:`PUBLISHED_COLUMNS`)."""
     z = normal_quantile(confidence)
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
@@ -232,4 +254,4 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
         rows.append({"design": design, "method": methods.get(design, ""), "size": int(size), "estimator": est,
                      "variable": var, **m, "deff": deff, "mean_n": mean_n,
                      "mean_cost": float(col["cost"][idx].mean())})
-    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
+    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS + PUBLISHED_COLUMNS)

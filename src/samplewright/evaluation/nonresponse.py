@@ -32,7 +32,7 @@ SUMMARY_EXTRA = [
 
 
 def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup) -> pd.DataFrame:
-    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) appended."""
+    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) right after the contract columns."""
     names = list(setup.frame.layout.names)
     truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
     extra = []
@@ -65,4 +65,7 @@ def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup
             "nonresponse_bias_mcse": measures.mean_mcse(d),
             "adjustment_failures": int(g["adjustment_failed"].sum()),
         })
-    return pd.concat([summary.reset_index(drop=True), pd.DataFrame(extra, columns=SUMMARY_EXTRA)], axis=1)
+    summary = summary.reset_index(drop=True)
+    contract = summary[measures.SUMMARY_COLUMNS]
+    return pd.concat([contract, pd.DataFrame(extra, columns=SUMMARY_EXTRA),
+                      summary.drop(columns=measures.SUMMARY_COLUMNS)], axis=1)
