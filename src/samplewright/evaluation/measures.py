@@ -183,6 +183,11 @@ def replicates_for_empirical_se_rel_mcse(t):
     return 1.0 + 1.0 / (2.0 * t**2)
 
 
+def replicates_for_mcse(mcse, R, t):
+    """Replicates at which an MCSE of the form sd / sqrt(R), now ``mcse`` at ``R``, reaches t: R (mcse / t)^2."""
+    return R * (mcse / t) ** 2
+
+
 def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray, truth: float,
              z: float, p: np.ndarray | None = None) -> dict:
     """Morris-White-Crowther measures of one method from its replicate arrays (or, with ``p``, from
