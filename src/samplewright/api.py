@@ -430,7 +430,11 @@ def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
     goal = scenario.goal
     conf = scenario.confidence if goal is None or goal.confidence is None else goal.confidence
     front = frontier.frontier_table(summary, reps, conf)  # looked up on call, so a test may replace it
-    rec = None if goal is None else recommend.recommend(front, goal, scenario.confidence)
+    if goal is None:
+        return front, None
+    exact = "exact" in summary.columns and bool(summary["exact"].all())
+    rec = recommend.recommend(front, scenario.goals, scenario.confidence, scenario.frame.roles.get("domain"),
+                              exact=exact)
     return front, rec
 
 

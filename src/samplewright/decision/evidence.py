@@ -22,7 +22,8 @@ replicates it rejected ever smaller shortfalls, so the pick could change with R)
 The functions take numpy arrays (broadcast) and return state codes (:data:`MET`, :data:`UNDECIDED`,
 :data:`NOT_MET` = 1, 0, -1) so the bootstrap of :mod:`samplewright.decision.stability` can score
 every point of every round at once; :func:`state` names a code.  Exact mode (every possible
-sample) has no Monte Carlo error: pass ``exact=True`` and every criterion is decided as it stands.
+sample) has no Monte Carlo error: its MCSEs are 0, and :func:`coverage_code` takes ``exact=True``
+so a coverage of 0 or 1 is not given a binomial interval either.
 """
 
 from __future__ import annotations
@@ -89,18 +90,18 @@ def coverage_code(c, mcse, R, nominal, tolerance, exact: bool = False):
     return np.where(np.isnan(c), NOT_MET, code)
 
 
-def margin_code(moe, moe_mcse, published, published_mcse, goal, exact: bool = False):
+def margin_code(moe, moe_mcse, published, published_mcse, goal):
     """State of the margin: both the achieved and the published margin must be within ``goal``."""
-    k = 0.0 if exact else EVIDENCE_Z
+    k = EVIDENCE_Z
     achieved = _decide(moe - k * moe_mcse, moe + k * moe_mcse, goal, below_is_good=True)
     printed = _decide(published - k * published_mcse, published + k * published_mcse, goal, below_is_good=True)
     code = worst(np.stack(np.broadcast_arrays(achieved, printed)), axis=0)
     return np.where(np.isnan(moe) | np.isnan(published), NOT_MET, code)
 
 
-def cost_code(cost, cost_mcse, budget, exact: bool = False):
+def cost_code(cost, cost_mcse, budget):
     """State of the mean cost against the budget."""
-    k = 0.0 if exact else EVIDENCE_Z
+    k = EVIDENCE_Z
     code = _decide(cost - k * cost_mcse, cost + k * cost_mcse, budget, below_is_good=True)
     return np.where(np.isnan(cost), NOT_MET, code)
 
