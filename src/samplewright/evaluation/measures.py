@@ -153,6 +153,16 @@ def mean_mcse(values) -> float:
     return float(values.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan")
 
 
+def mean_and_mcse_from_sums(s1, s2, n):
+    """Mean and its MCSE, sd / sqrt(n) (divisor n - 1), from the sum and the sum of squares of n values
+    (arrays broadcast; MCSE NaN below two values).  For running tallies and resampled counts, where
+    the values themselves are not kept together."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = s1 / n
+        var = np.maximum(s2 - s1 * mean, 0.0) / (n - 1)
+        return mean, np.where(n > 1, np.sqrt(var / n), np.nan)
+
+
 def quantile(values, q: float, p=None) -> float:
     """The q-quantile over replicates (numpy's default, linear interpolation), or under ``p`` the
     smallest value whose probability-weighted cumulative share reaches q (the inverse distribution
