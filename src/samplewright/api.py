@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from samplewright._version import __version__
-from samplewright.decision import frontier, recommend, settle
+from samplewright.decision import frontier, recommend, settle, stability
 from samplewright.diagnostics.checks import (
     cost_notes,
     design_notes,
@@ -217,7 +217,7 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
     results, stopping, seconds = _simulate(plan, bar)
     logger.info(f"simulated in {seconds:.2f} s")
     res = _evaluate(plan, scenario, results)
-    _decide(res, scenario)
+    _decide(res, scenario, plan.seed)
     res, settled = _settle(plan, scenario, res, cap, progress)
     res.info = _run_info(plan, scenario, stopping, warned, notes) | {
         "elapsed_seconds": round(time.monotonic() - started, 3),
@@ -394,7 +394,7 @@ def _settle(plan: RunPlan, scenario: Scenario, res: RunResult, cap: int, progres
         done["seconds"] += time.monotonic() - started
         done["rounds"].append(report)
         res = _evaluate_table(plan, scenario, reps)
-        _decide(res, scenario)
+        _decide(res, scenario, plan.seed)
     done["seconds"] = round(done["seconds"], 3)
     return res, done
 
@@ -512,10 +512,10 @@ def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, 
                      info=info, warnings=warned)
 
 
-def _decide(res: RunResult, scenario: Scenario) -> None:
+def _decide(res: RunResult, scenario: Scenario, seed: int) -> None:
     """The frontier and recommendation; a failure here never costs the simulated tables."""
     try:
-        res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario)
+        res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario, seed)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         res.late_failures.append(("the cost-precision frontier and recommendation", exc))
         if _listened():
@@ -526,16 +526,22 @@ def _decide(res: RunResult, scenario: Scenario) -> None:
                           f"tables are complete", SamplewrightWarning, stacklevel=3)
 
 
-def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
-    """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal])."""
+def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario, seed: int | None = None):
+    """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal]).
+
+    With the run's ``seed``, the recommendation also says how firm its pick is (a bootstrap of the
+    replicates, :mod:`samplewright.decision.stability`, ``[goal] stability_rounds`` rounds).
+    """
     goal = scenario.goal
     conf = scenario.confidence if goal is None or goal.confidence is None else goal.confidence
     front = frontier.frontier_table(summary, reps, conf)  # looked up on call, so a test may replace it
     if goal is None:
         return front, None
     exact = "exact" in summary.columns and bool(summary["exact"].all())
-    rec = recommend.recommend(front, scenario.goals, scenario.confidence, scenario.frame.roles.get("domain"),
-                              exact=exact)
+    domain = scenario.frame.roles.get("domain")
+    rec = recommend.recommend(front, scenario.goals, scenario.confidence, domain, exact=exact)
+    rounds = 0 if seed is None else goal.stability_rounds
+    rec.update(stability.stability(front, reps, scenario.goals, scenario.confidence, seed, rounds, domain, exact))
     return front, rec
 
 
