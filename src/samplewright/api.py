@@ -222,7 +222,7 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
     res.info = _run_info(plan, scenario, stopping, warned, notes) | {
         "elapsed_seconds": round(time.monotonic() - started, 3),
         "simulation_seconds": round(seconds + settled["seconds"], 3), "frame_order": res.info["frame_order"],
-        "evidence": settled}
+        "evidence": settled, "replicates_used": _replicates_used(res.summary)}
     res.warnings = warned
     return res
 
@@ -397,6 +397,13 @@ def _settle(plan: RunPlan, scenario: Scenario, res: RunResult, cap: int, progres
         _decide(res, scenario, plan.seed)
     done["seconds"] = round(done["seconds"], 3)
     return res, done
+
+
+def _replicates_used(summary: pd.DataFrame) -> list[dict]:
+    """The replicates each design x size ran (more than asked where undecided points were settled; a
+    domain's rows count only the replicates that met it, so the largest count of a cell is its own)."""
+    counts = summary.groupby(["design", "size"], sort=False)["replicates"].max()
+    return [{"design": d, "size": int(s), "replicates": int(n)} for (d, s), n in counts.items()]
 
 
 def _settle_round(plan: RunPlan, reps: pd.DataFrame, rec: dict, todo: list, counts, cap: int, truth: np.ndarray,

@@ -83,32 +83,33 @@ def coverage_bounds(c, mcse, R, exact: bool = False, z: float = EVIDENCE_Z):
     return np.where(edge, cp_lo, c - z * mcse), np.where(edge, cp_hi, c + z * mcse)
 
 
-def coverage_code(c, mcse, R, nominal, tolerance, exact: bool = False):
-    """State of coverage against nominal - tolerance; a missing coverage (no intervals) is not met."""
-    low, high = coverage_bounds(c, mcse, R, exact)
+def coverage_code(c, mcse, R, nominal, tolerance, exact: bool = False, z: float = EVIDENCE_Z):
+    """State of coverage against nominal - tolerance; a missing coverage (no intervals) is not met.
+    (``z``: MCSEs either side; :data:`EVIDENCE_Z` but for a stricter caller.)"""
+    low, high = coverage_bounds(c, mcse, R, exact, z)
     code = _decide(low, high, nominal - tolerance, below_is_good=False)
     return np.where(np.isnan(c), NOT_MET, code)
 
 
-def margin_code(moe, moe_mcse, published, published_mcse, goal):
+def margin_code(moe, moe_mcse, published, published_mcse, goal, z: float = EVIDENCE_Z):
     """State of the margin: both the achieved and the published margin must be within ``goal``."""
-    k = EVIDENCE_Z
+    k = z
     achieved = _decide(moe - k * moe_mcse, moe + k * moe_mcse, goal, below_is_good=True)
     printed = _decide(published - k * published_mcse, published + k * published_mcse, goal, below_is_good=True)
     code = worst(np.stack(np.broadcast_arrays(achieved, printed)), axis=0)
     return np.where(np.isnan(moe) | np.isnan(published), NOT_MET, code)
 
 
-def cost_code(cost, cost_mcse, budget):
+def cost_code(cost, cost_mcse, budget, z: float = EVIDENCE_Z):
     """State of the mean cost against the budget."""
-    k = EVIDENCE_Z
+    k = z
     code = _decide(cost - k * cost_mcse, cost + k * cost_mcse, budget, below_is_good=True)
     return np.where(np.isnan(cost), NOT_MET, code)
 
 
 # ------------------------------------------------------------------ what it would take
-def replicates_to_decide(value: float, mcse: float, limit: float, R: int) -> int | None:
-    """Replicates at which ``value`` would be 2 MCSE clear of ``limit``, were it to stay where it is.
+def replicates_to_decide(value: float, mcse: float, limit: float, R: int, z: float = EVIDENCE_Z) -> int | None:
+    """Replicates at which ``value`` would be z (2) MCSE clear of ``limit``, were it to stay where it is.
 
     An MCSE of the form sd / sqrt(R) (every one of :mod:`samplewright.evaluation.measures`) reaches
     the gap / 2 at R (MCSE / (gap / 2))^2 (:func:`measures.replicates_for_mcse`).  None when the
@@ -117,15 +118,16 @@ def replicates_to_decide(value: float, mcse: float, limit: float, R: int) -> int
     gap = abs(value - limit)
     if not gap > 0 or not math.isfinite(gap):
         return None
-    return max(int(R), math.ceil(measures.replicates_for_mcse(mcse, R, gap / EVIDENCE_Z)))
+    return max(int(R), math.ceil(measures.replicates_for_mcse(mcse, R, gap / z)))
 
 
-def coverage_replicates_to_decide(c: float, mcse: float, limit: float, R: int) -> int | None:
+def coverage_replicates_to_decide(c: float, mcse: float, limit: float, R: int,
+                                  z: float = EVIDENCE_Z) -> int | None:
     """As :func:`replicates_to_decide` for a coverage; at 0 or 1, the R whose Clopper-Pearson bound
     clears the limit (lower bound (alpha/2)^(1/R) at c = 1, upper 1 - (alpha/2)^(1/R) at c = 0)."""
     if 0 < c < 1:
-        return replicates_to_decide(c, mcse, limit, R)
-    alpha = 2.0 * stats.norm.sf(EVIDENCE_Z)
+        return replicates_to_decide(c, mcse, limit, R, z)
+    alpha = 2.0 * stats.norm.sf(z)
     far = limit if c >= 1 else 1.0 - limit  # the bound must pass this share
     if not 0 < far < 1:
         return None

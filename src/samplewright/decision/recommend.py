@@ -442,8 +442,9 @@ def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
             lines.append(f"Between the rehearsed sizes, the budget would buy about {buy} with '{row['design']}' "
                          f"(margin about +-{_num4(row['moe_for_budget'])}); this is interpolated from a fit of "
                          f"MSE = a/n + b, not simulated.")
-    R = int(pts["replicates"].max()) if len(pts) else 0
-    lines.append(f"Evidence: {R:,} rehearsed samples per design and size drawn from the frame; the margin is "
+    low, high = (int(pts["replicates"].min()), int(pts["replicates"].max())) if len(pts) else (0, 0)
+    count = f"{low:,}" if low == high else f"{low:,} to {high:,} (more where a point had to be decided)"
+    lines.append(f"Evidence: {count} rehearsed samples per design and size drawn from the frame; the margin is "
                  f"{normal_quantile(conf):.2f} x the root mean square error of the estimates around the "
                  f"frame's true mean.")
     return " ".join(lines)

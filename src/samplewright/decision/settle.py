@@ -4,7 +4,12 @@ After the first decision, every point listed in the recommendation's ``undecided
 the pick were its undecided criteria met) gets more blocks of replicates in its design x size
 cell, in block order, with the seeds a longer run would use (the block index continues), until
 each of its undecided criteria is decided (:mod:`samplewright.decision.evidence`) or the cell
-reaches the replicate cap.  :class:`SettleRule` is the rule object the engine's sequential loop
+reaches the replicate cap.  A cell stops once each criterion is :data:`SETTLE_Z` = 3 MCSEs clear
+of its limit (decided by the evidence rule's 2 with one to spare): a point stopped the moment it
+crossed 2 MCSE would sit on the boundary, and the bootstrap of the pick's stability, which moves
+each estimate by about one MCSE, would undo its decision about half the time.
+
+:class:`SettleRule` is the rule object the engine's sequential loop
 (:func:`samplewright.simulation.engine.simulate_until`) calls; the engine knows nothing of
 evidence.  A cell starts from running sums of the replicates it already has (read from the
 replicate table), so nothing already drawn is drawn again and it never keeps fewer replicates
@@ -26,6 +31,8 @@ from samplewright.evaluation.normal import normal_quantile
 
 #: the replicate cap of this phase, as a multiple of the run's replicates, without --max-replicates
 CAP_FACTOR = 10
+#: MCSEs a criterion must clear its limit by before a cell stops (see module notes)
+SETTLE_Z = 3.0
 
 
 @dataclass(frozen=True)
@@ -69,23 +76,24 @@ class Sums:
         self.R += len(cost)
 
     def codes(self, criteria, nominal: float, tolerance: float, budget: float | None) -> np.ndarray:
-        """The evidence code of each criterion at the current sums."""
+        """The state code of each criterion at the current sums, decided only :data:`SETTLE_Z` MCSEs clear."""
         out = []
         for c in criteria:
             if c.kind == "cost":
                 mean, mcse = measures.mean_and_mcse_from_sums(self.cost, self.cost2, self.R)
-                out.append(ev.cost_code(mean, mcse, budget))
+                out.append(ev.cost_code(mean, mcse, budget, SETTLE_Z))
                 continue
             n = self.n[c.e, c.v]
             if c.kind == "coverage":
                 cover = self.covered[c.e, c.v] / n if n > 0 else float("nan")
-                out.append(ev.coverage_code(cover, measures.coverage_mcse(cover, n), n, nominal, tolerance))
+                out.append(ev.coverage_code(cover, measures.coverage_mcse(cover, n), n, nominal, tolerance,
+                                            z=SETTLE_Z))
                 continue
             mse, mse_mcse = measures.mean_and_mcse_from_sums(self.sq[c.e, c.v], self.sq2[c.e, c.v], n)
             pub, pub_mcse = measures.mean_and_mcse_from_sums(self.half[c.e, c.v], self.half2[c.e, c.v], n)
             rmse = np.sqrt(mse)
             out.append(ev.margin_code(c.z * rmse, measures.moe_mcse(mse_mcse, rmse, c.z), c.scale * pub,
-                                      c.scale * pub_mcse, c.limit))
+                                      c.scale * pub_mcse, c.limit, SETTLE_Z))
         return np.array(out, dtype=int)
 
 
@@ -149,12 +157,12 @@ class SettleRule:
                 continue
             if c.kind == "cost":
                 mean, mcse = measures.mean_and_mcse_from_sums(s.cost, s.cost2, s.R)
-                need = ev.replicates_to_decide(float(mean), float(mcse), c.limit, s.R)
+                need = ev.replicates_to_decide(float(mean), float(mcse), c.limit, s.R, SETTLE_Z)
             elif c.kind == "coverage":
                 n = s.n[c.e, c.v]
                 cover = float(s.covered[c.e, c.v] / n)
                 need = ev.coverage_replicates_to_decide(cover, float(measures.coverage_mcse(cover, n)), c.limit,
-                                                        int(n))
+                                                        int(n), SETTLE_Z)
             else:
                 n = s.n[c.e, c.v]
                 pub, pub_mcse = measures.mean_and_mcse_from_sums(s.half[c.e, c.v], s.half2[c.e, c.v], n)
@@ -162,7 +170,7 @@ class SettleRule:
                 rmse = math.sqrt(mse)
                 pairs = [(c.z * rmse, float(measures.moe_mcse(mse_mcse, rmse, c.z))),
                          (c.scale * float(pub), c.scale * float(pub_mcse))]
-                counts = [ev.replicates_to_decide(v, m, c.limit, int(n)) for v, m in pairs]
+                counts = [ev.replicates_to_decide(v, m, c.limit, int(n), SETTLE_Z) for v, m in pairs]
                 need = None if None in counts else max(counts)
             most = max(most, 2 * s.R if need is None else need)
         return most

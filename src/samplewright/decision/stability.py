@@ -10,13 +10,12 @@ point most often picked instead (when no other point is ever picked: the next po
 rule on the rehearsal itself), with ``runner_up_share`` the share of rounds it wins.
 
 A round weighs each replicate by the number of times it was drawn (np.bincount), so every
-measure is one matrix product of the rounds' weights with the replicate values: no per-round
-tables.  The cells with the same replicate count R share one draw of the weights (replicate i of
-each is drawn together: the cells' replicates are independent, so resampling them jointly is a
-bootstrap of each cell and of any comparison between cells).  The weights for R come from a stream
-of their own, keyed by :data:`STABILITY_KEY` and R (the rehearsal's streams are keyed by a design's
-label, size and block, with a key of a different length), from the run's root seed: the result
-does not depend on ``--jobs``, and adding a design leaves the other cells' resamples as they were.
+measure of a cell is one matrix product of the rounds' weights with the replicate values: no
+per-round tables.  Each cell is resampled independently (its replicates are independent of every
+other cell's), from a stream of its own keyed by :data:`STABILITY_KEY`, the design's label and the
+size (the rehearsal's streams are keyed by label, size and block, with a key of a different
+length), from the run's root seed: the result does not depend on ``--jobs``, and adding a design
+leaves the other cells' resamples as they were.
 """
 
 from __future__ import annotations
@@ -30,22 +29,25 @@ import pandas as pd
 from samplewright.decision import recommend as rc
 from samplewright.evaluation import measures
 from samplewright.evaluation.measures import group_rows
-from samplewright.simulation.engine import sha256_words
+from samplewright.simulation.engine import sha256_words, stream_key
 
 #: spawn-key prefix of the bootstrap's streams (eight words: the SHA-256 of a fixed text)
 STABILITY_KEY = sha256_words(b"samplewright: stability of the pick", "big")
 
 
-def weights_stream(seed: int, R: int) -> np.random.Generator:
-    """The bootstrap stream of the cells with R replicates (see module notes)."""
-    return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(*STABILITY_KEY, int(R))))
+def cell_stream(seed: int, label: str, size: int) -> np.random.Generator:
+    """The bootstrap stream of one design x size cell (see module notes)."""
+    key = (*STABILITY_KEY, *stream_key(label), int(size))
+    return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=key))
 
 
 def resample_weights(rng: np.random.Generator, R: int, rounds: int) -> np.ndarray:
     """(rounds, R) counts: how often each replicate is drawn in each round of R draws with replacement."""
-    idx = rng.integers(0, R, size=(rounds, R))
-    idx += (np.arange(rounds) * R)[:, None]
-    return np.bincount(idx.ravel(), minlength=rounds * R).reshape(rounds, R).astype(float)
+    idx = rng.integers(0, R, size=(rounds, R), dtype=np.int32 if R < 2**31 else np.int64)
+    out = np.empty((rounds, R))
+    for r in range(rounds):  # one round at a time: its counts stay in cache
+        out[r] = np.bincount(idx[r], minlength=R)
+    return out
 
 
 def boards(front: pd.DataFrame, reps: pd.DataFrame, s: rc.Setting, keys: list, rows: np.ndarray, seed: int,
@@ -60,26 +62,26 @@ def boards(front: pd.DataFrame, reps: pd.DataFrame, s: rc.Setting, keys: list, r
     cost, n = reps["cost"].to_numpy(), reps["n"].to_numpy()
     truth = front["truth"].to_numpy(dtype=float)
     variables = front["variable"].to_numpy()
-    rows_of = {}  # replicate count -> [(goal, point, row positions in reps)]
+    rows_of = {}  # design x size -> [(goal, point, row positions in reps)], the rows sharing its replicates
     for p, key in enumerate(keys):
         for g in range(G):
             idx = where.get((*key, variables[rows[g, p]])) if rows[g, p] >= 0 else None
             if idx is not None:
-                rows_of.setdefault(len(idx), []).append((g, p, idx))
-    for R, found in rows_of.items():
-        W = resample_weights(weights_stream(seed, R), R, rounds)
-        Q, cells = [], {}  # cost and size: once per design x size (any row of it lists its replicates)
+                rows_of.setdefault((key[0], int(key[1])), []).append((g, p, idx))
+    for (label, size), found in rows_of.items():
+        R = len(found[0][2])
+        W = resample_weights(cell_stream(seed, label, size), R, rounds)
+        Q = []
         for g, p, idx in found:
             T = truth[rows[g, p]]
             ok = np.isfinite(x[idx])
             sq = np.where(ok, x[idx] - T, 0.0) ** 2
             half = np.where(ok, (hi[idx] - lo[idx]) / 2.0, 0.0)
             Q += [ok, measures.holds(lo[idx], hi[idx], T) & ok, sq, sq**2, half, half**2]
-            cells.setdefault(keys[p][:2], idx)
-        for idx in cells.values():
-            Q += [cost[idx], cost[idx] ** 2, n[idx]]
-        S = W @ np.column_stack(Q).astype(float)
-        at = {cell: 6 * len(found) + 3 * j for j, cell in enumerate(cells)}
+        idx = found[0][2]  # cost and size: a property of the sample, once per cell
+        S = W @ np.column_stack(Q + [cost[idx], cost[idx] ** 2, n[idx]]).astype(float)
+        c = 6 * len(found)
+        cost_mean, cost_mcse = measures.mean_and_mcse_from_sums(S[:, c], S[:, c + 1], R)
         for j, (g, p, _) in enumerate(found):
             m, cov, sq, sq2, h, h2 = (S[:, 6 * j + k] for k in range(6))
             with np.errstate(invalid="ignore", divide="ignore"):
@@ -94,9 +96,7 @@ def boards(front: pd.DataFrame, reps: pd.DataFrame, s: rc.Setting, keys: list, r
             out["moe_mcse"][:, g, p] = measures.moe_mcse(mse_mcse, rmse, z)
             out["published"][:, g, p] = pub * s.scale[g]
             out["published_mcse"][:, g, p] = pub_mcse * s.scale[g]
-            c = at[keys[p][:2]]
-            out["cost"][:, p], out["cost_mcse"][:, p] = measures.mean_and_mcse_from_sums(S[:, c], S[:, c + 1], R)
-            out["mean_n"][:, p] = S[:, c + 2] / R
+            out["cost"][:, p], out["cost_mcse"][:, p], out["mean_n"][:, p] = cost_mean, cost_mcse, S[:, c + 2] / R
     return rc.Board(**out)
 
 
