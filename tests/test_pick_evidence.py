@@ -124,3 +124,17 @@ def test_pick_stability_does_not_depend_on_jobs(tmp_path):
     b = sw.run(sc, replicates=1500, seed=3, jobs=2).recommendation
     for k in ("pick", "pick_stability", "runner_up_share", "undecided", "cheapest_meeting_moe", "runner_up"):
         assert a[k] == b[k]
+
+
+def test_rounding_never_decides_between_equal_points():
+    # the HT and Hajek means of a fixed-size SRS are the same number up to the order of summation; a margin
+    # one unit in the last place smaller must not win the pick (nor flip it between bootstrap rounds)
+    from samplewright.decision import recommend as rc
+
+    one = np.ones((1, 2))
+    moe = np.array([[3.0, np.nextafter(3.0, 0.0)]])
+    b = rc.Board(replicates=1000 * one, coverage=0.95 * one, coverage_mcse=0.001 * one, moe=moe,
+                 moe_mcse=0.01 * one, published=2.0 * one, published_mcse=0.01 * one, cost=np.zeros(2),
+                 cost_mcse=np.zeros(2), mean_n=np.full(2, 50.0))
+    assert rc.ranking(b, "cheapest_meeting_moe")[0] == 0
+    assert rc.ranking(b, "best_within_budget")[0] == 0

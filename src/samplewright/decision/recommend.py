@@ -165,12 +165,31 @@ def binding_margin(b: Board) -> np.ndarray:
     return np.fmax(b.moe[0], b.published[0])
 
 
+#: significant figures a ranking compares: values equal to these count as tied (:func:`ranking`)
+RANK_DIGITS = 12
+
+
+def _snapped(x: np.ndarray) -> np.ndarray:
+    """``x`` rounded to :data:`RANK_DIGITS` significant figures (0, NaN and inf as they are)."""
+    x = np.asarray(x, dtype=float)
+    ok = np.isfinite(x) & (x != 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scale = np.where(ok, 10.0 ** (RANK_DIGITS - 1 - np.floor(np.log10(np.abs(np.where(ok, x, 1.0))))), 1.0)
+    return np.where(ok, np.round(x * scale) / scale, x)
+
+
 def ranking(b: Board, which: str) -> np.ndarray:
-    """Points in order of preference for ``which`` pick (stable: ties keep the table's order)."""
+    """Points in order of preference for ``which`` pick (stable: ties keep the table's order).
+
+    Values are compared to :data:`RANK_DIGITS` significant figures, so two points with the same numbers
+    up to rounding (the HT and Hajek means of a fixed-size sample; sums taken in another order) are tied
+    and the table's order decides, never the rounding.
+    """
     order = np.arange(len(b.cost))
+    cost, margin = _snapped(b.cost), _snapped(binding_margin(b))
     if which == PICKS[0]:  # equal costs (no cost model) fall back to the fewest units, then the margin
-        return np.lexsort((order, binding_margin(b), b.mean_n, b.cost))
-    return np.lexsort((order, b.cost, binding_margin(b)))
+        return np.lexsort((order, margin, _snapped(b.mean_n), cost))
+    return np.lexsort((order, cost, margin))
 
 
 def eligible(codes: dict, s: Setting, which: str, assume_met: np.ndarray | None = None) -> np.ndarray:
