@@ -420,6 +420,8 @@ def _settle_round(plan: RunPlan, reps: pd.DataFrame, rec: dict, todo: list, coun
         max_replicates=cap, block_size=plan.block_size, nominal=plan.confidence,
         tolerance=rec["coverage_tolerance"], budget=rec["goal"]["budget"])
     bar = Progress({c.design.label: 0 for _, c in todo}, enabled=progress)
+    for _, c in todo:  # at most up to the cap
+        bar.totals[c.design.label] += cap - int(counts[(c.design.label, int(c.design.size))])
     sub = dataclasses.replace(plan, cells=tuple(c for _, c in todo), stopping=rule)
     new, report = simulate_until(sub, progress=lambda k, count: bar.update(todo[k][1].design.label, count))
     bar.close()
