@@ -54,7 +54,7 @@ def point_columns(table: pd.DataFrame) -> list[str]:
 def goal_variable(goal: Goal, front: pd.DataFrame, domain_column: str | None = None) -> str:
     """The output variable a goal is about: its target (default the first), or ``target[column=value]``."""
     target = goal.variable if goal.variable is not None else (front["variable"].iloc[0] if len(front) else None)
-    if goal.domain is None:
+    if goal.domain is None or target is None:
         return target
     return f"{target}[{domain_column}={goal.domain}]"
 
@@ -290,7 +290,7 @@ def _plain(key: tuple) -> tuple:
 def goal_dict(goal: Goal, s: Setting, g: int) -> dict:
     """A goal as recommendation.json shows it: its keys, its output variable and the margin it asks for."""
     moe = float(s.moe_goal[g]) if np.isfinite(s.moe_goal[g]) else None
-    target = goal.variable if goal.variable is not None else s.variables[g].split("[")[0]
+    target = goal.variable if goal.variable is not None or s.variables[g] is None else s.variables[g].split("[")[0]
     return {**asdict(goal), "variable": target, "output": s.variables[g],
             "confidence": _conf(goal, s.nominal), "moe_goal": moe}
 
