@@ -308,7 +308,7 @@ def test_numbers_are_rounded_to_their_monte_carlo_error():
     assert with_mcse(0.9425, 0.005205, scale=100) == "94.25 (0.52)"
     assert with_mcse(12.3456, 2.1) == "12.3 (2.1)"
     assert with_mcse(float("nan"), 0.1) == "n/a"
-    # the recommendation's rule (recommend.COVERAGE_Z = 3 MCSEs): 0.93 < 0.95 - 3 * 0.005 = 0.935
+    # the description rule (findings.COVERAGE_Z = 3 MCSEs): 0.93 < 0.95 - 3 * 0.005 = 0.935
     assert coverage_verdict(0.93, 0.005, 0.95) == "low"
     assert coverage_verdict(0.94, 0.005, 0.95) == "ok"
     assert coverage_verdict(0.999, 0.0007, 0.95) == "high"

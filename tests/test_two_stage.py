@@ -236,7 +236,7 @@ def test_stratified_cluster_size_is_said_in_clusters_with_expected_units():
     note = d.notes(frame)[0]
     assert "clusters = 4" in note and "about 8 units expected" in note
     pick = {"design": "zones", "method": "stratified_cluster", "size": 4, "estimator": "ht", "mean_n": expected,
-            "mean_cost": 10.0, "p90_cost": 10.0, "moe": 1.0, "moe_mcse": 0.1, "coverage": 0.95}
+            "mean_cost": 10.0, "p90_cost": 10.0, "moe": 1.0, "moe_mcse": 0.1, "coverage": 0.95, "published_moe": 1.1}
     text = _describe(pick)
     assert "with 4 clusters (about 8 units expected)" in text and "4 units" not in text
     assert cell_label("zones", "stratified_cluster", 4, expected) == "zones, 4 clusters (about 8 units expected)"

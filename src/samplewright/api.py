@@ -15,7 +15,7 @@ import pandas as pd
 
 from samplewright._version import __version__
 from samplewright.config.stress import lines
-from samplewright.decision import frontier, recommend
+from samplewright.decision import frontier, recommend, settle, stability
 from samplewright.decision.stress import break_even_table, outcome, stress_table, verdict_table
 from samplewright.diagnostics.checks import (
     cost_notes,
@@ -122,7 +122,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
         Sequential stopping rule, e.g. ``"coverage_mcse=0.002"`` (see :mod:`samplewright.evaluation.stopping`):
         each design x size adds blocks until it meets the rule; ``replicates`` is then the minimum.
     max_replicates : int, optional
-        Replicate cap of a stopping rule (default 100 times ``replicates``, at least 100,000).
+        Replicate cap of a stopping rule (default 100 times ``replicates``, at least 100,000), and of the
+        replicates added to undecided points that could change the pick (without ``until``: default 10
+        times ``replicates``; see :mod:`samplewright.decision.settle`).
     out : path, optional
         Results folder: finished blocks are kept in ``out/blocks/`` as they complete (the
         ``run`` and ``demo`` commands remove them once the tables are written, unless ``--keep-blocks``).
@@ -216,15 +218,16 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
         options, saved = _resumed(options)
     replicates, _, _ = run_settings(scenario, options)
     rule = _stopping_rule(options, replicates)
+    cap = _settle_cap(options, replicates, rule)
     if frame is None:
         logger.info("loading the frame")
     plan = build_plan(scenario, options, frame=frame, stopping=rule)
     frame = plan.frame
     logger.info(f"frame: {frame.N} units, {frame.H} strata, {frame.C} clusters, targets {', '.join(frame.variables)}")
-    manifest = None if options.out is None else _manifest(plan, scenario)
+    manifest = None if options.out is None else _manifest(plan, scenario, cap)
     if saved is not None:  # refused before any warning about the run asked for now
         saved.check(manifest, options.out)
-    _check_size(plan, options)
+    _check_size(plan, options, cap if scenario.goals else None)
     if ready is not None:  # every check passed
         ready()
     warned, notes = _checks(plan, options.exact)
@@ -240,11 +243,13 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
     results, stopping, seconds = _simulate(plan, bar)
     logger.info(f"simulated in {seconds:.2f} s")
     res = _evaluate(plan, scenario, results)
+    _decide(res, scenario, plan.seed)
+    res, settled = _settle(plan, scenario, res, cap, progress)
     res.info = _run_info(plan, scenario, stopping, warned, notes) | {
-        "elapsed_seconds": round(time.monotonic() - started, 3), "simulation_seconds": round(seconds, 3),
-        "frame_order": res.info["frame_order"]}
+        "elapsed_seconds": round(time.monotonic() - started, 3),
+        "simulation_seconds": round(seconds + settled["seconds"], 3), "frame_order": res.info["frame_order"],
+        "evidence": settled, "replicates_used": _replicates_used(res.summary)}
     res.warnings = warned
-    _decide(res, scenario)
     return res
 
 
@@ -325,10 +330,7 @@ def _resumed(options: RunOptions):
 
 def _stopping_rule(options: RunOptions, replicates: int) -> Rule | None:
     """The sequential stopping rule of ``--until`` (None without one); ``--max-replicates`` needs it."""
-    if options.until is None:
-        if options.max_replicates is not None:
-            raise InputError("--max-replicates caps a stopping rule: give --until as well (e.g. "
-                             "--until coverage_mcse=0.002)")
+    if options.until is None:  # --max-replicates alone caps the replicates added to undecided points
         return None
     cap = max(100 * replicates, 100_000) if options.max_replicates is None else options.max_replicates
     rule = parse_until(options.until, cap)
@@ -338,20 +340,34 @@ def _stopping_rule(options: RunOptions, replicates: int) -> Rule | None:
     return rule
 
 
-def _manifest(plan: RunPlan, scenario: Scenario) -> dict:
-    """What the blocks kept in out/blocks/ are drawn from (a resumed run must match it)."""
+def _settle_cap(options: RunOptions, replicates: int, rule: Rule | None) -> int:
+    """The most replicates a cell may reach while undecided points are settled: the stopping rule's cap,
+    else ``--max-replicates``, else :func:`samplewright.decision.settle.default_cap`."""
+    if rule is not None:
+        return rule.max_replicates
+    cap = settle.default_cap(replicates) if options.max_replicates is None else int(options.max_replicates)
+    if cap < replicates:
+        raise InputError(f"--max-replicates {cap} is below the {replicates} replicates every design runs "
+                         f"first; raise it or lower --replicates")
+    return cap
+
+
+def _manifest(plan: RunPlan, scenario: Scenario, cap: int) -> dict:
+    """What the blocks kept in out/blocks/ are drawn from (a resumed run must match it); ``cap`` is the
+    most replicates a cell may reach (stopping rule or settling undecided points)."""
     rule = plan.stopping
     return {
         "scenario": str(scenario.source.resolve()) if scenario.source else None,
         "scenario_hash": scenario.hash, "seed": plan.seed, "block_size": plan.block_size,
         "replicates": plan.replicates, "confidence": plan.confidence, "until": rule.text if rule else None,
-        "max_replicates": rule.max_replicates if rule else None,
+        "max_replicates": cap,
         "cells": [[c.design.label, int(c.design.size)] for c in plan.cells], "frame_units": plan.frame.N,
         "frame": plan.truth.roles.get("source"), "frame_hash": plan.truth.content_hash}
 
 
-def _check_size(plan: RunPlan, options: RunOptions) -> None:
-    """Refuse, before anything is allocated or written, an enumeration or a simulation too large to run."""
+def _check_size(plan: RunPlan, options: RunOptions, settle_cap: int | None = None) -> None:
+    """Refuse, before anything is allocated or written, an enumeration or a simulation too large to run
+    (``settle_cap``: the replicates a cell may reach while undecided points are settled, when it may)."""
     if options.exact:  # every possible sample instead of Monte Carlo (exact.py)
         if options.until is not None or options.resume or plan.fieldwork is not None:
             raise InputError("--exact enumerates every possible sample without simulating: it cannot be combined "
@@ -359,8 +375,8 @@ def _check_size(plan: RunPlan, options: RunOptions) -> None:
         check_counts(plan.frame, plan.cells)
         return
     jobs = plan.jobs if plan.backend == "local" else 1
-    check_run_memory(plan.frame, plan.cells, plan.replicates, plan.block_size, jobs,
-                     plan.stopping.max_replicates if plan.stopping else None)
+    caps = [c for c in (plan.stopping.max_replicates if plan.stopping else None, settle_cap) if c is not None]
+    check_run_memory(plan.frame, plan.cells, plan.replicates, plan.block_size, jobs, max(caps) if caps else None)
 
 
 def _checks(plan: RunPlan, exact: bool) -> tuple[list[str], list[str]]:
@@ -420,6 +436,12 @@ def _evaluate(plan: RunPlan, scenario: Scenario, results: list) -> RunResult:
     frame = plan.frame
     reps = replicate_table(results, plan.cells, frame.layout.names, consume=True)  # targets, then domain variables
     release_freed_memory()  # the many small block arrays just freed: hand their pages back
+    return _evaluate_table(plan, scenario, reps)
+
+
+def _evaluate_table(plan: RunPlan, scenario: Scenario, reps: pd.DataFrame) -> RunResult:
+    """The result tables of a replicate table."""
+    frame = plan.frame
     methods = {d.label: d.method for d in scenario.designs}
     summary = summarise(reps, plan.truth, methods, plan.confidence)
     if plan.fieldwork is not None:  # response, bias split and full-response columns after the contract ones
@@ -429,6 +451,94 @@ def _evaluate(plan: RunPlan, scenario: Scenario, results: list) -> RunResult:
                     frame_order=order_table)
     res.info["frame_order"] = order_info
     return res
+
+
+#: rounds of adding replicates to undecided points (each re-decides; a round only runs while some point
+#: that could change the pick is undecided below the cap)
+SETTLE_ROUNDS = 4
+
+
+def _settle(plan: RunPlan, scenario: Scenario, res: RunResult, cap: int, progress) -> tuple[RunResult, dict]:
+    """Add blocks to the cells of undecided points that could change the pick, until decided or at ``cap``
+    replicates (:mod:`samplewright.decision.settle`), re-deciding after each round.
+
+    Returns the result (its tables rebuilt when replicates were added) and what was done, for run.json.
+    """
+    done = {"max_replicates": cap, "rounds": [], "seconds": 0.0}
+    names = list(plan.frame.layout.names)
+    truths = dict(zip(plan.truth.layout.names, plan.truth.layout.truth))  # as the summary scores them
+    truth = np.array([truths[v] for v in names], dtype=float)
+    for _ in range(SETTLE_ROUNDS):
+        rec = res.recommendation
+        if rec is None or not rec["undecided"]:
+            break
+        counts = res.replicates.groupby(["design", "size"], sort=False)["replicate"].nunique()
+        todo = [(ci, cell) for ci, cell in enumerate(plan.cells)
+                if settle.criteria_of(rec, cell, names, plan.confidence)
+                and counts.get((cell.design.label, int(cell.design.size)), 0) < cap]
+        if not todo:
+            break
+        logger.info(f"adding replicates to {len(todo)} design x size cells with undecided points (cap {cap:,})")
+        started = time.monotonic()
+        reps, report = _settle_round(plan, res.replicates, rec, todo, counts, cap, truth, progress)
+        done["seconds"] += time.monotonic() - started
+        done["rounds"].append(report)
+        res = _evaluate_table(plan, scenario, reps)
+        _decide(res, scenario, plan.seed)
+    done["seconds"] = round(done["seconds"], 3)
+    return res, done
+
+
+def _replicates_used(summary: pd.DataFrame) -> list[dict]:
+    """The replicates each design x size ran (more than asked where undecided points were settled; a
+    domain's rows count only the replicates that met it, so the largest count of a cell is its own)."""
+    counts = summary.groupby(["design", "size"], sort=False)["replicates"].max()
+    return [{"design": d, "size": int(s), "replicates": int(n)} for (d, s), n in counts.items()]
+
+
+def _settle_round(plan: RunPlan, reps: pd.DataFrame, rec: dict, todo: list, counts, cap: int, truth: np.ndarray,
+                  progress) -> tuple[pd.DataFrame, list[dict]]:
+    """One round of :func:`_settle` on the cells ``todo`` ((position, cell)): the replicate table with
+    the blocks added, and the rule's per-cell report."""
+    names = list(plan.frame.layout.names)
+    floors = {ci: int(counts[(c.design.label, int(c.design.size))]) // plan.block_size for ci, c in todo}
+    kept = _drop_partial(reps, [(c, floors[ci] * plan.block_size) for ci, c in todo])
+    rule = settle.SettleRule(
+        criteria={k: settle.criteria_of(rec, c, names, plan.confidence) for k, (_, c) in enumerate(todo)},
+        start={k: (settle.starting_sums(kept, c, names, truth), floors[ci],
+                   int(counts[(c.design.label, int(c.design.size))])) for k, (ci, c) in enumerate(todo)},
+        max_replicates=cap, block_size=plan.block_size, nominal=plan.confidence,
+        tolerance=rec["coverage_tolerance"], budget=rec["goal"]["budget"])
+    bar = Progress({c.design.label: 0 for _, c in todo}, enabled=progress)
+    for _, c in todo:  # at most up to the cap
+        bar.totals[c.design.label] += cap - int(counts[(c.design.label, int(c.design.size))])
+    sub = dataclasses.replace(plan, cells=tuple(c for _, c in todo), stopping=rule)
+    new, report = simulate_until(sub, progress=lambda k, count: bar.update(todo[k][1].design.label, count))
+    bar.close()
+    for r in new:  # back to the cell's position in the run
+        r.cell = todo[r.cell][0]
+    return _merged(plan, kept, replicate_table(new, plan.cells, names, consume=True)), report
+
+
+def _drop_partial(reps: pd.DataFrame, cells) -> pd.DataFrame:
+    """``reps`` without the replicates of each (cell, first replicate) from there on: a cell's last,
+    partial block is drawn again in full, as a longer run would draw it."""
+    drop = np.zeros(len(reps), dtype=bool)
+    for cell, first in cells:
+        drop |= ((reps["design"] == cell.design.label) & (reps["size"] == int(cell.design.size))
+                 & (reps["replicate"] >= first)).to_numpy()
+    return reps[~drop].reset_index(drop=True) if drop.any() else reps
+
+
+def _merged(plan: RunPlan, reps: pd.DataFrame, more: pd.DataFrame) -> pd.DataFrame:
+    """The replicate table with more replicates, in the engine's order: cell, estimator, variable, replicate."""
+    table = pd.concat([reps, more], ignore_index=True)
+    keys = [(c.design.label, int(c.design.size), e) for c in plan.cells for e in c.estimators]  # in table order
+    rank = pd.Series(np.arange(len(keys)), index=pd.MultiIndex.from_tuples(keys))
+    at = rank.reindex(pd.MultiIndex.from_arrays([table["design"], table["size"], table["estimator"]])).to_numpy()
+    var = {v: i for i, v in enumerate(plan.frame.layout.names)}
+    order = np.lexsort((table["replicate"].to_numpy(), table["variable"].map(var).to_numpy(), at))
+    return table.iloc[order].reset_index(drop=True)
 
 
 def _frame_info(frame: Frame) -> dict:
@@ -520,10 +630,10 @@ def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, 
                      info=info, warnings=warned)
 
 
-def _decide(res: RunResult, scenario: Scenario) -> None:
+def _decide(res: RunResult, scenario: Scenario, seed: int) -> None:
     """The frontier and recommendation; a failure here never costs the simulated tables."""
     try:
-        res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario)
+        res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario, seed)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         _late_failure(res, "the cost-precision frontier and recommendation", exc)
 
@@ -538,12 +648,22 @@ def _late_failure(res: RunResult, what: str, exc: Exception) -> None:
                       SamplewrightWarning, stacklevel=4)
 
 
-def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario):
-    """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal])."""
+def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario, seed: int | None = None):
+    """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal]).
+
+    With the run's ``seed``, the recommendation also says how firm its pick is (a bootstrap of the
+    replicates, :mod:`samplewright.decision.stability`, ``[goal] stability_rounds`` rounds).
+    """
     goal = scenario.goal
     conf = scenario.confidence if goal is None or goal.confidence is None else goal.confidence
     front = frontier.frontier_table(summary, reps, conf)  # looked up on call, so a test may replace it
-    rec = None if goal is None else recommend.recommend(front, goal, scenario.confidence)
+    if goal is None:
+        return front, None
+    exact = "exact" in summary.columns and bool(summary["exact"].all())
+    domain = scenario.frame.roles.get("domain")
+    rec = recommend.recommend(front, scenario.goals, scenario.confidence, domain, exact=exact)
+    rounds = 0 if seed is None else goal.stability_rounds
+    rec.update(stability.stability(front, reps, scenario.goals, scenario.confidence, seed, rounds, domain, exact))
     return front, rec
 
 

@@ -17,7 +17,8 @@ def add_scale_options(p) -> None:
                         "--replicates is then the minimum (default: none, run exactly --replicates)")
     p.add_argument("--max-replicates", type=whole_number(2),
                    help="replicate cap per design and size for --until (default: 100 x --replicates, "
-                        "at least 100000)")
+                        "at least 100000) and for the replicates added to undecided points that could change "
+                        "the pick (default without --until: 10 x --replicates)")
     p.add_argument("--backend", choices=("local", "dask"), default="local",
                    help="where blocks run: local processes (--jobs) or a dask cluster (--scheduler) "
                         "(default: local)")

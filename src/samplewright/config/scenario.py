@@ -15,7 +15,7 @@ from pathlib import Path
 
 from samplewright.config.costs import KEYS as COST_KEYS
 from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
-from samplewright.config.goal import Goal
+from samplewright.config.goal import DESIGN_WIDE, Goal
 from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
 from samplewright.config.stress import StressSpec, stress_spec
 from samplewright.config.synthetic import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec
@@ -37,7 +37,8 @@ TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", 
             "response", "frame_error", "goal", "assumption", "stress")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
               "auxiliary", "poststratum", "domain", "domains", "cluster_cost") + READ_KEYS
-GOAL_KEYS = ("moe", "budget", "confidence", "variable")
+GOAL_KEYS = ("moe", "relative_moe", "budget", "confidence", "variable", "domain", "coverage_tolerance",
+             "stability_rounds")
 DESIGN_COMMON = ("label", "method", "estimators", "adjustment", "adjustment_classes", "raking_margins")
 DEFAULT_BLOCK = 500
 #: largest synthetic frame accepted, so an absurd value is refused before any array is allocated
@@ -249,12 +250,17 @@ class ScenarioSpec:
     confidence: float = 0.95
     block_size: int = DEFAULT_BLOCK
     cost: dict = field(default_factory=dict)  # the cost model's rates, checked
-    goal: Goal | None = None
+    goals: tuple[Goal, ...] = ()
     response: dict | None = None  # the [response] table (simulation/response.py checks it)
     frame_error: dict | None = None  # the [frame_error] table (population/frame_errors.py checks it)
     stress: StressSpec | None = None  # the [[assumption]] and [stress] tables (config/stress.py)
     source: Path | None = None
     raw: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def goal(self) -> Goal | None:
+        """The first goal (None without one), for callers that know a single goal."""
+        return self.goals[0] if self.goals else None
 
 
 def parse_scenario(doc: dict, base: Path | str = ".", source: Path | None = None) -> ScenarioSpec:
@@ -284,7 +290,7 @@ def parse_scenario(doc: dict, base: Path | str = ".", source: Path | None = None
     if "cost" in doc:
         kw["cost"] = _cost_rates(doc["cost"])
     if "goal" in doc:
-        kw["goal"] = _goal(doc["goal"], frame.roles.get("target"))
+        kw["goals"] = goals(doc["goal"], frame.roles)
     for table in ("response", "frame_error"):
         if table in doc:
             kw[table] = doc[table]
@@ -307,26 +313,74 @@ def _cost_rates(c: dict) -> dict:
     return kw
 
 
-def _goal(g: dict, targets):
-    """[goal]: a target margin of error and/or a budget, the confidence level, the variable."""
-    check_keys(g, GOAL_KEYS, "[goal]")
-    if "moe" not in g and "budget" not in g:
-        raise InputError("[goal] needs moe (the margin of error to reach) and/or budget (the money available)")
+def goals(doc, roles: dict) -> tuple[Goal, ...]:
+    """``[goal]`` or ``[[goal]]``: one goal per table; the design-wide keys (``budget``,
+    ``coverage_tolerance``, ``stability_rounds``) are given once, or with the same value, and apply to
+    every goal."""
+    tables = doc if isinstance(doc, list) else [doc]
+    if not tables or not all(isinstance(t, dict) for t in tables):
+        raise InputError("goal must be a [goal] table or [[goal]] tables, e.g. [goal] with a line moe = 2.0")
+    ctxs = ["[goal]"] if len(tables) == 1 else [f"[[goal]] #{i + 1}" for i in range(len(tables))]
+    parsed = [_goal(t, roles, ctx) for t, ctx in zip(tables, ctxs)]
+    shared = {}
+    for kw, ctx in zip(parsed, ctxs):
+        for k in DESIGN_WIDE:
+            if k in kw:
+                if k in shared and shared[k][0] != kw[k]:
+                    raise InputError(f"{ctx}: {k} = {show(kw[k])} differs from {show(shared[k][0])} in "
+                                     f"{shared[k][1]}; {k} applies to the whole design: give it once")
+                shared.setdefault(k, (kw[k], ctx))
+    seen = {}
+    for kw, ctx in zip(parsed, ctxs):
+        key = (kw.get("variable"), kw.get("domain"))
+        if key in seen:
+            raise InputError(f"{ctx}: a second goal for the same variable and domain as {seen[key]}; "
+                             f"give one [[goal]] per variable or domain")
+        seen[key] = ctx
+    return tuple(Goal(**{**kw, **{k: v for k, (v, _) in shared.items()}}) for kw in parsed)
+
+
+def _goal(g: dict, roles: dict, ctx: str) -> dict:
+    """One goal table's checked keys: a margin (moe or relative_moe) and/or a budget, and the rest."""
+    check_keys(g, GOAL_KEYS, ctx)
+    if "moe" not in g and "relative_moe" not in g and "budget" not in g:
+        raise InputError(f"{ctx} needs moe (the margin of error to reach), relative_moe (the margin as a "
+                         f"fraction of the true mean) and/or budget (the money available)")
+    if "moe" in g and "relative_moe" in g:
+        raise InputError(f"{ctx}: relative_moe and moe both give the margin; keep one of them")
     kw = {}
-    for k in ("moe", "budget"):
+    for k in ("moe", "relative_moe", "budget"):
         if k in g:
-            kw[k] = as_float(g[k], k, "[goal]", minimum=0.0)
+            kw[k] = as_float(g[k], k, ctx, minimum=0.0)
             if kw[k] <= 0:
-                raise InputError(f"[goal]: {k} must be above 0, got {show(g[k])}")
+                raise InputError(f"{ctx}: {k} must be above 0, got {show(g[k])}")
     if "confidence" in g:
-        kw["confidence"] = as_float(g["confidence"], "confidence", "[goal]", 0.0, 1.0, open_interval=True)
+        kw["confidence"] = as_float(g["confidence"], "confidence", ctx, 0.0, 1.0, open_interval=True)
+    if "coverage_tolerance" in g:
+        kw["coverage_tolerance"] = as_float(g["coverage_tolerance"], "coverage_tolerance", ctx, minimum=0.0)
+        if kw["coverage_tolerance"] >= 0.5:
+            raise InputError(f"{ctx}: coverage_tolerance must be at least 0 and below 0.5 (a share of "
+                             f"intervals, e.g. 0.01 for one percentage point), got {show(g['coverage_tolerance'])}")
+    if "stability_rounds" in g:
+        kw["stability_rounds"] = as_int(g["stability_rounds"], "stability_rounds", ctx, minimum=0)
+    targets = roles.get("target")
     if "variable" in g:
-        v = as_str(g["variable"], "variable", "[goal]")
+        v = as_str(g["variable"], "variable", ctx)
         names = [targets] if isinstance(targets, str) else list(targets or [])
         if names and v not in names:
-            raise InputError(f"[goal]: variable {show(v)} is not a target of [frame]{closest(v, names)}")
+            raise InputError(f"{ctx}: variable {show(v)} is not a target of [frame]{closest(v, names)}")
         kw["variable"] = v
-    return Goal(**kw)
+    if "domain" in g:
+        d = g["domain"]
+        if isinstance(d, bool) or not isinstance(d, (str, int)):
+            raise InputError(f"{ctx}: domain must be a value of the [frame] domain column, got {show(d)}")
+        if roles.get("domain") is None:
+            raise InputError(f"{ctx}: domain {show(d)} is given but [frame] names no domain column")
+        listed = [str(x) for x in roles.get("domains") or []]
+        if listed and str(d) not in listed:
+            raise InputError(f"{ctx}: domain {show(d)} is not among [frame] domains{closest(str(d), listed)}")
+        kw["domain"] = str(d)
+    return kw
 
 
 def read_scenario_text(p: Path) -> dict:

@@ -37,7 +37,8 @@ from samplewright.evaluation.normal import normal_quantile
 
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
-    "empirical_se", "rmse", "mse_mcse", "moe", "moe_mcse", "coverage", "coverage_mcse", "on_frontier", "variance",
+    "empirical_se", "rmse", "mse_mcse", "moe", "moe_mcse", "coverage", "coverage_mcse", "on_frontier",
+    "truth", "published_moe", "published_moe_mcse", "published_moe_p90", "cost_mcse",
 ]
 
 
@@ -46,16 +47,21 @@ EXACT_MCSE = 1e-12
 
 
 def cost_quantile(reps: pd.DataFrame, q: float = 0.9) -> pd.DataFrame:
-    """The q-quantile of the replicate cost per design x size (columns design, size, p90_cost).
+    """The q-quantile of the replicate cost per design x size, and the MCSE of its mean cost
+    (sd / sqrt(R), Morris, White & Crowther 2019, Table 6): columns design, size, p90_cost, cost_mcse.
 
-    Cost is a property of the sample, so one estimator and variable per replicate is enough.
+    Cost is a property of the sample, so one estimator and variable per replicate is enough.  The
+    samples of exact mode (a ``probability`` column) have no Monte Carlo error: ``cost_mcse`` is 0.
     """
     cost, rep = reps["cost"].to_numpy(), reps["replicate"].to_numpy()
+    exact = "probability" in reps.columns
     rows = []
     for (design, size), idx in group_rows(reps, ["design", "size"]):
         first = np.unique(rep[idx], return_index=True)[1]  # one row per replicate
-        rows.append({"design": design, "size": size, "p90_cost": float(np.quantile(cost[idx][first], q))})
-    return pd.DataFrame(rows, columns=["design", "size", "p90_cost"])
+        c = cost[idx][first]
+        rows.append({"design": design, "size": size, "p90_cost": float(np.quantile(c, q)),
+                     "cost_mcse": mean_mcse(c) if len(c) > 1 and not exact else 0.0})
+    return pd.DataFrame(rows, columns=["design", "size", "p90_cost", "cost_mcse"])
 
 
 def mse_mcse(reps: pd.DataFrame, summary: pd.DataFrame) -> pd.DataFrame:
@@ -94,10 +100,13 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     frontier flag (the formulas of a design share its draws, so their cost and margin are the same).
 
     ``moe`` is z x RMSE at ``confidence`` (the goal's level; the summary uses the run's) and
-    ``moe_mcse`` its Monte Carlo SE by the delta method, z x MCSE(MSE) / (2 RMSE).
+    ``moe_mcse`` its Monte Carlo SE by the delta method, z x MCSE(MSE) / (2 RMSE); the published
+    margin columns are the summary's (at the run's level) and ``cost_mcse`` the MCSE of the mean
+    cost.  A ``variance`` column of the summary is kept after the others.
     """
+    columns = FRONTIER_COLUMNS + (["variance"] if "variance" in summary.columns else [])
     if len(summary) == 0:
-        return pd.DataFrame(columns=FRONTIER_COLUMNS)
+        return pd.DataFrame(columns=columns)
     z = normal_quantile(confidence)
     t = summary.merge(cost_quantile(reps), on=["design", "size"], how="left")
     t = t.merge(mse_mcse(reps, summary), on=[*POINT_KEYS, "variable"], how="left")
@@ -106,7 +115,7 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     t["on_frontier"] = False
     for idx in t.groupby("variable", sort=False).groups.values():
         t.loc[idx, "on_frontier"] = pareto(t.loc[idx, "mean_cost"].to_numpy(), t.loc[idx, "moe"].to_numpy())
-    return t[FRONTIER_COLUMNS].reset_index(drop=True)
+    return t[columns].reset_index(drop=True)
 
 
 # ------------------------------------------------------------------ fitted curves

@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 
 from samplewright.config.stress import BREAK_EVEN_COLUMNS, STRESS_COLUMNS, VERDICT_COLUMNS
+from samplewright.decision.recommend import point_columns
 from samplewright.evaluation.measures import mean_mcse
 from samplewright.evaluation.normal import normal_quantile
 
@@ -49,11 +50,6 @@ BREAK_EVEN_Z = 2.0
 METHOD = ("linear interpolation of the deciding difference between the bracketing points; SE by the delta "
           "method from each replicate's influence, the points paired by common random numbers")
 BRACKET = "bracketing interval: the deciding difference does not change sign between the points"
-
-
-def point_keys(table: pd.DataFrame) -> list[str]:
-    """The key columns of a point: design, size, estimator and, when the run has it, variance."""
-    return ["design", "size", "estimator"] + (["variance"] if "variance" in table.columns else [])
 
 
 def headline(rec: dict | None) -> str | None:
@@ -94,7 +90,7 @@ def outcome(index: int, values: dict, summary: pd.DataFrame, replicates: pd.Data
     errors = {}
     if rec is not None:
         variable = rec["goal"]["variable"]
-        keys = point_keys(replicates)
+        keys = point_columns(replicates)
         rows = replicates[replicates["variable"] == variable].sort_values("replicate", kind="stable")
         truth = summary[summary["variable"] == variable].set_index(keys)["truth"]
         for key, g in rows.groupby(keys, sort=False):
@@ -112,7 +108,7 @@ def stress_table(outcomes: list[PointOutcome], names: list[str]) -> pd.DataFrame
     parts = []
     for o in outcomes:
         t = o.summary.drop(columns=["moe"])
-        keys = point_keys(t) + ["variable"]
+        keys = point_columns(t) + ["variable"]
         if o.frontier is not None:  # the margin at the goal's confidence and its MCSE
             t = t.merge(o.frontier[keys + ["moe", "moe_mcse"]], on=keys, how="left")
         else:  # exact mode: the summary's margin, without Monte Carlo error
@@ -165,7 +161,7 @@ def _identity(p: dict | None) -> tuple | None:
 def _key(p: dict, o: PointOutcome) -> tuple | None:
     """The point key of pick ``p`` among ``o``'s kept errors (None when that point was not rehearsed there)."""
     for key in o.errors:
-        if key[:3] == (p["design"], int(p["size"]), p["estimator"]) and (len(key) < 4 or p.get("variance") in (None, key[3])):
+        if key[:3] == (p["design"], int(p["size"]), p["estimator"]) and key[3:] in ((), (p.get("variance"),)):
             return key
     return None
 

@@ -29,6 +29,7 @@ from samplewright.errors import InputError
 from samplewright.estimation.estimators import sample_units
 from samplewright.estimation.registry import estimate_points
 from samplewright.evaluation.measures import (
+    PUBLISHED_COLUMNS,
     SUMMARY_COLUMNS,
     design_effect,
     measures,
@@ -80,8 +81,8 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
     per-sample table.
 
     Returns ``(summary, samples, counts)``: ``summary`` has the columns of
-    ``measures.SUMMARY_COLUMNS`` plus ``exact`` and ``variance``; ``samples`` has the replicate-table
-    columns (one "replicate" per possible sample) plus its ``probability``; ``counts``
+    ``measures.SUMMARY_COLUMNS`` plus ``exact``, ``measures.PUBLISHED_COLUMNS`` and ``variance``; ``samples`` has
+    the replicate-table columns (one "replicate" per possible sample) plus its ``probability``; ``counts``
     maps "label@size" to the number of samples.
     """
     check_counts(frame, cells, limit)
@@ -124,6 +125,6 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
                     "replicate": np.arange(len(p)), "design": d.label, "size": int(d.size), "estimator": e,
                     "variable": var, "estimate": est[:, v], "se": se[:, v], "lower": lo[:, v], "upper": hi[:, v],
                     "n": n, "cost": c, "variance": formula, "probability": p}))
-    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["exact", "variance"])
+    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["exact"] + PUBLISHED_COLUMNS + ["variance"])
     samples = pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
     return summary, samples, by_label

@@ -11,6 +11,9 @@ estimates x_r, estimated standard errors s_r and true value T:
 - RMSE = sqrt(mean((x - T)^2));            MSE's MCSE = sd((x - T)^2) / sqrt(R), and the margin of
   error z RMSE has MCSE z MCSE(MSE) / (2 RMSE) (delta method)
 - the mean of any replicate quantity d (e.g. paired differences), MCSE = sd(d) / sqrt(R)
+- the published margin: the mean half-width h_r = (upper_r - lower_r) / 2 of the intervals the
+  survey would publish, MCSE = sd(h) / sqrt(R) (a mean of replicate values), and the 90th
+  percentile of h over replicates (how wide the margin printed by one survey in ten would be)
 
 Every other module (exact mode, the stopping rules, the non-response columns, the frontier)
 computes these through the functions here; exact mode passes each sample's probability, which
@@ -48,6 +51,8 @@ SUMMARY_COLUMNS = [
 #: the columns naming a point of the rehearsal: a design at a size, with an estimator, analysed with a
 #: variance formula (each formula of a design is scored on the same draws)
 POINT_KEYS = ["design", "size", "estimator", "variance"]
+#: the margin a survey would publish, after the contract columns (and after any fieldwork columns)
+PUBLISHED_COLUMNS = ["published_moe", "published_moe_mcse", "published_moe_p90"]
 
 
 #: relative rounding slack of :func:`holds` (a zero-width census interval is its estimate, rounded)
@@ -151,6 +156,27 @@ def mean_mcse(values) -> float:
     return float(values.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan")
 
 
+def mean_and_mcse_from_sums(s1, s2, n):
+    """Mean and its MCSE, sd / sqrt(n) (divisor n - 1), from the sum and the sum of squares of n values
+    (arrays broadcast; MCSE NaN below two values).  For running tallies and resampled counts, where
+    the values themselves are not kept together."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = s1 / n
+        var = np.maximum(s2 - s1 * mean, 0.0) / (n - 1)
+        return mean, np.where(n > 1, np.sqrt(var / n), np.nan)
+
+
+def quantile(values, q: float, p=None) -> float:
+    """The q-quantile over replicates (numpy's default, linear interpolation), or under ``p`` the
+    smallest value whose probability-weighted cumulative share reaches q (the inverse distribution
+    function of the design distribution)."""
+    if p is None:
+        return float(np.quantile(values, q))
+    order = np.argsort(values, kind="stable")
+    share = np.cumsum(p[order])
+    return float(values[order][min(int(np.searchsorted(share, q * share[-1])), len(values) - 1)])
+
+
 def moe_mcse(mse_mcse, rmse_value, z):
     """MCSE of the margin of error z x RMSE by the delta method, z x MCSE(MSE) / (2 RMSE); 0 where RMSE is 0."""
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -170,6 +196,11 @@ def replicates_for_empirical_se_rel_mcse(t):
     return 1.0 + 1.0 / (2.0 * t**2)
 
 
+def replicates_for_mcse(mcse, R, t):
+    """Replicates at which an MCSE of the form sd / sqrt(R), now ``mcse`` at ``R``, reaches t: R (mcse / t)^2."""
+    return R * (mcse / t) ** 2
+
+
 def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray, truth: float,
              z: float, p: np.ndarray | None = None) -> dict:
     """Morris-White-Crowther measures of one method from its replicate arrays (or, with ``p``, from
@@ -182,6 +213,8 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
     error = float(rmse(x, truth, p))
     mod_se = float(model_se(se, p))
     exact = p is not None
+    half = (upper - lower) / 2.0  # the margin each replicate's survey would publish
+    width = float(expectation(upper - lower, p))
     return {
         "replicates": R,
         "truth": truth,
@@ -196,8 +229,11 @@ def measures(x: np.ndarray, se: np.ndarray, lower: np.ndarray, upper: np.ndarray
         "se_ratio": se_ratio(mod_se, emp_se, max(abs(truth), abs(mean))),
         "coverage": cover,
         "coverage_mcse": 0.0 if exact else float(coverage_mcse(cover, R)),
-        "mean_ci_width": float(expectation(upper - lower, p)),
+        "mean_ci_width": width,
         "moe": z * error,
+        "published_moe": width / 2.0,
+        "published_moe_mcse": 0.0 if exact else mean_mcse(half),
+        "published_moe_p90": quantile(half, 0.9, p) if len(half) else float("nan"),
     }
 
 
@@ -212,8 +248,8 @@ def group_rows(reps: pd.DataFrame, keys: list[str]) -> list[tuple[tuple, np.ndar
 
 
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
-    """One summary row per design x size x estimator x variance formula x variable (contract columns, in
-    order, then ``variance``; fieldwork columns go before it)."""
+    """One summary row per design x size x estimator x variance formula x variable (contract columns in
+    order, then :data:`PUBLISHED_COLUMNS` and ``variance``; fieldwork columns go before them)."""
     z = normal_quantile(confidence)
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
@@ -236,4 +272,4 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
         rows.append({"design": design, "method": methods.get(design, ""), "size": int(size), "estimator": est,
                      "variable": var, **m, "deff": deff, "mean_n": mean_n,
                      "mean_cost": float(col["cost"][idx].mean()), "variance": formula})
-    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS + ["variance"])
+    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS + PUBLISHED_COLUMNS + ["variance"])

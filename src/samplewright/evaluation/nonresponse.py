@@ -32,8 +32,8 @@ SUMMARY_EXTRA = [
 
 
 def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup) -> pd.DataFrame:
-    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) after the contract columns, before
-    ``variance`` (which stays last)."""
+    """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) right after the contract columns
+    (the published-margin columns and ``variance`` follow)."""
     names = list(setup.frame.layout.names)
     truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
     extra = []
@@ -68,5 +68,6 @@ def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup
             "adjustment_failures": int(g["adjustment_failed"].sum()),
         })
     summary = summary.reset_index(drop=True)
-    return pd.concat([summary.drop(columns="variance"), pd.DataFrame(extra, columns=SUMMARY_EXTRA),
-                      summary["variance"]], axis=1)
+    contract = summary[measures.SUMMARY_COLUMNS]
+    return pd.concat([contract, pd.DataFrame(extra, columns=SUMMARY_EXTRA),
+                      summary.drop(columns=measures.SUMMARY_COLUMNS)], axis=1)

@@ -69,9 +69,13 @@ class Rule:
         return {"until": self.text, "targets": dict(self.targets), "max_replicates": self.max_replicates}
 
     @staticmethod
-    def start_cell() -> CellProgress:
-        """A cell's progress before its first block."""
+    def start_cell(ci: int) -> CellProgress:
+        """Cell ``ci``'s progress before its first block (every cell starts with none)."""
         return CellProgress()
+
+    def needed(self, state: CellProgress) -> int:
+        """Replicates the cell's targets ask for at its current estimates."""
+        return state.tally.needed(self.targets)
 
     def advance(self, state: CellProgress, results_by_block: dict, truth: np.ndarray,
                 min_blocks: int, max_blocks: int) -> None:

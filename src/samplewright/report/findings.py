@@ -4,10 +4,11 @@ These are descriptions of what the simulation measured, not a recommendation: th
 a budget or a margin-of-error goal is made by the planning step (recommendation.json) and only
 quoted here.
 
-A simulated coverage is called *below the promised level* by the same rule the recommendation
-uses to pass a design over (:func:`samplewright.decision.recommend.coverage_acceptable`: more than
-``COVERAGE_Z`` = 3 Monte Carlo SEs below nominal, MCSE = sqrt(c (1 - c) / R), Morris, White &
-Crowther 2019, Table 6), and *above* it when more than as many SEs above.  An exact-mode run
+A simulated coverage is called *below the promised level* when it is more than ``COVERAGE_Z`` = 3
+Monte Carlo SEs below nominal (MCSE = sqrt(c (1 - c) / R), Morris, White & Crowther 2019, Table 6),
+and *above* it when more than as many SEs above: a description of what the rehearsal measured.
+The recommendation judges coverage with a practical tolerance instead
+(:mod:`samplewright.decision.evidence`).  An exact-mode run
 (``run --exact``, an ``exact`` column in the summary) has no Monte Carlo error: its coverage is
 the probability-weighted share of every possible sample, so it is below or above the promised
 level as it stands, and its numbers are shown without brackets.
@@ -20,9 +21,11 @@ import math
 import numpy as np
 import pandas as pd
 
-from samplewright.decision.recommend import COVERAGE_Z, coverage_acceptable
 from samplewright.report.figures.rows import cell_label
 from samplewright.report.figures.style import estimator_name
+
+#: Monte Carlo SEs from nominal beyond which a coverage is described as below or above it (module notes)
+COVERAGE_Z = 3.0
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2
@@ -119,7 +122,7 @@ def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
     """``"low"``, ``"high"`` or ``"ok"``: coverage against the promised level, beyond Monte Carlo error."""
     if not np.isfinite(coverage):
         return "ok"
-    if not coverage_acceptable(coverage, mcse, confidence):
+    if coverage < confidence - COVERAGE_Z * mcse:
         return "low"
     if coverage - COVERAGE_Z * mcse > confidence:
         return "high"

@@ -149,24 +149,36 @@ def simulate_until(plan, progress=None) -> tuple[list[BlockResult], list[dict]]:
     layout (targets, then domain means): ``plan.truth``, not the listed frame.
 
     Every cell runs at least ``plan.replicates`` (rounded up to whole blocks) and at most
-    the rule's ``max_replicates``.  Blocks are dispatched in waves sized from the replicates the
-    rule still asks for; blocks past a cell's stopping point are dropped, so the replicates
-    kept never depend on ``jobs`` or the backend.  Returns the kept blocks and the rule's
-    per-cell report.
+    the rule's ``max_replicates``.  A rule may start a cell with blocks already drawn
+    (``rule.start_cell(ci).used`` > 0): blocks from there on are drawn and returned, with the seeds
+    of their block index, so a run extended this way keeps the streams a longer run would use.
+    Blocks are dispatched in waves sized from the replicates the rule still asks for; blocks
+    past a cell's stopping point are dropped, so the replicates kept never depend on ``jobs``
+    or the backend.  Returns the kept blocks and the rule's per-cell report.
     """
     rule = plan.stopping
     spans = block_spans(rule.max_replicates, plan.block_size)
     min_blocks = min(len(spans), -(-int(plan.replicates) // plan.block_size))
     cell_ids = range(len(plan.cells))
-    waves = _Waves(spans=spans, min_blocks=min_blocks, states={ci: rule.start_cell() for ci in cell_ids},
-                   have={ci: {} for ci in cell_ids}, scheduled=dict.fromkeys(cell_ids, 0),
-                   aim=dict.fromkeys(cell_ids, min_blocks))
+    states = {ci: rule.start_cell(ci) for ci in cell_ids}
+    first = {ci: st.used for ci, st in states.items()}  # blocks a cell had before (a rule may start it there)
+    waves = _Waves(spans=spans, min_blocks=min_blocks, states=states, have={ci: {} for ci in cell_ids},
+                   scheduled=dict(first), aim={ci: _first_aim(plan, st, min_blocks) for ci, st in states.items()})
     truths = dict(zip(plan.truth.layout.names, plan.truth.layout.truth))  # as the summary scores them
     truth = np.array([truths[v] for v in plan.frame.layout.names], dtype=float)
     with backend_session(plan.backend, plan.scheduler, plan.frame, plan.cells):  # one dask client for all waves
         _until_waves(plan, waves, truth, progress)
-    kept = [waves.have[ci][b] for ci, st in waves.states.items() for b in range(st.used)]
+    kept = [waves.have[ci][b] for ci, st in waves.states.items() for b in range(first[ci], st.used)]
     return kept, rule.report(plan.cells, waves.states)
+
+
+def _first_aim(plan, state, min_blocks: int) -> int:
+    """Blocks a cell's first wave reaches: ``min_blocks``, or for a cell the rule starts with blocks
+    already drawn, what the rule asks for (at most twice what it has)."""
+    if state.used == 0:
+        return min_blocks
+    aim = -(-plan.stopping.needed(state) // plan.block_size)
+    return max(state.used + 1, min(aim, 2 * state.used))
 
 
 def _until_waves(plan, waves: _Waves, truth: np.ndarray, progress) -> None:
@@ -189,7 +201,7 @@ def _until_waves(plan, waves: _Waves, truth: np.ndarray, progress) -> None:
                 continue
             rule.advance(st, waves.have[ci], truth, waves.min_blocks, max_blocks)
             if not st.stopped:  # aim at the replicates still asked for, growing at most twofold per wave
-                aim = -(-st.tally.needed(rule.targets) // plan.block_size)
+                aim = -(-rule.needed(st) // plan.block_size)
                 waves.aim[ci] = min(max_blocks, max(st.used + max(plan.jobs, 1), min(aim, 2 * st.used)))
 
 

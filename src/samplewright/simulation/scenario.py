@@ -69,7 +69,7 @@ class Scenario:
     confidence: float = 0.95
     block_size: int = DEFAULT_BLOCK
     cost: CostModel = field(default_factory=CostModel)
-    goal: Goal | None = None  # from [goal]
+    goals: tuple[Goal, ...] = ()  # from [goal] or [[goal]]
     response: ResponseModel | None = None  # from [response]
     frame_error: FrameErrorSpec | None = None  # from [frame_error]
     stress: StressSpec | None = None  # from [[assumption]] and [stress] (simulation/stress.py runs the points)
@@ -81,6 +81,11 @@ class Scenario:
         """SHA-256 of the scenario's content (keys sorted), for run.json."""
         blob = json.dumps(self.raw, sort_keys=True, default=str).encode()
         return hashlib.sha256(blob).hexdigest()
+
+    @property
+    def goal(self) -> Goal | None:
+        """The first goal (None without one), for callers that know a single goal."""
+        return self.goals[0] if self.goals else None
 
     def load_frame(self) -> Frame:
         return self.frame.load()
@@ -138,7 +143,7 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
     return Scenario(
         frame=_frame_source(spec.frame, designs), designs=designs, estimators=tuple(e for _, e, _ in built),
         adjustments=tuple(a for _, _, a in built), title=spec.title, seed=spec.seed, replicates=spec.replicates,
-        confidence=spec.confidence, block_size=spec.block_size, cost=CostModel(**spec.cost), goal=spec.goal,
+        confidence=spec.confidence, block_size=spec.block_size, cost=CostModel(**spec.cost), goals=spec.goals,
         response=None if spec.response is None else response_from_dict(spec.response),
         frame_error=None if spec.frame_error is None else frame_error_from_dict(spec.frame_error),
         stress=spec.stress, source=spec.source, raw=spec.raw)
