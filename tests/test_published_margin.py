@@ -60,7 +60,7 @@ def test_exact_published_margin_is_the_enumerated_mean_and_90th_percentile(frame
     hs = np.sort(h)
     assert row["published_moe_p90"] == pytest.approx(hs[int(np.ceil(0.9 * len(hs))) - 1], rel=1e-12)
     assert row["published_moe_mcse"] == 0.0
-    assert list(summary.columns) == SUMMARY_COLUMNS + ["exact"] + PUBLISHED_COLUMNS
+    assert list(summary.columns) == SUMMARY_COLUMNS + ["exact"] + PUBLISHED_COLUMNS + ["variance"]
 
 
 def test_simulated_published_margin_within_mcse_of_the_exact_value(frame):
@@ -69,7 +69,7 @@ def test_simulated_published_margin_within_mcse_of_the_exact_value(frame):
     reps = replicate_table(simulate(plan), plan.cells, frame.layout.names)
     s = summarise(reps, frame, {"srs": "srs"}, 0.95)
     row = s.iloc[0]
-    assert list(s.columns) == SUMMARY_COLUMNS + PUBLISHED_COLUMNS
+    assert list(s.columns) == SUMMARY_COLUMNS + PUBLISHED_COLUMNS + ["variance"]
     # Morris et al. 2019 Table 6: mean of replicate values, MCSE = sd / sqrt(R)
     assert row["published_moe_mcse"] == pytest.approx(h.std() / np.sqrt(4000), rel=0.1)
     assert abs(row["published_moe"] - h.mean()) < Z * row["published_moe_mcse"]

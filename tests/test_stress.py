@@ -84,7 +84,8 @@ def test_common_random_numbers_shrink_the_mcse_of_a_difference():
         del doc["assumption"]
         point = run(scenario_from_dict(doc))
         r = point.replicates
-        reps[(x, seed)] = r[r["design"] == "srs"].sort_values("replicate")
+        # the first 2,000 of each: a point whose pick was undecided may have been given more
+        reps[(x, seed)] = r[(r["design"] == "srs") & (r["replicate"] < 2000)].sort_values("replicate")
         if seed == 11:
             got = res.stress[(res.stress["icc"] == x)].set_index("design")["rmse"]
             want = point.summary.set_index("design")["rmse"]
@@ -129,7 +130,7 @@ def test_one_at_a_time_and_grid_points():
 
 
 def test_stress_files_are_read_back(tmp_path):
-    res = run(scenario_from_dict(cluster_doc(values=[0.1, 0.6], replicates=200)))
+    res = run(scenario_from_dict(cluster_doc(values=[0.1, 0.6], replicates=1000)))
     back = read_run(res.write(tmp_path / "out"))
     for name in ("stress", "stress_verdict", "break_even"):
         # a column of None (no three-state evidence yet) reads back as blanks

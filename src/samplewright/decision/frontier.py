@@ -38,7 +38,7 @@ from samplewright.evaluation.normal import normal_quantile
 FRONTIER_COLUMNS = [
     "design", "method", "size", "estimator", "variable", "replicates", "mean_n", "mean_cost", "p90_cost",
     "empirical_se", "rmse", "mse_mcse", "moe", "moe_mcse", "coverage", "coverage_mcse", "on_frontier",
-    "truth", "published_moe", "published_moe_mcse", "published_moe_p90", "cost_mcse",
+    "truth", "published_moe", "published_moe_mcse", "published_moe_p90", "cost_mcse", "variance",
 ]
 
 
@@ -102,11 +102,10 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     ``moe`` is z x RMSE at ``confidence`` (the goal's level; the summary uses the run's) and
     ``moe_mcse`` its Monte Carlo SE by the delta method, z x MCSE(MSE) / (2 RMSE); the published
     margin columns are the summary's (at the run's level) and ``cost_mcse`` the MCSE of the mean
-    cost.  A ``variance`` column of the summary is kept after the others.
+    cost; ``variance`` (the formula's name) comes last.
     """
-    columns = FRONTIER_COLUMNS + (["variance"] if "variance" in summary.columns else [])
     if len(summary) == 0:
-        return pd.DataFrame(columns=columns)
+        return pd.DataFrame(columns=FRONTIER_COLUMNS)
     z = normal_quantile(confidence)
     t = summary.merge(cost_quantile(reps), on=["design", "size"], how="left")
     t = t.merge(mse_mcse(reps, summary), on=[*POINT_KEYS, "variable"], how="left")
@@ -115,7 +114,7 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     t["on_frontier"] = False
     for idx in t.groupby("variable", sort=False).groups.values():
         t.loc[idx, "on_frontier"] = pareto(t.loc[idx, "mean_cost"].to_numpy(), t.loc[idx, "moe"].to_numpy())
-    return t[columns].reset_index(drop=True)
+    return t[FRONTIER_COLUMNS].reset_index(drop=True)
 
 
 # ------------------------------------------------------------------ fitted curves

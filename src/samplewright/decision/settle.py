@@ -39,7 +39,8 @@ SETTLE_Z = 3.0
 class Criterion:
     """One undecided criterion of a cell: ``kind`` coverage, margin or cost, at point ``e`` (an estimator
     under a variance formula) and output variable ``v`` (both positions in the cell's blocks), against
-    ``limit``; a margin has the normal quantile ``z`` of its goal and ``scale`` (published margin at the goal's level / the run's)."""
+    ``limit``; a margin has the normal quantile ``z`` of its goal and ``scale`` (published margin at the
+    goal's level / the run's)."""
 
     kind: str
     e: int = 0
