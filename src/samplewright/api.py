@@ -30,6 +30,7 @@ from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.nonresponse import summary_columns
 from samplewright.evaluation.stopping import Rule, parse_until
 from samplewright.population.frame import Frame
+from samplewright.report import verdict
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
 from samplewright.simulation.checkpoint import BlockStore
 from samplewright.simulation.engine import replicate_table, simulate, simulate_until
@@ -347,7 +348,7 @@ def _frame_info(frame: Frame) -> dict:
 
 
 def _designs_info(scenario: Scenario) -> list[dict]:
-    return [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name}
+    return [{"label": d.label, "method": d.method, "parameters": d.settings, "variance": d.variance_name}
             for d in scenario.designs]
 
 
@@ -373,6 +374,7 @@ def _run_info(plan: RunPlan, scenario: Scenario, stopping, warned: list, notes: 
         "confidence": plan.confidence,
         "frame": frame_info,
         "designs": _designs_info(scenario),
+        "labels": scenario.labels.as_dict(),
         "versions": _versions(),
         "elapsed_seconds": None,
         "simulation_seconds": None,
@@ -401,6 +403,7 @@ def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, 
         "frame": {**{k: frame_info[k] for k in ("units", "strata", "clusters")},
                   "variables": list(frame.layout.names), "roles": frame_info["roles"], "source": frame_info["source"]},
         "designs": _designs_info(scenario),
+        "labels": scenario.labels.as_dict(),
         "versions": _versions(),
         "elapsed_seconds": round(time.monotonic() - started, 3),
         "enumeration_seconds": round(enumerated - enumeration_started, 3),
@@ -415,6 +418,10 @@ def _decide(res: RunResult, scenario: Scenario) -> None:
     """The frontier and recommendation; a failure here never costs the simulated tables."""
     try:
         res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario)
+        rec = res.recommendation
+        if rec is not None:  # the words about the pick are the report's (report/verdict.py)
+            rec["units"] = {"currency": scenario.labels.currency, "variables": dict(scenario.labels.units)}
+            rec["statement"] = verdict.verdict_sentence(rec, res.info, res.summary)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         res.late_failures.append(("the cost-precision frontier and recommendation", exc))
         if _listened():

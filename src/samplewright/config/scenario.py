@@ -16,6 +16,7 @@ from pathlib import Path
 from samplewright.config.costs import KEYS as COST_KEYS
 from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
 from samplewright.config.goal import Goal
+from samplewright.config.labels import Labels, labels_spec
 from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
 from samplewright.config.synthetic import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec
 from samplewright.config.synthetic import KEYS as SYNTH_KEYS
@@ -33,7 +34,7 @@ from samplewright.config.validate import (
 from samplewright.errors import InputError, show
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
-            "response", "frame_error", "goal")
+            "response", "frame_error", "goal", "labels")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
               "auxiliary", "poststratum", "domain", "domains", "cluster_cost") + READ_KEYS
 GOAL_KEYS = ("moe", "budget", "confidence", "variable")
@@ -249,6 +250,7 @@ class ScenarioSpec:
     block_size: int = DEFAULT_BLOCK
     cost: dict = field(default_factory=dict)  # the cost model's rates, checked
     goal: Goal | None = None
+    labels: Labels = field(default_factory=Labels)  # [labels]: currency, unit words (config/labels.py)
     response: dict | None = None  # the [response] table (simulation/response.py checks it)
     frame_error: dict | None = None  # the [frame_error] table (population/frame_errors.py checks it)
     source: Path | None = None
@@ -283,6 +285,8 @@ def parse_scenario(doc: dict, base: Path | str = ".", source: Path | None = None
         kw["cost"] = _cost_rates(doc["cost"])
     if "goal" in doc:
         kw["goal"] = _goal(doc["goal"], frame.roles.get("target"))
+    if "labels" in doc:
+        kw["labels"] = labels_spec(doc["labels"], frame.roles.get("target"))
     for table in ("response", "frame_error"):
         if table in doc:
             kw[table] = doc[table]

@@ -9,6 +9,7 @@ size are part of the protocol, so shared tests can hold every design to them.
 from __future__ import annotations
 
 import copy
+import json
 from typing import ClassVar
 
 import numpy as np
@@ -41,6 +42,11 @@ class Design:
     def __repr__(self) -> str:
         args = ", ".join(f"{k}={v!r}" for k, v in self._params.items())
         return f"{type(self).__name__}({self.label!r}, {args})"
+
+    @property
+    def settings(self) -> dict:
+        """The parameters as plain JSON values (run.json, the selection record)."""
+        return json.loads(json.dumps(self._params, default=str))
 
     # ------------------------------------------------------------ size sweeps
     @property

@@ -23,6 +23,7 @@ import pandas as pd
 from samplewright.decision.recommend import COVERAGE_Z, coverage_acceptable
 from samplewright.report.figures.rows import cell_label
 from samplewright.report.figures.style import estimator_name
+from samplewright.report.verdict import money, num, unit_of, with_unit
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2
@@ -56,34 +57,6 @@ def with_mcse(value: float, mcse: float, scale: float = 1.0) -> str:
     v, m = value * scale, mcse * scale
     d = decimals_for(m)
     return f"{v:.{d}f} ({m:.{d}f})" if np.isfinite(m) else f"{v:.4g}"
-
-
-def num(value, digits: int = 4) -> str:
-    """A number to ``digits`` significant figures, with thousands separators for large ones."""
-    if value is None:
-        return "n/a"
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        return str(value)
-    if np.isinf(v):  # e.g. a design effect against an SRS variance of 0 (evaluation/measures.py)
-        return "infinite" if v > 0 else "minus infinite"
-    if not np.isfinite(v):
-        return "n/a"
-    if abs(v) >= 10**digits or (abs(v) >= 1000 and v == round(v)):
-        return f"{v:,.0f}"
-    return f"{v:.{digits}g}"
-
-
-def money(value) -> str:
-    """A cost: whole units with thousands separators from 100 up, else 4 significant figures."""
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        return "n/a" if value is None else str(value)
-    if not np.isfinite(v):
-        return "n/a"
-    return f"{v:,.0f}" if abs(v) >= 100 else f"{v:.4g}"
 
 
 def percent_like(value: float, mcse: float) -> str:
@@ -159,12 +132,15 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
     return out
 
 
-def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
-    """Sentences a reader needs from the summary: precision, cost, and intervals that lie."""
+def findings(summary: pd.DataFrame, confidence: float, labels: dict | None = None) -> list[str]:
+    """Sentences a reader needs from the summary: precision, cost, and intervals that lie (money and
+    units in the words of ``labels``, :func:`samplewright.report.verdict.labels_of`)."""
     out = []
+    labels = labels or {}
     nominal = f"{100 * confidence:g}%"
     exact = is_exact(summary)
     for var, s in summary.groupby("variable", sort=False):
+        unit = unit_of(labels, var)
         lab = {
             i: f"{cell_label(d, m, n, u)} ({estimator_name(e)})"
             for i, d, m, n, u, e in zip(s.index, s["design"], s["method"], s["size"], s["mean_n"], s["estimator"])
@@ -179,15 +155,15 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
             best = honest.loc[honest["rmse"].idxmin()]
             out.append(
                 f"Most precise for the mean {var} among designs whose intervals keep their promise: "
-                f"{lab[best.name]}, margin of error {num(best.moe)}"
-                + (f" at an average cost of {money(best.mean_cost)}" if costed else "")
+                f"{lab[best.name]}, margin of error {with_unit(num(best.moe), unit)}"
+                + (f" at an average cost of {money(best.mean_cost, labels)}" if costed else "")
                 + f" (design effect {num(best.deff, 3)})."
             )
             cheap = honest.loc[honest["mean_cost"].idxmin()]
             if costed and cheap.name != best.name and cheap.mean_cost < best.mean_cost:
                 out.append(
-                    f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost)}, "
-                    f"margin of error {num(cheap.moe)}."
+                    f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost, labels)}, "
+                    f"margin of error {with_unit(num(cheap.moe), unit)}."
                 )
         else:
             out.append(f"No design's intervals for the mean {var} reach the promised {nominal} coverage.")
