@@ -22,7 +22,8 @@ import pytest
 import samplewright
 from samplewright.cli import main as cli
 from samplewright.report import figures as F
-from samplewright.report.findings import coverage_verdict, with_mcse
+from samplewright.report.findings import coverage_verdict
+from samplewright.report.table import with_mcse
 
 EXPECTED_FIGURES = {
     "sampling_distribution",

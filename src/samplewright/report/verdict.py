@@ -344,7 +344,7 @@ def _goal_text(goals: list[dict], labels: dict) -> str:
     return " and ".join(want)
 
 
-def _shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels: dict) -> list[tuple[float, str]]:
+def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels: dict) -> list[tuple[float, str]]:
     """(relative shortfall, words) of each criterion a summary row misses; empty when it meets them all."""
     out = []
     unit = unit_of(labels, row.get("variable"))
@@ -388,7 +388,7 @@ def no_pick_sentence(rec: dict, info: dict | None = None, summary=None) -> str:
     for row in summary.to_dict("records"):
         if variables and row.get("variable") not in variables:
             continue
-        misses = _shortfalls(row, goals, nominal, tol, labels)
+        misses = shortfalls(row, goals, nominal, tol, labels)
         score = max((s for s, _ in misses), default=0.0)
         if misses and (best is None or score < best[0]):
             best = (score, row, misses)

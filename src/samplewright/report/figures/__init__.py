@@ -33,6 +33,7 @@ from samplewright.report.figures.bias import bias_plot
 from samplewright.report.figures.cost_precision import cost_precision_plot
 from samplewright.report.figures.coverage import coverage_plot
 from samplewright.report.figures.frame_order import frame_order_plot
+from samplewright.report.figures.goal_map import goal_map_plot
 from samplewright.report.figures.intervals import interval_panel, interval_plot, zip_order
 from samplewright.report.figures.rows import all_rows, cell_label, primary_rows
 from samplewright.report.figures.sampling import sampling_distribution
@@ -47,12 +48,13 @@ from samplewright.report.figures.style import (
     new_figure,
     plain,
 )
+from samplewright.report.verdict import labels_of
 
 __all__ = ["DPI", "FIGURES", "FIG_WIDTH", "PALETTE", "FigureSpec", "all_rows", "allocation_plot", "bias_plot",
            "cell_label", "cost_precision_plot", "coverage_plot", "design_colours", "design_order",
-           "estimator_name", "figure_names", "frame_order_plot", "goals_of", "interval_panel", "interval_plot",
-           "keep_sizes", "make_figure", "picks_of", "plain", "primary_rows", "sampling_distribution", "se_plot",
-           "zip_order"]
+           "estimator_name", "figure_names", "frame_order_plot", "goal_map_plot", "goals_of", "interval_panel",
+           "interval_plot", "keep_sizes", "make_figure", "picks_of", "plain", "primary_rows", "sampling_distribution",
+           "se_plot", "zip_order"]
 
 
 @dataclass(frozen=True)
@@ -147,8 +149,23 @@ def _draw_order(res, var, keep):
     return fig
 
 
-#: the report's figures, in report order
+def _has_goal(res) -> bool:
+    return _has_rows(res) and isinstance(res.recommendation, dict)
+
+
+#: the report's figures, in report order (the first, "verdict", is the verdict card's chart)
 FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
+    FigureSpec(
+        "verdict",
+        "Which designs meet the goal",
+        "Each design at each rehearsed size (its default analysis): expected cost against the margin of error "
+        "the survey would publish (the average half-width of its intervals; the margin it achieves when the run "
+        "does not have it). The shaded region meets the margin goal within the budget; the ring marks the pick.",
+        False,
+        _has_goal,
+        lambda res, var, keep: _fig(goal_map_plot(res.summary, res.recommendation,
+                                                  labels_of(res.info, res.recommendation))),
+    ),
     FigureSpec(
         "sampling_distribution",
         "Where the estimates fall",
