@@ -21,6 +21,7 @@ import pandas as pd
 from samplewright.decision.recommend import COVERAGE_Z, coverage_acceptable
 from samplewright.report.figures.rows import cell_label
 from samplewright.report.figures.style import estimator_name
+from samplewright.report.names import variance_name
 from samplewright.report.table import cost_text, coverage_cell, is_exact, measure_text, percent_like
 from samplewright.report.verdict import money, num, unit_of, with_unit
 
@@ -70,6 +71,8 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
                 "coverage": coverage_cell(r.coverage, r.coverage_mcse, r.replicates, exact),
                 "coverage_flag": coverage_verdict(r.coverage, r.coverage_mcse, confidence),
                 "moe": num(r.moe),
+                "published_moe": show(getattr(r, "published_moe", None), getattr(r, "published_moe_mcse", 0.0)),
+                "variance": variance_name(getattr(r, "variance", None)),
                 "replicates": int(r.replicates),
             }
         )

@@ -13,7 +13,7 @@ import math
 import numpy as np
 import pandas as pd
 
-from samplewright.report.verdict import cost_header, coverage_interval, margin_header, money, num
+from samplewright.report.verdict import cost_header, coverage_interval, margin_header, mc_round, money, num
 
 
 def decimals_for(mcse: float, digits: int = 2) -> int:
@@ -114,18 +114,31 @@ def compact_columns(summary: pd.DataFrame, labels: dict) -> list[tuple[str, str]
     return cols
 
 
-def compact_rows(summary: pd.DataFrame) -> list[dict]:
-    """One row of display strings per design x size x variable, at each design's default analysis."""
+def with_moe_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> pd.DataFrame:
+    """``summary`` with the margin's Monte Carlo SE (``moe_mcse``) from the run's frontier, when it has one."""
+    if "moe_mcse" in summary.columns or frontier is None or "moe_mcse" not in frontier.columns:
+        return summary
+    keys = [k for k in ("design", "size", "estimator", "variance", "variable")
+            if k in summary.columns and k in frontier.columns]
+    extra = frontier[keys + ["moe_mcse"]].drop_duplicates(keys)
+    return summary.merge(extra, on=keys, how="left")
+
+
+def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) -> list[dict]:
+    """One row of display strings per design x size x variable, at each design's default analysis; the
+    margins rounded by their Monte Carlo SE (from ``frontier``, the run's frontier table, when given)."""
     exact = is_exact(summary)
     show, cost = measure_text(exact), cost_text(summary)
+    summary = with_moe_mcse(summary, frontier)
     out = []
     for var in dict.fromkeys(summary["variable"]):
         for r in default_rows(summary, var).to_dict("records"):
             pub = r.get("published_moe")
             out.append({
                 "design": r["design"], "size": f"{int(r['size']):,}", "variable": var, "mean_n": num(r["mean_n"]),
-                "mean_cost": cost(r["mean_cost"]), "moe": show(r["moe"], r.get("moe_mcse")),
-                "published_moe": "n/a" if pub is None else show(pub, r.get("published_moe_mcse")),
+                "mean_cost": cost(r["mean_cost"]), "moe": mc_round(r["moe"], None if exact else r.get("moe_mcse")),
+                "published_moe": "n/a" if pub is None
+                else mc_round(pub, None if exact else r.get("published_moe_mcse")),
                 "bias": show(r["bias"], r["bias_mcse"]),
                 "coverage": coverage_cell(r["coverage"], r["coverage_mcse"], r.get("replicates"), exact),
                 "estimator": r["estimator"],
@@ -133,10 +146,10 @@ def compact_rows(summary: pd.DataFrame) -> list[dict]:
     return out
 
 
-def format_compact(summary: pd.DataFrame, labels: dict) -> str:
+def format_compact(summary: pd.DataFrame, labels: dict, frontier: pd.DataFrame | None = None) -> str:
     """The compact table as plain text for a terminal (numbers right-aligned)."""
     cols = compact_columns(summary, labels)
-    rows = compact_rows(summary)
+    rows = compact_rows(summary, frontier)
     cells = [[h for _, h in cols]] + [[str(r[k]) for k, _ in cols] for r in rows]
     widths = [max(len(c[i]) for c in cells) for i in range(len(cols))]
     left = {"design", "variable"}

@@ -27,6 +27,11 @@ EXACT_INTERVAL_LEVEL = 0.95
 #: methods whose size counts clusters, and those whose sample is spread over strata
 CLUSTER_METHODS = ("cluster", "stratified_cluster")
 STRATIFIED_METHODS = ("stratified", "stratified_cluster")
+#: coverage tolerance when the recommendation names none ([goal] coverage_tolerance's default; common practice)
+DEFAULT_COVERAGE_TOLERANCE = 0.01
+#: Monte Carlo SEs by which a point must clear or miss a limit to be called either way in the comparison
+#: table (the z of the decision's three-state evidence rule, VERDICT_API)
+CLEAR_Z = 2.0
 PICK_NAMES = {"cheapest_meeting_moe": "the cheapest design meeting the margin",
               "best_within_budget": "the most precise design within the budget"}
 
@@ -328,7 +333,7 @@ def verdict_sentence(rec: dict | None, info: dict | None = None, summary=None) -
     return text + "."
 
 
-def _goal_text(goals: list[dict], labels: dict) -> str:
+def goal_text(goals: list[dict], labels: dict) -> str:
     """``a published margin of at most ±8 apples and an expected cost of at most 4,500 EUR``."""
     want = []
     for g in goals:
@@ -344,9 +349,24 @@ def _goal_text(goals: list[dict], labels: dict) -> str:
     return " and ".join(want)
 
 
-def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels: dict) -> list[tuple[float, str]]:
-    """(relative shortfall, words) of each criterion a summary row misses; empty when it meets them all."""
+def coverage_tolerance(rec: dict | None) -> float:
+    """How far below nominal a coverage may fall: recommendation.json ``coverage_tolerance``, else the
+    default of VERDICT_API (0.01, one percentage point; common practice)."""
+    t = (rec or {}).get("coverage_tolerance")
+    return float(t) if _finite(t) else DEFAULT_COVERAGE_TOLERANCE
+
+
+def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels: dict,
+               z: float = 0.0) -> list[tuple[float, str]]:
+    """(relative shortfall, words) of each criterion a summary row misses by more than ``z`` Monte Carlo SEs
+    (0: as measured; a negative ``z`` also counts the points too close to their limit to call); empty when
+    it meets them all."""
     out = []
+
+    def mc(key):
+        m = row.get(key)
+        return z * float(m) if _finite(m) else 0.0
+
     unit = unit_of(labels, row.get("variable"))
     g = _matching_goal({"variable": row.get("variable"), "domain": None}, goals) or {}
     goal_moe = g.get("moe")
@@ -354,17 +374,17 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
         goal_moe = float(g["relative_moe"]) * abs(float(row["truth"]))
     if _finite(goal_moe):
         for key, what in (("published_moe", "published margin"), ("moe", "achieved margin")):
-            if _finite(row.get(key)) and float(row[key]) > float(goal_moe):
+            if _finite(row.get(key)) and float(row[key]) - mc(key + "_mcse") > float(goal_moe):
                 out.append((float(row[key]) / float(goal_moe) - 1,
                             f"its {what} ±{with_unit(mc_round(row[key], row.get(key + '_mcse')), unit)} is above "
                             f"the goal ±{with_unit(num(goal_moe), unit)}"))
     budget = next((x.get("budget") for x in goals if x.get("budget") is not None), None)
-    if _finite(budget) and _finite(row.get("mean_cost")) and float(row["mean_cost"]) > float(budget):
+    if _finite(budget) and _finite(row.get("mean_cost")) and float(row["mean_cost"]) - mc("cost_mcse") > float(budget):
         out.append((float(row["mean_cost"]) / float(budget) - 1,
                     f"its expected cost {money(row['mean_cost'], labels)} is above the budget "
                     f"{money(budget, labels)}"))
     floor = nominal - tolerance
-    if _finite(row.get("coverage")) and float(row["coverage"]) < floor:
+    if _finite(row.get("coverage")) and float(row["coverage"]) + mc("coverage_mcse") < floor:
         out.append(((floor - float(row["coverage"])) / floor,
                     f"its intervals held the true value in {percent(row['coverage'], row.get('coverage_mcse'))} "
                     f"of samples against the promised {100 * nominal:g} %"))
@@ -376,13 +396,13 @@ def no_pick_sentence(rec: dict, info: dict | None = None, summary=None) -> str:
     labels = labels_of(info, rec)
     goals = goals_of(rec)
     text = "No rehearsed design meets the goal"
-    want = _goal_text(goals, labels)
+    want = goal_text(goals, labels)
     if want:
         text += f" ({want})"
     if summary is None or not len(summary):
         return text + "."
     nominal = float((info or {}).get("confidence") or (goals[0].get("confidence") if goals else None) or 0.95)
-    tol = float(rec.get("coverage_tolerance") or 0.0)
+    tol = coverage_tolerance(rec)
     variables = {g.get("variable") for g in goals if g.get("variable") is not None}
     best = None
     for row in summary.to_dict("records"):
@@ -494,8 +514,8 @@ def key_numbers(rec: dict | None, info: dict | None = None) -> list[tuple[str, s
             rows.append((f"Published margin{sub}", text + goal))
         if _finite(g.get("coverage")):
             conf = float((info or {}).get("confidence") or 0.95)
-            rows.append((f"Coverage{sub}", coverage_text(g["coverage"], g.get("coverage_mcse"), p.get("replicates"))
-                         + f" of {100 * conf:g} % intervals"))
+            rows.append((f"Coverage of the {100 * conf:g} % intervals{sub}",
+                         coverage_text(g["coverage"], g.get("coverage_mcse"), p.get("replicates"))))
     stability = rec.get("pick_stability")
     if _finite(stability):
         rounds = rec.get("stability_rounds")

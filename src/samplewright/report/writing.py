@@ -95,6 +95,6 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
     ctx["notes"] = ctx["notes"] + failed
     say("writing report.html and brief.md")
     page = write_text(render_html(ctx, drawn), p / "report.html")
-    write_text(render_brief(ctx), p / "brief.md")
+    write_text(render_brief(ctx, drawn), p / "brief.md")
     return page
 
