@@ -250,6 +250,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
                 goals_of(res, _var(res, var)),
                 var,
                 picks=picks_of(res, _var(res, var)),
+                labels=labels_of(res.info, res.recommendation),
             )
         ),
     ),
