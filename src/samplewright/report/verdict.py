@@ -334,15 +334,16 @@ def verdict_sentence(rec: dict | None, info: dict | None = None, summary=None) -
 
 
 def goal_text(goals: list[dict], labels: dict) -> str:
-    """``a published margin of at most ±8 apples and an expected cost of at most 4,500 EUR``."""
+    """``a margin of at most ±8 apples and an expected cost of at most 4,500 EUR`` (each margin goal names
+    its variable and domain when there are several)."""
     want = []
     for g in goals:
+        subject = _goal_subject(g) if len(goals) > 1 else ""
         if g.get("moe") is not None:
             want.append(f"a margin of at most ±{with_unit(num(g['moe']), unit_of(labels, g.get('variable')))}"
-                        + _goal_subject(g))
+                        + subject)
         elif g.get("relative_moe") is not None:
-            want.append(f"a margin of at most ±{num(100 * float(g['relative_moe']), 3)} % of the mean"
-                        + _goal_subject(g))
+            want.append(f"a margin of at most ±{num(100 * float(g['relative_moe']), 3)} % of the mean" + subject)
     budget = next((g.get("budget") for g in goals if g.get("budget") is not None), None)
     if budget is not None:
         want.append(f"an expected cost of at most {money(budget, labels)}")
