@@ -221,6 +221,8 @@ def test_units_and_currency_reach_the_sentence_tables_and_axes(labelled_run):
     assert ax.get_xlabel() == "Expected cost of one survey (NOK)" and "(kg)" in ax.get_ylabel()
     ax = back.figure("cost_precision").axes[0]
     assert "(NOK)" in ax.get_xlabel() and "(kg)" in ax.get_ylabel()
+    for name in ("bias", "se_check"):
+        assert "(apples, kg)" in back.figure(name).axes[0].get_xlabel(), name
     assert "Expected cost (NOK)" in stdout and "Margin (kg)" in stdout
 
 

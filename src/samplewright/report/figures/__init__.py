@@ -75,6 +75,11 @@ def _fig(ax_or_fig):
     return ax_or_fig if isinstance(ax_or_fig, Figure) else ax_or_fig.figure
 
 
+def _labels(res) -> dict:
+    """The run's words for money and units (run.json ``labels``, recommendation.json ``units``)."""
+    return labels_of(res.info, res.recommendation if isinstance(res.recommendation, dict) else None)
+
+
 def _confidence(res) -> float:
     return float((res.info or {}).get("confidence", 0.95))
 
@@ -163,8 +168,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "does not have it). The shaded region meets the margin goal within the budget; the ring marks the pick.",
         False,
         _has_goal,
-        lambda res, var, keep: _fig(goal_map_plot(res.summary, res.recommendation,
-                                                  labels_of(res.info, res.recommendation))),
+        lambda res, var, keep: _fig(goal_map_plot(res.summary, res.recommendation, _labels(res))),
     ),
     FigureSpec(
         "sampling_distribution",
@@ -175,7 +179,8 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "middle 95%.",
         True,
         _has_reps,
-        lambda res, var, keep: sampling_distribution(res.replicates, res.summary, var, keep=keep),
+        lambda res, var, keep: sampling_distribution(res.replicates, res.summary, var, keep=keep,
+                                                     labels=_labels(res)),
         "One panel per design, each on its own scale: each shape is the spread of the design's estimates at one "
         "size over every possible sample, weighted by its probability; the dashed line is the true population "
         "value. Thick bar: the middle half of the estimates, thin line: the middle 95%.",
@@ -190,7 +195,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "gives the bias as a percentage of the true value.",
         True,
         _has_rows,
-        lambda res, var, keep: _fig(bias_plot(res.summary, var, keep=keep)),
+        lambda res, var, keep: _fig(bias_plot(res.summary, var, keep=keep, labels=_labels(res))),
         "How far the average estimate over every possible sample sits from the truth: the exact bias of each "
         "design for this frame, with no simulation error. The top axis gives the bias as a percentage of the "
         "true value.",
@@ -217,7 +222,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "points below it belong to designs whose formula understates the uncertainty.",
         True,
         _has_rows,
-        lambda res, var, keep: _fig(se_plot(res.summary, var, keep=keep)),
+        lambda res, var, keep: _fig(se_plot(res.summary, var, keep=keep, labels=_labels(res))),
         "Each point compares the standard error the analysis would report (vertical) with the real spread of "
         "the estimates over every possible sample (horizontal). Points on the dashed diagonal are honest; "
         "points below it belong to designs whose formula understates the uncertainty.",
@@ -232,7 +237,8 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "intervals lie (Morris, White and Crowther 2019).",
         True,
         _has_reps,
-        lambda res, var, keep: interval_plot(res.replicates, res.summary, _confidence(res), var, keep=keep),
+        lambda res, var, keep: interval_plot(res.replicates, res.summary, _confidence(res), var, keep=keep,
+                                             labels=_labels(res)),
     ),
     FigureSpec(
         "cost_precision",
@@ -250,7 +256,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
                 goals_of(res, _var(res, var)),
                 var,
                 picks=picks_of(res, _var(res, var)),
-                labels=labels_of(res.info, res.recommendation),
+                labels=_labels(res),
             )
         ),
     ),

@@ -21,6 +21,7 @@ from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 from samplewright.report.names import estimator_name
+from samplewright.report.verdict import unit_of
 
 #: Okabe-Ito colours in the order designs receive them (black is kept for "misses" and truth lines)
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#999999")
@@ -101,6 +102,13 @@ def plain(text) -> str:
 
 def marker_map(rows: pd.DataFrame) -> dict[str, str]:
     return {e: MARKERS[i % len(MARKERS)] for i, e in enumerate(dict.fromkeys(rows["estimator"]))}
+
+
+def quantity(variable, labels: dict | None = None) -> str:
+    """A variable as an axis names it, with its unit from the scenario's ``[labels]`` when given
+    (``"apples, kg"``), escaped for matplotlib."""
+    unit = unit_of(labels or {}, variable)
+    return plain(f"{variable}, {unit}" if unit else variable)
 
 
 def estimator_legend(ax, markers, above: bool = True):
