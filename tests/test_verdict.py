@@ -288,3 +288,32 @@ def test_the_demo_report_reads_without_python_reprs(demo_run):
     assert rec["statement"] in demo_run.stdout and "e+" not in demo_run.stdout
     assert sum(1 for ln in brief.splitlines() if ln.startswith("**Verdict.**")) == 1
     assert all(w in rec["statement"] for w in ("EUR", "apples", "trees"))
+
+
+def test_the_report_shows_the_new_recommendation_keys_when_the_decision_writes_them(labelled_run, tmp_path):
+    # the keys of VERDICT_API added by hand to a finished run: published margins and a variance column in the
+    # summary, the pick's stability, runner-up and an undecided point in the recommendation
+    out, _ = labelled_run
+    res = samplewright.read_run(out)
+    s = res.summary
+    res.summary = s.assign(published_moe=s["moe"] * 1.1, published_moe_mcse=0.01, published_moe_p90=s["moe"] * 1.3,
+                           variance=["srs" if m == "srs" else "successive_differences" for m in s["method"]])
+    key = next(k for k in ("cheapest_meeting_moe", "best_within_budget") if res.recommendation.get(k))
+    p = res.recommendation[key]
+    row = res.summary[(res.summary["design"] == p["design"]) & (res.summary["size"] == p["size"])
+                      & (res.summary["estimator"] == p["estimator"])].iloc[0]
+    p.update(variance=row["variance"], published_moe=float(row["published_moe"]), published_moe_mcse=0.01,
+             published_moe_p90=float(row["published_moe_p90"]))
+    res.recommendation.update(pick=key, pick_stability=0.915, stability_rounds=200, runner_up=None,
+                              runner_up_share=0.0, undecided=[{**{k: p[k] for k in ("design", "size", "estimator",
+                                                                                     "variable", "method")},
+                                                               "variance": p["variance"], "criterion": "margin",
+                                                               "value": 39.9, "mcse": 0.4, "limit": 40.0,
+                                                               "replicates": 200, "replicates_needed": 1800}])
+    d = res.write(tmp_path / "again")
+    html = samplewright.write_report(res, d).read_text(encoding="utf-8")
+    assert ">Published margin (kg)</th>" in html and ">Variance</th>" in html
+    assert "this pick held in 92 % of 200 re-rehearsals" in html  # 0.915 shown to whole per cent
+    assert "about 1,800 replicates would settle it (200 were run)" in html
+    brief = (d / "brief.md").read_text(encoding="utf-8")
+    assert "Published margin (kg)" in brief and "Stability: 92 % of 200 re-rehearsals" in brief
