@@ -177,3 +177,23 @@ def test_the_verdict_card_comes_above_every_table(browser, report):
             browser.set_window_size(1200, 1600)
         assert card[2] > 100 and sentence.startswith(("Use '", "No rehearsed design")), (card, sentence)
         assert len(tops) >= 4 and all(card[1] <= t for t in tops), (width, card, tops)
+
+
+def test_printed_on_a4_every_table_fits_the_text_width(browser, report):
+    # A4 is 21 cm wide; less the 2 cm margins of the page's @page rule that leaves 17 cm = 643 CSS pixels
+    # at 96 pixels per inch (CSS Values and Units, 1 in = 96 px)
+    browser.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": "print"})
+    browser.set_window_size(643, 1200)
+    try:
+        _open(browser, report)
+        widths = browser.execute_script(
+            "return [document.documentElement.clientWidth,"
+            " Array.from(document.querySelectorAll('table')).map(t => t.getBoundingClientRect().width),"
+            " document.querySelector('#summary table').getBoundingClientRect().height]"
+        )
+    finally:
+        browser.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": ""})
+        browser.set_window_size(1200, 1600)
+    page, tables, full = widths
+    assert page <= 643 and all(w <= page + 1 for w in tables), widths
+    assert full > 0  # the collapsible full table is printed too
