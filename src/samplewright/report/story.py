@@ -36,7 +36,6 @@ from samplewright.report.verdict import (
     undecided_sentences,
     unit_of,
     verdict_sentence,
-    with_unit,
 )
 
 CAUTIONS = [
@@ -98,17 +97,17 @@ def figure_plan(res) -> list[dict]:
     return plan
 
 
-def _pick_row(p: dict, label: str, labels: dict, info: dict) -> dict:
-    unit = unit_of(labels, p.get("variable"))
+def _pick_row(p: dict, label: str, info: dict) -> dict:
+    """A pick as a table row (the currency and unit are in the table's headers)."""
     return {
         "label": label,
         "design": p.get("design"),
         "size": p.get("size"),
         "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
         "analysis": analysis_text(p, info),
-        "mean_cost": money(p.get("mean_cost"), labels, p.get("cost_mcse")),
-        "moe": with_unit(mc_round(p.get("moe"), p.get("moe_mcse")), unit),
-        "published_moe": with_unit(mc_round(p.get("published_moe"), p.get("published_moe_mcse")), unit)
+        "mean_cost": money(p.get("mean_cost"), None, p.get("cost_mcse")),
+        "moe": mc_round(p.get("moe"), p.get("moe_mcse")),
+        "published_moe": mc_round(p.get("published_moe"), p.get("published_moe_mcse"))
         if p.get("published_moe") is not None else "n/a",
         "coverage": coverage_text(p.get("coverage"), p.get("coverage_mcse"), p.get("replicates")),
         "interpolated": bool(p.get("interpolated", False)),
@@ -128,7 +127,7 @@ def recommendation_context(res, labels: dict) -> dict | None:
     if not isinstance(rec, dict):
         return None
     info = res.info or {}
-    picks = [_pick_row(rec[k], label, labels, info) for k, label in PICKS if isinstance(rec.get(k), dict)]
+    picks = [_pick_row(rec[k], label, info) for k, label in PICKS if isinstance(rec.get(k), dict)]
     missing = [label for k, label in PICKS if k in rec and not isinstance(rec.get(k), dict)]
     passed = []
     for p in rec.get("passed_over") or []:
