@@ -145,7 +145,6 @@ def recommendation_context(res, labels: dict) -> dict | None:
     conf = goal.get("confidence")
     want = goal_text(goals_of(rec), labels)
     return {
-        "statement": verdict_sentence(rec, info, res.summary),
         "picks": picks,
         "unmet": missing,
         "passed_over": passed,
@@ -156,15 +155,13 @@ def recommendation_context(res, labels: dict) -> dict | None:
     }
 
 
-def verdict_context(res, labels: dict) -> dict:
+def verdict_context(res) -> dict:
     """The verdict card: the sentence, the undecided points, the key numbers."""
     rec, info = res.recommendation, res.info or {}
-    _, pick = pick_of(rec)
     return {
         "sentence": verdict_sentence(rec, info, res.summary),
         "undecided": undecided_sentences(rec, info),
         "numbers": key_numbers(rec, info),
-        "has_pick": pick is not None,
         "has_goal": isinstance(rec, dict),
     }
 
@@ -206,8 +203,8 @@ def comparison_rows(res, labels: dict) -> list[dict]:
     tol = coverage_tolerance(rec)
     summary = with_moe_mcse(summary, res.frontier)
     rows = default_rows(summary, var).to_dict("records")
-    if pick is not None:
-        rows += [r for r in summary[summary["variable"] == var].to_dict("records") if _same_point(r, pick)]
+    if pick is not None and not any(_same_point(r, pick) for r in rows):  # the pick analysed otherwise
+        rows += [r for r in summary[summary["variable"] == var].to_dict("records") if _same_point(r, pick)][:1]
     exact = bool(info.get("exact"))
     out = []
     for design in dict.fromkeys(r["design"] for r in rows):
@@ -405,7 +402,7 @@ def build_context(res, folder: Path | None = None) -> dict:
         "frame": frame_context(res),
         "designs": design_rows(res),
         "recommendation": rec,
-        "verdict": verdict_context(res, labels),
+        "verdict": verdict_context(res),
         "comparison": comparison_rows(res, labels),
         "labels": labels,
         "cost_header": cost_header(labels),
