@@ -20,20 +20,18 @@ from __future__ import annotations
 
 import math
 
+from samplewright.designs.registry import DESIGN_CLASSES
 from samplewright.report.names import estimator_name, method_name, variance_name
 
 #: confidence level of the exact binomial interval shown for a coverage of 0 or 1
 EXACT_INTERVAL_LEVEL = 0.95
-#: methods whose size counts clusters, and those whose sample is spread over strata
-CLUSTER_METHODS = ("cluster", "stratified_cluster")
+#: methods whose sample is spread over the frame's strata (their size is said "in S strata")
 STRATIFIED_METHODS = ("stratified", "stratified_cluster")
 #: coverage tolerance when the recommendation names none ([goal] coverage_tolerance's default; common practice)
 DEFAULT_COVERAGE_TOLERANCE = 0.01
 #: Monte Carlo SEs by which a point must clear or miss a limit to be called either way in the comparison
 #: table (the z of the decision's three-state evidence rule, VERDICT_API)
 CLEAR_Z = 2.0
-PICK_NAMES = {"cheapest_meeting_moe": "the cheapest design meeting the margin",
-              "best_within_budget": "the most precise design within the budget"}
 
 
 # ------------------------------------------------------------------ numbers
@@ -187,7 +185,8 @@ def size_text(method, size, mean_n=None, labels: dict | None = None, strata=None
     lab = labels or labels_of(None)
     if size is None:
         return "n/a"
-    if method in CLUSTER_METHODS:
+    cls = DESIGN_CLASSES.get(method)
+    if cls is not None and cls.size_key == "clusters":  # the size counts clusters
         text = f"{int(size):,} {lab['cluster']}"
         if _finite(mean_n):
             text += f" (about {num(float(mean_n), 3)} {lab['unit']})"
