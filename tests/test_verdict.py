@@ -317,3 +317,21 @@ def test_the_report_shows_the_new_recommendation_keys_when_the_decision_writes_t
     assert "about 1,800 replicates would settle it (200 were run)" in html
     brief = (d / "brief.md").read_text(encoding="utf-8")
     assert "Published margin (kg)" in brief and "Stability: 92 % of 200 re-rehearsals" in brief
+
+
+def test_several_goals_and_a_relative_margin_each_get_their_clause():
+    goals = [{"relative_moe": 0.05, "budget": 4500.0, "variable": "apples", "domain": None},
+             {"moe": 3.0, "variable": "pears", "domain": "north"}]
+    pick = _pick(goals=[
+        {"variable": "apples", "domain": None, "moe_goal": 9.1, "moe": 5.3, "published_moe": 6.14,
+         "published_moe_p90": 6.5, "coverage": 0.95, "coverage_mcse": 0.005},
+        {"variable": "pears", "domain": "north", "moe_goal": 3.0, "moe": 2.2, "published_moe": 2.46,
+         "published_moe_p90": 2.7, "coverage": 0.94, "coverage_mcse": 0.005}])
+    labels = {**LABELS, "variables": {"apples": "kg", "pears": "kg"}}
+    rec = _rec(cheapest_meeting_moe=pick, goals=goals, units={"currency": "EUR", "variables": labels["variables"]})
+    s = V.verdict_sentence(rec, {**INFO, "labels": labels})
+    # relative goal: the fraction of the true mean and the margin it means (the pick's moe_goal)
+    assert "published margin ±6.14 kg against the goal ±5 % of the mean (±9.1 kg) for 'apples'" in s
+    assert "published margin ±2.46 kg against the goal ±3 kg for 'pears' in 'north'" in s
+    names = [k for k, _ in V.key_numbers(rec, {**INFO, "labels": labels})]
+    assert "Published margin for 'pears' in 'north'" in names
