@@ -23,7 +23,7 @@ from samplewright.report.figures.rows import cell_label
 from samplewright.report.figures.style import estimator_name
 from samplewright.report.names import variance_name
 from samplewright.report.table import cost_text, coverage_cell, is_exact, measure_text, percent_like
-from samplewright.report.verdict import money, num, unit_of, with_unit
+from samplewright.report.verdict import mc_round, money, num, unit_of, with_unit
 
 #: an estimated SE this far from the empirical SE (ratio) is worth a sentence (common practice)
 SE_RATIO_NOTE = 0.2
@@ -81,7 +81,8 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
 
 def findings(summary: pd.DataFrame, confidence: float, labels: dict | None = None) -> list[str]:
     """Sentences a reader needs from the summary: precision, cost, and intervals that lie (money and
-    units in the words of ``labels``, :func:`samplewright.report.verdict.labels_of`)."""
+    units in the words of ``labels``, :func:`samplewright.report.verdict.labels_of`; margins rounded by
+    their Monte Carlo SE when the summary has ``moe_mcse``, :func:`samplewright.report.table.with_moe_mcse`)."""
     out = []
     labels = labels or {}
     nominal = f"{100 * confidence:g}%"
@@ -102,7 +103,7 @@ def findings(summary: pd.DataFrame, confidence: float, labels: dict | None = Non
             best = honest.loc[honest["rmse"].idxmin()]
             out.append(
                 f"Most precise for the mean {var} among designs whose intervals keep their promise: "
-                f"{lab[best.name]}, margin of error {with_unit(num(best.moe), unit)}"
+                f"{lab[best.name]}, margin of error {with_unit(mc_round(best.moe, best.get('moe_mcse')), unit)}"
                 + (f" at an average cost of {money(best.mean_cost, labels)}" if costed else "")
                 + f" (design effect {num(best.deff, 3)})."
             )
@@ -110,7 +111,7 @@ def findings(summary: pd.DataFrame, confidence: float, labels: dict | None = Non
             if costed and cheap.name != best.name and cheap.mean_cost < best.mean_cost:
                 out.append(
                     f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost, labels)}, "
-                    f"margin of error {with_unit(num(cheap.moe), unit)}."
+                    f"margin of error {with_unit(mc_round(cheap.moe, cheap.get('moe_mcse')), unit)}."
                 )
         else:
             out.append(f"No design's intervals for the mean {var} reach the promised {nominal} coverage.")

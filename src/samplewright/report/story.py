@@ -411,7 +411,8 @@ def build_context(res, folder: Path | None = None) -> dict:
         "table_units": _table_units(res.summary, labels),
         "has_published": "published_moe" in res.summary.columns,
         "has_variance": "variance" in res.summary.columns,
-        "findings": findings(res.summary[res.summary["variable"].isin(figure_variables(res))], confidence, labels)
+        "findings": findings(with_moe_mcse(res.summary[res.summary["variable"].isin(figure_variables(res))],
+                                           res.frontier), confidence, labels)
         if len(res.summary)
         else [],
         "summary_rows": rows,
