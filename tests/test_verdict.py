@@ -335,3 +335,27 @@ def test_several_goals_and_a_relative_margin_each_get_their_clause():
     assert "published margin ±2.46 kg against the goal ±3 kg for 'pears' in 'north'" in s
     names = [k for k, _ in V.key_numbers(rec, {**INFO, "labels": labels})]
     assert "Published margin for 'pears' in 'north'" in names
+
+
+def test_the_verdict_chart_shades_the_goal_rings_the_pick_and_its_labels_do_not_overlap(labelled_run):
+    from matplotlib.patches import Rectangle
+    from matplotlib.text import Annotation, Text
+
+    out, _ = labelled_run
+    back = samplewright.read_run(out)
+    fig = back.figure("verdict")
+    ax = fig.axes[0]
+    shade = [p for p in ax.patches if isinstance(p, Rectangle)]
+    assert len(shade) == 1
+    x0, y0 = shade[0].get_xy()
+    # the region meeting the goal: up to the budget (2,000,000) and down from the margin goal (40)
+    assert y0 == 0 and x0 + shade[0].get_width() == pytest.approx(2_000_000.0)
+    assert shade[0].get_height() == pytest.approx(40.0)
+    texts = [t for t in ax.texts if isinstance(t, Annotation)]
+    key = next(k for k in ("cheapest_meeting_moe", "best_within_budget") if back.recommendation.get(k))
+    assert any(t.get_text().startswith(f"pick: {back.recommendation[key]['design']}") for t in texts)
+    renderer = fig.canvas.get_renderer()
+    boxes = [Text.get_window_extent(t, renderer) for t in texts]  # the text alone, without its leader
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1:]:
+            assert not a.overlaps(b), (a, b)
