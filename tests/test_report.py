@@ -22,9 +22,11 @@ import pytest
 import samplewright
 from samplewright.cli import main as cli
 from samplewright.report import figures as F
-from samplewright.report.findings import coverage_verdict, with_mcse
+from samplewright.report.findings import coverage_verdict
+from samplewright.report.table import with_mcse
 
 EXPECTED_FIGURES = {
+    "verdict",
     "sampling_distribution",
     "bias",
     "coverage",
@@ -206,15 +208,18 @@ def test_brief_tells_the_story_on_one_page(run_dir):
     brief = (out / "brief.md").read_text(encoding="utf-8")
     assert brief.startswith("<!-- samplewright")
     assert "# Depot tyre-wear audit (test)" in brief
+    evidence = brief.split("**Evidence**", 1)[1].split("\n\n", 2)[1]  # the table after the heading line
     table = [
-        ln for ln in brief.splitlines() if ln.startswith("| ") and not ln.startswith(("| Design", "| ---"))
+        ln for ln in evidence.splitlines() if ln.startswith("| ") and not ln.startswith(("| Design", "| ---"))
     ]
     cells = res.summary[["design", "size"]].drop_duplicates()
     assert len(table) == len(cells)
+    # the verdict card comes first: the sentence, then the key numbers, then the chart
+    assert brief.index("**Verdict.**") < brief.index("![") < brief.index("| Design")
     assert "--seed 99 --replicates 300" not in brief  # a scenario built in Python has no file to re-run
     assert "samplewright.run(scenario, replicates=300, seed=99)" in brief
     assert "qualified statistician" in brief
-    assert len(brief.splitlines()) < 60
+    assert len(brief.splitlines()) < 75
 
 
 @pytest.mark.slow
@@ -298,7 +303,7 @@ def test_recommendation_and_goals_are_shown_when_the_run_has_them(run_dir):
     assert "budget 900" in labels and "target margin of error 6" in labels
     assert "frontier (best for the cost)" in labels
     brief = (out / "brief.md").read_text(encoding="utf-8")
-    assert "**Recommendation.** " + rec["statement"] in brief
+    assert "**Verdict.** " + rec["statement"] in brief
 
 
 def test_numbers_are_rounded_to_their_monte_carlo_error():

@@ -103,7 +103,8 @@ def report(tmp_path_factory):
 def test_report_renders_offline_without_console_errors(browser, report, tmp_path):
     errors = _open(browser, report)
     assert errors == [], errors
-    for sid in ("scenario", "recommendation", "summary", "figures", "warnings", "metadata", "cautions"):
+    for sid in ("verdict", "comparison", "scenario", "recommendation", "summary", "figures", "warnings", "metadata",
+                "cautions"):
         assert browser.execute_script(f"return document.getElementById('{sid}').offsetHeight") > 0, sid
     imgs = browser.execute_script(
         "return Array.from(document.images).map(i => [i.complete, i.naturalWidth, i.naturalHeight])"
@@ -146,10 +147,53 @@ def test_on_a_phone_width_the_summary_scrolls_and_the_page_does_not(browser, rep
             "return [document.documentElement.scrollWidth, document.documentElement.clientWidth]"
         )
         table = browser.execute_script(
+            "document.querySelectorAll('details').forEach(d => d.open = true);"  # the full table is collapsible
             "const w = document.querySelector('#summary .wide');"
             "return [w.scrollWidth, w.clientWidth, getComputedStyle(w).overflowX]"
+        )
+        page_open = browser.execute_script(
+            "return [document.documentElement.scrollWidth, document.documentElement.clientWidth]"
         )
     finally:
         browser.set_window_size(1200, 1600)
     assert page[0] <= page[1] + 1, page  # nothing cut off at the page's edge
+    assert page_open[0] <= page_open[1] + 1, page_open  # nor with every table opened
     assert table[2] == "auto" and table[0] > table[1], table  # the table scrolls inside its wrapper
+
+
+def test_the_verdict_card_comes_above_every_table(browser, report):
+    for width in (1200, 375):  # a desktop window and a phone (375 CSS pixels, from memory)
+        browser.set_window_size(width, 1600)
+        try:
+            _open(browser, report)
+            card, tops = browser.execute_script(
+                "document.querySelectorAll('details').forEach(d => d.open = true);"
+                "const c = document.getElementById('verdict').getBoundingClientRect();"
+                "const t = Array.from(document.querySelectorAll('table')).map(x => x.getBoundingClientRect().top);"
+                "return [[c.top, c.bottom, c.height], t]"
+            )
+            sentence = browser.execute_script("return document.querySelector('#verdict .sentence').innerText")
+        finally:
+            browser.set_window_size(1200, 1600)
+        assert card[2] > 100 and sentence.startswith(("Use '", "No rehearsed design")), (card, sentence)
+        assert len(tops) >= 4 and all(card[1] <= t for t in tops), (width, card, tops)
+
+
+def test_printed_on_a4_every_table_fits_the_text_width(browser, report):
+    # A4 is 21 cm wide; less the 2 cm margins of the page's @page rule that leaves 17 cm = 643 CSS pixels
+    # at 96 pixels per inch (CSS Values and Units, 1 in = 96 px)
+    browser.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": "print"})
+    browser.set_window_size(643, 1200)
+    try:
+        _open(browser, report)
+        widths = browser.execute_script(
+            "return [document.documentElement.clientWidth,"
+            " Array.from(document.querySelectorAll('table')).map(t => t.getBoundingClientRect().width),"
+            " document.querySelector('#summary table').getBoundingClientRect().height]"
+        )
+    finally:
+        browser.execute_cdp_cmd("Emulation.setEmulatedMedia", {"media": ""})
+        browser.set_window_size(1200, 1600)
+    page, tables, full = widths
+    assert page <= 643 and all(w <= page + 1 for w in tables), widths
+    assert full > 0  # the collapsible full table is printed too

@@ -217,8 +217,8 @@ def test_no_cost_model_is_said_once_and_the_cost_column_is_left_out(tmp_path):
     out, err, info = _run(tmp_path, sc)
     assert sum(ln.startswith("note: costs are not modelled") for ln in err.splitlines()) == 1, err
     assert sum("costs are not modelled" in n for n in info["notes"]) == 1
-    header = next(ln for ln in out.splitlines() if ln.strip().startswith("design"))
-    assert "mean_cost" not in header and "coverage" in header
+    header = next(ln for ln in out.splitlines() if ln.strip().startswith("Design"))
+    assert "Expected cost" not in header and "Coverage" in header
     summary = pd.read_csv(tmp_path / "o" / "summary.csv")
     assert (summary["mean_cost"] == 0).all()  # the contract column stays, at 0
 
@@ -226,8 +226,8 @@ def test_no_cost_model_is_said_once_and_the_cost_column_is_left_out(tmp_path):
 def test_with_a_cost_model_the_cost_column_is_printed(tmp_path):
     sc = _scenario(tmp_path, SRS, replicates=600, extra="[cost]\nfixed = 100.0\nper_unit = 2.0\n")
     out, err, _ = _run(tmp_path, sc)
-    header = next(ln for ln in out.splitlines() if ln.strip().startswith("design"))
-    assert "mean_cost" in header
+    header = next(ln for ln in out.splitlines() if ln.strip().startswith("Design"))
+    assert "Expected cost" in header
     # SRS of n = 50: cost = 100 + 50 x 2 = 200 in every replicate (the linear cost model)
     assert " 200" in out and "note: costs are not modelled" not in err
 
@@ -283,7 +283,8 @@ def test_exact_mode_texts_say_the_exact_thing():
     texts = ([*ctx["findings"], *ctx["warnings"], *ctx["cautions"], ctx["reproduce"]]
              + [f"{k} {v}" for k, v in ctx["metadata"]]
              + [str(r[k]) for r in ctx["summary_rows"] for k in ("bias", "empirical_se", "coverage")]
-             + [str(r[k]) for r in ctx["brief_rows"] for k in ("bias", "coverage")])
+             + [str(r[k]) for r in ctx["compact_rows"] for k in ("bias", "coverage")]
+             + [str(r[k]) for r in ctx["comparison"] for k in ("moe", "coverage")] + [ctx["verdict"]["sentence"]])
     for t in texts:
         assert not any(word in t.lower() for word in MC_WORDS), t
     assert not any("(" in str(r["coverage"]) for r in ctx["summary_rows"])  # no bracketed error
@@ -306,7 +307,7 @@ def test_exact_mode_texts_say_the_exact_thing():
     assert len(low) == 1 and "possible samples" in low[0] and "exact coverage" in low[0]
     assert "exact=True" in ctx["reproduce"] and "seed" not in ctx["reproduce"]
     # no cost model: the report's tables show a dash, not a cost of 0 everywhere
-    assert {r["mean_cost"] for r in ctx["summary_rows"] + ctx["brief_rows"]} == {"\u2014"}
+    assert {r["mean_cost"] for r in ctx["summary_rows"] + ctx["compact_rows"] + ctx["comparison"]} == {"\u2014"}
 
 
 # ------------------------------------------------------------------ help and version

@@ -32,6 +32,7 @@ from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.nonresponse import summary_columns
 from samplewright.evaluation.stopping import Rule, parse_until
 from samplewright.population.frame import Frame
+from samplewright.report import verdict
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
 from samplewright.simulation.checkpoint import BlockStore
 from samplewright.simulation.engine import replicate_table, simulate, simulate_until
@@ -250,6 +251,7 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
         "simulation_seconds": round(seconds + settled["seconds"], 3), "frame_order": res.info["frame_order"],
         "evidence": settled, "replicates_used": _replicates_used(res.summary)}
     res.warnings = warned
+    _words(res, scenario)
     return res
 
 
@@ -547,7 +549,7 @@ def _frame_info(frame: Frame) -> dict:
 
 
 def _designs_info(scenario: Scenario) -> list[dict]:
-    return [{"label": d.label, "method": d.method, "parameters": repr(d), "variance": d.variance_name,
+    return [{"label": d.label, "method": d.method, "parameters": d.settings, "variance": d.variance_name,
              "variances": list(d.variance_names)}
             for d in scenario.designs]
 
@@ -574,6 +576,7 @@ def _run_info(plan: RunPlan, scenario: Scenario, stopping, warned: list, notes: 
         "confidence": plan.confidence,
         "frame": frame_info,
         "designs": _designs_info(scenario),
+        "labels": scenario.labels.as_dict(),
         "versions": _versions(),
         "elapsed_seconds": None,
         "simulation_seconds": None,
@@ -619,6 +622,7 @@ def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, 
         "frame": {**{k: frame_info[k] for k in ("units", "strata", "clusters")},
                   "variables": list(frame.layout.names), "roles": frame_info["roles"], "source": frame_info["source"]},
         "designs": _designs_info(scenario),
+        "labels": scenario.labels.as_dict(),
         "versions": _versions(),
         "elapsed_seconds": round(time.monotonic() - started, 3),
         "enumeration_seconds": round(enumerated - enumeration_started, 3),
@@ -636,6 +640,19 @@ def _decide(res: RunResult, scenario: Scenario, seed: int) -> None:
         res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario, seed)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         _late_failure(res, "the cost-precision frontier and recommendation", exc)
+
+
+def _words(res: RunResult, scenario: Scenario) -> None:
+    """The recommendation's units and its statement: the verdict sentence (report/verdict.py), once the run's
+    information is complete."""
+    rec = res.recommendation
+    if rec is None:
+        return
+    try:
+        rec["units"] = {"currency": scenario.labels.currency, "variables": dict(scenario.labels.units)}
+        rec["statement"] = verdict.verdict_sentence(rec, res.info, res.summary)
+    except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
+        _late_failure(res, "the verdict sentence", exc)
 
 
 def _late_failure(res: RunResult, what: str, exc: Exception) -> None:

@@ -132,14 +132,19 @@ def simulate_and_write(scenario, args, program: str) -> int:
         except Exception as exc:  # noqa: BLE001 -- the tables are written: say what failed, keep them
             failures.append(("the report (figures/, report.html, brief.md)", exc))
     if not args.quiet:
-        print(format_summary(res.summary))
+        print(format_summary(res))
         if res.info.get("stopping"):
             from samplewright.evaluation.stopping import Rule, format_report
 
             st = res.info["stopping"]
             print(format_report(st["cells"], Rule(st["targets"], st["max_replicates"], st["until"])))
-        if res.recommendation is not None:  # the plain-language pick (recommend.py)
-            print("\nrecommendation: " + res.recommendation["statement"] + "\n")
+        if res.recommendation is not None:  # the verdict sentence (report/verdict.py)
+            from samplewright.report.verdict import undecided_sentences
+
+            print("\nrecommendation: " + res.recommendation["statement"])
+            for line in undecided_sentences(res.recommendation, res.info):
+                print(line)
+            print()
         if res.stress is not None:  # what would change the pick (report/stress.py)
             from samplewright.report.stress import stress_context
 
@@ -167,9 +172,17 @@ def late_failure_status(failures, out, args) -> int:
     return 2 if all(isinstance(exc, InputError) for _, exc in failures) else 1
 
 
-def format_summary(summary) -> str:
-    """The summary printed after a run; without a cost model (every mean_cost 0) the cost column is left out."""
-    cols = ["design", "size", "estimator", "variable", "bias", "empirical_se", "mean_se", "coverage", "deff",
-            "mean_n"] + (["mean_cost"] if (summary["mean_cost"] != 0).any() else [])
-    s = summary[cols].copy()
-    return s.to_string(index=False, float_format=lambda v: f"{v:.4g}")
+def format_summary(res) -> str:
+    """The compact table printed after a run: one row per design x size for each variable at each design's
+    default analysis, rounded, costs with thousands separators (report/table.py); summary.csv has the rest.
+    Without a cost model (every mean_cost 0) the cost column is left out."""
+    from samplewright.report.names import estimator_name
+    from samplewright.report.table import format_compact
+    from samplewright.report.verdict import labels_of
+
+    if res.summary is None or not len(res.summary):
+        return "(no rows in the summary)"
+    labels = labels_of(res.info, res.recommendation if isinstance(res.recommendation, dict) else None)
+    text = format_compact(res.summary, labels, res.frontier)
+    first = dict.fromkeys(estimator_name(e) for e in res.summary.groupby("design", sort=False)["estimator"].first())
+    return text + f"\n(each design's first estimator: {', '.join(first)}; every row is in summary.csv)"

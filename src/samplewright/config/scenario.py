@@ -16,6 +16,7 @@ from pathlib import Path
 from samplewright.config.costs import KEYS as COST_KEYS
 from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
 from samplewright.config.goal import DESIGN_WIDE, Goal
+from samplewright.config.labels import Labels, labels_spec
 from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
 from samplewright.config.stress import StressSpec, stress_spec
 from samplewright.config.synthetic import CLUSTER_KEYS, STRATUM_KEYS, SyntheticSpec
@@ -34,7 +35,7 @@ from samplewright.config.validate import (
 from samplewright.errors import InputError, show
 
 TOP_KEYS = ("title", "seed", "replicates", "confidence", "block_size", "frame", "design", "cost",
-            "response", "frame_error", "goal", "assumption", "stress")
+            "response", "frame_error", "goal", "assumption", "stress", "labels")
 FRAME_KEYS = ("path", "synthetic", "target", "stratum", "cluster", "size", "order", "unit_cost", "id", "missing",
               "auxiliary", "poststratum", "domain", "domains", "cluster_cost") + READ_KEYS
 GOAL_KEYS = ("moe", "relative_moe", "budget", "confidence", "variable", "domain", "coverage_tolerance",
@@ -251,6 +252,7 @@ class ScenarioSpec:
     block_size: int = DEFAULT_BLOCK
     cost: dict = field(default_factory=dict)  # the cost model's rates, checked
     goals: tuple[Goal, ...] = ()
+    labels: Labels = field(default_factory=Labels)  # [labels]: currency, unit words (config/labels.py)
     response: dict | None = None  # the [response] table (simulation/response.py checks it)
     frame_error: dict | None = None  # the [frame_error] table (population/frame_errors.py checks it)
     stress: StressSpec | None = None  # the [[assumption]] and [stress] tables (config/stress.py)
@@ -291,6 +293,8 @@ def parse_scenario(doc: dict, base: Path | str = ".", source: Path | None = None
         kw["cost"] = _cost_rates(doc["cost"])
     if "goal" in doc:
         kw["goals"] = goals(doc["goal"], frame.roles)
+    if "labels" in doc:
+        kw["labels"] = labels_spec(doc["labels"], frame.roles.get("target"))
     for table in ("response", "frame_error"):
         if table in doc:
             kw[table] = doc[table]

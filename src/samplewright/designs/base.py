@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import copy
 import dataclasses
+import json
 from typing import ClassVar
 
 import numpy as np
@@ -42,6 +43,11 @@ class Design:
     def __repr__(self) -> str:
         args = ", ".join(f"{k}={v!r}" for k, v in self._params.items())
         return f"{type(self).__name__}({self.label!r}, {args})"
+
+    @property
+    def settings(self) -> dict:
+        """The parameters as plain JSON values (run.json, the selection record)."""
+        return json.loads(json.dumps(self._params, default=str))
 
     # ------------------------------------------------------------ size sweeps
     @property

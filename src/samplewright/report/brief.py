@@ -7,9 +7,10 @@ from samplewright.report.templating import render
 MARKER = "samplewright"
 
 
-def render_brief(context: dict) -> str:
-    """The brief from :func:`~samplewright.report.story.build_context`."""
-    text = render("brief.md", context, markup="markdown")
+def render_brief(context: dict, figures: list[dict] | None = None) -> str:
+    """The brief from :func:`~samplewright.report.story.build_context` and the drawn figures (by ``name``
+    and ``stem``: the verdict chart is linked from ``figures/``)."""
+    text = render("brief.md", {**context, "figures": figures or []}, markup="markdown")
     lines = [ln.rstrip() for ln in text.splitlines()]
     out, blank = [], 0
     for ln in lines:  # at most one blank line in a row

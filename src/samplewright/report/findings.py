@@ -1,4 +1,4 @@
-"""Plain-language findings read off a run's summary table, and number formatting with MCSEs.
+"""Plain-language findings read off a run's summary table, and the full table's display rows.
 
 These are descriptions of what the simulation measured, not a recommendation: the pick under
 a budget or a margin-of-error goal is made by the planning step (recommendation.json) and only
@@ -16,13 +16,14 @@ level as it stands, and its numbers are shown without brackets.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pandas as pd
 
 from samplewright.report.figures.rows import cell_label
 from samplewright.report.figures.style import estimator_name
+from samplewright.report.names import variance_name
+from samplewright.report.table import cost_text, coverage_cell, is_exact, measure_text, percent_like
+from samplewright.report.verdict import mc_round, money, num, unit_of, with_unit
 
 #: Monte Carlo SEs from nominal beyond which a coverage is described as below or above it (module notes)
 COVERAGE_Z = 3.0
@@ -31,91 +32,7 @@ COVERAGE_Z = 3.0
 SE_RATIO_NOTE = 0.2
 
 
-def decimals_for(mcse: float, digits: int = 2) -> int:
-    """Decimals that show ``digits`` significant figures of the Monte Carlo SE (at least 0).
-
-    Examples
-    --------
-    >>> decimals_for(0.1077), decimals_for(0.0052), decimals_for(3.4)
-    (2, 4, 1)
-    """
-    if not np.isfinite(mcse) or mcse <= 0:
-        return 1
-    return max(0, digits - 1 - math.floor(math.log10(mcse)))
-
-
-def with_mcse(value: float, mcse: float, scale: float = 1.0) -> str:
-    """``value (MCSE)``, both rounded to the MCSE's second significant figure.
-
-    Examples
-    --------
-    >>> with_mcse(-0.11486, 0.10769)
-    '-0.11 (0.11)'
-    >>> with_mcse(0.9425, 0.0052, scale=100)
-    '94.25 (0.52)'
-    """
-    if value is None or not np.isfinite(value):
-        return "n/a"
-    v, m = value * scale, mcse * scale
-    d = decimals_for(m)
-    return f"{v:.{d}f} ({m:.{d}f})" if np.isfinite(m) else f"{v:.4g}"
-
-
-def num(value, digits: int = 4) -> str:
-    """A number to ``digits`` significant figures, with thousands separators for large ones."""
-    if value is None:
-        return "n/a"
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        return str(value)
-    if np.isinf(v):  # e.g. a design effect against an SRS variance of 0 (evaluation/measures.py)
-        return "infinite" if v > 0 else "minus infinite"
-    if not np.isfinite(v):
-        return "n/a"
-    if abs(v) >= 10**digits or (abs(v) >= 1000 and v == round(v)):
-        return f"{v:,.0f}"
-    return f"{v:.{digits}g}"
-
-
-def money(value) -> str:
-    """A cost: whole units with thousands separators from 100 up, else 4 significant figures."""
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        return "n/a" if value is None else str(value)
-    if not np.isfinite(v):
-        return "n/a"
-    return f"{v:,.0f}" if abs(v) >= 100 else f"{v:.4g}"
-
-
-def percent_like(value: float, mcse: float) -> str:
-    """A share in per cent, to the decimals its Monte Carlo error supports (no bracket)."""
-    if value is None or not np.isfinite(value):
-        return "n/a"
-    return f"{100 * value:.{decimals_for(100 * mcse)}f}%"
-
-
 SHORT_ESTIMATOR = {"ht": "HT", "hajek": "Hajek"}
-
-
-def is_exact(summary: pd.DataFrame) -> bool:
-    """Whether ``summary`` comes from exact mode (every possible sample, no Monte Carlo error)."""
-    return "exact" in summary.columns and len(summary) > 0 and bool(summary["exact"].astype(bool).all())
-
-
-def cost_text(summary: pd.DataFrame):
-    """How a mean cost is shown: ``money``, or a dash for every row when no cost is modelled (all 0)."""
-    if len(summary) and not (summary["mean_cost"] != 0).any():
-        return lambda _value: "—"
-    return money
-
-
-def measure_text(exact: bool):
-    """How a measure and its MCSE are shown: ``with_mcse``, or the bare number in exact mode."""
-    if exact:
-        return lambda value, _mcse, scale=1.0: num(value * scale if value is not None else None)
-    return with_mcse
 
 
 def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
@@ -132,7 +49,8 @@ def coverage_verdict(coverage: float, mcse: float, confidence: float) -> str:
 def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
     """The summary table as display strings (one dict per row), with MCSEs beside their measures."""
     out = []
-    show, cost = measure_text(is_exact(summary)), cost_text(summary)
+    exact = is_exact(summary)
+    show, cost = measure_text(exact), cost_text(summary)
     for r in summary.itertuples(index=False):
         out.append(
             {
@@ -153,21 +71,27 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
                 "se_ratio": num(r.se_ratio, 3),
                 "rmse": num(r.rmse),
                 "deff": num(r.deff, 3),
-                "coverage": show(r.coverage, r.coverage_mcse, scale=100.0),
+                "coverage": coverage_cell(r.coverage, r.coverage_mcse, r.replicates, exact),
                 "coverage_flag": coverage_verdict(r.coverage, r.coverage_mcse, confidence),
                 "moe": num(r.moe),
+                "published_moe": show(getattr(r, "published_moe", None), getattr(r, "published_moe_mcse", 0.0)),
+                "variance": variance_name(getattr(r, "variance", None)),
                 "replicates": int(r.replicates),
             }
         )
     return out
 
 
-def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
-    """Sentences a reader needs from the summary: precision, cost, and intervals that lie."""
+def findings(summary: pd.DataFrame, confidence: float, labels: dict | None = None) -> list[str]:
+    """Sentences a reader needs from the summary: precision, cost, and intervals that lie (money and
+    units in the words of ``labels``, :func:`samplewright.report.verdict.labels_of`; margins rounded by
+    their Monte Carlo SE when the summary has ``moe_mcse``, :func:`samplewright.report.table.with_moe_mcse`)."""
     out = []
+    labels = labels or {}
     nominal = f"{100 * confidence:g}%"
     exact = is_exact(summary)
     for var, s in summary.groupby("variable", sort=False):
+        unit = unit_of(labels, var)
         lab = {
             i: f"{cell_label(d, m, n, u)} ({estimator_name(e)})"
             for i, d, m, n, u, e in zip(s.index, s["design"], s["method"], s["size"], s["mean_n"], s["estimator"])
@@ -182,15 +106,15 @@ def findings(summary: pd.DataFrame, confidence: float) -> list[str]:
             best = honest.loc[honest["rmse"].idxmin()]
             out.append(
                 f"Most precise for the mean {var} among designs whose intervals keep their promise: "
-                f"{lab[best.name]}, margin of error {num(best.moe)}"
-                + (f" at an average cost of {money(best.mean_cost)}" if costed else "")
+                f"{lab[best.name]}, margin of error {with_unit(mc_round(best.moe, best.get('moe_mcse')), unit)}"
+                + (f" at an average cost of {money(best.mean_cost, labels)}" if costed else "")
                 + f" (design effect {num(best.deff, 3)})."
             )
             cheap = honest.loc[honest["mean_cost"].idxmin()]
             if costed and cheap.name != best.name and cheap.mean_cost < best.mean_cost:
                 out.append(
-                    f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost)}, "
-                    f"margin of error {num(cheap.moe)}."
+                    f"Cheapest such design: {lab[cheap.name]}, average cost {money(cheap.mean_cost, labels)}, "
+                    f"margin of error {with_unit(mc_round(cheap.moe, cheap.get('moe_mcse')), unit)}."
                 )
         else:
             out.append(f"No design's intervals for the mean {var} reach the promised {nominal} coverage.")

@@ -12,16 +12,31 @@ import numpy as np
 
 from samplewright._version import __version__
 from samplewright.evaluation.stopping import replicate_counts
-from samplewright.report.figures import FIGURES, estimator_name, figure_names, primary_rows
-from samplewright.report.findings import (
-    SHORT_ESTIMATOR,
-    cost_text,
-    findings,
-    is_exact,
-    measure_text,
+from samplewright.report.figures import FIGURES, figure_names
+from samplewright.report.findings import SHORT_ESTIMATOR, findings, summary_rows
+from samplewright.report.names import estimator_name, parameter_text, variance_name
+from samplewright.report.table import compact_columns, compact_rows, coverage_cell, default_rows, with_moe_mcse
+from samplewright.report.verdict import (
+    CLEAR_Z,
+    analysis_text,
+    cost_header,
+    coverage_text,
+    coverage_tolerance,
+    goal_text,
+    goals_of,
+    key_numbers,
+    labels_of,
+    margin_header,
+    mc_round,
     money,
     num,
-    summary_rows,
+    passed_over_text,
+    pick_of,
+    shortfalls,
+    size_text,
+    undecided_sentences,
+    unit_of,
+    verdict_sentence,
 )
 
 CAUTIONS = [
@@ -83,60 +98,145 @@ def figure_plan(res) -> list[dict]:
     return plan
 
 
-def _pick_row(p: dict, label: str) -> dict:
-    cov = p.get("coverage")
+def _pick_row(p: dict, label: str, info: dict) -> dict:
+    """A pick as a table row (the currency and unit are in the table's headers)."""
     return {
         "label": label,
         "design": p.get("design"),
         "size": p.get("size"),
         "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
-        "mean_cost": money(p.get("mean_cost")),
-        "moe": num(p.get("moe")),
-        "empirical_se": num(p.get("empirical_se")),
-        "coverage": "n/a" if cov is None else f"{100 * float(cov):.1f}%",
+        "analysis": analysis_text(p, info),
+        "mean_cost": money(p.get("mean_cost"), None, p.get("cost_mcse")),
+        "moe": mc_round(p.get("moe"), p.get("moe_mcse")),
+        "published_moe": mc_round(p.get("published_moe"), p.get("published_moe_mcse"))
+        if p.get("published_moe") is not None else "n/a",
+        "coverage": coverage_text(p.get("coverage"), p.get("coverage_mcse"), p.get("replicates")),
         "interpolated": bool(p.get("interpolated", False)),
     }
 
 
-def recommendation_context(res) -> dict | None:
+def _untrusted_point(p: dict) -> bool:
+    """Passed over because its intervals under-cover (its evidence, or an older recommendation's reason)."""
+    ev = p.get("evidence")
+    if isinstance(ev, dict) and "coverage" in ev:
+        return ev["coverage"] == "not met"
+    return "under-cover" in str(p.get("reason", ""))
+
+
+def recommendation_context(res, labels: dict) -> dict | None:
     rec = res.recommendation
     if not isinstance(rec, dict):
         return None
-    picks = [_pick_row(rec[k], label) for k, label in PICKS if isinstance(rec.get(k), dict)]
+    info = res.info or {}
+    picks = [_pick_row(rec[k], label, info) for k, label in PICKS if isinstance(rec.get(k), dict)]
     missing = [label for k, label in PICKS if k in rec and not isinstance(rec.get(k), dict)]
     passed = []
     for p in rec.get("passed_over") or []:
         if isinstance(p, dict):
-            reason = str(p.get("reason", ""))
             passed.append(
                 {
                     "design": p.get("design"),
                     "size": p.get("size"),
-                    "reason": reason,
+                    "reason": passed_over_text(p),
                     "estimator": estimator_name(p["estimator"]) if p.get("estimator") else "",
-                    "untrusted": "under-cover" in reason,
+                    "untrusted": _untrusted_point(p),
                 }
             )
     goal = rec.get("goal") if isinstance(rec.get("goal"), dict) else {}
-    goals = []
-    if goal.get("moe") is not None:
-        conf = goal.get("confidence")
-        goals.append(
-            f"margin of error at most {num(goal['moe'])}"
-            + (f" at {100 * float(conf):g}% confidence" if conf else "")
-        )
-    if goal.get("budget") is not None:
-        goals.append(f"average cost at most {money(goal['budget'])}")
+    conf = goal.get("confidence")
+    want = goal_text(goals_of(rec), labels)
     return {
-        "statement": rec.get("statement") or "",
         "picks": picks,
         "unmet": missing,
         "passed_over": passed,
-        "goal_text": " and ".join(goals),
+        "goal_text": want + (f" (margins at {100 * float(conf):g} % confidence)" if want and conf else ""),
         "goal_variable": goal.get("variable"),
         "untrusted": _untrusted(passed),
         "rules": [str(rec[k]) for k in ("coverage_rule", "margin_rule") if rec.get(k)],
     }
+
+
+def verdict_context(res) -> dict:
+    """The verdict card: the sentence, the undecided points, the key numbers."""
+    rec, info = res.recommendation, res.info or {}
+    return {
+        "sentence": verdict_sentence(rec, info, res.summary),
+        "undecided": undecided_sentences(rec, info),
+        "numbers": key_numbers(rec, info),
+        "has_goal": isinstance(rec, dict),
+    }
+
+
+def _margin_of(row: dict) -> float:
+    """The larger of the achieved and published margins of a summary row (a margin goal needs both)."""
+    vals = [float(row[k]) for k in ("moe", "published_moe") if row.get(k) is not None and np.isfinite(row[k])]
+    return max(vals) if vals else float("nan")
+
+
+def _same_point(row: dict, p: dict | None) -> bool:
+    return isinstance(p, dict) and all(row.get(k) == p.get(k) for k in ("design", "size", "estimator")) and (
+        not p.get("variance") or row.get("variance") in (None, p.get("variance")))
+
+
+def goal_variable(res):
+    """The study variable the verdict is about: the pick's, the first goal's, else the summary's first."""
+    rec = res.recommendation if isinstance(res.recommendation, dict) else None
+    _, pick = pick_of(rec)
+    goals = goals_of(rec) if rec else []
+    return (pick or {}).get("variable") or next((g.get("variable") for g in goals if g.get("variable")), None) \
+        or res.summary["variable"].iloc[0]
+
+
+def comparison_rows(res, labels: dict) -> list[dict]:
+    """Each design at its best size for the goal: the pick itself, else its cheapest point meeting every
+    goal, else its point closest to them (:func:`samplewright.report.verdict.shortfalls`); without a goal,
+    its most precise point.  One row per design, at its default analysis unless the pick is analysed
+    otherwise."""
+    rec, info = res.recommendation if isinstance(res.recommendation, dict) else None, res.info or {}
+    summary = res.summary
+    if summary is None or not len(summary):
+        return []
+    goals = goals_of(rec) if rec else []
+    _, pick = pick_of(rec)
+    runner = (rec or {}).get("runner_up")
+    var = goal_variable(res)
+    nominal = float(info.get("confidence") or 0.95)
+    tol = coverage_tolerance(rec)
+    summary = with_moe_mcse(summary, res.frontier)
+    rows = default_rows(summary, var).to_dict("records")
+    if pick is not None and not any(_same_point(r, pick) for r in rows):  # the pick analysed otherwise
+        rows += [r for r in summary[summary["variable"] == var].to_dict("records") if _same_point(r, pick)][:1]
+    exact = bool(info.get("exact"))
+    out = []
+    for design in dict.fromkeys(r["design"] for r in rows):
+        mine = [r for r in rows if r["design"] == design]
+        chosen = next((r for r in mine if _same_point(r, pick)), None)
+        if chosen is None and goals:
+            scored = [(shortfalls(r, goals, nominal, tol, labels), r) for r in mine]
+            meets = [r for miss, r in scored if not miss]
+            chosen = min(meets, key=lambda r: (r["mean_cost"], r["mean_n"])) if meets else min(
+                scored, key=lambda x: max(s for s, _ in x[0]))[1]
+        if chosen is None:
+            chosen = min(mine, key=lambda r: _margin_of(r) if np.isfinite(_margin_of(r)) else np.inf)
+        misses = shortfalls(chosen, goals, nominal, tol, labels, CLEAR_Z) if goals else []
+        close = shortfalls(chosen, goals, nominal, tol, labels, -CLEAR_Z) if goals else []
+        role = "pick" if _same_point(chosen, pick) else "runner-up" if _same_point(chosen, runner) else ""
+        pub = chosen.get("published_moe")
+        out.append({
+            "design": design,
+            "size": size_text(chosen.get("method"), chosen.get("size"), chosen.get("mean_n"), labels,
+                              (info.get("frame") or {}).get("strata")),
+            "analysis": analysis_text({k: chosen.get(k) for k in ("estimator", "variance", "design")}, info),
+            "mean_cost": money(chosen["mean_cost"], None) if (summary["mean_cost"] != 0).any() else "—",
+            "moe": mc_round(chosen["moe"], None if exact else chosen.get("moe_mcse")),
+            "published_moe": "n/a" if pub is None
+            else mc_round(pub, None if exact else chosen.get("published_moe_mcse")),
+            "coverage": coverage_cell(chosen["coverage"], chosen["coverage_mcse"], chosen.get("replicates"), exact),
+            "status": role or ("" if not goals else "; ".join(w.removeprefix("its ") for _, w in misses) if misses
+                               else "too close to the goal to call" if close else "meets the goal"),
+            "role": role,
+        })
+    return out
 
 
 def _untrusted(passed: list[dict]) -> list[dict]:
@@ -235,39 +335,31 @@ def design_rows(res) -> list[dict]:
         for d, g in res.summary.groupby("design", sort=False)
     }
     out = []
-    for d in info.get("designs") or [{"label": x, "method": "", "parameters": ""} for x in sizes]:
+    for d in info.get("designs") or [{"label": x, "method": "", "parameters": {}} for x in sizes]:
         lab = d.get("label")
         out.append(
             {
                 "label": lab,
                 "method": d.get("method", ""),
-                "parameters": d.get("parameters", ""),
-                "sizes": ", ".join(map(str, sizes.get(lab, []))),
+                "parameters": parameter_text(d.get("parameters")),
+                "variance": variance_name(d.get("variance")),
+                "sizes": ", ".join(f"{s:,}" for s in sizes.get(lab, [])),
                 "estimators": ests.get(lab, ""),
             }
         )
     return out
 
 
-def brief_rows(res) -> list[dict]:
-    """One line per design x size for the brief: each design's first estimator."""
-    rows = []
-    show, cost = measure_text(is_exact(res.summary)), cost_text(res.summary)
-    for var in dict.fromkeys(res.summary["variable"]):
-        for r in primary_rows(res.summary, var, max_rows=10**9).itertuples(index=False):
-            rows.append(
-                {
-                    "design": r.design,
-                    "size": int(r.size),
-                    "variable": var,
-                    "mean_cost": cost(r.mean_cost),
-                    "moe": num(r.moe),
-                    "bias": show(r.bias, r.bias_mcse),
-                    "coverage": show(r.coverage, r.coverage_mcse, scale=100.0),
-                    "estimator": estimator_name(r.estimator),
-                }
-            )
-    return rows
+def _table_units(summary, labels: dict) -> str:
+    """The units of the full table's numbers, said once above it (money, and each variable's unit)."""
+    parts = []
+    if labels.get("currency"):
+        parts.append(f"costs in {labels['currency']}")
+    for var in dict.fromkeys(summary["variable"]) if len(summary) else []:
+        unit = unit_of(labels, var)
+        if unit:
+            parts.append(f"{var} in {unit}")
+    return "; ".join(parts)
 
 
 def build_context(res, folder: Path | None = None) -> dict:
@@ -278,7 +370,10 @@ def build_context(res, folder: Path | None = None) -> dict:
     if folder is not None and (Path(folder) / "run.json").exists():
         finished = (Path(folder) / "run.json").stat().st_mtime
     warnings = list(dict.fromkeys(list(info.get("warnings") or []) + list(res.warnings or [])))
-    rec = recommendation_context(res)
+    labels = labels_of(info, res.recommendation if isinstance(res.recommendation, dict) else None)
+    rec = recommendation_context(res, labels)
+    var = goal_variable(res) if len(res.summary) else None
+    rows = summary_rows(res.summary, confidence)
     counts = replicate_counts(res.summary)  # each design's own count: --until stops each at its own
     notes = []
     if res.replicates is None or len(res.replicates) == 0:
@@ -297,24 +392,35 @@ def build_context(res, folder: Path | None = None) -> dict:
         "frame": frame_context(res),
         "designs": design_rows(res),
         "recommendation": rec,
-        "findings": findings(res.summary[res.summary["variable"].isin(figure_variables(res))], confidence)
+        "verdict": verdict_context(res),
+        "comparison": comparison_rows(res, labels),
+        "labels": labels,
+        "cost_header": cost_header(labels),
+        "margin_header": margin_header(labels, var, "Achieved margin"),
+        "published_header": margin_header(labels, var, "Published margin"),
+        "table_units": _table_units(res.summary, labels),
+        "has_published": "published_moe" in res.summary.columns,
+        "has_variance": "variance" in res.summary.columns,
+        "findings": findings(with_moe_mcse(res.summary[res.summary["variable"].isin(figure_variables(res))],
+                                           res.frontier), confidence, labels)
         if len(res.summary)
         else [],
-        "summary_rows": summary_rows(res.summary, confidence),
+        "summary_rows": rows,
         "multi_variable": res.summary["variable"].nunique() > 1,
         "estimator_legend": "; ".join(
             f"{SHORT_ESTIMATOR[e]}: {estimator_name(e)}"
             for e in dict.fromkeys(res.summary["estimator"])
             if SHORT_ESTIMATOR.get(e, estimator_name(e)) != estimator_name(e)
         ),
-        "brief_rows": brief_rows(res) if len(res.summary) else [],
+        "compact_columns": compact_columns(res.summary, labels) if len(res.summary) else [],
+        "compact_rows": compact_rows(res.summary, res.frontier) if len(res.summary) else [],
         "warnings": warnings,
         "untrusted": rec["untrusted"] if rec else [],
         "notes": notes,
         "metadata": metadata(info, finished, counts),
         "reproduce": _reproduce(info),
         "cautions": [EXACT_CAUTION if c is CAUTIONS[4] and info.get("exact") else c for c in CAUTIONS],
-        "any_low": any(r["coverage_flag"] == "low" for r in summary_rows(res.summary, confidence)),
-        "any_high": any(r["coverage_flag"] == "high" for r in summary_rows(res.summary, confidence)),
+        "any_low": any(r["coverage_flag"] == "low" for r in rows),
+        "any_high": any(r["coverage_flag"] == "high" for r in rows),
         "has_nan": bool(np.any(~np.isfinite(res.summary.select_dtypes("number").to_numpy(float)))),
     }

@@ -15,6 +15,8 @@ from importlib.resources import files
 import jinja2
 from markupsafe import Markup
 
+from samplewright.report.names import estimator_name
+
 #: characters that start Markdown markup anywhere in a line (``|`` ends a table cell, ``$`` starts math)
 MD_SPECIALS = frozenset("\\`*_[]#~|$")
 
@@ -61,6 +63,7 @@ def environment(markup: str) -> jinja2.Environment:
         lstrip_blocks=False,
     )
     env.filters["code"] = code_span
+    env.filters["estimator_name"] = estimator_name
     return env
 
 

@@ -34,10 +34,10 @@ JSON_KEYS = {
                  "replicates": (int,), "seed": (int,), "seed_entropy": (int,), "block_size": (int,),
                  "jobs": (int,), "exact": (bool,), "frame": (dict,), "designs": (list,), "versions": (dict,),
                  "warnings": (list,), "frame_order": (list,), "stopping": (dict,), "fieldwork": (dict,),
-                 "goal": (dict,)},
+                 "goal": (dict,), "labels": (dict,)},
     "recommendation.json": {"statement": (str,), "goal": (dict,), "passed_over": (list,),
                             "cheapest_meeting_moe": (dict,), "best_within_budget": (dict,),
-                            "interpolated": (list,)},
+                            "interpolated": (list,), "units": (dict,)},
 }
 #: lists whose items must be JSON objects (or, for warnings, strings)
 JSON_ITEMS = {"designs": dict, "frame_order": dict, "passed_over": dict, "interpolated": dict, "warnings": str}

@@ -18,6 +18,7 @@ from pathlib import Path
 import pandas as pd
 
 from samplewright.config.goal import Goal
+from samplewright.config.labels import Labels
 from samplewright.config.scenario import (
     DEFAULT_BLOCK,
     DesignSpec,
@@ -70,6 +71,7 @@ class Scenario:
     block_size: int = DEFAULT_BLOCK
     cost: CostModel = field(default_factory=CostModel)
     goals: tuple[Goal, ...] = ()  # from [goal] or [[goal]]
+    labels: Labels = field(default_factory=Labels)  # from [labels]: words for money and units
     response: ResponseModel | None = None  # from [response]
     frame_error: FrameErrorSpec | None = None  # from [frame_error]
     stress: StressSpec | None = None  # from [[assumption]] and [stress] (simulation/stress.py runs the points)
@@ -144,6 +146,7 @@ def scenario_from_dict(doc: dict, base: Path | str = ".", source: Path | None = 
         frame=_frame_source(spec.frame, designs), designs=designs, estimators=tuple(e for _, e, _ in built),
         adjustments=tuple(a for _, _, a in built), title=spec.title, seed=spec.seed, replicates=spec.replicates,
         confidence=spec.confidence, block_size=spec.block_size, cost=CostModel(**spec.cost), goals=spec.goals,
+        labels=spec.labels,
         response=None if spec.response is None else response_from_dict(spec.response),
         frame_error=None if spec.frame_error is None else frame_error_from_dict(spec.frame_error),
         stress=spec.stress, source=spec.source, raw=spec.raw)

@@ -367,7 +367,7 @@ def draw_sample(scenario: Scenario, label: str, size: int | None = None, seed: i
                   "sha256": file_sha256(scenario.frame.path), "units": frame.N,
                   "dropped_rows": int(frame.roles.get("dropped_rows", 0)), "content_sha256": frame.content_hash},
         "design": {"label": design.label, "method": design.method,
-                   "parameters": json.loads(json.dumps(design._params, default=str))},
+                   "parameters": design.settings},
         "size": int(design.size),
         "size_key": design.size_key,
         "reserve": reserve,

@@ -33,6 +33,7 @@ from samplewright.report.figures.bias import bias_plot
 from samplewright.report.figures.cost_precision import cost_precision_plot
 from samplewright.report.figures.coverage import coverage_plot
 from samplewright.report.figures.frame_order import frame_order_plot
+from samplewright.report.figures.goal_map import goal_map_plot
 from samplewright.report.figures.intervals import interval_panel, interval_plot, zip_order
 from samplewright.report.figures.rows import all_rows, cell_label, primary_rows
 from samplewright.report.figures.sampling import sampling_distribution
@@ -49,12 +50,13 @@ from samplewright.report.figures.style import (
     new_figure,
     plain,
 )
+from samplewright.report.verdict import labels_of
 
 __all__ = ["DPI", "FIGURES", "FIG_WIDTH", "PALETTE", "FigureSpec", "all_rows", "allocation_plot", "bias_plot",
            "cell_label", "cost_precision_plot", "coverage_plot", "design_colours", "design_order",
-           "estimator_name", "figure_names", "frame_order_plot", "goals_of", "interval_panel", "interval_plot",
-           "keep_sizes", "make_figure", "picks_of", "plain", "primary_rows", "sampling_distribution", "se_plot",
-           "stress_lines_plot", "stress_tiles_plot", "zip_order"]
+           "estimator_name", "figure_names", "frame_order_plot", "goal_map_plot", "goals_of", "interval_panel",
+           "interval_plot", "keep_sizes", "make_figure", "picks_of", "plain", "primary_rows", "sampling_distribution",
+           "se_plot", "stress_lines_plot", "stress_tiles_plot", "zip_order"]
 
 
 @dataclass(frozen=True)
@@ -73,6 +75,11 @@ class FigureSpec:
 
 def _fig(ax_or_fig):
     return ax_or_fig if isinstance(ax_or_fig, Figure) else ax_or_fig.figure
+
+
+def _labels(res) -> dict:
+    """The run's words for money and units (run.json ``labels``, recommendation.json ``units``)."""
+    return labels_of(res.info, res.recommendation if isinstance(res.recommendation, dict) else None)
 
 
 def _confidence(res) -> float:
@@ -173,8 +180,22 @@ def _goal_variable(res):
     return ((res.recommendation or {}).get("goal") or {}).get("variable")
 
 
-#: the report's figures, in report order
+def _has_goal(res) -> bool:
+    return _has_rows(res) and isinstance(res.recommendation, dict)
+
+
+#: the report's figures, in report order (the first, "verdict", is the verdict card's chart)
 FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
+    FigureSpec(
+        "verdict",
+        "Which designs meet the goal",
+        "Each design at each rehearsed size (its default analysis): expected cost against the margin of error "
+        "the survey would publish (the average half-width of its intervals; the margin it achieves when the run "
+        "does not have it). The shaded region meets the margin goal within the budget; the ring marks the pick.",
+        False,
+        _has_goal,
+        lambda res, var, keep: _fig(goal_map_plot(res.summary, res.recommendation, _labels(res))),
+    ),
     FigureSpec(
         "sampling_distribution",
         "Where the estimates fall",
@@ -184,7 +205,8 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "middle 95%.",
         True,
         _has_reps,
-        lambda res, var, keep: sampling_distribution(res.replicates, res.summary, var, keep=keep),
+        lambda res, var, keep: sampling_distribution(res.replicates, res.summary, var, keep=keep,
+                                                     labels=_labels(res)),
         "One panel per design, each on its own scale: each shape is the spread of the design's estimates at one "
         "size over every possible sample, weighted by its probability; the dashed line is the true population "
         "value. Thick bar: the middle half of the estimates, thin line: the middle 95%.",
@@ -199,7 +221,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "gives the bias as a percentage of the true value.",
         True,
         _has_rows,
-        lambda res, var, keep: _fig(bias_plot(res.summary, var, keep=keep)),
+        lambda res, var, keep: _fig(bias_plot(res.summary, var, keep=keep, labels=_labels(res))),
         "How far the average estimate over every possible sample sits from the truth: the exact bias of each "
         "design for this frame, with no simulation error. The top axis gives the bias as a percentage of the "
         "true value.",
@@ -226,7 +248,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "points below it belong to designs whose formula understates the uncertainty.",
         True,
         _has_rows,
-        lambda res, var, keep: _fig(se_plot(res.summary, var, keep=keep)),
+        lambda res, var, keep: _fig(se_plot(res.summary, var, keep=keep, labels=_labels(res))),
         "Each point compares the standard error the analysis would report (vertical) with the real spread of "
         "the estimates over every possible sample (horizontal). Points on the dashed diagonal are honest; "
         "points below it belong to designs whose formula understates the uncertainty.",
@@ -241,7 +263,8 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         "intervals lie (Morris, White and Crowther 2019).",
         True,
         _has_reps,
-        lambda res, var, keep: interval_plot(res.replicates, res.summary, _confidence(res), var, keep=keep),
+        lambda res, var, keep: interval_plot(res.replicates, res.summary, _confidence(res), var, keep=keep,
+                                             labels=_labels(res)),
     ),
     FigureSpec(
         "cost_precision",
@@ -259,6 +282,7 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
                 goals_of(res, _var(res, var)),
                 var,
                 picks=picks_of(res, _var(res, var)),
+                labels=_labels(res),
             )
         ),
     ),

@@ -13,12 +13,13 @@ from samplewright.report.figures.style import (
     TRUTH_COLOUR,
     estimator_legend,
     plain,
+    quantity,
     styled,
 )
 
 
 @styled
-def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = None):
+def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = None, labels: dict | None = None):
     """Bias of each design and estimator with 95% Monte Carlo error bars; relative bias on the top axis.
 
     Notes
@@ -46,7 +47,7 @@ def bias_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None =
     )
     if np.isfinite(span) and span > 0:
         ax.set_xlim(-1.1 * span, 1.1 * span)
-    ax.set_xlabel(f"Average estimate minus true value ({plain(var)})")
+    ax.set_xlabel(f"Average estimate minus true value ({quantity(var, labels)})")
     ax.set_title(f"Bias of the estimated mean {plain(var)}", loc="left")
     if truth != 0 and np.isfinite(truth):
         top = ax.secondary_xaxis("top", functions=(lambda b: 100.0 * b / truth, lambda p: p * truth / 100.0))

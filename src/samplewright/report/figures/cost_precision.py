@@ -26,6 +26,7 @@ from samplewright.report.figures.style import (
     readable_log_axis,
     styled,
 )
+from samplewright.report.verdict import unit_of
 
 
 def _design_lines(ax, pts: pd.DataFrame, colours: dict, markers: dict) -> list[PointLabel]:
@@ -89,6 +90,7 @@ def cost_precision_plot(
     variable=None,
     ax=None,
     picks: dict | None = None,
+    labels: dict | None = None,
 ):
     """Mean field cost against margin of error, per design, estimator and size, with the goals drawn in.
 
@@ -102,6 +104,9 @@ def cost_precision_plot(
     picks : dict, optional
         ``{"name": {"design": ..., "size": ..., "estimator": ...}}`` points to ring and name
         (the recommendation).
+    labels : dict, optional
+        The run's words for money and units (:func:`samplewright.report.verdict.labels_of`): the currency
+        and the variable's unit name the axes.
     """
     var = variable_of(summary, variable)
     pts = cost_precision_points(summary, frontier, var)
@@ -121,15 +126,18 @@ def cost_precision_plot(
     pick_labels = _pick_rings(ax, pts, picks or {})
     moe = pts["moe"].to_numpy(float)
     moe = moe[np.isfinite(moe) & (moe > 0)]
+    unit = plain(unit_of(labels or {}, var) or var)
     if len(moe) and moe.max() / moe.min() > 8:
         ax.set_yscale("log")
         readable_log_axis(ax.yaxis, *ax.get_ylim())
-        ylab = f"Margin of error ({plain(var)}, log scale)"
+        ylab = f"Margin of error ({unit}, log scale)"
     else:
         ax.set_ylim(bottom=0)
-        ylab = f"Margin of error ({plain(var)})"
+        ylab = f"Margin of error ({unit})"
     ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _pos: number_text(v)))
-    ax.set_xlabel("Average field cost of one survey (cost units of the scenario)")
+    currency = (labels or {}).get("currency")
+    ax.set_xlabel(f"Average field cost of one survey ({plain(currency)})" if currency
+                  else "Average field cost of one survey (cost units of the scenario)")
     ax.set_ylabel(ylab)
     ax.set_title("Cost against precision (lower left is better)")
     ax.legend(handles=handles, loc="upper left", bbox_to_anchor=(1.0, 1.0), frameon=False)

@@ -20,6 +20,7 @@ from samplewright.report.figures.style import (
     design_order,
     new_figure,
     plain,
+    quantity,
     styled,
 )
 
@@ -87,6 +88,7 @@ def interval_plot(
     fig: Figure | None = None,
     keep: dict | None = None,
     shown: int = 100,
+    labels: dict | None = None,
 ) -> Figure:
     """Ranked replicate intervals, one panel per design and size (Morris, White & Crowther 2019, Fig. 4).
 
@@ -116,7 +118,7 @@ def interval_plot(
         row[0].set_ylabel("Rank of the miss\n(centile)")
     which = "possible" if "probability" in replicates.columns else "simulated"
     fig.supxlabel(
-        f"{100 * confidence:g}% interval for the mean {plain(var)} from each {which} sample "
+        f"{100 * confidence:g}% interval for the mean ({quantity(var, labels)}) from each {which} sample "
         f"(each panel has its own scale)",
         fontsize=9,
     )

@@ -14,6 +14,7 @@ from samplewright.report.figures.style import (
     marker_map,
     plain,
 )
+from samplewright.report.table import default_rows
 
 #: most design x size rows a figure shows before it keeps one size per design
 MAX_ROWS = 12
@@ -38,18 +39,13 @@ def cell_label(design: str, method: str, size, mean_n=None) -> str:
 def primary_rows(
     summary: pd.DataFrame, variable=None, max_rows: int = MAX_ROWS, keep: dict | None = None
 ) -> pd.DataFrame:
-    """The summary rows a one-estimator figure shows: each design's first estimator under its first
-    variance formula (the same draws as the others), one variable.
+    """The summary rows a one-estimator figure shows: each design's default analysis (first estimator and
+    variance formula, :func:`samplewright.report.table.default_rows`), one variable.
 
     With more than ``max_rows`` design x size cells, only one size per design is kept: the
     size named in ``keep`` (e.g. the recommended one) or else the design's largest.
     """
-    var = variable_of(summary, variable)
-    s = summary[summary["variable"] == var]
-    for key in ("estimator", "variance"):
-        first = s.groupby("design", sort=False)[key].first()
-        s = s[s[key].to_numpy() == s["design"].map(first).to_numpy()]
-    return limit_sizes(s, max_rows, keep)
+    return limit_sizes(default_rows(summary, variable_of(summary, variable)), max_rows, keep)
 
 
 def all_rows(summary: pd.DataFrame, variable=None, max_rows: int = MAX_ROWS, keep: dict | None = None):

@@ -22,6 +22,7 @@ from samplewright.report.figures.style import (
     design_order,
     new_figure,
     plain,
+    quantity,
     styled,
 )
 
@@ -81,7 +82,7 @@ def _design_panel(ax, design: str, rows: pd.DataFrame, groups: dict, truth: floa
 @styled
 def sampling_distribution(
     replicates: pd.DataFrame, summary: pd.DataFrame, variable=None, fig: Figure | None = None,
-    keep: dict | None = None,
+    keep: dict | None = None, labels: dict | None = None,
 ) -> Figure:
     """Spread of each design's replicate estimates around the true value: one panel per design, one
     violin per size, each panel on its own scale with the true value dashed.
@@ -113,7 +114,7 @@ def sampling_distribution(
     truth = float(rows["truth"].iloc[0])
     for ax, d in zip(axes[:, 0], designs):
         _design_panel(ax, d, rows[rows["design"] == d], groups, truth, colours[d])
-    axes[-1, 0].set_xlabel(f"Estimated mean {plain(var)} (each panel has its own scale)")
+    axes[-1, 0].set_xlabel(f"Estimated mean ({quantity(var, labels)}; each panel has its own scale)")
     many = (
         "every possible sample, by its probability"
         if "probability" in replicates.columns

@@ -16,14 +16,14 @@ from samplewright.report.figures.style import (
     design_legend,
     design_order,
     marker_map,
-    plain,
+    quantity,
     readable_log_axis,
     styled,
 )
 
 
 @styled
-def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = None):
+def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = None, labels: dict | None = None):
     """Estimated SE (root mean square of the replicates' SEs) against the empirical SE.
 
     A point below the diagonal means the variance formula understates the real spread, so the
@@ -85,8 +85,8 @@ def se_plot(summary: pd.DataFrame, variable=None, ax=None, keep: dict | None = N
             fontsize=8,
             color="#444444",
         )
-    ax.set_xlabel(f"Empirical SE: real spread of the estimates ({plain(var)})")
-    ax.set_ylabel(f"Estimated SE from the formula ({plain(var)})")
+    ax.set_xlabel(f"Empirical SE: real spread of the estimates ({quantity(var, labels)})")
+    ax.set_ylabel(f"Estimated SE from the formula ({quantity(var, labels)})")
     ax.set_title("Does the standard-error formula tell the truth?")
     design_legend(ax, designs, colours, markers, loc="upper left")
     ax.legend_.set_bbox_to_anchor((1.0, 1.0))

@@ -20,6 +20,9 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
+from samplewright.report.names import estimator_name
+from samplewright.report.verdict import unit_of
+
 #: Okabe-Ito colours in the order designs receive them (black is kept for "misses" and truth lines)
 PALETTE = ("#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#F0E442", "#999999")
 MISS_COLOUR = "#000000"
@@ -29,7 +32,6 @@ FIG_WIDTH = 6.5
 DPI = 150
 #: z for the 95% Monte Carlo error bars drawn around each simulated measure
 MC_Z = 1.959964
-ESTIMATOR_NAMES = {"ht": "Horvitz-Thompson", "hajek": "Hajek"}
 MARKERS = ("o", "s", "^", "D", "v", "P", "X")
 #: labelled ticks per decade on a log axis: 1-2-5, or a finer set when the axis spans too little for three
 LOG_SUBS = ((1.0, 2.0, 5.0), (1.0, 1.5, 2.0, 3.0, 5.0, 7.0))
@@ -98,12 +100,15 @@ def plain(text) -> str:
     return str(text).replace("$", r"\$")
 
 
-def estimator_name(code: str) -> str:
-    return ESTIMATOR_NAMES.get(code, str(code))
-
-
 def marker_map(rows: pd.DataFrame) -> dict[str, str]:
     return {e: MARKERS[i % len(MARKERS)] for i, e in enumerate(dict.fromkeys(rows["estimator"]))}
+
+
+def quantity(variable, labels: dict | None = None) -> str:
+    """A variable as an axis names it, with its unit from the scenario's ``[labels]`` when given
+    (``"apples, kg"``), escaped for matplotlib."""
+    unit = unit_of(labels or {}, variable)
+    return plain(f"{variable}, {unit}" if unit else variable)
 
 
 def estimator_legend(ax, markers, above: bool = True):

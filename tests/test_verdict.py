@@ -1,0 +1,361 @@
+"""The verdict's words (report/verdict.py), the scenario's [labels], the compact table, and the verdict card.
+
+Recommendation dicts are built in the tests with the keys of the agreed interface (VERDICT_API: ``pick``,
+``pick_stability``, ``published_moe``, ``variance``, ``goals``, ``undecided``, ``units``), so the words are
+checked whether or not the decision already writes them; values are invented for exercising code.
+"""
+
+from __future__ import annotations
+
+import json
+from html.parser import HTMLParser
+
+import pandas as pd
+import pytest
+from scipy import stats
+
+import samplewright
+from samplewright.cli import main as cli
+from samplewright.designs.registry import DESIGN_CLASSES
+from samplewright.errors import InputError
+from samplewright.report import verdict as V
+from samplewright.report.table import compact_rows, coverage_cell, format_compact
+
+LABELS = {"currency": "EUR", "unit": "trees", "cluster": "blocks", "variables": {"apples": "kg"}}
+
+
+def _pick(**over) -> dict:
+    p = {"design": "every k-th tree", "method": "systematic", "size": 400, "estimator": "ht",
+         "variable": "apples", "mean_n": 400.0, "mean_cost": 3612.4, "p90_cost": 3700.0, "cost_mcse": 4.1,
+         "moe": 5.3177, "moe_mcse": 0.083, "empirical_se": 2.7, "rmse": 2.71, "coverage": 0.9512,
+         "coverage_mcse": 0.0048, "replicates": 2000, "variance": "successive_differences",
+         "published_moe": 6.1432, "published_moe_mcse": 0.012, "published_moe_p90": 6.52,
+         "evidence": {"coverage": "met", "margin": "met", "cost": "met"}}
+    p.update(over)
+    return p
+
+
+def _rec(**over) -> dict:
+    rec = {"cheapest_meeting_moe": _pick(), "best_within_budget": None, "passed_over": [], "interpolated": [],
+           "goal": {"moe": 8.0, "budget": 4500.0, "confidence": 0.95, "variable": "apples"},
+           "goals": [{"moe": 8.0, "budget": 4500.0, "confidence": 0.95, "variable": "apples", "domain": None}],
+           "pick": "cheapest_meeting_moe", "pick_stability": 0.97, "stability_rounds": 200,
+           "runner_up": _pick(design="zones, Neyman", method="stratified"), "runner_up_share": 0.03,
+           "undecided": [], "coverage_tolerance": 0.01,
+           "units": {"currency": "EUR", "variables": {"apples": "kg"}}}
+    rec.update(over)
+    return rec
+
+
+INFO = {"confidence": 0.95, "labels": LABELS, "frame": {"strata": 4}}
+
+
+# ------------------------------------------------------------------ rounding
+@pytest.mark.parametrize("value,mcse,want", [
+    (5.31772, 0.083, "5.32"),      # leading digit of 0.083 in the second decimal
+    (5.31772, 0.1, "5.3"),         # 0.1: the first decimal
+    (5.31772, 0.99, "5.3"),
+    (3612.4, 23.0, "3,610"),       # tens: thousands separator, no decimals
+    (1234567.0, 4000.0, "1,235,000"),
+    (0.000012345, 0.0000021, "0.000012"),  # no scientific notation
+    (-0.004, 0.05, "0.00"),        # no "-0"
+    (7.25, 0.0, "7.25"),           # no Monte Carlo error (exact run, fixed cost): 4 significant figures
+    (float("nan"), 0.1, "n/a"),
+])
+def test_a_value_is_rounded_to_the_decimal_of_its_mcse_leading_digit(value, mcse, want):
+    # the rule of report/verdict.py (common practice: report no more digits than the Monte Carlo error
+    # supports; Morris, White and Crowther 2019, sec. 5.2)
+    assert V.mc_round(value, mcse) == want
+
+
+def test_costs_have_thousands_separators_and_the_currency():
+    assert V.money(4319.6, LABELS) == "4,320 EUR"
+    assert V.money(4319.6, {"currency": "$"}) == "$4,320"
+    assert V.money(123456789.0, LABELS, 12.0) == "123,456,790 EUR"
+    assert "e+" not in V.num(1.5e12) and V.num(1.5e12) == "1,500,000,000,000"
+
+
+# ------------------------------------------------------------------ coverage at 100 %
+@pytest.mark.parametrize("R", [200, 2000])
+def test_full_coverage_shows_its_exact_binomial_interval(R):
+    # Clopper-Pearson interval of R successes in R trials, as scipy.stats computes it
+    ci = stats.binomtest(R, R).proportion_ci(method="exact")
+    assert V.coverage_interval(1.0, R) == (ci.low, ci.high)
+    text = V.coverage_text(1.0, 0.0, R)
+    assert f"{100 * ci.low:.2f} to 100 %" in text and "(0.0)" not in text
+    cell = coverage_cell(1.0, 0.0, R)
+    assert cell.startswith("100 (") and "(0.0)" not in cell and V.num(100 * ci.low) in cell
+    # zero coverage likewise: 0 of R
+    ci0 = stats.binomtest(0, R).proportion_ci(method="exact")
+    assert V.coverage_interval(0.0, R) == (ci0.low, ci0.high)
+
+
+# ------------------------------------------------------------------ the sentence
+def test_the_verdict_sentence_names_design_size_cost_margins_and_stability():
+    s = V.verdict_sentence(_rec(), INFO)
+    assert s.startswith("Use 'every k-th tree' (systematic sample, Horvitz-Thompson estimator, analysed with "
+                        "successive differences): 400 trees")
+    assert "expected cost 3,612 EUR of the budget 4,500 EUR" in s  # cost MCSE 4.1: whole units
+    assert "published margin ±6.14 kg against the goal ±8 kg" in s  # MCSE 0.012: two decimals
+    assert s.endswith("this pick held in 97 % of 200 re-rehearsals.")
+    assert ". " not in s  # one sentence
+
+
+def test_the_sentence_copes_without_the_new_keys():
+    old = _rec()
+    for k in ("pick", "pick_stability", "stability_rounds", "runner_up", "runner_up_share", "undecided", "goals",
+              "coverage_tolerance", "units"):
+        old.pop(k)
+    for k in ("variance", "published_moe", "published_moe_mcse", "published_moe_p90", "cost_mcse", "evidence"):
+        old["cheapest_meeting_moe"].pop(k)
+    s = V.verdict_sentence(old, {"confidence": 0.95})
+    assert s.startswith("Use 'every k-th tree' (systematic sample, Horvitz-Thompson estimator): 400 units")
+    assert "margin ±5.32 against the goal ±8" in s and "re-rehearsals" not in s
+    assert V.key_numbers(old, {}) and V.undecided_sentences(old, {}) == []
+
+
+def test_no_design_meets_the_goal_names_the_closest_and_what_it_misses():
+    rec = _rec(pick=None, cheapest_meeting_moe=None, pick_stability=None)
+    summary = pd.DataFrame({
+        "design": ["a", "b"], "method": ["srs", "cluster"], "size": [100, 10], "estimator": ["ht", "ht"],
+        "variable": ["apples", "apples"], "mean_n": [100.0, 400.0], "mean_cost": [4000.0, 4400.0],
+        "moe": [9.1, 30.0], "published_moe": [9.4, 31.0], "published_moe_mcse": [0.05, 0.5],
+        "coverage": [0.95, 0.90], "coverage_mcse": [0.005, 0.007], "truth": [200.0, 200.0],
+    })
+    s = V.verdict_sentence(rec, INFO, summary)
+    assert s.startswith("No rehearsed design meets the goal (a margin of at most ±8 kg and an expected cost "
+                        "of at most 4,500 EUR): the closest is 'a' at 100 trees")
+    assert "published margin ±9.40 kg is above the goal ±8 kg" in s and "'b'" not in s
+
+
+def test_undecided_points_say_what_it_would_take():
+    rec = _rec(undecided=[{"design": "zones", "method": "stratified", "size": 400, "estimator": "hajek",
+                           "variance": "psu", "variable": "apples", "criterion": "coverage", "value": 0.9391,
+                           "mcse": 0.0051, "limit": 0.94, "replicates": 2000, "replicates_needed": 9000}])
+    (line,) = V.undecided_sentences(rec, INFO)
+    assert line.startswith("Undecided: 'zones' at 400 trees in 4 strata (Hajek, the between-PSU formula "
+                           "variance): its coverage 93.9 %")
+    assert "about 9,000 replicates would settle it (2,000 were run)." in line
+
+
+def test_passed_over_reasons_in_plain_words():
+    assert V.passed_over_text({"evidence": {"coverage": "not met", "margin": "met", "cost": "undecided"}}) == (
+        "its intervals hold the true value too rarely; its expected cost is too close to the budget to call")
+    assert V.passed_over_text({"reason": "margin 9 is above the target 8"}) == "Margin 9 is above the target 8"
+
+
+# ------------------------------------------------------------------ [labels]
+def _scenario(**extra) -> dict:
+    return {"frame": {"synthetic": {"units": 600, "seed": 2, "target": "apples"}},
+            "design": [{"label": "simple", "method": "srs", "n": [30, 60]}], **extra}
+
+
+@pytest.mark.parametrize("labels,message", [
+    ({"currency": 5}, "[labels]: currency must be a non-empty text"),
+    ({"currency": "E" * 41}, "a label may have at most 40"),
+    ({"units": {"pears": "kg"}}, "[labels.units]: variable 'pears' is not a target of [frame]"),
+    ({"unit": "trees\n"}, "contains the control character"),
+    ({"currancy": "EUR"}, "[labels]: unknown key 'currancy' (did you mean 'currency'?)"),
+    ({"units": "kg"}, "[labels.units] must be a table"),
+])
+def test_labels_are_checked(labels, message):
+    with pytest.raises(InputError) as err:
+        samplewright.scenario_from_dict(_scenario(labels=labels))
+    assert message in str(err.value)
+
+
+def test_a_bad_label_is_one_error_line_and_exit_2(tmp_path, capsys):
+    sc = tmp_path / "s.toml"
+    sc.write_text('[frame.synthetic]\nunits = 300\ntarget = "y"\n[frame]\ntarget = "y"\n'
+                  '[[design]]\nlabel = "s"\nmethod = "srs"\nn = 20\n[labels.units]\nz = "kg"\n', encoding="utf-8")
+    assert cli.main(["run", str(sc), "--out", str(tmp_path / "o"), "--replicates", "50"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("error: [labels.units]: variable 'z'"), err
+
+
+# ------------------------------------------------------------------ a run with labels: report, brief, terminal
+HOSTILE = "<script>x</script>=cmd("
+
+
+def _write_toml(doc: dict, path) -> None:
+    lines = [f'title = "{doc["title"]}"', "[frame.synthetic]", "units = 600", "seed = 2", 'target = "apples"',
+             "[cost]", "fixed = 250000.0", "per_unit = 12500.0", "[goal]", "moe = 40.0", "budget = 2000000.0",
+             "[labels]", 'currency = "NOK"', 'unit = "trees"', "[labels.units]", 'apples = "kg"']
+    for d in doc["design"]:
+        lines += ["[[design]]", f"label = {json.dumps(d['label'])}", f'method = "{d["method"]}"',
+                  f"n = {json.dumps(d['n'])}"]
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+@pytest.fixture(scope="module")
+def labelled_run(tmp_path_factory):
+    base = tmp_path_factory.mktemp("labelled")
+    doc = _scenario(title="Orchard test")
+    doc["design"].append({"label": HOSTILE, "method": "systematic", "n": 60})
+    path = base / "s.toml"
+    _write_toml(doc, path)
+    out = base / "run"
+    import contextlib
+    import io
+
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf):
+        code = cli.main(["run", str(path), "--out", str(out), "--replicates", "200", "--seed", "3"])
+    assert code == 0
+    return out, buf.getvalue()
+
+
+def test_units_and_currency_reach_the_sentence_tables_and_axes(labelled_run):
+    out, stdout = labelled_run
+    rec = json.loads((out / "recommendation.json").read_text(encoding="utf-8"))
+    assert rec["units"] == {"currency": "NOK", "variables": {"apples": "kg"}}
+    assert json.loads((out / "run.json").read_text(encoding="utf-8"))["labels"]["unit"] == "trees"
+    assert "NOK" in rec["statement"] and " kg" in rec["statement"]
+    html = (out / "report.html").read_text(encoding="utf-8")
+    for header in ("Expected cost (NOK)", "Achieved margin (kg)"):
+        assert f">{header}</th>" in html, header
+    brief = (out / "brief.md").read_text(encoding="utf-8")
+    assert "| Expected cost (NOK) |" in brief
+    back = samplewright.read_run(out)
+    ax = back.figure("verdict").axes[0]
+    assert ax.get_xlabel() == "Expected cost of one survey (NOK)" and "(kg)" in ax.get_ylabel()
+    ax = back.figure("cost_precision").axes[0]
+    assert "(NOK)" in ax.get_xlabel() and "(kg)" in ax.get_ylabel()
+    for name in ("bias", "se_check"):
+        assert "(apples, kg)" in back.figure(name).axes[0].get_xlabel(), name
+    assert "Expected cost (NOK)" in stdout and "Margin (kg)" in stdout
+
+
+def test_user_text_is_escaped_everywhere_a_person_reads(labelled_run):
+    out, _ = labelled_run
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert "<script>" not in html and "&lt;script&gt;x&lt;/script&gt;=cmd(" in html
+    brief = (out / "brief.md").read_text(encoding="utf-8")
+    assert "<script>" not in brief and "&lt;script&gt;x&lt;/script&gt;=cmd(" in brief
+    summary = (out / "summary.csv").read_text(encoding="utf-8")
+    assert ",<script>" not in summary and ",=cmd(" not in summary  # the formula guard of samplewright.files
+
+
+def test_terminal_table_has_thousands_separators_and_no_exponent(labelled_run):
+    out, stdout = labelled_run
+    assert "e+" not in stdout and "e-0" not in stdout
+    table = stdout.split("\n\n")[0].splitlines()
+    assert table[0].split()[:2] == ["Design", "Size"]
+    # srs at n = 30: cost = 250,000 + 30 x 12,500 = 625,000 in every replicate (the linear cost model)
+    assert any("625,000" in ln for ln in table), table
+    summary = pd.read_csv(out / "summary.csv")
+    assert len([ln for ln in table[1:] if not ln.startswith("(")]) == len(summary[["design", "size"]]
+                                                                          .drop_duplicates())
+    assert "recommendation: " in stdout
+
+
+def test_compact_rows_take_each_designs_first_estimator():
+    summary = pd.DataFrame({
+        "design": ["a", "a", "a", "a"], "method": ["srs"] * 4, "size": [10, 10, 20, 20],
+        "estimator": ["hajek", "ht", "hajek", "ht"], "variable": ["y"] * 4, "mean_n": [10.0, 10, 20, 20],
+        "mean_cost": [0.0] * 4, "moe": [1.0, 2.0, 0.5, 0.6], "bias": [0.0] * 4, "bias_mcse": [0.1] * 4,
+        "coverage": [0.95] * 4, "coverage_mcse": [0.01] * 4, "replicates": [100] * 4,
+    })
+    rows = compact_rows(summary)
+    assert [(r["size"], r["estimator"]) for r in rows] == [("10", "hajek"), ("20", "hajek")]
+    assert "Expected cost" not in format_compact(summary, V.labels_of(None))  # no cost model: no column
+
+
+# ------------------------------------------------------------------ the demo
+class _Tags(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.order = []
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "table" or a.get("id") == "verdict":
+            self.order.append(a.get("id") or tag)
+
+
+@pytest.mark.slow
+def test_the_demo_report_reads_without_python_reprs(demo_run):
+    assert demo_run.returncode == 0, demo_run.stderr
+    html = (demo_run.out / "report.html").read_text(encoding="utf-8")
+    brief = (demo_run.out / "brief.md").read_text(encoding="utf-8")
+    for text in (html, brief):
+        for bad in ("<samplewright.", "object at 0x", "Design(", *(f"{c.__name__}(" for c in DESIGN_CLASSES.values())):
+            assert bad not in text, bad
+    tags = _Tags()
+    tags.feed(html)
+    assert tags.order[0] == "verdict" and tags.order.count("table") >= 3  # the card before every table
+    rec = json.loads((demo_run.out / "recommendation.json").read_text(encoding="utf-8"))
+    assert rec["statement"] in demo_run.stdout and "e+" not in demo_run.stdout
+    assert sum(1 for ln in brief.splitlines() if ln.startswith("**Verdict.**")) == 1
+    assert all(w in rec["statement"] for w in ("EUR", "apples", "trees"))
+
+
+def test_the_report_shows_the_new_recommendation_keys_when_the_decision_writes_them(labelled_run, tmp_path):
+    # the keys of VERDICT_API added by hand to a finished run: published margins and a variance column in the
+    # summary, the pick's stability, runner-up and an undecided point in the recommendation
+    out, _ = labelled_run
+    res = samplewright.read_run(out)
+    s = res.summary
+    res.summary = s.assign(published_moe=s["moe"] * 1.1, published_moe_mcse=0.01, published_moe_p90=s["moe"] * 1.3,
+                           variance=["srs" if m == "srs" else "successive_differences" for m in s["method"]])
+    key = next(k for k in ("cheapest_meeting_moe", "best_within_budget") if res.recommendation.get(k))
+    p = res.recommendation[key]
+    row = res.summary[(res.summary["design"] == p["design"]) & (res.summary["size"] == p["size"])
+                      & (res.summary["estimator"] == p["estimator"])].iloc[0]
+    p.update(variance=row["variance"], published_moe=float(row["published_moe"]), published_moe_mcse=0.01,
+             published_moe_p90=float(row["published_moe_p90"]))
+    res.recommendation.update(pick=key, pick_stability=0.915, stability_rounds=200, runner_up=None,
+                              runner_up_share=0.0, undecided=[{**{k: p[k] for k in ("design", "size", "estimator",
+                                                                                     "variable", "method")},
+                                                               "variance": p["variance"], "criterion": "margin",
+                                                               "value": 39.9, "mcse": 0.4, "limit": 40.0,
+                                                               "replicates": 200, "replicates_needed": 1800}])
+    d = res.write(tmp_path / "again")
+    html = samplewright.write_report(res, d).read_text(encoding="utf-8")
+    assert ">Published margin (kg)</th>" in html and ">Variance</th>" in html
+    assert "this pick held in 92 % of 200 re-rehearsals" in html  # 0.915 shown to whole per cent
+    assert "about 1,800 replicates would settle it (200 were run)" in html
+    brief = (d / "brief.md").read_text(encoding="utf-8")
+    assert "Published margin (kg)" in brief and "Stability: 92 % of 200 re-rehearsals" in brief
+
+
+def test_several_goals_and_a_relative_margin_each_get_their_clause():
+    goals = [{"relative_moe": 0.05, "budget": 4500.0, "variable": "apples", "domain": None},
+             {"moe": 3.0, "variable": "pears", "domain": "north"}]
+    pick = _pick(goals=[
+        {"variable": "apples", "domain": None, "moe_goal": 9.1, "moe": 5.3, "published_moe": 6.14,
+         "published_moe_p90": 6.5, "coverage": 0.95, "coverage_mcse": 0.005},
+        {"variable": "pears", "domain": "north", "moe_goal": 3.0, "moe": 2.2, "published_moe": 2.46,
+         "published_moe_p90": 2.7, "coverage": 0.94, "coverage_mcse": 0.005}])
+    labels = {**LABELS, "variables": {"apples": "kg", "pears": "kg"}}
+    rec = _rec(cheapest_meeting_moe=pick, goals=goals, units={"currency": "EUR", "variables": labels["variables"]})
+    s = V.verdict_sentence(rec, {**INFO, "labels": labels})
+    # relative goal: the fraction of the true mean and the margin it means (the pick's moe_goal)
+    assert "published margin ±6.14 kg against the goal ±5 % of the mean (±9.1 kg) for 'apples'" in s
+    assert "published margin ±2.46 kg against the goal ±3 kg for 'pears' in 'north'" in s
+    names = [k for k, _ in V.key_numbers(rec, {**INFO, "labels": labels})]
+    assert "Published margin for 'pears' in 'north'" in names
+
+
+def test_the_verdict_chart_shades_the_goal_rings_the_pick_and_its_labels_do_not_overlap(labelled_run):
+    from matplotlib.patches import Rectangle
+    from matplotlib.text import Annotation, Text
+
+    out, _ = labelled_run
+    back = samplewright.read_run(out)
+    fig = back.figure("verdict")
+    ax = fig.axes[0]
+    shade = [p for p in ax.patches if isinstance(p, Rectangle)]
+    assert len(shade) == 1
+    x0, y0 = shade[0].get_xy()
+    # the region meeting the goal: up to the budget (2,000,000) and down from the margin goal (40)
+    assert y0 == 0 and x0 + shade[0].get_width() == pytest.approx(2_000_000.0)
+    assert shade[0].get_height() == pytest.approx(40.0)
+    texts = [t for t in ax.texts if isinstance(t, Annotation)]
+    key = next(k for k in ("cheapest_meeting_moe", "best_within_budget") if back.recommendation.get(k))
+    assert any(t.get_text().startswith(f"pick: {back.recommendation[key]['design']}") for t in texts)
+    renderer = fig.canvas.get_renderer()
+    boxes = [Text.get_window_extent(t, renderer) for t in texts]  # the text alone, without its leader
+    for i, a in enumerate(boxes):
+        for b in boxes[i + 1:]:
+            assert not a.overlaps(b), (a, b)
