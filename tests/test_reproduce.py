@@ -148,3 +148,19 @@ def test_the_demo_is_reproduced_byte_for_byte(demo_run, tmp_path):
     assert argv[1] == "demo" and "--exact" not in argv
     again = _run_again(argv, tmp_path / "again")
     assert (again / "summary.csv").read_bytes() == (demo_run.out / "summary.csv").read_bytes()
+
+
+def test_a_settling_cap_given_is_in_the_command(tmp_path):
+    # a run with a [goal] given --max-replicates without --until: the cap bounds the replicates added to undecided
+    # points, so it changes numbers and must be repeated; the default cap (10 x replicates) is left out
+    path = tmp_path / "goal.toml"
+    path.write_text(SCENARIO)
+    out = tmp_path / "capped"
+    assert main(["run", str(path), "--out", str(out), "--quiet", "--no-report", "--max-replicates", "600"]) == 0
+    argv = _reproduce(out)
+    assert argv[argv.index("--max-replicates") + 1] == "600"
+    again = _run_again(argv, tmp_path / "again")
+    assert (again / "summary.csv").read_bytes() == (out / "summary.csv").read_bytes()
+    plain = tmp_path / "plain"
+    assert main(["run", str(path), "--out", str(plain), "--quiet", "--no-report"]) == 0
+    assert "--max-replicates" not in _reproduce(plain)

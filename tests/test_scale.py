@@ -312,9 +312,12 @@ def test_until_refuses_bad_rules(text, fragment):
         parse_until(text, max_replicates=1000)
 
 
-def test_max_replicates_without_until_is_refused(scenario_file):
-    with pytest.raises(InputError, match="--until"):
-        run(load_scenario(scenario_file), max_replicates=1000)
+def test_max_replicates_with_nothing_to_cap_is_refused(scenario_file):
+    # the cap bounds --until or the settling of a [goal]; a scenario with neither has nothing to cap
+    sc = load_scenario(scenario_file)
+    assert not sc.goals
+    with pytest.raises(InputError, match="--until or a \\[goal\\]"):
+        run(sc, max_replicates=1000)
 
 
 # ---------------------------------------------------------------- determinism and dask

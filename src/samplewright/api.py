@@ -220,6 +220,9 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
     replicates, _, _ = run_settings(scenario, options)
     rule = _stopping_rule(options, replicates)
     cap = _settle_cap(options, replicates, rule)
+    if options.max_replicates is not None and rule is None and not scenario.goals and not options.resume:
+        raise InputError("--max-replicates caps the replicates of --until or those added to undecided points "
+                         "of a [goal]; this run has neither: give --until or a [goal], or leave it out")
     if frame is None:
         logger.info("loading the frame")
     plan = build_plan(scenario, options, frame=frame, stopping=rule)

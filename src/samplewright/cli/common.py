@@ -86,7 +86,16 @@ def reproduce_command(program: str, info: dict, out) -> str:
         argv += ["--seed", str(info["seed"]), "--replicates", str(info["replicates"])]
         if info.get("stopping"):
             argv += ["--until", info["stopping"]["until"], "--max-replicates", str(info["stopping"]["max_replicates"])]
+        elif _settle_cap_given(info):  # the cap on replicates added to undecided points, when not the default
+            argv += ["--max-replicates", str(info["evidence"]["max_replicates"])]
     return shlex.join(argv)
+
+
+def _settle_cap_given(info: dict) -> bool:
+    from samplewright.decision.settle import default_cap
+
+    cap = (info.get("evidence") or {}).get("max_replicates")
+    return cap is not None and info.get("replicates") is not None and cap != default_cap(info["replicates"])
 
 
 def simulate_and_write(scenario, args, program: str) -> int:
