@@ -1,0 +1,86 @@
+"""Stratum boundaries on a numeric auxiliary: the rules, and the strata a list of boundaries makes.
+
+Pure functions of arrays.  A list of H - 1 increasing boundaries b_1 < ... < b_{H-1} cuts the
+auxiliary x into H strata: stratum h holds the units with b_h < x <= b_{h+1} (b_0 = -inf,
+b_H = +inf), so a unit equal to a boundary belongs to the stratum below it.
+
+Notes
+-----
+- Cumulative square root of the frequency (Dalenius and Hodges 1959): cut x into J equal-width
+  classes with frequencies f_j, cumulate sqrt(f_j) and place the boundaries at the class edges
+  where the cumulated total is nearest to k T / H (T the grand total, k = 1..H-1).
+- Geometric (Gunning and Horgan 2004): b_h = a r^h with a = min x, b = max x and r = (b/a)^(1/H),
+  h = 1..H-1 (x must be positive).
+
+The take-all top stratum for a target CV (after Lavallee and Hidiroglou 1988) needs the
+planning formulas, so it lives in ``decision/take_all.py``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from samplewright.errors import InputError
+
+
+def stratum_codes(x, boundaries) -> np.ndarray:
+    """The stratum (0..H-1) of each value of ``x`` for increasing ``boundaries`` (H - 1 of them).
+
+    Examples
+    --------
+    >>> stratum_codes([1.0, 2.0, 3.0, 10.0], [2.0, 5.0]).tolist()
+    [0, 0, 1, 2]
+    """
+    return np.searchsorted(np.asarray(boundaries, dtype=float), np.asarray(x, dtype=float),
+                           side="left").astype(np.int64)
+
+
+def cum_sqrt_f(x, H: int, classes: int | None = None) -> np.ndarray:
+    """Dalenius-Hodges boundaries: H - 1 class edges cutting cumulative sqrt(frequency) into H equal parts.
+
+    ``classes`` (J, the number of equal-width classes) defaults to max(10 H, min(200, sqrt N))
+    ("common practice": enough classes that each stratum spans several).
+
+    Examples
+    --------
+    >>> cum_sqrt_f(np.arange(1000.0), 4, classes=100).tolist()
+    [249.75, 499.5, 749.25]
+    """
+    x = np.asarray(x, dtype=float)
+    H = strata_count(H)
+    lo, hi = float(x.min()), float(x.max())
+    if not hi > lo:
+        raise InputError("boundaries: the stratifying column holds one value only, so it cannot be cut into strata")
+    J = int(classes) if classes is not None else max(10 * H, min(200, int(np.sqrt(x.size))))
+    freq, edges = np.histogram(x, bins=J, range=(lo, hi))
+    cum = np.cumsum(np.sqrt(freq))
+    targets = cum[-1] * np.arange(1, H) / H
+    # the class edge (upper edge of class j) whose cumulated total is nearest each target
+    at = np.abs(cum[None, :-1] - targets[:, None]).argmin(axis=1)
+    return np.unique(edges[at + 1])
+
+
+def geometric(x, H: int) -> np.ndarray:
+    """Gunning-Horgan boundaries a r^h, h = 1..H-1, r = (b / a)^(1/H), a = min x > 0, b = max x.
+
+    Examples
+    --------
+    >>> geometric([1.0, 5.0, 1000.0], 3).round(6).tolist()
+    [10.0, 100.0]
+    """
+    x = np.asarray(x, dtype=float)
+    H = strata_count(H)
+    a, b = float(x.min()), float(x.max())
+    if not a > 0:
+        raise InputError(f"boundaries: geometric boundaries need a stratifying column above 0 (its least "
+                         f"value is {a:g})")
+    if not b > a:
+        raise InputError("boundaries: the stratifying column holds one value only, so it cannot be cut into strata")
+    r = (b / a) ** (1.0 / H)
+    return a * r ** np.arange(1, H)
+
+
+def strata_count(H, least: int = 1) -> int:
+    if isinstance(H, bool) or not isinstance(H, (int, np.integer)) or H < least:
+        raise InputError(f"boundaries: the number of strata must be a whole number of at least {least}, got {H!r}")
+    return int(H)
