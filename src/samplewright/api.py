@@ -79,7 +79,7 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
         if alloc is None:
             continue
         N_h, n_h = alloc
-        for h, label in enumerate(frame.stratum_labels):
+        for h, label in enumerate(cell.design.strata_frame(frame).stratum_labels):
             rows.append({"design": cell.design.label, "size": int(cell.design.size), "stratum": label,
                          "population_units": int(N_h[h]), "sample_units": int(n_h[h])})
     return pd.DataFrame(rows, columns=ALLOCATION_COLUMNS)
