@@ -45,7 +45,7 @@ class Stratified(Design):
         return {**vars(self), "_cache": {}}
 
     # ------------------------------------------------------------ strata cut on a numeric column
-    def _check_cut(self, frame) -> None:
+    def check_cut(self, frame) -> None:
         """Refuse ``boundaries``, ``stratify_by`` and ``take_all`` the frame cannot support."""
         ctx = f"design {self.label!r}"
         if self.boundaries is None:
@@ -98,7 +98,7 @@ class Stratified(Design):
 
     def check(self, frame):
         n = self._positive_int("n", self.n)
-        self._check_cut(frame)
+        self.check_cut(frame)
         cut = self.strata_frame(frame)
         if self.take_all and n < int(cut.N_h[-1]) + 2 * (cut.H - 1):
             raise InputError(f"design {self.label!r}: n = {n} cannot take the {int(cut.N_h[-1])} units of the "
