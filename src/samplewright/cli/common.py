@@ -62,12 +62,15 @@ def logger(args):
     return None
 
 
-def simulate_and_write(scenario, args) -> int:
-    """Run ``scenario`` with the command's options and write its results to ``args.out``."""
+def simulate_and_write(scenario, args, runner=None) -> int:
+    """Run ``scenario`` with the command's options and write its results to ``args.out``.
+
+    ``runner`` is :func:`samplewright.api.run` (default) or a function with its arguments (``propose``)."""
     from samplewright.api import run
     from samplewright.files import prepare_dir
     from samplewright.simulation import checkpoint
 
+    runner = run if runner is None else runner
     inputs = (scenario.source, scenario.frame.path)
     extra = run_kwargs(args)
 
@@ -78,7 +81,7 @@ def simulate_and_write(scenario, args) -> int:
     exact = getattr(args, "exact", False)  # an enumeration keeps no blocks
     try:
         with stderr_log(args):
-            res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
+            res = runner(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
                       progress=None if not args.quiet else False, exact=exact, ready=ready, **extra)
         if not exact:
             res.info[checkpoint.KEPT] = args.keep_blocks

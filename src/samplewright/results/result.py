@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from samplewright.files import prepare_dir, write_csv, write_json, write_parquet
+from samplewright.files import prepare_dir, write_csv, write_json, write_parquet, write_text
 
 ALLOCATION_COLUMNS = ["design", "size", "stratum", "population_units", "sample_units"]
 
@@ -39,6 +39,9 @@ class RunResult:
     frame_order: pd.DataFrame | None = None
     #: (what, exception) of each step after the simulation that failed (the tables are still complete)
     late_failures: list = field(default_factory=list)
+    #: ``propose`` only: every screened design (candidates.csv) and the shortlist's scenario document
+    candidates: pd.DataFrame | None = None
+    proposal: dict | None = None
 
     def write(self, out, force: bool = False, report: bool = False, svg: bool = False) -> Path:
         """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``).
@@ -50,7 +53,8 @@ class RunResult:
         # an older run.json marks older files complete: remove it first, so an interrupted
         # overwrite never leaves new and old files under one complete-looking run.json; older
         # derived files go too, so a run without them never shows another run's
-        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv"):
+        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv", "candidates.csv",
+                     "proposal.toml"):
             (p / name).unlink(missing_ok=True)
         # the simulated tables first, run.json marking them complete; then what is derived from them,
         # so that a failure there never loses the simulation
@@ -64,6 +68,12 @@ class RunResult:
             write_csv(self.frontier, p / "frontier.csv")
         if self.recommendation is not None:
             write_json(self.recommendation, p / "recommendation.json")
+        if self.candidates is not None:
+            write_csv(self.candidates, p / "candidates.csv")
+        if self.proposal is not None:
+            from samplewright.proposal.build import proposal_text  # only a proposal needs it
+
+            write_text(proposal_text(self.proposal, self.candidates, p), p / "proposal.toml")
         if report:
             # the report loads matplotlib and jinja2: deliberately lazy, so a run without a report starts fast
             from samplewright.report import write_report
