@@ -1,0 +1,161 @@
+"""samplewright propose: the screen is honest (anticipated against rehearsed variance), the proposal beats the
+designs a user lists by hand, and proposal.toml runs and draws."""
+
+from __future__ import annotations
+
+import tomllib
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from samplewright import propose, run, scenario_from_dict
+from samplewright.cli.main import main
+from samplewright.errors import InputError
+
+#: an invented business register: a skewed turnover y and a heavy-tailed employee count (the size column)
+REGISTER = {"units": 3000, "seed": 4, "mean": 200.0, "sd": 150.0, "skew": "lognormal", "skewness": 4.0,
+            "size_correlation": 0.9, "size_cv": 0.5, "size_mean": 40.0}
+BUDGET = 4500.0  # fixed 500 + 20 per unit: 200 units
+
+
+def register(**extra) -> dict:
+    return {"title": "register", "seed": 5, "frame": {"synthetic": dict(REGISTER)},
+            "cost": {"fixed": 500.0, "per_unit": 20.0},
+            "design": [{"label": "listed", "method": "srs", "n": 50}], **extra}
+
+
+@pytest.fixture(scope="module")
+def proposed():
+    return propose(scenario_from_dict(register()), budget=BUDGET, replicates=1500, seed=3)
+
+
+def test_screen_covers_the_families_and_shortlists_six(proposed):
+    cand = proposed.candidates
+    assert {"srs", "bands on size", "pps"} <= set(cand["family"])
+    assert set(cand.loc[cand["family"] == "bands on size", "boundary_rule"]) >= {"cum_sqrt_f", "geometric",
+                                                                               "take_all"}
+    assert int(cand["shortlisted"].sum()) == 6
+    short = cand[cand["shortlisted"]]
+    assert short["rank"].tolist() == [1, 2, 3, 4, 5, 6]
+    assert (short["expected_cost"] <= BUDGET).all()  # the budget is a mean cost; these designs' cost is fixed
+    assert proposed.info["proposal"]["candidates"] == len(cand)
+    assert sorted(proposed.summary["design"].unique()) == sorted(short["design"])
+
+
+def test_anticipated_variance_within_monte_carlo_error_of_rehearsed(proposed):
+    # The closed forms (proposal/anticipate.py; Cochran 1977 eq. 5.6, 2.8, 9A.5) are the design variances;
+    # the rehearsed empirical variance estimates them with MCSE 2 empSE MCSE(empSE) (Morris, White and
+    # Crowther 2019, table 6, by the delta method).  z-bound of 4 MCSE per design.
+    short = proposed.candidates[proposed.candidates["shortlisted"]]
+    z = (short["rehearsed_variance"] - short["anticipated_variance"]).abs() / short["rehearsed_variance_mcse"]
+    assert (z < 4).all(), short[["design", "anticipated_variance", "rehearsed_variance"]]
+
+
+def rmse_and_mcse(reps: pd.DataFrame, design: str, truth: float):
+    """RMSE of the HT estimates and its MCSE, sd((x - truth)^2) / (2 RMSE sqrt(R)) (Morris, White and
+    Crowther 2019, table 6, MSE's MCSE by the delta method)."""
+    x = reps.loc[(reps["design"] == design) & (reps["estimator"] == "ht"), "estimate"].to_numpy()
+    sq = (x - truth) ** 2
+    rmse = float(np.sqrt(sq.mean()))
+    return rmse, float(sq.std(ddof=1) / np.sqrt(sq.size) / (2 * rmse))
+
+
+def test_proposal_no_worse_than_srs_and_proportional_equal_width_strata(proposed):
+    # The hand-listed rivals at the same budget (200 units): SRS, and proportional allocation over
+    # equal-width bands of the size column (as many of 2..5 bands as leave 2 units in each).
+    sc = scenario_from_dict(register())
+    frame = sc.load_frame()
+    x = frame.size
+    listed = [{"label": "srs", "method": "srs", "n": 200}]
+    for H in (5, 4, 3, 2):
+        b = np.linspace(x.min(), x.max(), H + 1)[1:-1]
+        if np.bincount(np.searchsorted(b, x), minlength=H).min() >= 2:
+            listed.append({"label": f"equal-width-{H}", "method": "stratified", "n": 200,
+                           "allocation": "proportional", "boundaries": [float(v) for v in b]})
+            break
+    assert len(listed) == 2
+    base = run(scenario_from_dict(register(design=listed) | {"design": listed}), replicates=1500, seed=3)
+    truth = float(frame.mean[0])
+    best = proposed.candidates.loc[proposed.candidates["rank"] == 1, "design"].item()
+    r_prop, m_prop = rmse_and_mcse(proposed.replicates, best, truth)
+    rivals = [rmse_and_mcse(base.replicates, d["label"], truth) for d in listed]
+    r_base, m_base = min(rivals)
+    mcse_diff = float(np.hypot(m_prop, m_base))  # independent streams (each design's own seed key)
+    print(f"proposal {best}: RMSE {r_prop:.4g} (MCSE {m_prop:.2g}); best listed {r_base:.4g} (MCSE {m_base:.2g}); "
+          f"difference MCSE {mcse_diff:.2g}")
+    assert r_prop <= r_base + 2 * mcse_diff
+
+
+def test_proposal_toml_runs_and_draws(proposed, tmp_path, capsys):
+    out = proposed.write(tmp_path / "p")
+    doc = tomllib.loads((out / "proposal.toml").read_text())
+    assert [d["label"] for d in doc["design"]] == proposed.info["proposal"]["shortlist"]
+    assert doc["goal"]["budget"] == BUDGET
+    assert pd.read_csv(out / "candidates.csv")["design"].tolist() == proposed.candidates["design"].tolist()
+    assert main(["run", str(out / "proposal.toml"), "--out", str(tmp_path / "again"), "--replicates", "30",
+                 "--quiet", "--no-report"]) == 0
+    label = doc["design"][0]["label"]
+    assert main(["draw", str(out / "proposal.toml"), "--design", label, "--seed", "1",
+                 "--out", str(tmp_path / "s.csv")]) == 0
+    capsys.readouterr()
+    assert len(pd.read_csv(tmp_path / "s.csv")) == doc["design"][0]["n"]
+
+
+def test_proposal_toml_with_a_frame_file_runs_from_its_folder(tmp_path, capsys):
+    frame = scenario_from_dict(register()).frame.dataframe()
+    (tmp_path / "data").mkdir()
+    frame.to_csv(tmp_path / "data" / "reg.csv", index=False)
+    (tmp_path / "s.toml").write_text('seed = 2\n[frame]\npath = "data/reg.csv"\ntarget = "y"\nsize = "size"\n'
+                                     '[cost]\nfixed = 500.0\nper_unit = 20.0\n[goal]\nbudget = 4500.0\n'
+                                     '[[design]]\nlabel = "a"\nmethod = "srs"\nn = 10\n')
+    assert main(["propose", str(tmp_path / "s.toml"), "--out", str(tmp_path / "o"), "--replicates", "40",
+                 "--max-candidates", "2", "--quiet", "--no-report"]) == 0
+    text = (tmp_path / "o" / "proposal.toml").read_text()
+    assert 'path = "../data/reg.csv"' in text
+    assert main(["run", str(tmp_path / "o" / "proposal.toml"), "--out", str(tmp_path / "r"), "--replicates", "20",
+                 "--quiet", "--no-report"]) == 0
+    capsys.readouterr()
+
+
+def test_margin_goal_proposes_the_cheapest_designs():
+    res = propose(scenario_from_dict(register()), relative_moe=0.05, max_candidates=3, replicates=200, seed=1)
+    cand = res.candidates
+    target = 0.05 * abs(float(scenario_from_dict(register()).load_frame().mean[0]))
+    ok = cand["size"].notna()
+    assert (cand.loc[ok, "anticipated_moe"] <= target * (1 + 1e-12)).all()
+    short = cand[cand["shortlisted"]].sort_values("rank")
+    assert short["expected_cost"].is_monotonic_increasing
+    assert short["expected_cost"].iloc[0] == cand.loc[ok, "expected_cost"].min()
+
+
+def test_screening_on_an_auxiliary_only(capsys):
+    sc = scenario_from_dict(register())
+    res = propose(sc, budget=BUDGET, screen_on="size", max_candidates=2, replicates=100, seed=1)
+    assert res.info["proposal"]["auxiliary_only"] is True
+    assert set(res.candidates["screened_on"]) == {"size (auxiliary only)"}
+    with pytest.raises(InputError, match="needs --budget or --relative-moe"):
+        propose(sc, moe=5.0, screen_on="size", replicates=10)
+    with pytest.raises(InputError, match="--screen-on 'nope'"):
+        propose(sc, budget=BUDGET, screen_on="nope", replicates=10)
+
+
+@pytest.mark.parametrize("doc, kwargs, match", [
+    (register(), {}, "propose needs a goal"),
+    (register(), {"budget": 1.0, "moe": 2.0}, "not budget and moe"),
+    ({**register(), "cost": {}}, {"budget": 100.0}, "needs costs"),
+    (register(), {"budget": 100.0}, "none of the"),
+    (register(), {"budget": -3.0}, "must be a number above 0"),
+])
+def test_refusals(doc, kwargs, match):
+    with pytest.raises(InputError, match=match):
+        propose(scenario_from_dict(doc), replicates=10, **kwargs)
+
+
+def test_cli_refusal_is_one_error_line(tmp_path, capsys):
+    (tmp_path / "s.toml").write_text('[frame.synthetic]\nunits = 200\n[[design]]\nlabel = "a"\nmethod = "srs"\n'
+                                     'n = 10\n')
+    assert main(["propose", str(tmp_path / "s.toml"), "--out", str(tmp_path / "o"), "--budget", "100"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("error:") and "needs costs" in err[0]
+    assert not (tmp_path / "o").exists()
