@@ -13,8 +13,9 @@ HELP = ("search stratum boundaries, allocations, cluster takes and size-proporti
 
 
 def add_arguments(p) -> None:
-    p.add_argument("scenario", help="scenario file (TOML): its frame, roles and cost model; its designs are not used")
-    p.add_argument("--out", required=True, help="results folder (refused if it holds files, unless --force); "
+    p.add_argument("scenario", help="scenario file (TOML): its frame, roles, cost model and goal; its designs are "
+                                    "not used")
+    p.add_argument("--out", required=True, help="results folder, required (refused if it holds files, unless --force); "
                                                 "it gets proposal.toml and candidates.csv beside the usual results")
     goal = p.add_mutually_exclusive_group()
     goal.add_argument("--budget", type=float, help="the mean cost a design may have (default: the scenario's [goal])")
