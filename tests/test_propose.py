@@ -159,3 +159,23 @@ def test_cli_refusal_is_one_error_line(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("error:") and "needs costs" in err[0]
     assert not (tmp_path / "o").exists()
+
+
+def test_report_explains_how_the_proposal_was_found(proposed, tmp_path, capsys):
+    out = proposed.write(tmp_path / "r", report=True)
+    page = (out / "report.html").read_text()
+    assert "How the proposal was found" in page
+    assert f"{len(proposed.candidates)} candidate designs were screened" in page
+    assert page.count('id="fig-proposal_check"') == 1 and page.count('id="fig-proposal_boundaries"') == 1
+    assert (out / "figures" / "proposal_boundaries.png").exists()
+    # rebuilt from the folder alone (samplewright report DIR): the same section
+    (out / "report.html").unlink()
+    assert main(["report", str(out)]) == 0
+    capsys.readouterr()
+    assert "How the proposal was found" in (out / "report.html").read_text()
+
+
+def test_a_plain_run_has_no_proposal_section(tmp_path):
+    res = run(scenario_from_dict(register()), replicates=50, seed=1)
+    page = (res.write(tmp_path / "plain", report=True) / "report.html").read_text()
+    assert "How the proposal was found" not in page and "proposal_check" not in page

@@ -92,8 +92,25 @@ def prepare(scenario: Scenario, frame, budget=None, moe=None, relative_moe=None,
             "auxiliary_only": screen_on is not None, "stratifier": found.stratifier,
             "candidates": len(found.candidates), "by_family": {str(k): int(v) for k, v in fam.items()},
             "shortlist": [t["label"] for t in found.shortlist], "boundaries": found.boundaries,
-            "notes": found.notes}
+            "notes": found.notes, "stratifier_histogram": _histogram(found.stratifier_values)}
     return Proposal(screen=found, scenario=rehearsal, doc=doc, info=info)
+
+
+#: classes of the stratifier's histogram kept for the report's figure
+HISTOGRAM_CLASSES = 40
+
+
+def _histogram(x) -> dict | None:
+    """The stratifier's distribution for the report (which never sees the frame): class edges and counts,
+    on a log scale when the values are positive and span more than two powers of ten."""
+    if x is None:
+        return None
+    x = np.asarray(x, dtype=float)
+    log = bool(x.min() > 0 and x.max() / x.min() > 100)
+    edges = (np.geomspace(x.min(), x.max(), HISTOGRAM_CLASSES + 1) if log
+             else np.linspace(x.min(), x.max(), HISTOGRAM_CLASSES + 1))
+    counts, _ = np.histogram(x, bins=edges)
+    return {"edges": edges.tolist(), "counts": counts.tolist(), "log": log}
 
 
 def _auxiliary(frame, name: str):

@@ -80,6 +80,7 @@ class Screen:
     shortlist: list
     notes: list
     stratifier: str | None
+    stratifier_values: np.ndarray | None
     boundaries: dict  # shortlisted banded design label -> its boundaries (for the report's figure)
 
 
@@ -162,7 +163,7 @@ def screen(frame, cost, y, screened_on: str, *, budget=None, moe=None, z=1.96, s
               if "boundaries" in templates[i].params}
     table = table.sort_values(["rank", "family", "design"], kind="stable", na_position="last")
     return Screen(candidates=table[CANDIDATE_COLUMNS].reset_index(drop=True), shortlist=shortlist, notes=notes,
-                  stratifier=col, boundaries=bounds)
+                  stratifier=col, stratifier_values=x, boundaries=bounds)
 
 
 # ------------------------------------------------------------------ sizes

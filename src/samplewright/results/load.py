@@ -107,7 +107,7 @@ def read_run(folder) -> RunResult:
 
     ``run.json`` and ``summary.csv`` are required; ``replicates.parquet`` may be missing (the
     figures that need it are then left out); ``allocation.csv``, ``frontier.csv``,
-    ``recommendation.json`` and ``frame_order.csv`` are read when present.
+    ``recommendation.json``, ``frame_order.csv`` and ``candidates.csv`` are read when present.
 
     Examples
     --------
@@ -160,6 +160,7 @@ def read_run(folder) -> RunResult:
     frontier = _read_csv(p / "frontier.csv") if (p / "frontier.csv").exists() else None
     rec = _read_json(p / "recommendation.json") if (p / "recommendation.json").exists() else None
     order = _read_csv(p / "frame_order.csv") if (p / "frame_order.csv").exists() else None
+    candidates = _read_csv(p / "candidates.csv") if (p / "candidates.csv").exists() else None  # a proposal's
     return RunResult(
         summary=summary,
         replicates=replicates,
@@ -169,6 +170,7 @@ def read_run(folder) -> RunResult:
         recommendation=rec,
         warnings=list(info.get("warnings") or []),
         frame_order=order,
+        candidates=candidates,
     )
 
 
