@@ -198,3 +198,35 @@ def test_bundled_register_scenario_propose_beats_the_designs_listed_by_hand():
     r_prop, m_prop = rmse_and_mcse(found.replicates, best, truth)
     assert found.summary["mean_cost"].max() <= sc.goal.budget
     assert r_prop + 2 * float(np.hypot(m_prop, m_list)) < r_list
+
+
+def test_clustered_stratified_frame_screens_frame_strata_and_kish_takes():
+    doc = {"seed": 3, "frame": {"synthetic": {
+        "units": 4000, "seed": 8, "clusters": {"mean_size": 20, "icc": 0.1},
+        "strata": [{"name": "a", "share": 0.5, "mean": 50, "sd": 10},
+                   {"name": "b", "share": 0.5, "mean": 80, "sd": 30}]}},
+        "cost": {"per_cluster": 200.0, "per_unit": 10.0, "per_unit_by_stratum": {"b": 25.0}},
+        "design": [{"label": "x", "method": "srs", "n": 10}]}
+    sc = scenario_from_dict(doc)
+    res = propose(sc, moe=3.0, replicates=1000, seed=2)
+    cand = res.candidates
+    assert set(cand["family"]) == {"srs", "frame strata", "cluster"}
+    assert "strata-optimal" in set(cand["design"])  # the strata's unit costs differ (10 and 25)
+    assert any("no banded stratification" in n for n in res.info["proposal"]["notes"])
+    # Kish (1965, sec. 8.3): m_opt = sqrt((c1 / c2) (1 - rho) / rho) with the frame's own ANOVA rho (Donner 1986),
+    # c1 = 200 per cluster, c2 = the mean cost of a unit (10, or 25 in stratum b); takes near it: m/1.5, m, 1.5 m
+    from samplewright.diagnostics.inspection import anova_icc
+
+    frame = sc.load_frame()
+    rho = anova_icc(frame.y[:, 0], frame.cluster)
+    c2 = 10.0 + 15.0 * float(np.mean(frame.stratum == frame.stratum_labels.index("b")))
+    m = np.sqrt(200.0 / c2 * (1 - rho) / rho)
+    takes = {int(round(v)) for v in (m / 1.5, m, m * 1.5)} - {0, 1}
+    assert {f"clusters-take{k}" for k in takes} <= set(cand["design"])
+    ok = cand["size"].notna()
+    assert (cand.loc[ok, "anticipated_moe"] <= 3.0).all()
+    short = cand[cand["shortlisted"]]
+    assert "cluster" in set(short["family"])
+    # anticipated vs rehearsed variance, the cluster closed forms included (z-bound of 4 MCSE, as above)
+    z = (short["rehearsed_variance"] - short["anticipated_variance"]).abs() / short["rehearsed_variance_mcse"]
+    assert (z < 4).all(), short[["design", "anticipated_variance", "rehearsed_variance"]]
