@@ -230,3 +230,19 @@ def test_clustered_stratified_frame_screens_frame_strata_and_kish_takes():
     # anticipated vs rehearsed variance, the cluster closed forms included (z-bound of 4 MCSE, as above)
     z = (short["rehearsed_variance"] - short["anticipated_variance"]).abs() / short["rehearsed_variance_mcse"]
     assert (z < 4).all(), short[["design", "anticipated_variance", "rehearsed_variance"]]
+
+
+@pytest.mark.parametrize("slope, fixed, budget", [(20.0, 500.0, 4500.0), (3.0, 0.0, 1000.0), (7.5, 2.0, 7.0)])
+def test_largest_size_within_the_budget_is_exact_for_linear_costs(slope, fixed, budget):
+    from samplewright.proposal.search import _largest_within
+
+    asked = []
+
+    def price(s):
+        asked.append(s)
+        return fixed + slope * s
+
+    got = _largest_within(price, 2, 100_000, budget)
+    want = int((budget - fixed) // slope)  # the largest s with fixed + slope s <= budget
+    assert got == (want if want >= 2 else None)
+    assert max(asked) <= max(4 * want, 2)  # the pilot sizes stay near the answer

@@ -466,7 +466,9 @@ def propose(scenario, budget: float | None = None, moe: float | None = None, rel
 
     if not isinstance(scenario, Scenario):
         scenario = load_scenario(scenario)
-    frame = run_options.pop("frame", None) or scenario.load_frame()
+    frame = run_options.pop("frame", None)
+    if frame is None:
+        frame = scenario.load_frame()
     found = prepare(scenario, frame, budget=budget, moe=moe, relative_moe=relative_moe,
                     max_candidates=max_candidates, screen_on=screen_on, stratify_by=stratify_by,
                     seed=run_options.get("seed"))

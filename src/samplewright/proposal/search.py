@@ -31,7 +31,6 @@ import pandas as pd
 from samplewright.decision.planning import optimal_cluster_take
 from samplewright.decision.take_all import take_all
 from samplewright.designs import DESIGN_CLASSES
-from samplewright.designs.allocation import RULES
 from samplewright.designs.boundaries import cum_sqrt_f, geometric
 from samplewright.diagnostics.inspection import anova_icc
 from samplewright.errors import InputError
@@ -46,8 +45,8 @@ STRATA = range(2, 9)
 CANDIDATE_COLUMNS = ["design", "family", "method", "size", "strata", "boundary_rule", "allocation", "take_all",
                      "units_per_cluster", "expected_n", "anticipated_variance", "anticipated_se",
                      "anticipated_moe", "expected_cost", "screened_on", "rank", "shortlisted", "note"]
+#: the allocation rules screened (of designs.allocation.RULES; equal allocation is left out)
 ALLOCATIONS = ("proportional", "neyman", "optimal")
-assert set(ALLOCATIONS) <= set(RULES)
 
 
 @dataclass
@@ -203,14 +202,24 @@ def _size_up(t: Template, frame, build, price, variance, budget, moe, z) -> dict
 
 
 def _largest_within(price, lo: int, hi: int, budget: float) -> int | None:
-    """The largest size in [lo, hi] whose cost is within ``budget`` (costs rise with the size), by
-    regula falsi (exact in two steps for a cost linear in the size), then bisection."""
+    """The largest size in [lo, hi] whose cost is within ``budget`` (costs rise with the size).
+
+    The size is doubled from ``lo`` until the cost passes the budget (so the pilot draws stay near the
+    answer's size however large the frame), then found by regula falsi (exact in a step or two for a
+    cost linear in the size), ending by bisection.
+    """
     c_lo = price(lo)
     if c_lo > budget:
         return None
-    c_hi = price(hi)
-    if c_hi <= budget:
-        return hi
+    while True:
+        top = min(hi, 2 * lo)
+        c_top = price(top)
+        if c_top > budget:
+            hi, c_hi = top, c_top
+            break
+        if top == hi:
+            return hi
+        lo, c_lo = top, c_top
     step = 0
     while hi - lo > 1:
         step += 1
