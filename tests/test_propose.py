@@ -246,3 +246,15 @@ def test_largest_size_within_the_budget_is_exact_for_linear_costs(slope, fixed, 
     want = int((budget - fixed) // slope)  # the largest s with fixed + slope s <= budget
     assert got == (want if want >= 2 else None)
     assert max(asked) <= max(4 * want, 2)  # the pilot sizes stay near the answer
+
+
+def test_screen_does_not_depend_on_replicates_or_jobs():
+    # the screen is closed forms and fixed-size pilot draws keyed by the seed and the candidate's label:
+    # the same candidates and shortlist at 60 and 200 replicates; the rehearsal the same with 1 or 2 jobs
+    sc = scenario_from_dict(register())
+    a = propose(sc, budget=BUDGET, max_candidates=2, replicates=60, seed=4)
+    b = propose(sc, budget=BUDGET, max_candidates=2, replicates=200, seed=4, jobs=2)
+    screened = [c for c in a.candidates.columns if not c.startswith("rehearsed")]
+    pd.testing.assert_frame_equal(a.candidates[screened], b.candidates[screened])
+    c = propose(sc, budget=BUDGET, max_candidates=2, replicates=200, seed=4)
+    pd.testing.assert_frame_equal(b.summary, c.summary)
