@@ -32,6 +32,7 @@ from samplewright.decision.planning import optimal_cluster_take
 from samplewright.decision.take_all import take_all
 from samplewright.designs import DESIGN_CLASSES
 from samplewright.designs.boundaries import cum_sqrt_f, geometric
+from samplewright.diagnostics.checks import cost_notes
 from samplewright.diagnostics.inspection import anova_icc
 from samplewright.errors import InputError
 from samplewright.proposal.anticipate import anticipated_variance
@@ -121,7 +122,7 @@ def screen(frame, cost, y, screened_on: str, *, budget=None, moe=None, z=1.96, s
         notes.append("no numeric column to cut into strata (no size column, no auxiliary column): "
                      "no banded stratification was screened")
     templates += _frame_strata_templates(frame, cost) + _cluster_templates(frame, cost, y) + _pps_templates(frame)
-    if budget is not None and price(templates[0], frame.N) <= 0:
+    if budget is not None and cost_notes(cost, frame):  # nothing in the scenario costs anything
         raise InputError("propose --budget needs costs: the scenario has no [cost] rates and the frame no "
                          "unit_cost or cluster_cost column, so every design costs 0; give --moe instead")
     rows = [_size_up(t, frame, build, price, variance, budget, moe, z) for t in templates]
