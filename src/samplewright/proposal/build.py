@@ -55,6 +55,8 @@ def prepare(scenario: Scenario, frame, budget=None, moe=None, relative_moe=None,
     if not given:
         if goal is not None and goal.moe is not None:
             given = {"moe": goal.moe}
+        elif goal is not None and getattr(goal, "relative_moe", None) is not None:  # the [goal] key of issue 14
+            given = {"relative_moe": goal.relative_moe}
         elif goal is not None and goal.budget is not None:
             given = {"budget": goal.budget}
         else:
@@ -161,6 +163,7 @@ def rehearsed(candidates: pd.DataFrame, summary: pd.DataFrame, variable: str) ->
     (2 empSE MCSE(empSE), the delta method on MCSE(empSE) = empSE / sqrt(2 (R - 1)), Morris, White and
     Crowther 2019, table 6) and the mean cost; empty for the others."""
     rows = summary[(summary["estimator"] == "ht") & (summary["variable"] == variable)].set_index("design")
+    rows = rows[~rows.index.duplicated()]  # one row per design (several variance formulas share the estimates)
     out = candidates.copy()
     se = out["design"].map(rows["empirical_se"]).where(out["shortlisted"])
     R = out["design"].map(rows["replicates"]).where(out["shortlisted"])
