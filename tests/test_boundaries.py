@@ -68,3 +68,23 @@ def test_take_all_picks_the_outliers_and_needs_fewer_units():
     S_h = [x[codes == h].std(ddof=1) for h in range(2)]
     k0 = allocate_strata(np.bincount(codes), S_h, rule="neyman", variance=(0.01 * x.mean()) ** 2)["n"]
     assert res["n"] < k0
+
+
+def test_default_classes_are_freedman_diaconis():
+    # Freedman and Diaconis (1981): class width 2 IQR N^(-1/3); numpy's "fd" bins are an independent implementation
+    from samplewright.designs.boundaries import default_classes
+
+    rng = np.random.default_rng(8)
+    x = rng.lognormal(2.0, 0.8, 5000)
+    assert default_classes(x, 4) == len(np.histogram_bin_edges(x, "fd")) - 1
+    assert default_classes(np.r_[np.ones(50), 2.0], 4) == 40  # IQR 0: the floor of 10 classes per stratum
+
+
+def test_cum_sqrt_f_resolves_a_column_stretched_by_a_few_giants():
+    # with the Freedman-Diaconis classes the bulk is cut into H strata although three units sit 10^4 times
+    # above it (with 10 H equal-width classes every boundary would fall in the first class)
+    rng = np.random.default_rng(3)
+    x = np.r_[rng.lognormal(2.0, 0.5, 5000), 5e4, 7e4, 9e4]
+    b = cum_sqrt_f(x, 5)
+    assert len(b) == 4 and b[-1] < 100
+    assert len(cum_sqrt_f(x, 5, classes=50)) == 1

@@ -35,11 +35,29 @@ def stratum_codes(x, boundaries) -> np.ndarray:
                            side="left").astype(np.int64)
 
 
+#: bounds on the default number of classes of the cumulative sqrt(f) rule (common practice)
+MIN_CLASSES_PER_STRATUM = 10
+MAX_CLASSES = 100_000
+
+
+def default_classes(x, H: int) -> int:
+    """The Freedman-Diaconis number of equal-width classes, range / (2 IQR N^(-1/3)) (Freedman and
+    Diaconis 1981), kept between 10 H and 100,000: fine enough to resolve the bulk of a skewed column
+    whose range a few very large units stretch."""
+    x = np.asarray(x, dtype=float)
+    q1, q3 = np.percentile(x, [25, 75])
+    width = 2.0 * (q3 - q1) * x.size ** (-1.0 / 3.0)
+    span = float(x.max() - x.min())
+    J = int(np.ceil(span / width)) if width > 0 else 0
+    return int(min(max(J, MIN_CLASSES_PER_STRATUM * H), MAX_CLASSES))
+
+
 def cum_sqrt_f(x, H: int, classes: int | None = None) -> np.ndarray:
     """Dalenius-Hodges boundaries: H - 1 class edges cutting cumulative sqrt(frequency) into H equal parts.
 
-    ``classes`` (J, the number of equal-width classes) defaults to max(10 H, min(200, sqrt N))
-    ("common practice": enough classes that each stratum spans several).
+    ``classes`` (J, the number of equal-width classes) defaults to :func:`default_classes`.  Edges
+    that coincide (a class holding more than a stratum's share) are given once, so fewer than H - 1
+    may come back.
 
     Examples
     --------
@@ -51,7 +69,7 @@ def cum_sqrt_f(x, H: int, classes: int | None = None) -> np.ndarray:
     lo, hi = float(x.min()), float(x.max())
     if not hi > lo:
         raise InputError("boundaries: the stratifying column holds one value only, so it cannot be cut into strata")
-    J = int(classes) if classes is not None else max(10 * H, min(200, int(np.sqrt(x.size))))
+    J = int(classes) if classes is not None else default_classes(x, H)
     freq, edges = np.histogram(x, bins=J, range=(lo, hi))
     cum = np.cumsum(np.sqrt(freq))
     targets = cum[-1] * np.arange(1, H) / H

@@ -304,8 +304,10 @@ def _banded(frame, cost, col, b, stem, rule, take) -> list[Template]:
     probe = DESIGN_CLASSES["stratified"]("probe", n=1, **params)
     try:
         probe.check_cut(frame)
-    except InputError:
-        return []
+    except InputError:  # listed once, refused with the reason as its note (see _size_up)
+        return [Template(f"{stem}-proportional", f"bands on {col}", "stratified", {"allocation": "proportional",
+                                                                                 **params}, 2, frame.N,
+                         {"strata": len(b) + 1, "boundary_rule": rule, "allocation": "proportional"})]
     cut = probe.strata_frame(frame)
     lo = 2 * cut.H if not take else int(cut.N_h[-1]) + 2 * (cut.H - 1)
     return [Template(f"{stem}-{a}", f"bands on {col}", "stratified", {"allocation": a, **params}, lo, frame.N,
