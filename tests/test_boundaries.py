@@ -88,3 +88,15 @@ def test_cum_sqrt_f_resolves_a_column_stretched_by_a_few_giants():
     b = cum_sqrt_f(x, 5)
     assert len(b) == 4 and b[-1] < 100
     assert len(cum_sqrt_f(x, 5, classes=50)) == 1
+
+
+def test_tidy_boundaries_cut_the_same_strata_with_short_numbers():
+    from samplewright.designs.boundaries import tidy
+
+    rng = np.random.default_rng(11)
+    x = rng.lognormal(2.0, 1.0, 3000)
+    b = cum_sqrt_f(x, 6)
+    t = tidy(x, b)
+    assert stratum_codes(x, t).tolist() == stratum_codes(x, b).tolist()  # the same partition, unit by unit
+    assert sum(len(repr(v)) for v in t) < sum(len(repr(float(v))) for v in b)
+    assert tidy([1.0, 2.0, 3.0], [2.0]) == [2.0]  # a boundary on a value keeps that value below it

@@ -98,6 +98,30 @@ def geometric(x, H: int) -> np.ndarray:
     return a * r ** np.arange(1, H)
 
 
+def tidy(x, boundaries) -> list[float]:
+    """Each boundary rounded to the fewest significant digits that keep the strata it cuts ``x`` into
+    (it stays at or above the largest value below it and under the smallest value above it), so a
+    proposal reads 10.5 where the rule gave 10.502518287834162.
+
+    Examples
+    --------
+    >>> tidy([1.0, 2.0, 3.0, 10.0], [2.718281828, 7.389056099])
+    [2.7, 7.0]
+    """
+    x = np.sort(np.asarray(x, dtype=float))
+    out = []
+    for b in np.asarray(boundaries, dtype=float):
+        i = int(np.searchsorted(x, b, side="right"))  # x[:i] <= b < x[i:]
+        lo = x[i - 1] if i > 0 else -np.inf
+        hi = x[i] if i < x.size else np.inf
+        for digits in range(1, 18):
+            v = float(f"{b:.{digits}g}")
+            if lo <= v < hi:
+                break
+        out.append(v)
+    return out
+
+
 def strata_count(H, least: int = 1) -> int:
     if isinstance(H, bool) or not isinstance(H, (int, np.integer)) or H < least:
         raise InputError(f"boundaries: the number of strata must be a whole number of at least {least}, got {H!r}")

@@ -31,7 +31,7 @@ import pandas as pd
 from samplewright.decision.planning import optimal_cluster_take
 from samplewright.decision.take_all import take_all
 from samplewright.designs import DESIGN_CLASSES
-from samplewright.designs.boundaries import cum_sqrt_f, geometric
+from samplewright.designs.boundaries import cum_sqrt_f, geometric, tidy
 from samplewright.diagnostics.checks import cost_notes
 from samplewright.diagnostics.inspection import anova_icc
 from samplewright.errors import InputError
@@ -282,7 +282,7 @@ def _band_templates(frame, cost, col, x) -> list[Template]:
     for H in STRATA:
         for rule, fn in rules:
             b = [float(v) for v in fn(x, H)]
-            out += _banded(frame, cost, col, b, f"{'sqrtf' if rule == 'cum_sqrt_f' else 'geom'}{H}", rule, False)
+            out += _banded(frame, cost, col, x, b, f"{'sqrtf' if rule == 'cum_sqrt_f' else 'geom'}{H}", rule, False)
     return out
 
 
@@ -295,12 +295,12 @@ def _take_all_templates(frame, cost, col, x, y, cv) -> list[Template]:
         if res["take_all"] < 2:  # no take-all stratum (or a single unit): the plain bands cover it
             continue
         b = [float(v) for v in res["boundaries"]]
-        out += _banded(frame, cost, col, b, f"takeall{H}", "take_all", True)
+        out += _banded(frame, cost, col, x, b, f"takeall{H}", "take_all", True)
     return out
 
 
-def _banded(frame, cost, col, b, stem, rule, take) -> list[Template]:
-    params = {"stratify_by": col, "boundaries": b} | ({"take_all": True} if take else {})
+def _banded(frame, cost, col, x, b, stem, rule, take) -> list[Template]:
+    params = {"stratify_by": col, "boundaries": tidy(x, b)} | ({"take_all": True} if take else {})
     probe = DESIGN_CLASSES["stratified"]("probe", n=1, **params)
     try:
         probe.check_cut(frame)
