@@ -3,12 +3,15 @@
 Families of candidates (each a design of the usual methods, so the shortlist is an ordinary scenario):
 
 - ``srs``: simple random sampling, the reference;
-- ``bands``: stratified SRS on bands of a numeric auxiliary (the frame's size column unless another is
-  named), H = 2..8, boundaries by the cumulative sqrt(f) rule or geometric, and, for H = 3..8, a take-all
-  top stratum for the CV the best of the others reaches (or the goal's); proportional, Neyman and, when
-  the unit costs differ between strata, cost-optimal allocation (2 units at least per stratum);
+- ``bands on COLUMN``: stratified SRS on bands of a numeric auxiliary (the frame's size column unless
+  another is named), H = 2..8, boundaries by the cumulative sqrt(f) rule or geometric, and, for H = 3..8,
+  a take-all top stratum for the CV the best of the others reaches (or the goal's); proportional, Neyman
+  and, when the unit costs differ between strata, cost-optimal allocation (2 units at least per stratum).
+  Boundaries are rounded to the fewest digits that keep the strata (``boundaries.tidy``); boundaries that
+  leave a stratum with fewer than 2 units are listed, refused, with the reason;
 - ``frame strata``: stratified SRS on the frame's own stratum column, the same allocations;
-- ``cluster``: whole clusters, and two stages with the take near Kish's optimum m_opt from the frame's
+- ``cluster``: whole clusters, and two stages taking m_opt / 1.5, m_opt and 1.5 m_opt units (at least 2)
+  per cluster, m_opt Kish's optimum from the frame's
   own intra-cluster correlation (ANOVA estimator) and the cost rates (a cluster's cost c1: per_cluster
   plus the mean cluster_cost; a unit's c2: per_unit, per_attempt, per_complete plus the mean unit_cost);
 - ``pps``: probability proportional to size with replacement (Hansen-Hurwitz), when a size column exists.
