@@ -2,13 +2,17 @@
 
 from __future__ import annotations
 
+import tempfile
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
 
-from samplewright import Frame
+from samplewright import Frame, run, scenario_from_dict
 from samplewright.cli.main import main
 from samplewright.designs import Stratified
+from samplewright.designs.allocation import allocate
 from samplewright.errors import InputError
 
 
@@ -117,3 +121,26 @@ def test_run_and_draw_a_banded_design(tmp_path, capsys):
     capsys.readouterr()
     sample = pd.read_csv(tmp_path / "d.csv")
     assert sorted(sample.loc[sample["stratum"] == "emp > 12 (take-all)", "emp"]) == [20.0, 35.0]
+
+
+def test_cost_optimal_bands_take_unit_costs_from_the_frames_stratum_rates():
+    # [cost.per_unit_by_stratum] is by the frame's own strata; a band's c_h is the mean rate of its units
+    # (Cochran 1977, sec. 5.5: n_h proportional to N_h S_h / sqrt(c_h)), here computed by hand
+    rng = np.random.default_rng(4)
+    emp = np.round(rng.lognormal(2.0, 0.8, 400), 1)
+    region = np.where(rng.random(400) < np.clip(emp / 20, 0.05, 0.95), "south", "north")  # south: larger firms
+    y = 5 * emp + rng.normal(0, 4 + emp, 400)
+    df = pd.DataFrame({"y": y, "emp": emp, "region": region})
+    doc = {"frame": {"path": "f.csv", "target": "y", "size": "emp", "stratum": "region"},
+           "cost": {"per_unit": 10.0, "per_unit_by_stratum": {"south": 40.0}},
+           "design": [{"label": "cut", "method": "stratified", "n": 60, "allocation": "optimal",
+                       "boundaries": [5.0, 12.0]}]}
+    with tempfile.TemporaryDirectory() as d:
+        df.to_csv(Path(d) / "f.csv", index=False)
+        res = run(scenario_from_dict(doc, base=d), replicates=20, seed=1)
+    codes = np.searchsorted([5.0, 12.0], emp, side="left")
+    rate = np.where(region == "south", 40.0, 10.0)
+    c_h = np.array([rate[codes == h].mean() for h in range(3)])
+    S_h = np.array([y[codes == h].std(ddof=1) for h in range(3)])
+    want = allocate(60, "optimal", np.bincount(codes), S_h, c_h)
+    assert res.allocation["sample_units"].tolist() == want.tolist()

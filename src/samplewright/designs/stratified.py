@@ -87,14 +87,16 @@ class Stratified(Design):
         if self.boundaries is None:
             return frame
         key = ("strata", id(frame))
-        if key not in self._cache:
+        held = self._cache.get(key)
+        if held is None or held[0] is not frame:  # the entry holds its frame, so the id is not reused
             col, x = self._cut_column(frame)
             b = [float(v) for v in self.boundaries]
             labels = [f"{col} <= {b[0]:g}"] + [f"{col} in ({lo:g}, {hi:g}]" for lo, hi in zip(b, b[1:])] \
                 + [f"{col} > {b[-1]:g}" + (" (take-all)" if self.take_all else "")]
-            self._cache[key] = dataclasses.replace(frame, stratum=stratum_codes(x, b), stratum_labels=tuple(labels),
-                                                   roles={**frame.roles, "stratum": f"{col} bands"})
-        return self._cache[key]
+            cut = dataclasses.replace(frame, stratum=stratum_codes(x, b), stratum_labels=tuple(labels),
+                                      roles={**frame.roles, "stratum": f"{col} bands"})
+            held = self._cache[key] = (frame, cut)
+        return held[1]
 
     def check(self, frame):
         n = self._positive_int("n", self.n)
