@@ -258,3 +258,18 @@ def test_screen_does_not_depend_on_replicates_or_jobs():
     pd.testing.assert_frame_equal(a.candidates[screened], b.candidates[screened])
     c = propose(sc, budget=BUDGET, max_candidates=2, replicates=200, seed=4)
     pd.testing.assert_frame_equal(b.summary, c.summary)
+
+
+def test_bands_on_an_auxiliary_column_when_the_frame_has_no_size(tmp_path, capsys):
+    frame = scenario_from_dict(register()).frame.dataframe().rename(columns={"size": "vat"})
+    frame.to_csv(tmp_path / "reg.csv", index=False)
+    (tmp_path / "s.toml").write_text('seed = 2\n[frame]\npath = "reg.csv"\ntarget = "y"\nauxiliary = "vat"\n'
+                                     '[cost]\nfixed = 500.0\nper_unit = 20.0\n'
+                                     '[[design]]\nlabel = "a"\nmethod = "srs"\nn = 10\n')
+    assert main(["propose", str(tmp_path / "s.toml"), "--out", str(tmp_path / "o"), "--budget", "4500",
+                 "--replicates", "40", "--max-candidates", "3", "--quiet", "--no-report"]) == 0
+    capsys.readouterr()
+    cand = pd.read_csv(tmp_path / "o" / "candidates.csv")
+    assert "bands on vat" in set(cand["family"]) and "pps" not in set(cand["family"])
+    doc = tomllib.loads((tmp_path / "o" / "proposal.toml").read_text())
+    assert {d.get("stratify_by") for d in doc["design"] if d["method"] == "stratified"} == {"vat"}
