@@ -6,7 +6,7 @@ from samplewright.config.toml_text import toml_text
 
 
 def test_round_trip_of_a_scenario_like_document():
-    doc = {"title": 'quote " back\\slash\nnew line é', "seed": 7, "replicates": 100,
+    doc = {"title": 'quote " back\\slash\nnew line é\ttab \x7f del \x00 nul', "seed": 7, "replicates": 100,
            "frame": {"path": "a b.csv", "target": ["y", "z"],
                      "synthetic": {"units": 10, "strata": [{"name": "a", "share": 0.5}, {"name": "b", "share": 0.5}]}},
            "cost": {"fixed": 1.5, "per_unit_by_stratum": {"north": 2.0, "odd key!": 3.0}},

@@ -31,9 +31,9 @@ def _value(v) -> str:
             return "inf" if v > 0 else "-inf"
         return repr(v)
     if isinstance(v, str):
-        # a JSON string is a TOML basic string, except for the escapes JSON writes that TOML lacks (none with
-        # ensure_ascii=False: JSON then escapes only quote, backslash and control characters, as TOML does)
-        return json.dumps(v, ensure_ascii=False)
+        # a JSON string is a TOML basic string: with ensure_ascii=False JSON escapes the quote, the backslash
+        # and U+0000..U+001F as TOML does; TOML also wants DEL (U+007F) escaped, which JSON leaves as is
+        return json.dumps(v, ensure_ascii=False).replace("\x7f", "\\u007f")
     if isinstance(v, (list, tuple)):
         return "[" + ", ".join(_value(x) for x in v) + "]"
     if isinstance(v, dict):
