@@ -16,7 +16,7 @@ _BARE = re.compile(r"^[A-Za-z0-9_-]+$")
 
 def _key(k) -> str:
     k = str(k)
-    return k if _BARE.match(k) else json.dumps(k, ensure_ascii=False)
+    return k if _BARE.match(k) else _value(k)
 
 
 def _value(v) -> str:
