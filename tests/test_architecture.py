@@ -23,6 +23,7 @@ LAYERS = [
     ("evaluation",),
     ("decision",),
     ("diagnostics",),
+    ("proposal",),
     ("report",),
     ("results",),
     ("api",),

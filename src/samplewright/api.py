@@ -83,7 +83,7 @@ def allocation_table(frame: Frame, cells) -> pd.DataFrame:
         if alloc is None:
             continue
         N_h, n_h = alloc
-        for h, label in enumerate(frame.stratum_labels):
+        for h, label in enumerate(cell.design.strata_frame(frame).stratum_labels):
             rows.append({"design": cell.design.label, "size": int(cell.design.size), "stratum": label,
                          "population_units": int(N_h[h]), "sample_units": int(n_h[h])})
     return pd.DataFrame(rows, columns=ALLOCATION_COLUMNS)
@@ -685,6 +685,51 @@ def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario, s
     rounds = 0 if seed is None else goal.stability_rounds
     rec.update(stability.stability(front, reps, scenario.goals, scenario.confidence, seed, rounds, domain, exact))
     return front, rec
+
+
+def propose(scenario, budget: float | None = None, moe: float | None = None, relative_moe: float | None = None,
+            max_candidates: int = 6, screen_on: str | None = None, stratify_by: str | None = None,
+            **run_options) -> RunResult:
+    """Search designs for the goal, screen them by closed-form anticipated variances, rehearse the best.
+
+    ``scenario`` is a Scenario or a scenario file.  The goal is one of ``budget`` (mean cost),
+    ``moe`` (margin of error of the mean) or ``relative_moe`` (a fraction of the mean); without
+    one, the scenario's ``[goal]``.  The best ``max_candidates`` designs are rehearsed by
+    :func:`run` (``run_options`` are its keyword arguments) in one run.  Screening uses the study
+    variable, known in a rehearsal; ``screen_on`` names an auxiliary column to screen on instead
+    (real planning).  ``stratify_by`` names the numeric column the banded designs cut (default: the
+    size column).  See :mod:`samplewright.proposal.search` for the candidates.
+
+    Returns the run's RunResult with ``.candidates`` (every screened design: its size, anticipated
+    variance and cost, rank, and for the shortlist the rehearsed variance) and ``.proposal`` (the
+    shortlist's scenario document, written as ``proposal.toml`` by ``RunResult.write``).
+
+    Examples
+    --------
+    >>> from samplewright import scenario_from_dict, propose
+    >>> sc = scenario_from_dict({"frame": {"synthetic": {"units": 600, "seed": 2, "size_correlation": 0.8}},
+    ...                          "cost": {"per_unit": 10.0},
+    ...                          "design": [{"label": "simple", "method": "srs", "n": 40}]})
+    >>> res = propose(sc, budget=500.0, max_candidates=2, replicates=100, seed=1)
+    >>> int(res.candidates["shortlisted"].sum()), len(res.proposal["design"])
+    (2, 2)
+    """
+    from samplewright.proposal.build import prepare, rehearsed
+    from samplewright.simulation.scenario import load_scenario
+
+    if not isinstance(scenario, Scenario):
+        scenario = load_scenario(scenario)
+    frame = run_options.pop("frame", None)
+    if frame is None:
+        frame = scenario.load_frame()
+    found = prepare(scenario, frame, budget=budget, moe=moe, relative_moe=relative_moe,
+                    max_candidates=max_candidates, screen_on=screen_on, stratify_by=stratify_by,
+                    seed=run_options.get("seed"))
+    res = run(found.scenario, frame=frame, **run_options)
+    res.candidates = rehearsed(found.screen.candidates, res.summary, found.info["variable"])
+    res.proposal = found.doc
+    res.info["proposal"] = found.info
+    return res
 
 
 def draw(scenario, design: str, size: int | None = None, seed: int | None = None, reserve: int = 0,

@@ -1,5 +1,5 @@
 """One module per command; each has NAME, HELP, add_arguments(parser) and main(args) -> int."""
 
-from samplewright.cli import demo, draw, inspect, plan, report, run, synth
+from samplewright.cli import demo, draw, inspect, plan, propose, report, run, synth
 
-COMMANDS = [run, draw, demo, synth, plan, report, inspect]
+COMMANDS = [run, draw, demo, synth, plan, report, inspect, propose]

@@ -64,12 +64,13 @@ def logger(args):
     return None
 
 
-def reproduce_command(program: str, info: dict, out) -> str:
+def reproduce_command(program: str, info: dict, out, options: tuple[str, ...] = ()) -> str:
     """run.json ``reproduce``: the shell command (every argument quoted) repeating the run into ``OUT-again``.
 
     It names every setting that changes a number as the run used it: the seed and replicates (the
     first count under a stopping rule), ``--until`` and its cap, or ``--exact``; a resumed run is
-    repeated whole.  ``--jobs``, ``--backend`` and the output options change no number and are left out.
+    repeated whole.  ``--jobs``, ``--backend`` and the output options change no number and are left out;
+    ``options`` are the command's own arguments that do (``propose``'s goal and search options).
 
     Examples
     --------
@@ -79,7 +80,8 @@ def reproduce_command(program: str, info: dict, out) -> str:
     >>> reproduce_command("run", {"scenario": "s.toml", "exact": True, "replicates": None}, "res")
     'samplewright run s.toml --out res-again --exact'
     """
-    argv = ["samplewright", program, *([info["scenario"]] if program == "run" else []), "--out", f"{Path(out)}-again"]
+    scenario = [info["scenario"]] if program in ("run", "propose") else []
+    argv = ["samplewright", program, *scenario, "--out", f"{Path(out)}-again", *options]
     if info.get("exact"):
         argv.append("--exact")
     else:
@@ -98,12 +100,16 @@ def _settle_cap_given(info: dict) -> bool:
     return cap is not None and info.get("replicates") is not None and cap != default_cap(info["replicates"])
 
 
-def simulate_and_write(scenario, args, program: str) -> int:
-    """Run ``scenario`` with the options of command ``program`` and write its results to ``args.out``."""
+def simulate_and_write(scenario, args, program: str, runner=None, options: tuple[str, ...] = ()) -> int:
+    """Run ``scenario`` with the options of command ``program`` and write its results to ``args.out``.
+
+    ``runner`` is :func:`samplewright.api.run` (default) or a function with its arguments (``propose``, whose
+    own arguments that change numbers are ``options``, for the reproduce command)."""
     from samplewright.api import run
     from samplewright.files import prepare_dir
     from samplewright.simulation import checkpoint
 
+    runner = run if runner is None else runner
     inputs = (scenario.source, scenario.frame.path)
     extra = run_kwargs(args)
 
@@ -114,12 +120,12 @@ def simulate_and_write(scenario, args, program: str) -> int:
     exact = getattr(args, "exact", False)  # an enumeration keeps no blocks
     try:
         with stderr_log(args):
-            res = run(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
+            res = runner(scenario, replicates=args.replicates, seed=args.seed, jobs=args.jobs,
                       progress=None if not args.quiet else False, exact=exact, ready=ready, **extra)
         if not exact:
             res.info[checkpoint.KEPT] = args.keep_blocks
         res.info.pop("reproduce_note", None)  # the command line, not the Python call (api.py), repeats it
-        res.info["reproduce"] = reproduce_command(program, res.info, args.out)
+        res.info["reproduce"] = reproduce_command(program, res.info, args.out, options)
         out = res.write(args.out, force=True)  # the simulated tables and run.json first
     except BaseException as exc:  # the tables are not all written: the blocks stay for --resume
         if not isinstance(exc, (InputError, SystemExit)):

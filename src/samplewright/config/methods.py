@@ -5,7 +5,7 @@ from __future__ import annotations
 #: method name (as written in a scenario) -> the keys of its ``[[design]]`` table beside the common ones
 METHOD_KEYS: dict[str, tuple[str, ...]] = {
     "srs": ("n", "replace"),
-    "stratified": ("n", "allocation", "allocation_variable"),
+    "stratified": ("n", "allocation", "allocation_variable", "stratify_by", "boundaries", "take_all"),
     "systematic": ("n", "kind", "starts", "sort_by", "variance"),
     "cluster": ("clusters", "units_per_cluster", "cap_units", "variance"),
     "stratified_cluster": ("clusters", "cluster_allocation", "units_per_cluster", "cap_units", "selection",

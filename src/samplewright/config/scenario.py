@@ -219,7 +219,7 @@ def design_spec(table: dict, ctx: str) -> DesignSpec:
         v = table[k]
         if k == sized_by:
             params[k] = as_sizes(v, k, ctx)
-        elif k in ("replace", "cap_units"):
+        elif k in ("replace", "cap_units", "take_all"):
             params[k] = as_bool(v, k, ctx)
         elif k in ("units_per_cluster",):
             params[k] = as_int(v, k, ctx, minimum=1)

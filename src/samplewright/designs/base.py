@@ -104,6 +104,11 @@ class Design:
         """Expected number of sampled units (sum of inclusion probabilities)."""
         return float(self.inclusion_probabilities(frame).sum())
 
+    def strata_frame(self, frame: Frame) -> Frame:
+        """The frame with the strata this design selects within (its own stratum column unless the
+        design cuts strata of its own, see ``Stratified``)."""
+        return frame
+
     def stratum_allocation(self, frame: Frame):
         """Units allocated per stratum as (population_units, sample_units) arrays, or None."""
         return

@@ -121,7 +121,8 @@ class CostModel:
     def for_design(self, design, frame):
         """The design, given this model's stratum unit costs when it allocates by cost and has none."""
         if getattr(design, "allocation", None) == "optimal" and getattr(design, "stratum_costs", 0) is None:
-            c = self.stratum_unit_costs(frame)
+            # the rates by the frame's own strata, carried unit by unit into the design's strata
+            c = self.stratum_unit_costs(design.strata_frame(self.bind(frame)))
             if np.any(c > 0):
                 return design.with_params(stratum_costs=tuple(float(x) for x in c))
         return design

@@ -24,6 +24,7 @@ from samplewright.report.brief import render_brief
 from samplewright.report.figures import DPI, make_figure
 from samplewright.report.html import MARKER as HTML_MARKER
 from samplewright.report.html import render_html
+from samplewright.report.proposal import proposal_context
 from samplewright.report.story import build_context, figure_plan
 from samplewright.report.stress import stress_context
 
@@ -95,6 +96,7 @@ def write_report(res, out, svg: bool = False, force: bool = False, log=None) -> 
     ctx = build_context(res, p)
     ctx["notes"] = ctx["notes"] + failed
     ctx["stress"] = stress_context(res)  # the "What would change the pick" section (report/stress.py)
+    ctx["proposal"] = proposal_context(res)  # "How the proposal was found" (report/proposal.py), None otherwise
     say("writing report.html and brief.md")
     page = write_text(render_html(ctx, drawn), p / "report.html")
     write_text(render_brief(ctx, drawn), p / "brief.md")

@@ -122,8 +122,8 @@ def read_run(folder) -> RunResult:
 
     ``run.json`` and ``summary.csv`` are required; ``replicates.parquet`` may be missing (the
     figures that need it are then left out); ``allocation.csv``, ``frontier.csv``,
-    ``recommendation.json``, ``frame_order.csv`` and a stress run's ``stress.csv``, ``stress_verdict.csv`` and
-    ``break_even.csv`` are read when present.
+    ``recommendation.json``, ``frame_order.csv``, a stress run's ``stress.csv``, ``stress_verdict.csv`` and
+    ``break_even.csv``, and a proposal's ``candidates.csv`` are read when present.
 
     Examples
     --------
@@ -178,6 +178,7 @@ def read_run(folder) -> RunResult:
     rec = _read_json(p / "recommendation.json") if (p / "recommendation.json").exists() else None
     order = _read_csv(p / "frame_order.csv") if (p / "frame_order.csv").exists() else None
     stress = [_read_csv(p / name) if (p / name).exists() else None for name in STRESS_FILES]
+    candidates = _read_csv(p / "candidates.csv") if (p / "candidates.csv").exists() else None  # a proposal's
     return RunResult(
         summary=_with_variance(summary, info),
         replicates=_with_variance(replicates, info),
@@ -190,6 +191,7 @@ def read_run(folder) -> RunResult:
         stress=stress[0],
         stress_verdict=stress[1],
         break_even=stress[2],
+        candidates=candidates,
     )
 
 

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from samplewright.files import prepare_dir, write_csv, write_json, write_parquet
+from samplewright.files import prepare_dir, write_csv, write_json, write_parquet, write_text
 
 ALLOCATION_COLUMNS = ["design", "size", "stratum", "population_units", "sample_units"]
 #: the files of a stress run, in the order of RunResult.stress, .stress_verdict, .break_even
@@ -47,6 +47,9 @@ class RunResult:
     stress: pd.DataFrame | None = None
     stress_verdict: pd.DataFrame | None = None
     break_even: pd.DataFrame | None = None
+    #: ``propose`` only: every screened design (candidates.csv) and the shortlist's scenario document
+    candidates: pd.DataFrame | None = None
+    proposal: dict | None = None
 
     def write(self, out, force: bool = False, report: bool = False, svg: bool = False) -> Path:
         """Write the contract files into folder ``out`` (refusing a non-empty one unless ``force``).
@@ -58,7 +61,8 @@ class RunResult:
         # an older run.json marks older files complete: remove it first, so an interrupted
         # overwrite never leaves new and old files under one complete-looking run.json; older
         # derived files go too, so a run without them never shows another run's
-        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv") + STRESS_FILES:
+        for name in ("run.json", "frontier.csv", "recommendation.json", "frame_order.csv", "candidates.csv",
+                     "proposal.toml") + STRESS_FILES:
             (p / name).unlink(missing_ok=True)
         # the simulated tables first, run.json marking them complete; then what is derived from them,
         # so that a failure there never loses the simulation
@@ -75,6 +79,12 @@ class RunResult:
         for name, table in zip(STRESS_FILES, (self.stress, self.stress_verdict, self.break_even)):
             if table is not None:
                 write_csv(table, p / name)
+        if self.candidates is not None:
+            write_csv(self.candidates, p / "candidates.csv")
+        if self.proposal is not None:
+            from samplewright.proposal.build import proposal_text  # only a proposal needs it
+
+            write_text(proposal_text(self.proposal, self.candidates, p), p / "proposal.toml")
         if report:
             # the report loads matplotlib and jinja2: deliberately lazy, so a run without a report starts fast
             from samplewright.report import write_report

@@ -167,7 +167,8 @@ def _reserve_groups(design: Design, frame: Frame) -> tuple[np.ndarray, list[str]
     if design.method == "srs":
         return np.zeros(frame.N, dtype=np.int64), ["the frame"]
     if design.method == "stratified":
-        return frame.stratum, [f"stratum {str(lab)!r}" for lab in frame.stratum_labels]
+        cut = design.strata_frame(frame)
+        return cut.stratum, [f"stratum {str(lab)!r}" for lab in cut.stratum_labels]
     return frame.cluster, [f"cluster {str(lab)!r}" for lab in frame.cluster_labels]
 
 
@@ -243,7 +244,8 @@ def select(frame: Frame, design: Design, seed: int, reserve: int = 0) -> Selecti
             row_p2 = np.concatenate([row_p2, within])
     out = {"selection_order": np.arange(1, units.size + 1)}
     if design.method in ("stratified", "stratified_cluster"):
-        out["stratum"] = np.asarray(frame.stratum_labels, dtype=object)[frame.stratum[units]]
+        cut = design.strata_frame(frame)
+        out["stratum"] = np.asarray(cut.stratum_labels, dtype=object)[cut.stratum[units]]
     if design.method in ("cluster", "stratified_cluster"):
         out["psu"] = np.asarray(frame.cluster_labels, dtype=object)[frame.cluster[units]]
     if p1 is not None:
@@ -310,8 +312,9 @@ def _strata_counts(design: Design, frame: Frame, sample: pd.DataFrame) -> list[d
     """Population and sample counts per design stratum (one entry "all" for a design without strata)."""
     main = sample[~sample["reserve"].astype(bool)]
     stratified = "stratum" in sample.columns and design.method in ("stratified", "stratified_cluster")
-    labels = list(frame.stratum_labels) if stratified else ["all"]
-    unit_stratum = frame.stratum if stratified else np.zeros(frame.N, dtype=np.int64)
+    cut = design.strata_frame(frame)
+    labels = list(cut.stratum_labels) if stratified else ["all"]
+    unit_stratum = cut.stratum if stratified else np.zeros(frame.N, dtype=np.int64)
     population = np.bincount(unit_stratum, minlength=len(labels))
     out = []
     for h, label in enumerate(labels):

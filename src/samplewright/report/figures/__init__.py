@@ -35,8 +35,10 @@ from samplewright.report.figures.coverage import coverage_plot
 from samplewright.report.figures.frame_order import frame_order_plot
 from samplewright.report.figures.goal_map import goal_map_plot
 from samplewright.report.figures.intervals import interval_panel, interval_plot, zip_order
+from samplewright.report.figures.proposal_boundaries import boundaries_plot
 from samplewright.report.figures.rows import all_rows, cell_label, primary_rows
 from samplewright.report.figures.sampling import sampling_distribution
+from samplewright.report.figures.screening_check import screening_plot
 from samplewright.report.figures.se_check import se_plot
 from samplewright.report.figures.stress_lines import stress_lines_plot
 from samplewright.report.figures.stress_tiles import stress_tiles_plot
@@ -53,10 +55,10 @@ from samplewright.report.figures.style import (
 from samplewright.report.verdict import labels_of
 
 __all__ = ["DPI", "FIGURES", "FIG_WIDTH", "PALETTE", "FigureSpec", "all_rows", "allocation_plot", "bias_plot",
-           "cell_label", "cost_precision_plot", "coverage_plot", "design_colours", "design_order",
+           "boundaries_plot", "cell_label", "cost_precision_plot", "coverage_plot", "design_colours", "design_order",
            "estimator_name", "figure_names", "frame_order_plot", "goal_map_plot", "goals_of", "interval_panel",
            "interval_plot", "keep_sizes", "make_figure", "picks_of", "plain", "primary_rows", "sampling_distribution",
-           "se_plot", "stress_lines_plot", "stress_tiles_plot", "zip_order"]
+           "screening_plot", "se_plot", "stress_lines_plot", "stress_tiles_plot", "zip_order"]
 
 
 @dataclass(frozen=True)
@@ -154,6 +156,24 @@ def _draw_order(res, var, keep):
     for ax, e in zip(axes, entries):
         frame_order_plot(res.frame_order, e, res.summary, ax=ax)
     return fig
+
+
+def _shortlist(res):
+    """The rehearsed shortlist of a ``propose`` run (rows of ``res.candidates``), or None."""
+    cand = getattr(res, "candidates", None)
+    if cand is None or "rehearsed_variance" not in cand:
+        return None
+    rows = cand[cand["shortlisted"].astype(bool) & cand["rehearsed_variance"].notna()]
+    return rows if len(rows) else None
+
+
+def _proposal_info(res) -> dict:
+    return (res.info or {}).get("proposal") or {}
+
+
+def _has_boundaries(res) -> bool:
+    p = _proposal_info(res)
+    return bool(p.get("stratifier_histogram") and p.get("boundaries"))
 
 
 def stress_of(res) -> dict:
@@ -331,6 +351,27 @@ FIGURES: dict[str, FigureSpec] = {spec.name: spec for spec in (
         lambda res, var, keep: _fig(stress_tiles_plot(res.stress_verdict,
                                                       [a["name"] for a in stress_of(res)["assumptions"]],
                                                       design_order(res.stress))),
+    ),
+    FigureSpec(
+        "proposal_check",
+        "Screening check",
+        "Each design the proposal rehearsed: the standard error its closed form anticipated on the frame "
+        "(horizontal) against the spread of its estimates over the rehearsed samples (vertical), with 95% "
+        "simulation error bars. Points on the dashed line mean the screen ranked the designs on honest numbers.",
+        False,
+        lambda res: _shortlist(res) is not None,
+        lambda res, var, keep: _fig(screening_plot(_shortlist(res))),
+    ),
+    FigureSpec(
+        "proposal_boundaries",
+        "Where the proposed strata cut",
+        "The distribution of the column the banded designs stratify on (grey), and below it one row per "
+        "shortlisted banded design with a tick at each of its stratum boundaries. Boundaries crowd where the "
+        "units are many and spread where they are few and large; a take-all stratum starts at the last tick.",
+        False,
+        _has_boundaries,
+        lambda res, var, keep: boundaries_plot(_proposal_info(res)["stratifier_histogram"],
+                                               _proposal_info(res)["boundaries"], _proposal_info(res)["stratifier"]),
     ),
 )}
 
