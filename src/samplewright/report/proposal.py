@@ -7,7 +7,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from samplewright.report.findings import money, num, with_mcse
+from samplewright.report.table import with_mcse
+from samplewright.report.verdict import labels_of, money, num
 
 #: the figures the section shows (and the general figure list leaves out)
 FIGURES = ("proposal_check", "proposal_boundaries")
@@ -19,9 +20,10 @@ def proposal_context(res) -> dict | None:
     cand = getattr(res, "candidates", None)
     if not info or cand is None:
         return None
+    labels = labels_of(res.info, getattr(res, "recommendation", None))
     goal = info.get("goal") or {}
     kind, value = next(iter(goal.items())) if goal else (None, None)
-    goal_text = {"budget": f"the most precise design a mean cost of {money(value)} buys",
+    goal_text = {"budget": f"the most precise design a mean cost of {money(value, labels)} buys",
                  "moe": f"the cheapest design whose margin of error is at most {num(value)}",
                  "relative_moe": f"the cheapest design whose margin of error is at most {num(100 * (value or 0))}% "
                                  f"of the mean"}.get(kind, "the goal")
@@ -47,8 +49,8 @@ def proposal_context(res) -> dict | None:
         z = (rv - float(r.anticipated_variance)) / rm if rm > 0 else float("nan")
         rows.append({"rank": int(r.rank), "design": str(r.design), "family": str(r.family), "size": int(r.size),
                      "anticipated_se": num(r.anticipated_se), "rehearsed_se": with_mcse(se, se_mcse),
-                     "z": "n/a" if not np.isfinite(z) else f"{z:+.1f}", "expected_cost": money(r.expected_cost),
-                     "rehearsed_cost": money(r.rehearsed_cost)})
+                     "z": "n/a" if not np.isfinite(z) else f"{z:+.1f}", "expected_cost": money(r.expected_cost, labels),
+                     "rehearsed_cost": money(r.rehearsed_cost, labels)})
     return {"goal_text": goal_text, "basis": basis, "screened": int(len(cand)), "families": families,
             "shortlist": rows, "stratifier": info.get("stratifier"), "notes": list(info.get("notes") or []),
             "figures": list(FIGURES)}
