@@ -359,3 +359,11 @@ def test_the_verdict_chart_shades_the_goal_rings_the_pick_and_its_labels_do_not_
     for i, a in enumerate(boxes):
         for b in boxes[i + 1:]:
             assert not a.overlaps(b), (a, b)
+
+
+def test_design_settings_name_every_listed_variance_formula():
+    # a design scored under two formulas (run.json keeps the list) reads as both plain names
+    from samplewright.report.names import parameter_text, variance_name
+
+    text = parameter_text({"n": 400, "variance": ["srs", "successive_differences"]})
+    assert text == f"n = 400; variance = {variance_name('srs')}, {variance_name('successive_differences')}"

@@ -90,6 +90,8 @@ def parameter_text(params) -> str:
     --------
     >>> parameter_text({"n": [200, 400], "allocation": "neyman", "cap_units": True})
     'n = 200, 400; allocation = neyman; cap_units = yes'
+    >>> parameter_text({"n": 400, "variance": ["srs", "successive_differences"]})
+    'n = 400; variance = the simple random sampling formula, successive differences'
     """
     if not isinstance(params, dict):  # an older run.json kept a Python repr: not for reading
         return ""
@@ -97,6 +99,9 @@ def parameter_text(params) -> str:
     for k, v in params.items():
         if v is None:
             continue
-        text = variance_name(v) if k == "variance" else _value_text(v)
+        if k == "variance":  # one formula or a list of them, each scored on the same draws
+            text = ", ".join(variance_name(x) for x in (v if isinstance(v, (list, tuple)) else [v]))
+        else:
+            text = _value_text(v)
         parts.append(f"{k} = {text}")
     return "; ".join(parts)
