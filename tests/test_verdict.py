@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 from html.parser import HTMLParser
 
+import numpy as np
 import pandas as pd
 import pytest
 from scipy import stats
@@ -367,3 +368,23 @@ def test_design_settings_name_every_listed_variance_formula():
 
     text = parameter_text({"n": 400, "variance": ["srs", "successive_differences"]})
     assert text == f"n = 400; variance = {variance_name('srs')}, {variance_name('successive_differences')}"
+
+
+def test_terminal_table_shows_each_listed_formula_of_a_design():
+    # a systematic design scored under two formulas: one row each, named, with each formula's own published
+    # margin (the mean half-width of its intervals, recomputed here from the replicate table)
+    from samplewright import run, scenario_from_dict
+    from samplewright.report.names import variance_name
+
+    res = run(scenario_from_dict({
+        "frame": {"synthetic": {"units": 600, "seed": 5}},
+        "design": [{"label": "every k-th", "method": "systematic", "n": 60,
+                    "variance": ["srs", "successive_differences"]}]}), replicates=300, seed=3)
+    rows = compact_rows(res.summary)
+    assert [r["design"] for r in rows] == [f"every k-th ({variance_name(v).removeprefix('the ')})"
+                                           for v in ("srs", "successive_differences")]
+    reps = res.replicates[res.replicates["estimator"] == res.summary["estimator"].iloc[0]]
+    half = ((reps["upper"] - reps["lower"]) / 2).groupby(reps["variance"]).mean()
+    got = res.summary.set_index("variance").loc[["srs", "successive_differences"]]
+    got = got[got["estimator"] == res.summary["estimator"].iloc[0]]["published_moe"]
+    assert np.allclose(got.to_numpy(), half.loc[["srs", "successive_differences"]].to_numpy(), rtol=1e-12)

@@ -13,6 +13,7 @@ import math
 import numpy as np
 import pandas as pd
 
+from samplewright.report.names import variance_name
 from samplewright.report.verdict import cost_header, coverage_interval, margin_header, mc_round, money, num
 
 
@@ -97,6 +98,23 @@ def default_rows(summary: pd.DataFrame, variable=None) -> pd.DataFrame:
     return s
 
 
+def first_estimator_rows(summary: pd.DataFrame, variable=None) -> pd.DataFrame:
+    """Each design's first estimator under every variance formula it lists (the formulas share its draws,
+    but each publishes its own margin), for one variable (every variable when None)."""
+    s = summary if variable is None else summary[summary["variable"] == variable]
+    if len(s):
+        first = s.groupby("design", sort=False)["estimator"].first()
+        s = s[s["estimator"].to_numpy() == s["design"].map(first).to_numpy()]
+    return s
+
+
+def _design_cell(r: dict, formulas: dict) -> str:
+    """The design's label, with the variance formula when the design lists several."""
+    if formulas.get(r["design"], 1) > 1:
+        return f"{r['design']} ({variance_name(r['variance']).removeprefix('the ')})"
+    return str(r["design"])
+
+
 def compact_columns(summary: pd.DataFrame, labels: dict) -> list[tuple[str, str]]:
     """(key, header) of the compact table's columns for this run."""
     variables = list(dict.fromkeys(summary["variable"]))
@@ -125,17 +143,20 @@ def with_moe_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> pd.Da
 
 
 def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) -> list[dict]:
-    """One row of display strings per design x size x variable, at each design's default analysis; the
-    margins rounded by their Monte Carlo SE (from ``frontier``, the run's frontier table, when given)."""
+    """One row of display strings per design x size x variance formula x variable, at each design's first
+    estimator (the formula named beside the design when it lists several); the margins rounded by their
+    Monte Carlo SE (from ``frontier``, the run's frontier table, when given)."""
     exact = is_exact(summary)
     show, cost = measure_text(exact), cost_text(summary)
     summary = with_moe_mcse(summary, frontier)
     out = []
+    formulas = summary.groupby("design")["variance"].nunique().to_dict() if "variance" in summary.columns else {}
     for var in dict.fromkeys(summary["variable"]):
-        for r in default_rows(summary, var).to_dict("records"):
+        for r in first_estimator_rows(summary, var).to_dict("records"):
             pub = r.get("published_moe")
             out.append({
-                "design": r["design"], "size": f"{int(r['size']):,}", "variable": var, "mean_n": num(r["mean_n"]),
+                "design": _design_cell(r, formulas), "size": f"{int(r['size']):,}", "variable": var,
+                "mean_n": num(r["mean_n"]),
                 "mean_cost": cost(r["mean_cost"]), "moe": mc_round(r["moe"], None if exact else r.get("moe_mcse")),
                 "published_moe": "n/a" if pub is None
                 else mc_round(pub, None if exact else r.get("published_moe_mcse")),
