@@ -138,3 +138,22 @@ def test_rounding_never_decides_between_equal_points():
                  cost_mcse=np.zeros(2), mean_n=np.full(2, 50.0))
     assert rc.ranking(b, "cheapest_meeting_moe")[0] == 0
     assert rc.ranking(b, "best_within_budget")[0] == 0
+
+
+def test_the_runner_up_is_another_fieldwork_plan():
+    # under SRS the Hajek and HT means coincide (n fixed: the Hajek denominator equals N), so the pick's own
+    # sample analysed by the other estimator ties with it; it is not a runner-up: that must be another design
+    # or size.  Here the only other size misses the margin by far, so there is none.
+    from samplewright import run, scenario_from_dict
+
+    doc = {"frame": {"synthetic": {"units": 2000, "seed": 4, "strata": [
+               {"name": "a", "share": 0.5, "mean": 10, "sd": 2}, {"name": "b", "share": 0.5, "mean": 30, "sd": 4}]}},
+           "design": [{"label": "srs", "method": "srs", "n": [50, 400], "estimators": ["ht", "hajek"]}],
+           "goal": {"moe": 2.0, "stability_rounds": 50}}
+    rec = run(scenario_from_dict(doc), replicates=2000, seed=5).recommendation
+    pick = rec[rec["pick"]]
+    assert (pick["design"], pick["size"]) == ("srs", 400)  # 50 units give a margin near +-2.9 (Cochran eq. 2.8)
+    assert rec["runner_up"] is None and rec["runner_up_share"] is None
+    doc["design"][0]["n"] = [50, 400, 800]  # another size that meets the goal is the runner-up
+    rec = run(scenario_from_dict(doc), replicates=2000, seed=5).recommendation
+    assert (rec["runner_up"]["design"], rec["runner_up"]["size"]) == ("srs", 800)

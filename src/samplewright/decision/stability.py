@@ -6,8 +6,9 @@ samples), recomputes the measures the pick uses (coverage, the achieved and publ
 mean cost and size, each with its Monte Carlo SE, as :mod:`samplewright.evaluation.measures`
 defines them), and reruns the evidence and the pick (:mod:`samplewright.decision.recommend`).
 ``pick_stability`` is the share of rounds whose headline pick is the same point; ``runner_up`` the
-point most often picked instead (when no other point is ever picked: the next point by the pick
-rule on the rehearsal itself), with ``runner_up_share`` the share of rounds it wins.
+point of another fieldwork plan (another design, or the same design at another size: not the pick's own
+sample analysed another way) most often picked instead (when none is ever picked: the next such point by
+the pick rule on the rehearsal itself), with ``runner_up_share`` the share of rounds it wins.
 
 A round weighs each replicate by the number of times it was drawn (np.bincount), so every
 measure of a cell is one matrix product of the rounds' weights with the replicate values: no
@@ -122,8 +123,12 @@ def stability(front: pd.DataFrame, reps: pd.DataFrame, goals, nominal: float, se
     for r in range(rounds):
         got = rc.choose(_round(every, r), s, {k: v[r] for k, v in all_codes.items()})[s.headline]
         wins[got] += 1
-    others = [(count, -p) for p, count in wins.items() if p is not None and p != pick]
-    runner = -max(others)[1] if others else _next_best(base, s, codes, pick)
+    # another fieldwork plan: not the pick's own sample analysed another way (its other estimators and
+    # variance formulas share its draws, and often its numbers)
+    sample = {i: tuple(k[:2]) for i, k in enumerate(keys)}  # (design, size) of each point
+    elsewhere = [i for i in range(len(keys)) if pick is None or sample[i] != sample[pick]]
+    others = [(count, -p) for p, count in wins.items() if p is not None and p in elsewhere]
+    runner = -max(others)[1] if others else _next_best(base, s, codes, elsewhere)
     out["pick_stability"] = None if pick is None else wins[pick] / rounds
     if runner is not None:
         out["runner_up"] = rc.pick_dict(front, rows, base, s, codes, runner)
@@ -131,10 +136,8 @@ def stability(front: pd.DataFrame, reps: pd.DataFrame, goals, nominal: float, se
     return out
 
 
-def _next_best(b: rc.Board, s: rc.Setting, codes: dict, pick: int | None) -> int | None:
-    """The point the pick rule would take were the pick not there (None when no other qualifies)."""
-    if pick is None:
-        return None
+def _next_best(b: rc.Board, s: rc.Setting, codes: dict, allowed: list[int]) -> int | None:
+    """The point the pick rule would take among ``allowed`` (None when none qualifies)."""
     ok = rc.eligible(codes, s, s.headline)
-    order = [int(i) for i in rc.ranking(b, s.headline) if ok[i] and i != pick]
+    order = [int(i) for i in rc.ranking(b, s.headline) if ok[i] and int(i) in allowed]
     return order[0] if order else None
