@@ -251,3 +251,10 @@ def test_target_whose_total_overflows_is_refused(tmp_path):
     # 40 x 1e308 is beyond the largest double (about 1.8e308): the frame total would be inf
     pd.DataFrame({"y": [1e308] * 40}).to_csv(tmp_path / "f.csv", index=False)
     refused(run_in(tmp_path), "'y'", "overflow")
+
+
+def test_target_whose_square_overflows_is_refused(tmp_path):
+    # 40 x 1e200 = 4e201 is a finite double, but its square (1.6e403) is beyond the largest double
+    # (about 1.8e308, IEEE 754): a variance of the column would be inf, so it is refused, not a crash
+    pd.DataFrame({"y": [1e200] * 20 + [1.0] * 20}).to_csv(tmp_path / "f.csv", index=False)
+    refused(run_in(tmp_path), "'y'", "overflow")
