@@ -258,3 +258,10 @@ def test_target_whose_square_overflows_is_refused(tmp_path):
     # (about 1.8e308, IEEE 754): a variance of the column would be inf, so it is refused, not a crash
     pd.DataFrame({"y": [1e200] * 20 + [1.0] * 20}).to_csv(tmp_path / "f.csv", index=False)
     refused(run_in(tmp_path), "'y'", "overflow")
+
+
+def test_repeated_id_is_named_as_the_file_shows_it(tmp_path):
+    # the culprit is echoed as the user wrote it ("7"), not as numpy 2's scalar repr ("np.int64(7)", NEP 51)
+    write(tmp_path / "f.csv", "y,code\n" + "".join(f"{i},{i}\n" for i in range(1, 8)) + "8,7\n")
+    line = refused(run_in(tmp_path, scenario(tmp_path, frame_extra='id = "code"')), "'code'", "first 7 ")
+    assert "np." not in line
