@@ -20,7 +20,9 @@ from samplewright import Frame
 from samplewright.designs import DESIGN_CLASSES
 from samplewright.estimation.cost import CostModel
 from samplewright.evaluation.exact import evaluate_exact
-from samplewright.simulation.engine import make_cells
+from samplewright.evaluation.measures import summarise
+from samplewright.simulation.engine import make_cells, replicate_table, simulate
+from samplewright.simulation.plan import RunPlan
 
 # ten units, two domains (invented values)
 TEN = pd.DataFrame({
@@ -59,3 +61,35 @@ def test_exact_domain_mean_counts_only_samples_that_meet_the_domain():
     assert row["mean_estimate"] == pytest.approx(y[d].mean(), rel=1e-12)
     assert row["empirical_se"] == pytest.approx(ests.std(), rel=1e-12)
     assert row["coverage"] == pytest.approx(np.mean(covered), rel=1e-12)
+
+
+def test_hajek_mean_of_a_random_size_design_counts_only_nonempty_samples():
+    # Bernoulli sampling with expected size 1 from 6 units: P(empty) = (5/6)^6 = 0.33, where the Hajek mean
+    # (the sample mean) has no estimate.  As for a domain, and as the --until rule already counts, the summary
+    # is conditional on a nonempty sample, in exact mode and in a simulated run alike.
+    y = np.array([3.0, 7.0, 1.0, 9.0, 4.0, 6.0])
+    f = Frame.from_dataframe(pd.DataFrame({"y": y}), target="y")
+    N, pi = 6, 1 / 6
+    # exact enumeration of the 2^6 subsets, P(s) = pi^|s| (1 - pi)^(N - |s|) (SSW 1992, sec. 3.2)
+    p, m = [], []
+    for k in range(1, N + 1):
+        for s in itertools.combinations(range(N), k):
+            p.append(pi**k * (1 - pi) ** (N - k))
+            m.append(y[list(s)].mean())
+    p, m = np.array(p) / np.sum(p), np.array(m)
+    mean = p @ m
+    sd = np.sqrt(p @ (m - mean) ** 2)
+    design = DESIGN_CLASSES["bernoulli"]("bern", n=1)
+    ex = _exact(f, design, ("hajek",)).iloc[0]
+    assert ex["replicates"] == 2**N - 1
+    assert ex["mean_estimate"] == pytest.approx(mean, rel=1e-12)
+    assert ex["empirical_se"] == pytest.approx(sd, rel=1e-12)
+    assert np.isfinite(ex[["bias", "rmse", "mean_se", "moe", "mean_ci_width"]].astype(float)).all()
+    # a simulated run agrees within 4 Monte Carlo SEs (Morris, White & Crowther 2019, Table 6)
+    R = 4000
+    cells = make_cells([design], [("hajek",)])
+    res = simulate(RunPlan(frame=f, cells=tuple(cells), replicates=R, seed=9, block_size=1000))
+    mc = summarise(replicate_table(res, cells, f.layout.names), f, {"bern": "bernoulli"}, 0.95).iloc[0]
+    assert mc["replicates"] == pytest.approx(R * (1 - (1 - pi) ** N), abs=4 * np.sqrt(R * 0.33 * 0.67))
+    assert abs(mc["mean_estimate"] - mean) < 4 * mc["bias_mcse"]
+    assert abs(mc["coverage"] - ex["coverage"]) < 4 * mc["coverage_mcse"]

@@ -108,9 +108,9 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
         for e in cell.estimators:
             est, se, lo, hi = (np.concatenate(a, axis=0) for a in parts[e])
             for v, var in enumerate(names):
-                # as in measures.summarise: a sample that met no unit of a domain has no estimate, so a
-                # domain's measures are conditional on the samples that have one (probabilities rescaled)
-                has = np.isfinite(est[:, v]) if v >= frame.V else np.ones(len(p), dtype=bool)
+                # as in measures.summarise: a sample without an estimate (no unit of a domain, Hajek of an
+                # empty sample) is not counted; the measures are conditional on the others (probabilities rescaled)
+                has = np.isfinite(est[:, v])
                 if not has.any():
                     continue
                 q = p if has.all() else p[has] / p[has].sum()

@@ -214,16 +214,15 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
     S2 = dict(zip(frame.layout.names, frame.layout.S2))
-    domain_vars = set(frame.layout.names[frame.V:])
     rows = []
     # group by row positions and slice the numeric columns once: no per-group DataFrame copies,
     # so evaluating a long run needs little memory beyond the replicate table itself
     col = {k: reps[k].to_numpy() for k in ("estimate", "se", "lower", "upper", "n", "cost")}
     for (design, size, est, var), idx in group_rows(reps, ["design", "size", "estimator", "variable"]):
-        if var in domain_vars:  # a replicate that met no unit of the domain has no estimate: not counted
-            idx = idx[np.isfinite(col["estimate"][idx])]
-            if len(idx) == 0:
-                continue
+        # a replicate without an estimate (no unit of a domain; Hajek of an empty sample) is not counted
+        idx = idx[np.isfinite(col["estimate"][idx])]
+        if len(idx) == 0:
+            continue
         m = measures(col["estimate"][idx], col["se"][idx], col["lower"][idx], col["upper"][idx],
                      float(truth[var]), z)
         mean_n = float(col["n"][idx].mean())
