@@ -93,3 +93,37 @@ def test_hajek_mean_of_a_random_size_design_counts_only_nonempty_samples():
     assert mc["replicates"] == pytest.approx(R * (1 - (1 - pi) ** N), abs=4 * np.sqrt(R * 0.33 * 0.67))
     assert abs(mc["mean_estimate"] - mean) < 4 * mc["bias_mcse"]
     assert abs(mc["coverage"] - ex["coverage"]) < 4 * mc["coverage_mcse"]
+
+
+TWELVE = pd.DataFrame({
+    "y": [3.0, 7.0, 1.0, 9.0, 4.0, 4.0, 12.0, 2.0, 8.0, 5.0, 6.0, 10.0],
+    "x": [2.0, 3.0, 1.0, 4.0, 2.0, 2.0, 6.0, 1.0, 4.0, 2.0, 3.0, 40.0],
+    "blk": [1, 1, 2, 2, 3, 3, 4, 4, 5, 5, 6, 6],
+})
+
+
+@pytest.mark.parametrize("design", [
+    DESIGN_CLASSES["srs"]("one unit", n=1),
+    DESIGN_CLASSES["systematic"]("one step", n=1),
+    DESIGN_CLASSES["cluster"]("one cluster", clusters=1),
+    # n x_i / X = 2 x 40 / 70 >= 1: unit 12 is taken with certainty and one unit is drawn from the rest
+    DESIGN_CLASSES["sampford"]("one draw", n=2),
+], ids=lambda d: d.label)
+def test_a_single_sampled_psu_is_warned_about(design):
+    # With one PSU in a sampled stratum the between-PSU variance has n - 1 = 0 degrees of freedom and cannot be
+    # estimated (Cochran 1977, sec. 5A.12: at least two units per stratum); exact enumeration shows the cost:
+    # the estimates vary, the SEs are all 0, and no interval holds the truth
+    f = Frame.from_dataframe(TWELVE, target="y", size="x", cluster="blk")
+    row = _exact(f, design, ("ht",)).iloc[0]
+    assert row["empirical_se"] > 0 and row["mean_se"] == 0 and row["coverage"] == 0
+    from samplewright.diagnostics.checks import design_warnings
+    said = [w for w in design_warnings(f, make_cells([design], [("ht",)]), None) if "single" in w]
+    assert len(said) == 1 and repr(design.label) in said[0]
+
+
+def test_two_sampled_psus_per_stratum_are_not_warned_about():
+    f = Frame.from_dataframe(TWELVE, target="y", size="x", cluster="blk")
+    from samplewright.diagnostics.checks import design_warnings
+    ds = [DESIGN_CLASSES["srs"]("two", n=2), DESIGN_CLASSES["cluster"]("two clusters", clusters=2),
+          DESIGN_CLASSES["sampford"]("two draws", n=3), DESIGN_CLASSES["bernoulli"]("random size", n=1)]
+    assert not [w for w in design_warnings(f, make_cells(ds, [("ht",)] * len(ds)), None) if "single" in w]

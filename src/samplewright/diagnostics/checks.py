@@ -110,6 +110,28 @@ def skewness(frame: Frame) -> np.ndarray:
     return g1
 
 
+def single_psu_warnings(frame: Frame, design) -> list[str]:
+    """A sentence when a sampled design stratum holds one PSU, whose variance cannot be estimated.
+
+    The between-PSU variance of a stratum has m_h - 1 degrees of freedom: with one PSU (one unit,
+    one cluster, or the one draw left beside certainty units) it is left out of the SEs.  The layout
+    of PSUs in strata is the same in every replicate, so one drawn replicate shows it; random-size
+    designs are skipped (their Poisson variance needs no second unit).
+    """
+    block = design.draw(frame, np.random.default_rng(0), 1)
+    if block.mask is not None:
+        return []
+    slot = block.psu if block.psu is not None else np.arange(len(block.psu_stratum))
+    psus = np.bincount(np.unique(np.column_stack([block.psu_stratum, slot]), axis=0)[:, 0],
+                       minlength=len(block.fpc))
+    single = int(((psus == 1) & (np.asarray(block.fpc) > 0)).sum())
+    if not single:
+        return []
+    return [f"design {design.label!r} at size {design.size}: {single} sampled stratum/strata hold a single primary "
+            f"sampling unit, whose variance cannot be estimated: the SEs leave it out (intervals too narrow, or "
+            f"of zero width); draw at least two units or clusters per stratum"]
+
+
 def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
     """Warnings about the designs on this frame; ``replicates`` is None in exact mode (no Monte Carlo)."""
     out = []
@@ -118,6 +140,7 @@ def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
     for cell in cells:
         d = cell.design
         out.extend(interval_warnings(frame, d))  # systematic intervals in step with a cycle
+        out.extend(single_psu_warnings(frame, d))
         n = d.expected_n(frame)
         if n > LARGE_FRACTION * frame.N:
             out.append(f"design {d.label!r} at size {d.size} samples {n / frame.N:.0%} of the frame")
