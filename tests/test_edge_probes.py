@@ -127,3 +127,19 @@ def test_two_sampled_psus_per_stratum_are_not_warned_about():
     ds = [DESIGN_CLASSES["srs"]("two", n=2), DESIGN_CLASSES["cluster"]("two clusters", clusters=2),
           DESIGN_CLASSES["sampford"]("two draws", n=3), DESIGN_CLASSES["bernoulli"]("random size", n=1)]
     assert not [w for w in design_warnings(f, make_cells(ds, [("ht",)] * len(ds)), None) if "single" in w]
+
+
+def test_greg_of_an_empty_sample_has_no_estimate():
+    # GREG with an intercept needs N^ = sum_s w > 0 (its model matrix M = sum_s w x~ x~' must be invertible;
+    # SSW 1992, sec. 6.5): an empty Bernoulli sample has no GREG estimate, as it has no Hajek one; it was 0
+    y = np.array([3.0, 7.0, 1.0, 9.0, 4.0, 6.0])
+    f = Frame.from_dataframe(pd.DataFrame({"y": y, "x": y + 1.0}), target="y", auxiliary=["x"])
+    row = _exact(f, DESIGN_CLASSES["bernoulli"]("bern", n=1), ("greg",)).iloc[0]
+    assert row["replicates"] == 2**6 - 1  # every subset but the empty one (exact enumeration)
+    # y = x - 1 exactly: a sample of two or more units fits the line and its GREG estimate is the truth
+    # (SSW 1992, sec. 6.5); one unit cannot separate x from the intercept, so its GREG is its Hajek mean y_k
+    N, pi = 6, 1 / 6
+    p = np.array([pi**k * (1 - pi) ** (N - k) for k in range(1, N + 1) for _ in itertools.combinations(y, k)])
+    est = np.array([s[0] if k == 1 else y.mean() for k in range(1, N + 1) for s in itertools.combinations(y, k)])
+    p = p / p.sum()
+    assert row["mean_estimate"] == pytest.approx(p @ est, rel=1e-12)
