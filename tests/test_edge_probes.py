@@ -143,3 +143,14 @@ def test_greg_of_an_empty_sample_has_no_estimate():
     est = np.array([s[0] if k == 1 else y.mean() for k in range(1, N + 1) for s in itertools.combinations(y, k)])
     p = p / p.sum()
     assert row["mean_estimate"] == pytest.approx(p @ est, rel=1e-12)
+
+
+def test_optimal_allocation_names_the_stratum_without_a_cost(tmp_path):
+    # the culprit is named (project rule for bad input): stratum 'c' has unit cost 0, and n_h ∝ N_h S_h / sqrt(c_h)
+    # (Cochran 1977, eq. 5.24) is undefined there
+    df = pd.DataFrame({"y": [1.0, 2, 1, 3, 2, 5, 9, 3, 7, 8, 6, 7], "band": list("aaaabbbbcccc"),
+                       "uc": [1.0] * 4 + [4.0] * 4 + [0.0] * 4})
+    f = Frame.from_dataframe(df, target="y", stratum="band", unit_cost="uc")
+    from samplewright.errors import InputError
+    with pytest.raises(InputError, match=r"design 'opt'.*stratum 'c'"):
+        DESIGN_CLASSES["stratified"]("opt", n=7, allocation="optimal").check(f)

@@ -80,7 +80,8 @@ class Stratified(Design):
             v = 0 if self.allocation_variable is None else frame.variables.index(self.allocation_variable)
             S_h = np.sqrt(frame.stratum_S2()[:, v])
             c_h = self.stratum_unit_costs(frame) if self.allocation == "optimal" else None
-            self._cache[key] = allocate(int(self.n), self.allocation, frame.N_h, S_h, c_h)
+            self._cache[key] = allocate(int(self.n), self.allocation, frame.N_h, S_h, c_h,
+                                        labels=frame.stratum_labels)
         return self._cache[key]
 
     def _draw(self, frame, rng, B, keep_units):
