@@ -154,3 +154,37 @@ def test_optimal_allocation_names_the_stratum_without_a_cost(tmp_path):
     from samplewright.errors import InputError
     with pytest.raises(InputError, match=r"design 'opt'.*stratum 'c'"):
         DESIGN_CLASSES["stratified"]("opt", n=7, allocation="optimal").check(f)
+
+
+SIXTEEN = pd.DataFrame({
+    "y": [3.0, 7, 1, 9, 4, 4, 12, 2, 8, 5, 6, 10, 11, 2, 6, 7],
+    "band": list("aaaaaabbbbcccccc"),
+    "blk": [1, 1, 2, 2, 3, 3, 4, 4, 5, 5, 6, 6, 7, 7, 8, 8],
+})
+
+
+@pytest.mark.parametrize("design", [
+    DESIGN_CLASSES["cluster"]("one per cluster", clusters=4, units_per_cluster=1),
+    DESIGN_CLASSES["stratified_cluster"]("one per cluster", clusters=6, units_per_cluster=1),
+], ids=lambda d: d.method)
+def test_one_unit_per_sampled_cluster_is_warned_about(design):
+    # the unbiased two-stage variance estimator needs s_2i^2 within each sampled cluster (Cochran 1977,
+    # Theorem 11.2); exact enumeration shows E[v] < V when one unit is drawn per cluster
+    f = Frame.from_dataframe(SIXTEEN, target="y", stratum="band", cluster="blk")
+    row = _exact(f, design, ("ht",)).iloc[0]
+    assert row["mean_se"] ** 2 < 0.9 * row["empirical_se"] ** 2
+    from samplewright.diagnostics.checks import design_warnings
+    said = [w for w in design_warnings(f, make_cells([design], [("ht",)]), None) if "within-cluster" in w]
+    assert len(said) == 1
+
+
+def test_two_units_per_cluster_or_one_stage_are_not_warned_about():
+    f = Frame.from_dataframe(SIXTEEN, target="y", stratum="band", cluster="blk")
+    ds = [DESIGN_CLASSES["cluster"]("two", clusters=4, units_per_cluster=2),
+          DESIGN_CLASSES["cluster"]("whole", clusters=4),
+          DESIGN_CLASSES["cluster"]("ultimate", clusters=4, units_per_cluster=1, variance="ultimate_cluster")]
+    from samplewright.diagnostics.checks import design_warnings
+    # a two-unit take is unbiased (Cochran 1977, Theorem 11.2), checked by exact enumeration
+    row = _exact(f, ds[0], ("ht",)).iloc[0]
+    assert row["mean_se"] ** 2 == pytest.approx(row["empirical_se"] ** 2, rel=1e-10)
+    assert not [w for w in design_warnings(f, make_cells(ds, [("ht",)] * 3), None) if "within-cluster" in w]

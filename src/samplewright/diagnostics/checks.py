@@ -132,6 +132,27 @@ def single_psu_warnings(frame: Frame, design) -> list[str]:
             f"of zero width); draw at least two units or clusters per stratum"]
 
 
+def one_unit_cluster_warnings(frame: Frame, design) -> list[str]:
+    """A sentence when a two-stage design draws one unit in sampled (not certainty) clusters.
+
+    The within-cluster variance s_2i^2 of the unbiased two-stage estimator (Cochran 1977, Theorem 11.2) needs
+    two units in the cluster; with one it is left out and the SEs run low (certainty clusters have their own
+    note).  As in :func:`single_psu_warnings`, one drawn replicate shows the layout.
+    """
+    block = design.draw(frame, np.random.default_rng(0), 1)
+    if block.psu is None or block.within_fpc is None:
+        return []
+    real = np.ones(len(block.psu), dtype=bool) if block.mask is None else block.mask[0]
+    take = np.bincount(block.psu[real], minlength=block.within_fpc.shape[1])
+    sampled = np.asarray(block.fpc)[block.psu_stratum[np.unique(block.psu, return_index=True)[1]]] > 0
+    lonely = int(((take == 1) & (block.within_fpc[0] > 0) & sampled).sum())
+    if not lonely:
+        return []
+    return [f"design {design.label!r} at size {design.size}: one unit is drawn in {lonely} sampled cluster(s), so "
+            f"their within-cluster variance cannot be estimated and the two-stage SEs run low; draw at least two "
+            f"units per cluster"]
+
+
 def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
     """Warnings about the designs on this frame; ``replicates`` is None in exact mode (no Monte Carlo)."""
     out = []
@@ -141,6 +162,7 @@ def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
         d = cell.design
         out.extend(interval_warnings(frame, d))  # systematic intervals in step with a cycle
         out.extend(single_psu_warnings(frame, d))
+        out.extend(one_unit_cluster_warnings(frame, d))
         n = d.expected_n(frame)
         if n > LARGE_FRACTION * frame.N:
             out.append(f"design {d.label!r} at size {d.size} samples {n / frame.N:.0%} of the frame")
