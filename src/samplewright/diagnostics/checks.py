@@ -110,15 +110,14 @@ def skewness(frame: Frame) -> np.ndarray:
     return g1
 
 
-def single_psu_warnings(frame: Frame, design) -> list[str]:
+def single_psu_warnings(design, block) -> list[str]:
     """A sentence when a sampled design stratum holds one PSU, whose variance cannot be estimated.
 
     The between-PSU variance of a stratum has m_h - 1 degrees of freedom: with one PSU (one unit,
     one cluster, or the one draw left beside certainty units) it is left out of the SEs.  The layout
-    of PSUs in strata is the same in every replicate, so one drawn replicate shows it; random-size
-    designs are skipped (their Poisson variance needs no second unit).
+    of PSUs in strata is the same in every replicate, so ``block``, one drawn replicate, shows it;
+    random-size designs are skipped (their Poisson variance needs no second unit).
     """
-    block = design.draw(frame, np.random.default_rng(0), 1)
     if block.mask is not None:
         return []
     slot = block.psu if block.psu is not None else np.arange(len(block.psu_stratum))
@@ -132,14 +131,13 @@ def single_psu_warnings(frame: Frame, design) -> list[str]:
             f"of zero width); draw at least two units or clusters per stratum"]
 
 
-def one_unit_cluster_warnings(frame: Frame, design) -> list[str]:
+def one_unit_cluster_warnings(design, block) -> list[str]:
     """A sentence when a two-stage design draws one unit in sampled (not certainty) clusters.
 
     The within-cluster variance s_2i^2 of the unbiased two-stage estimator (Cochran 1977, Theorem 11.2) needs
     two units in the cluster; with one it is left out and the SEs run low (certainty clusters have their own
-    note).  As in :func:`single_psu_warnings`, one drawn replicate shows the layout.
+    note).  As in :func:`single_psu_warnings`, ``block``, one drawn replicate, shows the layout.
     """
-    block = design.draw(frame, np.random.default_rng(0), 1)
     if block.psu is None or block.within_fpc is None:
         return []
     real = np.ones(len(block.psu), dtype=bool) if block.mask is None else block.mask[0]
@@ -153,6 +151,16 @@ def one_unit_cluster_warnings(frame: Frame, design) -> list[str]:
             f"units per cluster"]
 
 
+def _may_hold_one_psu(frame: Frame, design) -> bool:
+    """Whether a drawn replicate is needed to look for a lone PSU or unit: always for cluster designs; for
+    unit designs only when fewer than two units are expected beside the certainty ones (a Sampford draw of a
+    large frame costs as much as a block, so it is skipped where it cannot show one)."""
+    if design.size_key == "clusters":
+        return True
+    pi = design.inclusion_probabilities(frame)
+    return float(pi[pi < 1.0].sum()) < 2.0
+
+
 def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
     """Warnings about the designs on this frame; ``replicates`` is None in exact mode (no Monte Carlo)."""
     out = []
@@ -161,8 +169,9 @@ def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
     for cell in cells:
         d = cell.design
         out.extend(interval_warnings(frame, d))  # systematic intervals in step with a cycle
-        out.extend(single_psu_warnings(frame, d))
-        out.extend(one_unit_cluster_warnings(frame, d))
+        if _may_hold_one_psu(frame, d):
+            layout = d.draw(frame, np.random.default_rng(0), 1)  # one replicate: the PSU layout of every replicate
+            out.extend(single_psu_warnings(d, layout) + one_unit_cluster_warnings(d, layout))
         n = d.expected_n(frame)
         if n > LARGE_FRACTION * frame.N:
             out.append(f"design {d.label!r} at size {d.size} samples {n / frame.N:.0%} of the frame")
