@@ -188,3 +188,13 @@ def test_two_units_per_cluster_or_one_stage_are_not_warned_about():
     row = _exact(f, ds[0], ("ht",)).iloc[0]
     assert row["mean_se"] ** 2 == pytest.approx(row["empirical_se"] ** 2, rel=1e-10)
     assert not [w for w in design_warnings(f, make_cells(ds, [("ht",)] * 3), None) if "within-cluster" in w]
+
+
+def test_skewness_of_huge_values_is_scale_free():
+    # Fisher's G1 does not change with the scale of y (a ratio of central moments m3 / m2^1.5): values near
+    # 1e150 pass the overflow check (their total squared is finite) but their third moment overflowed, printing
+    # numpy warnings on stderr and losing the Cochran n > 25 G1^2 warning; checked against scipy.stats.skew
+    from samplewright.diagnostics.checks import skewness
+    base = TWELVE["y"].to_numpy()
+    f = Frame.from_dataframe(pd.DataFrame({"y": base * 1e150}), target="y")
+    assert skewness(f)[0] == pytest.approx(stats.skew(base, bias=False), rel=1e-12)

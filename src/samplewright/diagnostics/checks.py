@@ -106,7 +106,8 @@ def skewness(frame: Frame) -> np.ndarray:
     g1 = np.zeros(frame.V)
     varies = np.ptp(frame.y, axis=0) > 0 if frame.N > 2 else np.zeros(frame.V, dtype=bool)
     if varies.any():
-        g1[varies] = stats.skew(frame.y[:, varies], axis=0, bias=False)
+        y = frame.y[:, varies]  # scaled to at most 1 in size: G1 is scale-free, and a cube of 1e150 overflows
+        g1[varies] = stats.skew(y / np.abs(y).max(axis=0), axis=0, bias=False)
     return g1
 
 
