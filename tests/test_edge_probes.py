@@ -198,3 +198,12 @@ def test_skewness_of_huge_values_is_scale_free():
     base = TWELVE["y"].to_numpy()
     f = Frame.from_dataframe(pd.DataFrame({"y": base * 1e150}), target="y")
     assert skewness(f)[0] == pytest.approx(stats.skew(base, bias=False), rel=1e-12)
+
+
+def test_mcse_of_a_mean_of_huge_values_is_finite():
+    # the MCSE of a mean is sd / sqrt(R) (Morris, White & Crowther 2019, Table 6), homogeneous of degree 1 in
+    # the values: squared errors near 1e300 (estimates near 1e150, which the frame check lets through) must
+    # not overflow on the way (the frontier's MSE MCSE was inf, with a numpy warning)
+    from samplewright.evaluation.measures import mean_mcse
+    base = TWELVE["y"].to_numpy()
+    assert mean_mcse(base * 1e300) == pytest.approx(1e300 * np.std(base, ddof=1) / np.sqrt(len(base)), rel=1e-12)

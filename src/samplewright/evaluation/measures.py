@@ -145,7 +145,14 @@ def mean_mcse(values) -> float:
     """MCSE of a mean of replicate values, sd / sqrt(R) (NaN below two values): used for paired
     differences and for the squared errors behind an MSE."""
     R = len(values)
-    return float(values.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan")
+    if R < 2:
+        return float("nan")
+    with np.errstate(over="ignore", invalid="ignore"):
+        sd = float(values.std(ddof=1))
+    if not np.isfinite(sd) and np.isfinite(values).all():  # squares of values near 1e300 overflow: sd is
+        scale = float(np.abs(values).max())  # homogeneous, so take it of the values scaled to at most 1
+        sd = float((values / scale).std(ddof=1)) * scale
+    return sd / np.sqrt(R)
 
 
 def moe_mcse(mse_mcse, rmse_value, z):
