@@ -265,3 +265,11 @@ def test_repeated_id_is_named_as_the_file_shows_it(tmp_path):
     write(tmp_path / "f.csv", "y,code\n" + "".join(f"{i},{i}\n" for i in range(1, 8)) + "8,7\n")
     line = refused(run_in(tmp_path, scenario(tmp_path, frame_extra='id = "code"')), "'code'", "first 7 ")
     assert "np." not in line
+
+
+def test_a_first_line_longer_than_the_sniffed_start_is_not_called_empty(tmp_path):
+    # a file whose first line never ends within the part read to detect the format is not a table; it was
+    # refused as "empty", which names the wrong fault (the file holds 5 MB)
+    write(tmp_path / "f.csv", "y," + "a" * 5_000_000 + "\n1,2\n")
+    line = refused(run_in(tmp_path), "f.csv", "does not look like a table")
+    assert "empty" not in line
