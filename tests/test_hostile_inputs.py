@@ -251,3 +251,25 @@ def test_target_whose_total_overflows_is_refused(tmp_path):
     # 40 x 1e308 is beyond the largest double (about 1.8e308): the frame total would be inf
     pd.DataFrame({"y": [1e308] * 40}).to_csv(tmp_path / "f.csv", index=False)
     refused(run_in(tmp_path), "'y'", "overflow")
+
+
+def test_target_whose_square_overflows_is_refused(tmp_path):
+    # 40 x 1e200 = 4e201 is a finite double, but its square (1.6e403) is beyond the largest double
+    # (about 1.8e308, IEEE 754): a variance of the column would be inf, so it is refused, not a crash
+    pd.DataFrame({"y": [1e200] * 20 + [1.0] * 20}).to_csv(tmp_path / "f.csv", index=False)
+    refused(run_in(tmp_path), "'y'", "overflow")
+
+
+def test_repeated_id_is_named_as_the_file_shows_it(tmp_path):
+    # the culprit is echoed as the user wrote it ("7"), not as numpy 2's scalar repr ("np.int64(7)", NEP 51)
+    write(tmp_path / "f.csv", "y,code\n" + "".join(f"{i},{i}\n" for i in range(1, 8)) + "8,7\n")
+    line = refused(run_in(tmp_path, scenario(tmp_path, frame_extra='id = "code"')), "'code'", "first 7 ")
+    assert "np." not in line
+
+
+def test_a_first_line_longer_than_the_sniffed_start_is_not_called_empty(tmp_path):
+    # a file whose first line never ends within the part read to detect the format is not a table; it was
+    # refused as "empty", which names the wrong fault (the file holds 5 MB)
+    write(tmp_path / "f.csv", "y," + "a" * 5_000_000 + "\n1,2\n")
+    line = refused(run_in(tmp_path), "f.csv", "does not look like a table")
+    assert "empty" not in line

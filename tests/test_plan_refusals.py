@@ -142,3 +142,9 @@ def test_every_fixed_n_allocation_sums_to_n(s, frac, rule):
 def test_fixed_cost_at_least_the_stratified_budget_is_refused():
     with pytest.raises(InputError, match="fixed cost"):
         planning.allocate_strata([400, 300], [10.0, 20.0], budget=500, fixed_cost=500)
+
+
+def test_a_bad_stratum_value_is_shown_as_given():
+    # the culprit is echoed as the user typed it (0.0), not as numpy 2's scalar repr np.float64(0.0) (NEP 51)
+    with pytest.raises(InputError, match=r"cost of stratum 2 must be above 0, got 0\.0$"):
+        planning.allocate_strata([10, 10], [1.0, 2.0], [1.0, 0.0], rule="optimal", n=5)

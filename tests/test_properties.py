@@ -317,7 +317,9 @@ def check_scenario_runs_or_is_refused(outcomes, doc):
     event("ran")
     s = res.summary
     assert len(s) > 0
-    assert set(s["replicates"]) == {12}
+    # every replicate counts, except where an estimator has no estimate (Hajek of an empty random-size sample)
+    assert (s.loc[s["estimator"] == "ht", "replicates"] == 12).all()
+    assert s["replicates"].between(1, 12).all()
     assert np.isfinite(res.replicates["n"]).all()
 
 

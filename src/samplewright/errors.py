@@ -38,6 +38,8 @@ def show(value) -> str:
     """
     import reprlib
 
+    if type(value).__module__ == "numpy" and getattr(value, "ndim", None) == 0:
+        value = value.item()  # a numpy scalar shows as the value a file holds, not as np.int64(7)
     r = reprlib.Repr()  # (keyword arguments to Repr need Python 3.12)
     r.maxlevel, r.maxlist, r.maxtuple, r.maxdict, r.maxset = 3, 8, 8, 4, 4
     r.maxstring = r.maxother = SHOWN

@@ -101,7 +101,7 @@ def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
         )
     big = float(np.abs(num.to_numpy()[~bad]).max(initial=0.0))
     with np.errstate(over="ignore"):
-        overflow = role != "order" and not np.isfinite((len(num) * big) ** 2)
+        overflow = role != "order" and not np.isfinite(np.float64(len(num) * big) ** 2)
     if overflow:  # totals reach N max|y|; variances square them
         raise InputError(f"{source}: {role} column {show(col)} has values as large as {big:.3g}: over "
                          f"{len(num):,} units their total or its square would overflow to infinity; "

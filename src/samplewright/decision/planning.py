@@ -56,7 +56,7 @@ import numpy as np
 
 from samplewright.apportion import largest_remainder
 from samplewright.designs.allocation import RULES, real_allocation, shares
-from samplewright.errors import InputError
+from samplewright.errors import InputError, show
 from samplewright.evaluation.normal import normal_quantile
 
 
@@ -65,13 +65,13 @@ def _num(value, name: str, low=None, high=None, low_open=True, high_open=False) 
     try:
         v = float(value)
     except (TypeError, ValueError):
-        raise InputError(f"{name} must be a number, got {value!r}") from None
+        raise InputError(f"{name} must be a number, got {show(value)}") from None
     if not math.isfinite(v):
-        raise InputError(f"{name} must be a finite number, got {value!r}")
+        raise InputError(f"{name} must be a finite number, got {show(value)}")
     if low is not None and (v <= low if low_open else v < low):
-        raise InputError(f"{name} must be {'above' if low_open else 'at least'} {low:g}, got {value!r}")
+        raise InputError(f"{name} must be {'above' if low_open else 'at least'} {low:g}, got {show(value)}")
     if high is not None and (v >= high if high_open else v > high):
-        raise InputError(f"{name} must be {'below' if high_open else 'at most'} {high:g}, got {value!r}")
+        raise InputError(f"{name} must be {'below' if high_open else 'at most'} {high:g}, got {show(value)}")
     return v
 
 
@@ -139,7 +139,7 @@ def sample_size(moe, confidence=0.95, sd=None, proportion=None, population=None,
     if population is not None:
         N = _num(population, "population (--population)", 1.0, low_open=False)
         if N != int(N):
-            raise InputError(f"population (--population) must be a whole number, got {population!r}")
+            raise InputError(f"population (--population) must be a whole number, got {show(population)}")
         if sd is not None:
             n2 = fpc_mean(n1, N)
             fpc = "n2 = n1 / (1 + n1 / N)"
@@ -191,7 +191,7 @@ def _strata_arrays(units, sd, cost):
             bad |= arr <= 0
         if bad.any():
             h = int(np.flatnonzero(bad)[0])
-            raise InputError(f"strata: {name} of stratum {h + 1} must be {rule}, got {arr[h]!r}")
+            raise InputError(f"strata: {name} of stratum {h + 1} must be {rule}, got {show(arr[h])}")
     return N_h.astype(np.int64), S_h, c_h
 
 
@@ -312,7 +312,7 @@ def _for_fixed_n(n, w, N_h, rule):
     N = float(N_h.sum())
     n_tot = _num(n, "n (--n)", 0.0)
     if n_tot != int(n_tot):
-        raise InputError(f"n (--n) must be a whole number, got {n!r}")
+        raise InputError(f"n (--n) must be a whole number, got {show(n)}")
     if n_tot > N:
         raise InputError(f"n (--n) = {int(n_tot)} is more than the {int(N)} units in the strata")
     real = real_allocation(n_tot, w, N_h)

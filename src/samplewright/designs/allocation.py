@@ -21,8 +21,8 @@ from samplewright.errors import InputError
 RULES = ("equal", "proportional", "neyman", "optimal")
 
 
-def shares(rule: str, N_h, S_h=None, c_h=None) -> np.ndarray:
-    """Allocation shares (summing to 1) under ``rule``."""
+def shares(rule: str, N_h, S_h=None, c_h=None, labels=None) -> np.ndarray:
+    """Allocation shares (summing to 1) under ``rule``; ``labels`` name the strata in messages."""
     N_h = np.asarray(N_h, dtype=float)
     if rule == "equal":
         w = np.ones_like(N_h)
@@ -35,7 +35,10 @@ def shares(rule: str, N_h, S_h=None, c_h=None) -> np.ndarray:
         if rule == "optimal":
             c = np.ones_like(N_h) if c_h is None else np.asarray(c_h, dtype=float)
             if np.any(c <= 0):
-                raise InputError("allocation 'optimal' needs a positive cost per unit in every stratum")
+                h = int(np.flatnonzero(c <= 0)[0])
+                name = f"stratum {str(labels[h])!r}" if labels is not None else f"stratum {h + 1}"
+                raise InputError(f"allocation 'optimal' needs a positive cost per unit in every stratum; "
+                                 f"{name} has {c[h]:g}")
             w = w / np.sqrt(c)
         if w.sum() <= 0:  # every stratum constant: fall back to proportional
             w = N_h.copy()
@@ -70,7 +73,7 @@ def real_allocation(n: float, w, N_h, minimum=None) -> np.ndarray:
     return alloc
 
 
-def allocate(n: int, rule: str, N_h, S_h=None, c_h=None, minimum: int = 2) -> np.ndarray:
+def allocate(n: int, rule: str, N_h, S_h=None, c_h=None, minimum: int = 2, labels=None) -> np.ndarray:
     """Whole-number allocation of total ``n`` to strata.
 
     At least ``minimum`` units go to every stratum that has them (two, so a within-stratum
@@ -88,6 +91,6 @@ def allocate(n: int, rule: str, N_h, S_h=None, c_h=None, minimum: int = 2) -> np
     if n < floor.sum():
         raise InputError(f"n = {n} cannot give every one of the {len(N_h)} strata {minimum} units "
                          f"(needs n >= {int(floor.sum())})")
-    w = shares(rule, N_h, S_h, c_h)
+    w = shares(rule, N_h, S_h, c_h, labels)
     real = real_allocation(n, w, N_h, floor)
     return largest_remainder(n, real, N_h, floor)

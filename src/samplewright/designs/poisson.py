@@ -115,7 +115,7 @@ def _empty_note(design, frame) -> list[str]:
     if p0 < 1e-6:
         return []
     note = (f"design {design.label!r} at n = {design.n}: an empty sample has probability {p0:.2g}; "
-            f"the Hajek mean is undefined (NaN) for such a replicate")
+            f"the Hajek mean is undefined (NaN) for such a replicate, which its summary rows do not count")
     return [note]
 
 

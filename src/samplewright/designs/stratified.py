@@ -157,10 +157,11 @@ class Stratified(Design):
             if self.take_all:  # the top stratum whole, the rest of n over the others
                 top = int(frame.N_h[-1])
                 rest = allocate(int(self.n) - top, self.allocation, frame.N_h[:-1], S_h[:-1],
-                                None if c_h is None else c_h[:-1])
+                                None if c_h is None else c_h[:-1], labels=frame.stratum_labels[:-1])
                 self._cache[key] = np.append(rest, top)
             else:
-                self._cache[key] = allocate(int(self.n), self.allocation, frame.N_h, S_h, c_h)
+                self._cache[key] = allocate(int(self.n), self.allocation, frame.N_h, S_h, c_h,
+                                            labels=frame.stratum_labels)
         return self._cache[key]
 
     def _draw(self, frame, rng, B, keep_units):

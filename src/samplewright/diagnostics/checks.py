@@ -106,8 +106,60 @@ def skewness(frame: Frame) -> np.ndarray:
     g1 = np.zeros(frame.V)
     varies = np.ptp(frame.y, axis=0) > 0 if frame.N > 2 else np.zeros(frame.V, dtype=bool)
     if varies.any():
-        g1[varies] = stats.skew(frame.y[:, varies], axis=0, bias=False)
+        y = frame.y[:, varies]  # scaled to at most 1 in size: G1 is scale-free, and a cube of 1e150 overflows
+        g1[varies] = stats.skew(y / np.abs(y).max(axis=0), axis=0, bias=False)
     return g1
+
+
+def single_psu_warnings(design, block) -> list[str]:
+    """A sentence when a sampled design stratum holds one PSU, whose variance cannot be estimated.
+
+    The between-PSU variance of a stratum has m_h - 1 degrees of freedom: with one PSU (one unit,
+    one cluster, or the one draw left beside certainty units) it is left out of the SEs.  The layout
+    of PSUs in strata is the same in every replicate, so ``block``, one drawn replicate, shows it;
+    random-size designs are skipped (their Poisson variance needs no second unit).
+    """
+    if block.mask is not None:
+        return []
+    slot = block.psu if block.psu is not None else np.arange(len(block.psu_stratum))
+    psus = np.bincount(np.unique(np.column_stack([block.psu_stratum, slot]), axis=0)[:, 0],
+                       minlength=len(block.fpc))
+    single = int(((psus == 1) & (np.asarray(block.fpc) > 0)).sum())
+    if not single:
+        return []
+    return [f"design {design.label!r} at size {design.size}: {single} sampled stratum/strata hold a single primary "
+            f"sampling unit, whose variance cannot be estimated: the SEs leave it out (intervals too narrow, or "
+            f"of zero width); draw at least two units or clusters per stratum"]
+
+
+def one_unit_cluster_warnings(design, block) -> list[str]:
+    """A sentence when a two-stage design draws one unit in sampled (not certainty) clusters.
+
+    The within-cluster variance s_2i^2 of the unbiased two-stage estimator (Cochran 1977, Theorem 11.2) needs
+    two units in the cluster; with one it is left out and the SEs run low (certainty clusters have their own
+    note).  As in :func:`single_psu_warnings`, ``block``, one drawn replicate, shows the layout.
+    """
+    if block.psu is None or block.within_fpc is None:
+        return []
+    real = np.ones(len(block.psu), dtype=bool) if block.mask is None else block.mask[0]
+    take = np.bincount(block.psu[real], minlength=block.within_fpc.shape[1])
+    sampled = np.asarray(block.fpc)[block.psu_stratum[np.unique(block.psu, return_index=True)[1]]] > 0
+    lonely = int(((take == 1) & (block.within_fpc[0] > 0) & sampled).sum())
+    if not lonely:
+        return []
+    return [f"design {design.label!r} at size {design.size}: one unit is drawn in {lonely} sampled cluster(s), so "
+            f"their within-cluster variance cannot be estimated and the two-stage SEs run low; draw at least two "
+            f"units per cluster"]
+
+
+def _may_hold_one_psu(frame: Frame, design) -> bool:
+    """Whether a drawn replicate is needed to look for a lone PSU or unit: always for cluster designs; for
+    unit designs only when fewer than two units are expected beside the certainty ones (a Sampford draw of a
+    large frame costs as much as a block, so it is skipped where it cannot show one)."""
+    if design.size_key == "clusters":
+        return True
+    pi = design.inclusion_probabilities(frame)
+    return float(pi[pi < 1.0].sum()) < 2.0
 
 
 def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
@@ -118,6 +170,9 @@ def design_warnings(frame: Frame, cells, replicates: int | None) -> list[str]:
     for cell in cells:
         d = cell.design
         out.extend(interval_warnings(frame, d))  # systematic intervals in step with a cycle
+        if _may_hold_one_psu(frame, d):
+            layout = d.draw(frame, np.random.default_rng(0), 1)  # one replicate: the PSU layout of every replicate
+            out.extend(single_psu_warnings(d, layout) + one_unit_cluster_warnings(d, layout))
         n = d.expected_n(frame)
         if n > LARGE_FRACTION * frame.N:
             out.append(f"design {d.label!r} at size {d.size} samples {n / frame.N:.0%} of the frame")

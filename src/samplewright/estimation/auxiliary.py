@@ -96,6 +96,7 @@ def _greg(z, Z, N, L: Layout):
     total = np.concatenate([[float(N)], L.X])  # (k,)
     diff = total[None, :] - M[:, 0, :]  # known minus estimated totals of x~
     T = Z[:, L.extended] + np.einsum("bk,bke->be", diff, Bhat)
+    T[M[:, 0, 0] <= 0] = np.nan  # an empty sample has no estimate (N^ = 0), as for the Hajek mean
     lam = np.einsum("bkj,bj->bk", Minv, diff)  # g_k = 1 + lam' x~_k
     # u_i = sum_{k in i} w_k g_k e_k = s_e - s_x' B + lam' (s_xe - s_xx B), with s_. the PSU's
     # weighted sums; a loop over the k (few) model terms keeps every temporary (B, m, E)

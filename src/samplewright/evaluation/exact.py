@@ -111,16 +111,22 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
         if not np.isclose(total_p, 1.0, rtol=0, atol=1e-9):
             raise RuntimeError(f"design {d.label!r}: sample probabilities sum to {total_p!r}, not 1")
         by_label[f"{d.label}@{d.size}"] = len(p)
-        mean_n = float(p @ n)
         for (e, formula), arrays in parts.items():
             est, se, lo, hi = (np.concatenate(a, axis=0) for a in arrays)
             for v, var in enumerate(names):
-                m = measures(est[:, v], se[:, v], lo[:, v], hi[:, v], float(truth[v]), z, p)
-                deff = design_effect(m["empirical_se"], srs_variance(mean_n, frame.N, S2[v]),
+                # as in measures.summarise: a sample without an estimate (no unit of a domain, Hajek of an
+                # empty sample) is not counted; the measures are conditional on the others (probabilities rescaled)
+                has = np.isfinite(est[:, v])
+                if not has.any():
+                    continue
+                q = p if has.all() else p[has] / p[has].sum()
+                m = measures(est[has, v], se[has, v], lo[has, v], hi[has, v], float(truth[v]), z, q)
+                q_n = float(q @ n[has])
+                deff = design_effect(m["empirical_se"], srs_variance(q_n, frame.N, S2[v]),
                                      max(abs(m["truth"]), abs(m["mean_estimate"])))
                 rows.append({"design": d.label, "method": d.method, "size": int(d.size), "estimator": e,
-                             "variable": var, "replicates": len(p), **m, "deff": deff,
-                             "mean_n": mean_n, "mean_cost": float(p @ c), "exact": True, "variance": formula})
+                             "variable": var, **m, "deff": deff,
+                             "mean_n": q_n, "mean_cost": float(q @ c[has]), "exact": True, "variance": formula})
                 tables.append(pd.DataFrame({
                     "replicate": np.arange(len(p)), "design": d.label, "size": int(d.size), "estimator": e,
                     "variable": var, "estimate": est[:, v], "se": se[:, v], "lower": lo[:, v], "upper": hi[:, v],

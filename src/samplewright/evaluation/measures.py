@@ -153,7 +153,14 @@ def mean_mcse(values) -> float:
     """MCSE of a mean of replicate values, sd / sqrt(R) (NaN below two values): used for paired
     differences and for the squared errors behind an MSE."""
     R = len(values)
-    return float(values.std(ddof=1) / np.sqrt(R)) if R > 1 else float("nan")
+    if R < 2:
+        return float("nan")
+    with np.errstate(over="ignore", invalid="ignore"):
+        sd = float(values.std(ddof=1))
+    if not np.isfinite(sd) and np.isfinite(values).all():  # squares of values near 1e300 overflow: sd is
+        scale = float(np.abs(values).max())  # homogeneous, so take it of the values scaled to at most 1
+        sd = float((values / scale).std(ddof=1)) * scale
+    return sd / np.sqrt(R)
 
 
 def mean_and_mcse_from_sums(s1, s2, n):
@@ -254,16 +261,15 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
     # targets and domain variables (see layout.py): exact means, and S^2 for the SRS reference variance
     truth = dict(zip(frame.layout.names, frame.layout.truth))
     S2 = dict(zip(frame.layout.names, frame.layout.S2))
-    domain_vars = set(frame.layout.names[frame.V:])
     rows = []
     # group by row positions and slice the numeric columns once: no per-group DataFrame copies,
     # so evaluating a long run needs little memory beyond the replicate table itself
     col = {k: reps[k].to_numpy() for k in ("estimate", "se", "lower", "upper", "n", "cost")}
     for (design, size, est, formula, var), idx in group_rows(reps, [*POINT_KEYS, "variable"]):
-        if var in domain_vars:  # a replicate that met no unit of the domain has no estimate: not counted
-            idx = idx[np.isfinite(col["estimate"][idx])]
-            if len(idx) == 0:
-                continue
+        # a replicate without an estimate (no unit of a domain; Hajek of an empty sample) is not counted
+        idx = idx[np.isfinite(col["estimate"][idx])]
+        if len(idx) == 0:
+            continue
         m = measures(col["estimate"][idx], col["se"][idx], col["lower"][idx], col["upper"][idx],
                      float(truth[var]), z)
         mean_n = float(col["n"][idx].mean())

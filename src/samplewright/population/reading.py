@@ -146,6 +146,9 @@ def _sample_text(p: Path, head: bytes, encoding: str | None) -> tuple[str, str]:
             continue
         if len(head) == _SNIFF_BYTES:  # the last line may be cut
             text = text[:text.rfind("\n") + 1]
+            if not text:
+                raise InputError(f"{not_table}: its first line is longer than {_SNIFF_BYTES:,} bytes, far more "
+                                 f"than a header of column names; give a CSV file with one header line")
         return enc, text
     if encoding is not None:
         raise InputError(f"frame file {str(p)!r} is not text in the stated encoding {encoding!r}")
