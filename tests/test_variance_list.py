@@ -18,7 +18,7 @@ import pytest
 
 import samplewright as sw
 from samplewright.cli.main import main
-from samplewright.evaluation.measures import SUMMARY_COLUMNS
+from samplewright.evaluation.measures import PUBLISHED_COLUMNS, SUMMARY_COLUMNS
 from samplewright.results.load import read_run
 from samplewright.simulation import engine
 
@@ -86,7 +86,7 @@ def test_columns_and_row_order(tmp_path):
     sys_design = {**SYSTEMATIC, "n": [12, 24], "variance": ["successive_differences", "srs"]}
     res = sw.run(_scenario(tmp_path, [{"label": "simple", "method": "srs", "n": 24}, sys_design]), seed=1)
     assert list(res.replicates.columns) == CONTRACT + ["variance"]
-    assert list(res.summary.columns) == SUMMARY_COLUMNS + ["variance"]
+    assert list(res.summary.columns) == SUMMARY_COLUMNS + PUBLISHED_COLUMNS + ["variance"]
     assert res.frontier.columns[-1] == "variance"
     order = list(res.summary[["design", "size", "estimator", "variance", "variable"]].itertuples(index=False,
                                                                                                 name=None))
