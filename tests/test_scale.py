@@ -356,7 +356,7 @@ def test_dask_cluster_gives_the_local_numbers(tmp_path):
     sc = scenario_from_dict(DOC)
     local = run(sc, jobs=1)
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                  dashboard_address=None) as cluster:
+                                  dashboard_address=":0") as cluster:
         remote = run(sc, backend="dask", scheduler=cluster.scheduler_address, out=tmp_path / "d")
         stopped_local = run(sc, until="coverage_mcse=0.02", max_replicates=1500)
         stopped_remote = run(sc, until="coverage_mcse=0.02", max_replicates=1500, backend="dask",

@@ -218,7 +218,7 @@ def test_dask_gives_the_local_stress_numbers():
     sc = scenario_from_dict({**cluster_doc(values=[0.1, 0.6], replicates=300), "block_size": 100})
     local = run(sc)
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                  dashboard_address=None) as cluster:
+                                  dashboard_address=":0") as cluster:
         remote = run(sc, backend="dask", scheduler=cluster.scheduler_address)
     for name in ("stress", "stress_verdict", "break_even"):
         pd.testing.assert_frame_equal(getattr(local, name), getattr(remote, name))
