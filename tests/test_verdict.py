@@ -388,3 +388,22 @@ def test_terminal_table_shows_each_listed_formula_of_a_design():
     got = res.summary.set_index("variance").loc[["srs", "successive_differences"]]
     got = got[got["estimator"] == res.summary["estimator"].iloc[0]]["published_moe"]
     assert np.allclose(got.to_numpy(), half.loc[["srs", "successive_differences"]].to_numpy(), rtol=1e-12)
+
+
+def test_the_comparison_table_judges_points_by_the_decision_evidence_rule():
+    # 50 of 50 intervals held the truth: the coverage MCSE formula gives 0, but the exact (Clopper-Pearson)
+    # lower bound at the rule's z = 2, 0.02275 ** (1 / 50) = 0.927, is below 0.95 - 0.01: undecided, not met
+    from scipy import stats as st
+
+    from samplewright.decision.evidence import NOT_MET
+
+    row = {"variable": "y", "replicates": 50, "coverage": 1.0, "coverage_mcse": 0.0, "mean_cost": 10.0,
+           "moe": 1.0, "moe_mcse": 0.01, "published_moe": 1.0, "published_moe_mcse": 0.01, "truth": 5.0}
+    goals = [{"variable": "y", "moe": 2.0}]
+    low = st.beta.ppf(st.norm.sf(2.0), 50, 1)  # Clopper-Pearson lower bound with 50 of 50 (scipy.stats)
+    assert low == pytest.approx(st.norm.sf(2.0) ** (1 / 50)) and low < 0.94
+    close = V.shortfalls(row, goals, 0.95, 0.01, V.labels_of(None))
+    assert [w for _, w in close] and "intervals held" in close[0][1]
+    assert V.shortfalls(row, goals, 0.95, 0.01, V.labels_of(None), (NOT_MET,)) == []
+    row.update(replicates=5000)  # 5,000 of 5,000: the exact bound is 0.9991, so coverage is met
+    assert V.shortfalls(row, goals, 0.95, 0.01, V.labels_of(None)) == []

@@ -11,13 +11,13 @@ import matplotlib
 import numpy as np
 
 from samplewright._version import __version__
+from samplewright.decision.evidence import NOT_MET
 from samplewright.evaluation.stopping import replicate_counts
 from samplewright.report.figures import FIGURES, figure_names
 from samplewright.report.findings import SHORT_ESTIMATOR, findings, summary_rows
 from samplewright.report.names import estimator_name, parameter_text, variance_name
 from samplewright.report.table import compact_columns, compact_rows, coverage_cell, default_rows, with_moe_mcse
 from samplewright.report.verdict import (
-    CLEAR_Z,
     analysis_text,
     cost_header,
     coverage_text,
@@ -218,8 +218,8 @@ def comparison_rows(res, labels: dict) -> list[dict]:
                 scored, key=lambda x: max(s for s, _ in x[0]))[1]
         if chosen is None:
             chosen = min(mine, key=lambda r: _margin_of(r) if np.isfinite(_margin_of(r)) else np.inf)
-        misses = shortfalls(chosen, goals, nominal, tol, labels, CLEAR_Z) if goals else []
-        close = shortfalls(chosen, goals, nominal, tol, labels, -CLEAR_Z) if goals else []
+        close = shortfalls(chosen, goals, nominal, tol, labels) if goals else []  # every criterion not met
+        misses = shortfalls(chosen, goals, nominal, tol, labels, (NOT_MET,)) if goals else []  # clearly missed
         role = "pick" if _same_point(chosen, pick) else "runner-up" if _same_point(chosen, runner) else ""
         pub = chosen.get("published_moe")
         out.append({
@@ -233,7 +233,8 @@ def comparison_rows(res, labels: dict) -> list[dict]:
             else mc_round(pub, None if exact else chosen.get("published_moe_mcse")),
             "coverage": coverage_cell(chosen["coverage"], chosen["coverage_mcse"], chosen.get("replicates"), exact),
             "status": role or ("" if not goals else "; ".join(w.removeprefix("its ") for _, w in misses) if misses
-                               else "too close to the goal to call" if close else "meets the goal"),
+                               else "too close to call: " + "; ".join(w.removeprefix("its ") for _, w in close)
+                               if close else "meets the goal"),
             "role": role,
         })
     return out

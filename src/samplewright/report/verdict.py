@@ -20,6 +20,8 @@ from __future__ import annotations
 
 import math
 
+from samplewright.config.goal import COVERAGE_TOLERANCE
+from samplewright.decision import evidence as ev
 from samplewright.designs.registry import DESIGN_CLASSES
 from samplewright.report.names import estimator_name, method_name, variance_name
 
@@ -27,11 +29,6 @@ from samplewright.report.names import estimator_name, method_name, variance_name
 EXACT_INTERVAL_LEVEL = 0.95
 #: methods whose sample is spread over the frame's strata (their size is said "in S strata")
 STRATIFIED_METHODS = ("stratified", "stratified_cluster")
-#: coverage tolerance when the recommendation names none ([goal] coverage_tolerance's default; common practice)
-DEFAULT_COVERAGE_TOLERANCE = 0.01
-#: Monte Carlo SEs by which a point must clear or miss a limit to be called either way in the comparison
-#: table (the z of the decision's three-state evidence rule, VERDICT_API)
-CLEAR_Z = 2.0
 
 
 # ------------------------------------------------------------------ numbers
@@ -353,19 +350,20 @@ def coverage_tolerance(rec: dict | None) -> float:
     """How far below nominal a coverage may fall: recommendation.json ``coverage_tolerance``, else the
     default of VERDICT_API (0.01, one percentage point; common practice)."""
     t = (rec or {}).get("coverage_tolerance")
-    return float(t) if _finite(t) else DEFAULT_COVERAGE_TOLERANCE
+    return float(t) if _finite(t) else COVERAGE_TOLERANCE  # [goal]'s default when the run names none
 
 
 def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels: dict,
-               z: float = 0.0) -> list[tuple[float, str]]:
-    """(relative shortfall, words) of each criterion a summary row misses by more than ``z`` Monte Carlo SEs
-    (0: as measured; a negative ``z`` also counts the points too close to their limit to call); empty when
-    it meets them all."""
+               counted=(ev.NOT_MET, ev.UNDECIDED)) -> list[tuple[float, str]]:
+    """(relative shortfall, words) of each criterion of a summary row whose state by the decision's evidence
+    rule (:mod:`samplewright.decision.evidence`) is in ``counted``: by default every criterion not met;
+    ``(NOT_MET,)`` only those clearly missed.  Empty when the row meets every criterion."""
     out = []
+    exact = not _finite(row.get("replicates")) or bool(row.get("exact"))
 
     def mc(key):
         m = row.get(key)
-        return z * float(m) if _finite(m) else 0.0
+        return 0.0 if exact or not _finite(m) else float(m)
 
     unit = unit_of(labels, row.get("variable"))
     g = _matching_goal({"variable": row.get("variable"), "domain": None}, goals) or {}
@@ -374,20 +372,31 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
         goal_moe = float(g["relative_moe"]) * abs(float(row["truth"]))
     if _finite(goal_moe):
         for key, what in (("published_moe", "published margin"), ("moe", "achieved margin")):
-            if _finite(row.get(key)) and float(row[key]) - mc(key + "_mcse") > float(goal_moe):
-                out.append((float(row[key]) / float(goal_moe) - 1,
-                            f"its {what} ±{with_unit(mc_round(row[key], row.get(key + '_mcse')), unit)} is above "
-                            f"the goal ±{with_unit(num(goal_moe), unit)}"))
+            if not _finite(row.get(key)):
+                continue
+            v, m = float(row[key]), mc(key + "_mcse")
+            if int(ev.margin_code(v, m, v, m, float(goal_moe))) in counted:
+                out.append((v / float(goal_moe) - 1,
+                            f"its {what} ±{with_unit(mc_round(v, row.get(key + '_mcse')), unit)} is "
+                            f"{'above' if v > float(goal_moe) else 'too close to call against'} the goal "
+                            f"±{with_unit(num(goal_moe), unit)}"))
     budget = next((x.get("budget") for x in goals if x.get("budget") is not None), None)
-    if _finite(budget) and _finite(row.get("mean_cost")) and float(row["mean_cost"]) - mc("cost_mcse") > float(budget):
-        out.append((float(row["mean_cost"]) / float(budget) - 1,
-                    f"its expected cost {money(row['mean_cost'], labels)} is above the budget "
-                    f"{money(budget, labels)}"))
+    if _finite(budget) and _finite(row.get("mean_cost")):
+        cost = float(row["mean_cost"])
+        if int(ev.cost_code(cost, mc("cost_mcse"), float(budget))) in counted:
+            out.append((cost / float(budget) - 1,
+                        f"its expected cost {money(cost, labels)} is "
+                        f"{'above' if cost > float(budget) else 'too close to call against'} the budget "
+                        f"{money(budget, labels)}"))
     floor = nominal - tolerance
-    if _finite(row.get("coverage")) and float(row["coverage"]) + mc("coverage_mcse") < floor:
-        out.append(((floor - float(row["coverage"])) / floor,
-                    f"its intervals held the true value in {percent(row['coverage'], row.get('coverage_mcse'))} "
-                    f"of samples against the promised {100 * nominal:g} %"))
+    if _finite(row.get("coverage")):
+        c = float(row["coverage"])
+        R = int(row["replicates"]) if not exact else 1
+        if int(ev.coverage_code(c, mc("coverage_mcse"), R, nominal, tolerance, exact)) in counted:
+            out.append(((floor - c) / floor,
+                        f"its intervals held the true value in {percent(c, row.get('coverage_mcse'))} "
+                        f"of samples against the promised {100 * nominal:g} % (less the tolerance "
+                        f"{100 * tolerance:g} %)"))
     return out
 
 
