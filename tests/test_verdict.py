@@ -407,3 +407,16 @@ def test_the_comparison_table_judges_points_by_the_decision_evidence_rule():
     assert V.shortfalls(row, goals, 0.95, 0.01, V.labels_of(None), (NOT_MET,)) == []
     row.update(replicates=5000)  # 5,000 of 5,000: the exact bound is 0.9991, so coverage is met
     assert V.shortfalls(row, goals, 0.95, 0.01, V.labels_of(None)) == []
+
+
+def test_between_sizes_sentences_say_they_are_interpolated():
+    # the fitted MSE = a/n + b (decision/frontier.py) puts the margin goal at n = 314.2: a size below the pick's
+    # 400 that would meet it, rounded up; a curve of another estimator says nothing about this pick
+    pick = {"design": "srs", "estimator": "ht", "variance": "psu", "size": 400, "variable": "y"}
+    row = {"design": "srs", "estimator": "ht", "variance": "psu", "coverage_acceptable_at_every_size": True,
+           "size_for_moe": 314.2, "cost_for_moe": 3142.0, "moe_basis": "interpolated"}
+    rec = {"cheapest_meeting_moe": pick, "best_within_budget": None, "interpolated": [row]}
+    (text,) = V.between_sizes_sentences(rec, V.labels_of(None))
+    assert "about 315" in text and "3,142" in text and "not rehearsed" in text
+    rec["interpolated"] = [{**row, "estimator": "hajek"}]
+    assert V.between_sizes_sentences(rec, V.labels_of(None)) == []

@@ -35,10 +35,8 @@ import pandas as pd
 from samplewright.config.goal import Goal
 from samplewright.decision import evidence as ev
 from samplewright.decision.frontier import interpolate_goal
-from samplewright.designs import size_words
 from samplewright.evaluation.measures import moe_mcse
 from samplewright.evaluation.normal import normal_quantile
-from samplewright.evaluation.stopping import replicate_counts
 
 PICK_KEYS = ("design", "method", "size", "estimator", "variable", "mean_n", "mean_cost", "p90_cost", "moe",
              "moe_mcse", "empirical_se", "rmse", "coverage", "coverage_mcse", "replicates", "published_moe",
@@ -276,7 +274,6 @@ def recommend(front: pd.DataFrame, goals, nominal: float, domain_column: str | N
         "margin_rule": (f"moe = {float(s.z[0]):.4f} x rmse (normal quantile at {_conf(first, nominal):g}) and the "
                         f"published margin (mean CI half-width) both within the goal by {ev.EVIDENCE_Z:g} MCSE"),
     }
-    rec["statement"] = statement(rec, pts, nominal)
     return rec
 
 
@@ -398,71 +395,3 @@ def _reason(i: int, b: Board, s: Setting, codes: dict) -> str:
         word = "above" if codes["cost"][i] == ev.NOT_MET else "undecided against"
         parts.append(f"mean cost {_money(b.cost[i])} {word} the budget {_money(s.budget)}")
     return "; ".join(parts) if parts else "meets the goal but another point is preferred by the pick rule"
-
-
-def _describe(p: dict) -> str:
-    cost = f"mean cost {_money(p['mean_cost'])}"
-    if p["p90_cost"] > p["mean_cost"] * (1 + 1e-9):
-        cost += f" (90% of rehearsals at most {_money(p['p90_cost'])})"
-    size = size_words(p["method"], p["size"], p.get("mean_n"))
-    return (f"'{p['design']}' ({p['method']}, {p['estimator']} estimator) with {size}: margin of "
-            f"error +-{_num4(p['moe'])} (Monte Carlo SE {_num4(p['moe_mcse'])}), published +-"
-            f"{_num4(p['published_moe'])}, {p['coverage']:.1%} of intervals held the true value, {cost}")
-
-
-def statement(rec: dict, pts: pd.DataFrame, nominal: float) -> str:
-    """A short plain-language account of the pick and its evidence, for a memo."""
-    g = rec["goal"]
-    conf = g["confidence"]
-    lines = []
-    want = []
-    if g["moe_goal"] is not None:
-        want.append(f"a margin of error of at most +-{_num4(g['moe_goal'])} at {conf:.0%} confidence")
-    if g["budget"] is not None:
-        want.append(f"a budget of {_money(g['budget'])}")
-    lines.append(f"Goal for the mean of '{g['output']}': {' and '.join(want)}.")
-    c, b = rec["cheapest_meeting_moe"], rec["best_within_budget"]
-    if g["moe_goal"] is not None:
-        if c is not None:
-            lines.append(f"Cheapest design meeting the margin: {_describe(c)}.")
-        else:
-            lines.append("No rehearsed design and size is shown to meet the margin with intervals that hold.")
-    if g["budget"] is not None:
-        if b is not None:
-            tail = ""
-            if b["p90_cost"] > g["budget"]:
-                tail = " Its cost varies from sample to sample and exceeds the budget in over 10% of rehearsals."
-            lines.append(f"Most precise within the budget: {_describe(b)}.{tail}")
-        else:
-            lines.append("No rehearsed design and size is shown to fit the budget with intervals that hold.")
-    bad = [p for p in rec["passed_over"] if "intervals under-cover" in p["reason"]]
-    if bad:
-        names = sorted({p["design"] for p in bad})
-        lines.append(f"Passed over because their confidence intervals under-cover (below {nominal:.0%} by more "
-                     f"than the tolerance of {rec['coverage_tolerance']:.1%}, beyond Monte Carlo error) at one or "
-                     f"more sizes: {', '.join(repr(n) for n in names)}.")
-    if rec["undecided"]:
-        names = sorted({u["design"] for u in rec["undecided"]})
-        lines.append(f"Not yet decided with the replicates run (more replicates would settle them): "
-                     f"{', '.join(repr(n) for n in names)}.")
-    for row in rec["interpolated"]:
-        if not row["coverage_acceptable_at_every_size"]:
-            continue
-        if c is not None and row["design"] == c["design"] and row["estimator"] == c["estimator"] \
-                and row.get("size_for_moe") is not None and row["moe_basis"] == "interpolated":
-            need = math.ceil(row["size_for_moe"])
-            if need < c["size"]:
-                lines.append(f"Between the rehearsed sizes, '{row['design']}' would meet the margin at about "
-                             f"{need} (cost about {_money(row['cost_for_moe'])}); this is interpolated from a fit "
-                             f"of MSE = a/n + b, not simulated.")
-        if b is not None and row["design"] == b["design"] and row["estimator"] == b["estimator"] \
-                and row.get("size_for_budget") is not None and row["budget_basis"] == "interpolated" \
-                and row.get("moe_for_budget") is not None and math.floor(row["size_for_budget"]) > b["size"]:
-            buy = math.floor(row["size_for_budget"])
-            lines.append(f"Between the rehearsed sizes, the budget would buy about {buy} with '{row['design']}' "
-                         f"(margin about +-{_num4(row['moe_for_budget'])}); this is interpolated from a fit of "
-                         f"MSE = a/n + b, not simulated.")
-    lines.append(f"Evidence: {replicate_counts(pts)} rehearsed samples per design and size drawn from the frame; "
-                 f"the margin is {normal_quantile(conf):.2f} x the root mean square error of the estimates around the "
-                 f"frame's true mean.")
-    return " ".join(lines)

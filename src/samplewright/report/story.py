@@ -19,6 +19,7 @@ from samplewright.report.names import estimator_name, parameter_text, variance_n
 from samplewright.report.table import compact_columns, compact_rows, coverage_cell, default_rows, with_moe_mcse
 from samplewright.report.verdict import (
     analysis_text,
+    between_sizes_sentences,
     cost_header,
     coverage_text,
     coverage_tolerance,
@@ -153,6 +154,7 @@ def recommendation_context(res, labels: dict) -> dict | None:
         "goal_variable": goal.get("variable"),
         "untrusted": _untrusted(passed),
         "rules": [str(rec[k]) for k in ("coverage_rule", "margin_rule") if rec.get(k)],
+        "between": between_sizes_sentences(rec, labels),
     }
 
 

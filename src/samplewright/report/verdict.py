@@ -537,3 +537,38 @@ def key_numbers(rec: dict | None, info: dict | None = None) -> list[tuple[str, s
     if isinstance(ev, dict) and ev:
         rows.append(("Evidence", ", ".join(f"{CRITERIA.get(c, c)} {s}" for c, s in ev.items())))
     return rows
+
+
+def _same_analysis(p, key: tuple) -> bool:
+    """Whether pick ``p`` is the design, estimator and variance formula ``key``."""
+    return isinstance(p, dict) and (p.get("design"), p.get("estimator"), p.get("variance")) == key
+
+
+def between_sizes_sentences(rec: dict | None, labels: dict) -> list[str]:
+    """What the fitted curves say between the rehearsed sizes of the picks (recommendation ``interpolated``):
+    a smaller size that would meet the margin, or a larger one the budget would buy.  Each is interpolated
+    from a fit of MSE = a/n + b (decision/frontier.py), not rehearsed, and says so."""
+    if not isinstance(rec, dict):
+        return []
+    c, b = rec.get("cheapest_meeting_moe"), rec.get("best_within_budget")
+    out = []
+    for row in rec.get("interpolated") or []:
+        if not isinstance(row, dict) or not row.get("coverage_acceptable_at_every_size"):
+            continue
+        key = (row.get("design"), row.get("estimator"), row.get("variance"))
+        if _same_analysis(c, key) and _finite(row.get("size_for_moe")) and row.get("moe_basis") == "interpolated":
+            need = math.ceil(float(row["size_for_moe"]))
+            if need < int(c["size"]):
+                out.append(f"Between the rehearsed sizes, '{row['design']}' would meet the margin at about "
+                           f"{need:,} (expected cost about {money(row.get('cost_for_moe'), labels)}): interpolated "
+                           f"from a fit of MSE = a/n + b, not rehearsed.")
+        buys = _finite(row.get("size_for_budget")) and row.get("budget_basis") == "interpolated"
+        if _same_analysis(b, key) and buys and _finite(row.get("moe_for_budget")) \
+                and math.floor(float(row["size_for_budget"])) > int(b["size"]):
+            unit = unit_of(labels, b.get("variable"))
+            out.append(f"Between the rehearsed sizes, the budget would buy about "
+                       f"{math.floor(float(row['size_for_budget'])):,} with '{row['design']}' (achieved margin about "
+                       f"±{with_unit(num(row['moe_for_budget']), unit)}): interpolated from a fit of MSE = a/n + b, "
+                       f"not rehearsed.")
+    return out
+
