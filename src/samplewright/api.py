@@ -475,7 +475,7 @@ def _settle(plan: RunPlan, scenario: Scenario, res: RunResult, cap: int, progres
     truth = np.array([truths[v] for v in names], dtype=float)
     for _ in range(SETTLE_ROUNDS):
         rec = res.recommendation
-        if rec is None or not rec["undecided"]:
+        if rec is None or not settle.settle_targets(rec, plan.confidence):
             break
         counts = res.replicates.groupby(["design", "size"], sort=False)["replicate"].nunique()
         todo = [(ci, cell) for ci, cell in enumerate(plan.cells)

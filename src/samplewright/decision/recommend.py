@@ -311,10 +311,11 @@ def pick_dict(front: pd.DataFrame, rows: np.ndarray, b: Board, s: Setting, codes
         p90 = front["published_moe_p90"].to_numpy(dtype=float)[rows[g, i]] if rows[g, i] >= 0 else np.nan
         has = np.isfinite(s.moe_goal[g])
         out["goals"].append({
-            "variable": goal_dict(s.goals[g], s, g)["variable"], "domain": s.goals[g].domain,
-            "moe_goal": _num(s.moe_goal[g]), "moe": _num(b.moe[g, i]), "published_moe": _num(b.published[g, i]),
-            "published_moe_p90": _num(p90 * s.scale[g]), "coverage": _num(b.coverage[g, i]),
-            "coverage_mcse": _num(b.coverage_mcse[g, i]),
+            "variable": goal_dict(s.goals[g], s, g)["variable"], "output": s.variables[g],
+            "domain": s.goals[g].domain, "moe_goal": _num(s.moe_goal[g]), "moe": _num(b.moe[g, i]),
+            "moe_mcse": _num(b.moe_mcse[g, i]), "published_moe": _num(b.published[g, i]),
+            "published_moe_mcse": _num(b.published_mcse[g, i]), "published_moe_p90": _num(p90 * s.scale[g]),
+            "coverage": _num(b.coverage[g, i]), "coverage_mcse": _num(b.coverage_mcse[g, i]),
             "evidence": {"coverage": ev.state(codes["coverage"][g, i]),
                          "margin": ev.state(codes["margin"][g, i]) if has else None,
                          "cost": out["evidence"]["cost"]}})

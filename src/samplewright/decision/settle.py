@@ -1,5 +1,9 @@
 """More replicates for the undecided points that could change the pick, until they are decided.
 
+The pick itself is settled too when one of its criteria is met by the evidence rule's 2 MCSEs but not by
+:data:`SETTLE_Z` (:func:`fragile_pick`): otherwise a pick just inside a limit would hold in only about
+half of the bootstrap's rounds, and more evidence would move it.
+
 After the first decision, every point listed in the recommendation's ``undecided`` (it would beat
 the pick were its undecided criteria met) gets more blocks of replicates in its design x size
 cell, in block order, with the seeds a longer run would use (the block index continues), until
@@ -207,11 +211,39 @@ def starting_sums(reps: pd.DataFrame, cell, names, truth: np.ndarray) -> Sums:
     return sums
 
 
+def fragile_pick(rec: dict, nominal: float) -> list[dict]:
+    """The pick's own criteria that its evidence meets by the rule's 2 MCSEs but not by :data:`SETTLE_Z`, as
+    entries like ``undecided``'s: a pick that close to a limit could change with more evidence (a bootstrap
+    round moves each estimate by about one MCSE), so its cell is settled like an undecided point's."""
+    pick = rec.get(rec.get("pick") or "")
+    if not isinstance(pick, dict):
+        return []
+    base = {k: pick[k] for k in ("design", "size", "estimator", "variance")}
+    tolerance = float(rec["coverage_tolerance"])
+    out = []
+    for g in pick["goals"]:
+        c, m, R = g["coverage"], g["coverage_mcse"], int(pick["replicates"])
+        if None not in (c, m) and ev.coverage_code(c, m, R, nominal, tolerance, z=SETTLE_Z) == ev.UNDECIDED:
+            out.append({**base, "variable": g["output"], "criterion": "coverage", "limit": nominal - tolerance})
+        goal, margins = g["moe_goal"], (g["moe"], g["moe_mcse"], g["published_moe"], g["published_moe_mcse"])
+        if goal is not None and None not in margins and ev.margin_code(*margins, goal, SETTLE_Z) == ev.UNDECIDED:
+            out.append({**base, "variable": g["output"], "criterion": "margin", "limit": goal})
+    budget = rec["goals"][0].get("budget") if rec["goals"] else None
+    if budget is not None and ev.cost_code(pick["mean_cost"], pick["cost_mcse"], budget, SETTLE_Z) == ev.UNDECIDED:
+        out.append({**base, "variable": pick["goals"][0]["output"], "criterion": "cost", "limit": budget})
+    return out
+
+
+def settle_targets(rec: dict, nominal: float) -> list[dict]:
+    """What the settling phase works on: the recommendation's undecided points and a fragile pick."""
+    return list(rec["undecided"]) + fragile_pick(rec, nominal)
+
+
 def criteria_of(rec: dict, cell, names, nominal: float) -> list[Criterion]:
-    """The undecided criteria the recommendation lists for ``cell`` (its design at its size)."""
+    """The criteria :func:`settle_targets` lists for ``cell`` (its design at its size)."""
     out = []
     conf = {g["output"]: g["confidence"] for g in rec["goals"]}
-    for u in rec["undecided"]:
+    for u in settle_targets(rec, nominal):
         if u["design"] != cell.design.label or u["size"] != int(cell.design.size):
             continue
         if u["criterion"] == "cost":
