@@ -69,18 +69,15 @@ class Stratified(Design):
 
     def _cut_column(self, frame) -> tuple[str, np.ndarray]:
         """The name and values of the column the boundaries cut."""
-        size_col = frame.roles.get("size")
-        col = self.stratify_by or size_col
+        col = self.stratify_by or frame.roles.get("size")
         if col is None:
             raise InputError(f"design {self.label!r}: boundaries need a numeric column to cut: set size = "
                              f"\"column\" in [frame], or stratify_by = one of the frame's auxiliary columns")
-        if col == size_col:
-            return col, frame.size
-        if col in frame.aux_names:
-            return col, frame.aux[:, frame.aux_names.index(col)]
-        names = [c for c in (size_col, *frame.aux_names) if c]
-        raise InputError(f"design {self.label!r}: stratify_by = {col!r} is neither the frame's size column nor "
-                         f"an auxiliary column ({', '.join(names) or 'none set in [frame]'})")
+        values = frame.numeric_column(col)
+        if values is None:
+            raise InputError(f"design {self.label!r}: stratify_by = {col!r} is neither the frame's size column "
+                             f"nor an auxiliary column ({', '.join(frame.numeric_names) or 'none set in [frame]'})")
+        return col, values
 
     def strata_frame(self, frame):
         """The frame itself, or, with ``boundaries``, a copy whose strata are the bands they cut."""

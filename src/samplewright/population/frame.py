@@ -158,6 +158,20 @@ class Frame:
             cs[self.cluster] = self.stratum
             object.__setattr__(self, "cluster_stratum", cs)
 
+    def numeric_column(self, name: str | None) -> np.ndarray | None:
+        """The values of the size column or of the auxiliary column called ``name`` (None when it is neither):
+        the numeric columns a design may cut into bands."""
+        if name is not None and name == self.roles.get("size"):
+            return self.size
+        if name in self.aux_names:
+            return self.aux[:, self.aux_names.index(name)]
+        return None
+
+    @property
+    def numeric_names(self) -> list[str]:
+        """The names :meth:`numeric_column` knows: the size column, then the auxiliary columns."""
+        return [c for c in (self.roles.get("size"), *self.aux_names) if c]
+
     def gather(self, units: np.ndarray) -> np.ndarray:
         """Rows of ``values`` for an integer array of unit indices, shape ``units.shape + (K,)``.
 

@@ -259,18 +259,15 @@ def _smallest_meeting(variance, lo: int, hi: int, target: float) -> int | None:
 def _stratifier(frame, name):
     """The column the bands cut: ``name`` (the size column or an auxiliary), else the size column, else the
     first auxiliary; (None, None) when there is none."""
-    size_col = frame.roles.get("size")
     if name is None:
-        name = size_col or (frame.aux_names[0] if frame.aux_names else None)
+        name = (frame.numeric_names or [None])[0]  # the size column, else the first auxiliary
     if name is None:
         return None, None
-    if name == size_col:
-        return name, frame.size
-    if name in frame.aux_names:
-        return name, frame.aux[:, frame.aux_names.index(name)]
-    names = [c for c in (size_col, *frame.aux_names) if c]
-    raise InputError(f"propose: stratify_by {name!r} is neither the frame's size column nor an auxiliary "
-                     f"column ({', '.join(names) or 'none set in [frame]'})")
+    values = frame.numeric_column(name)
+    if values is None:
+        raise InputError(f"propose: stratify_by {name!r} is neither the frame's size column nor an auxiliary "
+                         f"column ({', '.join(frame.numeric_names) or 'none set in [frame]'})")
+    return name, values
 
 
 def _allocations(frame, cost, design) -> list[str]:
