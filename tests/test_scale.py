@@ -380,6 +380,48 @@ def test_loky_workers_give_the_same_numbers(monkeypatch):
     pd.testing.assert_frame_equal(local.replicates, spawned.replicates)
 
 
+FAULTS = """
+import json, resource
+import numpy as np
+from samplewright.api import RunOptions
+from samplewright.simulation import engine
+from samplewright.simulation.plan import build_plan
+from samplewright.simulation.scenario import scenario_from_dict
+doc = {"seed": 5, "replicates": 2000, "block_size": 500, "frame": {"synthetic": {"units": 200000, "seed": 1}},
+       "design": [{"label": "srs", "method": "srs", "n": 1000}]}
+plan = build_plan(scenario_from_dict(doc), RunOptions())
+cells = list(plan.cells)
+tasks = [engine.BlockTask(0, b, b * 500, 500, engine.block_seed(plan.seed, cells[0], b)) for b in range(4)]
+def faults(fn):
+    fn(tasks[0])  # the first block grows the heap either way
+    before = resource.getrusage(resource.RUSAGE_SELF).ru_minflt
+    out = [fn(t) for t in tasks[1:]]
+    return resource.getrusage(resource.RUSAGE_SELF).ru_minflt - before, out
+plain, a = faults(lambda t: engine.run_task(plan.frame, cells, t, plan.confidence, plan.cost))
+roomy, b = faults(lambda t: engine.run_dask_task(plan.frame, cells, t, plan.confidence, plan.cost))
+same = all(np.array_equal(x.estimate, y.estimate) and np.array_equal(x.se, y.se) for x, y in zip(a, b))
+print(json.dumps({"plain": plain, "roomy": roomy, "same": same}))
+"""
+
+
+def test_dask_task_keeps_its_freed_memory_under_the_dask_worker_allocator_setting():
+    """A dask worker runs with MALLOC_TRIM_THRESHOLD_=65536 (dask's default environment for its
+    workers), which fixes glibc's mmap threshold at 128 KiB: each megabyte array of a block is then
+    mapped afresh and its pages fault in again.  run_dask_task keeps freed memory during a block:
+    far fewer page faults (the kernel's own count, ru_minflt), the same numbers."""
+    import os
+    import subprocess
+    import sys
+
+    env = {**os.environ, "MALLOC_TRIM_THRESHOLD_": "65536"}
+    env.pop("MALLOC_MMAP_THRESHOLD_", None)
+    out = subprocess.run([sys.executable, "-c", FAULTS], env=env, capture_output=True, text=True, check=True)
+    got = json.loads(out.stdout.strip().splitlines()[-1])
+    assert got["same"]
+    assert got["plain"] > 1000  # three blocks of 500 x 1000 positions: thousands of pages mapped afresh
+    assert got["roomy"] < got["plain"] / 10, got
+
+
 @pytest.mark.parametrize("with_cost", [False, True])
 def test_gather_equals_plain_indexing(with_cost):
     """Frame.gather (one-column or padded-row path) gives exactly numpy's values[units]."""
