@@ -155,6 +155,15 @@ def _pick(table: np.ndarray, codes: np.ndarray) -> np.ndarray:
     return table[b, codes]
 
 
+def _unit_sums(a: np.ndarray) -> np.ndarray:
+    """Sums over the units axis of ``a`` (B, m, k, V) -> (B, m, V), adding the k units one after
+    another: the order of ``a.sum(axis=2)``, without its cost of one reduction loop per position."""
+    out = a[:, :, 0].copy()
+    for j in range(1, a.shape[2]):
+        out += a[:, :, j]
+    return out
+
+
 def rake(weights: np.ndarray, codes, controls, tol: float = TOLERANCE, max_iter: int = MAX_ITER):
     """Iterative proportional fitting of weights (B, L) to margins, every replicate at once.
 
@@ -286,9 +295,10 @@ class ResolvedAdjustment:
         flat = (np.arange(B) * n_cells).reshape(B, 1, 1) + cell  # each unit's row of the (B * cells) tables
         V = y.shape[-1]
         w_cell = np.bincount(flat.ravel(), weights=wr.ravel(), minlength=B * n_cells).reshape(B, n_cells)
-        # every variable in one pass over the contiguous (B, m, k, V) products
-        wy_cell = np.bincount((flat[..., None] * V + np.arange(V)).ravel(), weights=(wr[..., None] * y).ravel(),
-                              minlength=B * n_cells * V).reshape(B, n_cells, V)
+        wy_cell = np.empty((B, n_cells, V))
+        for v in range(V):  # a cell's sum adds its units in their order, whatever the number of variables
+            wy_cell[..., v] = np.bincount(flat.ravel(), weights=(wr * y[..., v]).ravel(),
+                                          minlength=B * n_cells).reshape(B, n_cells)
         g_cell, _, ok = rake(w_cell, cell_codes, self.controls)
         total = float(self.controls[0].sum())
         empty = np.zeros(B, dtype=bool)
@@ -304,7 +314,9 @@ class ResolvedAdjustment:
         residual = np.take(fit.reshape(B * n_cells, V), flat, axis=0)
         np.subtract(y, residual, out=residual)
         residual *= g_unit[..., None]
-        return residual.sum(axis=2) + t[:, None, :] * share[..., None], ok
+        u = _unit_sums(residual)
+        u += t[:, None, :] * share[..., None]
+        return u, ok
 
     def _fitted(self, g, gy, codes):
         """Fitted values of y from the g-weighted regression on every margin's indicators.
