@@ -57,3 +57,11 @@ ESTIMATORS = {name: partial(function, variance=block_variance) for name, functio
     ("greg", auxiliary.greg),
     ("poststrat", auxiliary.poststrat),
 )}
+
+
+def value_columns(estimators, layout) -> int | None:
+    """How many leading value columns of a block ``estimators`` read besides the count and cost:
+    the targets alone for Horvitz-Thompson and Hajek on a frame without domains, else None (all)."""
+    if layout is not None and not layout.D and all(e in ("ht", "hajek") for e in estimators):
+        return layout.V
+    return None

@@ -239,13 +239,16 @@ class ResolvedAdjustment:
     sizes: tuple = ()  # number of categories of each
     controls: tuple = ()  # true population counts per category (poststrat, raking)
 
-    def apply(self, units, w, y, e, r, positions):
+    def apply(self, units, w, y, e, r, positions, keep: int | None = None):
         """Adjusted PSU sums for one block: (u (B, m, V), count (B, m), failed (B,)).
 
         ``units`` (B, m, k) listed-unit indices (0 where not a unit), ``w`` base weights,
         ``y`` values (B, m, k, V), ``e``/``r`` eligible and responding units,
         ``positions`` (B, m) the PSU positions the estimators count (for a two-stage block, each
-        unit's share of its cluster: ``two_stage_variance.slot_shares``).
+        unit's share of its cluster: ``two_stage_variance.slot_shares``).  ``keep``: raking
+        returns u of the first ``keep`` variables only (the ones the estimators read), with the
+        same numbers as in the full u (its fit is still solved for every variable); the other
+        adjustments return every variable.
         """
         we, wr = w * e, w * r
         B = w.shape[0]
@@ -254,7 +257,7 @@ class ResolvedAdjustment:
         n_pos = np.maximum(positions.sum(axis=1), 1)[:, None]
         share = positions / n_pos  # spreads a replicate constant evenly over its positions
         if self.method == "raking":
-            u, ok = self._raked(units, wr, y, share)
+            u, ok = self._raked(units, wr, y, share, y.shape[-1] if keep is None else keep)
             return u, float(self.controls[0].sum()) * share, ~ok
         G = self.sizes[0]
         c = self.codes[0][units]
@@ -278,8 +281,8 @@ class ResolvedAdjustment:
         u = ((wr * _pick(a, c))[..., None] * (y - yb)).sum(axis=2) + t[:, None, :] * share[..., None]
         return u, float(N.sum()) * share, failed
 
-    def _raked(self, units, wr, y, share):
-        """Raking on the cells of the margins' cross-classification: (u (B, m, V), converged (B,)).
+    def _raked(self, units, wr, y, share, keep):
+        """Raking on the cells of the margins' cross-classification: (u (B, m, keep), converged (B,)).
 
         Every raking step multiplies a unit's weight by factors that depend on its cell only, so
         the raked weight is wr_k f_c(k): the respondents are collapsed once to cell sums of wr and
@@ -311,11 +314,11 @@ class ResolvedAdjustment:
         t = gy_cell.sum(axis=1)  # (B, V)
         fit = self._fitted(g_cell, gy_cell, cell_codes)  # (B, cells, V)
         g_unit = wr * np.take(factor.ravel(), flat)
-        residual = np.take(fit.reshape(B * n_cells, V), flat, axis=0)
-        np.subtract(y, residual, out=residual)
+        residual = np.take(np.ascontiguousarray(fit[..., :keep]).reshape(B * n_cells, keep), flat, axis=0)
+        np.subtract(y[..., :keep], residual, out=residual)
         residual *= g_unit[..., None]
         u = _unit_sums(residual)
-        u += t[:, None, :] * share[..., None]
+        u += t[:, None, :keep] * share[..., None]
         return u, ok
 
     def _fitted(self, g, gy, codes):

@@ -26,7 +26,7 @@ import pandas as pd
 
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.registry import ESTIMATORS
+from samplewright.estimation.registry import ESTIMATORS, value_columns
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
 from samplewright.population.frame import Frame
@@ -181,6 +181,7 @@ def _adjusted_estimates(fw: Fieldwork, frame: Frame, sample: SampleBlock, units,
     inv = np.where(wb > 0, 1.0 / np.where(wb > 0, wb, 1.0), 0.0)
     gather = getattr(frame, "gather", None)  # the padded-row gather where the frame has it
     V = frame.values.shape[1] - 2  # every value column but count and cost
+    keep = value_columns(estimators, frame.layout)  # None: the estimators read every column
     positions = np.ones((B, m), dtype=bool) if sample.mask is None else sample.mask
     if sample.psu is not None:  # two stages: the positions are units, counted as shares of their cluster
         positions = slot_shares(sample)
@@ -191,10 +192,10 @@ def _adjusted_estimates(fw: Fieldwork, frame: Frame, sample: SampleBlock, units,
     for s in _slices(B, units[0].size):
         rows = gather(units[s]) if gather is not None else frame.values[units[s]]
         y = rows[..., :V]
-        u, cnt, failed[s] = fw.adjustment.apply(units[s], w[s], y, e[s], r[s], positions[s])
+        u, cnt, failed[s] = fw.adjustment.apply(units[s], w[s], y, e[s], r[s], positions[s], keep)
         real.append(_estimate(adjusted.replicates(s, _adjusted_sums(u, cnt, inv[s])), frame, estimators, confidence))
         if not unchanged:
-            uf, cntf, _ = fw.adjustment.apply(units[s], w[s], y, e[s], e[s], positions[s])
+            uf, cntf, _ = fw.adjustment.apply(units[s], w[s], y, e[s], e[s], positions[s], keep)
             full.append(_estimate(adjusted.replicates(s, _adjusted_sums(uf, cntf, inv[s])), frame, estimators,
                                   confidence))
     joined = [np.concatenate(parts, axis=1) for parts in zip(*real)]
