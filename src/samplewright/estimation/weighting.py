@@ -247,7 +247,7 @@ class ResolvedAdjustment:
         ``positions`` (B, m) the PSU positions the estimators count (for a two-stage block, each
         unit's share of its cluster: ``two_stage_variance.slot_shares``).  ``keep``: raking
         returns u of the first ``keep`` variables only (the ones the estimators read), with the
-        same numbers as in the full u (its fit is still solved for every variable); the other
+        same numbers as in the full u (its fit keeps the width of all V, the others zero); the other
         adjustments return every variable.
         """
         we, wr = w * e, w * r
@@ -298,8 +298,11 @@ class ResolvedAdjustment:
         flat = (np.arange(B) * n_cells).reshape(B, 1, 1) + cell  # each unit's row of the (B * cells) tables
         V = y.shape[-1]
         w_cell = np.bincount(flat.ravel(), weights=wr.ravel(), minlength=B * n_cells).reshape(B, n_cells)
-        wy_cell = np.empty((B, n_cells, V))
-        for v in range(V):  # a cell's sum adds its units in their order, whatever the number of variables
+        # the cell tables and the fit keep every variable's column, zero past the kept ones, so the kept
+        # columns' numbers do not depend on how many are kept (a BLAS product may add in another order
+        # at another width); a cell's sum adds its units in their order, whatever the number of variables
+        wy_cell = np.zeros((B, n_cells, V))
+        for v in range(keep):
             wy_cell[..., v] = np.bincount(flat.ravel(), weights=(wr * y[..., v]).ravel(),
                                           minlength=B * n_cells).reshape(B, n_cells)
         g_cell, _, ok = rake(w_cell, cell_codes, self.controls)
