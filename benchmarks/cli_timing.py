@@ -57,22 +57,27 @@ def write_scenario(doc: dict, path: Path) -> Path:
 
 
 def run_cli(args: list[str], log: Path, python: list[str] | None = None) -> dict:
-    """``samplewright ARGS`` (or ``python`` + ARGS) in a child process: seconds start to exit, peak RSS.
+    """``samplewright ARGS`` (or ``python`` + ARGS) in a child process: seconds start to exit, peak RSS,
+    and the CPU seconds (user + system) of the child and the worker processes it waited for.
 
-    The child runs under ``/usr/bin/time -f %M``, whose own ``wait4`` reads the child's peak
-    resident memory: Linux carries the spawning process's high-water mark into a child
-    spawned from it, so this (large) process's own ``RUSAGE_CHILDREN`` would over-count.
-    The child's output goes to ``log``; a failing run raises with the log's tail.
+    The child runs under ``/usr/bin/time -f "%M %U %S"``, whose own ``wait4`` reads the child's
+    peak resident memory: Linux carries the spawning process's high-water mark into a child
+    spawned from it, so this (large) process's own ``RUSAGE_CHILDREN`` would over-count.  On a
+    busy shared machine wall time stretches while CPU time stays near what the work costs, so
+    both are kept.  The child's output goes to ``log``; a failing run raises with the log's tail.
     """
     rss = Path(str(log) + ".rss")
-    cmd = ["/usr/bin/time", "-f", "%M", "-o", str(rss), *(python or [sys.executable, "-m", "samplewright"]), *args]
+    cmd = ["/usr/bin/time", "-f", "%M %U %S", "-o", str(rss), *(python or [sys.executable, "-m", "samplewright"]),
+           *args]
     with open(log, "w") as out:
         t = time.perf_counter()
         code = subprocess.run(cmd, check=False, stdout=out, stderr=subprocess.STDOUT).returncode
         seconds = time.perf_counter() - t
     if code != 0:
         raise RuntimeError(f"{' '.join(cmd)} exited {code}\n{Path(log).read_text()[-2000:]}")
-    return {"seconds": round(seconds, 3), "peak_rss_mib": round(int(rss.read_text().split()[-1]) / 1024, 1)}
+    peak, user, system = rss.read_text().split()[-3:]
+    return {"seconds": round(seconds, 3), "peak_rss_mib": round(int(peak) / 1024, 1),
+            "cpu_seconds": round(float(user) + float(system), 2)}
 
 
 def save_results(res: dict, out) -> Path:

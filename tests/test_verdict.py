@@ -8,6 +8,7 @@ checked whether or not the decision already writes them; values are invented for
 from __future__ import annotations
 
 import json
+import math
 from html.parser import HTMLParser
 
 import numpy as np
@@ -80,15 +81,20 @@ def test_costs_have_thousands_separators_and_the_currency():
 @pytest.mark.parametrize("R", [200, 2000])
 def test_full_coverage_shows_its_exact_binomial_interval(R):
     # Clopper-Pearson interval of R successes in R trials, as scipy.stats computes it
+    # (beta quantiles from scipy.special here, from scipy.stats' own routine there: equal to 1e-12), and the
+    # closed form of R in R, lower bound (alpha / 2) ** (1 / R) (Clopper and Pearson 1934)
     ci = stats.binomtest(R, R).proportion_ci(method="exact")
-    assert V.coverage_interval(1.0, R) == (ci.low, ci.high)
+    assert V.coverage_interval(1.0, R) == pytest.approx((ci.low, ci.high), rel=1e-12)
+    assert V.coverage_interval(1.0, R)[0] == pytest.approx(0.025 ** (1 / R), rel=1e-12)
     text = V.coverage_text(1.0, 0.0, R)
     assert f"{100 * ci.low:.2f} to 100 %" in text and "(0.0)" not in text
     cell = coverage_cell(1.0, 0.0, R)
     assert cell.startswith("100 (") and "(0.0)" not in cell and V.num(100 * ci.low) in cell
     # zero coverage likewise: 0 of R
     ci0 = stats.binomtest(0, R).proportion_ci(method="exact")
-    assert V.coverage_interval(0.0, R) == (ci0.low, ci0.high)
+    # the closed form 1 - (alpha / 2) ** (1 / R) to rounding; binomtest's own root finder is within 1e-9 of it
+    assert V.coverage_interval(0.0, R) == pytest.approx((0.0, -math.expm1(math.log(0.025) / R)), rel=1e-12)
+    assert V.coverage_interval(0.0, R) == pytest.approx((ci0.low, ci0.high), rel=1e-9)
 
 
 # ------------------------------------------------------------------ the sentence

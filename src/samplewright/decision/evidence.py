@@ -31,7 +31,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from samplewright.evaluation import measures
 
@@ -58,17 +58,29 @@ def _decide(low, high, limit, below_is_good: bool):
     return np.where(low >= limit, MET, np.where(high < limit, NOT_MET, UNDECIDED))
 
 
-def clopper_pearson(hits, R, z: float = EVIDENCE_Z):
-    """Two-sided Clopper-Pearson interval of a binomial share at the level 2 Phi(z) - 1 (scipy.stats.beta).
+def binomial_interval(hits, R, level: float):
+    """Two-sided Clopper-Pearson interval of a binomial share at confidence ``level`` (Clopper and Pearson
+    1934): the beta quantiles, computed with scipy.special.betaincinv (what scipy.stats.beta.ppf calls, so a
+    run need not import scipy.stats; the tests compare with scipy.stats.binomtest).
 
     Returns (lower, upper); lower is 0 when hits is 0 and upper is 1 when hits is R.
     """
     hits, R = np.asarray(hits, dtype=float), np.asarray(R, dtype=float)
-    alpha = 2.0 * stats.norm.sf(z)
+    alpha = 1.0 - level
     with np.errstate(invalid="ignore"):
-        lo = np.where(hits > 0, stats.beta.ppf(alpha / 2, np.maximum(hits, 1e-300), R - hits + 1), 0.0)
-        hi = np.where(hits < R, stats.beta.ppf(1 - alpha / 2, hits + 1, np.maximum(R - hits, 1e-300)), 1.0)
+        lo = np.where(hits > 0, special.betaincinv(np.maximum(hits, 1e-300), R - hits + 1, alpha / 2), 0.0)
+        hi = np.where(hits < R, special.betaincinv(hits + 1, np.maximum(R - hits, 1e-300), 1 - alpha / 2), 1.0)
     return lo, hi
+
+
+def _tails(z: float) -> float:
+    """2 (1 - Phi(z)): the two tails the evidence rule's z leaves."""
+    return 2.0 * float(special.ndtr(-z))
+
+
+def clopper_pearson(hits, R, z: float = EVIDENCE_Z):
+    """:func:`binomial_interval` at the level 2 Phi(z) - 1 of the evidence rule's z."""
+    return binomial_interval(hits, R, 1.0 - _tails(z))
 
 
 def coverage_bounds(c, mcse, R, exact: bool = False, z: float = EVIDENCE_Z):
@@ -127,7 +139,7 @@ def coverage_replicates_to_decide(c: float, mcse: float, limit: float, R: int,
     clears the limit (lower bound (alpha/2)^(1/R) at c = 1, upper 1 - (alpha/2)^(1/R) at c = 0)."""
     if 0 < c < 1:
         return replicates_to_decide(c, mcse, limit, R, z)
-    alpha = 2.0 * stats.norm.sf(z)
+    alpha = _tails(z)
     far = limit if c >= 1 else 1.0 - limit  # the bound must pass this share
     if not 0 < far < 1:
         return None

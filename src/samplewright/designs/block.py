@@ -109,6 +109,32 @@ class SampleBlock:
             raise ValueError(f"variance formula {name!r} is not one of this block's {self.variances}")
         return dataclasses.replace(self, variance=name, **self.variants[name])
 
+    def replicates(self, rows: slice, sums: np.ndarray | None = None) -> SampleBlock:
+        """The block of replicates ``rows`` only (every per-replicate field sliced, each listed variance
+        formula's too), with ``sums`` in place of its own when given; the design constants are shared.
+
+        Examples
+        --------
+        >>> b = SampleBlock(sums=np.arange(12.0).reshape(3, 2, 2), weight=np.ones(2), psu_stratum=np.zeros(2, int),
+        ...                 fpc=np.ones(1), clusters=np.array([0.0, 1.0, 2.0]))
+        >>> part = b.replicates(slice(1, 3))
+        >>> part.B, part.clusters.tolist()
+        (2, [1.0, 2.0])
+        """
+        def cut(a):
+            return None if a is None else a[rows]
+
+        variants = None if self.variants is None else {
+            name: {k: cut(v) if k == "within_fpc" else v for k, v in fields.items()}
+            for name, fields in self.variants.items()}
+        return dataclasses.replace(
+            self, sums=self.sums[rows] if sums is None else sums,
+            weight=self.weight[rows] if np.ndim(self.weight) == 2 else self.weight,
+            clusters=self.clusters[rows], mask=cut(self.mask),
+            units=self.units[rows] if isinstance(self.units, np.ndarray) else cut(self.units),
+            cluster_cost=cut(self.cluster_cost), within_fpc=cut(self.within_fpc), list_order=cut(self.list_order),
+            variants=variants)
+
     def weighted(self, columns: slice | None = None) -> np.ndarray:
         """Estimated PSU totals of every value column (or of ``columns`` only), shape (B, m, K)."""
         sums = self.sums if columns is None else self.sums[..., columns]

@@ -75,11 +75,13 @@ def gram_pinv(M: np.ndarray, tol: float = RANK_TOL) -> tuple[np.ndarray, np.ndar
     (False, True, [0.0, 0.0, 0.0])
     """
     keep = independent_columns(M, tol)
-    out = np.linalg.pinv(M, hermitian=True)
     ev = np.linalg.eigvalsh(M)
     plain = keep.all(axis=1) & (ev[:, 0] > tol * ev[:, -1])
     if plain.all():
-        return out, plain
+        return np.linalg.pinv(M, hermitian=True), plain
+    out = np.empty_like(M)
+    if plain.any():  # each matrix is inverted on its own, so only the plain ones need the pseudo-inverse
+        out[plain] = np.linalg.pinv(M[plain], hermitian=True)
     bad = ~plain
     Mb, kb = M[bad], keep[bad]
     both = kb[:, :, None] & kb[:, None, :]

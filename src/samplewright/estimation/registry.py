@@ -68,3 +68,9 @@ def estimate_points(block: SampleBlock, estimators, variances, N: int, V: int, c
     numbers under every formula; the SEs and intervals are each formula's."""
     views = [block.with_variance(name) for name in variances]
     return [ESTIMATORS[e](view, N, V, confidence, layout) for e in estimators for view in views]
+def value_columns(estimators, layout) -> int | None:
+    """How many leading value columns of a block ``estimators`` read besides the count and cost:
+    the targets alone for Horvitz-Thompson and Hajek on a frame without domains, else None (all)."""
+    if layout is not None and not layout.D and all(e in ("ht", "hajek") for e in estimators):
+        return layout.V
+    return None

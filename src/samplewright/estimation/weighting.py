@@ -155,6 +155,15 @@ def _pick(table: np.ndarray, codes: np.ndarray) -> np.ndarray:
     return table[b, codes]
 
 
+def _unit_sums(a: np.ndarray) -> np.ndarray:
+    """Sums over the units axis of ``a`` (B, m, k, V) -> (B, m, V), adding the k units one after
+    another: the order of ``a.sum(axis=2)``, without its cost of one reduction loop per position."""
+    out = a[:, :, 0].copy()
+    for j in range(1, a.shape[2]):
+        out += a[:, :, j]
+    return out
+
+
 def rake(weights: np.ndarray, codes, controls, tol: float = TOLERANCE, max_iter: int = MAX_ITER):
     """Iterative proportional fitting of weights (B, L) to margins, every replicate at once.
 
@@ -230,13 +239,16 @@ class ResolvedAdjustment:
     sizes: tuple = ()  # number of categories of each
     controls: tuple = ()  # true population counts per category (poststrat, raking)
 
-    def apply(self, units, w, y, e, r, positions):
+    def apply(self, units, w, y, e, r, positions, keep: int | None = None):
         """Adjusted PSU sums for one block: (u (B, m, V), count (B, m), failed (B,)).
 
         ``units`` (B, m, k) listed-unit indices (0 where not a unit), ``w`` base weights,
         ``y`` values (B, m, k, V), ``e``/``r`` eligible and responding units,
         ``positions`` (B, m) the PSU positions the estimators count (for a two-stage block, each
-        unit's share of its cluster: ``two_stage_variance.slot_shares``).
+        unit's share of its cluster: ``two_stage_variance.slot_shares``).  ``keep``: raking
+        returns u of the first ``keep`` variables only (the ones the estimators read), with the
+        same numbers as in the full u (its fit keeps the width of all V, the others zero); the other
+        adjustments return every variable.
         """
         we, wr = w * e, w * r
         B = w.shape[0]
@@ -245,7 +257,7 @@ class ResolvedAdjustment:
         n_pos = np.maximum(positions.sum(axis=1), 1)[:, None]
         share = positions / n_pos  # spreads a replicate constant evenly over its positions
         if self.method == "raking":
-            u, ok = self._raked(units, wr, y, share)
+            u, ok = self._raked(units, wr, y, share, y.shape[-1] if keep is None else keep)
             return u, float(self.controls[0].sum()) * share, ~ok
         G = self.sizes[0]
         c = self.codes[0][units]
@@ -269,8 +281,8 @@ class ResolvedAdjustment:
         u = ((wr * _pick(a, c))[..., None] * (y - yb)).sum(axis=2) + t[:, None, :] * share[..., None]
         return u, float(N.sum()) * share, failed
 
-    def _raked(self, units, wr, y, share):
-        """Raking on the cells of the margins' cross-classification: (u (B, m, V), converged (B,)).
+    def _raked(self, units, wr, y, share, keep):
+        """Raking on the cells of the margins' cross-classification: (u (B, m, keep), converged (B,)).
 
         Every raking step multiplies a unit's weight by factors that depend on its cell only, so
         the raked weight is wr_k f_c(k): the respondents are collapsed once to cell sums of wr and
@@ -286,9 +298,13 @@ class ResolvedAdjustment:
         flat = (np.arange(B) * n_cells).reshape(B, 1, 1) + cell  # each unit's row of the (B * cells) tables
         V = y.shape[-1]
         w_cell = np.bincount(flat.ravel(), weights=wr.ravel(), minlength=B * n_cells).reshape(B, n_cells)
-        # every variable in one pass over the contiguous (B, m, k, V) products
-        wy_cell = np.bincount((flat[..., None] * V + np.arange(V)).ravel(), weights=(wr[..., None] * y).ravel(),
-                              minlength=B * n_cells * V).reshape(B, n_cells, V)
+        # the cell tables and the fit keep every variable's column, zero past the kept ones, so the kept
+        # columns' numbers do not depend on how many are kept (a BLAS product may add in another order
+        # at another width); a cell's sum adds its units in their order, whatever the number of variables
+        wy_cell = np.zeros((B, n_cells, V))
+        for v in range(keep):
+            wy_cell[..., v] = np.bincount(flat.ravel(), weights=(wr * y[..., v]).ravel(),
+                                          minlength=B * n_cells).reshape(B, n_cells)
         g_cell, _, ok = rake(w_cell, cell_codes, self.controls)
         total = float(self.controls[0].sum())
         empty = np.zeros(B, dtype=bool)
@@ -301,10 +317,12 @@ class ResolvedAdjustment:
         t = gy_cell.sum(axis=1)  # (B, V)
         fit = self._fitted(g_cell, gy_cell, cell_codes)  # (B, cells, V)
         g_unit = wr * np.take(factor.ravel(), flat)
-        residual = np.take(fit.reshape(B * n_cells, V), flat, axis=0)
-        np.subtract(y, residual, out=residual)
+        residual = np.take(np.ascontiguousarray(fit[..., :keep]).reshape(B * n_cells, keep), flat, axis=0)
+        np.subtract(y[..., :keep], residual, out=residual)
         residual *= g_unit[..., None]
-        return residual.sum(axis=2) + t[:, None, :] * share[..., None], ok
+        u = _unit_sums(residual)
+        u += t[:, None, :keep] * share[..., None]
+        return u, ok
 
     def _fitted(self, g, gy, codes):
         """Fitted values of y from the g-weighted regression on every margin's indicators.

@@ -59,7 +59,10 @@ def _padded_rows(values: np.ndarray) -> np.ndarray:
 
 def _group_index(codes: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     """Units sorted by group (stable) and the offsets of each group's run (length k + 1)."""
-    idx = np.argsort(codes, kind="stable")
+    if codes.size < 2 or np.all(codes[1:] >= codes[:-1]):  # already grouped: the stable order is the list order
+        idx = np.arange(codes.size)
+    else:  # codes that fit 16 bits are sorted by radix, in linear time
+        idx = np.argsort(codes.astype(np.uint16) if k <= 1 << 16 else codes, kind="stable")
     counts = np.bincount(codes, minlength=k)
     offsets = np.concatenate([[0], np.cumsum(counts)])
     return idx.astype(np.int64), offsets.astype(np.int64)
@@ -151,8 +154,8 @@ class Frame:
             cu, co = _group_index(self.cluster, c)
             object.__setattr__(self, "cluster_units", cu)
             object.__setattr__(self, "cluster_offsets", co)
-            sums = np.zeros((c, values.shape[1]))
-            np.add.at(sums, self.cluster, values)
+            sums = np.stack([np.bincount(self.cluster, weights=values[:, j], minlength=c)
+                             for j in range(values.shape[1])], axis=1)  # each cluster's units added in list order
             object.__setattr__(self, "cluster_sums", sums)
             cs = np.zeros(c, dtype=np.int64)
             cs[self.cluster] = self.stratum

@@ -94,12 +94,10 @@ def percent(share, mcse=None) -> str:
 
 def coverage_interval(coverage: float, replicates: int, level: float = EXACT_INTERVAL_LEVEL) -> tuple[float, float]:
     """The exact binomial (Clopper-Pearson) interval of a coverage seen in ``replicates`` samples
-    (scipy.stats.binomtest; Clopper and Pearson 1934)."""
-    from scipy.stats import binomtest
-
+    (:func:`samplewright.decision.evidence.binomial_interval`; Clopper and Pearson 1934)."""
     k = int(round(float(coverage) * int(replicates)))
-    ci = binomtest(k, int(replicates)).proportion_ci(confidence_level=level, method="exact")
-    return float(ci.low), float(ci.high)
+    lo, hi = ev.binomial_interval(k, int(replicates), level)
+    return float(lo), float(hi)
 
 
 def coverage_text(coverage, mcse, replicates=None) -> str:

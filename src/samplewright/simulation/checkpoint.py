@@ -182,7 +182,10 @@ class BlockStore:
         content = {k: np.asarray(v) for k, v in content.items()}
 
         def write(tmp):
-            with open(tmp, "wb") as fh:
+            # the new temporary file is empty: opened without truncating it, since a truncation to
+            # zero makes ext4 write the file back to disk at close (auto_da_alloc), and deleting
+            # hundreds of written-back blocks at the end of a run then waits on the disk
+            with open(tmp, "r+b") as fh:
                 np.savez(fh, checksum=checksum(content), **content)
 
         atomic_write(path, write)

@@ -26,7 +26,7 @@ import pandas as pd
 
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
-from samplewright.estimation.registry import ESTIMATORS, estimate_points
+from samplewright.estimation.registry import ESTIMATORS, estimate_points, value_columns
 from samplewright.estimation.two_stage_variance import slot_shares
 from samplewright.estimation.weighting import AdjustmentSpec, ResolvedAdjustment
 from samplewright.population.frame import Frame
@@ -113,18 +113,41 @@ def psu_units(block: SampleBlock, frame: Frame) -> tuple[np.ndarray, np.ndarray]
     return np.where(valid, units, 0), valid
 
 
-def _rebuilt(sample: SampleBlock, u: np.ndarray, count: np.ndarray) -> SampleBlock:
-    """A block whose weighted PSU sums are the adjusted linearised sums.
+#: units per slice of a block's per-unit work (adjustment, adjusted sums, estimates): a slice of
+#: whole replicates whose (rows, m, k, V) arrays take a few MiB, so they stay in cache and are
+#: reused from the allocator's heap instead of being faulted in afresh for every block
+SLICE_UNITS = 1 << 17
 
-    The design's weights are kept (sums = u / weight), so a variance routine that reads the
+
+def _slices(B: int, per_replicate: int) -> list[slice]:
+    """Consecutive slices of whole replicates with about ``SLICE_UNITS`` units each.
+
+    Adjustments and estimators work replicate by replicate, so the numbers do not depend on
+    the slicing.
+
+    Examples
+    --------
+    >>> _slices(5, 60_000)
+    [slice(0, 2, None), slice(2, 4, None), slice(4, 5, None)]
+    """
+    step = max(1, SLICE_UNITS // max(per_replicate, 1))
+    return [slice(lo, min(lo + step, B)) for lo in range(0, B, step)]
+
+
+def _adjusted_sums(u: np.ndarray, count: np.ndarray, inv: np.ndarray) -> np.ndarray:
+    """Block sums (B, m, V + 2) whose weighted PSU sums are the adjusted linearised sums.
+
+    Columns: u / weight, count / weight and a zero cost column.  The design's weights are kept
+    (``inv`` (B, m) is 1 / weight, 0 where there is none), so a variance routine that reads the
     weights as inverse inclusion probabilities (Poisson, size-proportional designs) still
     finds them.
     """
-    B, m = u.shape[:2]
-    w = np.broadcast_to(sample.weight, (B, m))
-    inv = np.where(w > 0, 1.0 / np.where(w > 0, w, 1.0), 0.0)[..., None]
-    sums = np.concatenate([u, count[..., None], np.zeros((B, m, 1))], axis=2) * inv
-    return dataclasses.replace(sample, sums=sums, units=None)
+    V = u.shape[-1]
+    out = np.empty(u.shape[:2] + (V + 2,))
+    np.multiply(u, inv[..., None], out=out[..., :V])
+    np.multiply(count, inv, out=out[..., V])
+    out[..., V + 1] = 0.0
+    return out
 
 
 def _estimate(block, frame, cell, confidence):
@@ -132,36 +155,54 @@ def _estimate(block, frame, cell, confidence):
     return [np.stack([getattr(o, k) for o in outs]) for k in ("estimate", "se", "lower", "upper")]
 
 
-def visit(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.SeedSequence):
-    """Responses and adjusted blocks of one drawn block.
+def _responses(fw: Fieldwork, frame: Frame, sample: SampleBlock, seedseq: np.random.SeedSequence):
+    """The units behind a block's PSU positions, which exist, which are eligible, which respond (B, m, k).
 
-    Returns (realistic block, full-response block, attempted, eligible, completed, failed),
-    the counts per replicate (B,).
+    The responses are drawn for the whole block at once.
     """
     units, valid = psu_units(sample, frame)
-    all_eligible = bool(fw.eligible.all())
-    e = valid if all_eligible else valid & fw.eligible[units]
+    e = valid if fw.eligible.all() else valid & fw.eligible[units]
     if fw.propensity is None:
-        r = e
-    else:
-        rng = np.random.default_rng(_response.block_seed(seedseq))
-        r = e & fw.propensity.respond(rng, units)
+        return units, valid, e, e
+    rng = np.random.default_rng(_response.block_seed(seedseq))
+    return units, valid, e, e & fw.propensity.respond(rng, units)
+
+
+def _adjusted_estimates(fw: Fieldwork, frame: Frame, sample: SampleBlock, units, e, r, cell, confidence):
+    """Estimates (estimate, se, lower, upper; each (P, B, V), P the estimator x variance formula points) after
+    the adjustment, with the drawn responses ``r`` and with full response, and the replicates whose
+    adjustment failed (B,).
+
+    Slice by slice of replicates (:func:`_slices`): the units' rows, the adjusted sums and the
+    estimates, so no (B, m, k, V) array of the whole block is built.
+    """
     B, m = sample.sums.shape[:2]
-    w = np.broadcast_to(np.broadcast_to(sample.weight, (B, m))[..., None], units.shape)
+    wb = np.broadcast_to(sample.weight, (B, m))
+    w = np.broadcast_to(wb[..., None], units.shape)
+    inv = np.where(wb > 0, 1.0 / np.where(wb > 0, wb, 1.0), 0.0)
     gather = getattr(frame, "gather", None)  # the padded-row gather where the frame has it
-    rows = gather(units) if gather is not None else frame.values[units]
-    y = rows[..., : frame.values.shape[1] - 2]  # every value column but count and cost
+    V = frame.values.shape[1] - 2  # every value column but count and cost
+    keep = value_columns(cell.estimators, frame.layout)  # None: the estimators read every column
     positions = np.ones((B, m), dtype=bool) if sample.mask is None else sample.mask
     if sample.psu is not None:  # two stages: the positions are units, counted as shares of their cluster
         positions = slot_shares(sample)
-    u, cnt, failed = fw.adjustment.apply(units, w, y, e, r, positions)
-    if fw.adjustment.method in ("none", "class") and all_eligible:
-        full = sample  # with every unit eligible and responding these adjustments change nothing
-    else:
-        uf, cntf, _ = fw.adjustment.apply(units, w, y, e, e, positions)
-        full = _rebuilt(sample, uf, cntf)
-    return (_rebuilt(sample, u, cnt), full, valid.sum(axis=(1, 2)).astype(float),
-            e.sum(axis=(1, 2)).astype(float), r.sum(axis=(1, 2)).astype(float), failed)
+    # with every unit eligible and responding these adjustments change nothing: the drawn block is full response
+    unchanged = fw.adjustment.method in ("none", "class") and bool(fw.eligible.all())
+    adjusted = dataclasses.replace(sample, units=None)  # its sums are replaced slice by slice
+    real, full, failed = [], [], np.empty(B, dtype=bool)
+    for s in _slices(B, units[0].size):
+        rows = gather(units[s]) if gather is not None else frame.values[units[s]]
+        y = rows[..., :V]
+        u, cnt, failed[s] = fw.adjustment.apply(units[s], w[s], y, e[s], r[s], positions[s], keep)
+        real.append(_estimate(adjusted.replicates(s, _adjusted_sums(u, cnt, inv[s])), frame, cell, confidence))
+        if not unchanged:
+            uf, cntf, _ = fw.adjustment.apply(units[s], w[s], y, e[s], e[s], positions[s], keep)
+            full.append(_estimate(adjusted.replicates(s, _adjusted_sums(uf, cntf, inv[s])), frame, cell,
+                                  confidence))
+    joined = [np.concatenate(parts, axis=1) for parts in zip(*real)]
+    if unchanged:
+        return joined, _estimate(sample, frame, cell, confidence), failed
+    return joined, [np.concatenate(parts, axis=1) for parts in zip(*full)], failed
 
 
 def run_fieldwork_block(frame: Frame, cell, task: BlockTask, confidence: float, cost) -> BlockResult:
@@ -169,9 +210,10 @@ def run_fieldwork_block(frame: Frame, cell, task: BlockTask, confidence: float, 
     fw = cell.fieldwork
     rng = np.random.default_rng(task.seed)
     sample = cell.design.draw(frame, rng, task.count, keep_units=True)
-    real, full, attempted, eligible, completed, failed = visit(fw, frame, sample, task.seed)
-    est, se, lo, hi = _estimate(real, frame, cell, confidence)
-    fest, fse, flo, fhi = _estimate(full, frame, cell, confidence)
+    units, valid, e, r = _responses(fw, frame, sample, task.seed)
+    (est, se, lo, hi), (fest, fse, flo, fhi), failed = _adjusted_estimates(
+        fw, frame, sample, units, e, r, cell, confidence)
+    attempted, eligible, completed = (x.sum(axis=(1, 2)).astype(float) for x in (valid, e, r))
     return BlockResult(
         cell=task.cell, block=task.block, start=task.start, estimate=est, se=se, lower=lo, upper=hi,
         n=completed, cost=cost.replicate_cost(sample, frame, completed=completed),
