@@ -225,8 +225,8 @@ def test_variance_option_is_checked():
 
 def test_stratified_cluster_size_is_said_in_clusters_with_expected_units():
     """The size of a cluster design counts clusters; the expected units sum the pi_k (SSW 1992, sec. 2.6)."""
-    from samplewright.decision.recommend import _describe
     from samplewright.report.figures import cell_label
+    from samplewright.report.verdict import size_text, verdict_sentence
 
     frame, _ = unequal_frame()
     d = StratifiedCluster("zones", clusters=4, units_per_cluster=2)
@@ -237,8 +237,9 @@ def test_stratified_cluster_size_is_said_in_clusters_with_expected_units():
     assert "clusters = 4" in note and "about 8 units expected" in note
     pick = {"design": "zones", "method": "stratified_cluster", "size": 4, "estimator": "ht", "mean_n": expected,
             "mean_cost": 10.0, "p90_cost": 10.0, "moe": 1.0, "moe_mcse": 0.1, "coverage": 0.95, "published_moe": 1.1}
-    text = _describe(pick)
-    assert "with 4 clusters (about 8 units expected)" in text and "4 units" not in text
+    assert size_text("stratified_cluster", 4, expected) == "4 clusters (about 8 units)"
+    text = verdict_sentence({"pick": "cheapest_meeting_moe", "cheapest_meeting_moe": pick})
+    assert ": 4 clusters (about 8 units)" in text and "4 units" not in text
     assert cell_label("zones", "stratified_cluster", 4, expected) == "zones, 4 clusters (about 8 units expected)"
     assert cell_label("simple", "srs", 40) == "simple, n = 40"
 
