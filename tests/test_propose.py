@@ -127,6 +127,9 @@ def test_margin_goal_proposes_the_cheapest_designs():
     short = cand[cand["shortlisted"]].sort_values("rank")
     assert short["expected_cost"].is_monotonic_increasing
     assert short["expected_cost"].iloc[0] == cand.loc[ok, "expected_cost"].min()
+    # the shortlist's scenario keeps the goal as it was given: relative to the mean, judged by the verdict
+    assert res.proposal["goal"]["relative_moe"] == 0.05 and "moe" not in res.proposal["goal"]
+    assert res.recommendation["goals"][0]["moe_goal"] == pytest.approx(target, rel=1e-12)
 
 
 def test_screening_on_an_auxiliary_only(capsys):

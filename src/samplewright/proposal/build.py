@@ -84,8 +84,7 @@ def prepare(scenario: Scenario, frame, budget=None, moe=None, relative_moe=None,
     if not found.shortlist:
         raise InputError(f"propose: none of the {len(found.candidates)} candidate designs meets the goal "
                          f"({kind.replace('_', ' ')} = {value:g}); see each one's note in candidates.csv")
-    goal_table = {"budget": value} if kind == "budget" else {"moe": float(value) if kind == "moe"
-                                                              else value * abs(float(np.mean(y)))}
+    goal_table = {kind: float(value)}  # the goal as given: a budget, a margin, or a margin relative to the mean
     doc = proposal_doc(scenario, found.shortlist, goal_table, variable, confidence)
     base = scenario.source.parent if scenario.source is not None else Path(".")
     rehearsal = scenario_from_dict(doc, base=base, source=scenario.source)
@@ -117,13 +116,11 @@ def _histogram(x) -> dict | None:
 
 def _auxiliary(frame, name: str):
     """The column ``screen_on`` names (the size column or an auxiliary), as (label, values)."""
-    if name == frame.roles.get("size"):
-        return f"{name} (auxiliary only)", frame.size
-    if name in frame.aux_names:
-        return f"{name} (auxiliary only)", frame.aux[:, frame.aux_names.index(name)]
-    names = [c for c in (frame.roles.get("size"), *frame.aux_names) if c]
-    raise InputError(f"propose: --screen-on {name!r} is neither the frame's size column nor an auxiliary column "
-                     f"({', '.join(names) or 'none set in [frame]'})")
+    values = frame.numeric_column(name)
+    if values is None:
+        raise InputError(f"propose: --screen-on {name!r} is neither the frame's size column nor an auxiliary "
+                         f"column ({', '.join(frame.numeric_names) or 'none set in [frame]'})")
+    return f"{name} (auxiliary only)", values
 
 
 def proposal_doc(scenario: Scenario, shortlist: list, goal: dict, variable: str, confidence: float) -> dict:
