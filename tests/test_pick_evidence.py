@@ -179,3 +179,20 @@ def test_a_pick_just_inside_a_limit_is_settled_with_more_replicates():
     assert pick["coverage"] - SETTLE_Z * pick["coverage_mcse"] >= 0.94 or pick["replicates"] == 20_000
     used = res.summary.groupby("size")["replicates"].first()
     assert used[400] == pick["replicates"] and used[50] == 2000  # only the pick's cell was extended
+
+
+def test_settling_a_partial_last_block_is_not_a_damaged_block(tmp_path):
+    # 300 replicates in blocks of 500: each cell's last block is partial; a cell given more replicates draws
+    # it again in full, which must not read back its kept 300-replicate file as damaged (an interface check)
+    from samplewright import run, scenario_from_dict
+
+    doc = {"frame": {"synthetic": {"units": 2000, "seed": 4, "strata": [
+               {"name": "a", "share": 0.5, "mean": 10, "sd": 2}, {"name": "b", "share": 0.5, "mean": 30, "sd": 4}]}},
+           "design": [{"label": "srs", "method": "srs", "n": [50, 400]}],
+           "goal": {"moe": 2.0, "stability_rounds": 20}}
+    warned = []
+    res = run(scenario_from_dict(doc), replicates=300, seed=5, out=tmp_path / "o", warn=warned.append)
+    assert res.summary["replicates"].max() > 300  # settling added replicates to a cell
+    assert not [w for w in warned if "drawn again" in w]
+    again = run(scenario_from_dict(doc), replicates=300, seed=5)  # the same numbers without a block store
+    pd.testing.assert_frame_equal(res.summary, again.summary)

@@ -190,6 +190,11 @@ class BlockStore:
 
         atomic_write(path, write)
 
+    def discard(self, cell, block: int) -> None:
+        """Delete one block's file, if any: a partial last block that is about to be drawn again in full
+        (adding replicates to a cell), so reading it back is not a damaged block to warn about."""
+        (self.folder / block_name(cell, block)).unlink(missing_ok=True)
+
     def load(self, cell, cell_id: int, block: int, start: int, count: int, width: int):
         """Read one block back as a BlockResult tagged with ``cell_id``, or None.
 
