@@ -171,6 +171,8 @@ def test_report_explains_how_the_proposal_was_found(proposed, tmp_path, capsys):
     assert f"{len(proposed.candidates)} candidate designs were screened" in page
     assert page.count('id="fig-proposal_check"') == 1 and page.count('id="fig-proposal_boundaries"') == 1
     assert (out / "figures" / "proposal_boundaries.png").exists()
+    brief = (out / "brief.md").read_text()
+    assert f"**How the proposal was found.** {len(proposed.candidates)} candidate designs were screened" in brief
     # rebuilt from the folder alone (samplewright report DIR): the same section
     (out / "report.html").unlink()
     assert main(["report", str(out)]) == 0

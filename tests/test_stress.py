@@ -209,6 +209,7 @@ def test_cli_keeps_resumes_and_removes_point_blocks(tmp_path, capsys):
     assert "what would change the pick: 'clusters' is picked while icc is below about" in printed
     assert "above it 'srs' is picked, because the two picks' margins cross" in printed
     assert "What would change the pick" in (tmp_path / "o2" / "report.html").read_text()
+    assert "**What would change the pick.**" in (tmp_path / "o2" / "brief.md").read_text()
     assert (tmp_path / "o2" / "figures" / "stress_lines.png").is_file()
 
 
