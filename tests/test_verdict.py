@@ -420,3 +420,13 @@ def test_between_sizes_sentences_say_they_are_interpolated():
     assert "about 315" in text and "3,142" in text and "not rehearsed" in text
     rec["interpolated"] = [{**row, "estimator": "hajek"}]
     assert V.between_sizes_sentences(rec, V.labels_of(None)) == []
+
+
+def test_the_evidence_row_names_only_the_criteria_the_goal_judges():
+    # interface/format check: a budget-only goal judges no margin (the decision writes margin: null) and a
+    # margin-only goal no cost; the card must not show the reader the word "None" for them
+    budget_only = _rec(cheapest_meeting_moe=_pick(evidence={"coverage": "met", "margin": None, "cost": "met"}))
+    rows = dict(V.key_numbers(budget_only, INFO))
+    assert rows["Evidence"] == "coverage met, expected cost met"
+    margin_only = _rec(cheapest_meeting_moe=_pick(evidence={"coverage": "met", "margin": "met", "cost": None}))
+    assert dict(V.key_numbers(margin_only, INFO))["Evidence"] == "coverage met, margin met"

@@ -534,8 +534,9 @@ def key_numbers(rec: dict | None, info: dict | None = None) -> list[tuple[str, s
             text += (f"; runner-up {point_name(ru, labels, info)} in {100 * float(rec['runner_up_share']):.0f} %")
         rows.append(("Stability", text))
     ev = p.get("evidence")
-    if isinstance(ev, dict) and ev:
-        rows.append(("Evidence", ", ".join(f"{CRITERIA.get(c, c)} {s}" for c, s in ev.items())))
+    judged = {c: s for c, s in ev.items() if s is not None} if isinstance(ev, dict) else {}  # None: not a goal
+    if judged:
+        rows.append(("Evidence", ", ".join(f"{CRITERIA.get(c, c)} {s}" for c, s in judged.items())))
     return rows
 
 
