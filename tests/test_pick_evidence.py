@@ -179,3 +179,24 @@ def test_a_pick_just_inside_a_limit_is_settled_with_more_replicates():
     assert pick["coverage"] - SETTLE_Z * pick["coverage_mcse"] >= 0.94 or pick["replicates"] == 20_000
     used = res.summary.groupby("size")["replicates"].first()
     assert used[400] == pick["replicates"] and used[50] == 2000  # only the pick's cell was extended
+
+
+def test_settling_a_partial_last_block_gives_no_damaged_block_warning(tmp_path, capsys):
+    # interface check: with replicates not a whole number of blocks, settling draws the cell's partial last
+    # block again in full (as a longer run would); the smaller file the first pass saved is the run's own, not
+    # a damaged one, so the run must not warn about it -- and the numbers equal a run without block files
+    from samplewright.cli.main import main
+
+    pd.DataFrame({"y": SKEWED}).to_csv(tmp_path / "skewed.csv", index=False)
+    (tmp_path / "s.toml").write_text(
+        'seed = 5\nreplicates = 300\nblock_size = 250\n[frame]\npath = "skewed.csv"\ntarget = "y"\n'
+        '[[design]]\nlabel = "six"\nmethod = "srs"\nn = 6\nestimators = ["ht"]\n'
+        '[[design]]\nlabel = "all"\nmethod = "srs"\nn = 20\nestimators = ["ht"]\n'
+        '[cost]\nper_unit = 10.0\n[goal]\nmoe = 100.0\nstability_rounds = 0\n')
+    assert main(["run", str(tmp_path / "s.toml"), "--out", str(tmp_path / "out"), "--no-report", "--quiet"]) == 0
+    err = capsys.readouterr().err
+    assert "block file" not in err
+    got = pd.read_csv(tmp_path / "out" / "summary.csv")
+    assert got.loc[got["design"] == "six", "replicates"].max() > 300  # the partial block was settled
+    api = sw.run(sw.load_scenario(tmp_path / "s.toml")).summary
+    assert np.array_equal(got["coverage"].to_numpy(), api["coverage"].to_numpy())

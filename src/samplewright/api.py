@@ -508,6 +508,10 @@ def _settle_round(plan: RunPlan, reps: pd.DataFrame, rec: dict, todo: list, coun
     names = list(plan.frame.layout.names)
     floors = {ci: int(counts[(c.design.label, int(c.design.size))]) // plan.block_size for ci, c in todo}
     kept = _drop_partial(reps, [(c, floors[ci] * plan.block_size) for ci, c in todo])
+    if plan.store is not None:  # the saved partial block is the run's own: replaced, not warned about as damaged
+        for ci, c in todo:
+            if int(counts[(c.design.label, int(c.design.size))]) % plan.block_size:
+                plan.store.discard(c, floors[ci])
     rule = settle.SettleRule(
         criteria={k: settle.criteria_of(rec, c, names, plan.confidence) for k, (_, c) in enumerate(todo)},
         start={k: (settle.starting_sums(kept, c, names, truth), floors[ci],

@@ -187,6 +187,10 @@ class BlockStore:
 
         atomic_write(path, write)
 
+    def discard(self, cell, block: int) -> None:
+        """Remove one block file, if there is one (a partial last block about to be drawn again in full)."""
+        (self.folder / block_name(cell, block)).unlink(missing_ok=True)
+
     def load(self, cell, cell_id: int, block: int, start: int, count: int, width: int):
         """Read one block back as a BlockResult tagged with ``cell_id``, or None.
 
