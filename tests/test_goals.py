@@ -86,6 +86,8 @@ def _doc(goal):
     ({"moe": 1.0, "coverage_tolerance": -0.01}, ["coverage_tolerance"]),
     ({"moe": 1.0, "domain": "north"}, ["domain", "no domain column"]),
     ({"moe": 1.0, "stability_rounds": 2.5}, ["stability_rounds"]),
+    # a bound, not a hang or a memory error: each round recomputes every measure (a sanity bound, no source)
+    ({"moe": 1.0, "stability_rounds": 10**11}, ["stability_rounds", "at most 10000"]),
     ([{"moe": 1.0}, {"moe": 2.0}], ["same variable"]),
 ])
 def test_bad_goal_values_are_refused(goal, words):

@@ -15,7 +15,7 @@ from pathlib import Path
 
 from samplewright.config.costs import KEYS as COST_KEYS
 from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
-from samplewright.config.goal import DESIGN_WIDE, Goal
+from samplewright.config.goal import DESIGN_WIDE, MAX_STABILITY_ROUNDS, Goal
 from samplewright.config.labels import Labels, labels_spec
 from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
 from samplewright.config.stress import StressSpec, stress_spec
@@ -366,7 +366,8 @@ def _goal(g: dict, roles: dict, ctx: str) -> dict:
             raise InputError(f"{ctx}: coverage_tolerance must be at least 0 and below 0.5 (a share of "
                              f"intervals, e.g. 0.01 for one percentage point), got {show(g['coverage_tolerance'])}")
     if "stability_rounds" in g:
-        kw["stability_rounds"] = as_int(g["stability_rounds"], "stability_rounds", ctx, minimum=0)
+        kw["stability_rounds"] = as_int(g["stability_rounds"], "stability_rounds", ctx, minimum=0,
+                                          maximum=MAX_STABILITY_ROUNDS)
     targets = roles.get("target")
     if "variable" in g:
         v = as_str(g["variable"], "variable", ctx)
