@@ -89,6 +89,8 @@ def _doc(goal):
     # a bound, not a hang or a memory error: each round recomputes every measure (a sanity bound, no source)
     ({"moe": 1.0, "stability_rounds": 10**11}, ["stability_rounds", "at most 10000"]),
     ([{"moe": 1.0}, {"moe": 2.0}], ["same variable"]),
+    # a goal without variable is about the first target ('y' here): naming it makes the same goal twice
+    ([{"moe": 1.0}, {"variable": "y", "moe": 2.0}], ["same variable"]),
 ])
 def test_bad_goal_values_are_refused(goal, words):
     with pytest.raises(InputError) as exc:

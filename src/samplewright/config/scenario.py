@@ -335,8 +335,10 @@ def goals(doc, roles: dict) -> tuple[Goal, ...]:
                                      f"{shared[k][1]}; {k} applies to the whole design: give it once")
                 shared.setdefault(k, (kw[k], ctx))
     seen = {}
+    targets = roles.get("target")
+    first = targets if isinstance(targets, str) else (list(targets)[0] if targets else None)
     for kw, ctx in zip(parsed, ctxs):
-        key = (kw.get("variable"), kw.get("domain"))
+        key = (kw.get("variable", first), kw.get("domain"))  # a goal without variable is about the first target
         if key in seen:
             raise InputError(f"{ctx}: a second goal for the same variable and domain as {seen[key]}; "
                              f"give one [[goal]] per variable or domain")
