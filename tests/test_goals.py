@@ -109,3 +109,19 @@ def test_a_second_different_budget_exits_2_with_one_error_line(tmp_path, capsys)
     lines = err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("error: ") and "budget" in lines[0], err
     assert not (tmp_path / "out").exists()
+
+
+def test_a_goal_domain_the_frame_does_not_have_exits_2_naming_it(tmp_path, capsys):
+    # interface check: without a [frame] domains list the domain values are known only from the frame; a goal
+    # for a value that does not occur there was accepted and the verdict spoke of the whole population
+    path = tmp_path / "people.csv"
+    frame_with_two_targets().to_csv(path, index=False)  # region: north, south
+    scen = tmp_path / "s.toml"
+    scen.write_text(f'[frame]\npath = "{path.name}"\ntarget = "income"\ndomain = "region"\n\n'
+                    '[[design]]\nlabel = "s"\nmethod = "srs"\nn = 30\n\n[goal]\nmoe = 200.0\ndomain = "east"\n')
+    code = main(["run", str(scen), "--out", str(tmp_path / "out"), "--quiet", "--replicates", "20"])
+    err = capsys.readouterr().err
+    lines = err.strip().splitlines()
+    assert code == 2 and len(lines) == 1 and lines[0].startswith("error: "), err
+    assert "'east'" in lines[0] and "'region'" in lines[0]
+    assert not (tmp_path / "out").exists()
