@@ -46,6 +46,11 @@ def test_size_for_moe_on_the_exact_curve_is_cochrans_fpc_size():
     assert size_for_moe(curve, E, Z95) == pytest.approx(planning.fpc_mean(n0, N), rel=1e-12)
     assert size_for_moe(curve, E, Z95) == pytest.approx(planning.sample_size(E, sd=np.sqrt(S2), population=N)
                                                         ["n_after_fpc"], rel=1e-12)
+    # a margin so wide that (E/z)^2 overflows a float: Cochran's n0 = (z S / E)^2 is then 0 and so is the size
+    # (a goal of 1e200 made the recommendation fail with an OverflowError and the run exit 1)
+    huge = 1e200
+    assert size_for_moe(curve, huge, Z95) == pytest.approx(planning.fpc_mean((Z95 * np.sqrt(S2) / huge) ** 2, N),
+                                                           abs=1e-300)
 
 
 def test_fit_on_a_simulated_srs_sweep_matches_the_exact_variance():
