@@ -125,3 +125,17 @@ def test_a_goal_domain_the_frame_does_not_have_exits_2_naming_it(tmp_path, capsy
     assert code == 2 and len(lines) == 1 and lines[0].startswith("error: "), err
     assert "'east'" in lines[0] and "'region'" in lines[0]
     assert not (tmp_path / "out").exists()
+
+
+def test_the_closest_design_sentence_judges_margin_and_cost_by_their_monte_carlo_errors():
+    # the verdict's "closest" sentence must state each criterion as the decision's evidence rule does
+    # (z = 2 MCSE, Morris, White & Crowther 2019): the achieved margin's and the cost's MCSEs live in the
+    # frontier, and without them the sentence treated the achieved margin as exact
+    doc = {"frame": {"synthetic": {"units": 2000, "seed": 3, "mean": 100.0, "sd": 20.0}},
+           "design": [{"label": "simple", "method": "srs", "n": 100, "estimators": ["ht"]}],
+           "cost": {"per_unit": 10.0}, "goal": {"moe": 3.8, "stability_rounds": 0}}
+    res = sw.run(sw.scenario_from_dict(doc), replicates=200, seed=1, max_replicates=200)
+    f = res.frontier.iloc[0]
+    assert f["moe"] < 3.8 < f["moe"] + 2 * f["moe_mcse"]  # undecided by the rule: too close to call
+    s = res.recommendation["statement"]
+    assert "achieved margin" in s and "too close to call against the goal ±3.8" in s, s

@@ -132,14 +132,17 @@ def compact_columns(summary: pd.DataFrame, labels: dict) -> list[tuple[str, str]
     return cols
 
 
-def with_moe_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> pd.DataFrame:
-    """``summary`` with the margin's Monte Carlo SE (``moe_mcse``) from the run's frontier, when it has one."""
-    if "moe_mcse" in summary.columns or frontier is None or "moe_mcse" not in frontier.columns:
+def with_frontier_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> pd.DataFrame:
+    """``summary`` with the Monte Carlo SEs only the run's frontier holds (``moe_mcse`` of the achieved margin,
+    ``cost_mcse`` of the mean cost), when it has them: the decision's evidence rule reads both."""
+    if frontier is None:
+        return summary
+    extra = [c for c in ("moe_mcse", "cost_mcse") if c in frontier.columns and c not in summary.columns]
+    if not extra:
         return summary
     keys = [k for k in ("design", "size", "estimator", "variance", "variable")
             if k in summary.columns and k in frontier.columns]
-    extra = frontier[keys + ["moe_mcse"]].drop_duplicates(keys)
-    return summary.merge(extra, on=keys, how="left")
+    return summary.merge(frontier[keys + extra].drop_duplicates(keys), on=keys, how="left")
 
 
 def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) -> list[dict]:
@@ -148,7 +151,7 @@ def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) ->
     Monte Carlo SE (from ``frontier``, the run's frontier table, when given)."""
     exact = is_exact(summary)
     show, cost = measure_text(exact), cost_text(summary)
-    summary = with_moe_mcse(summary, frontier)
+    summary = with_frontier_mcse(summary, frontier)
     out = []
     formulas = summary.groupby("design")["variance"].nunique().to_dict() if "variance" in summary.columns else {}
     for var in dict.fromkeys(summary["variable"]):
