@@ -430,3 +430,17 @@ def test_the_evidence_row_names_only_the_criteria_the_goal_judges():
     assert rows["Evidence"] == "coverage met, expected cost met"
     margin_only = _rec(cheapest_meeting_moe=_pick(evidence={"coverage": "met", "margin": "met", "cost": None}))
     assert dict(V.key_numbers(margin_only, INFO))["Evidence"] == "coverage met, margin met"
+
+
+def test_an_undecided_coverage_above_the_promise_reads_too_close_to_call():
+    # evidence rule (README, decision/evidence.py): coverage c with MCSE s is met when c - 2 s >= q - t; here
+    # 0.96 - 2 x 0.0139 = 0.932 < 0.94 <= 0.96 + 2 x 0.0139: undecided, not a miss -- the words must not read
+    # "held 96 % against the promised 95 %" as if that were a shortfall
+    row = {"variable": "apples", "coverage": 0.96, "coverage_mcse": 0.0139, "replicates": 200}
+    ((_, words),) = V.shortfalls(row, [{"variable": "apples"}], 0.95, 0.01, LABELS)
+    assert words == ("its intervals held the true value in 96 % of samples, too close to call against the "
+                     "promised 95 % (less the tolerance 1 %)")
+    below = {**row, "coverage": 0.90, "coverage_mcse": 0.0212}  # 0.90 + 2 x 0.0212 < 0.94: not met
+    ((_, words),) = V.shortfalls(below, [{"variable": "apples"}], 0.95, 0.01, LABELS)
+    assert words == ("its intervals held the true value in 90 % of samples against the promised 95 % "
+                     "(less the tolerance 1 %)")

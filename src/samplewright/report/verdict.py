@@ -395,8 +395,8 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
         if int(ev.coverage_code(c, mc("coverage_mcse"), R, nominal, tolerance, exact)) in counted:
             out.append(((floor - c) / floor,
                         f"its intervals held the true value in {percent(c, row.get('coverage_mcse'))} "
-                        f"of samples against the promised {100 * nominal:g} % (less the tolerance "
-                        f"{100 * tolerance:g} %)"))
+                        f"of samples{'' if c < floor else ', too close to call'} against the promised "
+                        f"{100 * nominal:g} % (less the tolerance {100 * tolerance:g} %)"))
     return out
 
 
