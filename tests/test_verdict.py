@@ -444,3 +444,17 @@ def test_an_undecided_coverage_above_the_promise_reads_too_close_to_call():
     ((_, words),) = V.shortfalls(below, [{"variable": "apples"}], 0.95, 0.01, LABELS)
     assert words == ("its intervals held the true value in 90 % of samples against the promised 95 % "
                      "(less the tolerance 1 %)")
+
+
+def test_an_undecided_points_monte_carlo_error_has_two_significant_figures():
+    # format check: an MCSE is shown to two significant figures, as the tables show it (report/table.py,
+    # with_mcse); four ("0.4221 %", "0.03987") claimed a precision the error of an error does not have
+    base = {"design": "zones", "method": "stratified", "size": 400, "estimator": "ht", "variance": "psu",
+            "variable": "apples", "replicates": 300, "replicates_needed": 19000}
+    rec = _rec(undecided=[{**base, "criterion": "coverage", "value": 0.9433, "mcse": 0.004221, "limit": 0.94},
+                          {**base, "criterion": "margin", "value": 3.13, "mcse": 0.03987, "limit": 3.1},
+                          {**base, "criterion": "cost", "value": 4490.0, "mcse": 11.56, "limit": 4500.0}])
+    cov, margin, cost = V.undecided_sentences(rec, INFO)
+    assert "(Monte Carlo error 0.42 %)" in cov
+    assert "(Monte Carlo error 0.040 kg)" in margin
+    assert "(Monte Carlo error 12 EUR)" in cost

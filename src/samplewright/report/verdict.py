@@ -453,7 +453,9 @@ def undecided_sentences(rec: dict | None, info: dict | None = None) -> list[str]
         c = str(u.get("criterion", ""))
         value = _criterion_value(c, u.get("value"), u.get("mcse"), labels, u.get("variable"))
         limit = _criterion_value(c, u.get("limit"), None, labels, u.get("variable"))
-        mc = _criterion_value(c, u.get("mcse"), None, labels, u.get("variable")).lstrip("±")
+        mcse = u.get("mcse")  # itself to two significant figures (rounded by a tenth of itself), as the tables
+        mc = _criterion_value(c, mcse, 0.1 * float(mcse) if _finite(mcse) else None, labels,
+                              u.get("variable")).lstrip("±")
         text = (f"Undecided: {point_name(u, labels, info)} ({estimator_name(u.get('estimator'))}"
                 + (f", {variance_name(u.get('variance'))} variance" if variance_name(u.get("variance")) else "")
                 + f"): its {CRITERIA.get(c, c)} {value} (Monte Carlo error {mc}) is too close to the limit {limit} "
