@@ -242,3 +242,15 @@ def test_without_a_cost_model_the_cheapest_pick_is_the_smallest_sample_meeting_t
                                 "goal": {"moe": 1e9}})
     rec = sw.run(sc, replicates=200, seed=3).recommendation
     assert rec["cheapest_meeting_moe"]["size"] == 100
+
+
+def test_a_passed_over_point_carries_its_evidence_states_for_the_plain_words():
+    # interface check: the report words a passed-over point from its evidence states (report/verdict.py,
+    # passed_over_text); without them it fell back to the decision's technical reason with unrounded numbers
+    rec = recommend(_front(FRONT), Goal(moe=2.0, budget=2000.0), nominal=0.95)
+    liar = [p for p in rec["passed_over"] if p["design"] == "liar"]
+    assert liar and all(p["evidence"]["coverage"] == "not met" for p in liar)
+    assert all(set(p["evidence"]) == {"coverage", "margin", "cost"} for p in rec["passed_over"])
+    assert V.passed_over_text(liar[0]).startswith("its intervals hold the true value too rarely")
+    no_budget = recommend(_front(FRONT), Goal(moe=2.0), nominal=0.95)
+    assert all(p["evidence"]["cost"] is None for p in no_budget["passed_over"])
