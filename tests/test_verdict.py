@@ -20,7 +20,7 @@ from samplewright.cli import main as cli
 from samplewright.designs.registry import DESIGN_CLASSES
 from samplewright.errors import InputError
 from samplewright.report import verdict as V
-from samplewright.report.table import compact_rows, coverage_cell, format_compact
+from samplewright.report.table import compact_rows, coverage_cell, format_compact, with_frontier_mcse
 
 LABELS = {"currency": "EUR", "unit": "trees", "cluster": "blocks", "variables": {"apples": "kg"}}
 
@@ -458,3 +458,22 @@ def test_an_undecided_points_monte_carlo_error_has_two_significant_figures():
     assert "(Monte Carlo error 0.42 %)" in cov
     assert "(Monte Carlo error 0.040 kg)" in margin
     assert "(Monte Carlo error 12 EUR)" in cost
+
+
+def test_a_cost_with_a_monte_carlo_error_is_rounded_by_it_in_every_table_and_sentence():
+    # the rounding rule (report/verdict.py mc_round: to the decimal of the MCSE's leading digit; Morris, White
+    # and Crowther 2019, sec. 5.2): a mean cost 30,833.35 with MCSE 11.6 (sampled clusters vary the cost) reads
+    # 30,830 everywhere, as the verdict card already wrote it -- the compact table and the closest-design
+    # sentence printed all five digits
+    summary = pd.DataFrame({
+        "design": ["strata"], "method": ["stratified"], "size": [500], "estimator": ["ht"], "variable": ["apples"],
+        "mean_n": [500.0], "mean_cost": [30833.35], "moe": [124.7], "bias": [3.4], "bias_mcse": [3.7],
+        "coverage": [0.957], "coverage_mcse": [0.012], "replicates": [300], "truth": [4000.0],
+        "published_moe": [123.9], "published_moe_mcse": [0.33]})
+    frontier = summary[["design", "size", "estimator", "variable"]].assign(moe_mcse=5.3, cost_mcse=11.6)
+    (row,) = compact_rows(summary, frontier)
+    assert row["mean_cost"] == "30,830"
+    rec = _rec(cheapest_meeting_moe=None, pick=None, pick_stability=None,
+               goals=[{"moe": 120.0, "budget": 30000.0, "confidence": 0.95, "variable": "apples"}])
+    s = V.verdict_sentence(rec, INFO, with_frontier_mcse(summary, frontier))
+    assert "expected cost 30,830 EUR is above the budget 30,000 EUR" in s, s

@@ -229,7 +229,8 @@ def comparison_rows(res, labels: dict) -> list[dict]:
             "size": size_text(chosen.get("method"), chosen.get("size"), chosen.get("mean_n"), labels,
                               (info.get("frame") or {}).get("strata")),
             "analysis": analysis_text({k: chosen.get(k) for k in ("estimator", "variance", "design")}, info),
-            "mean_cost": money(chosen["mean_cost"], None) if (summary["mean_cost"] != 0).any() else "—",
+            "mean_cost": (money(chosen["mean_cost"], None, None if exact else chosen.get("cost_mcse"))
+                          if (summary["mean_cost"] != 0).any() else "—"),
             "moe": mc_round(chosen["moe"], None if exact else chosen.get("moe_mcse")),
             "published_moe": "n/a" if pub is None
             else mc_round(pub, None if exact else chosen.get("published_moe_mcse")),

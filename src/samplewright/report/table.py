@@ -62,7 +62,7 @@ def is_exact(summary: pd.DataFrame) -> bool:
 def cost_text(summary: pd.DataFrame):
     """How a mean cost is shown: ``money``, or a dash for every row when no cost is modelled (all 0)."""
     if len(summary) and not (summary["mean_cost"] != 0).any():
-        return lambda _value: "—"
+        return lambda _value, *_: "—"
     return money
 
 
@@ -160,7 +160,8 @@ def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) ->
             out.append({
                 "design": _design_cell(r, formulas), "size": f"{int(r['size']):,}", "variable": var,
                 "mean_n": num(r["mean_n"]),
-                "mean_cost": cost(r["mean_cost"]), "moe": mc_round(r["moe"], None if exact else r.get("moe_mcse")),
+                "mean_cost": cost(r["mean_cost"], None, None if exact else r.get("cost_mcse")),
+                "moe": mc_round(r["moe"], None if exact else r.get("moe_mcse")),
                 "published_moe": "n/a" if pub is None
                 else mc_round(pub, None if exact else r.get("published_moe_mcse")),
                 "bias": show(r["bias"], r["bias_mcse"]),

@@ -385,7 +385,7 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
         cost = float(row["mean_cost"])
         if int(ev.cost_code(cost, mc("cost_mcse"), float(budget))) in counted:
             out.append((cost / float(budget) - 1,
-                        f"its expected cost {money(cost, labels)} is "
+                        f"its expected cost {money(cost, labels, mc('cost_mcse'))} is "
                         f"{'above' if cost > float(budget) else 'too close to call against'} the budget "
                         f"{money(budget, labels)}"))
     floor = nominal - tolerance
