@@ -163,6 +163,8 @@ def _refused(tmp_path, capsys, doc: dict) -> str:
     (lambda d: d["assumption"][0].update(set="replicates"), ["'icc'", "run setting"]),
     (lambda d: d["assumption"][0].update(values=[0.1, "high"]), ["'icc'", "'high'"]),
     (lambda d: d.update(stress={"max_points": 3}), ["4 points", "max_points = 3"]),
+    # a bound on the cap itself: a grid of 10^8 points under max_points = 10^9 hung while building its points
+    (lambda d: d.update(stress={"max_points": 10**9}), ["max_points", "at most 10000"]),
     (lambda d: d["assumption"].append({"name": "k", "set": "design.1.clusters", "values": [20, 3000]}),
      ["'k'", "3000", "clusters"]),  # refused once the frame is bound: 3000 of its 2000 clusters
 ])
