@@ -271,3 +271,26 @@ def test_any_numeric_key_and_no_goal():
     assert s.loc[(3, "clusters"), "mean_cost"] == 20 * 50 + 200 * 10
     assert res.stress_verdict["pick"].isna().all() and len(res.break_even) == 0
     assert "no [goal]" in stress_context(res)["lead"][0]
+
+
+def test_a_pick_change_no_difference_explains_names_no_criterion():
+    # interface check (decision/stress.py module notes): the criterion names the deciding difference d whose sign
+    # change moved the pick; here both picks meet the margin at both points and the first stays the cheaper, so
+    # no d changes sign (evidence, e.g. coverage, moved the pick) -- the row must not say "the two picks' costs
+    # cross", which the report then printed beside "no margin, cost or goal crosses there"
+    from samplewright.decision.stress import BRACKET, PointOutcome, break_even_table
+
+    a = {"design": "villages", "size": 40, "estimator": "hajek", "variance": "two_stage"}
+    b = {"design": "households", "size": 250, "estimator": "ht", "variance": "psu"}
+    errors = {tuple(a.values()): (np.full(50, 9.0), np.full(50, 5040.0)),
+              tuple(b.values()): (np.full(50, 4.0), np.full(50, 9069.0))}
+
+    def outcome(i, x, pick):
+        rec = {"pick": "cheapest_meeting_moe", "cheapest_meeting_moe": pick, "goal": {"moe": 8.0, "confidence": 0.95}}
+        return PointOutcome(index=i, values={"icc": x}, summary=pd.DataFrame(), frontier=None, recommendation=rec,
+                            errors=errors)
+
+    table = break_even_table([outcome(1, 0.15, a), outcome(2, 0.2, b)], ["icc"], [("icc", [1, 2])])
+    (row,) = table.to_dict("records")
+    assert row["method"] == BRACKET and (row["low"], row["high"]) == (0.15, 0.2)
+    assert row["criterion"] is None or (isinstance(row["criterion"], float) and math.isnan(row["criterion"]))
