@@ -477,3 +477,14 @@ def test_a_cost_with_a_monte_carlo_error_is_rounded_by_it_in_every_table_and_sen
                goals=[{"moe": 120.0, "budget": 30000.0, "confidence": 0.95, "variable": "apples"}])
     s = V.verdict_sentence(rec, INFO, with_frontier_mcse(summary, frontier))
     assert "expected cost 30,830 EUR is above the budget 30,000 EUR" in s, s
+
+
+def test_an_undecided_cluster_point_counts_clusters_not_units():
+    # interface check: recommendation.json undecided entries carry no method, so the sentence takes it from
+    # run.json designs; it said "'villages' at 30 trees" for 30 clusters of a cluster design
+    rec = _rec(undecided=[{"design": "villages", "size": 30, "estimator": "hajek", "variance": "two_stage",
+                           "variable": "apples", "criterion": "coverage", "value": 0.944, "mcse": 0.0042,
+                           "limit": 0.94, "replicates": 3000, "replicates_needed": 15817}])
+    info = {**INFO, "designs": [{"label": "villages", "method": "cluster", "variance": "two_stage"}]}
+    (line,) = V.undecided_sentences(rec, info)
+    assert line.startswith("Undecided: 'villages' at 30 blocks ("), line

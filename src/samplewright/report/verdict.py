@@ -194,14 +194,19 @@ def size_text(method, size, mean_n=None, labels: dict | None = None, strata=None
     return text
 
 
-def variance_of(p: dict, info: dict | None = None):
-    """A point's variance formula: its own ``variance``, else its design's in run.json ``designs``."""
-    if p.get("variance"):
-        return p["variance"]
+def _design_setting(p: dict, info: dict | None, key: str):
+    """A point's own ``key`` (``variance``, ``method``), else its design's in run.json ``designs``."""
+    if p.get(key):
+        return p[key]
     for d in (info or {}).get("designs") or []:
         if isinstance(d, dict) and d.get("label") == p.get("design"):
-            return d.get("variance")
+            return d.get(key)
     return None
+
+
+def variance_of(p: dict, info: dict | None = None):
+    """A point's variance formula: its own ``variance``, else its design's in run.json ``designs``."""
+    return _design_setting(p, info, "variance")
 
 
 def analysis_text(p: dict, info: dict | None = None) -> str:
@@ -219,7 +224,8 @@ def analysis_text(p: dict, info: dict | None = None) -> str:
 def point_name(p: dict, labels: dict, info: dict | None = None) -> str:
     """``'every k-th tree' at 400 trees`` (the design's label quoted as given)."""
     strata = ((info or {}).get("frame") or {}).get("strata")
-    return f"'{p.get('design')}' at {size_text(p.get('method'), p.get('size'), p.get('mean_n'), labels, strata)}"
+    method = _design_setting(p, info, "method")  # undecided entries carry no method: the design's, from run.json
+    return f"'{p.get('design')}' at {size_text(method, p.get('size'), p.get('mean_n'), labels, strata)}"
 
 
 # ------------------------------------------------------------------ the pick
