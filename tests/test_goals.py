@@ -139,3 +139,21 @@ def test_the_closest_design_sentence_judges_margin_and_cost_by_their_monte_carlo
     assert f["moe"] < 3.8 < f["moe"] + 2 * f["moe_mcse"]  # undecided by the rule: too close to call
     s = res.recommendation["statement"]
     assert "achieved margin" in s and "too close to call against the goal ±3.8" in s, s
+
+
+def test_the_closest_design_sentence_states_margins_at_the_goals_confidence():
+    # a goal at 80 % confidence in a run of 95 % intervals: the decision judges z_0.80 x RMSE and the published
+    # half-width x z_0.80 / z_0.95 (scipy-free normal quantile, evaluation/normal.py); the sentence quoted the
+    # 95 % margins (±3.76 "above the goal ±2.5" where the frontier's achieved margin is 2.46)
+    from samplewright.evaluation.normal import normal_quantile
+    from samplewright.report.verdict import mc_round
+
+    doc = {"frame": {"synthetic": {"units": 2000, "seed": 3, "mean": 100.0, "sd": 20.0}},
+           "design": [{"label": "simple", "method": "srs", "n": [50, 100], "estimators": ["ht"]}],
+           "cost": {"per_unit": 10.0}, "goal": {"moe": 2.5, "confidence": 0.8, "stability_rounds": 0}}
+    res = sw.run(sw.scenario_from_dict(doc), replicates=400, seed=1, max_replicates=400)
+    s = res.recommendation["statement"]
+    f = res.frontier[res.frontier["size"] == 100].iloc[0]
+    scale = normal_quantile(0.8) / normal_quantile(0.95)
+    assert f"achieved margin ±{mc_round(f['moe'], f['moe_mcse'])} " in s, s
+    assert f"published margin ±{mc_round(f['published_moe'] * scale, f['published_moe_mcse'] * scale)} " in s, s

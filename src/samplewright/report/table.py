@@ -134,7 +134,8 @@ def compact_columns(summary: pd.DataFrame, labels: dict) -> list[tuple[str, str]
 
 def with_frontier_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> pd.DataFrame:
     """``summary`` with the Monte Carlo SEs only the run's frontier holds (``moe_mcse`` of the achieved margin,
-    ``cost_mcse`` of the mean cost), when it has them: the decision's evidence rule reads both."""
+    at the summary's confidence, and ``cost_mcse`` of the mean cost), when it has them: the decision's evidence
+    rule reads both."""
     if frontier is None:
         return summary
     extra = [c for c in ("moe_mcse", "cost_mcse") if c in frontier.columns and c not in summary.columns]
@@ -142,7 +143,13 @@ def with_frontier_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> 
         return summary
     keys = [k for k in ("design", "size", "estimator", "variance", "variable")
             if k in summary.columns and k in frontier.columns]
-    return summary.merge(frontier[keys + extra].drop_duplicates(keys), on=keys, how="left")
+    rescale = "moe_mcse" in extra and "moe" in frontier.columns and "moe" in summary.columns
+    take = frontier[keys + extra + (["moe"] if rescale else [])].drop_duplicates(keys)
+    out = summary.merge(take.rename(columns={"moe": "_goal_moe"}), on=keys, how="left")
+    if rescale:  # the frontier's margin is at the goal's confidence: its MCSE back to the summary's
+        out["moe_mcse"] = out["moe_mcse"] * (out["moe"] / out["_goal_moe"]).where(out["_goal_moe"] > 0, 1.0)
+        out = out.drop(columns="_goal_moe")
+    return out
 
 
 def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) -> list[dict]:

@@ -23,6 +23,7 @@ import math
 from samplewright.config.goal import COVERAGE_TOLERANCE
 from samplewright.decision import evidence as ev
 from samplewright.designs.registry import DESIGN_CLASSES
+from samplewright.evaluation.normal import normal_quantile
 from samplewright.report.names import estimator_name, method_name, variance_name
 
 #: confidence level of the exact binomial interval shown for a coverage of 0 or 1
@@ -377,13 +378,17 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
     if goal_moe is None and g.get("relative_moe") is not None and _finite(row.get("truth")):
         goal_moe = float(g["relative_moe"]) * abs(float(row["truth"]))
     if _finite(goal_moe):
+        # the summary's margins are at the run's confidence; the goal's may differ (the decision's scale)
+        conf = g.get("confidence")
+        scale = normal_quantile(float(conf)) / normal_quantile(nominal) if _finite(conf) else 1.0
         for key, what in (("published_moe", "published margin"), ("moe", "achieved margin")):
             if not _finite(row.get(key)):
                 continue
-            v, m = float(row[key]), mc(key + "_mcse")
+            v, m = scale * float(row[key]), scale * mc(key + "_mcse")
+            shown = scale * float(row[key + "_mcse"]) if _finite(row.get(key + "_mcse")) else None
             if int(ev.margin_code(v, m, v, m, float(goal_moe))) in counted:
                 out.append((v / float(goal_moe) - 1,
-                            f"its {what} ±{with_unit(mc_round(v, row.get(key + '_mcse')), unit)} is "
+                            f"its {what} ±{with_unit(mc_round(v, shown), unit)} is "
                             f"{'above' if v > float(goal_moe) else 'too close to call against'} the goal "
                             f"±{with_unit(num(goal_moe), unit)}"))
     budget = next((x.get("budget") for x in goals if x.get("budget") is not None), None)
