@@ -46,6 +46,11 @@ def test_size_for_moe_on_the_exact_curve_is_cochrans_fpc_size():
     assert size_for_moe(curve, E, Z95) == pytest.approx(planning.fpc_mean(n0, N), rel=1e-12)
     assert size_for_moe(curve, E, Z95) == pytest.approx(planning.sample_size(E, sd=np.sqrt(S2), population=N)
                                                         ["n_after_fpc"], rel=1e-12)
+    # a margin so wide that (E/z)^2 overflows a float: Cochran's n0 = (z S / E)^2 is then 0 and so is the size
+    # (a goal of 1e200 made the recommendation fail with an OverflowError and the run exit 1)
+    huge = 1e200
+    assert size_for_moe(curve, huge, Z95) == pytest.approx(planning.fpc_mean((Z95 * np.sqrt(S2) / huge) ** 2, N),
+                                                           abs=1e-300)
 
 
 def test_fit_on_a_simulated_srs_sweep_matches_the_exact_variance():
@@ -237,3 +242,15 @@ def test_without_a_cost_model_the_cheapest_pick_is_the_smallest_sample_meeting_t
                                 "goal": {"moe": 1e9}})
     rec = sw.run(sc, replicates=200, seed=3).recommendation
     assert rec["cheapest_meeting_moe"]["size"] == 100
+
+
+def test_a_passed_over_point_carries_its_evidence_states_for_the_plain_words():
+    # interface check: the report words a passed-over point from its evidence states (report/verdict.py,
+    # passed_over_text); without them it fell back to the decision's technical reason with unrounded numbers
+    rec = recommend(_front(FRONT), Goal(moe=2.0, budget=2000.0), nominal=0.95)
+    liar = [p for p in rec["passed_over"] if p["design"] == "liar"]
+    assert liar and all(p["evidence"]["coverage"] == "not met" for p in liar)
+    assert all(set(p["evidence"]) == {"coverage", "margin", "cost"} for p in rec["passed_over"])
+    assert V.passed_over_text(liar[0]).startswith("its intervals hold the true value too rarely")
+    no_budget = recommend(_front(FRONT), Goal(moe=2.0), nominal=0.95)
+    assert all(p["evidence"]["cost"] is None for p in no_budget["passed_over"])

@@ -86,7 +86,11 @@ def _doc(goal):
     ({"moe": 1.0, "coverage_tolerance": -0.01}, ["coverage_tolerance"]),
     ({"moe": 1.0, "domain": "north"}, ["domain", "no domain column"]),
     ({"moe": 1.0, "stability_rounds": 2.5}, ["stability_rounds"]),
+    # a bound, not a hang or a memory error: each round recomputes every measure (a sanity bound, no source)
+    ({"moe": 1.0, "stability_rounds": 10**11}, ["stability_rounds", "at most 10000"]),
     ([{"moe": 1.0}, {"moe": 2.0}], ["same variable"]),
+    # a goal without variable is about the first target ('y' here): naming it makes the same goal twice
+    ([{"moe": 1.0}, {"variable": "y", "moe": 2.0}], ["same variable"]),
 ])
 def test_bad_goal_values_are_refused(goal, words):
     with pytest.raises(InputError) as exc:
@@ -105,3 +109,51 @@ def test_a_second_different_budget_exits_2_with_one_error_line(tmp_path, capsys)
     lines = err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("error: ") and "budget" in lines[0], err
     assert not (tmp_path / "out").exists()
+
+
+def test_a_goal_domain_the_frame_does_not_have_exits_2_naming_it(tmp_path, capsys):
+    # interface check: without a [frame] domains list the domain values are known only from the frame; a goal
+    # for a value that does not occur there was accepted and the verdict spoke of the whole population
+    path = tmp_path / "people.csv"
+    frame_with_two_targets().to_csv(path, index=False)  # region: north, south
+    scen = tmp_path / "s.toml"
+    scen.write_text(f'[frame]\npath = "{path.name}"\ntarget = "income"\ndomain = "region"\n\n'
+                    '[[design]]\nlabel = "s"\nmethod = "srs"\nn = 30\n\n[goal]\nmoe = 200.0\ndomain = "east"\n')
+    code = main(["run", str(scen), "--out", str(tmp_path / "out"), "--quiet", "--replicates", "20"])
+    err = capsys.readouterr().err
+    lines = err.strip().splitlines()
+    assert code == 2 and len(lines) == 1 and lines[0].startswith("error: "), err
+    assert "'east'" in lines[0] and "'region'" in lines[0]
+    assert not (tmp_path / "out").exists()
+
+
+def test_the_closest_design_sentence_judges_margin_and_cost_by_their_monte_carlo_errors():
+    # the verdict's "closest" sentence must state each criterion as the decision's evidence rule does
+    # (z = 2 MCSE, Morris, White & Crowther 2019): the achieved margin's and the cost's MCSEs live in the
+    # frontier, and without them the sentence treated the achieved margin as exact
+    doc = {"frame": {"synthetic": {"units": 2000, "seed": 3, "mean": 100.0, "sd": 20.0}},
+           "design": [{"label": "simple", "method": "srs", "n": 100, "estimators": ["ht"]}],
+           "cost": {"per_unit": 10.0}, "goal": {"moe": 3.8, "stability_rounds": 0}}
+    res = sw.run(sw.scenario_from_dict(doc), replicates=200, seed=1, max_replicates=200)
+    f = res.frontier.iloc[0]
+    assert f["moe"] < 3.8 < f["moe"] + 2 * f["moe_mcse"]  # undecided by the rule: too close to call
+    s = res.recommendation["statement"]
+    assert "achieved margin" in s and "too close to call against the goal ±3.8" in s, s
+
+
+def test_the_closest_design_sentence_states_margins_at_the_goals_confidence():
+    # a goal at 80 % confidence in a run of 95 % intervals: the decision judges z_0.80 x RMSE and the published
+    # half-width x z_0.80 / z_0.95 (scipy-free normal quantile, evaluation/normal.py); the sentence quoted the
+    # 95 % margins (±3.76 "above the goal ±2.5" where the frontier's achieved margin is 2.46)
+    from samplewright.evaluation.normal import normal_quantile
+    from samplewright.report.verdict import mc_round
+
+    doc = {"frame": {"synthetic": {"units": 2000, "seed": 3, "mean": 100.0, "sd": 20.0}},
+           "design": [{"label": "simple", "method": "srs", "n": [50, 100], "estimators": ["ht"]}],
+           "cost": {"per_unit": 10.0}, "goal": {"moe": 2.5, "confidence": 0.8, "stability_rounds": 0}}
+    res = sw.run(sw.scenario_from_dict(doc), replicates=400, seed=1, max_replicates=400)
+    s = res.recommendation["statement"]
+    f = res.frontier[res.frontier["size"] == 100].iloc[0]
+    scale = normal_quantile(0.8) / normal_quantile(0.95)
+    assert f"achieved margin ±{mc_round(f['moe'], f['moe_mcse'])} " in s, s
+    assert f"published margin ±{mc_round(f['published_moe'] * scale, f['published_moe_mcse'] * scale)} " in s, s

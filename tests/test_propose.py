@@ -278,3 +278,15 @@ def test_bands_on_an_auxiliary_column_when_the_frame_has_no_size(tmp_path, capsy
     assert "bands on vat" in set(cand["family"]) and "pps" not in set(cand["family"])
     doc = tomllib.loads((tmp_path / "o" / "proposal.toml").read_text())
     assert {d.get("stratify_by") for d in doc["design"] if d["method"] == "stratified"} == {"vat"}
+
+
+def test_nothing_meets_the_goal_says_why_without_pointing_at_an_unwritten_file(tmp_path, capsys):
+    # interface check: the refusal comes before anything is written, so it cannot send the reader to
+    # candidates.csv; it gives the reference design's (SRS) own reason instead
+    (tmp_path / "s.toml").write_text('[frame.synthetic]\nunits = 200\n[cost]\nfixed = 500.0\nper_unit = 20.0\n'
+                                     '[[design]]\nlabel = "a"\nmethod = "srs"\nn = 10\n')
+    assert main(["propose", str(tmp_path / "s.toml"), "--out", str(tmp_path / "o"), "--budget", "100"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("error:") and "none of the" in err[0], err
+    assert "candidates.csv" not in err[0] and "srs: the budget does not pay" in err[0]
+    assert not (tmp_path / "o").exists()

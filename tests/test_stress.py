@@ -163,6 +163,8 @@ def _refused(tmp_path, capsys, doc: dict) -> str:
     (lambda d: d["assumption"][0].update(set="replicates"), ["'icc'", "run setting"]),
     (lambda d: d["assumption"][0].update(values=[0.1, "high"]), ["'icc'", "'high'"]),
     (lambda d: d.update(stress={"max_points": 3}), ["4 points", "max_points = 3"]),
+    # a bound on the cap itself: a grid of 10^8 points under max_points = 10^9 hung while building its points
+    (lambda d: d.update(stress={"max_points": 10**9}), ["max_points", "at most 10000"]),
     (lambda d: d["assumption"].append({"name": "k", "set": "design.1.clusters", "values": [20, 3000]}),
      ["'k'", "3000", "clusters"]),  # refused once the frame is bound: 3000 of its 2000 clusters
 ])
@@ -270,3 +272,56 @@ def test_any_numeric_key_and_no_goal():
     assert s.loc[(3, "clusters"), "mean_cost"] == 20 * 50 + 200 * 10
     assert res.stress_verdict["pick"].isna().all() and len(res.break_even) == 0
     assert "no [goal]" in stress_context(res)["lead"][0]
+
+
+def test_a_pick_change_no_difference_explains_names_no_criterion():
+    # interface check (decision/stress.py module notes): the criterion names the deciding difference d whose sign
+    # change moved the pick; here both picks meet the margin at both points and the first stays the cheaper, so
+    # no d changes sign (evidence, e.g. coverage, moved the pick) -- the row must not say "the two picks' costs
+    # cross", which the report then printed beside "no margin, cost or goal crosses there"
+    from samplewright.decision.stress import BRACKET, PointOutcome, break_even_table
+
+    a = {"design": "villages", "size": 40, "estimator": "hajek", "variance": "two_stage"}
+    b = {"design": "households", "size": 250, "estimator": "ht", "variance": "psu"}
+    errors = {tuple(a.values()): (np.full(50, 9.0), np.full(50, 5040.0)),
+              tuple(b.values()): (np.full(50, 4.0), np.full(50, 9069.0))}
+
+    def outcome(i, x, pick):
+        rec = {"pick": "cheapest_meeting_moe", "cheapest_meeting_moe": pick, "goal": {"moe": 8.0, "confidence": 0.95}}
+        return PointOutcome(index=i, values={"icc": x}, summary=pd.DataFrame(), frontier=None, recommendation=rec,
+                            errors=errors)
+
+    table = break_even_table([outcome(1, 0.15, a), outcome(2, 0.2, b)], ["icc"], [("icc", [1, 2])])
+    (row,) = table.to_dict("records")
+    assert row["method"] == BRACKET and (row["low"], row["high"]) == (0.15, 0.2)
+    assert row["criterion"] is None or (isinstance(row["criterion"], float) and math.isnan(row["criterion"]))
+
+
+def test_the_stress_section_names_picks_plainly_and_rounds_margins_by_their_error():
+    # format check: the report uses plain names for estimators and variance formulas (README, report.html) and
+    # rounds a margin to the decimal of its MCSE's leading digit (report/verdict.py mc_round); the section
+    # printed the tables' codes ("hajek, two_stage") and four significant figures ("6.589" with MCSE 0.119)
+    from types import SimpleNamespace
+
+    from samplewright.report.names import estimator_name, variance_name
+    from samplewright.report.stress import stress_context
+
+    def pick(point, x, size, moe, mcse):
+        return {"point": point, "icc": x, "pick": "cheapest_meeting_moe", "design": "villages", "size": size,
+                "estimator": "hajek", "variance": "two_stage", "moe": moe, "moe_mcse": mcse, "mean_cost": 5040.0,
+                "evidence_coverage": "met", "evidence_margin": "met", "evidence_cost": None}
+
+    verdict = pd.DataFrame([pick(1, 0.05, 25, 7.4404, 0.0967), pick(2, 0.1, 40, 6.5888, 0.119)])
+    change = {"assumption": "icc", "from_value": 0.05, "to_value": 0.1,
+              "pick_before": "villages, size 25, hajek, two_stage", "pick_after": "villages, size 40, hajek, two_stage",
+              "design_before": "villages", "design_after": "villages", "criterion": math.nan,
+              "break_even": math.nan, "break_even_se": math.nan, "low": 0.05, "high": 0.1, "method": "bracketing"}
+    info = {"stress": {"mode": "one_at_a_time", "points": 2, "assumptions": [
+        {"name": "icc", "set": "frame.synthetic.clusters.icc", "values": [0.05, 0.1], "base": 0.1}]}}
+    res = SimpleNamespace(info=info, stress=pd.DataFrame({"point": [1, 2]}), stress_verdict=verdict,
+                          break_even=pd.DataFrame([change]))
+    ctx = stress_context(res)
+    text = " ".join(ctx["lead"] + [r["pick"] for r in ctx["rows"]])
+    assert "hajek" not in text and "two_stage" not in text, text
+    assert estimator_name("hajek") in text and variance_name("two_stage") in text
+    assert [r["moe"] for r in ctx["rows"]] == ["7.44", "6.6"]  # MCSE 0.0967: second decimal; 0.119: first

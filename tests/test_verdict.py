@@ -21,7 +21,7 @@ from samplewright.cli import main as cli
 from samplewright.designs.registry import DESIGN_CLASSES
 from samplewright.errors import InputError
 from samplewright.report import verdict as V
-from samplewright.report.table import compact_rows, coverage_cell, format_compact
+from samplewright.report.table import compact_rows, coverage_cell, format_compact, with_frontier_mcse
 
 LABELS = {"currency": "EUR", "unit": "trees", "cluster": "blocks", "variables": {"apples": "kg"}}
 
@@ -426,3 +426,71 @@ def test_between_sizes_sentences_say_they_are_interpolated():
     assert "about 315" in text and "3,142" in text and "not rehearsed" in text
     rec["interpolated"] = [{**row, "estimator": "hajek"}]
     assert V.between_sizes_sentences(rec, V.labels_of(None)) == []
+
+
+def test_the_evidence_row_names_only_the_criteria_the_goal_judges():
+    # interface/format check: a budget-only goal judges no margin (the decision writes margin: null) and a
+    # margin-only goal no cost; the card must not show the reader the word "None" for them
+    budget_only = _rec(cheapest_meeting_moe=_pick(evidence={"coverage": "met", "margin": None, "cost": "met"}))
+    rows = dict(V.key_numbers(budget_only, INFO))
+    assert rows["Evidence"] == "coverage met, expected cost met"
+    margin_only = _rec(cheapest_meeting_moe=_pick(evidence={"coverage": "met", "margin": "met", "cost": None}))
+    assert dict(V.key_numbers(margin_only, INFO))["Evidence"] == "coverage met, margin met"
+
+
+def test_an_undecided_coverage_above_the_promise_reads_too_close_to_call():
+    # evidence rule (README, decision/evidence.py): coverage c with MCSE s is met when c - 2 s >= q - t; here
+    # 0.96 - 2 x 0.0139 = 0.932 < 0.94 <= 0.96 + 2 x 0.0139: undecided, not a miss -- the words must not read
+    # "held 96 % against the promised 95 %" as if that were a shortfall
+    row = {"variable": "apples", "coverage": 0.96, "coverage_mcse": 0.0139, "replicates": 200}
+    ((_, words),) = V.shortfalls(row, [{"variable": "apples"}], 0.95, 0.01, LABELS)
+    assert words == ("its intervals held the true value in 96 % of samples, too close to call against the "
+                     "promised 95 % (less the tolerance 1 %)")
+    below = {**row, "coverage": 0.90, "coverage_mcse": 0.0212}  # 0.90 + 2 x 0.0212 < 0.94: not met
+    ((_, words),) = V.shortfalls(below, [{"variable": "apples"}], 0.95, 0.01, LABELS)
+    assert words == ("its intervals held the true value in 90 % of samples against the promised 95 % "
+                     "(less the tolerance 1 %)")
+
+
+def test_an_undecided_points_monte_carlo_error_has_two_significant_figures():
+    # format check: an MCSE is shown to two significant figures, as the tables show it (report/table.py,
+    # with_mcse); four ("0.4221 %", "0.03987") claimed a precision the error of an error does not have
+    base = {"design": "zones", "method": "stratified", "size": 400, "estimator": "ht", "variance": "psu",
+            "variable": "apples", "replicates": 300, "replicates_needed": 19000}
+    rec = _rec(undecided=[{**base, "criterion": "coverage", "value": 0.9433, "mcse": 0.004221, "limit": 0.94},
+                          {**base, "criterion": "margin", "value": 3.13, "mcse": 0.03987, "limit": 3.1},
+                          {**base, "criterion": "cost", "value": 4490.0, "mcse": 11.56, "limit": 4500.0}])
+    cov, margin, cost = V.undecided_sentences(rec, INFO)
+    assert "(Monte Carlo error 0.42 %)" in cov
+    assert "(Monte Carlo error 0.040 kg)" in margin
+    assert "(Monte Carlo error 12 EUR)" in cost
+
+
+def test_a_cost_with_a_monte_carlo_error_is_rounded_by_it_in_every_table_and_sentence():
+    # the rounding rule (report/verdict.py mc_round: to the decimal of the MCSE's leading digit; Morris, White
+    # and Crowther 2019, sec. 5.2): a mean cost 30,833.35 with MCSE 11.6 (sampled clusters vary the cost) reads
+    # 30,830 everywhere, as the verdict card already wrote it -- the compact table and the closest-design
+    # sentence printed all five digits
+    summary = pd.DataFrame({
+        "design": ["strata"], "method": ["stratified"], "size": [500], "estimator": ["ht"], "variable": ["apples"],
+        "mean_n": [500.0], "mean_cost": [30833.35], "moe": [124.7], "bias": [3.4], "bias_mcse": [3.7],
+        "coverage": [0.957], "coverage_mcse": [0.012], "replicates": [300], "truth": [4000.0],
+        "published_moe": [123.9], "published_moe_mcse": [0.33]})
+    frontier = summary[["design", "size", "estimator", "variable"]].assign(moe_mcse=5.3, cost_mcse=11.6)
+    (row,) = compact_rows(summary, frontier)
+    assert row["mean_cost"] == "30,830"
+    rec = _rec(cheapest_meeting_moe=None, pick=None, pick_stability=None,
+               goals=[{"moe": 120.0, "budget": 30000.0, "confidence": 0.95, "variable": "apples"}])
+    s = V.verdict_sentence(rec, INFO, with_frontier_mcse(summary, frontier))
+    assert "expected cost 30,830 EUR is above the budget 30,000 EUR" in s, s
+
+
+def test_an_undecided_cluster_point_counts_clusters_not_units():
+    # interface check: recommendation.json undecided entries carry no method, so the sentence takes it from
+    # run.json designs; it said "'villages' at 30 trees" for 30 clusters of a cluster design
+    rec = _rec(undecided=[{"design": "villages", "size": 30, "estimator": "hajek", "variance": "two_stage",
+                           "variable": "apples", "criterion": "coverage", "value": 0.944, "mcse": 0.0042,
+                           "limit": 0.94, "replicates": 3000, "replicates_needed": 15817}])
+    info = {**INFO, "designs": [{"label": "villages", "method": "cluster", "variance": "two_stage"}]}
+    (line,) = V.undecided_sentences(rec, info)
+    assert line.startswith("Undecided: 'villages' at 30 blocks ("), line

@@ -33,6 +33,7 @@ from samplewright.evaluation.nonresponse import summary_columns
 from samplewright.evaluation.stopping import Rule, parse_until
 from samplewright.population.frame import Frame
 from samplewright.report import verdict
+from samplewright.report.table import with_frontier_mcse
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
 from samplewright.simulation.checkpoint import BlockStore
 from samplewright.simulation.engine import replicate_table, simulate, simulate_until
@@ -657,7 +658,7 @@ def _words(res: RunResult, scenario: Scenario) -> None:
         return
     try:
         rec["units"] = {"currency": scenario.labels.currency, "variables": dict(scenario.labels.units)}
-        rec["statement"] = verdict.verdict_sentence(rec, res.info, res.summary)
+        rec["statement"] = verdict.verdict_sentence(rec, res.info, with_frontier_mcse(res.summary, res.frontier))
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         _late_failure(res, "the verdict sentence", exc)
 

@@ -8,6 +8,9 @@ from dataclasses import dataclass
 COVERAGE_TOLERANCE = 0.01
 #: default bootstrap rounds of the pick's stability (decision/stability.py)
 STABILITY_ROUNDS = 200
+#: most bootstrap rounds accepted: each recomputes every measure of every point (a share's MCSE is then at
+#: most 0.005; a sanity bound, no published source)
+MAX_STABILITY_ROUNDS = 10_000
 #: keys that belong to the whole design, not to one goal: given once, or the same in every [[goal]]
 DESIGN_WIDE = ("budget", "coverage_tolerance", "stability_rounds")
 

@@ -15,7 +15,7 @@ from pathlib import Path
 
 from samplewright.config.costs import KEYS as COST_KEYS
 from samplewright.config.costs import SCALAR_KEYS as COST_SCALARS
-from samplewright.config.goal import DESIGN_WIDE, Goal
+from samplewright.config.goal import DESIGN_WIDE, MAX_STABILITY_ROUNDS, Goal
 from samplewright.config.labels import Labels, labels_spec
 from samplewright.config.methods import METHOD_KEYS, RENAMED_METHODS, size_key
 from samplewright.config.stress import StressSpec, stress_spec
@@ -335,8 +335,10 @@ def goals(doc, roles: dict) -> tuple[Goal, ...]:
                                      f"{shared[k][1]}; {k} applies to the whole design: give it once")
                 shared.setdefault(k, (kw[k], ctx))
     seen = {}
+    targets = roles.get("target")
+    first = targets if isinstance(targets, str) else (list(targets)[0] if targets else None)
     for kw, ctx in zip(parsed, ctxs):
-        key = (kw.get("variable"), kw.get("domain"))
+        key = (kw.get("variable", first), kw.get("domain"))  # a goal without variable is about the first target
         if key in seen:
             raise InputError(f"{ctx}: a second goal for the same variable and domain as {seen[key]}; "
                              f"give one [[goal]] per variable or domain")
@@ -366,7 +368,8 @@ def _goal(g: dict, roles: dict, ctx: str) -> dict:
             raise InputError(f"{ctx}: coverage_tolerance must be at least 0 and below 0.5 (a share of "
                              f"intervals, e.g. 0.01 for one percentage point), got {show(g['coverage_tolerance'])}")
     if "stability_rounds" in g:
-        kw["stability_rounds"] = as_int(g["stability_rounds"], "stability_rounds", ctx, minimum=0)
+        kw["stability_rounds"] = as_int(g["stability_rounds"], "stability_rounds", ctx, minimum=0,
+                                          maximum=MAX_STABILITY_ROUNDS)
     targets = roles.get("target")
     if "variable" in g:
         v = as_str(g["variable"], "variable", ctx)

@@ -28,6 +28,8 @@ STRESS_KEYS = ("mode", "max_points")
 MODES = ("one_at_a_time", "grid")
 #: default cap on the number of assumption points (each is a full run: a sanity bound, no published source)
 MAX_POINTS = 200
+#: the most max_points may raise it to (each point is a whole rehearsal; a sanity bound, no published source)
+MAX_POINTS_LIMIT = 10_000
 #: keys that are run settings, not assumptions: varying them would break the common random numbers
 #: or change what is measured rather than the world measured
 RUN_SETTINGS = ("seed", "replicates", "block_size", "frame.synthetic.seed")
@@ -183,7 +185,8 @@ def stress_spec(doc: dict, synthetic: bool) -> StressSpec | None:
     mode = as_str(settings.get("mode", "one_at_a_time"), "mode", "[stress]")
     if mode not in MODES:
         raise InputError(f"[stress]: mode = {show(mode)} is not accepted{closest(mode, MODES)}")
-    cap = as_int(settings.get("max_points", MAX_POINTS), "max_points", "[stress]", minimum=1)
+    cap = as_int(settings.get("max_points", MAX_POINTS), "max_points", "[stress]", minimum=1,
+                 maximum=MAX_POINTS_LIMIT)
     assumptions = tuple(_assumption(t, i, doc, synthetic) for i, t in enumerate(tables))
     names = [a.name for a in assumptions]
     for what, seen in (("name", names), ("set", [a.key for a in assumptions])):

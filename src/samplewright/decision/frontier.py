@@ -173,7 +173,8 @@ def _basis(curve: dict, n: float) -> str:
 
 def size_for_moe(curve: dict, moe: float, z: float) -> float | None:
     """Real size n with z sqrt(a/n + b) = moe, or None when the fitted curve never gets there."""
-    target = (moe / z) ** 2
+    half = moe / z
+    target = half * half  # inf, not an OverflowError, for a margin past 1e154: every size then meets it
     if curve["a"] <= 0 or target - curve["b"] <= 0:
         return None
     return curve["a"] / (target - curve["b"])

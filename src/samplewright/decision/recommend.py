@@ -262,7 +262,7 @@ def recommend(front: pd.DataFrame, goals, nominal: float, domain_column: str | N
         "pick": headline if picks[headline] is not None else None,
         "undecided": undecided(keys, b, s, codes, chosen[headline], s.variables),
         "passed_over": [{**dict(zip(point_columns(front), _plain(key))),
-                         "reason": _reason(i, b, s, codes)}
+                         "evidence": evidence_of(s, codes, i), "reason": _reason(i, b, s, codes)}
                         for i, key in enumerate(keys) if i not in chosen.values()],
         "interpolated": interp,
         "goal": goal_dict(first, s, 0),
@@ -297,15 +297,20 @@ def _num(v) -> float | None:
     return None if v is None or not np.isfinite(v) else float(v)
 
 
+def evidence_of(s: Setting, codes: dict, i: int) -> dict:
+    """Point ``i``'s state on each criterion over every goal (its worst), None for a criterion no goal sets."""
+    return {"coverage": ev.state(codes["coverage"][:, i].min()),
+            "margin": ev.state(codes["margin"][:, i].min()) if s.has_margin else None,
+            "cost": ev.state(codes["cost"][i]) if s.budget is not None else None}
+
+
 def pick_dict(front: pd.DataFrame, rows: np.ndarray, b: Board, s: Setting, codes: dict, i: int) -> dict:
     """A pick: the point's numbers on its first goal's row, the evidence and every goal's own numbers."""
     r = front.iloc[int(rows[0, i])]  # a pick has a row for every goal
     out = {k: (int(r[k]) if k in ("size", "replicates") else r[k] if isinstance(r[k], str) else float(r[k]))
            for k in PICK_KEYS}
     out["variance"] = r["variance"] if "variance" in front.columns else None
-    out["evidence"] = {"coverage": ev.state(codes["coverage"][:, i].min()),
-                       "margin": ev.state(codes["margin"][:, i].min()) if s.has_margin else None,
-                       "cost": ev.state(codes["cost"][i]) if s.budget is not None else None}
+    out["evidence"] = evidence_of(s, codes, i)
     out["goals"] = []
     for g in range(len(s.goals)):
         p90 = front["published_moe_p90"].to_numpy(dtype=float)[rows[g, i]] if rows[g, i] >= 0 else np.nan

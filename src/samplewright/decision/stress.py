@@ -236,9 +236,9 @@ def _break_even(name: str, x1: float, x2: float, o1: PointOutcome, o2: PointOutc
         return row
     text, deciding = _criterion(rule, o1, o2, p1, p2)
     d1, d2 = deciding(o1), deciding(o2)
-    row["criterion"] = text
-    if not d1.value * d2.value < 0:
+    if not d1.value * d2.value < 0:  # d did not move the pick (evidence such as coverage did): no criterion
         return row
+    row["criterion"] = text
     D, dx = d1.value - d2.value, x2 - x1
     x = x1 + dx * d1.value / D
     g1, g2 = -dx * d2.value / D**2, dx * d1.value / D**2

@@ -81,9 +81,12 @@ def prepare(scenario: Scenario, frame, budget=None, moe=None, relative_moe=None,
     found = screen(bound, scenario.cost, s, screened_on, budget=budget, moe=margin, z=z,
                    seed=scenario.seed if seed is None else seed, max_candidates=int(max_candidates),
                    stratify_by=stratify_by)
-    if not found.shortlist:
-        raise InputError(f"propose: none of the {len(found.candidates)} candidate designs meets the goal "
-                         f"({kind.replace('_', ' ')} = {value:g}); see each one's note in candidates.csv")
+    if not found.shortlist:  # nothing is written: say why for the reference design (SRS), else the first
+        cand = found.candidates
+        ref = cand[cand["design"] == "srs"] if (cand["design"] == "srs").any() else cand.head(1)
+        why = "".join(f"; e.g. {d}: {note}" for d, note in zip(ref["design"], ref["note"]) if note)
+        raise InputError(f"propose: none of the {len(cand)} candidate designs meets the goal "
+                         f"({kind.replace('_', ' ')} = {value:g}){why}")
     goal_table = {kind: float(value)}  # the goal as given: a budget, a margin, or a margin relative to the mean
     doc = proposal_doc(scenario, found.shortlist, goal_table, variable, confidence)
     base = scenario.source.parent if scenario.source is not None else Path(".")

@@ -85,7 +85,7 @@ def summary_rows(summary: pd.DataFrame, confidence: float) -> list[dict]:
 def findings(summary: pd.DataFrame, confidence: float, labels: dict | None = None) -> list[str]:
     """Sentences a reader needs from the summary: precision, cost, and intervals that lie (money and
     units in the words of ``labels``, :func:`samplewright.report.verdict.labels_of`; margins rounded by
-    their Monte Carlo SE when the summary has ``moe_mcse``, :func:`samplewright.report.table.with_moe_mcse`)."""
+    their Monte Carlo SE when the summary has ``moe_mcse``, :func:`samplewright.report.table.with_frontier_mcse`)."""
     out = []
     labels = labels or {}
     nominal = f"{100 * confidence:g}%"

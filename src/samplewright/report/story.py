@@ -16,7 +16,7 @@ from samplewright.evaluation.stopping import replicate_counts
 from samplewright.report.figures import FIGURES, figure_names
 from samplewright.report.findings import SHORT_ESTIMATOR, findings, summary_rows
 from samplewright.report.names import estimator_name, parameter_text, variance_name
-from samplewright.report.table import compact_columns, compact_rows, coverage_cell, default_rows, with_moe_mcse
+from samplewright.report.table import compact_columns, compact_rows, coverage_cell, default_rows, with_frontier_mcse
 from samplewright.report.verdict import (
     analysis_text,
     between_sizes_sentences,
@@ -162,7 +162,7 @@ def verdict_context(res) -> dict:
     """The verdict card: the sentence, the undecided points, the key numbers."""
     rec, info = res.recommendation, res.info or {}
     return {
-        "sentence": verdict_sentence(rec, info, res.summary),
+        "sentence": verdict_sentence(rec, info, with_frontier_mcse(res.summary, res.frontier)),
         "undecided": undecided_sentences(rec, info),
         "numbers": key_numbers(rec, info),
         "has_goal": isinstance(rec, dict),
@@ -204,7 +204,7 @@ def comparison_rows(res, labels: dict) -> list[dict]:
     var = goal_variable(res)
     nominal = float(info.get("confidence") or 0.95)
     tol = coverage_tolerance(rec)
-    summary = with_moe_mcse(summary, res.frontier)
+    summary = with_frontier_mcse(summary, res.frontier)
     rows = default_rows(summary, var).to_dict("records")
     if pick is not None and not any(_same_point(r, pick) for r in rows):  # the pick analysed otherwise
         rows += [r for r in summary[summary["variable"] == var].to_dict("records") if _same_point(r, pick)][:1]
@@ -229,7 +229,8 @@ def comparison_rows(res, labels: dict) -> list[dict]:
             "size": size_text(chosen.get("method"), chosen.get("size"), chosen.get("mean_n"), labels,
                               (info.get("frame") or {}).get("strata")),
             "analysis": analysis_text({k: chosen.get(k) for k in ("estimator", "variance", "design")}, info),
-            "mean_cost": money(chosen["mean_cost"], None) if (summary["mean_cost"] != 0).any() else "—",
+            "mean_cost": (money(chosen["mean_cost"], None, None if exact else chosen.get("cost_mcse"))
+                          if (summary["mean_cost"] != 0).any() else "—"),
             "moe": mc_round(chosen["moe"], None if exact else chosen.get("moe_mcse")),
             "published_moe": "n/a" if pub is None
             else mc_round(pub, None if exact else chosen.get("published_moe_mcse")),
@@ -404,7 +405,7 @@ def build_context(res, folder: Path | None = None) -> dict:
         "table_units": _table_units(res.summary, labels),
         "has_published": "published_moe" in res.summary.columns,
         "has_variance": "variance" in res.summary.columns,
-        "findings": findings(with_moe_mcse(res.summary[res.summary["variable"].isin(figure_variables(res))],
+        "findings": findings(with_frontier_mcse(res.summary[res.summary["variable"].isin(figure_variables(res))],
                                            res.frontier), confidence, labels)
         if len(res.summary)
         else [],

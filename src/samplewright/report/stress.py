@@ -13,7 +13,9 @@ import pandas as pd
 
 from samplewright.decision.stress import BREAK_EVEN_Z, pick_label
 from samplewright.report.figures import stress_of
-from samplewright.report.findings import money, num
+from samplewright.report.findings import money
+from samplewright.report.names import estimator_name, variance_name
+from samplewright.report.verdict import mc_round
 
 
 def _value(v) -> str:
@@ -39,13 +41,21 @@ def _at(row) -> str:
             f"{_value(round(float(row['high']), 4))})")
 
 
+def _plain(p: dict) -> str:
+    """A pick as the section names it: design, size, and the plain names of its estimator and variance formula
+    (the tables' :func:`~samplewright.decision.stress.pick_label` keeps the codes)."""
+    tail = "" if _is_blank(p.get("variance")) else f", {variance_name(p['variance'])}"
+    return f"{p['design']}, size {int(p['size'])}, {estimator_name(p['estimator'])}{tail}"
+
+
 def _design(v) -> str:
     return "nothing" if _is_blank(v) else f"'{v}'"
 
 
-def change_sentences(changes: pd.DataFrame, names: list[str]) -> list[str]:
+def change_sentences(changes: pd.DataFrame, names: list[str], plain: dict | None = None) -> list[str]:
     """The break-even rows in words: first where the design picked changes, then where only its size or
-    estimator does (one sentence per design and line)."""
+    estimator does (one sentence per design and line); ``plain`` maps a pick's table label to its words."""
+    plain = plain or {}
     out = []
     for _, r in changes.iterrows():
         if r["design_before"] == r["design_after"]:
@@ -56,7 +66,8 @@ def change_sentences(changes: pd.DataFrame, names: list[str]) -> list[str]:
     same = changes[changes["design_before"] == changes["design_after"]]
     for (design, name), g in same.groupby(["design_before", "assumption"], sort=False):
         cut = len(design) + 2  # pick_label starts "design, "
-        steps = "; ".join(f"from {r['pick_before'][cut:]} to {r['pick_after'][cut:]} at {_at(r)}"
+        steps = "; ".join(f"from {plain.get(r['pick_before'], r['pick_before'])[cut:]} to "
+                          f"{plain.get(r['pick_after'], r['pick_after'])[cut:]} at {_at(r)}"
                           for _, r in g.iterrows())
         out.append(f"The size or estimator picked for '{design}' changes with {name}{_where(g.iloc[0], names)}: "
                    f"{steps}.")
@@ -72,21 +83,23 @@ def stress_context(res) -> dict | None:
     verdict = res.stress_verdict  # present with the stress account (stress_of)
     changes = res.break_even if res.break_even is not None else []  # break_even.csv may be missing
     picks = verdict["design"].dropna().unique()
+    chosen = [p for p in verdict.to_dict("records") if not _is_blank(p.get("design"))]
+    plain = {pick_label({**p, "size": int(p["size"])}): _plain(p) for p in chosen}
     if verdict["pick"].isna().all():
         lead = ["The scenario sets no [goal], so no design is picked at any point; stress.csv holds every point's "
                 "measures, and the figure shows how each design's margin and cost move with the assumptions."]
     elif len(changes):
-        lead = change_sentences(changes, names)
+        lead = change_sentences(changes, names, plain)
     elif len(picks) == 1 and verdict["design"].notna().all():
-        lead = [f"The pick is the same at every point rehearsed: {pick_label(verdict.iloc[0].to_dict())}."]
+        lead = [f"The pick is the same at every point rehearsed: {_plain(verdict.iloc[0].to_dict())}."]
     else:
         lead = ["No pick changes between neighbouring points of an assumption."]
     rows = []
     for _, v in verdict.iterrows():
         p = v.to_dict()
         rows.append({"point": int(v["point"]), "values": [_value(v[n]) for n in names],
-                     "pick": "nothing qualifies" if _is_blank(p.get("design")) else pick_label(p),
-                     "moe": num(p.get("moe")), "cost": money(p.get("mean_cost")),
+                     "pick": "nothing qualifies" if _is_blank(p.get("design")) else _plain(p),
+                     "moe": mc_round(p.get("moe"), p.get("moe_mcse")), "cost": money(p.get("mean_cost")),
                      "evidence": ", ".join(f"{k}: {p[f'evidence_{k}']}" for k in ("coverage", "margin", "cost")
                                            if not _is_blank(p.get(f"evidence_{k}")))})
     assumptions = [{"name": a["name"], "key": a["set"], "tried": ", ".join(_value(x) for x in a["values"]),

@@ -62,7 +62,7 @@ def is_exact(summary: pd.DataFrame) -> bool:
 def cost_text(summary: pd.DataFrame):
     """How a mean cost is shown: ``money``, or a dash for every row when no cost is modelled (all 0)."""
     if len(summary) and not (summary["mean_cost"] != 0).any():
-        return lambda _value: "—"
+        return lambda _value, *_: "—"
     return money
 
 
@@ -132,14 +132,24 @@ def compact_columns(summary: pd.DataFrame, labels: dict) -> list[tuple[str, str]
     return cols
 
 
-def with_moe_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> pd.DataFrame:
-    """``summary`` with the margin's Monte Carlo SE (``moe_mcse``) from the run's frontier, when it has one."""
-    if "moe_mcse" in summary.columns or frontier is None or "moe_mcse" not in frontier.columns:
+def with_frontier_mcse(summary: pd.DataFrame, frontier: pd.DataFrame | None) -> pd.DataFrame:
+    """``summary`` with the Monte Carlo SEs only the run's frontier holds (``moe_mcse`` of the achieved margin,
+    at the summary's confidence, and ``cost_mcse`` of the mean cost), when it has them: the decision's evidence
+    rule reads both."""
+    if frontier is None:
+        return summary
+    extra = [c for c in ("moe_mcse", "cost_mcse") if c in frontier.columns and c not in summary.columns]
+    if not extra:
         return summary
     keys = [k for k in ("design", "size", "estimator", "variance", "variable")
             if k in summary.columns and k in frontier.columns]
-    extra = frontier[keys + ["moe_mcse"]].drop_duplicates(keys)
-    return summary.merge(extra, on=keys, how="left")
+    rescale = "moe_mcse" in extra and "moe" in frontier.columns and "moe" in summary.columns
+    take = frontier[keys + extra + (["moe"] if rescale else [])].drop_duplicates(keys)
+    out = summary.merge(take.rename(columns={"moe": "_goal_moe"}), on=keys, how="left")
+    if rescale:  # the frontier's margin is at the goal's confidence: its MCSE back to the summary's
+        out["moe_mcse"] = out["moe_mcse"] * (out["moe"] / out["_goal_moe"]).where(out["_goal_moe"] > 0, 1.0)
+        out = out.drop(columns="_goal_moe")
+    return out
 
 
 def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) -> list[dict]:
@@ -148,7 +158,7 @@ def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) ->
     Monte Carlo SE (from ``frontier``, the run's frontier table, when given)."""
     exact = is_exact(summary)
     show, cost = measure_text(exact), cost_text(summary)
-    summary = with_moe_mcse(summary, frontier)
+    summary = with_frontier_mcse(summary, frontier)
     out = []
     formulas = summary.groupby("design")["variance"].nunique().to_dict() if "variance" in summary.columns else {}
     for var in dict.fromkeys(summary["variable"]):
@@ -157,7 +167,8 @@ def compact_rows(summary: pd.DataFrame, frontier: pd.DataFrame | None = None) ->
             out.append({
                 "design": _design_cell(r, formulas), "size": f"{int(r['size']):,}", "variable": var,
                 "mean_n": num(r["mean_n"]),
-                "mean_cost": cost(r["mean_cost"]), "moe": mc_round(r["moe"], None if exact else r.get("moe_mcse")),
+                "mean_cost": cost(r["mean_cost"], None, None if exact else r.get("cost_mcse")),
+                "moe": mc_round(r["moe"], None if exact else r.get("moe_mcse")),
                 "published_moe": "n/a" if pub is None
                 else mc_round(pub, None if exact else r.get("published_moe_mcse")),
                 "bias": show(r["bias"], r["bias_mcse"]),

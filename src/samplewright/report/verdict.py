@@ -23,6 +23,7 @@ import math
 from samplewright.config.goal import COVERAGE_TOLERANCE
 from samplewright.decision import evidence as ev
 from samplewright.designs.registry import DESIGN_CLASSES
+from samplewright.evaluation.normal import normal_quantile
 from samplewright.report.names import estimator_name, method_name, variance_name
 
 #: confidence level of the exact binomial interval shown for a coverage of 0 or 1
@@ -192,14 +193,19 @@ def size_text(method, size, mean_n=None, labels: dict | None = None, strata=None
     return text
 
 
-def variance_of(p: dict, info: dict | None = None):
-    """A point's variance formula: its own ``variance``, else its design's in run.json ``designs``."""
-    if p.get("variance"):
-        return p["variance"]
+def _design_setting(p: dict, info: dict | None, key: str):
+    """A point's own ``key`` (``variance``, ``method``), else its design's in run.json ``designs``."""
+    if p.get(key):
+        return p[key]
     for d in (info or {}).get("designs") or []:
         if isinstance(d, dict) and d.get("label") == p.get("design"):
-            return d.get("variance")
+            return d.get(key)
     return None
+
+
+def variance_of(p: dict, info: dict | None = None):
+    """A point's variance formula: its own ``variance``, else its design's in run.json ``designs``."""
+    return _design_setting(p, info, "variance")
 
 
 def analysis_text(p: dict, info: dict | None = None) -> str:
@@ -217,7 +223,8 @@ def analysis_text(p: dict, info: dict | None = None) -> str:
 def point_name(p: dict, labels: dict, info: dict | None = None) -> str:
     """``'every k-th tree' at 400 trees`` (the design's label quoted as given)."""
     strata = ((info or {}).get("frame") or {}).get("strata")
-    return f"'{p.get('design')}' at {size_text(p.get('method'), p.get('size'), p.get('mean_n'), labels, strata)}"
+    method = _design_setting(p, info, "method")  # undecided entries carry no method: the design's, from run.json
+    return f"'{p.get('design')}' at {size_text(method, p.get('size'), p.get('mean_n'), labels, strata)}"
 
 
 # ------------------------------------------------------------------ the pick
@@ -369,13 +376,17 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
     if goal_moe is None and g.get("relative_moe") is not None and _finite(row.get("truth")):
         goal_moe = float(g["relative_moe"]) * abs(float(row["truth"]))
     if _finite(goal_moe):
+        # the summary's margins are at the run's confidence; the goal's may differ (the decision's scale)
+        conf = g.get("confidence")
+        scale = normal_quantile(float(conf)) / normal_quantile(nominal) if _finite(conf) else 1.0
         for key, what in (("published_moe", "published margin"), ("moe", "achieved margin")):
             if not _finite(row.get(key)):
                 continue
-            v, m = float(row[key]), mc(key + "_mcse")
+            v, m = scale * float(row[key]), scale * mc(key + "_mcse")
+            shown = scale * float(row[key + "_mcse"]) if _finite(row.get(key + "_mcse")) else None
             if int(ev.margin_code(v, m, v, m, float(goal_moe))) in counted:
                 out.append((v / float(goal_moe) - 1,
-                            f"its {what} ±{with_unit(mc_round(v, row.get(key + '_mcse')), unit)} is "
+                            f"its {what} ±{with_unit(mc_round(v, shown), unit)} is "
                             f"{'above' if v > float(goal_moe) else 'too close to call against'} the goal "
                             f"±{with_unit(num(goal_moe), unit)}"))
     budget = next((x.get("budget") for x in goals if x.get("budget") is not None), None)
@@ -383,7 +394,7 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
         cost = float(row["mean_cost"])
         if int(ev.cost_code(cost, mc("cost_mcse"), float(budget))) in counted:
             out.append((cost / float(budget) - 1,
-                        f"its expected cost {money(cost, labels)} is "
+                        f"its expected cost {money(cost, labels, mc('cost_mcse'))} is "
                         f"{'above' if cost > float(budget) else 'too close to call against'} the budget "
                         f"{money(budget, labels)}"))
     floor = nominal - tolerance
@@ -393,8 +404,8 @@ def shortfalls(row, goals: list[dict], nominal: float, tolerance: float, labels:
         if int(ev.coverage_code(c, mc("coverage_mcse"), R, nominal, tolerance, exact)) in counted:
             out.append(((floor - c) / floor,
                         f"its intervals held the true value in {percent(c, row.get('coverage_mcse'))} "
-                        f"of samples against the promised {100 * nominal:g} % (less the tolerance "
-                        f"{100 * tolerance:g} %)"))
+                        f"of samples{'' if c < floor else ', too close to call'} against the promised "
+                        f"{100 * nominal:g} % (less the tolerance {100 * tolerance:g} %)"))
     return out
 
 
@@ -451,7 +462,9 @@ def undecided_sentences(rec: dict | None, info: dict | None = None) -> list[str]
         c = str(u.get("criterion", ""))
         value = _criterion_value(c, u.get("value"), u.get("mcse"), labels, u.get("variable"))
         limit = _criterion_value(c, u.get("limit"), None, labels, u.get("variable"))
-        mc = _criterion_value(c, u.get("mcse"), None, labels, u.get("variable")).lstrip("±")
+        mcse = u.get("mcse")  # itself to two significant figures (rounded by a tenth of itself), as the tables
+        mc = _criterion_value(c, mcse, 0.1 * float(mcse) if _finite(mcse) else None, labels,
+                              u.get("variable")).lstrip("±")
         text = (f"Undecided: {point_name(u, labels, info)} ({estimator_name(u.get('estimator'))}"
                 + (f", {variance_name(u.get('variance'))} variance" if variance_name(u.get("variance")) else "")
                 + f"): its {CRITERIA.get(c, c)} {value} (Monte Carlo error {mc}) is too close to the limit {limit} "
@@ -532,8 +545,9 @@ def key_numbers(rec: dict | None, info: dict | None = None) -> list[tuple[str, s
             text += (f"; runner-up {point_name(ru, labels, info)} in {100 * float(rec['runner_up_share']):.0f} %")
         rows.append(("Stability", text))
     ev = p.get("evidence")
-    if isinstance(ev, dict) and ev:
-        rows.append(("Evidence", ", ".join(f"{CRITERIA.get(c, c)} {s}" for c, s in ev.items())))
+    judged = {c: s for c, s in ev.items() if s is not None} if isinstance(ev, dict) else {}  # None: not a goal
+    if judged:
+        rows.append(("Evidence", ", ".join(f"{CRITERIA.get(c, c)} {s}" for c, s in judged.items())))
     return rows
 
 

@@ -14,7 +14,8 @@ import dataclasses
 from dataclasses import dataclass
 from pathlib import Path
 
-from samplewright.errors import InputError
+from samplewright.config.validate import closest
+from samplewright.errors import InputError, show
 from samplewright.estimation.cost import CostModel
 from samplewright.population.frame import Frame
 from samplewright.simulation.engine import Cell, check_backend, make_cells
@@ -98,6 +99,7 @@ def build_plan(scenario: Scenario, options: RunOptions, frame: Frame | None = No
     replicates, seed, block_size = run_settings(scenario, options)
     if frame is None:
         frame = scenario.load_frame()
+    check_goal_domains(scenario.goals, frame)
     # an optimal allocation by cost takes its c_h from the true population's stratum costs
     designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)
     cells = make_cells(designs, scenario.estimators)
@@ -109,6 +111,16 @@ def build_plan(scenario: Scenario, options: RunOptions, frame: Frame | None = No
     return RunPlan(frame=listed, cells=tuple(cells), replicates=replicates, seed=seed, block_size=block_size,
                    confidence=scenario.confidence, cost=scenario.cost, truth_frame=frame, jobs=options.jobs,
                    backend=options.backend, scheduler=options.scheduler, stopping=stopping, fieldwork=field)
+
+
+def check_goal_domains(goals, frame: Frame) -> None:
+    """Refuse a goal whose ``domain`` is not a reported value of the frame's domain column (a [frame] domains
+    list is checked when the scenario is read; without it the values are known only from the frame)."""
+    present = list(frame.layout.domain_labels)
+    for g in goals:
+        if g.domain is not None and g.domain not in present:
+            raise InputError(f"[goal]: domain {show(g.domain)} is not a value of the domain column "
+                             f"{show(frame.layout.domain_column)}{closest(g.domain, present)}")
 
 
 def bind_and_check(cost: CostModel, listed: Frame, designs) -> Frame:
