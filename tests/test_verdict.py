@@ -494,3 +494,9 @@ def test_an_undecided_cluster_point_counts_clusters_not_units():
     info = {**INFO, "designs": [{"label": "villages", "method": "cluster", "variance": "two_stage"}]}
     (line,) = V.undecided_sentences(rec, info)
     assert line.startswith("Undecided: 'villages' at 30 blocks ("), line
+
+
+def test_replicates_that_would_settle_a_point_are_said_to_two_figures():
+    # the count is an estimate from the current MCSE (it assumes the estimate stays put): rounded up
+    assert [V._two_figures(n) for n in (7, 99, 241_649, 15_817, 7_268, 3_000)] == [7, 99, 250_000, 16_000, 7_300,
+                                                                                   3_000]

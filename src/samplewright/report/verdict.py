@@ -450,6 +450,14 @@ def _criterion_value(c: str, value, mcse, labels: dict, variable) -> str:
     return "±" + with_unit(mc_round(value, mcse), unit_of(labels, variable))
 
 
+def _two_figures(count: int) -> int:
+    """A count rounded up to two significant figures (an estimate from the current MCSE: 241,649 -> 250,000)."""
+    if count < 100:
+        return count
+    step = 10 ** (len(str(count)) - 2)
+    return -(-count // step) * step
+
+
 def undecided_sentences(rec: dict | None, info: dict | None = None) -> list[str]:
     """One sentence per point the rehearsal could not settle, and how many replicates would."""
     if not isinstance(rec, dict):
@@ -471,7 +479,7 @@ def undecided_sentences(rec: dict | None, info: dict | None = None) -> list[str]
                 f"to call")
         need, have = u.get("replicates_needed"), u.get("replicates")
         if _finite(need):
-            text += f"; about {int(need):,} replicates would settle it"
+            text += f"; about {_two_figures(int(need)):,} replicates would settle it"
             text += f" ({int(have):,} were run)." if _finite(have) else "."
         else:
             text += "; more replicates than the run allowed would be needed (raise --max-replicates)."
