@@ -383,15 +383,24 @@ def as_float(value, key: str, ctx: str = "", minimum: float | None = None, maxim
     return v
 
 
+#: Unicode's bidirectional embedding, override and isolate controls (refused in every text a scenario gives)
+BIDI_CONTROLS = frozenset("\u202a\u202b\u202c\u202d\u202e\u2066\u2067\u2068\u2069")
+
+
 def as_str(value, key: str, ctx: str = "") -> str:
-    """A non-empty text of one line: control characters (line breaks, tabs, NUL...) are refused,
-    since labels and titles end up in CSV rows, figures, Markdown and terminal lines."""
+    """A non-empty text of one line: control characters (line breaks, tabs, NUL...) and the bidirectional
+    embedding, override and isolate controls are refused, since labels and titles end up in CSV rows, figures,
+    Markdown and terminal lines."""
     if not isinstance(value, str) or not value.strip():
         raise InputError(f"{_where(ctx, key)} must be a non-empty text, got {show(value)}")
     bad = next((c for c in value if unicodedata.category(c) == "Cc"), None)
     if bad is not None:
         raise InputError(f"{_where(ctx, key)} = {show(value)} contains the control character {bad!r}"
                          f"{' (a NUL byte)' if bad == chr(0) else ''}; give one line of printable text")
+    turn = next((c for c in value if c in BIDI_CONTROLS), None)
+    if turn is not None:  # they make a table or terminal line read in another order than it is stored
+        raise InputError(f"{_where(ctx, key)} contains the text-direction control U+{ord(turn):04X}; give the "
+                         f"text without embedding, override or isolate marks")
     return value
 
 
