@@ -93,6 +93,8 @@ def test_proposal_toml_runs_and_draws(proposed, tmp_path, capsys):
     assert [d["label"] for d in doc["design"]] == proposed.info["proposal"]["shortlist"]
     assert doc["goal"]["budget"] == BUDGET
     assert pd.read_csv(out / "candidates.csv")["design"].tolist() == proposed.candidates["design"].tolist()
+    strata = pd.read_csv(out / "candidates.csv", dtype=str)["strata"].dropna()
+    assert len(strata) and strata.str.fullmatch(r"\d+").all()  # counts read as counts, not "8.0"
     assert main(["run", str(out / "proposal.toml"), "--out", str(tmp_path / "again"), "--replicates", "30",
                  "--quiet", "--no-report"]) == 0
     label = doc["design"][0]["label"]

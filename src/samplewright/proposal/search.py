@@ -142,6 +142,8 @@ def screen(frame, cost, y, screened_on: str, *, budget=None, moe=None, z=1.96, s
     table = pd.DataFrame(rows)
     for k in ("strata", "boundary_rule", "allocation", "take_all", "units_per_cluster"):
         table[k] = [t.detail.get(k) for t in templates]
+    # counts where a family has them (take_all: the units taken whole), blank where it has none (not 8.0)
+    table = table.astype({"strata": "Int64", "units_per_cluster": "Int64", "take_all": "Int64"})
     table["family"] = [t.family for t in templates]
     table["method"] = [t.method for t in templates]
     table["screened_on"] = screened_on
