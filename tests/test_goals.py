@@ -127,6 +127,20 @@ def test_a_goal_domain_the_frame_does_not_have_exits_2_naming_it(tmp_path, capsy
     assert not (tmp_path / "out").exists()
 
 
+def test_a_relative_margin_of_a_zero_mean_exits_2(tmp_path, capsys):
+    # a target centred on 0 (gains and losses): a margin as a share of its mean would be a margin of 0
+    path = tmp_path / "ledger.csv"
+    pd.DataFrame({"gain": [-3.0, -1.0, 1.0, 3.0] * 25}).to_csv(path, index=False)
+    scen = tmp_path / "s.toml"
+    scen.write_text(f'[frame]\npath = "{path.name}"\ntarget = "gain"\n\n'
+                    '[[design]]\nlabel = "s"\nmethod = "srs"\nn = 30\n\n[goal]\nrelative_moe = 0.05\n')
+    code = main(["run", str(scen), "--out", str(tmp_path / "out"), "--quiet", "--replicates", "20"])
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(lines) == 1 and lines[0].startswith("error: ") and "relative_moe" in lines[0]
+    assert "'gain'" in lines[0] and "moe instead" in lines[0]
+    assert not (tmp_path / "out").exists()
+
+
 def test_the_closest_design_sentence_judges_margin_and_cost_by_their_monte_carlo_errors():
     # the verdict's "closest" sentence must state each criterion as the decision's evidence rule does
     # (z = 2 MCSE, Morris, White & Crowther 2019): the achieved margin's and the cost's MCSEs live in the

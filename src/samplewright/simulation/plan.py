@@ -99,7 +99,7 @@ def build_plan(scenario: Scenario, options: RunOptions, frame: Frame | None = No
     replicates, seed, block_size = run_settings(scenario, options)
     if frame is None:
         frame = scenario.load_frame()
-    check_goal_domains(scenario.goals, frame)
+    check_goals(scenario.goals, frame)
     # an optimal allocation by cost takes its c_h from the true population's stratum costs
     designs = tuple(scenario.cost.for_design(d, frame) for d in scenario.designs)
     cells = make_cells(designs, scenario.estimators)
@@ -113,14 +113,23 @@ def build_plan(scenario: Scenario, options: RunOptions, frame: Frame | None = No
                    backend=options.backend, scheduler=options.scheduler, stopping=stopping, fieldwork=field)
 
 
-def check_goal_domains(goals, frame: Frame) -> None:
-    """Refuse a goal whose ``domain`` is not a reported value of the frame's domain column (a [frame] domains
-    list is checked when the scenario is read; without it the values are known only from the frame)."""
+def check_goals(goals, frame: Frame) -> None:
+    """Refuse, once the frame is read, a goal whose ``domain`` is not a reported value of the frame's domain
+    column (a [frame] domains list is checked when the scenario is read; without it the values are known only
+    from the frame), and a ``relative_moe`` of a variable whose true mean is 0 (no margin is a share of 0)."""
     present = list(frame.layout.domain_labels)
+    truth = dict(zip(frame.layout.names, frame.layout.truth))
     for g in goals:
         if g.domain is not None and g.domain not in present:
             raise InputError(f"[goal]: domain {show(g.domain)} is not a value of the domain column "
                              f"{show(frame.layout.domain_column)}{closest(g.domain, present)}")
+        if g.relative_moe is None:
+            continue
+        target = g.variable if g.variable is not None else frame.variables[0]
+        name = target if g.domain is None else f"{target}[{frame.layout.domain_column}={g.domain}]"
+        if truth.get(name) == 0:
+            raise InputError(f"[goal]: relative_moe = {show(g.relative_moe)} is a share of the mean of {show(name)}, "
+                             f"which is 0 in the frame; give the margin as moe instead")
 
 
 def bind_and_check(cost: CostModel, listed: Frame, designs) -> Frame:
