@@ -170,6 +170,17 @@ def test_a_design_whose_intervals_lie_is_never_picked_and_says_why():
                                                           (rec["cheapest_meeting_moe"], rec["best_within_budget"])})
 
 
+def test_interpolation_is_trusted_per_variance_formula():
+    # one systematic sweep analysed two ways: the SRS formula's intervals under-cover at 400 (0.80), the
+    # successive-difference ones hold everywhere; only the latter's fitted curve is offered between sizes
+    rows = [{"design": "sys", "size": n, "mean_cost": 10.0 * n, "moe": 40.0 / np.sqrt(n), "variance": v,
+             "coverage": c} for v, cover in (("srs", (0.95, 0.80, 0.95)), ("successive_differences", (0.95,) * 3))
+            for n, c in zip((100, 400, 1600), cover)]
+    rec = recommend(_front(rows), Goal(moe=2.5), nominal=0.95)
+    trusted = {row["variance"]: row["coverage_acceptable_at_every_size"] for row in rec["interpolated"]}
+    assert trusted == {"srs": False, "successive_differences": True}
+
+
 def test_nothing_qualifies():
     rec = recommend(_front(FRONT), Goal(moe=0.5, budget=100.0), nominal=0.95)
     assert rec["cheapest_meeting_moe"] is None and rec["best_within_budget"] is None

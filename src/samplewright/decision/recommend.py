@@ -237,7 +237,8 @@ def recommend(front: pd.DataFrame, goals, nominal: float, domain_column: str | N
     -------
     dict with ``cheapest_meeting_moe``, ``best_within_budget`` (each a dict of the point's numbers,
     its ``evidence`` and its ``goals``, or None), ``pick``, ``undecided``, ``passed_over``,
-    ``interpolated``, ``goal`` (the first), ``goals``, ``coverage_tolerance``, the rules and ``statement``.
+    ``interpolated``, ``goal`` (the first), ``goals``, ``coverage_tolerance`` and the rules (the statement is
+    the report's words, set by the caller: :func:`samplewright.report.verdict.verdict_sentence`).
     """
     goals = (goals,) if isinstance(goals, Goal) else tuple(goals)
     s = setting(front, goals, nominal, domain_column, exact)
@@ -251,11 +252,13 @@ def recommend(front: pd.DataFrame, goals, nominal: float, domain_column: str | N
     interp = interpolate_goal(pts.reset_index(drop=True), None if np.isnan(s.moe_goal[0]) else float(s.moe_goal[0]),
                               first.budget, float(s.z[0]))
     cov_ok = codes["coverage"][0] == ev.MET
-    good = {}
+    good = {}  # per design, estimator and variance formula: coverage met at every rehearsed size
     for i, key in enumerate(keys):
-        good[(key[0], key[2])] = good.get((key[0], key[2]), True) and bool(cov_ok[i])
+        analysis = (key[0], key[2], key[3] if len(key) > 3 else None)
+        good[analysis] = good.get(analysis, True) and bool(cov_ok[i])
     for row in interp:
-        row["coverage_acceptable_at_every_size"] = good.get((row["design"], row["estimator"]), False)
+        analysis = (row["design"], row["estimator"], row.get("variance"))
+        row["coverage_acceptable_at_every_size"] = good.get(analysis, False)
     headline = s.headline
     rec = {
         **picks,
