@@ -85,6 +85,8 @@ def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
              kept: np.ndarray | None = None) -> tuple[pd.Series, np.ndarray]:
     """Coerce a column to float; return it and a mask of rows that are not finite numbers."""
     raw = df[col]
+    if isinstance(raw.dtype, pd.CategoricalDtype):  # a label column read as a dictionary: its plain values
+        raw = raw.astype(raw.cat.categories.dtype)
     if role != "order":  # amounts: a list may be ordered by date, but a date or a yes/no is no amount
         kind = _not_amount(raw)
         if kind:

@@ -394,7 +394,8 @@ class Frame:
     def load(cls, path, **roles) -> Frame:
         """Read a frame file (see :func:`~samplewright.population.reading.read_table`) and bind its columns
         (see :meth:`from_dataframe`)."""
-        return cls.from_dataframe(read_table(path), source=str(path), **roles)
+        labels = [roles[r] for r in ("stratum", "cluster") if isinstance(roles.get(r), str)]
+        return cls.from_dataframe(read_table(path, labels=labels), source=str(path), **roles)
 
 
 def _digest(h, name: str, value) -> None:
