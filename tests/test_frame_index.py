@@ -16,3 +16,30 @@ def test_group_index_is_the_stable_sort_of_the_codes():
         np.testing.assert_array_equal(idx, np.argsort(codes, kind="stable"))  # numpy's stable sort
         np.testing.assert_array_equal(np.diff(offsets), np.bincount(codes, minlength=k))
         assert idx.dtype == np.int64 and offsets[0] == 0 and offsets[-1] == codes.size
+
+
+def test_one_target_frame_holds_its_values_once():
+    # with one study variable, y, the gathered column and the value table share one buffer (views, not
+    # copies): the frame holds N values once; several study variables keep y as its own row-major copy
+    import pandas as pd
+
+    from samplewright.population.frame import COST, COUNT, Frame
+
+    rng = np.random.default_rng(5)
+    df = pd.DataFrame({"y": rng.normal(size=500), "z": rng.normal(size=500), "band": rng.integers(0, 4, 500)})
+    one = Frame.from_dataframe(df, target="y", stratum="band")
+    assert one.values.flags.f_contiguous and one.column.flags.c_contiguous
+    assert np.shares_memory(one.y, one.values) and np.shares_memory(one.column, one.values)
+    assert one.y.base is one.values or one.y.base is one.values.base
+    np.testing.assert_array_equal(one.y[:, 0], df["y"].to_numpy())  # the file's values, unchanged
+    np.testing.assert_array_equal(one.values[:, COUNT], 1.0)
+    np.testing.assert_array_equal(one.values[:, COST], 0.0)
+    np.testing.assert_array_equal(one.gather(np.array([[3, 1]])), one.values[[3, 1]][None])  # numpy indexing
+    two = Frame.from_dataframe(df, target=["y", "z"], stratum="band")
+    assert two.y.flags.c_contiguous and not np.shares_memory(two.y, two.values)
+    np.testing.assert_array_equal(two.values[:, :2], df[["y", "z"]].to_numpy())
+    # sums by stratum: bincount against a plain loop over the units in list order
+    loop = np.zeros((4, 2))
+    for s, row in zip(df["band"], df[["y", "z"]].to_numpy()):
+        loop[s] += row
+    np.testing.assert_array_equal(two.stratum_means(), loop / np.bincount(df["band"])[:, None])
