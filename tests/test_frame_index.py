@@ -43,3 +43,23 @@ def test_one_target_frame_holds_its_values_once():
     for s, row in zip(df["band"], df[["y", "z"]].to_numpy()):
         loop[s] += row
     np.testing.assert_array_equal(two.stratum_means(), loop / np.bincount(df["band"])[:, None])
+
+
+def test_label_codes_are_pandas_sorted_factorize():
+    # labels become codes in one place; small whole numbers are counted instead of hashed, and every
+    # path must give pandas.factorize(sort=True)'s codes and labels (types included)
+    import pandas as pd
+
+    from samplewright.config.validate import label_codes
+
+    rng = np.random.default_rng(3)
+    cases = [rng.integers(0, 50, 1000), rng.integers(0, 50, 1000).astype(np.uint8), np.array([5, 3, 3, 10**9]),
+             np.array([-1, 2, 2]), np.array([0]), rng.integers(0, 50, 1000).astype(np.int32),
+             np.array(["b", "a", "b"]), rng.normal(size=20).round(1)]
+    for values in cases:
+        codes, labels = label_codes(pd.Series(values))
+        expect_codes, expect_labels = pd.factorize(pd.Series(values), sort=True)
+        np.testing.assert_array_equal(codes, expect_codes)
+        assert codes.dtype == np.int64
+        assert labels == tuple(expect_labels.tolist())
+        assert [type(v) for v in labels] == [type(v) for v in expect_labels.tolist()]

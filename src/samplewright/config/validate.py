@@ -160,8 +160,25 @@ def label_codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
         recode = np.full(len(series.cat.categories) + 1, -1, dtype=np.int64)  # the last entry: a blank (-1)
         recode[used] = sorted_codes
         return recode[raw], tuple(labels.tolist())
+    counts = _counts(series)
+    if counts is not None:  # small whole numbers: each label's rank among those present, by counting
+        present = counts > 0
+        rank = np.cumsum(present, dtype=np.int64) - 1
+        return rank[series.to_numpy()], tuple(np.flatnonzero(present).tolist())
     codes, labels = pd.factorize(_labels(series), sort=True)
     return codes.astype(np.int64), tuple(labels.tolist())
+
+
+def _counts(series: pd.Series) -> np.ndarray | None:
+    """How often each value 0, 1, 2, ... occurs, for a column of whole numbers from 0 to at most a few
+    times its length (ids, cluster numbers); None for any other column."""
+    dtype = series.dtype
+    if not isinstance(dtype, np.dtype) or dtype.kind not in "iu" or dtype.itemsize > (8 if dtype.kind == "i" else 4):
+        return None
+    values = series.to_numpy()
+    if values.size == 0 or values.min() < 0 or values.max() > 4 * values.size + 1024:
+        return None
+    return np.bincount(values)
 
 
 def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=None, order=None,
@@ -234,7 +251,8 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
             raise InputError(f"{source}: unit_cost column {show(col)} has negative cost(s) "
                              f"at row(s) {_rows(neg, kept=kept)}")
         df[col] = num
-    if id is not None:
+    counts = None if id is None else _counts(df[id])
+    if id is not None and (counts is None or counts.max() > 1):
         dup = df[id].duplicated(keep=False).to_numpy()
         if dup.any():
             first = df[id][dup].iloc[0]
