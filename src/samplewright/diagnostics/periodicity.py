@@ -192,14 +192,17 @@ def detrend(x, degree: int = TREND_DEGREE, groups=None) -> np.ndarray:
     if N <= degree + 1:
         return r
     t = np.linspace(-1.0, 1.0, N)
-    prev, p = np.zeros(N), np.ones(N)
+    prev, p, work = np.zeros(N), np.ones(N), np.empty(N)  # three buffers reused: no array made per step
     norm_prev, norm = 1.0, float(N)
     for _ in range(degree):
-        a = float(_inner(t * p, p)) / norm
-        nxt = (t - a) * p - (norm / norm_prev) * prev
-        prev, p = p, nxt
+        a = float(_inner(np.multiply(t, p, out=work), p)) / norm
+        np.subtract(t, a, out=work)
+        work *= p
+        prev *= norm / norm_prev
+        work -= prev  # (t - a) p - (norm / norm_prev) prev, operation by operation as written out
+        prev, p, work = p, work, prev
         norm_prev, norm = norm, float(_inner(p, p))
-        r -= (float(_inner(r, p)) / norm) * p
+        r -= np.multiply(p, float(_inner(r, p)) / norm, out=work)
     return r
 
 
