@@ -86,3 +86,25 @@ def test_synth_writes_the_frame(tmp_path, capsys):
         df = pd.read_csv(out) if name.endswith(".csv") else pd.read_parquet(out)
         assert len(df) == 24000 and {"stratum", "cluster", "apples"} <= set(df.columns)
     assert main(["synth", str(demo), "--out", str(tmp_path / "frame.csv")]) == 2  # exists, no --force
+
+
+def test_run_json_names_the_installed_joblib_without_importing_it_at_one_job(tmp_path):
+    # the versions recorded are the installed packages' own (their metadata, read by importlib.metadata);
+    # a run at --jobs 1 runs no worker, so it need not import joblib to name its version
+    import os
+    import subprocess
+    import sys
+    from importlib import metadata
+
+    out = tmp_path / "res"
+    code = ("import sys; from samplewright.cli.main import main; "
+            f"c = main(['run', {str(ROOT / 'scenarios' / 'water_quality.toml')!r}, '--out', {str(out)!r}, "
+            "'--replicates', '40', '--jobs', '1', '--no-report', '--quiet']); "
+            "print('joblib' in sys.modules); sys.exit(c)")
+    env = {**os.environ, "PYTHONPATH": str(ROOT / "src")}
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip().splitlines()[-1] == "False"
+    versions = json.loads((out / "run.json").read_text())["versions"]
+    assert versions["joblib"] == metadata.version("joblib")
+    assert versions["scipy"] == metadata.version("scipy")

@@ -212,9 +212,9 @@ def test_parquet_reads_only_the_role_columns(tmp_path, monkeypatch):
     df = frame_df().assign(notes=["x" * 20] * 24, extra=np.arange(24.0))
     df.to_parquet(tmp_path / "f.parquet", index=False)
     asked = []
-    real = pq.read_table
-    monkeypatch.setattr(pq, "read_table",
-                        lambda p, columns=None, **k: asked.append(columns) or real(p, columns=columns))
+    real = pq.ParquetFile.read
+    monkeypatch.setattr(pq.ParquetFile, "read",
+                        lambda self, columns=None, **k: asked.append(columns) or real(self, columns=columns, **k))
     from samplewright.simulation.scenario import scenario_from_dict
 
     doc = {"frame": {"path": "f.parquet", "target": "amount", "stratum": "region"},
@@ -222,6 +222,39 @@ def test_parquet_reads_only_the_role_columns(tmp_path, monkeypatch):
     frame = scenario_from_dict(doc, base=tmp_path).load_frame()
     assert asked == [["amount", "region"]]
     assert frame.total[0] == pytest.approx(sum(AMOUNTS), rel=1e-15)
+
+
+@pytest.mark.parametrize("as_numbers", [False, True], ids=["text", "numbers-as-text"])
+def test_parquet_text_labels_are_coded_as_the_same_text_read_from_csv(tmp_path, as_numbers):
+    # a Parquet file's text strata and clusters are read as dictionaries, whose categories come in order
+    # of first appearance; the frame must get the codes and labels the plain text gets (pandas.factorize
+    # with sort=True over the values: labels sorted, codes in that order), as from the file's columns read
+    # as plain text and, for text labels, from a CSV file of the same table
+    from samplewright.population.frame import Frame
+
+    rng = np.random.default_rng(11)
+    names = ["Süd", "Nord", "Köln", "Ost"] if not as_numbers else ["2.500,25", "1.000,50", "30,75", "400,00"]
+    region = np.array(names)[rng.integers(0, 4, 200)]
+    cluster = np.array([f"c{r}-{i}" for r, i in zip(region, rng.integers(0, 3, 200))])
+    df = pd.DataFrame({"region": region, "cluster": cluster, "y": rng.integers(0, 400, 200) / 4.0})
+    df.to_parquet(tmp_path / "f.parquet", index=False)
+    write_rows(tmp_path / "f.csv", [list(df.columns)] + df.astype(str).to_numpy().tolist(), ";")
+    roles = {"target": "y", "stratum": "region", "cluster": "cluster", "sort_keys": ["region"]}
+    read = read_table(tmp_path / "f.parquet", labels=["region", "cluster"])
+    assert isinstance(read["cluster"].dtype, pd.CategoricalDtype)  # the dictionary path is the one tested
+    from_parquet = Frame.load(tmp_path / "f.parquet", **roles)
+    plain = [Frame.from_dataframe(read_table(tmp_path / "f.parquet"), **roles)]
+    if not as_numbers:  # (the CSV reader takes the point of the y column as the decimal mark: "1.000,50" stays text)
+        plain.append(Frame.load(tmp_path / "f.csv", **roles))
+    codes, labels = pd.factorize(pd.Series(cluster), sort=True)
+    assert from_parquet.cluster.tolist() == codes.tolist() and from_parquet.cluster_labels == tuple(labels)
+    expect = sorted({float(v.replace(".", "").replace(",", ".")) for v in names} if as_numbers else set(names))
+    assert list(from_parquet.stratum_labels) == expect
+    for other in plain:
+        for name in ("stratum", "stratum_labels", "cluster", "cluster_labels", "strata_units", "cluster_units"):
+            assert np.array_equal(np.asarray(getattr(from_parquet, name)), np.asarray(getattr(other, name))), name
+        assert np.array_equal(from_parquet.sort_orders["region"], other.sort_orders["region"])
+        assert from_parquet.content_hash == other.content_hash
 
 
 def test_csv_over_the_limit_is_refused_with_a_conversion_that_works(tmp_path, monkeypatch):

@@ -11,6 +11,7 @@ import json
 import math
 
 import numpy as np
+import pandas as pd
 import pytest
 from conftest import Z
 from scipy.stats import binomtest
@@ -236,3 +237,57 @@ def test_tollgate_scenario_shows_the_failure_and_inspect_flags_the_period(capsys
                  "--json"]) == 0
     rep = json.loads(capsys.readouterr().out)
     assert abs(rep["periods"][0]["period"] - 24) < 0.1 and 24 in rep["unsafe_intervals"]
+
+
+# ------------------------------------------------------------------ grouped lists, found by counting
+def _contiguous_by_definition(codes) -> bool:
+    """Every group's positions form one run (last - first + 1 == its count), and there are several groups."""
+    codes = np.asarray(codes)
+    groups = {}
+    for i, c in enumerate(codes.tolist()):
+        first, _, count = groups.get(c, (i, i, 0))
+        groups[c] = (first, i, count + 1)
+    return len(groups) > 1 and all(last - first + 1 == count for first, last, count in groups.values())
+
+
+def test_grouped_list_is_found_by_counting_codes():
+    from samplewright.diagnostics.periodicity import contiguous_groups
+
+    rng = np.random.default_rng(4)
+    cases = [np.repeat([2, 0, 1], [5, 3, 4]), np.repeat([2, 0, 2], [5, 3, 4]), np.zeros(6, dtype=np.int64),
+             rng.integers(0, 5, 50), np.repeat(np.arange(40), rng.integers(1, 6, 40)), np.array([3]),
+             np.repeat([1, 7], [3, 2]).astype(np.uint8), np.array(["b", "b", "a"]), np.array(["b", "a", "b"])]
+    for codes in cases:
+        assert contiguous_groups(codes) == _contiguous_by_definition(codes), codes
+
+
+def test_a_list_grouped_by_stratum_and_cluster_has_one_block_per_cluster():
+    # both groupings contiguous: the blocks whose means are removed are the (stratum, cluster) pairs
+    # (the partition np.unique gives over the pairs), numbered along the list
+    from samplewright.diagnostics.periodicity import list_groups
+    from samplewright.population.frame import Frame
+
+    rng = np.random.default_rng(8)
+    sizes = rng.integers(2, 6, 30)
+    cluster = np.repeat(np.arange(30), sizes)
+    df = pd.DataFrame({"y": rng.normal(size=cluster.size), "s": cluster // 10, "c": cluster})
+    frame = Frame.from_dataframe(df, target="y", stratum="s", cluster="c")
+    got = list_groups(frame, frame.order)
+    pairs = np.unique(frame.stratum * 1000 + frame.cluster, return_inverse=True)[1]
+    assert np.array_equal(got, pairs)  # here the list order is the sorted order of the pairs
+    np.testing.assert_array_equal(np.flatnonzero(np.diff(got)) + 1, np.cumsum(sizes)[:-1])
+    shuffled = Frame.from_dataframe(df.sample(frac=1.0, random_state=1), target="y", stratum="s", cluster="c")
+    assert list_groups(shuffled, shuffled.order) is None
+
+
+def test_run_check_skips_the_autocorrelations_but_finds_the_same_periods():
+    sc = scenario_from_dict({"frame": {"synthetic": {"units": 960, "seed": 2, "period": 24, "amplitude": 20}},
+                             "design": [{"label": "s", "method": "systematic", "n": 40}]})
+    quiet = sc.load_frame()
+    noise = scenario_from_dict({"frame": {"synthetic": {"units": 960, "seed": 2}},
+                                "design": [{"label": "s", "method": "srs", "n": 40}]}).load_frame()
+    assert frame_order_report(noise).acf is None and not frame_order_report(noise).significant
+    assert frame_order_report(noise, acf=True).acf.shape == (200,)  # asked for: computed (lags 1..200)
+    lean, full = frame_order_report(quiet), detect_periods(quiet.y[:, 0], acf=True)
+    assert lean.significant and lean.periods == full.periods and lean.components == full.components
+    np.testing.assert_array_equal(lean.acf, full.acf)  # a period found: the autocorrelations it reads

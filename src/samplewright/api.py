@@ -54,12 +54,24 @@ def _listened() -> bool:
     return any(not isinstance(h, logging.NullHandler) for h in logger.handlers)
 
 
-def _versions() -> dict:
-    import joblib
-    import scipy
+def _version(name: str) -> str:
+    """The version of the installed package ``name``: from the module when it is imported, else from
+    the package's metadata, so a run at --jobs 1 does not import joblib only to name its version."""
+    import sys
 
+    if name in sys.modules:
+        return sys.modules[name].__version__
+    from importlib import import_module, metadata
+
+    try:
+        return metadata.version(name)
+    except metadata.PackageNotFoundError:  # pragma: no cover - imported from a folder without metadata
+        return import_module(name).__version__
+
+
+def _versions() -> dict:
     return {"samplewright": __version__, "python": platform.python_version(), "numpy": np.__version__,
-            "pandas": pd.__version__, "scipy": scipy.__version__, "joblib": joblib.__version__}
+            "pandas": pd.__version__, "scipy": _version("scipy"), "joblib": _version("joblib")}
 
 
 def release_freed_memory() -> None:

@@ -85,6 +85,8 @@ def _numeric(df: pd.DataFrame, col: str, role: str, source: str, missing: str,
              kept: np.ndarray | None = None) -> tuple[pd.Series, np.ndarray]:
     """Coerce a column to float; return it and a mask of rows that are not finite numbers."""
     raw = df[col]
+    if isinstance(raw.dtype, pd.CategoricalDtype):  # a label column read as a dictionary: its plain values
+        raw = raw.astype(raw.cat.categories.dtype)
     if role != "order":  # amounts: a list may be ordered by date, but a date or a yes/no is no amount
         kind = _not_amount(raw)
         if kind:
@@ -139,14 +141,50 @@ def sort_key_codes(df: pd.DataFrame, sort_keys, source: str = "frame") -> dict:
         blank = df[col].isna().to_numpy()
         if blank.any():
             raise InputError(f"{source}: sort_by column {show(col)} is blank at row(s) {_rows(blank)}")
-        codes, _ = pd.factorize(_labels(df[col]), sort=True)
-        out[col] = codes.astype(np.int64)
+        out[col], _ = label_codes(df[col])
     return out
+
+
+def label_codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
+    """Integer codes 0..K-1 (int64) in sorted order of the labels, and the labels (a tuple).
+
+    The one place labels become codes (strata, clusters, sort keys, post-strata, domains).
+    Mixed Python types are sorted as text.  A categorical column (a Parquet text column read
+    as a dictionary) is coded from its categories, the labels sorted by value and unused ones
+    left out, so it gets the codes and labels its plain values would.
+    """
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        raw = series.cat.codes.to_numpy()
+        used = np.flatnonzero(np.bincount(raw[raw >= 0], minlength=len(series.cat.categories)))
+        sorted_codes, labels = pd.factorize(_labels(pd.Series(series.cat.categories[used])), sort=True)
+        recode = np.full(len(series.cat.categories) + 1, -1, dtype=np.int64)  # the last entry: a blank (-1)
+        recode[used] = sorted_codes
+        return recode[raw], tuple(labels.tolist())
+    counts = _counts(series)
+    if counts is not None:  # small whole numbers: each label's rank among those present, by counting
+        present = counts > 0
+        rank = np.cumsum(present, dtype=np.int64) - 1
+        return rank[series.to_numpy()], tuple(np.flatnonzero(present).tolist())
+    codes, labels = pd.factorize(_labels(series), sort=True)
+    return codes.astype(np.int64), tuple(labels.tolist())
+
+
+def _counts(series: pd.Series) -> np.ndarray | None:
+    """How often each value 0, 1, 2, ... occurs, for a column of whole numbers from 0 to at most a few
+    times its length (ids, cluster numbers); None for any other column."""
+    dtype = series.dtype
+    if not isinstance(dtype, np.dtype) or dtype.kind not in "iu" or dtype.itemsize > (8 if dtype.kind == "i" else 4):
+        return None
+    values = series.to_numpy()
+    if values.size == 0 or values.min() < 0 or values.max() > 4 * values.size + 1024:
+        return None
+    return np.bincount(values)
 
 
 def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=None, order=None,
                   unit_cost=None, id=None, missing="refuse", source="frame"):
-    """Check the role columns of a frame; return the (possibly row-dropped) frame and the roles.
+    """Check the role columns of a frame; return the (possibly row-dropped) frame, the roles, and
+    the stratum and cluster codes (``{role: (codes, labels)}``, see :func:`label_codes`).
 
     Rules: every named column exists; target values are finite numbers (``missing="drop"``
     drops the rows that are not and records how many); stratum and cluster labels are
@@ -172,7 +210,7 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
         if col is not None:
             _require_column(df, col, role, source)
 
-    df = df.copy()
+    df = df.copy(deep=False)  # columns are replaced below, never written into: the caller's table is unchanged
     drop = np.zeros(len(df), dtype=bool)
     for t in targets:
         num, bad = _numeric(df, t, "target", source, missing)
@@ -191,6 +229,7 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
         if len(df) == 0:
             raise InputError(f"{source}: every row has a missing target value; nothing is left to sample")
 
+    codes = {}
     for role in ("stratum", "cluster"):
         col = named[role]
         if col is None:
@@ -198,7 +237,7 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
         if df[col].isna().any():
             bad = df[col].isna().to_numpy()
             raise InputError(f"{source}: {role} column {show(col)} is blank at row(s) {_rows(bad, kept=kept)}")
-        df[col] = _labels(df[col])
+        codes[role] = label_codes(df[col])
     for role in ("size", "order", "unit_cost"):
         col = named[role]
         if col is None:
@@ -212,23 +251,32 @@ def frame_columns(df: pd.DataFrame, *, target, stratum=None, cluster=None, size=
             raise InputError(f"{source}: unit_cost column {show(col)} has negative cost(s) "
                              f"at row(s) {_rows(neg, kept=kept)}")
         df[col] = num
-    if id is not None:
+    counts = None if id is None else _counts(df[id])
+    if id is not None and (counts is None or counts.max() > 1):
         dup = df[id].duplicated(keep=False).to_numpy()
         if dup.any():
             first = df[id][dup].iloc[0]
             raise InputError(f"{source}: id column {show(id)} has {int(dup.sum())} rows with repeated ids, "
                              f"first {show(first)} at row(s) {_rows(dup, kept=kept)}")
-    if stratum is not None and cluster is not None:
-        per = df.groupby(cluster, sort=False)[stratum].nunique()
+    if stratum is not None and cluster is not None and _spanning(codes["cluster"][0], codes["stratum"][0]):
+        labelled = pd.DataFrame({cluster: _labels(df[cluster]), stratum: _labels(df[stratum])})
+        per = labelled.groupby(cluster, sort=False)[stratum].nunique()
         spanning = per[per > 1]
         if len(spanning):
             c = spanning.index[0]
-            strata = sorted(df.loc[df[cluster] == c, stratum].unique().tolist())[:3]
+            strata = sorted(labelled.loc[labelled[cluster] == c, stratum].unique().tolist())[:3]
             raise InputError(f"{source}: cluster {show(c)} (column {show(cluster)}) appears in more than one stratum "
                              f"({', '.join(map(str, strata))}); clusters must nest in strata")
     roles = {"target": tuple(targets), **{k: v for k, v in named.items() if v is not None},
              "dropped_rows": dropped, "source": source}
-    return df, roles
+    return df, roles, codes
+
+
+def _spanning(cluster: np.ndarray, stratum: np.ndarray) -> bool:
+    """Whether some cluster code occurs with more than one stratum code."""
+    of = np.empty(int(cluster.max()) + 1, dtype=stratum.dtype)
+    of[cluster] = stratum  # one of each cluster's strata
+    return bool((of[cluster] != stratum).any())
 
 
 def auxiliary_columns(df: pd.DataFrame, *, auxiliary=None, poststratum=None, domain=None, domains=None,
@@ -273,7 +321,7 @@ def auxiliary_columns(df: pd.DataFrame, *, auxiliary=None, poststratum=None, dom
     return tuple(names), roles
 
 
-def cluster_cost_column(df: pd.DataFrame, column, cluster, source="frame") -> np.ndarray:
+def cluster_cost_column(df: pd.DataFrame, column, cluster, source="frame", cluster_codes=None) -> np.ndarray:
     """Check a per-cluster cost column; return its values per row.
 
     Rules: a cluster column is bound; the column exists; its values are finite numbers, not
@@ -290,11 +338,12 @@ def cluster_cost_column(df: pd.DataFrame, column, cluster, source="frame") -> np
     if (num < 0).any():
         raise InputError(f"{source}: cluster_cost column {show(column)} has negative cost(s) "
                          f"at row(s) {_rows((num < 0).to_numpy())}")
-    spread = num.groupby(df[cluster].to_numpy(), sort=False).agg(["min", "max"])
+    codes, labels = cluster_codes if cluster_codes is not None else label_codes(df[cluster])
+    spread = num.groupby(codes, sort=False).agg(["min", "max"])
     varying = spread[spread["min"] != spread["max"]]
     if len(varying):
-        c = varying.index[0]
-        rows = (df[cluster] == c).to_numpy()
+        c = labels[varying.index[0]]
+        rows = codes == varying.index[0]
         raise InputError(f"{source}: cluster_cost column {show(column)} differs within cluster {show(c)} "
                          f"(from {varying['min'].iloc[0]:g} to {varying['max'].iloc[0]:g}, rows {_rows(rows)}); "
                          f"it must be one cost per cluster")

@@ -88,7 +88,7 @@ def order_summary(frame, variable: int = 0, alpha: float | None = None, k_max: i
     """
     from samplewright.diagnostics import periodicity as P
 
-    rep = P.frame_order_report(frame, variable, alpha=P.FALSE_ALARM if alpha is None else alpha)
+    rep = P.frame_order_report(frame, variable, alpha=P.FALSE_ALARM if alpha is None else alpha, acf=True)
     unsafe = P.unsafe_intervals(rep, k_max)
     detail = [r for k in unsafe[:DETAIL] for r in P.interval_risks(k, rep)]
     return {

@@ -153,7 +153,8 @@ class OrderReport:
     g: float  # Fisher's g of the first test (nan when nothing could be tested)
     p_value: float  # its p-value
     periods: tuple[Period, ...] = ()
-    acf: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)  # lags 1..L
+    # lags 1..L; None when not asked for (a run's check needs it only for the periods found)
+    acf: np.ndarray | None = field(default_factory=lambda: np.zeros(0), repr=False)
     method: str = DETREND_TEXT
     components: tuple[Component, ...] = ()
     noise_share: float = 1.0  # share of the variance left after groups or trend, and the components
@@ -185,19 +186,23 @@ def detrend(x, degree: int = TREND_DEGREE, groups=None) -> np.ndarray:
         codes = np.asarray(groups)
         sizes = np.bincount(codes)
         means = np.bincount(codes, weights=x) / np.maximum(sizes, 1)
-        return x - means[codes]
+        r = means[codes]
+        return np.subtract(x, r, out=r)  # x - means[codes], without a second length-N array
     r = x - x.mean()
     if N <= degree + 1:
         return r
     t = np.linspace(-1.0, 1.0, N)
-    prev, p = np.zeros(N), np.ones(N)
+    prev, p, work = np.zeros(N), np.ones(N), np.empty(N)  # three buffers reused: no array made per step
     norm_prev, norm = 1.0, float(N)
     for _ in range(degree):
-        a = float(_inner(t * p, p)) / norm
-        nxt = (t - a) * p - (norm / norm_prev) * prev
-        prev, p = p, nxt
+        a = float(_inner(np.multiply(t, p, out=work), p)) / norm
+        np.subtract(t, a, out=work)
+        work *= p
+        prev *= norm / norm_prev
+        work -= prev  # (t - a) p - (norm / norm_prev) prev, operation by operation as written out
+        prev, p, work = p, work, prev
         norm_prev, norm = norm, float(_inner(p, p))
-        r -= (float(_inner(r, p)) / norm) * p
+        r -= np.multiply(p, float(_inner(r, p)) / norm, out=work)
     return r
 
 
@@ -308,19 +313,28 @@ def _fit_sinusoid(r: np.ndarray, freq: float) -> tuple[float, float, np.ndarray]
 
 
 # ---------------------------------------------------------------- the detector
-def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS, groups=None) -> OrderReport:
+def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS, groups=None,
+                   acf: bool = True) -> OrderReport:
     """Find the periods of ``x`` (values in list order) after removing a smooth trend, or the
     means of ``groups`` (codes along the list, each group one contiguous block).
 
     See the module notes for the method and its sources.  Returns an :class:`OrderReport`
-    whose ``periods`` are sorted strongest first.
+    whose ``periods`` are sorted strongest first.  With ``acf=False`` the autocorrelations
+    (``OrderReport.acf``) are left out (None) unless a period is found, whose autocorrelation
+    is read from them; the periods are the same either way.
     """
     x = np.asarray(x, dtype=float)
     N = int(x.shape[0])
     r = detrend(x, groups=groups)
     ss = float(_inner(r, r))
-    ss_total = float(np.sum((x - x.mean()) ** 2)) if N else 0.0
-    acf = autocorrelation(r, min(ACF_LAGS, N // 4))
+    if N:
+        dev = x - x.mean()
+        ss_total = float(np.sum(np.multiply(dev, dev, out=dev)))  # sum (x - mean)^2
+        del dev
+    else:
+        ss_total = 0.0
+    lags = min(ACF_LAGS, N // 4)
+    acf = autocorrelation(r, lags) if acf else None
     lo, hi = MIN_CYCLES, (N - 1) // 2
     base = {"N": N, "alpha": alpha, "acf": acf, "grouped": groups is not None,
             "noise_share": ss / ss_total if ss_total > 0 else 1.0}
@@ -363,6 +377,8 @@ def detect_periods(x, alpha: float = FALSE_ALARM, max_periods: int = MAX_PERIODS
             item[2], item[3], fit = _fit_sinusoid(resid, item[0])
             resid -= fit
         var = ss / N
+        if acf is None:
+            acf = base["acf"] = autocorrelation(r, lags)
         for f, p, a, b in found:
             amp = float(np.hypot(a, b))
             P = 1.0 / f
@@ -514,34 +530,55 @@ def unsafe_intervals(rep: OrderReport, k_max: int | None = None) -> list[int]:
 _CACHE: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
 
+def _changes(c: np.ndarray) -> np.ndarray:
+    """Where the list moves to another group: ``c[1:] != c[:-1]``."""
+    return c[1:] != c[:-1]
+
+
 def contiguous_groups(codes_along) -> bool:
-    """True when every group occupies one contiguous block of the list (a grouped list)."""
+    """True when every group occupies one contiguous block of the list (a grouped list).
+
+    Codes 0..G-1 (a frame's) are counted, not sorted: the list is grouped when it has as many
+    runs as distinct codes, and more than one."""
     c = np.asarray(codes_along)
     if c.size == 0:
         return False
-    runs = 1 + int(np.count_nonzero(c[1:] != c[:-1]))
-    return runs == np.unique(c).size and runs > 1
+    runs = 1 + int(np.count_nonzero(_changes(c)))
+    if runs == 1:
+        return False
+    counted = c.dtype.kind in "iu" and int(c.min()) >= 0
+    return runs == (np.count_nonzero(np.bincount(c)) if counted else np.unique(c).size)
 
 
 def list_groups(frame, order) -> np.ndarray | None:
     """Group codes along ``order`` when the list is grouped by stratum and/or cluster (each a
-    contiguous block; the finest such grouping), else None."""
-    parts = [g[order] for g in (frame.stratum, frame.cluster) if g is not None and contiguous_groups(g[order])]
+    contiguous block; the finest such grouping), else None.
+
+    Only the blocks matter (the detrending removes each block's mean): with both groupings
+    contiguous, each pair of codes is one block too, numbered here by its place along the list."""
+    along = (g[order] for g in (frame.stratum, frame.cluster) if g is not None)
+    parts = [c for c in along if contiguous_groups(c)]
     if not parts:
         return None
     if len(parts) == 1:
         return parts[0]
-    return np.unique(parts[0].astype(np.int64) * (int(parts[1].max()) + 1) + parts[1], return_inverse=True)[1]
+    codes = np.zeros(parts[0].size, dtype=np.int64)
+    np.cumsum(_changes(parts[0]) | _changes(parts[1]), out=codes[1:])
+    return codes
 
 
 def frame_order_report(frame, variable: int = 0, sort_by: str | None = None,
-                       alpha: float = FALSE_ALARM) -> OrderReport:
+                       alpha: float = FALSE_ALARM, acf: bool = False) -> OrderReport:
     """The detector's report on one target of a frame along its list order (or a sort key's
     order), computed once per frame and kept while the frame lives.  A list grouped by stratum
-    or cluster has its group means removed instead of a trend (module notes, 1)."""
+    or cluster has its group means removed instead of a trend (module notes, 1).
+
+    ``acf=True`` asks for the autocorrelations (``OrderReport.acf``) as well, which a run's
+    checks do not need (see :func:`detect_periods`)."""
     per = _CACHE.setdefault(frame, {})
     key = (variable, sort_by, alpha)
-    if key not in per:
+    if key not in per or (acf and per[key].acf is None):
         order = np.asarray(frame.order if sort_by is None else frame.sort_orders[sort_by])
-        per[key] = detect_periods(frame.y[order, variable], alpha=alpha, groups=list_groups(frame, order))
+        per[key] = detect_periods(frame.y[order, variable], alpha=alpha, groups=list_groups(frame, order),
+                                  acf=acf)
     return per[key]

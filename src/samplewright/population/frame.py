@@ -32,12 +32,6 @@ COUNT = -2
 COST = -1
 
 
-def _codes(series: pd.Series) -> tuple[np.ndarray, tuple]:
-    """Integer codes 0..K-1 in order of first sorted label, and the labels."""
-    codes, labels = pd.factorize(series, sort=True)
-    return codes.astype(np.int64), tuple(labels.tolist())
-
-
 def _constant_columns(values: np.ndarray) -> dict[int, float]:
     """Columns of ``values`` that hold one value throughout (the ones column; a cost column of zeros)."""
     if values.shape[0] == 0:
@@ -51,7 +45,7 @@ def _padded_rows(values: np.ndarray) -> np.ndarray:
     k = values.shape[1]
     width = next((w for w in (2, 4, 8) if w >= k), k)
     if width == k:
-        return values
+        return np.ascontiguousarray(values)
     out = np.zeros((values.shape[0], width))
     out[:, :k] = values
     return out
@@ -60,12 +54,22 @@ def _padded_rows(values: np.ndarray) -> np.ndarray:
 def _group_index(codes: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     """Units sorted by group (stable) and the offsets of each group's run (length k + 1)."""
     if codes.size < 2 or np.all(codes[1:] >= codes[:-1]):  # already grouped: the stable order is the list order
-        idx = np.arange(codes.size)
-    else:  # codes that fit 16 bits are sorted by radix, in linear time
-        idx = np.argsort(codes.astype(np.uint16) if k <= 1 << 16 else codes, kind="stable")
+        idx = np.arange(codes.size, dtype=np.int64)
+    else:  # codes that fit 8 or 16 bits are sorted by radix, in linear time (fewer passes for 8 bits)
+        small = np.uint8 if k <= 1 << 8 else np.uint16 if k <= 1 << 16 else None
+        idx = np.argsort(codes if small is None else codes.astype(small), kind="stable").astype(np.int64, copy=False)
     counts = np.bincount(codes, minlength=k)
-    offsets = np.concatenate([[0], np.cumsum(counts)])
-    return idx.astype(np.int64), offsets.astype(np.int64)
+    offsets = np.zeros(k + 1, dtype=np.int64)
+    np.cumsum(counts, out=offsets[1:])
+    return idx, offsets
+
+
+def _group_sums(codes: np.ndarray, values: np.ndarray, k: int) -> np.ndarray:
+    """``(k, K)`` sums of the columns of ``values`` by group code, each group's units added in list order."""
+    out = np.empty((k, values.shape[1]))
+    for j in range(values.shape[1]):
+        out[:, j] = np.bincount(codes, weights=values[:, j], minlength=k)
+    return out
 
 
 def srs_variance_of_mean(n: float, N: int, S2):
@@ -126,20 +130,27 @@ class Frame:
         y = np.ascontiguousarray(self.y, dtype=np.float64)
         if y.ndim == 1:
             y = y[:, None]
-        object.__setattr__(self, "y", y)
-        n = y.shape[0]
-        cost = np.zeros(n) if self.unit_cost is None else np.asarray(self.unit_cost, dtype=np.float64)
+        n, v = y.shape
         extra, layout = build_layout(
             y, self.variables, self.aux, self.aux_names, self.poststratum, self.poststratum_labels,
             self.domain, self.domain_labels, self.roles.get("domain"), self.domain_keep)
         object.__setattr__(self, "layout", layout)
-        values = np.column_stack([y, extra, np.ones(n), cost])
+        # column-major, so each column (the one gathered, y of one variable) is a view, not a copy
+        values = np.empty((n, v + extra.shape[1] + 2), order="F")
+        values[:, :v] = y
+        values[:, v:COUNT] = extra
+        values[:, COUNT] = 1.0
+        values[:, COST] = 0.0 if self.unit_cost is None else np.asarray(self.unit_cost, dtype=np.float64)
         object.__setattr__(self, "values", values)
+        # one variable: y is the first column of values (an (N, 1) column is C-contiguous as well);
+        # several: y keeps its own row-major copy, so sums over it add in the same order as ever
+        object.__setattr__(self, "y", values[:, :1] if v == 1 else y)
+        del y
         constants = _constant_columns(values)
         varying = [j for j in range(values.shape[1]) if j not in constants]
         object.__setattr__(self, "constants", constants)
         if len(varying) == 1:  # one study variable, no unit cost: gather one column, fill the rest
-            object.__setattr__(self, "column", np.ascontiguousarray(values[:, varying[0]]))
+            object.__setattr__(self, "column", values[:, varying[0]])  # contiguous: values is column-major
             object.__setattr__(self, "rows", None)
         else:
             object.__setattr__(self, "column", None)
@@ -154,9 +165,7 @@ class Frame:
             cu, co = _group_index(self.cluster, c)
             object.__setattr__(self, "cluster_units", cu)
             object.__setattr__(self, "cluster_offsets", co)
-            sums = np.stack([np.bincount(self.cluster, weights=values[:, j], minlength=c)
-                             for j in range(values.shape[1])], axis=1)  # each cluster's units added in list order
-            object.__setattr__(self, "cluster_sums", sums)
+            object.__setattr__(self, "cluster_sums", _group_sums(self.cluster, values, c))
             cs = np.zeros(c, dtype=np.int64)
             cs[self.cluster] = self.stratum
             object.__setattr__(self, "cluster_stratum", cs)
@@ -282,15 +291,12 @@ class Frame:
 
     def stratum_means(self) -> np.ndarray:
         """Exact stratum means, shape (H, V)."""
-        sums = np.zeros((self.H, self.V))
-        np.add.at(sums, self.stratum, self.y)
-        return sums / self.N_h[:, None]
+        return _group_sums(self.stratum, self.y, self.H) / self.N_h[:, None]
 
     def stratum_S2(self) -> np.ndarray:
         """Stratum variances S_h^2 (divisor N_h - 1; zero for a one-unit stratum), shape (H, V)."""
         dev = self.y - self.stratum_means()[self.stratum]
-        ss = np.zeros((self.H, self.V))
-        np.add.at(ss, self.stratum, dev**2)
+        ss = _group_sums(self.stratum, dev**2, self.H)
         denom = np.maximum(self.N_h - 1, 1)[:, None]
         return ss / denom
 
@@ -327,9 +333,9 @@ class Frame:
         ``domain`` and ``domains`` (the domain values to report) feed the estimators that use
         auxiliary data and the domain estimates (see :mod:`samplewright.population.layout`).
         """
-        from samplewright.config.validate import auxiliary_columns, frame_columns
+        from samplewright.config.validate import auxiliary_columns, frame_columns, label_codes
 
-        df, roles = frame_columns(
+        df, roles, codes = frame_columns(
             df, target=target, stratum=stratum, cluster=cluster, size=size, order=order,
             unit_cost=unit_cost, id=id, missing=missing, source=source,
         )
@@ -339,7 +345,7 @@ class Frame:
         if cluster_cost is not None:  # one cost per cluster, checked constant within each
             from samplewright.config.validate import cluster_cost_column
 
-            per_unit_cc = cluster_cost_column(df, cluster_cost, cluster, source)
+            per_unit_cc = cluster_cost_column(df, cluster_cost, cluster, source, codes.get("cluster"))
             roles["cluster_cost"] = cluster_cost
         targets = roles["target"]
         y = df[list(targets)].to_numpy(dtype=np.float64)
@@ -348,18 +354,13 @@ class Frame:
             extra["aux"] = df[list(aux_names)].apply(pd.to_numeric).to_numpy(dtype=np.float64)
             extra["aux_names"] = aux_names
         if poststratum is not None:
-            extra["poststratum"], extra["poststratum_labels"] = _codes(df[poststratum].astype(str))
+            extra["poststratum"], extra["poststratum_labels"] = label_codes(df[poststratum].astype(str))
         if domain is not None:
-            extra["domain"], extra["domain_labels"] = _codes(df[domain].astype(str))
+            extra["domain"], extra["domain_labels"] = label_codes(df[domain].astype(str))
             if domains is not None:
                 extra["domain_keep"] = tuple(extra["domain_labels"].index(str(v)) for v in domains)
-        if stratum is not None:
-            s_codes, s_labels = _codes(df[stratum])
-        else:
-            s_codes, s_labels = np.zeros(len(df), dtype=np.int64), ("all",)
-        c_codes, c_labels = (None, ())
-        if cluster is not None:
-            c_codes, c_labels = _codes(df[cluster])
+        s_codes, s_labels = codes.get("stratum", (np.zeros(len(df), dtype=np.int64), ("all",)))
+        c_codes, c_labels = codes.get("cluster", (None, ()))
         if cluster_cost is not None:
             extra["cluster_cost"] = np.zeros(len(c_labels))
             extra["cluster_cost"][c_codes] = per_unit_cc
@@ -371,8 +372,8 @@ class Frame:
             from samplewright.config.validate import sort_key_codes
 
             base = np.arange(len(df), dtype=np.int64) if order_idx is None else order_idx
-            for col, codes in sort_key_codes(df, sort_keys, source).items():
-                sort_orders[col] = base[np.argsort(codes[base], kind="stable")]
+            for col, key in sort_key_codes(df, sort_keys, source).items():
+                sort_orders[col] = base[np.argsort(key[base], kind="stable")]
             roles["sort_keys"] = tuple(sort_orders)
         return cls(
             variables=tuple(targets),
@@ -393,7 +394,8 @@ class Frame:
     def load(cls, path, **roles) -> Frame:
         """Read a frame file (see :func:`~samplewright.population.reading.read_table`) and bind its columns
         (see :meth:`from_dataframe`)."""
-        return cls.from_dataframe(read_table(path), source=str(path), **roles)
+        labels = [roles[r] for r in ("stratum", "cluster") if isinstance(roles.get(r), str)]
+        return cls.from_dataframe(read_table(path, labels=labels), source=str(path), **roles)
 
 
 def _digest(h, name: str, value) -> None:

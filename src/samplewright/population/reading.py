@@ -33,6 +33,7 @@ import sys
 from itertools import islice
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from samplewright.config.validate import closest
@@ -94,6 +95,22 @@ def role_columns(roles: dict) -> list[str]:
 
 def _is_text(series: pd.Series) -> bool:
     return pd.api.types.is_object_dtype(series) or pd.api.types.is_string_dtype(series)
+
+
+def _is_label_text(series: pd.Series) -> bool:
+    """A text column, or a categorical one of text labels (a Parquet text column read as a dictionary)."""
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        return _is_text(pd.Series(series.cat.categories))
+    return _is_text(series)
+
+
+def _cells(series: pd.Series):
+    """The filled cells of a column; of a categorical one, each label in use once (the same test)."""
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        codes = series.cat.codes.to_numpy()
+        return series.cat.categories[np.flatnonzero(np.bincount(codes[codes >= 0],
+                                                                minlength=len(series.cat.categories)))]
+    return series.dropna()
 
 
 def _is_number(value) -> bool:
@@ -361,7 +378,7 @@ def _numbers_in_text(df: pd.DataFrame, decimal: str | None, thousands: str | Non
     """Text columns whose every filled cell is a number (exact thousands groups, a percent sign only
     when ``percent``) turned into numbers.  A decimal mark or thousands separator not stated (None)
     is read from the first 100 filled cells of each text column."""
-    texts = [c for c in df.columns if _is_text(df[c])]
+    texts = [c for c in df.columns if _is_label_text(df[c])]
     if not texts:
         return df
     sample = [v for c in texts for v in df[c].dropna().head(_SAMPLE_ROWS)]
@@ -371,10 +388,12 @@ def _numbers_in_text(df: pd.DataFrame, decimal: str | None, thousands: str | Non
     group = rf"\d{{1,3}}(?:{re.escape(thousands)}\d{{3}})+|\d+" if thousands else r"\d+"
     number = re.compile(rf"[+-]?(?:{group})(?:{re.escape(decimal)}\d+)?(?:[eE][+-]?\d+)?" + ("%?" if percent else ""))
     for col in texts:
-        filled = df[col].dropna()
+        filled = _cells(df[col])
         if not len(filled) or not all(_is_number(v) or (isinstance(v, str) and number.fullmatch(v))
                                       for v in filled):
             continue
+        if isinstance(df[col].dtype, pd.CategoricalDtype):  # numbers after all: the plain text, converted below
+            df[col] = df[col].astype(df[col].cat.categories.dtype)
 
         def value(v):
             if not isinstance(v, str):
@@ -387,23 +406,33 @@ def _numbers_in_text(df: pd.DataFrame, decimal: str | None, thousands: str | Non
 
 
 def read_table(path, columns=None, separator=None, decimal=None, thousands=None, encoding=None, percent=False,
-               sheet=None, header_row: int = 1) -> pd.DataFrame:
+               sheet=None, header_row: int = 1, labels=()) -> pd.DataFrame:
     """Read a CSV, spreadsheet or Parquet file into a DataFrame; refuse a missing, unreadable or empty one.
 
-    ``columns`` (Parquet only) reads just those columns, when the file has them all.  The other
-    arguments are the ``[frame]`` reading keys (checked by :func:`samplewright.config.validate.reading_options`).
+    ``columns`` (Parquet only) reads just those columns, when the file has them all.  ``labels``
+    (Parquet only) names columns used as labels (strata, clusters): those that are text come back
+    categorical, pyarrow reading each distinct label once instead of making a string per row
+    (:func:`samplewright.config.validate.label_codes` codes them as it codes the plain text).  The
+    other arguments are the ``[frame]`` reading keys (checked by
+    :func:`samplewright.config.validate.reading_options`).
     """
     p = input_file(path, "frame file")
     suffix = p.suffix.lower()
     try:
         if suffix in PARQUET_SUFFIXES:
+            import pyarrow as pa
             import pyarrow.parquet as pq
 
-            schema = pq.read_schema(p).names
-            _unique_names(schema, p)
-            wanted = columns if columns and set(columns) <= set(schema) else None  # else: the role check names it
-            # arrow buffers freed as each column is converted: no second copy of the table
-            df = pq.read_table(p, columns=wanted).to_pandas(split_blocks=True, self_destruct=True)
+            schema = pq.read_schema(p)
+            _unique_names(schema.names, p)
+            wanted = columns if columns and set(columns) <= set(schema.names) else None  # else: the role check names it
+            text = [f.name for f in schema if f.name in labels and (pa.types.is_string(f.type)
+                                                                    or pa.types.is_large_string(f.type))]
+            # one file reader (not the dataset layer); arrow buffers freed as each column is converted: no
+            # second copy of the table
+            table = pq.ParquetFile(p, read_dictionary=text or None).read(columns=wanted)
+            df = table.to_pandas(split_blocks=True, self_destruct=True)
+            del table
             df = _numbers_in_text(df, decimal, thousands, percent)
         elif suffix in CSV_SUFFIXES:
             df = _read_csv(p, separator, decimal, thousands, encoding, percent)

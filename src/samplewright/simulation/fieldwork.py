@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from samplewright.config.validate import label_codes
 from samplewright.designs.block import SampleBlock
 from samplewright.errors import InputError
 from samplewright.estimation.registry import ESTIMATORS, estimate_points, value_columns
@@ -255,7 +256,7 @@ def _column_arrays(scenario, frame: Frame, names) -> dict:
         source = "synthetic frame" if spec.synthetic is not None else str(spec.path)
         base = {k: v for k, v in spec.roles.items() if k in ("target", "stratum", "cluster", "size", "order",
                                                               "unit_cost", "id")}
-        df, _ = frame_columns(raw, missing=spec.missing, source=source, **base)
+        df, _, _ = frame_columns(raw, missing=spec.missing, source=source, **base)
         if len(df) != frame.N:
             raise InputError(f"{source}: the frame given to run() has {frame.N} units but the scenario's frame "
                              f"has {len(df)}; fieldwork columns cannot be matched to units")
@@ -280,8 +281,9 @@ def _numeric(name, values) -> np.ndarray:
 
 
 def _codes(values) -> tuple[np.ndarray, int]:
-    codes, labels = pd.factorize(pd.Series(values).astype(str), sort=True)
-    return codes.astype(np.int64), len(labels)
+    """Codes of a fieldwork column's values compared as text, and how many there are."""
+    codes, labels = label_codes(pd.Series(values).astype(str))
+    return codes, len(labels)
 
 
 def _resolve_adjustment(spec: AdjustmentSpec, listed: Frame, source: np.ndarray, cols: dict) -> ResolvedAdjustment:

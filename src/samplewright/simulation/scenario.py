@@ -45,14 +45,15 @@ from samplewright.simulation.response import ResponseModel, response_from_dict
 class FrameSource(FrameSpec):
     """Where the frame comes from (a file or a synthetic generator) and its column roles; loads it."""
 
-    def dataframe(self, columns=None) -> pd.DataFrame:
+    def dataframe(self, columns=None, labels=()) -> pd.DataFrame:
         if self.synthetic is not None:
             return generate(self.synthetic)
-        return read_table(self.path, columns=columns, **self.reading)
+        return read_table(self.path, columns=columns, labels=labels, **self.reading)
 
     def load(self) -> Frame:
         source = "synthetic frame" if self.synthetic is not None else str(self.path)
-        df = self.dataframe(columns=role_columns(self.roles))
+        labels = [self.roles[r] for r in ("stratum", "cluster") if isinstance(self.roles.get(r), str)]
+        df = self.dataframe(columns=role_columns(self.roles), labels=labels)
         return Frame.from_dataframe(df, missing=self.missing, source=source, **self.roles)
 
 

@@ -120,7 +120,7 @@ def frame_table(scenario: Scenario, frame: Frame) -> pd.DataFrame:
     marker = "row"
     while marker in raw.columns:
         marker = f"_{marker}"
-    checked, _ = frame_columns(raw.assign(**{marker: np.arange(len(raw))}), missing=spec.missing, source=source,
+    checked, _, _ = frame_columns(raw.assign(**{marker: np.arange(len(raw))}), missing=spec.missing, source=source,
                                **roles)
     table = raw.iloc[checked[marker].to_numpy()].reset_index(drop=True)
     if len(table) != frame.N:  # pragma: no cover - the same rows a frame load keeps
