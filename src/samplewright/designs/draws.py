@@ -13,12 +13,14 @@ import numpy as np
 _KEY_BUDGET = 4_000_000
 
 
-def distinct_positions(rng: np.random.Generator, M, k: int, lead: tuple[int, ...]) -> np.ndarray:
+def distinct_positions(rng: np.random.Generator, M, k: int, lead: tuple[int, ...], narrow: bool = False) -> np.ndarray:
     """Draw ``k`` distinct positions from ``range(M)`` for every cell of ``lead``.
 
     ``M`` is a scalar or an integer array of shape ``lead`` (one population size per cell),
-    with ``k <= M`` everywhere.  Returns an int64 array of shape ``lead + (k,)``; every
-    k-subset is equally likely (simple random sampling without replacement).
+    with ``k <= M`` everywhere.  Returns an int64 array of shape ``lead + (k,)`` (with
+    ``narrow``, int32 where every M is below 2^31: the same numbers, for a caller that widens
+    them as it copies them); every k-subset is equally likely (simple random sampling without
+    replacement).
 
     Notes
     -----
@@ -44,20 +46,19 @@ def distinct_positions(rng: np.random.Generator, M, k: int, lead: tuple[int, ...
     pos = _scaled_floor(rng.random(lead + (k,)), Mb, dtype)
     pos.sort(axis=-1)
     flat = pos.reshape(-1, k)  # a view: rows are the cells of lead
-    Mrows = np.broadcast_to(Mb, pos.shape).reshape(-1, k)
-    rows = None  # rows still to check (None: all, read in place); once a row has no repeat it is final
+    Mflat = np.broadcast_to(M, lead).reshape(-1)  # M of each row
+    rows, sub = None, flat  # rows still to check (None: all) and their positions; a row without repeats is final
     while True:  # redraw repeats in row order, then re-sort and re-check only the rows that had them
-        sub = flat if rows is None else flat[rows]
         same = sub[:, 1:] == sub[:, :-1]
         bad = same.any(axis=1)
         if not bad.any():
-            return pos.astype(np.int64, copy=False)
+            return pos if narrow else pos.astype(np.int64, copy=False)
         rows = np.flatnonzero(bad) if rows is None else rows[bad]
         sub = sub[bad]
         dup = np.zeros(sub.shape, dtype=bool)
         dup[:, 1:] = same[bad]
-        count = int(dup.sum())
-        sub[dup] = _scaled_floor(rng.random(count), Mrows[rows][dup], dtype)
+        at = np.nonzero(dup)[0]  # the row (of sub) of each repeat, in row order
+        sub[dup] = _scaled_floor(rng.random(at.size), Mflat[rows[at]], dtype)
         sub.sort(axis=-1)
         flat[rows] = sub
 

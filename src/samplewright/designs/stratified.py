@@ -170,7 +170,8 @@ class Stratified(Design):
         at = 0
         for h in strata:
             k = int(n_h[h])
-            np.add(distinct_positions(rng, N_h[h], k, (B,)), frame.strata_offsets[h], out=pos[:, at:at + k])
+            np.add(distinct_positions(rng, N_h[h], k, (B,), narrow=True), frame.strata_offsets[h],
+                   out=pos[:, at:at + k])
             at += k
         units = np.take(frame.strata_units, pos) if keep_units else None
         psu_stratum = np.repeat(strata, n_h[strata])
