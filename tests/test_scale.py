@@ -474,3 +474,30 @@ def test_block_with_unwritten_constant_columns_reads_as_plain_indexing(unit_cost
         assert np.isnan(raw[..., COUNT]).all()
     np.testing.assert_array_equal(blk.sums, plain)
     np.testing.assert_array_equal(blk.replaced(variance="psu").sums, plain)
+
+
+@pytest.mark.parametrize("with_cost", [False, True])
+def test_gathers_read_plain_indexing_whatever_the_storage_order(with_cost):
+    """Every gather (plain, through the stratum order, constant columns left pending) equals numpy's
+    values[units] when the frame's table is stored column by column and its one varying column is a view of
+    it, as well as when stored row by row."""
+    from samplewright import Frame
+    from samplewright.designs.block import SampleBlock
+    from samplewright.population.frame import _padded_rows
+
+    rng = np.random.default_rng(4)
+    df = pd.DataFrame({"y": rng.normal(size=4000), "band": rng.integers(0, 3, 4000), "fee": rng.random(4000)})
+    f = Frame.from_dataframe(df, target="y", stratum="band", unit_cost="fee" if with_cost else None)
+    values = np.asfortranarray(f.values)
+    object.__setattr__(f, "values", values)
+    if f.column is not None:
+        object.__setattr__(f, "column", values[:, 0])  # a view, contiguous in a column-ordered table
+    else:
+        object.__setattr__(f, "rows", _padded_rows(values))
+    units = rng.integers(0, 4000, (5, 60))
+    plain = f.values[units]
+    np.testing.assert_array_equal(f.gather(units), plain)
+    np.testing.assert_array_equal(f.gather_in_strata(units), f.values[f.strata_units[units]])
+    blk = SampleBlock(sums=f.gather(units, fill=False), weight=np.ones(60), psu_stratum=np.zeros(60, dtype=np.int64),
+                      fpc=np.ones(1), clusters=np.zeros(5)).deferring(f.unfilled)
+    np.testing.assert_array_equal(blk.sums, plain)

@@ -47,11 +47,12 @@ def _constant_columns(values: np.ndarray) -> dict[int, float]:
 
 
 def _padded_rows(values: np.ndarray) -> np.ndarray:
-    """``values`` with zero columns appended up to 2, 4 or 8 columns (unchanged if wider)."""
+    """``values`` with zero columns appended up to 2, 4 or 8 columns (unchanged if wider), row by row in
+    memory (np.take along rows copies a table stored otherwise before every gather)."""
     k = values.shape[1]
     width = next((w for w in (2, 4, 8) if w >= k), k)
     if width == k:
-        return values
+        return np.ascontiguousarray(values)
     out = np.zeros((values.shape[0], width))
     out[:, :k] = values
     return out
