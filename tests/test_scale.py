@@ -437,3 +437,67 @@ def test_gather_equals_plain_indexing(with_cost):
     np.testing.assert_array_equal(got, f.values[units])
     # positions in the stratum-grouped order read the same rows as their units
     np.testing.assert_array_equal(f.gather_in_strata(units), f.values[f.strata_units[units]])
+
+
+@pytest.mark.parametrize("unit_cost", [None, 3.0, 2.5])
+@pytest.mark.parametrize("masked", [False, True])
+def test_block_with_unwritten_constant_columns_reads_as_plain_indexing(unit_cost, masked):
+    """A block whose constant columns were left unwritten (``gather(fill=False)`` then ``deferring``) reads
+    as numpy's plain ``values[units]``: its count and cost totals equal numpy's sums of the plain rows (a
+    whole-number constant without reading the unwritten memory, here poisoned with NaN), its weighted target
+    column equals the plain product, and ``sums`` itself equals the plain rows."""
+    from samplewright import Frame
+    from samplewright.designs.block import SampleBlock
+    from samplewright.population.frame import COST, COUNT
+
+    rng = np.random.default_rng(8)
+    df = pd.DataFrame({"y": rng.normal(size=3000)})
+    if unit_cost is not None:
+        df["fee"] = unit_cost
+    f = Frame.from_dataframe(df, target="y", unit_cost=None if unit_cost is None else "fee")
+    assert f.column is not None and sorted(f.unfilled) == [1, 2]  # only y varies: count and cost pending
+    units = rng.integers(0, 3000, (6, 40))
+    raw = f.gather(units, fill=False)
+    for j in f.unfilled:
+        raw[..., j] = np.nan  # what unwritten memory may hold
+    mask = rng.random((6, 40)) < 0.7 if masked else None
+    w = rng.random(40) + 1.0
+    blk = SampleBlock(sums=raw, weight=w, psu_stratum=np.zeros(40, dtype=np.int64), fpc=np.ones(1),
+                      clusters=np.zeros(6), mask=mask).deferring(f.unfilled)
+    plain = f.values[units]
+    keep = np.ones(units.shape, dtype=bool) if mask is None else mask
+    for column in (COUNT, COST):
+        np.testing.assert_array_equal(blk.column_total(column), np.where(keep, plain[..., column], 0.0).sum(axis=1))
+    z = blk.replaced(variance="psu").weighted(slice(0, 1))
+    np.testing.assert_array_equal(z, np.where(keep[..., None], plain[..., :1] * w[:, None], 0.0))
+    if unit_cost != 2.5:  # whole-number constants were totalled without being written
+        assert np.isnan(raw[..., COUNT]).all()
+    np.testing.assert_array_equal(blk.sums, plain)
+    np.testing.assert_array_equal(blk.replaced(variance="psu").sums, plain)
+
+
+@pytest.mark.parametrize("with_cost", [False, True])
+def test_gathers_read_plain_indexing_whatever_the_storage_order(with_cost):
+    """Every gather (plain, through the stratum order, constant columns left pending) equals numpy's
+    values[units] when the frame's table is stored column by column and its one varying column is a view of
+    it, as well as when stored row by row."""
+    from samplewright import Frame
+    from samplewright.designs.block import SampleBlock
+    from samplewright.population.frame import _padded_rows
+
+    rng = np.random.default_rng(4)
+    df = pd.DataFrame({"y": rng.normal(size=4000), "band": rng.integers(0, 3, 4000), "fee": rng.random(4000)})
+    f = Frame.from_dataframe(df, target="y", stratum="band", unit_cost="fee" if with_cost else None)
+    values = np.asfortranarray(f.values)
+    object.__setattr__(f, "values", values)
+    if f.column is not None:
+        object.__setattr__(f, "column", values[:, 0])  # a view, contiguous in a column-ordered table
+    else:
+        object.__setattr__(f, "rows", _padded_rows(values))
+    units = rng.integers(0, 4000, (5, 60))
+    plain = f.values[units]
+    np.testing.assert_array_equal(f.gather(units), plain)
+    np.testing.assert_array_equal(f.gather_in_strata(units), f.values[f.strata_units[units]])
+    blk = SampleBlock(sums=f.gather(units, fill=False), weight=np.ones(60), psu_stratum=np.zeros(60, dtype=np.int64),
+                      fpc=np.ones(1), clusters=np.zeros(5)).deferring(f.unfilled)
+    np.testing.assert_array_equal(blk.sums, plain)

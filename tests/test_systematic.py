@@ -329,3 +329,43 @@ def test_successive_differences_with_several_starts_uses_list_order():
     assert (ea.estimate == eb.estimate).all()
     by_hand = [v3_se(frame.y[row, 0].tolist(), 60) for row in np.sort(a.units[:20], axis=1)]
     assert np.allclose(ea.se[:20, 0], by_hand)
+
+
+class _LastStart:
+    """A stand-in generator whose every uniform is the largest double below 1: the last possible start."""
+
+    def random(self, size):
+        return np.full(size, np.nextafter(1.0, 0.0))
+
+
+@pytest.mark.parametrize("N, n, starts", [(7, 3, 1), (1_000_003, 1000, 1), (999_999, 1000, 2), (10, 10, 1),
+                                          (1_000_000, 1000, 1)])
+def test_positions_from_the_last_possible_start_stay_on_the_list(N, n, starts):
+    """At the last start, u just below K, every position lies on the list (0 .. N - 1) and within one of the
+    rule floor(u + j K) (Cochran 1977, sec. 8.1) worked in exact rational arithmetic from the same start:
+    floating point may round a position up by one (the last one up to N, which is clamped)."""
+    from fractions import Fraction
+
+    frame = Frame.from_dataframe(pd.DataFrame({"y": np.zeros(N)}), target="y")
+    d = Systematic("s", n=n, starts=starts)
+    pos = d.positions(frame, _LastStart(), 2)  # (B, starts, n / starts)
+    m = n // starts
+    v = Fraction(float(np.nextafter(1.0, 0.0) * N))  # the start as the package scales it: v = u m, u on [0, K)
+    exact = np.array([math.floor((v + j * N) / m) for j in range(m)])
+    assert exact.max() == N - 1  # the last start reaches the end of the list
+    assert pos.shape == (2, starts, m)
+    assert pos.min() >= 0 and pos.max() <= N - 1
+    assert np.all(np.abs(pos - exact) <= 1)
+
+
+def test_last_start_case_is_one_where_rounding_reaches_the_end():
+    """The (7, 3) case above is a real one: in floating point (v + 2 N) / 3 rounds to N = 7 itself (exactly
+    it is just below 7), so the clamp is what keeps the last position on the list, and the package gives the
+    exact rule's positions."""
+    from fractions import Fraction
+
+    v = np.nextafter(1.0, 0.0) * 7
+    assert math.floor((v + 2 * 7) / 3) == 7
+    assert [math.floor((Fraction(v) + j * 7) / 3) for j in range(3)] == [2, 4, 6]
+    frame = Frame.from_dataframe(pd.DataFrame({"y": np.zeros(7)}), target="y")
+    assert Systematic("s", n=3).positions(frame, _LastStart(), 1).ravel().tolist() == [2, 4, 6]

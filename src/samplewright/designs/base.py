@@ -9,7 +9,6 @@ size are part of the protocol, so shared tests can hold every design to them.
 from __future__ import annotations
 
 import copy
-import dataclasses
 import json
 from typing import ClassVar
 
@@ -90,7 +89,7 @@ class Design:
         whose formulas need fields of their own sets ``block.variants`` when it builds the block."""
         names = self.variance_names
         if block.variants is None and len(names) > 1:
-            return dataclasses.replace(block, variants={name: {} for name in names})
+            return block.replaced(variants={name: {} for name in names})
         return block
 
     def _draw(self, frame, rng, B, keep_units) -> SampleBlock:  # pragma: no cover - abstract

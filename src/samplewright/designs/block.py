@@ -65,6 +65,11 @@ class SampleBlock:
     list_order : (B, m) int array or None
         Where the positions are not in list order and a listed formula needs neighbours along the
         list (successive differences): each replicate's positions in list order.
+
+    Constant columns may be left unwritten by the design (:meth:`deferring`, for a frame column
+    that holds one value throughout, such as the count column): ``sums`` writes them on first
+    read, so every reader sees the same numbers as a full gather, while :meth:`column_total` and
+    :meth:`weighted` of other columns never write them.
     """
 
     sums: np.ndarray
@@ -85,7 +90,44 @@ class SampleBlock:
 
     @property
     def B(self) -> int:
-        return int(self.sums.shape[0])
+        return int(self._raw.shape[0])
+
+    @property
+    def _raw(self) -> np.ndarray:
+        """``sums`` as held, pending columns unwritten."""
+        return self.__dict__["_sums"]
+
+    def deferring(self, pending: dict) -> SampleBlock:
+        """This block, told that the columns ``pending`` (column -> its one value) of ``sums`` are not written
+        yet (see ``Frame.gather(..., fill=False)``); returns the block itself."""
+        self.__dict__["_pending"] = dict(pending) or None
+        return self
+
+    def replaced(self, **changes) -> SampleBlock:
+        """``dataclasses.replace(self, **changes)``, keeping pending columns unwritten when ``sums`` is kept."""
+        pending = self.__dict__.get("_pending")
+        if not pending or "sums" in changes:
+            return dataclasses.replace(self, **changes)
+        return dataclasses.replace(self, sums=self._raw, **changes).deferring(pending)
+
+    def column_total(self, column: int) -> np.ndarray:
+        """Unweighted sum of the value column ``column`` (counted from the end when negative) over each
+        replicate's real PSU positions, shape (B,).
+
+        A pending column whose one value is a whole number (so every partial sum is exact) is totalled
+        from the count of positions, without writing or reading it: the same numbers as the sum.
+        """
+        raw = self._raw
+        j = column % raw.shape[-1]
+        c = (self.__dict__.get("_pending") or {}).get(j)
+        if c is not None and _whole(c, raw.shape[1]):
+            if self.mask is None:
+                return np.full(raw.shape[0], float(raw.shape[1]) * c)
+            return self.mask.sum(axis=1) * c
+        col = self.sums[..., column]
+        if self.mask is not None:
+            col = np.where(self.mask, col, 0.0)
+        return col.sum(axis=1)
 
     @property
     def H(self) -> int:
@@ -107,7 +149,7 @@ class SampleBlock:
             return self
         if name not in self.variances:
             raise ValueError(f"variance formula {name!r} is not one of this block's {self.variances}")
-        return dataclasses.replace(self, variance=name, **self.variants[name])
+        return self.replaced(variance=name, **self.variants[name])
 
     def replicates(self, rows: slice, sums: np.ndarray | None = None) -> SampleBlock:
         """The block of replicates ``rows`` only (every per-replicate field sliced, each listed variance
@@ -137,9 +179,38 @@ class SampleBlock:
 
     def weighted(self, columns: slice | None = None) -> np.ndarray:
         """Estimated PSU totals of every value column (or of ``columns`` only), shape (B, m, K)."""
-        sums = self.sums if columns is None else self.sums[..., columns]
+        pending = self.__dict__.get("_pending")
+        if columns is None or (pending and any(j in pending for j in range(self._raw.shape[-1])[columns])):
+            sums = self.sums if columns is None else self.sums[..., columns]
+        else:  # columns already written: read as held
+            sums = self._raw[..., columns]
         w = self.weight
         z = sums * w[..., None]  # (m,) or (B, m) weights broadcast over replicates and columns
         if self.mask is not None:
             z = np.where(self.mask[..., None], z, 0.0)
         return z
+
+
+def _sums(self) -> np.ndarray:
+    pending = self.__dict__.get("_pending")
+    raw = self.__dict__["_sums"]
+    if pending:
+        for j, c in pending.items():
+            raw[..., j].fill(c)
+        self.__dict__["_pending"] = None
+    return raw
+
+
+def _set_sums(self, value: np.ndarray) -> None:
+    self.__dict__["_sums"] = value
+    self.__dict__["_pending"] = None
+
+
+#: ``SampleBlock.sums`` as a property (set after the dataclass is made, so ``sums`` stays its first
+#: field): reading it writes any pending constant columns first (see ``SampleBlock.deferring``)
+SampleBlock.sums = property(_sums, _set_sums, doc="(B, m, K) unweighted sums of the value columns over each PSU")
+
+
+def _whole(c: float, m: int) -> bool:
+    """Whether m copies of ``c`` add up exactly in any order: a whole number (not -0.0) with m |c| < 2^53."""
+    return float(c).is_integer() and abs(c) * m < 2.0**53 and not (c == 0 and np.signbit(c))

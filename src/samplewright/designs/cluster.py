@@ -73,12 +73,12 @@ class Cluster(Design):
         fpc = np.array([1.0 - m / C])
         common = {"fpc": fpc, "clusters": np.full(B, m, dtype=float), "strata": 0,
                   "cluster_cost": _cluster_costs(frame, chosen)}
-        if units is None:
+        if units is None:  # np.take: cluster_sums[chosen], several times faster for rows this narrow
             kept = None
             if keep_units:
                 kept = [np.concatenate([frame.cluster_units[frame.cluster_offsets[c]:frame.cluster_offsets[c + 1]]
                                         for c in row]) for row in chosen]
-            return SampleBlock(sums=frame.cluster_sums[chosen], weight=np.full(m, C / m),
+            return SampleBlock(sums=np.take(frame.cluster_sums, chosen, axis=0), weight=np.full(m, C / m),
                                psu_stratum=np.zeros(m, dtype=np.int64), units=kept, variance=self.variance_name,
                                **common)
         return second_stage_block(frame, units, valid, frame.cluster_sizes[chosen], np.full(m, C / m),

@@ -13,12 +13,14 @@ import numpy as np
 _KEY_BUDGET = 4_000_000
 
 
-def distinct_positions(rng: np.random.Generator, M, k: int, lead: tuple[int, ...]) -> np.ndarray:
+def distinct_positions(rng: np.random.Generator, M, k: int, lead: tuple[int, ...], narrow: bool = False) -> np.ndarray:
     """Draw ``k`` distinct positions from ``range(M)`` for every cell of ``lead``.
 
     ``M`` is a scalar or an integer array of shape ``lead`` (one population size per cell),
-    with ``k <= M`` everywhere.  Returns an int64 array of shape ``lead + (k,)``; every
-    k-subset is equally likely (simple random sampling without replacement).
+    with ``k <= M`` everywhere.  Returns an int64 array of shape ``lead + (k,)`` (with
+    ``narrow``, int32 where every M is below 2^31: the same numbers, for a caller that widens
+    them as it copies them); every k-subset is equally likely (simple random sampling without
+    replacement).
 
     Notes
     -----
@@ -38,25 +40,34 @@ def distinct_positions(rng: np.random.Generator, M, k: int, lead: tuple[int, ...
         raise ValueError(f"cannot draw {k} distinct units from a group of {mmin}")
     if k * 4 > mmin:
         return _by_keys(rng, M, k, lead, mmax)
+    # positions fit 32 bits on any list under 2^31 units: half the memory to sort and compare
+    dtype = np.int32 if mmax < 2**31 else np.int64
     Mb = np.broadcast_to(M, lead)[..., None]
-    pos = np.floor(rng.random(lead + (k,)) * Mb).astype(np.int64)
+    pos = _scaled_floor(rng.random(lead + (k,)), Mb, dtype)
     pos.sort(axis=-1)
     flat = pos.reshape(-1, k)  # a view: rows are the cells of lead
-    Mrows = np.broadcast_to(Mb, pos.shape).reshape(-1, k)
-    rows = np.arange(flat.shape[0])  # rows still to check; once a row has no repeat it is final
+    Mflat = np.broadcast_to(M, lead).reshape(-1)  # M of each row
+    rows, sub = None, flat  # rows still to check (None: all) and their positions; a row without repeats is final
     while True:  # redraw repeats in row order, then re-sort and re-check only the rows that had them
-        sub = flat[rows]
         same = sub[:, 1:] == sub[:, :-1]
         bad = same.any(axis=1)
         if not bad.any():
-            return pos
-        rows, sub = rows[bad], sub[bad]
+            return pos if narrow else pos.astype(np.int64, copy=False)
+        rows = np.flatnonzero(bad) if rows is None else rows[bad]
+        sub = sub[bad]
         dup = np.zeros(sub.shape, dtype=bool)
         dup[:, 1:] = same[bad]
-        count = int(dup.sum())
-        sub[dup] = np.floor(rng.random(count) * Mrows[rows][dup]).astype(np.int64)
+        at = np.nonzero(dup)[0]  # the row (of sub) of each repeat, in row order
+        sub[dup] = _scaled_floor(rng.random(at.size), Mflat[rows[at]], dtype)
         sub.sort(axis=-1)
         flat[rows] = sub
+
+
+def _scaled_floor(u: np.ndarray, M, dtype) -> np.ndarray:
+    """``floor(u * M)`` as integers of ``dtype``, computed in ``u`` (uniforms on [0, 1), so the product is
+    not negative and truncation is the floor; the same numbers as ``np.floor(u * M).astype(int)``)."""
+    u *= M
+    return u.astype(dtype)
 
 
 def _by_keys(rng, M, k, lead, mmax):
@@ -76,4 +87,4 @@ def _by_keys(rng, M, k, lead, mmax):
 def with_replacement(rng: np.random.Generator, M, k: int, lead: tuple[int, ...]) -> np.ndarray:
     """Draw ``k`` positions from ``range(M)`` with replacement for every cell of ``lead``."""
     Mb = np.broadcast_to(np.asarray(M, dtype=np.int64), lead)[..., None]
-    return np.floor(rng.random(lead + (k,)) * Mb).astype(np.int64)
+    return _scaled_floor(rng.random(lead + (k,)), Mb, np.int64)

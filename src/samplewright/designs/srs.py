@@ -46,14 +46,14 @@ class SRS(Design):
     def _block(self, frame, pos, keep_units):
         n, N = int(self.n), frame.N
         return SampleBlock(
-            sums=frame.gather(pos),
+            sums=frame.gather(pos, fill=False),
             weight=np.full(n, N / n),
             psu_stratum=np.zeros(n, dtype=np.int64),
             fpc=np.array([1.0 if self.replace else 1.0 - n / N]),
             clusters=np.zeros(len(pos)),
             strata=0,
             units=pos if keep_units else None,
-        )
+        ).deferring(frame.unfilled)
 
     # ------------------------------------------------------------ exact mode
     def count_samples(self, frame):

@@ -170,20 +170,20 @@ class Stratified(Design):
         at = 0
         for h in strata:
             k = int(n_h[h])
-            pos[:, at:at + k] = distinct_positions(rng, N_h[h], k, (B,))
-            pos[:, at:at + k] += frame.strata_offsets[h]
+            np.add(distinct_positions(rng, N_h[h], k, (B,), narrow=True), frame.strata_offsets[h],
+                   out=pos[:, at:at + k])
             at += k
         units = np.take(frame.strata_units, pos) if keep_units else None
         psu_stratum = np.repeat(strata, n_h[strata])
         return SampleBlock(
-            sums=frame.gather_in_strata(pos),
+            sums=frame.gather_in_strata(pos, fill=False),
             weight=(N_h / np.maximum(n_h, 1))[psu_stratum],
             psu_stratum=psu_stratum,
             fpc=1.0 - n_h / N_h,
             clusters=np.zeros(B),
             strata=int((n_h > 0).sum()),
             units=units if keep_units else None,
-        )
+        ).deferring(frame.unfilled)
 
     # ------------------------------------------------------------ exact mode
     def count_samples(self, frame):

@@ -119,8 +119,13 @@ class Systematic(Design):
             offsets = (j * N) // m  # floor(j K) in whole numbers, K = N / m
             return (s[..., None] + offsets) % N
         v = rng.random((B, r)) * N  # v = u m with u uniform on [0, K): floor(u + j K) = floor((v + j N) / m)
-        pos = np.floor((v[..., None] + j * N) / m).astype(np.int64)
-        np.minimum(pos, N - 1, out=pos)  # guards the last position against rounding
+        x = np.empty((B, r, m))
+        np.add(v[..., None], j * N, out=x)
+        x /= m
+        pos = x.astype(np.int64)  # not negative: truncation is the floor
+        # (v + j N) / m < (j + 1) N / m <= N - N / m <= N - 1 below the last position: only the last can
+        # round up to N, so only it is guarded
+        np.minimum(pos[..., -1], N - 1, out=pos[..., -1])
         return pos
 
     # ------------------------------------------------------------------ drawing
@@ -147,7 +152,7 @@ class Systematic(Design):
                                        "within_fpc": np.zeros((B, r))}
         neighbours = "successive_differences" in views and not in_order
         return SampleBlock(
-            sums=frame.gather_through(order, flat),  # rows read along the list order
+            sums=frame.gather_through(order, flat, fill=False),  # rows read along the list order
             weight=np.full(n, N / n),
             psu_stratum=np.zeros(n, dtype=np.int64),
             clusters=np.zeros(B),
@@ -157,7 +162,7 @@ class Systematic(Design):
             variants=views if len(names) > 1 else None,
             list_order=np.argsort(flat, axis=1, kind="stable") if neighbours else None,
             **views[names[0]],
-        )
+        ).deferring(frame.unfilled)
 
     # ------------------------------------------------------------------ exact mode
     def _distinct_starts(self, frame):

@@ -132,17 +132,18 @@ class CostModel:
         """Whether a block must keep its unit indices (to find the clusters a unit sample touches)."""
         return self.charge_touched_clusters and getattr(design, "size_key", "n") != "clusters"
 
-    def replicate_cost(self, block: SampleBlock, frame=None, completed=None) -> np.ndarray:
+    def replicate_cost(self, block: SampleBlock, frame=None, completed=None, n=None) -> np.ndarray:
         """Cost of each replicate in the block, shape (B,).
 
         ``frame`` (bound with :meth:`bind` when the model has stratum rates) is needed for the
         stratum rates and for the clusters a unit sample touches.  ``per_attempt`` is paid for
         every sampled unit and ``per_complete`` for every unit in ``completed`` (B,), the units
-        that responded (default: all sampled units, i.e. full response).
+        that responded (default: all sampled units, i.e. full response).  ``n`` (B,), when the caller has
+        it, is the block's :func:`~samplewright.estimation.estimators.sample_units`, not counted again.
         """
         if self.per_unit_by_stratum and frame is not None and frame.roles.get(BOUND) is None:
             raise ValueError("per_unit_by_stratum needs the frame bound with CostModel.bind")
-        n = sample_units(block)
+        n = sample_units(block) if n is None else n
         clusters = np.asarray(block.clusters, dtype=float)
         visited = np.zeros(block.B) if getattr(block, "cluster_cost", None) is None else block.cluster_cost
         if self.charge_touched_clusters and frame is not None and frame.cluster is not None \

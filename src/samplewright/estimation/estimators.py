@@ -67,7 +67,4 @@ def sampled_unit_cost(block: SampleBlock) -> np.ndarray:
 
 def _sampled_total(block: SampleBlock, column: int) -> np.ndarray:
     """Unweighted sum of one value column over each replicate's sampled units, shape (B,)."""
-    c = block.sums[..., column]
-    if block.mask is not None:
-        c = np.where(block.mask, c, 0.0)
-    return c.sum(axis=1)
+    return block.column_total(column)

@@ -45,6 +45,15 @@ def _by_stratum(x: np.ndarray, psu_stratum: np.ndarray, H: int) -> np.ndarray:
     return np.einsum("bmv,mh->bhv", x, indicators(psu_stratum, H))
 
 
+def _per_psu(x: np.ndarray, psu_stratum: np.ndarray) -> np.ndarray:
+    """``x[:, psu_stratum, :]`` for per-stratum values ``x`` (B, H, V): a run-length repeat when the positions
+    are grouped by stratum (as the designs lay them out), an index otherwise; the same numbers."""
+    m = psu_stratum.shape[0]
+    if m and np.all(psu_stratum[1:] >= psu_stratum[:-1]):
+        return np.repeat(x, np.bincount(psu_stratum, minlength=x.shape[1]), axis=1)
+    return x[:, psu_stratum, :]
+
+
 def stratified_psu_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     """Variance of the estimated total from PSU totals ``z`` (B, m, V): see module notes.
 
@@ -55,12 +64,16 @@ def stratified_psu_variance(z: np.ndarray, block: SampleBlock) -> np.ndarray:
     n_h = psu_counts(block)  # (B, H)
     sum_h = _by_stratum(z, block.psu_stratum, H)
     mean_h = sum_h / np.maximum(n_h, 1)[..., None]
-    dev = z - (mean_h if H == 1 else mean_h[:, block.psu_stratum, :])
+    if H == 1:
+        dev = z - mean_h
+    else:  # each PSU's stratum mean, then the deviation written over it (one (B, m, V) array)
+        dev = _per_psu(mean_h, block.psu_stratum)
+        np.subtract(z, dev, out=dev)
     if block.mask is not None:
         dev = np.where(block.mask[..., None], dev, 0.0)
     if H == 1:  # sum of squares without a (B, m, V) temporary
         ss_h = np.einsum("bmv,bmv->bv", dev, dev)[:, None, :]
     else:
-        ss_h = _by_stratum(dev * dev, block.psu_stratum, H)
+        ss_h = _by_stratum(np.multiply(dev, dev, out=dev), block.psu_stratum, H)
     factor = np.where(n_h > 1, n_h / np.maximum(n_h - 1, 1), 0.0) * block.fpc  # (B, H)
     return np.einsum("bhv,bh->bv", ss_h, factor)

@@ -103,7 +103,7 @@ def evaluate_exact(frame, cells, confidence: float, cost, chunk: int = 20_000, l
                     acc.append(arr)
             probs.append(np.asarray(p, dtype=float))
             ns.append(sample_units(block))
-            costs.append(cost.replicate_cost(block, frame))  # as engine.run_block (touched clusters)
+            costs.append(cost.replicate_cost(block, frame, n=ns[-1]))  # as engine.run_block (touched clusters)
         p = np.concatenate(probs)
         n = np.concatenate(ns)
         c = np.concatenate(costs)

@@ -41,7 +41,8 @@ def _constant_columns(values: np.ndarray) -> dict[int, float]:
 
 
 def _padded_rows(values: np.ndarray) -> np.ndarray:
-    """``values`` with zero columns appended up to 2, 4 or 8 columns (unchanged if wider)."""
+    """``values`` with zero columns appended up to 2, 4 or 8 columns (unchanged if wider), row by row in
+    memory (np.take along rows copies a table stored otherwise before every gather)."""
     k = values.shape[1]
     width = next((w for w in (2, 4, 8) if w >= k), k)
     if width == k:
@@ -184,7 +185,7 @@ class Frame:
         """The names :meth:`numeric_column` knows: the size column, then the auxiliary columns."""
         return [c for c in (self.roles.get("size"), *self.aux_names) if c]
 
-    def gather(self, units: np.ndarray) -> np.ndarray:
+    def gather(self, units: np.ndarray, fill: bool = True) -> np.ndarray:
         """Rows of ``values`` for an integer array of unit indices, shape ``units.shape + (K,)``.
 
         The same numbers as ``values[units]``, several times faster.  When all columns but
@@ -193,14 +194,17 @@ class Frame:
         result is then a view, column by column in memory, of shape ``units.shape + (K,)``.
         Otherwise the rows are copied from a table padded to 16, 32 or 64 bytes, a width
         numpy copies without a per-row memmove (the result may be a strided view of it).
+
+        ``fill=False`` leaves the columns of :meth:`unfilled` unwritten (their memory holds
+        anything), for a caller that records them as pending (``SampleBlock.deferring``).
         """
-        return self._take(self.column if self.column is not None else self.rows, units)
+        return self._take(self.column if self.column is not None else self.rows, units, fill)
 
-    def gather_in_strata(self, pos: np.ndarray) -> np.ndarray:
+    def gather_in_strata(self, pos: np.ndarray, fill: bool = True) -> np.ndarray:
         """``gather(strata_units[pos])`` for positions in the stratum-grouped unit order."""
-        return self.gather_through(self.strata_units, pos)
+        return self.gather_through(self.strata_units, pos, fill)
 
-    def gather_through(self, index: np.ndarray, pos: np.ndarray) -> np.ndarray:
+    def gather_through(self, index: np.ndarray, pos: np.ndarray, fill: bool = True) -> np.ndarray:
         """``gather(index[pos])``, for ``index`` one of the frame's own unit orders.
 
         The rows are read from a copy of the table permuted by ``index`` (built on first use
@@ -215,21 +219,32 @@ class Frame:
         if table is None:
             source = self.column if self.column is not None else self.rows
             table = cache[id(index)] = np.take(source, index, axis=0)
-        return self._take(table, pos)
+        return self._take(table, pos, fill)
 
-    def _take(self, source: np.ndarray, positions: np.ndarray) -> np.ndarray:
+    @property
+    def unfilled(self) -> dict:
+        """The constant columns (column -> value) that ``gather(..., fill=False)`` leaves unwritten:
+        every constant column when only one column is gathered, else none."""
+        return dict(self.constants) if self.column is not None else {}
+
+    def _take(self, source: np.ndarray, positions: np.ndarray, fill: bool = True) -> np.ndarray:
         """Rows ``positions`` of ``source`` (the one varying column, or the padded rows, in some
-        unit order) as rows of ``values``: the constant columns filled in, the padding cut off."""
+        unit order) as rows of ``values``: the constant columns filled in (unless ``fill`` is
+        false), the padding cut off.  Each gather writes straight into the result
+        (``np.take(..., out=)``; mode "wrap" reads every index in [-len, len) as plain indexing
+        does, without the buffered copy of mode "raise")."""
         k = self.values.shape[1]
+        positions = np.asarray(positions)
         if self.column is not None:
-            out = np.empty((k,) + np.shape(positions))
+            out = np.empty((k,) + positions.shape)
             for j in range(k):
-                if j in self.constants:
+                if j not in self.constants:
+                    np.take(source, positions, out=out[j], mode="wrap")
+                elif fill:
                     out[j].fill(self.constants[j])
-                else:
-                    out[j] = np.take(source, positions)
             return np.moveaxis(out, 0, -1)
-        out = np.take(source, positions, axis=0)
+        out = np.empty(positions.shape + source.shape[1:])
+        np.take(source, positions, axis=0, out=out, mode="wrap")
         return out if out.shape[-1] == k else out[..., :k]
 
     @cached_property

@@ -89,14 +89,15 @@ def run_block(frame: Frame, cell: Cell, task: BlockTask, confidence: float, cost
     rng = np.random.default_rng(task.seed)
     sample = cell.design.draw(frame, rng, task.count, keep_units=cost.needs_units(cell.design))
     outs = estimate_points(sample, cell.estimators, cell.variances, frame.N, frame.V, confidence, frame.layout)
+    n = sample_units(sample)
     return BlockResult(
         cell=task.cell, block=task.block, start=task.start,
         estimate=np.stack([o.estimate for o in outs]),
         se=np.stack([o.se for o in outs]),
         lower=np.stack([o.lower for o in outs]),
         upper=np.stack([o.upper for o in outs]),
-        n=sample_units(sample),
-        cost=cost.replicate_cost(sample, frame),
+        n=n,
+        cost=cost.replicate_cost(sample, frame, n=n),
     )
 
 
