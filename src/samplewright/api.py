@@ -145,8 +145,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     >>> sc = scenario_from_dict({"frame": {"synthetic": {"units": 400, "seed": 2}},
     ...                          "design": [{"label": "simple", "method": "srs", "n": 40}]})
     >>> res = run(sc, replicates=200, seed=1)
-    >>> res.summary[["design", "estimator", "replicates"]].iloc[0].tolist()
-    ['simple', 'ht', 200]
+    >>> row = res.summary.iloc[0]
+    >>> row["design"], row["estimator"], int(row["replicates"])
+    ('simple', 'ht', 200)
     """
     options = RunOptions(replicates=replicates, seed=seed, jobs=jobs, block_size=block_size, exact=exact,
                          until=until, max_replicates=max_replicates, out=out, resume=resume, backend=backend,
