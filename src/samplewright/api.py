@@ -31,6 +31,7 @@ from samplewright.evaluation.exact import check_counts, evaluate_exact
 from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.nonresponse import summary_columns
 from samplewright.evaluation.stopping import Rule, parse_until
+from samplewright.memory import release_freed_memory
 from samplewright.population.frame import Frame
 from samplewright.report import verdict
 from samplewright.report.table import with_frontier_mcse
@@ -61,21 +62,6 @@ def _versions() -> dict:
 
     return {"samplewright": __version__, "python": platform.python_version(), "numpy": np.__version__,
             "pandas": pd.__version__, "scipy": scipy.__version__, "joblib": joblib.__version__}
-
-
-def release_freed_memory() -> None:
-    """Ask the C allocator to return freed heap pages to the system (glibc only; else nothing).
-
-    A long run frees thousands of small per-block arrays once the replicate table is built;
-    glibc keeps those pages in its heap unless asked, which would count against the run's
-    peak memory for the rest of the evaluation.
-    """
-    try:
-        import ctypes
-
-        ctypes.CDLL("libc.so.6").malloc_trim(0)
-    except (OSError, AttributeError):
-        pass
 
 
 def allocation_table(frame: Frame, cells) -> pd.DataFrame:

@@ -386,14 +386,6 @@ def _numbers_in_text(df: pd.DataFrame, decimal: str | None, thousands: str | Non
     return df
 
 
-def release_arrow_memory() -> None:
-    """Hand the pages pyarrow's memory pool keeps after a read back to the system (the read's buffers are
-    freed, but its allocator would otherwise hold them for the rest of the run)."""
-    import pyarrow as pa
-
-    pa.default_memory_pool().release_unused()
-
-
 def read_table(path, columns=None, separator=None, decimal=None, thousands=None, encoding=None, percent=False,
                sheet=None, header_row: int = 1) -> pd.DataFrame:
     """Read a CSV, spreadsheet or Parquet file into a DataFrame; refuse a missing, unreadable or empty one.
@@ -412,7 +404,6 @@ def read_table(path, columns=None, separator=None, decimal=None, thousands=None,
             wanted = columns if columns and set(columns) <= set(schema) else None  # else: the role check names it
             # arrow buffers freed as each column is converted: no second copy of the table
             df = pq.read_table(p, columns=wanted).to_pandas(split_blocks=True, self_destruct=True)
-            release_arrow_memory()
             df = _numbers_in_text(df, decimal, thousands, percent)
         elif suffix in CSV_SUFFIXES:
             df = _read_csv(p, separator, decimal, thousands, encoding, percent)

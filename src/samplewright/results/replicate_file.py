@@ -95,7 +95,9 @@ class CellTables:
         self.fieldwork = plan.fieldwork
         self.rows = rows
         self.summary_rows, self.field_rows, self.cost_rows, self.mse_rows = [], [], [], []
-        self.file = ParquetRows(Path(folder) / "replicates.parquet")
+        # dictionary-encoded: the text columns and the size (few values each), not the replicate numbers
+        self.file = ParquetRows(Path(folder) / "replicates.parquet",
+                                dictionary=["design", "size", "estimator", "variable", "variance"])
 
     def add(self, cell, arrays: CellArrays) -> None:
         """One cell's summary rows, tallies and replicate rows (cells must come in the plan's order)."""

@@ -552,7 +552,7 @@ def table_frame(replicate, text: dict, size, num: dict, extras=()) -> pd.DataFra
 class CellArrays:
     """One cell's replicates in replicate order: ``points`` holds (E, V, R) arrays (estimate, se, lower,
     upper, and with fieldwork the ``full_`` ones), E the cell's points (estimator x variance formula) and V
-    the variables; ``reps`` holds (R,) arrays (replicate, n, cost, and the fieldwork counts)."""
+    the variables; ``reps`` holds (R,) arrays (n, cost, and the fieldwork counts) of replicates 0 to R - 1."""
 
     points: dict
     reps: dict
@@ -565,7 +565,7 @@ class CellArrays:
 def cell_arrays(first: BlockResult, replicates: int) -> CellArrays:
     """Empty arrays for the ``replicates`` replicates of the cell ``first`` (one of its blocks) belongs to."""
     E, _, V = first.estimate.shape
-    points, reps = {}, {"replicate": np.empty(replicates, dtype=np.int64)}
+    points, reps = {}, {}
     for k, a in vars(first).items():
         if isinstance(a, np.ndarray):
             if a.ndim == 3:
@@ -581,7 +581,7 @@ def fill_cell(arrays: CellArrays, block: BlockResult) -> None:
     for k, dst in arrays.points.items():
         dst[:, :, at:at + b] = getattr(block, k).transpose(0, 2, 1)
     for k, dst in arrays.reps.items():
-        dst[at:at + b] = np.arange(block.start, block.start + b) if k == "replicate" else getattr(block, k)
+        dst[at:at + b] = getattr(block, k)
 
 
 def simulate_cells(plan, progress=None):
@@ -611,15 +611,18 @@ def cell_pieces(cell: Cell, arrays: CellArrays, variables, rows: int):
     point_est = np.array([e for e, _ in cell.points], dtype=object)
     point_var = np.array([v for _, v in cell.points], dtype=object)
     names = np.array(variables, dtype=object)
+    label = np.array([cell.design.label], dtype=object)
     flat = {k: a.reshape(-1) for k, a in arrays.points.items()}
     extras = [k for k in REPLICATE_COLUMNS if k in flat or k in arrays.reps]
     for a in range(0, E * V * R, rows):
         i = np.arange(a, min(a + rows, E * V * R))
-        rep, var, point = i % R, (i // R) % V, i // (V * R)
-        text = {"design": np.full(len(i), cell.design.label, dtype=object), "estimator": point_est[point],
+        rep, var, point = i % R, (i // R) % V, i // (V * R)  # rep: the replicate number (0 to R - 1)
+        # object arrays by indexing one array of the labels: every row points to the same str, whereas
+        # np.full would make a new str object for each row (about 60 bytes a row)
+        text = {"design": label[np.zeros(len(i), dtype=np.intp)], "estimator": point_est[point],
                 "variable": names[var], "variance": point_var[point]}
         num = {k: flat[k][i[0]:i[-1] + 1] for k in ("estimate", "se", "lower", "upper")}
         num |= {k: arrays.reps[k][rep] for k in ("n", "cost")}
         more = ((k, flat[k][i[0]:i[-1] + 1] if k in flat else arrays.reps[k][rep]) for k in extras)
-        yield table_frame(arrays.reps["replicate"][rep], text, np.full(len(i), int(cell.design.size), dtype=np.int64),
+        yield table_frame(rep, text, np.full(len(i), int(cell.design.size), dtype=np.int64),
                           num, more)
