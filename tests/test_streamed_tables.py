@@ -141,3 +141,39 @@ def test_an_unwritten_streamed_result_leaves_no_temporary_file(frame_folder, tmp
     del res
     gc.collect()
     assert not temp.exists()
+
+
+def test_the_memory_check_sizes_what_a_streamed_run_holds():
+    # limits.py: a streamed run holds its two largest cells' arrays, 64 bytes a replicate per estimator x
+    # formula x variable plus 64 a replicate, and one piece of at most PIECE_ROWS rows at 160 bytes a row;
+    # here 3 cells of 2 estimators x 1 formula x 1 variable at 10^6 replicates: 2 x (2 x 64 + 64) x 10^6
+    # + 131,072 x 160 bytes, where the whole table would need 6 x 10^6 rows x 160 + 6,000 blocks x 2048
+    from samplewright import Frame
+    from samplewright.designs import DESIGN_CLASSES
+    from samplewright.errors import InputError
+    from samplewright.simulation.engine import make_cells
+    from samplewright.simulation.limits import check_run_memory
+
+    frame = Frame.from_dataframe(pd.DataFrame({"y": np.arange(1.0, 101.0)}), target="y")
+    cells = make_cells([DESIGN_CLASSES["srs"]("s", n=[5, 10, 20])], [("ht", "hajek")])
+    R, need = 10**6, 2 * (2 * 64 + 64) * 10**6 + 131_072 * 160
+    check_run_memory(frame, cells, R, 500, memory=need, streamed=True)
+    with pytest.raises(InputError, match="two largest design x size cells"):
+        check_run_memory(frame, cells, R, 500, memory=need - 1, streamed=True)
+    with pytest.raises(InputError, match="replicate table"):
+        check_run_memory(frame, cells, R, 500, memory=6 * 10**6 * 160 + 6000 * 2048 - 1)
+
+
+def test_peak_memory_is_the_one_the_kernel_reports():
+    # rss_mib reads /proc/self/status (VmHWM); getrusage's ru_maxrss is the kernel's own peak in KiB (Linux
+    # getrusage(2)); both are read back to back, so they agree to within what was allocated in between
+    import resource
+    import sys
+
+    from samplewright.memory import rss_mib
+
+    if not sys.platform.startswith("linux"):
+        pytest.skip("/proc/self/status is Linux's")
+    rss, peak = rss_mib()
+    kernel = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    assert 0 < rss <= peak and abs(peak - kernel) < 1.0

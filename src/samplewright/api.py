@@ -31,7 +31,7 @@ from samplewright.evaluation.exact import check_counts, evaluate_exact
 from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.nonresponse import summary_columns
 from samplewright.evaluation.stopping import Rule, parse_until
-from samplewright.memory import release_freed_memory
+from samplewright.memory import release_freed_memory, rss_mib
 from samplewright.population.frame import Frame
 from samplewright.report import verdict
 from samplewright.report.table import with_frontier_mcse
@@ -243,12 +243,12 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
     if stream:
         tables = CellTables(plan, {d.label: d.method for d in scenario.designs}, plan.store.folder)
         stopping, seconds = None, _simulate_cells(plan, bar, tables)
-        logger.info(f"simulated in {seconds:.2f} s")
+        _simulated(seconds)
         res = _evaluate_cells(plan, scenario, tables)
         _decide(res, scenario, plan.seed, tables)
     else:
         results, stopping, seconds = _simulate(plan, bar)
-        logger.info(f"simulated in {seconds:.2f} s")
+        _simulated(seconds)
         res = _evaluate(plan, scenario, results)
         _decide(res, scenario, plan.seed)
     res, settled = _settle(plan, scenario, res, cap, progress)
@@ -259,6 +259,12 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
     res.warnings = warned
     _words(res, scenario)
     return res
+
+
+def _simulated(seconds: float) -> None:
+    """Log the simulation's time and the process's peak memory so far (where the system tells it)."""
+    peak = rss_mib()[1]
+    logger.info(f"simulated in {seconds:.2f} s" + (f" (peak memory so far {peak:,.0f} MiB)" if peak == peak else ""))
 
 
 def _stress(res: RunResult, scenario: Scenario, points: list, options: RunOptions, frame: Frame | None,
