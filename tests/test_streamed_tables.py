@@ -71,6 +71,23 @@ def test_streamed_tables_equal_the_whole_table_path(frame_folder, tmp_path, resp
     assert streamed.allocation.equals(whole.allocation)
     assert streamed.replicates.equals(reps)
     assert list(streamed.replicates.dtypes) == list(reps.dtypes)
+    if not response:  # two workers: blocks arrive in any order
+        parallel = run(sc, out=tmp_path / "parallel", jobs=2)
+        assert parallel.summary.equals(whole.summary) and parallel.replicates.equals(reps)
+
+
+def test_cells_finished_out_of_order_are_written_in_order(frame_folder, tmp_path, monkeypatch):
+    sc = _scenario(frame_folder, False)
+    whole = run(sc)
+    real = engine._complete
+
+    def backwards(plan, tasks, progress):  # every block arrives in the reverse of its order
+        return reversed(list(real(plan, tasks, progress)))
+
+    monkeypatch.setattr(engine, "_complete", backwards)
+    streamed = run(sc, out=tmp_path / "out")
+    assert streamed.summary.equals(whole.summary) and streamed.frontier.equals(whole.frontier)
+    assert streamed.replicates.equals(whole.replicates)
 
 
 def _cli_run(scenario, out, *extra):
