@@ -70,11 +70,6 @@ class ReplicateFile:
         self.path, self.temporary = dest, False
         return dest
 
-    def __len__(self) -> int:
-        import pyarrow.parquet as pq
-
-        return pq.ParquetFile(self.path).metadata.num_rows
-
 
 class CellTables:
     """The summary, frontier tallies and replicate file of a streamed run, one cell at a time (module notes).
