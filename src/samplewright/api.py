@@ -117,6 +117,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     out : path, optional
         Results folder: finished blocks are kept in ``out/blocks/`` as they complete (the
         ``run`` and ``demo`` commands remove them once the tables are written, unless ``--keep-blocks``).
+        A run without a [goal], ``until`` or assumption points also streams its replicate table to a
+        temporary file there, cell by cell, instead of holding it whole (``RunResult.write`` moves it into
+        place; ``res.replicates`` reads it on first use; see :mod:`samplewright.results.replicate_file`).
     resume : bool
         Continue the run whose blocks are in ``out/blocks/`` (seed, replicates, block size and
         stopping rule default to the saved ones; a mismatch is refused).
