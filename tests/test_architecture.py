@@ -14,7 +14,7 @@ PKG_DIR = Path(samplewright.__file__).resolve().parent
 
 #: bottom to top; a module may import from its own layer's modules and from any layer below
 LAYERS = [
-    ("errors", "files", "_version", "apportion"),
+    ("errors", "files", "_version", "apportion", "memory"),
     ("config",),
     ("population",),
     ("designs",),

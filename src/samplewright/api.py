@@ -31,12 +31,14 @@ from samplewright.evaluation.exact import check_counts, evaluate_exact
 from samplewright.evaluation.measures import summarise
 from samplewright.evaluation.nonresponse import summary_columns
 from samplewright.evaluation.stopping import Rule, parse_until
+from samplewright.memory import release_freed_memory, rss_mib
 from samplewright.population.frame import Frame
 from samplewright.report import verdict
 from samplewright.report.table import with_frontier_mcse
+from samplewright.results.replicate_file import CellTables
 from samplewright.results.result import ALLOCATION_COLUMNS, RunResult
 from samplewright.simulation.checkpoint import BlockStore
-from samplewright.simulation.engine import replicate_table, simulate, simulate_until
+from samplewright.simulation.engine import replicate_table, simulate, simulate_cells, simulate_until
 from samplewright.simulation.limits import check_run_memory
 from samplewright.simulation.plan import RunOptions, RunPlan, build_plan, run_settings, with_store
 from samplewright.simulation.progress import Progress
@@ -72,21 +74,6 @@ def _version(name: str) -> str:
 def _versions() -> dict:
     return {"samplewright": __version__, "python": platform.python_version(), "numpy": np.__version__,
             "pandas": pd.__version__, "scipy": _version("scipy"), "joblib": _version("joblib")}
-
-
-def release_freed_memory() -> None:
-    """Ask the C allocator to return freed heap pages to the system (glibc only; else nothing).
-
-    A long run frees thousands of small per-block arrays once the replicate table is built;
-    glibc keeps those pages in its heap unless asked, which would count against the run's
-    peak memory for the rest of the evaluation.
-    """
-    try:
-        import ctypes
-
-        ctypes.CDLL("libc.so.6").malloc_trim(0)
-    except (OSError, AttributeError):
-        pass
 
 
 def allocation_table(frame: Frame, cells) -> pd.DataFrame:
@@ -142,6 +129,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     out : path, optional
         Results folder: finished blocks are kept in ``out/blocks/`` as they complete (the
         ``run`` and ``demo`` commands remove them once the tables are written, unless ``--keep-blocks``).
+        A run without a [goal], ``until`` or assumption points also streams its replicate table to a
+        temporary file there, cell by cell, instead of holding it whole (``RunResult.write`` moves it into
+        place; ``res.replicates`` reads it on first use; see :mod:`samplewright.results.replicate_file`).
     resume : bool
         Continue the run whose blocks are in ``out/blocks/`` (seed, replicates, block size and
         stopping rule default to the saved ones; a mismatch is refused).
@@ -157,8 +147,9 @@ def run(scenario: Scenario, replicates: int | None = None, seed: int | None = No
     >>> sc = scenario_from_dict({"frame": {"synthetic": {"units": 400, "seed": 2}},
     ...                          "design": [{"label": "simple", "method": "srs", "n": 40}]})
     >>> res = run(sc, replicates=200, seed=1)
-    >>> res.summary[["design", "estimator", "replicates"]].iloc[0].tolist()
-    ['simple', 'ht', 200]
+    >>> row = res.summary.iloc[0]
+    >>> row["design"], row["estimator"], int(row["replicates"])
+    ('simple', 'ht', 200)
     """
     options = RunOptions(replicates=replicates, seed=seed, jobs=jobs, block_size=block_size, exact=exact,
                          until=until, max_replicates=max_replicates, out=out, resume=resume, backend=backend,
@@ -207,7 +198,7 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
     """
     points = stress_points(scenario)
     if not points:
-        return _run_one(scenario, options, frame, progress, ready)
+        return _run_one(scenario, options, frame, progress, ready, stream=True)
     if frame is None and scenario.frame.synthetic is None:  # a frame file is read once for every point
         logger.info("loading the frame")
         frame = scenario.load_frame()
@@ -224,8 +215,13 @@ def run_with(scenario: Scenario, options: RunOptions, frame: Frame | None = None
 
 
 def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progress: bool | None,
-             ready: Callable[[], None] | None) -> RunResult:
-    """One run of the scenario as written (see :func:`run_with`)."""
+             ready: Callable[[], None] | None, stream: bool = False) -> RunResult:
+    """One run of the scenario as written (see :func:`run_with`).
+
+    With ``stream`` (a run without assumption points), a run without a ``[goal]`` or stopping rule that
+    keeps its blocks in a results folder streams its replicate table to disk cell by cell
+    (:mod:`samplewright.results.replicate_file`) instead of holding it whole.
+    """
     started = time.monotonic()
     saved = None
     if options.resume:  # the saved run's settings, unless given again (then they must agree)
@@ -244,7 +240,9 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
     manifest = None if options.out is None else _manifest(plan, scenario, cap)
     if saved is not None:  # refused before any warning about the run asked for now
         saved.check(manifest, options.out)
-    _check_size(plan, options, cap if scenario.goals else None)
+    stream = (stream and not options.exact and not scenario.goals and rule is None and options.out is not None
+              and len({c.fieldwork is None for c in plan.cells}) == 1)
+    _check_size(plan, options, cap if scenario.goals else None, stream)
     if ready is not None:  # every check passed
         ready()
     warned, notes = _checks(plan, options.exact)
@@ -257,10 +255,17 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
         bar.totals[label] += plan.replicates
     if options.out is not None:
         plan = with_store(plan, _block_store(saved, options.out, manifest, bar, warned))
-    results, stopping, seconds = _simulate(plan, bar)
-    logger.info(f"simulated in {seconds:.2f} s")
-    res = _evaluate(plan, scenario, results)
-    _decide(res, scenario, plan.seed)
+    if stream:
+        tables = CellTables(plan, {d.label: d.method for d in scenario.designs}, plan.store.folder)
+        stopping, seconds = None, _simulate_cells(plan, bar, tables)
+        _simulated(seconds)
+        res = _evaluate_cells(plan, scenario, tables)
+        _decide(res, scenario, plan.seed, tables)
+    else:
+        results, stopping, seconds = _simulate(plan, bar)
+        _simulated(seconds)
+        res = _evaluate(plan, scenario, results)
+        _decide(res, scenario, plan.seed)
     res, settled = _settle(plan, scenario, res, cap, progress)
     res.info = _run_info(plan, scenario, stopping, warned, notes) | {
         "elapsed_seconds": round(time.monotonic() - started, 3),
@@ -269,6 +274,12 @@ def _run_one(scenario: Scenario, options: RunOptions, frame: Frame | None, progr
     res.warnings = warned
     _words(res, scenario)
     return res
+
+
+def _simulated(seconds: float) -> None:
+    """Log the simulation's time and the process's peak memory so far (where the system tells it)."""
+    peak = rss_mib()[1]
+    logger.info(f"simulated in {seconds:.2f} s" + (f" (peak memory so far {peak:,.0f} MiB)" if peak == peak else ""))
 
 
 def _stress(res: RunResult, scenario: Scenario, points: list, options: RunOptions, frame: Frame | None,
@@ -383,9 +394,10 @@ def _manifest(plan: RunPlan, scenario: Scenario, cap: int) -> dict:
         "frame": plan.truth.roles.get("source"), "frame_hash": plan.truth.content_hash}
 
 
-def _check_size(plan: RunPlan, options: RunOptions, settle_cap: int | None = None) -> None:
+def _check_size(plan: RunPlan, options: RunOptions, settle_cap: int | None = None, stream: bool = False) -> None:
     """Refuse, before anything is allocated or written, an enumeration or a simulation too large to run
-    (``settle_cap``: the replicates a cell may reach while undecided points are settled, when it may)."""
+    (``settle_cap``: the replicates a cell may reach while undecided points are settled, when it may;
+    ``stream``: the replicate table is streamed to disk, only the cells being filled are held)."""
     if options.exact:  # every possible sample instead of Monte Carlo (exact.py)
         if options.until is not None or options.resume or plan.fieldwork is not None:
             raise InputError("--exact enumerates every possible sample without simulating: it cannot be combined "
@@ -394,7 +406,8 @@ def _check_size(plan: RunPlan, options: RunOptions, settle_cap: int | None = Non
         return
     jobs = plan.jobs if plan.backend == "local" else 1
     caps = [c for c in (plan.stopping.max_replicates if plan.stopping else None, settle_cap) if c is not None]
-    check_run_memory(plan.frame, plan.cells, plan.replicates, plan.block_size, jobs, max(caps) if caps else None)
+    check_run_memory(plan.frame, plan.cells, plan.replicates, plan.block_size, jobs, max(caps) if caps else None,
+                     streamed=stream)
 
 
 def _checks(plan: RunPlan, exact: bool) -> tuple[list[str], list[str]]:
@@ -447,6 +460,37 @@ def _simulate(plan: RunPlan, bar: Progress):
         raise
     bar.close()
     return results, stopping, time.monotonic() - started
+
+
+def _simulate_cells(plan: RunPlan, bar: Progress, tables: CellTables) -> float:
+    """Every block of the plan, each cell handed to ``tables`` as soon as it is complete; seconds spent.
+    On failure or Ctrl-C the temporary replicate file goes (the blocks stay for --resume)."""
+    started = time.monotonic()
+    cells = plan.cells
+
+    def advance(cell_id: int, count: int) -> None:
+        bar.update(cells[cell_id].design.label, count)
+
+    try:
+        for ci, arrays in simulate_cells(plan, progress=advance):
+            tables.add(cells[ci], arrays)
+            del arrays
+            release_freed_memory()  # the cell's block arrays just freed: hand their pages back
+    except BaseException:  # Ctrl-C or a failure: its message starts on a line of its own
+        bar.break_line()
+        tables.discard()
+        raise
+    bar.close()
+    return time.monotonic() - started
+
+
+def _evaluate_cells(plan: RunPlan, scenario: Scenario, tables: CellTables) -> RunResult:
+    """The result tables of a streamed run: the summary built cell by cell, the replicate table on disk."""
+    order_info, order_table = order_evidence(plan.frame, scenario.designs)  # a cycle along a systematic walk
+    res = RunResult(summary=tables.summary, replicates=tables.finish(),
+                    allocation=allocation_table(plan.frame, plan.cells), info={}, frame_order=order_table)
+    res.info["frame_order"] = order_info
+    return res
 
 
 def _evaluate(plan: RunPlan, scenario: Scenario, results: list) -> RunResult:
@@ -654,9 +698,13 @@ def _exact_result(plan: RunPlan, scenario: Scenario, warned: list, notes: list, 
                      info=info, warnings=warned)
 
 
-def _decide(res: RunResult, scenario: Scenario, seed: int) -> None:
-    """The frontier and recommendation; a failure here never costs the simulated tables."""
+def _decide(res: RunResult, scenario: Scenario, seed: int, tables: CellTables | None = None) -> None:
+    """The frontier and recommendation; a failure here never costs the simulated tables.  A streamed run
+    (``tables``, no [goal]) gives the frontier its per-cell cost and MSE tallies instead of the whole table."""
     try:
+        if tables is not None:
+            res.frontier, res.recommendation = goal_tables(res.summary, None, scenario, seed, tables=tables)
+            return
         res.frontier, res.recommendation = goal_tables(res.summary, res.replicates, scenario, seed)
     except Exception as exc:  # noqa: BLE001 -- a failure after the simulation must never cost its tables
         _late_failure(res, "the cost-precision frontier and recommendation", exc)
@@ -685,15 +733,19 @@ def _late_failure(res: RunResult, what: str, exc: Exception) -> None:
                       SamplewrightWarning, stacklevel=4)
 
 
-def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame, scenario: Scenario, seed: int | None = None):
+def goal_tables(summary: pd.DataFrame, reps: pd.DataFrame | None, scenario: Scenario, seed: int | None = None,
+                tables: CellTables | None = None):
     """The cost-precision frontier (always) and the recommendation (when the scenario has a [goal]).
+
+    ``tables`` (a streamed run without a [goal], ``reps`` None): the frontier's cost and MSE tallies.
 
     With the run's ``seed``, the recommendation also says how firm its pick is (a bootstrap of the
     replicates, :mod:`samplewright.decision.stability`, ``[goal] stability_rounds`` rounds).
     """
     goal = scenario.goal
     conf = scenario.confidence if goal is None or goal.confidence is None else goal.confidence
-    front = frontier.frontier_table(summary, reps, conf)  # looked up on call, so a test may replace it
+    tallies = {} if tables is None else {"costs": tables.costs, "mses": tables.mses}
+    front = frontier.frontier_table(summary, reps, conf, **tallies)  # looked up on call, so a test may replace it
     if goal is None:
         return front, None
     exact = "exact" in summary.columns and bool(summary["exact"].all())

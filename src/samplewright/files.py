@@ -220,6 +220,57 @@ def parquet_writer(df: pd.DataFrame, rows_per_group: int = 500_000):
     return write
 
 
+class ParquetRows:
+    """A Parquet file written piece by piece: each :meth:`write` adds a DataFrame of rows (one row group,
+    the types of the first piece) to a temporary file beside ``path`` (named as :func:`atomic_write`'s
+    temporary files are, mode 0666 less the umask); :meth:`close` finishes it and returns its path, which
+    the caller renames into place.  Only one piece is converted at a time, never the whole table.
+    ``dictionary`` names the columns to dictionary-encode (default: the text columns)."""
+
+    def __init__(self, path, dictionary: list[str] | None = None):
+        self.target = Path(path)
+        self.dictionary = dictionary
+        try:
+            self.path = _new_temp(self.target)
+        except OSError as exc:
+            raise InputError(f"{str(self.target)!r} cannot be written: {exc.strerror or exc}") from None
+        self.rows = 0
+        self._writer = None
+
+    def write(self, df: pd.DataFrame) -> None:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        schema = None if self._writer is None else self._writer.schema
+        table = pa.Table.from_pandas(df, schema=schema, preserve_index=False)
+        if self._writer is None:  # dictionary-encoded: the columns named, else the text columns (a column
+            # of distinct numbers gains nothing, and its dictionary costs about 30 MB per 131,072 rows to build)
+            keep = self.dictionary if self.dictionary is not None else [
+                f.name for f in table.schema if pa.types.is_string(f.type) or pa.types.is_large_string(f.type)]
+            self._writer = pq.ParquetWriter(self.path, table.schema, use_dictionary=keep)
+        self._writer.write_table(table)
+        self.rows += len(df)
+
+    def close(self, empty: pd.DataFrame | None = None) -> Path:
+        """Finish the file (``empty``, a table without rows, is written when no piece was)."""
+        if self._writer is None:
+            (empty if empty is not None else pd.DataFrame()).to_parquet(self.path, index=False)
+        else:
+            self._writer.close()
+            self._writer = None
+        return self.path
+
+    def discard(self) -> None:
+        """Close and delete the temporary file (a run that failed)."""
+        if self._writer is not None:
+            try:
+                self._writer.close()
+            except Exception:  # noqa: BLE001 -- the file goes anyway
+                pass
+            self._writer = None
+        self.path.unlink(missing_ok=True)
+
+
 def write_json(obj, path) -> Path:
     return atomic_write(path, json_writer(obj))
 

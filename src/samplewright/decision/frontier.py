@@ -32,7 +32,7 @@ import math
 import numpy as np
 import pandas as pd
 
-from samplewright.evaluation.measures import POINT_KEYS, group_rows, mean_mcse, moe_mcse
+from samplewright.evaluation.measures import POINT_KEYS, cost_row, group_rows, moe_mcse, mse_row
 from samplewright.evaluation.normal import normal_quantile
 
 FRONTIER_COLUMNS = [
@@ -47,8 +47,8 @@ EXACT_MCSE = 1e-12
 
 
 def cost_quantile(reps: pd.DataFrame, q: float = 0.9) -> pd.DataFrame:
-    """The q-quantile of the replicate cost per design x size, and the MCSE of its mean cost
-    (sd / sqrt(R), Morris, White & Crowther 2019, Table 6): columns design, size, p90_cost, cost_mcse.
+    """The q-quantile of the replicate cost per design x size (``p90_cost``), and the MCSE of its mean cost
+    (:func:`~samplewright.evaluation.measures.cost_row`): columns design, size, p90_cost, cost_mcse.
 
     Cost is a property of the sample, so one estimator and variable per replicate is enough.  The
     samples of exact mode (a ``probability`` column) have no Monte Carlo error: ``cost_mcse`` is 0.
@@ -58,9 +58,12 @@ def cost_quantile(reps: pd.DataFrame, q: float = 0.9) -> pd.DataFrame:
     rows = []
     for (design, size), idx in group_rows(reps, ["design", "size"]):
         first = np.unique(rep[idx], return_index=True)[1]  # one row per replicate
-        c = cost[idx][first]
-        rows.append({"design": design, "size": size, "p90_cost": float(np.quantile(c, q)),
-                     "cost_mcse": mean_mcse(c) if len(c) > 1 and not exact else 0.0})
+        rows.append({"design": design, "size": size, **cost_row(cost[idx][first], exact, q)})
+    return cost_frame(rows)
+
+
+def cost_frame(rows: list[dict]) -> pd.DataFrame:
+    """The table of :func:`cost_quantile` from its rows (design, size and a ``cost_row``)."""
     return pd.DataFrame(rows, columns=["design", "size", "p90_cost", "cost_mcse"])
 
 
@@ -69,12 +72,14 @@ def mse_mcse(reps: pd.DataFrame, summary: pd.DataFrame) -> pd.DataFrame:
     keys = [*POINT_KEYS, "variable"]
     truth = {tuple(k): t for k, t in zip(summary[keys].itertuples(index=False), summary["truth"])}
     x = reps["estimate"].to_numpy()
-    rows = []
-    for key, idx in group_rows(reps, keys):
-        sq = (x[idx] - truth.get(key, np.nan)) ** 2
-        sq = sq[np.isfinite(sq)]  # domain rows: replicates without an estimate do not count
-        rows.append(dict(zip(keys, key), mse_mcse=mean_mcse(sq)))
-    return pd.DataFrame(rows, columns=keys + ["mse_mcse"])
+    rows = [dict(zip(keys, key), mse_mcse=mse_row(x[idx], truth.get(key, np.nan)))
+            for key, idx in group_rows(reps, keys)]
+    return mse_frame(rows)
+
+
+def mse_frame(rows: list[dict]) -> pd.DataFrame:
+    """The table of :func:`mse_mcse` from its rows (the point keys, variable and ``mse_mcse``)."""
+    return pd.DataFrame(rows, columns=[*POINT_KEYS, "variable", "mse_mcse"])
 
 
 def pareto(cost: np.ndarray, loss: np.ndarray) -> np.ndarray:
@@ -95,7 +100,8 @@ def pareto(cost: np.ndarray, loss: np.ndarray) -> np.ndarray:
     return ok & ~dominated
 
 
-def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float) -> pd.DataFrame:
+def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame | None, confidence: float,
+                   costs: pd.DataFrame | None = None, mses: pd.DataFrame | None = None) -> pd.DataFrame:
     """One row per design x size x estimator x variance formula x variable with cost, precision and the
     frontier flag (the formulas of a design share its draws, so their cost and margin are the same).
 
@@ -103,12 +109,17 @@ def frontier_table(summary: pd.DataFrame, reps: pd.DataFrame, confidence: float)
     ``moe_mcse`` its Monte Carlo SE by the delta method, z x MCSE(MSE) / (2 RMSE); the published
     margin columns are the summary's (at the run's level) and ``cost_mcse`` the MCSE of the mean
     cost; ``variance`` (the formula's name) comes last.
+
+    ``costs`` and ``mses`` (the tables of :func:`cost_quantile` and :func:`mse_mcse`), when given, replace
+    those computed from ``reps``: a streamed run builds them cell by cell and holds no whole table.
     """
     if len(summary) == 0:
         return pd.DataFrame(columns=FRONTIER_COLUMNS)
     z = normal_quantile(confidence)
-    t = summary.merge(cost_quantile(reps), on=["design", "size"], how="left")
-    t = t.merge(mse_mcse(reps, summary), on=[*POINT_KEYS, "variable"], how="left")
+    costs = cost_quantile(reps) if costs is None else costs
+    mses = mse_mcse(reps, summary) if mses is None else mses
+    t = summary.merge(costs, on=["design", "size"], how="left")
+    t = t.merge(mses, on=[*POINT_KEYS, "variable"], how="left")
     t["moe"] = z * t["rmse"]
     t["moe_mcse"] = moe_mcse(t["mse_mcse"], t["rmse"], z)
     t["on_frontier"] = False

@@ -254,6 +254,44 @@ def group_rows(reps: pd.DataFrame, keys: list[str]) -> list[tuple[tuple, np.ndar
     return sorted(groups.items(), key=lambda kv: kv[1][0])
 
 
+def point_row(key: dict, x, se, lower, upper, n, cost, truth: float, S2: float, N: int, z: float) -> dict | None:
+    """One summary row: the measures of one point x variable (``key``: design, method, size, estimator,
+    variable, variance) from its replicate arrays; None when no replicate has an estimate.
+
+    A replicate without an estimate (no unit of a domain; Hajek of an empty sample) is not counted.
+    Both the whole-table :func:`summarise` and the per-cell tables of a streamed run call this.
+    """
+    ok = np.isfinite(x)
+    if not ok.all():
+        x, se, lower, upper, n, cost = x[ok], se[ok], lower[ok], upper[ok], n[ok], cost[ok]
+    if len(x) == 0:
+        return None
+    m = measures(x, se, lower, upper, float(truth), z)
+    mean_n = float(n.mean())
+    deff = design_effect(m["empirical_se"], srs_variance(mean_n, N, S2), max(abs(m["truth"]), abs(m["mean_estimate"])))
+    return {"design": key["design"], "method": key["method"], "size": int(key["size"]), "estimator": key["estimator"],
+            "variable": key["variable"], **m, "deff": deff, "mean_n": mean_n, "mean_cost": float(cost.mean()),
+            "variance": key["variance"]}
+
+
+def summary_frame(rows: list[dict]) -> pd.DataFrame:
+    """The summary table of :func:`point_row` rows (contract columns, published margin, ``variance``)."""
+    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS + PUBLISHED_COLUMNS + ["variance"])
+
+
+def cost_row(cost, exact: bool = False, q: float = 0.9) -> dict:
+    """The q-quantile (``p90_cost``) of one design x size's replicate costs (one value per replicate, in replicate
+    order) and the MCSE of their mean, sd / sqrt(R) (Table 6); 0 for exact mode's samples."""
+    return {"p90_cost": float(np.quantile(cost, q)),
+            "cost_mcse": mean_mcse(cost) if len(cost) > 1 and not exact else 0.0}
+
+
+def mse_row(x, truth: float) -> float:
+    """MCSE of one point's MSE, sd((x - T)^2) / sqrt(R) (Table 6); replicates without an estimate do not count."""
+    sq = (x - truth) ** 2
+    return mean_mcse(sq[np.isfinite(sq)])
+
+
 def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confidence: float) -> pd.DataFrame:
     """One summary row per design x size x estimator x variance formula x variable (contract columns in
     order, then :data:`PUBLISHED_COLUMNS` and ``variance``; fieldwork columns go before them)."""
@@ -266,16 +304,10 @@ def summarise(reps: pd.DataFrame, frame: Frame, methods: dict[str, str], confide
     # so evaluating a long run needs little memory beyond the replicate table itself
     col = {k: reps[k].to_numpy() for k in ("estimate", "se", "lower", "upper", "n", "cost")}
     for (design, size, est, formula, var), idx in group_rows(reps, [*POINT_KEYS, "variable"]):
-        # a replicate without an estimate (no unit of a domain; Hajek of an empty sample) is not counted
-        idx = idx[np.isfinite(col["estimate"][idx])]
-        if len(idx) == 0:
-            continue
-        m = measures(col["estimate"][idx], col["se"][idx], col["lower"][idx], col["upper"][idx],
-                     float(truth[var]), z)
-        mean_n = float(col["n"][idx].mean())
-        deff = design_effect(m["empirical_se"], srs_variance(mean_n, frame.N, S2[var]),
-                             max(abs(m["truth"]), abs(m["mean_estimate"])))
-        rows.append({"design": design, "method": methods.get(design, ""), "size": int(size), "estimator": est,
-                     "variable": var, **m, "deff": deff, "mean_n": mean_n,
-                     "mean_cost": float(col["cost"][idx].mean()), "variance": formula})
-    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS + PUBLISHED_COLUMNS + ["variance"])
+        key = {"design": design, "method": methods.get(design, ""), "size": size, "estimator": est,
+               "variable": var, "variance": formula}
+        row = point_row(key, *(col[k][idx] for k in ("estimate", "se", "lower", "upper", "n", "cost")),
+                        truth[var], S2[var], frame.N, z)
+        if row is not None:
+            rows.append(row)
+    return summary_frame(rows)

@@ -34,39 +34,56 @@ SUMMARY_EXTRA = [
 def summary_columns(summary: pd.DataFrame, reps: pd.DataFrame, setup: FieldSetup) -> pd.DataFrame:
     """The summary with the fieldwork columns (:data:`SUMMARY_EXTRA`) right after the contract columns
     (the published-margin columns and ``variance`` follow)."""
-    names = list(setup.frame.layout.names)
-    truth = dict(zip(setup.truth.layout.names, setup.truth.layout.truth))
-    extra = []
     keys = [*measures.POINT_KEYS, "variable"]
     groups = {k: g for k, g in reps.groupby(keys, sort=False)}
+    extra = []
     for _, row in summary.iterrows():
         g = groups[tuple(row[k] for k in keys)]
-        T = float(truth[row["variable"]])
-        x, xf = g["estimate"].to_numpy(), g["full_estimate"].to_numpy()
-        census = float(setup.census[(row["design"], row["estimator"])][names.index(row["variable"])])
-        resp, att, elig = g["n"].mean(), g["attempted"].mean(), g["eligible"].mean()
-        cost, fcost = g["cost"].mean(), g["full_cost"].mean()
-        d = x - xf
-        cover = float(measures.coverage(g["full_lower"].to_numpy(), g["full_upper"].to_numpy(), T))
-        extra.append({
-            "adjustment": setup.adjustments[row["design"]].method,
-            "mean_attempted": float(att),
-            "mean_respondents": float(resp),
-            "response_rate": float(resp / elig) if elig > 0 else float("nan"),
-            "cost_per_complete": float(cost / resp) if resp > 0 else float("nan"),
-            "full_response_bias": float(measures.expectation(xf) - T),
-            "full_response_empirical_se": float(np.sqrt(measures.empirical_variance(xf))),
-            "full_response_rmse": float(measures.rmse(xf, T)),
-            "full_response_coverage": cover,
-            "full_response_mean_cost": float(fcost),
-            "full_response_cost_per_complete": float(fcost / elig) if elig > 0 else float("nan"),
-            "sampling_bias": float(measures.expectation(xf) - census),
-            "sampling_bias_mcse": measures.mean_mcse(xf),
-            "frame_bias": census - T,
-            "nonresponse_bias": float(measures.expectation(d)),
-            "nonresponse_bias_mcse": measures.mean_mcse(d),
-            "adjustment_failures": int(g["adjustment_failed"].sum()),
-        })
+        extra.append(fieldwork_row(row["design"], row["estimator"], row["variable"],
+                                   {k: g[k].to_numpy() for k in FIELD_ARRAYS}, setup))
+    return with_fieldwork(summary, extra)
+
+
+#: the replicate columns :func:`fieldwork_row` reads
+FIELD_ARRAYS = ("estimate", "full_estimate", "n", "attempted", "eligible", "cost", "full_cost", "full_lower",
+                "full_upper", "adjustment_failed")
+
+
+def fieldwork_row(design: str, estimator: str, variable: str, g: dict, setup: FieldSetup) -> dict:
+    """The fieldwork columns of one summary row from its replicate arrays ``g`` (:data:`FIELD_ARRAYS`, every
+    replicate of the point and variable); the whole-table and the per-cell summaries both call this."""
+    names = list(setup.frame.layout.names)
+    T = float(dict(zip(setup.truth.layout.names, setup.truth.layout.truth))[variable])
+    x, xf = g["estimate"], g["full_estimate"]
+    census = float(setup.census[(design, estimator)][names.index(variable)])
+    # means as a pandas Series takes them (its own summation), so both callers give the same bits
+    resp, att, elig = (pd.Series(g[k]).mean() for k in ("n", "attempted", "eligible"))
+    cost, fcost = pd.Series(g["cost"]).mean(), pd.Series(g["full_cost"]).mean()
+    d = x - xf
+    cover = float(measures.coverage(g["full_lower"], g["full_upper"], T))
+    return {
+        "adjustment": setup.adjustments[design].method,
+        "mean_attempted": float(att),
+        "mean_respondents": float(resp),
+        "response_rate": float(resp / elig) if elig > 0 else float("nan"),
+        "cost_per_complete": float(cost / resp) if resp > 0 else float("nan"),
+        "full_response_bias": float(measures.expectation(xf) - T),
+        "full_response_empirical_se": float(np.sqrt(measures.empirical_variance(xf))),
+        "full_response_rmse": float(measures.rmse(xf, T)),
+        "full_response_coverage": cover,
+        "full_response_mean_cost": float(fcost),
+        "full_response_cost_per_complete": float(fcost / elig) if elig > 0 else float("nan"),
+        "sampling_bias": float(measures.expectation(xf) - census),
+        "sampling_bias_mcse": measures.mean_mcse(xf),
+        "frame_bias": census - T,
+        "nonresponse_bias": float(measures.expectation(d)),
+        "nonresponse_bias_mcse": measures.mean_mcse(d),
+        "adjustment_failures": int(pd.Series(g["adjustment_failed"]).sum()),
+    }
+
+
+def with_fieldwork(summary: pd.DataFrame, extra: list[dict]) -> pd.DataFrame:
+    """The summary with one :func:`fieldwork_row` per row placed after the contract columns."""
     summary = summary.reset_index(drop=True)
     contract = summary[measures.SUMMARY_COLUMNS]
     return pd.concat([contract, pd.DataFrame(extra, columns=SUMMARY_EXTRA),

@@ -8,10 +8,24 @@ from pathlib import Path
 import pandas as pd
 
 from samplewright.files import prepare_dir, write_csv, write_json, write_parquet, write_text
+from samplewright.results.replicate_file import ReplicateFile
 
 ALLOCATION_COLUMNS = ["design", "size", "stratum", "population_units", "sample_units"]
 #: the files of a stress run, in the order of RunResult.stress, .stress_verdict, .break_even
 STRESS_FILES = ("stress.csv", "stress_verdict.csv", "break_even.csv")
+
+
+class _Replicates:
+    """``RunResult.replicates``: a DataFrame, or a streamed run's :class:`ReplicateFile` read on first use."""
+
+    def __get__(self, obj, owner=None):
+        if obj is None:
+            raise AttributeError("replicates")  # a required field of the dataclass
+        value = obj.__dict__["replicates"]
+        return value.read() if isinstance(value, ReplicateFile) else value
+
+    def __set__(self, obj, value) -> None:
+        obj.__dict__["replicates"] = value
 
 
 @dataclass
@@ -24,7 +38,9 @@ class RunResult:
         One row per design x size x estimator x variance formula x variable (see
         ``evaluation.measures.SUMMARY_COLUMNS``; the formula is the last column, ``variance``).
     replicates : DataFrame
-        Every replicate's estimate, SE, interval, sample size and cost, under each variance formula.
+        Every replicate's estimate, SE, interval, sample size and cost, under each variance formula.  A
+        run streamed to its results folder (no ``[goal]``) keeps it on disk and reads it on first use
+        (:class:`~samplewright.results.replicate_file.ReplicateFile`); a pickled result carries it.
     allocation : DataFrame
         Units per stratum for designs with an allocation.
     info : dict
@@ -32,7 +48,7 @@ class RunResult:
     """
 
     summary: pd.DataFrame
-    replicates: pd.DataFrame
+    replicates: pd.DataFrame = _Replicates()
     allocation: pd.DataFrame
     info: dict
     frontier: pd.DataFrame | None = None
@@ -66,7 +82,11 @@ class RunResult:
             (p / name).unlink(missing_ok=True)
         # the simulated tables first, run.json marking them complete; then what is derived from them,
         # so that a failure there never loses the simulation
-        write_parquet(self.replicates, p / "replicates.parquet")
+        held = self.__dict__["replicates"]
+        if isinstance(held, ReplicateFile):  # streamed: its file renamed (or copied) into place
+            held.place(p / "replicates.parquet")
+        else:
+            write_parquet(held, p / "replicates.parquet")
         write_csv(self.summary, p / "summary.csv")
         write_csv(self.allocation, p / "allocation.csv")
         if self.frame_order is not None:
@@ -91,6 +111,10 @@ class RunResult:
 
             write_report(self, p, svg=svg, force=True)
         return p
+
+    def __getstate__(self) -> dict:
+        """Pickled with its replicate table (a streamed run's file is read into it)."""
+        return {**self.__dict__, "replicates": self.replicates}
 
     def figure(self, name: str, variable: str | None = None):
         """Draw one of the report's figures as a matplotlib Figure (names: :meth:`figure_names`).

@@ -19,6 +19,7 @@ records which (``blocks_kept``).
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import re
 from dataclasses import fields
@@ -181,12 +182,15 @@ class BlockStore:
                    **{f"r_{k}": v for k, v in _payload(result).items()}}
         content = {k: np.asarray(v) for k, v in content.items()}
 
+        buffer = io.BytesIO()  # built in memory, then written in one write
+        np.savez(buffer, checksum=checksum(content), **content)
+
         def write(tmp):
             # the new temporary file is empty: opened without truncating it, since a truncation to
             # zero makes ext4 write the file back to disk at close (auto_da_alloc), and deleting
             # hundreds of written-back blocks at the end of a run then waits on the disk
             with open(tmp, "r+b") as fh:
-                np.savez(fh, checksum=checksum(content), **content)
+                fh.write(buffer.getbuffer())
 
         atomic_write(path, write)
 

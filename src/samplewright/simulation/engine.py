@@ -30,7 +30,7 @@ from samplewright.estimation.cost import CostModel
 from samplewright.estimation.estimators import sample_units
 from samplewright.estimation.registry import estimate_points
 from samplewright.population.frame import Frame
-from samplewright.simulation.blocks import BlockResult, BlockTask, replicate_columns
+from samplewright.simulation.blocks import REPLICATE_COLUMNS, BlockResult, BlockTask, replicate_columns
 from samplewright.simulation.fieldwork import Fieldwork, run_fieldwork_block
 
 
@@ -520,21 +520,110 @@ def replicate_table(results: list[BlockResult], cells: list[Cell], variables, co
                                     for _, c, E, R, _ in plan] or none),
     }
     size = np.repeat(np.array([int(c.design.size) for _, c, _, _, _ in plan], dtype=np.int64), lengths)
-    columns = {"replicate": num.pop("replicate")}
+    same = bool(any(extras)) and all(list(e) == list(extras[0]) for e in extras)
+    more = ((k, np.concatenate([e.pop(k) for e in extras])) for k in (list(extras[0]) if same else []))
+    table = table_frame(num.pop("replicate"), text, size, num, more)
+    if any(extras) and not same:  # cells with different extra columns: aligned by pandas, NaN where a cell has none
+        more = pd.concat([pd.DataFrame(e, index=pd.RangeIndex(first, first + n))
+                          for e, (_, _, _, _, first), n in zip(extras, plan, lengths)])
+        table = pd.concat([table, more], axis=1)
+    return table
+
+
+def table_frame(replicate, text: dict, size, num: dict, extras=()) -> pd.DataFrame:
+    """Rows of the replicate table from their columns: ``text`` (object arrays: design, estimator, variable,
+    variance), ``num`` (estimate, se, lower, upper, n, cost; emptied as it is used) and ``extras`` ((name,
+    array) pairs of fieldwork columns, appended in order).  The whole table and its streamed pieces are
+    both built here, so their columns and types agree."""
+    columns = {"replicate": replicate}
     columns["design"] = pd.Series(text.pop("design"))  # text: the dtype pandas infers for it
     columns["size"] = size
     columns["estimator"] = pd.Series(text.pop("estimator"))
     columns["variable"] = pd.Series(text.pop("variable"))
-    columns.update(num)
+    columns.update((k, num.pop(k)) for k in ("estimate", "se", "lower", "upper", "n", "cost"))
     columns["variance"] = pd.Series(text.pop("variance"))
     table = pd.DataFrame(columns, copy=False)
-    if any(extras):
-        keys = list(extras[0])
-        if all(list(e) == keys for e in extras):
-            for k in keys:
-                table[k] = np.concatenate([e.pop(k) for e in extras])
-        else:  # cells with different extra columns: aligned by pandas, NaN where a cell has none
-            more = pd.concat([pd.DataFrame(e, index=pd.RangeIndex(first, first + n))
-                              for e, (_, _, _, _, first), n in zip(extras, plan, lengths)])
-            table = pd.concat([table, more], axis=1)
+    for k, a in extras:
+        table[k] = a
     return table
+
+
+# ------------------------------------------------------------------ streaming cell by cell
+@dataclass
+class CellArrays:
+    """One cell's replicates in replicate order: ``points`` holds (E, V, R) arrays (estimate, se, lower,
+    upper, and with fieldwork the ``full_`` ones), E the cell's points (estimator x variance formula) and V
+    the variables; ``reps`` holds (R,) arrays (n, cost, and the fieldwork counts) of replicates 0 to R - 1."""
+
+    points: dict
+    reps: dict
+
+    @property
+    def shape(self) -> tuple[int, int, int]:
+        return self.points["estimate"].shape
+
+
+def cell_arrays(first: BlockResult, replicates: int) -> CellArrays:
+    """Empty arrays for the ``replicates`` replicates of the cell ``first`` (one of its blocks) belongs to."""
+    E, _, V = first.estimate.shape
+    points, reps = {}, {}
+    for k, a in vars(first).items():
+        if isinstance(a, np.ndarray):
+            if a.ndim == 3:
+                points[k] = np.empty((E, V, replicates), dtype=a.dtype)
+            else:  # n and cost as the whole table holds them (float); fieldwork columns as drawn
+                reps[k] = np.empty(replicates, dtype=float if k in ("n", "cost") else a.dtype)
+    return CellArrays(points=points, reps=reps)
+
+
+def fill_cell(arrays: CellArrays, block: BlockResult) -> None:
+    """Copy one block's replicates into its cell's arrays, at the block's first replicate."""
+    at, b = block.start, len(block.n)
+    for k, dst in arrays.points.items():
+        dst[:, :, at:at + b] = getattr(block, k).transpose(0, 2, 1)
+    for k, dst in arrays.reps.items():
+        dst[at:at + b] = getattr(block, k)
+
+
+def simulate_cells(plan, progress=None):
+    """Like :func:`simulate`, but yield (cell id, :class:`CellArrays`) of each cell, in cell order, as soon
+    as its blocks (and those of every cell before it) are in; each block is copied into its cell's arrays
+    on arrival and dropped, so only the cells still open are held, never every block of the run."""
+    spans = block_spans(plan.replicates, plan.block_size)
+    tasks = [(ci, b, s, count) for ci in range(len(plan.cells)) for b, s, count in spans]
+    open_cells, left, done, next_cell = {}, dict.fromkeys(range(len(plan.cells)), len(spans)), {}, 0
+    for r in _complete(plan, tasks, progress):
+        if r.cell not in open_cells:
+            open_cells[r.cell] = cell_arrays(r, plan.replicates)
+        fill_cell(open_cells[r.cell], r)
+        left[r.cell] -= 1
+        if left[r.cell] == 0:
+            done[r.cell] = open_cells.pop(r.cell)
+        del r
+        while next_cell in done:
+            yield next_cell, done.pop(next_cell)
+            next_cell += 1
+
+
+def cell_pieces(cell: Cell, arrays: CellArrays, variables, rows: int):
+    """The replicate-table rows of one cell (in the table's order: point, variable, replicate) as
+    DataFrames of at most ``rows`` rows each (see :func:`table_frame`)."""
+    E, V, R = arrays.shape
+    point_est = np.array([e for e, _ in cell.points], dtype=object)
+    point_var = np.array([v for _, v in cell.points], dtype=object)
+    names = np.array(variables, dtype=object)
+    label = np.array([cell.design.label], dtype=object)
+    flat = {k: a.reshape(-1) for k, a in arrays.points.items()}
+    extras = [k for k in REPLICATE_COLUMNS if k in flat or k in arrays.reps]
+    for a in range(0, E * V * R, rows):
+        i = np.arange(a, min(a + rows, E * V * R))
+        rep, var, point = i % R, (i // R) % V, i // (V * R)  # rep: the replicate number (0 to R - 1)
+        # object arrays by indexing one array of the labels: every row points to the same str, whereas
+        # np.full would make a new str object for each row (about 60 bytes a row)
+        text = {"design": label[np.zeros(len(i), dtype=np.intp)], "estimator": point_est[point],
+                "variable": names[var], "variance": point_var[point]}
+        num = {k: flat[k][i[0]:i[-1] + 1] for k in ("estimate", "se", "lower", "upper")}
+        num |= {k: arrays.reps[k][rep] for k in ("n", "cost")}
+        more = ((k, flat[k][i[0]:i[-1] + 1] if k in flat else arrays.reps[k][rep]) for k in extras)
+        yield table_frame(rep, text, np.full(len(i), int(cell.design.size), dtype=np.int64),
+                          num, more)

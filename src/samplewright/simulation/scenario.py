@@ -34,6 +34,7 @@ from samplewright.estimation.auxiliary import check_estimators
 from samplewright.estimation.cost import CostModel
 from samplewright.estimation.registry import ESTIMATORS
 from samplewright.estimation.weighting import AdjustmentSpec, adjustment_from_table
+from samplewright.memory import release_freed_memory
 from samplewright.population.frame import Frame
 from samplewright.population.frame_errors import FrameErrorSpec, frame_error_from_dict
 from samplewright.population.reading import input_file, read_table, role_columns
@@ -54,7 +55,10 @@ class FrameSource(FrameSpec):
         source = "synthetic frame" if self.synthetic is not None else str(self.path)
         labels = [self.roles[r] for r in ("stratum", "cluster") if isinstance(self.roles.get(r), str)]
         df = self.dataframe(columns=role_columns(self.roles), labels=labels)
-        return Frame.from_dataframe(df, missing=self.missing, source=source, **self.roles)
+        frame = Frame.from_dataframe(df, missing=self.missing, source=source, **self.roles)
+        del df  # the file's columns (pyarrow's buffers for a Parquet file) are freed only now:
+        release_freed_memory()  # their pages go back to the system instead of staying in the pools
+        return frame
 
 
 @dataclass(frozen=True)
