@@ -151,3 +151,20 @@ def resumable_scenario_file(tmp_path):
     pd.DataFrame({"y": y, "band": band}).to_csv(folder / "frame.csv", index=False)
     (folder / "scenario.toml").write_text(RESUMABLE_SCENARIO)
     return folder / "scenario.toml"
+
+
+def interrupt_blocks_after(monkeypatch, blocks: int):
+    """Make the engine raise KeyboardInterrupt (as Ctrl-C does) when it starts block ``blocks + 1``;
+    returns the function that puts the real block runner back."""
+    from samplewright.simulation import engine
+
+    real, calls = engine.run_block, {"n": 0}
+
+    def flaky(*a, **k):
+        calls["n"] += 1
+        if calls["n"] > blocks:
+            raise KeyboardInterrupt
+        return real(*a, **k)
+
+    monkeypatch.setattr(engine, "run_block", flaky)
+    return lambda: monkeypatch.setattr(engine, "run_block", real)

@@ -14,6 +14,7 @@ import sys
 from pathlib import Path
 
 import pandas as pd
+from conftest import interrupt_blocks_after
 
 from samplewright import report
 from samplewright.cli.main import main
@@ -83,19 +84,11 @@ def test_kept_blocks_stay_and_resume_to_identical_tables(resumable_scenario_file
 def test_an_interrupted_run_keeps_its_blocks_and_resumes_to_identical_tables(resumable_scenario_file, tmp_path,
                                                                                 monkeypatch):
     cut, ref = tmp_path / "cut", tmp_path / "ref"
-    real, calls = engine.run_block, {"n": 0}
-
-    def flaky(*a, **k):  # Ctrl-C while the fourth block is drawn
-        calls["n"] += 1
-        if calls["n"] > 3:
-            raise KeyboardInterrupt
-        return real(*a, **k)
-
-    monkeypatch.setattr(engine, "run_block", flaky)
+    restore = interrupt_blocks_after(monkeypatch, 3)  # Ctrl-C while the fourth block is drawn
     assert _run(resumable_scenario_file, cut) == 130
     assert len(list((cut / "blocks").glob("*.npz"))) == 3
     assert not (cut / "run.json").exists()
-    monkeypatch.setattr(engine, "run_block", real)
+    restore()
     assert main(["run", "--resume", str(cut), "--quiet", "--no-report"]) == 0
     assert not (cut / "blocks").exists()  # the resumed run finished: its blocks go
     assert _run(resumable_scenario_file, ref) == 0

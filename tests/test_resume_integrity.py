@@ -13,6 +13,7 @@ import os
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import interrupt_blocks_after
 
 from samplewright.cli.main import main
 from samplewright.simulation import engine
@@ -26,17 +27,9 @@ def _same_run(a, b):
 
 def _interrupted(resumable_scenario_file, out, monkeypatch, after=3):
     """Run until the block after ``after`` finished blocks, interrupted as by Ctrl-C."""
-    real, calls = engine.run_block, {"n": 0}
-
-    def flaky(*a, **k):
-        calls["n"] += 1
-        if calls["n"] > after:
-            raise KeyboardInterrupt
-        return real(*a, **k)
-
-    monkeypatch.setattr(engine, "run_block", flaky)
+    restore = interrupt_blocks_after(monkeypatch, after)
     assert main(["run", str(resumable_scenario_file), "--out", str(out), "--quiet", "--no-report"]) == 130
-    monkeypatch.setattr(engine, "run_block", real)
+    restore()
 
 
 def _full(resumable_scenario_file, out):

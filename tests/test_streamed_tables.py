@@ -14,6 +14,7 @@ import pickle
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import interrupt_blocks_after
 
 from samplewright import run
 from samplewright.cli.main import main
@@ -116,17 +117,9 @@ def test_an_interrupted_run_keeps_its_blocks_and_resumes_to_the_same_tables(resu
                                                                              monkeypatch):
     full, cut = tmp_path / "full", tmp_path / "cut"
     assert _cli_run(resumable_scenario_file, full) == 0
-    real, calls = engine.run_block, {"n": 0}
-
-    def flaky(*a, **k):  # interrupted as by Ctrl-C after four blocks: the first cell done, the second begun
-        calls["n"] += 1
-        if calls["n"] > 4:
-            raise KeyboardInterrupt
-        return real(*a, **k)
-
-    monkeypatch.setattr(engine, "run_block", flaky)
+    restore = interrupt_blocks_after(monkeypatch, 4)  # Ctrl-C after four blocks: the first cell done, the second begun
     assert _cli_run(resumable_scenario_file, cut) == 130
-    monkeypatch.setattr(engine, "run_block", real)
+    restore()
     assert len(list((cut / FOLDER).glob("*.npz"))) == 4 and (cut / FOLDER / "manifest.json").is_file()
     assert _temp_files(cut) == [] and not (cut / "replicates.parquet").exists()
     assert main(["run", "--resume", str(cut), "--quiet", "--no-report"]) == 0
