@@ -25,7 +25,7 @@ import pandas as pd
 from samplewright.errors import InputError
 from samplewright.population.layout import Layout
 from samplewright.population.layout import build as build_layout
-from samplewright.population.reading import read_table
+from samplewright.population.reading import label_columns, read_table
 
 #: index of the "ones" column and of the unit-cost column, counted from the end of ``values``
 COUNT = -2
@@ -409,8 +409,7 @@ class Frame:
     def load(cls, path, **roles) -> Frame:
         """Read a frame file (see :func:`~samplewright.population.reading.read_table`) and bind its columns
         (see :meth:`from_dataframe`)."""
-        labels = [roles[r] for r in ("stratum", "cluster") if isinstance(roles.get(r), str)]
-        return cls.from_dataframe(read_table(path, labels=labels), source=str(path), **roles)
+        return cls.from_dataframe(read_table(path, labels=label_columns(roles)), source=str(path), **roles)
 
 
 def _digest(h, name: str, value) -> None:

@@ -93,6 +93,12 @@ def role_columns(roles: dict) -> list[str]:
     return list(dict.fromkeys(n for n in names if isinstance(n, str)))
 
 
+def label_columns(roles: dict) -> list[str]:
+    """The columns ``roles`` bind as labels (stratum, cluster): read as dictionaries from Parquet
+    (``read_table(..., labels=)``)."""
+    return [roles[r] for r in ("stratum", "cluster") if isinstance(roles.get(r), str)]
+
+
 def _is_text(series: pd.Series) -> bool:
     return pd.api.types.is_object_dtype(series) or pd.api.types.is_string_dtype(series)
 

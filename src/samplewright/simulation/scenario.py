@@ -37,7 +37,7 @@ from samplewright.estimation.weighting import AdjustmentSpec, adjustment_from_ta
 from samplewright.memory import release_freed_memory
 from samplewright.population.frame import Frame
 from samplewright.population.frame_errors import FrameErrorSpec, frame_error_from_dict
-from samplewright.population.reading import input_file, read_table, role_columns
+from samplewright.population.reading import input_file, label_columns, read_table, role_columns
 from samplewright.population.synth import generate, stratum_units
 from samplewright.simulation.response import ResponseModel, response_from_dict
 
@@ -53,8 +53,7 @@ class FrameSource(FrameSpec):
 
     def load(self) -> Frame:
         source = "synthetic frame" if self.synthetic is not None else str(self.path)
-        labels = [self.roles[r] for r in ("stratum", "cluster") if isinstance(self.roles.get(r), str)]
-        df = self.dataframe(columns=role_columns(self.roles), labels=labels)
+        df = self.dataframe(columns=role_columns(self.roles), labels=label_columns(self.roles))
         frame = Frame.from_dataframe(df, missing=self.missing, source=source, **self.roles)
         del df  # the file's columns (pyarrow's buffers for a Parquet file) are freed only now:
         release_freed_memory()  # their pages go back to the system instead of staying in the pools
